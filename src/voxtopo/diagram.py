@@ -1,0 +1,237 @@
+"""The Diagram: persistence pairs with their voxel locations, and what follows from them."""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, replace
+from dataclasses import field as dataclass_field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from .errors import InputError
+
+AXES_3D = ("z", "y", "x")
+
+
+def location_columns(ndim: int) -> list[str]:
+    """birth_z, birth_y, birth_x, death_z, ... (2D drops the z columns)."""
+    axes = AXES_3D[3 - ndim:]
+    return [f"birth_{a}" for a in axes] + [f"death_{a}" for a in axes]
+
+
+def columns(ndim: int) -> list[str]:
+    """The columns of ``Diagram.pairs`` for a scan of ``ndim`` dimensions."""
+    return ["dim", "birth", "death", "persistence"] + location_columns(ndim)
+
+
+@dataclass(frozen=True)
+class Diagram:
+    """A persistence diagram of a scan.
+
+    ``pairs`` is a DataFrame with one row per pair: ``dim, birth, death, persistence,
+    birth_z, birth_y, birth_x, death_z, death_y, death_x`` (2D drops the z columns).
+    Locations are voxel indices (nullable integers); an essential class has
+    ``death = inf`` (superlevel: ``-inf``), infinite persistence and no death location.
+
+    The other fields say how the diagram was made, so it can be read on its own.
+    """
+
+    pairs: pd.DataFrame
+    ndim: int
+    shape: tuple[int, ...]
+    superlevel: bool = False
+    neighbourhood: int = 26
+    spacing: tuple[float, ...] = ()
+    unit: str = "px"
+    values: str = "intensity"
+    field: int = 2
+    periodic: tuple[bool, ...] = ()
+    engine: str = ""
+    min_persistence: float = 0.0
+    source: str = ""
+    notes: tuple[str, ...] = ()
+    seconds: float = float("nan")
+    extra: dict = dataclass_field(default_factory=dict)
+
+    # construction -----------------------------------------------------------------
+    @classmethod
+    def from_raw(cls, raw, scan, *, superlevel, neighbourhood, field, periodic,
+                 min_persistence=0.0, notes=(), seconds=float("nan")) -> "Diagram":
+        """Build a Diagram from a backend's RawPairs and the scan it came from."""
+        ndim = scan.ndim
+        persistence = np.abs(raw.death - raw.birth)
+        keep = persistence > min_persistence
+        frame = {"dim": raw.dim[keep].astype(np.int64), "birth": raw.birth[keep],
+                 "death": raw.death[keep], "persistence": persistence[keep]}
+        axes = AXES_3D[3 - ndim:]
+        b = np.unravel_index(raw.birth_index[keep], scan.shape)
+        d_idx = raw.death_index[keep]
+        d = np.unravel_index(np.maximum(d_idx, 0), scan.shape)
+        for a, coord in zip(axes, b):
+            frame[f"birth_{a}"] = pd.array(coord, dtype="Int64")
+        for a, coord in zip(axes, d):
+            col = pd.array(coord, dtype="Int64")
+            col[d_idx < 0] = pd.NA
+            frame[f"death_{a}"] = col
+        pairs = pd.DataFrame(frame, columns=columns(ndim))
+        pairs = _sorted(pairs)
+        return cls(pairs=pairs, ndim=ndim, shape=tuple(scan.shape), superlevel=superlevel,
+                   neighbourhood=neighbourhood, spacing=tuple(scan.spacing), unit=scan.unit,
+                   values=scan.values, field=field, periodic=tuple(periodic),
+                   engine=raw.engine, min_persistence=float(min_persistence),
+                   source=scan.source, notes=tuple(notes), seconds=seconds)
+
+    def _with_pairs(self, pairs: pd.DataFrame) -> "Diagram":
+        return replace(self, pairs=pairs.reset_index(drop=True))
+
+    # selection ----------------------------------------------------------------------
+    def __len__(self) -> int:
+        return len(self.pairs)
+
+    def dimension(self, dim: int) -> "Diagram":
+        """Only the pairs of homological dimension ``dim``."""
+        return self._with_pairs(self.pairs[self.pairs["dim"] == dim])
+
+    def above(self, min_persistence: float) -> "Diagram":
+        """Only the pairs whose persistence is strictly greater than ``min_persistence``."""
+        return self._with_pairs(self.pairs[self.pairs["persistence"] > min_persistence])
+
+    def finite(self) -> "Diagram":
+        """Only the pairs that die (no essential classes)."""
+        return self._with_pairs(self.pairs[np.isfinite(self.pairs["death"])])
+
+    def intervals(self, dim: int) -> np.ndarray:
+        """(n, 2) array of (birth, death) in dimension ``dim``."""
+        rows = self.pairs[self.pairs["dim"] == dim]
+        return rows[["birth", "death"]].to_numpy(dtype=np.float64)
+
+    def most_persistent(self, n: int = 10, dim: int | None = None) -> pd.DataFrame:
+        """The ``n`` longest-lived pairs (per dimension when ``dim`` is None)."""
+        rows = self.pairs if dim is None else self.pairs[self.pairs["dim"] == dim]
+        return (rows.sort_values(["dim", "persistence"], ascending=[True, False], kind="stable")
+                .groupby("dim", group_keys=False).head(n))
+
+    def counts(self, min_persistence: float | None = None) -> dict[int, int]:
+        """Number of pairs per dimension (above ``min_persistence`` when given)."""
+        rows = self.pairs if min_persistence is None else \
+            self.pairs[self.pairs["persistence"] > min_persistence]
+        return {d: int((rows["dim"] == d).sum()) for d in range(self.ndim)}
+
+    # Betti and Euler ------------------------------------------------------------------
+    def _alive(self, level: float) -> np.ndarray:
+        b = self.pairs["birth"].to_numpy()
+        d = self.pairs["death"].to_numpy()
+        if self.superlevel:
+            return (b >= level) & (d < level)
+        return (b <= level) & (d > level)
+
+    def betti(self, level: float) -> list[int]:
+        """Betti numbers [b0, b1, (b2)] of the swept set at ``level``.
+
+        Sublevel: the set {value <= level}; superlevel: {value >= level}.
+        """
+        alive = self._alive(level)
+        dims = self.pairs["dim"].to_numpy()
+        return [int(np.count_nonzero(alive & (dims == k))) for k in range(self.ndim)]
+
+    def betti_curve(self, levels) -> pd.DataFrame:
+        """Betti numbers at each level: columns ``level, betti_0, betti_1, (betti_2)``."""
+        levels = np.asarray(levels, dtype=np.float64)
+        b = self.pairs["birth"].to_numpy()
+        d = self.pairs["death"].to_numpy()
+        dims = self.pairs["dim"].to_numpy()
+        out = {"level": levels}
+        for k in range(self.ndim):
+            bk, dk = b[dims == k], d[dims == k]
+            if self.superlevel:
+                # alive when birth >= level > death
+                born = len(bk) - np.searchsorted(np.sort(bk), levels, side="left")
+                dead = len(dk) - np.searchsorted(np.sort(dk), levels, side="left")
+            else:
+                born = np.searchsorted(np.sort(bk), levels, side="right")
+                dead = np.searchsorted(np.sort(dk), levels, side="right")
+            out[f"betti_{k}"] = (born - dead).astype(np.int64)
+        return pd.DataFrame(out)
+
+    def euler_curve(self, levels) -> pd.DataFrame:
+        """Euler characteristic (alternating sum of Betti numbers) at each level."""
+        curve = self.betti_curve(levels)
+        chi = sum((-1) ** k * curve[f"betti_{k}"] for k in range(self.ndim))
+        return pd.DataFrame({"level": curve["level"], "euler_characteristic": chi})
+
+    def level_grid(self, n: int = 256) -> np.ndarray:
+        """n levels spanning every finite birth and death."""
+        vals = self.pairs[["birth", "death"]].to_numpy(dtype=np.float64).ravel()
+        vals = vals[np.isfinite(vals)]
+        if len(vals) == 0:
+            return np.zeros(1)
+        lo, hi = float(vals.min()), float(vals.max())
+        return np.linspace(lo, hi, n) if hi > lo else np.array([lo])
+
+    # physical positions ---------------------------------------------------------------
+    def positions(self, which: str = "birth") -> np.ndarray:
+        """(n, ndim) physical coordinates of the birth or death voxels (NaN where none)."""
+        axes = AXES_3D[3 - self.ndim:]
+        idx = self.pairs[[f"{which}_{a}" for a in axes]].to_numpy(dtype=np.float64,
+                                                                  na_value=np.nan)
+        return idx * np.asarray(self.spacing, dtype=np.float64)
+
+    # files ----------------------------------------------------------------------------
+    def description(self) -> dict:
+        """How the diagram was made, as JSON values."""
+        return {
+            "ndim": self.ndim, "shape": list(self.shape), "superlevel": self.superlevel,
+            "neighbourhood": self.neighbourhood, "spacing": list(self.spacing),
+            "unit": self.unit, "values": self.values, "field": self.field,
+            "periodic": list(self.periodic), "engine": self.engine,
+            "min_persistence": self.min_persistence, "source": self.source,
+            "notes": list(self.notes),
+        }
+
+    def save(self, folder, name: str = "pairs.csv") -> None:
+        """Write ``pairs.csv`` and the diagram's description into ``summary.json``
+        (merged under the key ``"diagram"`` when summary.json exists)."""
+        folder = Path(folder)
+        self.pairs.to_csv(folder / name, index=False, float_format="%.10g")
+        summary_path = folder / "summary.json"
+        summary = json.loads(summary_path.read_text()) if summary_path.exists() else {}
+        summary["diagram"] = self.description()
+        summary_path.write_text(json.dumps(summary, indent=2, allow_nan=True))
+
+    @classmethod
+    def load(cls, folder, name: str = "pairs.csv") -> "Diagram":
+        """Read a Diagram back from a result folder written by :meth:`save`."""
+        folder = Path(folder)
+        pairs_path, summary_path = folder / name, folder / "summary.json"
+        if not pairs_path.is_file() or not summary_path.is_file():
+            raise InputError(f"{folder} is not a voxtopo result folder: it needs {name} "
+                             f"and summary.json.")
+        meta = json.loads(summary_path.read_text()).get("diagram")
+        if meta is None:
+            raise InputError(f"{summary_path} has no 'diagram' entry; it was not written "
+                             f"by voxtopo analyse.")
+        ndim = int(meta["ndim"])
+        pairs = pd.read_csv(pairs_path)
+        missing = set(columns(ndim)) - set(pairs.columns)
+        if missing:
+            raise InputError(f"{pairs_path} lacks the columns {sorted(missing)}.")
+        pairs = pairs[columns(ndim)].copy()
+        pairs["dim"] = pairs["dim"].astype(np.int64)
+        for c in ("birth", "death", "persistence"):
+            pairs[c] = pairs[c].astype(np.float64)
+        for c in location_columns(ndim):
+            pairs[c] = pairs[c].astype("Int64")
+        return cls(pairs=pairs, ndim=ndim, shape=tuple(meta["shape"]),
+                   superlevel=bool(meta["superlevel"]), neighbourhood=int(meta["neighbourhood"]),
+                   spacing=tuple(meta["spacing"]), unit=meta["unit"], values=meta["values"],
+                   field=int(meta["field"]), periodic=tuple(meta["periodic"]),
+                   engine=meta["engine"], min_persistence=float(meta["min_persistence"]),
+                   source=meta["source"], notes=tuple(meta.get("notes", ())))
+
+
+def _sorted(pairs: pd.DataFrame) -> pd.DataFrame:
+    """Dimension, then longest-lived first; a stable, documented order for files."""
+    return pairs.sort_values(["dim", "persistence", "birth"], ascending=[True, False, True],
+                             kind="stable").reset_index(drop=True)

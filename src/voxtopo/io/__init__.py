@@ -1,0 +1,6 @@
+"""Readers for scans and the atomic writer of result folders."""
+
+from ._load import load
+from .results import result_folder
+
+__all__ = ["load", "result_folder"]

@@ -1,0 +1,48 @@
+"""How much memory a run may use, and refusing runs that would not fit."""
+
+from __future__ import annotations
+
+import os
+
+from .errors import TooBigError
+
+#: Fraction of the currently available memory a single run may plan to use.
+BUDGET_FRACTION = 0.8
+
+
+def available_bytes() -> int:
+    """Memory available to new allocations, from /proc/meminfo (or os.sysconf)."""
+    override = os.environ.get("VOXTOPO_MEMORY_LIMIT")
+    if override:
+        return int(float(override))
+    try:
+        with open("/proc/meminfo") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    return os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_AVPHYS_PAGES")
+
+
+def human(nbytes: float) -> str:
+    """1234567 -> '1.2 MB'."""
+    for unit in ("B", "kB", "MB", "GB", "TB"):
+        if abs(nbytes) < 1000 or unit == "TB":
+            return f"{nbytes:.1f} {unit}" if unit != "B" else f"{int(nbytes)} B"
+        nbytes /= 1000
+    return f"{nbytes:.1f} TB"
+
+
+def ensure_fits(needed: int, what: str, remedy: str) -> None:
+    """Raise TooBigError when ``needed`` bytes exceed the memory budget.
+
+    The environment variable VOXTOPO_MEMORY_LIMIT (bytes) replaces the measured
+    available memory; tests use it to exercise the refusal without huge arrays.
+    """
+    budget = int(available_bytes() * BUDGET_FRACTION)
+    if needed > budget:
+        raise TooBigError(
+            f"{what} would need about {human(needed)} of memory but only {human(budget)} "
+            f"is available; {remedy}."
+        )

@@ -1,0 +1,97 @@
+"""The Scan: a grayscale 2D image or 3D volume with its voxel size."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+from .errors import InputError
+
+
+@dataclass(frozen=True)
+class Scan:
+    """A 2D image (y, x) or 3D volume (z, y, x) with its physical voxel size.
+
+    Parameters
+    ----------
+    data : ndarray
+        Gray values, 2D or 3D, indexed (y, x) or (z, y, x).
+    spacing : tuple of float
+        Size of one voxel along each axis, in the same order as ``data.shape``.
+    unit : str
+        Unit of ``spacing`` ("um", "nm", "mm", ...); "px" when unknown.
+    source : str
+        Where the data came from (a path, or a short description).
+    values : str
+        What the values mean: "intensity" for gray values, "distance" for a signed
+        distance transform (then in ``unit``).
+    metadata : dict
+        Anything else the reader found (JSON-serialisable).
+    """
+
+    data: np.ndarray
+    spacing: tuple[float, ...] = ()
+    unit: str = "px"
+    source: str = ""
+    values: str = "intensity"
+    metadata: dict = field(default_factory=dict)
+
+    def __post_init__(self):
+        data = np.asarray(self.data)
+        if data.ndim not in (2, 3):
+            raise InputError(
+                f"A scan must be a 2D image or a 3D volume, got an array of shape {data.shape}"
+                f"{' from ' + self.source if self.source else ''}."
+            )
+        object.__setattr__(self, "data", data)
+        spacing = self.spacing or (1.0,) * data.ndim
+        spacing = tuple(float(s) for s in spacing)
+        if len(spacing) != data.ndim:
+            raise InputError(
+                f"Spacing {spacing} has {len(spacing)} values but the scan is {data.ndim}D; "
+                f"give one value per axis in (z, y, x) order."
+            )
+        if not all(np.isfinite(s) and s > 0 for s in spacing):
+            raise InputError(f"Spacing must be positive numbers, got {spacing}.")
+        object.__setattr__(self, "spacing", spacing)
+
+    @property
+    def ndim(self) -> int:
+        return self.data.ndim
+
+    @property
+    def shape(self) -> tuple[int, ...]:
+        return self.data.shape
+
+    def with_data(self, data: np.ndarray, **changes) -> "Scan":
+        """A copy of this scan with new values (and optionally new spacing etc.)."""
+        return replace(self, data=data, **changes)
+
+    def describe(self) -> dict:
+        """Shape, dtype, spacing, unit and source as plain JSON values."""
+        return {
+            "shape": list(self.shape),
+            "dtype": str(self.data.dtype),
+            "spacing": list(self.spacing),
+            "unit": self.unit,
+            "source": self.source,
+            "values": self.values,
+        }
+
+
+def as_scan(scan_or_array, spacing=None, unit=None) -> Scan:
+    """Wrap an array as a Scan (spacing 1 px) or pass a Scan through.
+
+    ``spacing`` and ``unit``, when given, win over what the scan carries.
+    """
+    if isinstance(scan_or_array, Scan):
+        scan = scan_or_array
+        changes = {}
+        if spacing is not None:
+            changes["spacing"] = tuple(spacing)
+        if unit is not None:
+            changes["unit"] = unit
+        return replace(scan, **changes) if changes else scan
+    return Scan(np.asarray(scan_or_array), spacing=tuple(spacing or ()), unit=unit or "px",
+                source="array")
