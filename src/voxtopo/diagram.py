@@ -194,11 +194,11 @@ class Diagram:
         """Write ``pairs.csv`` and the diagram's description into ``summary.json``
         (merged under the key ``"diagram"`` when summary.json exists)."""
         folder = Path(folder)
-        self.pairs.to_csv(folder / name, index=False, float_format="%.10g")
+        self.pairs.to_csv(folder / name, index=False)
         summary_path = folder / "summary.json"
         summary = json.loads(summary_path.read_text()) if summary_path.exists() else {}
         summary["diagram"] = self.description()
-        summary_path.write_text(json.dumps(summary, indent=2, allow_nan=True))
+        summary_path.write_text(json.dumps(summary, indent=2, allow_nan=False))
 
     @classmethod
     def load(cls, folder, name: str = "pairs.csv") -> "Diagram":

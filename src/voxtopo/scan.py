@@ -17,8 +17,9 @@ class Scan:
     ----------
     data : ndarray
         Gray values, 2D or 3D, indexed (y, x) or (z, y, x).
-    spacing : tuple of float
-        Size of one voxel along each axis, in the same order as ``data.shape``.
+    spacing : float or tuple of float
+        Size of one voxel along each axis, in the same order as ``data.shape`` (one number
+        means the same size along every axis).
     unit : str
         Unit of ``spacing`` ("um", "nm", "mm", ...); "px" when unknown.
     source : str
@@ -45,7 +46,10 @@ class Scan:
                 f"{' from ' + self.source if self.source else ''}."
             )
         object.__setattr__(self, "data", data)
-        spacing = self.spacing or (1.0,) * data.ndim
+        spacing = self.spacing or (1.0,)
+        spacing = (spacing,) if np.isscalar(spacing) else tuple(spacing)
+        if len(spacing) == 1:
+            spacing = spacing * data.ndim
         spacing = tuple(float(s) for s in spacing)
         if len(spacing) != data.ndim:
             raise InputError(

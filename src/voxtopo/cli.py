@@ -1,0 +1,220 @@
+"""The `voxtopo` command: a thin shell over the library.
+
+Each subcommand is added by an ``_add_<name>(subparsers)`` function that sets its handler
+with ``set_defaults(handler=...)``; the handlers only translate options into library calls.
+Bad input ends with one sentence on stderr and exit code 2 (a traceback only with --debug).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+
+from . import __version__
+from .errors import Cancelled, VoxtopoError
+
+EXIT_BAD_INPUT = 2
+EXIT_INTERRUPTED = 130
+
+
+class ProgressBar:
+    """Progress on stderr: a redrawn bar on a terminal, one line per phase otherwise."""
+
+    def __init__(self, stream=None, width: int = 28):
+        self.stream = stream or sys.stderr
+        self.width = width
+        self.phase = None
+        self.started = time.perf_counter()
+        self.tty = hasattr(self.stream, "isatty") and self.stream.isatty()
+        self._last_draw = 0.0
+
+    def __call__(self, phase: str, fraction: float) -> None:
+        fraction = min(max(float(fraction), 0.0), 1.0)
+        now = time.perf_counter()
+        if phase != self.phase:
+            if self.tty and self.phase is not None:
+                self.stream.write("\n")
+            self.phase = phase
+            self.started = now
+            if not self.tty:
+                self.stream.write(f"voxtopo: {phase} ...\n")
+                self.stream.flush()
+        if self.tty and (now - self._last_draw > 0.1 or fraction >= 1.0):
+            filled = int(round(self.width * fraction))
+            bar = "#" * filled + "." * (self.width - filled)
+            self.stream.write(f"\r{phase:<28} [{bar}] {fraction:4.0%} "
+                              f"{now - self.started:6.1f} s")
+            self.stream.flush()
+            self._last_draw = now
+
+    def close(self) -> None:
+        if self.tty and self.phase is not None:
+            self.stream.write("\n")
+            self.stream.flush()
+
+
+def _spacing(text: str):
+    try:
+        values = tuple(float(v) for v in text.split(","))
+    except ValueError:
+        raise argparse.ArgumentTypeError(
+            f"spacing should be one number or one per axis like 2.5,1.2,1.2; got {text!r}")
+    return values
+
+
+def _shape(text: str):
+    try:
+        return tuple(int(v) for v in text.lower().replace("x", ",").split(","))
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"shape should look like 64,128,128; got {text!r}")
+
+
+def add_load_options(parser: argparse.ArgumentParser) -> None:
+    """Options every subcommand that reads a scan shares."""
+    group = parser.add_argument_group("reading the scan")
+    group.add_argument("--spacing", type=_spacing, metavar="Z,Y,X",
+                       help="voxel size (one value, or one per axis in z,y,x order); "
+                            "wins over the file's metadata")
+    group.add_argument("--unit", help="unit of the spacing, e.g. um, nm, mm")
+    group.add_argument("--channel", type=int, help="channel to take from a multichannel file")
+    group.add_argument("--timepoint", type=int, help="time point to take from a time series")
+    group.add_argument("--raw-shape", type=_shape, metavar="Z,Y,X",
+                       help="shape of a raw binary file")
+    group.add_argument("--raw-dtype", help="data type of a raw file, e.g. uint8, uint16, float32")
+    group.add_argument("--byte-order", choices=["little", "big"], default="little",
+                       help="byte order of a raw file (default little)")
+    group.add_argument("--raw-offset", type=int, default=0,
+                       help="bytes to skip at the start of a raw file")
+    group.add_argument("--level", type=int, default=0,
+                       help="resolution level of an OME-Zarr image (0 = full resolution)")
+
+
+def load_options_from(args) -> dict:
+    """The keyword arguments of voxtopo.load from parsed options."""
+    options = {"spacing": args.spacing, "unit": args.unit, "channel": args.channel,
+               "timepoint": args.timepoint, "shape": args.raw_shape, "dtype": args.raw_dtype,
+               "byte_order": args.byte_order, "offset": args.raw_offset, "level": args.level}
+    defaults = {"byte_order": "little", "offset": 0, "level": 0}
+    return {k: v for k, v in options.items() if v is not None and defaults.get(k, None) != v}
+
+
+def _add_analyse(subparsers) -> None:
+    p = subparsers.add_parser(
+        "analyse", aliases=["analyze"],
+        help="persistence diagram of one scan, written to a result folder",
+        description="Compute the cubical persistence diagram of a 2D image or 3D volume "
+                    "and write pairs.csv, summary.json and plots into a new folder.")
+    p.add_argument("scan", help="TIFF/OME-TIFF file, folder or glob of slices, .npy, raw, "
+                                "or OME-Zarr")
+    p.add_argument("--out", required=True, help="result folder to create")
+    p.add_argument("--force", action="store_true", help="replace the result folder if it exists")
+    f = p.add_argument_group("filtration")
+    f.add_argument("--superlevel", action="store_true",
+                   help="sweep from bright to dark (bright features first)")
+    f.add_argument("--neighbourhood", "--neighborhood", type=int, choices=[4, 8, 6, 26],
+                   help="connectivity of the swept set: 4/8 in 2D, 6/26 in 3D "
+                        "(default 8/26, the voxel construction)")
+    f.add_argument("--smooth", type=float, metavar="SIGMA",
+                   help="Gaussian smoothing, sigma in the scan's unit")
+    f.add_argument("--crop", metavar="Z0:Z1,Y0:Y1,X0:X1", help="analyse only this box")
+    f.add_argument("--downsample", type=int, default=1, metavar="N",
+                   help="block-mean downsampling by N along every axis")
+    f.add_argument("--distance", action="store_true",
+                   help="analyse the signed distance transform of a mask (pores negative)")
+    f.add_argument("--threshold", help="with --distance on a gray scan: a value or 'otsu'")
+    f.add_argument("--pores-bright", action="store_true",
+                   help="with --threshold: pores are the voxels above it")
+    f.add_argument("--fill-invalid", metavar="max|min|VALUE",
+                   help="put this value into NaN voxels instead of refusing the scan")
+    e = p.add_argument_group("persistence")
+    e.add_argument("--min-persistence", type=float, default=0.0,
+                   help="keep only pairs that live longer than this")
+    e.add_argument("--periodic", action="store_true", help="glue opposite faces of the scan")
+    e.add_argument("--field", type=int, default=2, help="prime p of the coefficients Z/p")
+    e.add_argument("--engine", choices=["auto", "voxtopo", "gudhi"], default="auto",
+                   help="persistence engine (auto: our own where it applies)")
+    add_load_options(p)
+    p.set_defaults(handler=_run_analyse)
+
+
+def _run_analyse(args) -> int:
+    from .io import load
+    from .io.results import check_target
+    from .pipeline import AnalysisOptions, analyse
+    threshold = args.threshold
+    if threshold is not None and threshold != "otsu":
+        try:
+            threshold = float(threshold)
+        except ValueError:
+            raise VoxtopoError(f"--threshold should be a number or 'otsu', got {threshold!r}.")
+    options = AnalysisOptions(
+        superlevel=args.superlevel, neighbourhood=args.neighbourhood, sigma=args.smooth,
+        crop=args.crop, downsample=args.downsample, distance=args.distance,
+        threshold=threshold, pores_bright=args.pores_bright,
+        fill_invalid=_fill_value(args.fill_invalid), min_persistence=args.min_persistence,
+        periodic=args.periodic, field=args.field, engine=args.engine)
+    check_target(args.out, args.force)
+    load_options = load_options_from(args)
+    scan = load(args.scan, **load_options)
+    bar = ProgressBar()
+    try:
+        diagram = analyse(scan, args.out, options, force=args.force, progress=bar)
+    finally:
+        bar.close()
+    counts = ", ".join(f"dim {d}: {n}" for d, n in diagram.counts(args.min_persistence).items())
+    print(f"voxtopo: {len(diagram)} pairs ({counts}) in {diagram.seconds:.2f} s "
+          f"with the {diagram.engine} engine")
+    print(f"voxtopo: results written to {args.out}")
+    return 0
+
+
+def _fill_value(text):
+    if text is None or text in ("max", "min"):
+        return text
+    try:
+        return float(text)
+    except ValueError:
+        raise VoxtopoError(f"--fill-invalid should be max, min or a number, got {text!r}.")
+
+
+SUBCOMMANDS = (_add_analyse,)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="voxtopo",
+        description="Topology of images and volumes with cubical persistent homology. "
+                    "Results support research; they are not a diagnosis nor a certification.")
+    parser.add_argument("--version", action="version", version=f"voxtopo {__version__}")
+    parser.add_argument("--debug", action="store_true",
+                        help="show the full traceback when something goes wrong")
+    subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for add in SUBCOMMANDS:
+        add(subparsers)
+    return parser
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "handler", None):
+        parser.print_help(sys.stderr)
+        return EXIT_BAD_INPUT
+    try:
+        return int(args.handler(args) or 0)
+    except Cancelled:
+        print("voxtopo: cancelled; nothing was written.", file=sys.stderr)
+        return EXIT_INTERRUPTED
+    except KeyboardInterrupt:
+        print("voxtopo: interrupted; nothing was written.", file=sys.stderr)
+        return EXIT_INTERRUPTED
+    except (VoxtopoError, MemoryError) as error:
+        if args.debug:
+            raise
+        print(f"voxtopo: error: {error}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,174 @@
+"""Plots of persistence results (matplotlib, Agg backend, no display needed).
+
+Every function takes a :class:`voxtopo.Diagram` (or a DataFrame with ``dim, birth, death``
+columns, as the patch-space tables have) and an optional matplotlib Axes, and returns the
+Axes. ``save_standard_plots`` writes the four standard figures of a result folder.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+
+#: Our colours for homological dimensions 0, 1, 2 (teal, rose, amber) and their names.
+DIM_COLOURS = ("#1f7a8c", "#c8553d", "#e0a458")
+DIM_NAMES = {0: "components", 1: "loops", 2: "cavities"}
+_INK = "#2b2d42"
+
+
+def _unpack(diagram):
+    if isinstance(diagram, pd.DataFrame):
+        return diagram, None
+    return diagram.pairs, diagram
+
+
+def value_label(diagram) -> str:
+    """Axis label for filtration values: the physical unit for distance filtrations."""
+    if diagram is None:
+        return "scale"
+    if diagram.values == "distance":
+        return f"signed distance ({diagram.unit})"
+    return "gray value"
+
+
+def _new_axes(ax, size=(5.2, 5.0)):
+    if ax is None:
+        _, ax = plt.subplots(figsize=size, constrained_layout=True)
+    return ax
+
+
+def _style(ax):
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+    ax.tick_params(colors=_INK)
+    ax.grid(True, color="#e5e5e5", linewidth=0.6)
+    ax.set_axisbelow(True)
+
+
+def plot_diagram(diagram, ax=None, title: str | None = None, dims=None):
+    """Persistence diagram: death against birth, the diagonal, essential classes on a band
+    marked "never dies"."""
+    pairs, diag = _unpack(diagram)
+    ax = _new_axes(ax)
+    dims = sorted(pairs["dim"].unique()) if dims is None else dims
+    finite_vals = pairs[["birth", "death"]].to_numpy(dtype=float).ravel()
+    finite_vals = finite_vals[np.isfinite(finite_vals)]
+    lo, hi = (finite_vals.min(), finite_vals.max()) if len(finite_vals) else (0.0, 1.0)
+    span = (hi - lo) or 1.0
+    superlevel = bool(diag.superlevel) if diag is not None else False
+    band = (lo - 0.08 * span) if superlevel else (hi + 0.08 * span)
+    ax.plot([lo - 0.1 * span, hi + 0.1 * span], [lo - 0.1 * span, hi + 0.1 * span],
+            color="#8d99ae", linewidth=1, zorder=1)
+    for d in dims:
+        rows = pairs[pairs["dim"] == d]
+        death = rows["death"].to_numpy(dtype=float)
+        essential = ~np.isfinite(death)
+        colour = DIM_COLOURS[int(d) % 3]
+        ax.scatter(rows["birth"][~essential], death[~essential], s=14, color=colour,
+                   alpha=0.75, edgecolors="none", label=f"dim {d} ({DIM_NAMES.get(int(d), '')})",
+                   zorder=3)
+        if essential.any():
+            ax.scatter(rows["birth"][essential], np.full(essential.sum(), band), s=36,
+                       marker="D", color=colour, edgecolors=_INK, linewidths=0.6, zorder=4)
+    ax.axhline(band, color="#8d99ae", linestyle=":", linewidth=1)
+    ax.annotate("never dies", (lo - 0.1 * span, band), textcoords="offset points",
+                xytext=(2, 3), fontsize=8, color=_INK)
+    label = value_label(diag)
+    ax.set_xlabel(f"birth: {label}")
+    ax.set_ylabel(f"death: {label}")
+    ax.set_title(title or "Persistence diagram", color=_INK)
+    _style(ax)
+    if len(pairs):
+        ax.legend(frameon=False, fontsize=8, loc="lower right" if not superlevel else "upper left")
+    return ax
+
+
+def plot_barcode(diagram, ax=None, title: str | None = None, max_bars: int = 60):
+    """Barcode: the ``max_bars`` longest bars per dimension, grouped by dimension."""
+    pairs, diag = _unpack(diagram)
+    ax = _new_axes(ax, size=(6.4, 5.0))
+    finite = pairs[np.isfinite(pairs["death"].to_numpy(dtype=float))]
+    vals = finite[["birth", "death"]].to_numpy(dtype=float).ravel()
+    vals = np.concatenate([vals, pairs["birth"].to_numpy(dtype=float)])
+    lo, hi = (vals.min(), vals.max()) if len(vals) else (0.0, 1.0)
+    superlevel = bool(diag.superlevel) if diag is not None else False
+    far_end = lo if superlevel else hi
+    row = 0
+    ticks, names = [], []
+    for d in sorted(pairs["dim"].unique()):
+        rows = pairs[pairs["dim"] == d].sort_values("persistence", ascending=False).head(max_bars)
+        start = row
+        for b, dth in zip(rows["birth"], rows["death"]):
+            end = dth if np.isfinite(dth) else far_end
+            ax.plot([b, end], [row, row], color=DIM_COLOURS[int(d) % 3], linewidth=2.2,
+                    solid_capstyle="butt")
+            if not np.isfinite(dth):
+                ax.plot([end], [row], marker="<" if superlevel else ">",
+                        color=DIM_COLOURS[int(d) % 3], markersize=5)
+            row += 1
+        if row > start:
+            ticks.append((start + row - 1) / 2)
+            names.append(f"dim {d}")
+        row += 2
+    ax.set_yticks(ticks, names)
+    ax.invert_yaxis()
+    ax.set_xlabel(value_label(diag))
+    ax.set_title(title or f"Barcode (longest {max_bars} per dimension)", color=_INK)
+    _style(ax)
+    return ax
+
+
+def plot_betti_curves(diagram, ax=None, levels=None, title: str | None = None):
+    """Betti numbers of the swept set against the filtration level."""
+    ax = _new_axes(ax, size=(6.4, 4.2))
+    levels = diagram.level_grid() if levels is None else levels
+    curve = diagram.betti_curve(levels)
+    for k in range(diagram.ndim):
+        ax.step(curve["level"], curve[f"betti_{k}"], where="post", color=DIM_COLOURS[k],
+                label=f"Betti {k} ({DIM_NAMES[k]})")
+    ax.set_xlabel(value_label(diagram))
+    ax.set_ylabel("count")
+    ax.set_title(title or "Betti curves", color=_INK)
+    ax.legend(frameon=False, fontsize=8)
+    _style(ax)
+    return ax
+
+
+def plot_euler_curve(diagram, ax=None, levels=None, title: str | None = None):
+    """Euler characteristic of the swept set against the filtration level."""
+    ax = _new_axes(ax, size=(6.4, 4.2))
+    levels = diagram.level_grid() if levels is None else levels
+    curve = diagram.euler_curve(levels)
+    ax.step(curve["level"], curve["euler_characteristic"], where="post", color=_INK)
+    ax.axhline(0, color="#8d99ae", linewidth=0.8)
+    ax.set_xlabel(value_label(diagram))
+    ax.set_ylabel("Euler characteristic")
+    ax.set_title(title or "Euler characteristic curve", color=_INK)
+    _style(ax)
+    return ax
+
+
+STANDARD_PLOTS = {
+    "diagram.png": plot_diagram,
+    "barcode.png": plot_barcode,
+    "betti_curves.png": plot_betti_curves,
+    "euler_curve.png": plot_euler_curve,
+}
+
+
+def save_standard_plots(diagram, folder) -> list[str]:
+    """Write diagram.png, barcode.png, betti_curves.png and euler_curve.png into ``folder``."""
+    folder = Path(folder)
+    written = []
+    for name, plot in STANDARD_PLOTS.items():
+        ax = plot(diagram)
+        ax.figure.savefig(folder / name, dpi=110)
+        plt.close(ax.figure)
+        written.append(name)
+    return written
