@@ -1,0 +1,210 @@
+"""Distances between diagrams, vectorisations, embedding and the group test."""
+
+import math
+
+import gudhi
+import numpy as np
+import pytest
+from scipy import ndimage
+from scipy.spatial.distance import pdist, squareform
+from scipy.stats import norm
+
+import voxtopo
+from voxtopo import compare
+from voxtopo.errors import InputError
+
+
+def _texture(seed, correlation, shape=(40, 40)):
+    """Gaussian random field: white noise smoothed over ``correlation`` pixels."""
+    rng = np.random.default_rng(seed)
+    field = ndimage.gaussian_filter(rng.standard_normal(shape), correlation, mode="wrap")
+    return (field - field.mean()) / field.std()
+
+
+def _diagram(image, **options):
+    return voxtopo.persistence(image, engine="gudhi", **options)
+
+
+def test_distances_are_symmetric_and_zero_on_identical_inputs():
+    # Both are metrics on diagrams (Cohen-Steiner, Edelsbrunner & Harer 2007, "Stability of
+    # persistence diagrams", Discrete Comput. Geom. 37): d(a, a) = 0, d(a, b) = d(b, a).
+    a, b = _diagram(_texture(1, 1.5)), _diagram(_texture(2, 1.5))
+    for metric in (compare.bottleneck, compare.wasserstein):
+        # gudhi's bottleneck is exact to the last bits of a double, hence the tiny tolerance
+        assert metric(a, a, dims=(0, 1)) == pytest.approx(0.0, abs=1e-12)
+        forth, back = metric(a, b, dims=(0, 1)), metric(b, a, dims=(0, 1))
+        assert forth > 0
+        assert forth == pytest.approx(back, rel=1e-12)
+    matrix = compare.distance_matrix([a, b, a], dims=(0, 1))
+    np.testing.assert_allclose(matrix, matrix.T)
+    assert matrix[0, 2] == pytest.approx(0.0, abs=1e-12) and np.all(np.diag(matrix) == 0)
+
+
+@pytest.mark.parametrize("superlevel", [False, True])
+def test_bottleneck_equals_gudhi_on_gudhi_own_diagrams(superlevel):
+    # Reference: gudhi (Maria, Boissonnat, Glisse & Yvinec 2014, "The Gudhi Library:
+    # Simplicial Complexes and Persistent Homology", ICMS): CubicalComplex diagrams of the
+    # same images, fed to gudhi.bottleneck_distance with their points at infinity.
+    f, g = _texture(3, 2.0, (24, 24)), _texture(4, 2.0, (24, 24))
+    sign = -1.0 if superlevel else 1.0
+    for dim in (0, 1):
+        reference = []
+        for image in (f, g):
+            cc = gudhi.CubicalComplex(top_dimensional_cells=sign * image)
+            cc.compute_persistence()
+            reference.append(cc.persistence_intervals_in_dimension(dim))
+        expected = gudhi.bottleneck_distance(*reference)
+        ours = compare.bottleneck(_diagram(f, superlevel=superlevel),
+                                  _diagram(g, superlevel=superlevel), dims=(dim,))
+        assert ours == pytest.approx(expected, rel=1e-9, abs=1e-12)
+
+
+def test_bottleneck_and_wasserstein_of_a_hand_sized_pair():
+    # Definition of both distances (Cohen-Steiner, Edelsbrunner & Harer 2007): the pairs
+    # (4, 9) and (6, 9) are 2 apart in L-infinity, while sending both to the diagonal
+    # costs 5/2 and 3/2; the essential classes (0, inf) coincide. So both distances are 2.
+    a = _diagram(np.array([[0.0, 9.0, 4.0]]))
+    b = _diagram(np.array([[0.0, 9.0, 6.0]]))
+    assert compare.bottleneck(a, b) == pytest.approx(2.0)
+    assert compare.wasserstein(a, b, order=1) == pytest.approx(2.0)
+    # moving the essential birth from 0 to 1 adds one to the essential part:
+    c = _diagram(np.array([[1.0, 9.0, 6.0]]))
+    assert compare.bottleneck(a, c) == pytest.approx(2.0)
+    assert compare.wasserstein(a, c, order=1) == pytest.approx(3.0)
+    assert compare.wasserstein(a, c, order=2) == pytest.approx(math.sqrt(4 + 1))
+
+
+def test_different_numbers_of_essential_classes_give_infinity_unless_ignored():
+    # A periodic image is a torus with two essential 1-cycles (Betti numbers (1, 2, 1),
+    # Hatcher 2002, "Algebraic Topology"); a plain image has none.
+    image = _texture(5, 2.0, (16, 16))
+    flat = _diagram(image)
+    torus = _diagram(image, periodic=True)
+    assert compare.bottleneck(flat, torus, dims=(1,)) == math.inf
+    assert compare.wasserstein(flat, torus, dims=(1,)) == math.inf
+    assert math.isfinite(compare.bottleneck(flat, torus, dims=(1,), essential="ignore"))
+
+
+@pytest.mark.parametrize("superlevel", [False, True])
+def test_stability_bound_holds_for_perturbed_images(superlevel):
+    # Stability (Cohen-Steiner, Edelsbrunner & Harer 2007, Discrete Comput. Geom. 37):
+    # bottleneck(D(f), D(g)) <= max |f - g|, in every dimension.
+    rng = np.random.default_rng(6)
+    for trial in range(4):
+        f = _texture(10 + trial, 1.0 + trial, (20, 20, 20) if trial % 2 else (32, 32))
+        g = f + rng.uniform(-0.3, 0.3, f.shape) * (trial + 1) / 4
+        bound = float(np.abs(f - g).max())
+        df, dg = _diagram(f, superlevel=superlevel), _diagram(g, superlevel=superlevel)
+        for dim in range(f.ndim):
+            assert compare.bottleneck(df, dg, dims=(dim,)) <= bound + 1e-12
+
+
+def test_persistence_image_pixels_are_gaussian_mass_of_each_pair():
+    # Adams et al. 2017 ("Persistence images", JMLR 18): each pixel holds the integral of
+    # weight x Gaussian over the pixel; the reference mass comes from scipy.stats.norm.
+    d = _diagram(np.array([[0.0, 9.0, 4.0, 9.0, 1.0]]))   # finite pairs (4, 9) and (1, 9)
+    grid = compare.image_grid([d], 0, resolution=6, sigma=0.7)
+    image = compare.persistence_image(d, 0, grid)
+    expected = np.zeros_like(image)
+    for birth, persistence in [(4.0, 5.0), (1.0, 8.0)]:
+        weight = min(persistence / grid.weight_ramp, 1.0)
+        mass_b = np.diff(norm.cdf(grid.birth_edges, loc=birth, scale=0.7))
+        mass_p = np.diff(norm.cdf(grid.persistence_edges, loc=persistence, scale=0.7))
+        expected += weight * np.outer(mass_p, mass_b)
+    np.testing.assert_allclose(image, expected, rtol=1e-10, atol=1e-14)
+    assert grid.weight_ramp == 8.0
+
+
+def test_persistence_image_kernel_matches_its_plain_loop_twin():
+    rng = np.random.default_rng(7)
+    points, weights = rng.random((5, 2)) * 3, rng.random(5)
+    edges_b, edges_p = np.linspace(-1, 4, 6), np.linspace(0, 4, 5)
+    np.testing.assert_allclose(compare._image_kernel(points, weights, edges_b, edges_p, 0.4),
+                               compare._image_kernel_reference(points, weights, edges_b,
+                                                               edges_p, 0.4), rtol=1e-12)
+
+
+def test_betti_curves_on_the_common_grid_count_components():
+    # scipy.ndimage.label with generate_binary_structure(2, 2) counts the components of
+    # the sublevel set (Betti 0) with the 8-neighbourhood, at every level of the grid.
+    images = [_texture(20, 1.5, (24, 24)), 2.0 + _texture(21, 3.0, (24, 24))]
+    diagrams = [_diagram(im) for im in images]
+    curves = compare.betti_curves(diagrams, ["a", "b"], n=17)
+    levels = curves[curves["name"] == "a"]["level"].to_numpy()
+    np.testing.assert_array_equal(levels, curves[curves["name"] == "b"]["level"].to_numpy())
+    assert levels.min() <= images[0].min() and levels.max() >= images[1].max() - 1e-9
+    structure = ndimage.generate_binary_structure(2, 2)
+    for name, image in zip("ab", images):
+        rows = curves[curves["name"] == name]
+        for level, b0 in zip(rows["level"], rows["betti_0"]):
+            assert b0 == ndimage.label(image <= level, structure)[1]
+
+
+def test_mds_recovers_a_planar_configuration():
+    # Classical/metric MDS of Euclidean distances of points in the plane reproduces those
+    # distances (scikit-learn's MDS; distances from scipy.spatial.distance.pdist).
+    points = np.array([[0, 0], [3, 0], [0, 4], [3, 4], [1.5, 2]], dtype=float)
+    matrix = squareform(pdist(points))
+    embedding = compare.embed_mds(matrix, seed=1)
+    np.testing.assert_allclose(squareform(pdist(embedding)), matrix, atol=1e-2)
+
+
+def test_permutation_test_separates_two_textures_and_not_two_samples_of_one():
+    # Permutation p-values with the +1 correction (Phipson & Smyth 2010, "Permutation
+    # P-values should never be zero", from memory): with 6 + 6 samples of two clearly
+    # different textures the statistic is extreme among relabellings.
+    fine = [_diagram(_texture(100 + i, 1.0)) for i in range(6)]
+    coarse = [_diagram(_texture(200 + i, 4.0)) for i in range(6)]
+    groups = ["fine"] * 6 + ["coarse"] * 6
+    different = compare.compare_diagrams(fine + coarse, groups=groups, dims=(0, 1),
+                                         n_permutations=499, seed=3)
+    assert different.test.p_value <= 0.01
+    assert different.test.statistic > 0
+    more_fine = [_diagram(_texture(300 + i, 1.0)) for i in range(6)]
+    same = compare.compare_diagrams(fine + more_fine, groups=groups, dims=(0, 1),
+                                    n_permutations=499, seed=3)
+    assert same.test.p_value > 0.05
+    assert 1 / 500 <= same.test.p_value <= 1.0
+
+
+def test_permutation_test_p_value_is_never_zero():
+    # Phipson & Smyth 2010 (from memory): p >= 1 / (permutations + 1).
+    matrix = np.array([[0, 1, 9, 9], [1, 0, 9, 9], [9, 9, 0, 1], [9, 9, 1, 0.0]])
+    result = compare.permutation_test(matrix, ["a", "a", "b", "b"], n_permutations=50, seed=0)
+    assert result.p_value >= 1 / 51
+    # only the true labelling and its mirror (b, b, a, a) reach the observed statistic, one
+    # third of the three ways to split four into two pairs: p close to 1/3.
+    assert result.p_value == pytest.approx(1 / 3, abs=0.15)
+
+
+def test_comparison_writes_its_tables(tmp_path):
+    ds = [_diagram(_texture(400 + i, 1.0 + 2 * (i % 2), (20, 20))) for i in range(4)]
+    comparison = compare.compare_diagrams(ds, names=list("pqrs"), groups=list("abab"),
+                                          n_permutations=19)
+    comparison.save(tmp_path)
+    import pandas as pd
+    table = pd.read_csv(tmp_path / "distances.csv")
+    assert len(table) == 6
+    row = table[(table["first"] == "p") & (table["second"] == "s")].iloc[0]
+    # gudhi.bottleneck_distance on the dimension-0 intervals (gudhi, Maria et al. 2014)
+    expected = gudhi.bottleneck_distance(ds[0].intervals(0), ds[3].intervals(0))
+    assert row["bottleneck_dim0"] == pytest.approx(expected, rel=1e-9)
+    with np.load(tmp_path / "persistence_images.npz", allow_pickle=False) as images:
+        assert images["dim0"].shape == (4, 20, 20)
+
+
+def test_bad_inputs_are_refused_in_one_sentence():
+    a = _diagram(_texture(1, 1.0, (12, 12)))
+    up = _diagram(_texture(1, 1.0, (12, 12)), superlevel=True)
+    with pytest.raises(InputError, match="superlevel"):
+        compare.bottleneck(a, up)
+    with pytest.raises(InputError, match="Dimension 2 does not exist"):
+        compare.bottleneck(a, a, dims=(2,))
+    with pytest.raises(InputError, match="order"):
+        compare.wasserstein(a, a, order=0.5)
+    with pytest.raises(InputError, match="two groups"):
+        compare.permutation_test(np.zeros((3, 3)), ["a", "b", "c"])
+    with pytest.raises(InputError, match="infinite"):
+        compare.embed_mds(np.array([[0, np.inf, 1], [np.inf, 0, 1], [1, 1, 0.0]]))
+    with pytest.raises(InputError, match="at least two diagrams"):
+        compare.compare_diagrams([a])
