@@ -1,0 +1,208 @@
+"""The own engine end to end: the same diagram as gudhi, exact values at the locations.
+
+External references named beside each check (see /work/shared/CHECKS.md): gudhi (Maria,
+Boissonnat, Glisse & Yvinec 2014), skimage.measure.euler_number (Ohser, Nagel & Schladitz
+2002), Betti numbers of textbook shapes (Hatcher 2002), stability of diagrams
+(Cohen-Steiner, Edelsbrunner & Harer 2007).
+"""
+
+from collections import Counter
+
+import gudhi
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from hypothesis.extra.numpy import arrays
+from skimage.measure import euler_number
+
+import voxtopo
+from voxtopo.engine import _gudhi, estimate, own
+from voxtopo.errors import Cancelled, InputError, TooBigError
+
+SETTINGS = settings(max_examples=30, deadline=None)
+DTYPES = [np.uint8, np.int16, np.float32, np.float64]
+
+
+@st.composite
+def scans(draw):
+    """2D or 3D arrays: odd, unequal and one-voxel sides; few values (many ties) or floats."""
+    ndim = draw(st.sampled_from([2, 3]))
+    shape = tuple(draw(st.integers(1, 7 if ndim == 2 else 4)) for _ in range(ndim))
+    dtype = draw(st.sampled_from(DTYPES))
+    if draw(st.booleans()):
+        elements = st.integers(0, draw(st.integers(1, 4)))
+    elif np.issubdtype(dtype, np.floating):
+        elements = st.floats(-1e3, 1e3, width=np.dtype(dtype).itemsize * 8)
+    else:
+        elements = st.integers(0, 255 if dtype == np.uint8 else 30000)
+    return draw(arrays(dtype, shape, elements=elements))
+
+
+def _multiset(raw):
+    return Counter(zip(raw.dim.tolist(), raw.birth.tolist(), raw.death.tolist()))
+
+
+@SETTINGS
+@given(scans(), st.booleans(), st.sampled_from(["voxel", "vertex"]))
+def test_same_diagram_as_gudhi(values, superlevel, construction):
+    """Check against gudhi (Maria, Boissonnat, Glisse & Yvinec 2014): the same multiset of
+    (dim, birth, death), essential class included, in both constructions and directions."""
+    ours = own.compute(values, superlevel=superlevel, construction=construction)
+    reference = _gudhi.compute(values, superlevel=superlevel, construction=construction,
+                               periodic=None, field=2)
+    assert _multiset(ours) == _multiset(reference)
+
+
+@SETTINGS
+@given(scans(), st.booleans(), st.sampled_from(["voxel", "vertex"]))
+def test_locations_hold_the_pair_values_bit_for_bit(values, superlevel, construction):
+    """Birth and death voxels carry exactly the pair's values (common practice, no source:
+    a location is only meaningful if the feature's value is found there)."""
+    raw = own.compute(values, superlevel=superlevel, construction=construction)
+    flat = values.ravel()
+    assert np.array_equal(flat[raw.birth_index].astype(np.float64), raw.birth)
+    finite = raw.death_index >= 0
+    assert np.array_equal(flat[raw.death_index[finite]].astype(np.float64),
+                          raw.death[finite])
+    forever = -np.inf if superlevel else np.inf
+    assert list(raw.dim[~finite]) == [0] and list(raw.death[~finite]) == [forever]
+    # superlevel pairs are born higher; sublevel lower; none of zero persistence
+    assert np.all(raw.birth > raw.death) if superlevel else np.all(raw.birth < raw.death)
+
+
+def test_float32_superlevel_values_are_not_rounded():
+    """Values like 0.1 in float32 come back as the array's own numbers, not -(-v) in
+    float64 arithmetic gone through another representation (common practice, no source)."""
+    values = np.array([[0.1, 0.7, 0.1], [0.7, 0.3, 0.7], [0.1, 0.7, 0.1]], np.float32)
+    raw = own.compute(values, superlevel=True, construction="voxel")
+    assert set(raw.birth.tolist()) | set(raw.death[np.isfinite(raw.death)].tolist()) <= \
+        set(values.astype(np.float64).ravel().tolist())
+
+
+@pytest.mark.parametrize("ndim", [2, 3])
+@pytest.mark.parametrize("construction, connectivity", [("vertex", 1), ("voxel", None)])
+def test_euler_characteristic_matches_scikit_image(ndim, construction, connectivity):
+    """Check against skimage.measure.euler_number (Ohser, Nagel & Schladitz 2002): at every
+    threshold the alternating sum of Betti numbers is the Euler number with the matching
+    neighbourhood (6/4 for the vertex construction, 26/8 for the voxel construction)."""
+    rng = np.random.default_rng(11 + ndim)
+    values = rng.integers(0, 6, (9, 8, 7)[:ndim]).astype(np.uint8)
+    raw = own.compute(values, superlevel=False, construction=construction)
+    for level in range(6):
+        alive = (raw.birth <= level) & (level < raw.death)
+        chi = sum((-1) ** d * int(np.count_nonzero(alive & (raw.dim == d)))
+                  for d in range(ndim))
+        assert chi == euler_number(values <= level, connectivity=connectivity or ndim)
+
+
+def _ball_grid(n, ndim):
+    c = (n - 1) / 2
+    return np.sqrt(sum(g * g for g in np.meshgrid(*([np.arange(n) - c] * ndim),
+                                                  indexing="ij")))
+
+
+@pytest.mark.parametrize("neighbourhood", [6, 26])
+def test_spherical_shell_has_one_cavity(neighbourhood):
+    """Betti numbers of a spherical shell are (1, 0, 1) (Hatcher 2002, "Algebraic
+    Topology"), measured with the own engine at the shell's level."""
+    r = _ball_grid(25, 3)
+    shell = np.where((r >= 6) & (r <= 10), 0.0, 1.0)
+    diagram = voxtopo.persistence(shell, neighbourhood=neighbourhood, engine="voxtopo")
+    assert diagram.engine == "voxtopo"
+    assert diagram.betti(0.0) == [1, 0, 1]
+
+
+@pytest.mark.parametrize("neighbourhood", [4, 8])
+def test_annulus_has_one_loop(neighbourhood):
+    """Betti numbers of an annulus are (1, 1) (Hatcher 2002, "Algebraic Topology")."""
+    r = _ball_grid(31, 2)
+    annulus = np.where((r >= 6) & (r <= 12), 0.0, 1.0)
+    diagram = voxtopo.persistence(annulus, neighbourhood=neighbourhood, engine="voxtopo")
+    assert diagram.betti(0.0) == [1, 1]
+
+
+def test_solid_torus_has_one_tunnel():
+    """Betti numbers of a solid torus are (1, 1, 0) (Hatcher 2002, "Algebraic Topology");
+    a superlevel run on the bright torus."""
+    z, y, x = np.meshgrid(*([np.arange(33) - 16.0] * 3), indexing="ij")
+    torus = ((np.hypot(y, x) - 10) ** 2 + z * z <= 16).astype(np.uint8) * 200
+    diagram = voxtopo.persistence(torus, superlevel=True, engine="voxtopo")
+    assert diagram.betti(200) == [1, 1, 0]
+
+
+@settings(max_examples=15, deadline=None)
+@given(arrays(np.float64, st.tuples(st.integers(2, 6), st.integers(2, 6)),
+              elements=st.floats(0, 10)),
+       arrays(np.float64, 36, elements=st.floats(-0.5, 0.5)))
+def test_perturbation_moves_diagram_no_more_than_sup_norm(values, noise):
+    """Stability (Cohen-Steiner, Edelsbrunner & Harer 2007): bottleneck distance between
+    the diagrams of f and g is at most max |f - g|, per dimension (distance by gudhi)."""
+    perturbed = values + noise[:values.size].reshape(values.shape)
+    a = own.compute(values, superlevel=False, construction="voxel")
+    b = own.compute(perturbed, superlevel=False, construction="voxel")
+    bound = float(np.max(np.abs(perturbed - values)))
+    for dim in (0, 1):
+        pa = np.column_stack([a.birth[a.dim == dim], a.death[a.dim == dim]])
+        pb = np.column_stack([b.birth[b.dim == dim], b.death[b.dim == dim]])
+        assert gudhi.bottleneck_distance(pa, pb) <= bound + 1e-9
+
+
+def test_progress_reports_every_phase_and_cancel_stops():
+    """Phases are reported in order with fractions in [0, 1]; raising Cancelled inside the
+    callback stops the run (common practice, no source)."""
+    values = np.random.default_rng(0).random((6, 7, 8)).astype(np.float32)
+    seen = []
+    own.compute(values, superlevel=False, construction="voxel",
+                progress=lambda phase, f: seen.append((phase, f)))
+    phases = list(dict.fromkeys(p for p, _ in seen))
+    assert phases[:3] == ["sort", "dimension 0", "dimension 2"] and "dimension 1" in phases
+    assert all(0.0 <= f <= 1.0 for _, f in seen)
+
+    def cancel_in_dimension_zero(phase, fraction):
+        if phase == "dimension 0":
+            raise Cancelled("stopped by the test")
+
+    with pytest.raises(Cancelled):
+        own.compute(values, superlevel=False, construction="voxel",
+                    progress=cancel_in_dimension_zero)
+
+
+@pytest.mark.parametrize("kwargs, words", [
+    ({"periodic": (True, False)}, "periodic"),
+    ({"field": 3}, "Z/3"),
+])
+def test_unsupported_requests_get_one_sentence(kwargs, words):
+    """The engine refuses what it does not compute, naming the alternative."""
+    options = {"superlevel": False, "construction": "voxel", "periodic": None, "field": 2}
+    options.update(kwargs)
+    with pytest.raises(InputError, match=words) as caught:
+        own.compute(np.zeros((3, 3)), **options)
+    assert "engine='gudhi'" in str(caught.value) and str(caught.value).count(". ") == 0
+
+
+@pytest.mark.parametrize("values, words", [
+    (np.zeros((2, 2, 2, 2)), "2D image or 3D volume"),
+    (np.zeros((0, 3)), "empty array"),
+    (np.zeros((3, 3), dtype=np.complex64), "integer or float"),
+])
+def test_bad_arrays_are_refused(values, words):
+    with pytest.raises(InputError, match=words):
+        own.compute(values, superlevel=False, construction="voxel")
+
+
+def test_auto_uses_the_own_engine_and_gudhi_for_periodic():
+    """engine="auto" picks voxtopo for Z/2 without periodic boundaries, gudhi otherwise."""
+    values = np.arange(12.0).reshape(3, 4)
+    assert voxtopo.persistence(values).engine == "voxtopo"
+    assert voxtopo.persistence(values, periodic=True).engine == "gudhi"
+
+
+def test_memory_estimate_grows_with_size_and_refuses_what_does_not_fit(monkeypatch):
+    """The estimate is per voxel (linear in size) and the refusal names it."""
+    small = estimate((64, 64, 64), np.uint8, engine="voxtopo")
+    large = estimate((128, 128, 128), np.uint8, engine="voxtopo")
+    assert 7.5 < large / small < 8.5
+    monkeypatch.setenv("VOXTOPO_MEMORY_LIMIT", str(small // 2))
+    with pytest.raises(TooBigError, match="voxtopo engine"):
+        voxtopo.persistence(np.zeros((64, 64, 64), np.uint8), engine="voxtopo")
