@@ -1,0 +1,212 @@
+"""Kernels of the out-of-core union-find: reduce one chunk, then reduce merged graphs.
+
+The dimension-0 diagram of a grid is what Kruskal's algorithm with the elder rule sees on
+the grid graph. A chunk cannot finish every pair on its own, because two of its components
+may already be joined through another chunk. It can finish the pairs whose dying component
+touches no voxel next to another chunk ("flagged" voxels): such a component is, at that
+level, a whole component of the full volume, so it dies exactly as it dies locally. Every
+other merge is kept as an edge ``(young root, old root, voxel that joined them)`` of a
+*reduced graph* whose vertices are the flagged voxels and the roots those edges name. The
+reduced graph joins its vertices at the same levels as the chunk itself did, so a block of
+chunks can be treated as the union of its children's reduced graphs plus the grid edges
+that cross between them, and reduced again with the flags of the larger block. At the top
+(one block, nothing flagged) every merge is final and the last root is the essential class.
+
+The same sweep run the other way with the outside of the image as the eldest node gives
+dimension d-1 (see :mod:`voxtopo.engine._union_find` for the duality and the tie rule,
+which is the one used here: ties of value go by C-order index, and the chunk-local C-order
+ranks voxels of one chunk exactly as the global C-order does).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+from ._union_find import _find
+
+#: Record kinds written by the kernels.
+FINAL_PAIR = 0
+KEPT_EDGE = 1
+
+
+@njit(cache=True, nogil=True)
+def _before(values, a, b, ascending):
+    va = values[a]
+    vb = values[b]
+    if ascending:
+        return va < vb or (va == vb and a < b)
+    return va > vb or (va == vb and a > b)
+
+
+@njit(cache=True, nogil=True)
+def reduce_chunk(values, order, shape, offsets, flagged, on_border, with_outside, ascending,
+                 parent, touches, out_kind, out_young, out_old, out_voxel):
+    """Sweep one chunk; write final pairs and kept edges; return how many were written.
+
+    Parameters
+    ----------
+    values : 1D array, the chunk in C order.
+    order : 1D int64 array, chunk-local flat indices sorted by (value, index).
+    shape : int64 array (3,), chunk sizes (z, y, x); a 2D chunk is one z-slice.
+    offsets : int64 array (k, 3), neighbour offsets.
+    flagged : uint8 array, 1 where a voxel has a neighbour in another chunk.
+    on_border : uint8 array, 1 where a voxel lies on the border of the whole image (it
+        touches the outside node ``n`` when ``with_outside``).
+    parent, touches : work arrays of n + 1 entries.
+    out_kind, out_young, out_old, out_voxel : output buffers of n + 1 entries.
+    """
+    n = values.size
+    outside = n
+    size_y, size_x = shape[1], shape[2]
+    plane = size_y * size_x
+    k_offsets = offsets.shape[0]
+    written = 0
+    parent[outside] = outside
+    touches[outside] = 1
+    for step in range(n):
+        v = order[step] if ascending else order[n - 1 - step]
+        parent[v] = v
+        touches[v] = flagged[v]
+        root_v = v
+        z = v // plane
+        rest = v - z * plane
+        y = rest // size_x
+        x = rest - y * size_x
+        for k in range(k_offsets + 1):
+            if k < k_offsets:
+                zz = z + offsets[k, 0]
+                yy = y + offsets[k, 1]
+                xx = x + offsets[k, 2]
+                if (zz < 0 or zz >= shape[0] or yy < 0 or yy >= size_y
+                        or xx < 0 or xx >= size_x):
+                    continue
+                u = zz * plane + yy * size_x + xx
+                if not _before(values, u, v, ascending):
+                    continue
+                root_u = _find(parent, u)
+            else:
+                if not with_outside or not on_border[v]:
+                    continue
+                root_u = outside
+            if root_u == root_v:
+                continue
+            if root_u == outside or (root_v != outside
+                                     and _before(values, root_u, root_v, ascending)):
+                young, old = root_v, root_u
+            else:
+                young, old = root_u, root_v
+            parent[young] = old
+            root_v = old
+            if touches[young]:
+                out_kind[written] = KEPT_EDGE
+            elif values[young] != values[v]:
+                out_kind[written] = FINAL_PAIR
+            else:
+                continue
+            out_young[written] = young
+            out_old[written] = old
+            out_voxel[written] = v
+            written += 1
+            if touches[young]:
+                touches[old] = 1
+    return written
+
+
+@njit(cache=True, nogil=True)
+def _vertex_before(vert_value, vert_id, a, b, ascending, outside):
+    if a == outside:
+        return True
+    if b == outside:
+        return False
+    va = vert_value[a]
+    vb = vert_value[b]
+    if ascending:
+        return va < vb or (va == vb and vert_id[a] < vert_id[b])
+    return va > vb or (va == vb and vert_id[a] > vert_id[b])
+
+
+@njit(cache=True, nogil=True)
+def reduce_graph(vert_value, vert_id, vert_flag, outside, edge_a, edge_b, edge_value,
+                 edge_order, ascending, parent, touches, out_kind, out_young, out_old,
+                 out_edge):
+    """Kruskal with the elder rule over a reduced graph; same records as :func:`reduce_chunk`.
+
+    Vertices are positions 0..m-1 (``outside`` is the position of the outside node, or -1);
+    edge ``e`` joins ``edge_a[e]`` and ``edge_b[e]`` at the level ``edge_value[e]``;
+    ``edge_order`` lists the edges in sweep order. ``out_edge`` names the edge of a record
+    (its voxel is the death location).
+    """
+    m = vert_value.size
+    for p in range(m):
+        parent[p] = p
+        touches[p] = vert_flag[p]
+    written = 0
+    for i in range(edge_order.size):
+        e = edge_order[i]
+        root_a = _find(parent, edge_a[e])
+        root_b = _find(parent, edge_b[e])
+        if root_a == root_b:
+            continue
+        if _vertex_before(vert_value, vert_id, root_a, root_b, ascending, outside):
+            young, old = root_b, root_a
+        else:
+            young, old = root_a, root_b
+        parent[young] = old
+        if touches[young]:
+            out_kind[written] = KEPT_EDGE
+        elif vert_value[young] != edge_value[e]:
+            out_kind[written] = FINAL_PAIR
+        else:
+            continue
+        out_young[written] = young
+        out_old[written] = old
+        out_edge[written] = e
+        written += 1
+        if touches[young]:
+            touches[old] = 1
+    return written
+
+
+def reduce_graph_reference(vert_value, vert_id, vert_flag, outside, edges, ascending):
+    """Plain-Python twin of :func:`reduce_graph` for tiny graphs.
+
+    ``edges`` is a list of (a, b, value, voxel id); returns the records
+    (kind, young, old, edge number) in the order the kernel writes them.
+    """
+    def key(p):
+        if p == outside:
+            return None
+        return (vert_value[p], vert_id[p])
+
+    def elder(a, b):
+        if a == outside:
+            return True
+        if b == outside:
+            return False
+        return key(a) < key(b) if ascending else key(a) > key(b)
+
+    order = sorted(range(len(edges)), key=lambda e: (edges[e][2], edges[e][3]),
+                   reverse=not ascending)
+    parent = list(range(len(vert_value)))
+    touches = [bool(f) for f in vert_flag]
+
+    def find(p):
+        while parent[p] != p:
+            p = parent[p]
+        return p
+
+    records = []
+    for e in order:
+        a, b, value, _ = edges[e]
+        root_a, root_b = find(a), find(b)
+        if root_a == root_b:
+            continue
+        young, old = (root_b, root_a) if elder(root_a, root_b) else (root_a, root_b)
+        parent[young] = old
+        if touches[young]:
+            records.append((KEPT_EDGE, young, old, e))
+            touches[old] = True
+        elif vert_value[young] != value:
+            records.append((FINAL_PAIR, young, old, e))
+    return records

@@ -1,0 +1,216 @@
+"""The out-of-core dimension-0 (and d-1) diagram equals the in-memory one."""
+
+import gudhi
+import numpy as np
+import pytest
+import zarr
+from scipy import ndimage
+
+from voxtopo.engine import _chunk_merge
+from voxtopo.engine.chunked import chunked_persistence, open_chunked
+from voxtopo.errors import InputError
+
+
+def _gudhi_intervals(image, dim, superlevel, construction):
+    """Reference: gudhi (Maria, Boissonnat, Glisse & Yvinec 2014, "The Gudhi Library:
+    Simplicial Complexes and Persistent Homology", ICMS), CubicalComplex with the matching
+    construction; superlevel as the sublevel filtration of the negated values."""
+    values = -image.astype(np.float64) if superlevel else image.astype(np.float64)
+    key = "top_dimensional_cells" if construction == "voxel" else "vertices"
+    cc = gudhi.CubicalComplex(**{key: values})
+    cc.compute_persistence()
+    intervals = cc.persistence_intervals_in_dimension(dim)
+    intervals = intervals[intervals[:, 1] > intervals[:, 0]]
+    if superlevel:
+        intervals = -intervals
+    return sorted(map(tuple, np.round(intervals, 9)))
+
+
+def _ours(diagram, dim):
+    return sorted(map(tuple, np.round(diagram.intervals(dim), 9)))
+
+
+def _assert_locations_hold_values(diagram, image):
+    p = diagram.pairs
+    axes = "zyx"[3 - image.ndim:]
+    births = image[tuple(p[f"birth_{a}"].to_numpy(dtype=np.int64) for a in axes)]
+    np.testing.assert_array_equal(births, p["birth"].to_numpy())
+    finite = np.isfinite(p["death"].to_numpy())
+    deaths = image[tuple(p.loc[finite, f"death_{a}"].to_numpy(dtype=np.int64) for a in axes)]
+    np.testing.assert_array_equal(deaths, p.loc[finite, "death"].to_numpy())
+
+
+def _store(tmp_path, image, chunks, name="scan.zarr"):
+    path = tmp_path / name
+    array = zarr.create_array(str(path), shape=image.shape, chunks=chunks, dtype=image.dtype)
+    array[...] = image
+    return path
+
+
+def _rings(shape=(40, 40)):
+    """Three separate annuli spread over many chunks, in a gently sloping background."""
+    yy, xx = np.indices(shape)
+    image = 0.01 * xx
+    for (cy, cx, r) in [(14, 14, 8), (29, 29, 6), (7, 32, 4)]:
+        dist = np.hypot(yy - cy, xx - cx)
+        image = image + 3.0 * (np.abs(dist - r) < 1.2)
+    return image
+
+
+def _shells(shape=(24, 24, 24)):
+    """Two spherical shells (one cavity each) across chunk borders, plus noise."""
+    zz, yy, xx = np.indices(shape)
+    rng = np.random.default_rng(3)
+    image = 0.2 * rng.random(shape)
+    for (c, r) in [((12, 12, 12), 7), ((6, 18, 6), 3)]:
+        dist = np.sqrt(sum((g - ci) ** 2 for g, ci in zip((zz, yy, xx), c)))
+        image = image + 2.0 * (np.abs(dist - r) < 1.0)
+    return image
+
+
+def _texture(shape, sigma, seed, decimals=1):
+    rng = np.random.default_rng(seed)
+    # Rounding creates many ties of value, which exercise the tie rule across chunks.
+    return np.round(ndimage.gaussian_filter(rng.standard_normal(shape), sigma), decimals)
+
+
+@pytest.mark.parametrize("chunks", [(8, 8), (16, 5), (40, 3), (13, 40)])
+@pytest.mark.parametrize("superlevel", [False, True])
+def test_rings_crossing_chunks_match_gudhi(tmp_path, chunks, superlevel):
+    image = _rings()
+    path = _store(tmp_path, image, chunks)
+    diagram = chunked_persistence(path, superlevel=superlevel, scheduler="sync")
+    assert diagram.shape == image.shape
+    for dim in (0, 1):
+        assert _ours(diagram, dim) == _gudhi_intervals(image, dim, superlevel, "voxel")
+    _assert_locations_hold_values(diagram, image)
+    if superlevel:
+        # Hatcher 2002, "Algebraic Topology": an annulus has Betti numbers (1, 1); the three
+        # separate bright rings are three components and three loops at a level between
+        # background and ring.
+        assert diagram.betti(2.0) == [3, 3]
+
+
+@pytest.mark.parametrize("chunks", [(8, 8, 8), (5, 24, 7), (24, 24, 3), (10, 9, 11)])
+def test_shells_crossing_chunks_match_gudhi(tmp_path, chunks):
+    image = _shells()
+    path = _store(tmp_path, image, chunks)
+    diagram = chunked_persistence(path, superlevel=True, scheduler="sync")
+    for dim in (0, 2):
+        assert _ours(diagram, dim) == _gudhi_intervals(image, dim, True, "voxel")
+    assert diagram.dimension(1).pairs.empty
+    assert any("dimension 1 not computed" in note for note in diagram.notes)
+    _assert_locations_hold_values(diagram, image)
+    # A spherical shell has one cavity (Betti numbers (1, 0, 1), Hatcher 2002).
+    assert diagram.betti(2.0)[2] == 2
+
+
+@pytest.mark.parametrize("shape,chunks", [((31, 27), (6, 7)), ((12, 13, 14), (5, 4, 6)),
+                                          ((9, 8, 10), (2, 3, 2))])
+@pytest.mark.parametrize("neighbourhood", ["voxel", "vertex"])
+@pytest.mark.parametrize("superlevel", [False, True])
+def test_tied_textures_match_gudhi_in_both_constructions(shape, chunks, neighbourhood,
+                                                          superlevel):
+    image = _texture(shape, 1.0, seed=sum(shape))
+    ndim = len(shape)
+    number = {"voxel": 8 if ndim == 2 else 26, "vertex": 4 if ndim == 2 else 6}[neighbourhood]
+    diagram = chunked_persistence(image, superlevel=superlevel, neighbourhood=number,
+                                  chunks=chunks, scheduler="sync")
+    for dim in (0, ndim - 1):
+        assert _ours(diagram, dim) == _gudhi_intervals(image, dim, superlevel, neighbourhood)
+    _assert_locations_hold_values(diagram, image)
+
+
+def test_dimension_zero_counts_components_like_scipy_label():
+    # scipy.ndimage.label with generate_binary_structure(3, 3) counts the components of each
+    # sublevel set (Betti 0, 26-neighbourhood), read off the chunked diagram at that level.
+    image = _texture((14, 15, 16), 1.5, seed=8, decimals=2)
+    diagram = chunked_persistence(image, chunks=(4, 5, 6), dual=False, scheduler="threads")
+    structure = ndimage.generate_binary_structure(3, 3)
+    for level in np.quantile(image, [0.05, 0.2, 0.5, 0.8]):
+        assert diagram.betti(level)[0] == ndimage.label(image <= level, structure)[1]
+
+
+def test_uint8_store_with_one_chunk_equals_many_chunks(tmp_path):
+    image = (_texture((30, 30), 2.0, seed=4) * 40 + 128).clip(0, 255).astype(np.uint8)
+    one = chunked_persistence(_store(tmp_path, image, (30, 30), "one.zarr"), scheduler="sync")
+    many = chunked_persistence(_store(tmp_path, image, (4, 9), "many.zarr"), scheduler="sync")
+    assert _ours(one, 0) == _ours(many, 0) == _gudhi_intervals(image, 0, False, "voxel")
+    # gudhi (Maria et al. 2014) reference for dimension 1 as well
+    assert _ours(many, 1) == _gudhi_intervals(image, 1, False, "voxel")
+
+
+def test_ome_zarr_spacing_and_channel_are_read(tmp_path):
+    image = _rings((24, 24))
+    root = zarr.open_group(str(tmp_path / "film.ome.zarr"), mode="w")
+    data = root.create_array("0", shape=(2, 24, 24), chunks=(1, 8, 8), dtype="f8")
+    data[0] = image
+    data[1] = -image
+    root.attrs["multiscales"] = [{
+        "version": "0.4",
+        "axes": [{"name": "c", "type": "channel"},
+                 {"name": "y", "type": "space", "unit": "micrometer"},
+                 {"name": "x", "type": "space", "unit": "micrometer"}],
+        "datasets": [{"path": "0", "coordinateTransformations":
+                      [{"type": "scale", "scale": [1.0, 0.5, 0.25]}]}]}]
+    path = tmp_path / "film.ome.zarr"
+    with pytest.raises(InputError, match="2 channels"):
+        open_chunked(path)
+    source = open_chunked(path, channel=1)
+    assert source.shape == (24, 24) and source.spacing == (0.5, 0.25) and source.unit == "um"
+    diagram = chunked_persistence(source, scheduler="sync")
+    assert _ours(diagram, 0) == _gudhi_intervals(-image, 0, False, "voxel")
+    assert diagram.spacing == (0.5, 0.25)
+
+
+def test_graph_kernel_matches_its_plain_twin():
+    rng = np.random.default_rng(11)
+    m = 12
+    values = np.round(rng.random(m), 1)
+    ids = np.arange(m) * 3
+    flags = (rng.random(m) < 0.3).astype(np.uint8)
+    edges = []
+    for _ in range(30):
+        a, b = rng.integers(0, m, 2)
+        level = max(values[a], values[b]) + round(rng.random() * 0.3, 1)
+        edges.append((int(a), int(b), level, int(rng.integers(0, 40))))
+    for ascending in (True, False):
+        for outside in (-1, 0):
+            expected = _chunk_merge.reduce_graph_reference(values, ids, flags, outside, edges,
+                                                           ascending)
+            edge_a = np.array([e[0] for e in edges])
+            edge_b = np.array([e[1] for e in edges])
+            levels = np.array([e[2] for e in edges])
+            voxel = np.array([e[3] for e in edges])
+            order = np.lexsort((voxel, levels))
+            order = order if ascending else order[::-1].copy()
+            out = [np.empty(m, np.uint8)] + [np.empty(m, np.int64) for _ in range(3)]
+            written = _chunk_merge.reduce_graph(values, ids, flags, outside, edge_a, edge_b,
+                                                levels, order, ascending, np.empty(m, np.int64),
+                                                np.empty(m, np.uint8), *out)
+            got = list(zip(*(o[:written].tolist() for o in out)))
+            assert got == expected
+
+
+def test_bad_inputs_are_refused_in_one_sentence(tmp_path):
+    with pytest.raises(InputError, match="No zarr store"):
+        chunked_persistence(tmp_path / "missing.zarr")
+    (tmp_path / "plain.txt").write_text("not a store")
+    with pytest.raises(InputError, match="not a zarr store"):
+        chunked_persistence(tmp_path / "plain.txt")
+    with pytest.raises(InputError, match="2D image or 3D volume"):
+        chunked_persistence(np.zeros((2, 3, 4, 5)), chunks=(1, 2, 2, 2))
+    with pytest.raises(InputError, match="Chunks should be"):
+        chunked_persistence(np.zeros((4, 4)), chunks=(0, 2))
+    with pytest.raises(InputError, match="integers or floats"):
+        chunked_persistence(np.zeros((4, 4), dtype=complex), chunks=(2, 2))
+    broken = tmp_path / "broken.zarr"
+    broken.mkdir()
+    (broken / "zarr.json").write_text("{ not json")
+    with pytest.raises(InputError, match="not a readable zarr store"):
+        chunked_persistence(broken)
+    path = _store(tmp_path, np.arange(16.0).reshape(4, 4), (2, 2), "corrupt.zarr")
+    chunk_files = sorted(p for p in (path / "c").rglob("*") if p.is_file())
+    chunk_files[-1].write_bytes(b"\x00garbage")
+    with pytest.raises(InputError, match="could not be read"):
+        chunked_persistence(path, scheduler="sync")
