@@ -2,20 +2,271 @@
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 
 import numpy as np
 
 from ..errors import InputError
+from ..memory import ensure_fits
 from ..scan import Scan
+from ._layout import Layout, convert, is_length, nbytes, normalise_unit, unlabelled_axes
+from ._npy import open_npy
+from ._raw import RAW_SUFFIXES, open_raw
+from ._slices import open_png, open_slices, slice_files_in_folder, slice_files_matching
+from ._tiff import TIFF_SUFFIXES, open_tiff
+from ._zarr import is_zarr, open_zarr
+
+_GLOB_CHARACTERS = set("*?[")
 
 
-def load(path, *, spacing=None, unit=None, **options) -> Scan:
-    """Read a 2D image or 3D volume with its voxel size. (Interim: .npy only.)"""
-    path = Path(path)
-    if not path.exists():
-        raise InputError(f"No file or folder at {path}; check the path.")
-    if path.suffix.lower() == ".npy":
-        data = np.load(path, allow_pickle=False)
-        return Scan(data, spacing=tuple(spacing or ()), unit=unit or "px", source=str(path))
-    raise InputError(f"Cannot read {path}: unsupported format.")
+def load(path, *, spacing=None, unit=None, channel=None, timepoint=None, shape=None,
+         dtype=None, byte_order="little", offset=0, level=0) -> Scan:
+    """Read a 2D image or 3D volume with its voxel size.
+
+    Parameters
+    ----------
+    path : str or Path
+        A file (``.tif``/``.tiff`` incl. ImageJ and OME-TIFF, ``.png``, ``.npy``, a raw
+        file, an OME-Zarr or zarr store), a folder of 2D TIFF or PNG slices, or a glob
+        pattern of slices such as ``"scan/slice_*.tif"``. Slices are stacked in natural
+        order (``s2`` before ``s10``).
+    spacing : float or sequence of float, optional
+        Voxel size in (z, y, x) order (one number for all axes); wins over the metadata.
+    unit : str, optional
+        Unit of the voxel size ("um", "nm", "mm", ...). Given alone, the voxel size found in
+        the file is converted to it when both are lengths.
+    channel, timepoint : int, optional
+        Which channel (of an RGB or multi-channel file) and which time point (of a time
+        series) to read. A file with several of either needs the option. For formats that
+        name no axes (.npy, raw, plain zarr) the channel is the last axis and the time point
+        the first.
+    shape, dtype, byte_order, offset : optional
+        Describe a raw file: its (z, y, x) shape, NumPy type, "little" or "big" byte order,
+        and the number of header bytes before the data.
+    level : int
+        Resolution level of a multiscale OME-Zarr or pyramidal TIFF (0 is the finest).
+
+    Returns
+    -------
+    Scan
+        With ``data`` (y, x) or (z, y, x), ``spacing``, ``unit``, ``source`` (the path as
+        given) and ``metadata`` (what the reader found, as JSON values).
+
+    Raises
+    ------
+    InputError
+        Missing path, unknown format, damaged file, several channels or time points without
+        the option that picks one, and the like; the message is one sentence.
+    TooBigError
+        The data would not fit in the memory available (estimated before reading).
+
+    Notes
+    -----
+    Nothing is ever written: files are opened read-only, zarr stores with ``mode="r"``,
+    .npy files without pickles. When the file gives the x and y voxel size but no z
+    spacing, z is taken equal to x and ``metadata["notes"]`` says so.
+
+    Examples
+    --------
+    >>> scan = voxtopo.load("sample_volumes/beads.tif")          # doctest: +SKIP
+    >>> scan.shape, scan.spacing, scan.unit                        # doctest: +SKIP
+    ((96, 96, 96), (2.5, 2.5, 2.5), 'um')
+    """
+    for name, value in (("channel", channel), ("timepoint", timepoint), ("level", level)):
+        if value is not None and (isinstance(value, bool)
+                                  or not isinstance(value, (int, np.integer)) or value < 0):
+            raise InputError(f"{name}={value!r} must be a whole number, 0 or more.")
+    source = str(path)
+    layout = _open(path, shape=shape, dtype=dtype, byte_order=byte_order, offset=offset,
+                   level=int(level))
+    try:
+        return _scan(layout, source, spacing=spacing, unit=unit, channel=channel,
+                     timepoint=timepoint)
+    finally:
+        layout.close()
+
+
+def _open(path, *, shape, dtype, byte_order, offset, level) -> Layout:
+    text = str(path)
+    target = Path(path)
+    if not target.exists():
+        if _GLOB_CHARACTERS & set(text):
+            files = slice_files_matching(text)
+            return open_slices(files, f"The pattern {text}")
+        raise InputError(f"No file or folder at {text}; check the path.")
+    suffix = target.suffix.lower()
+    if target.is_dir():
+        if is_zarr(target):
+            return open_zarr(target, level)
+        return open_slices(slice_files_in_folder(target), f"The folder {target}")
+    if shape is not None or dtype is not None:
+        if suffix in TIFF_SUFFIXES + (".png", ".npy", ".zarr"):
+            raise InputError(f"shape= and dtype= (--raw-shape, --raw-dtype) describe raw "
+                             f"files, but {target} is a {suffix} file that describes itself; "
+                             f"leave them out.")
+        return open_raw(target, shape, dtype, byte_order, offset)
+    if suffix in TIFF_SUFFIXES:
+        return open_tiff(target, level)
+    if suffix == ".npy":
+        return open_npy(target)
+    if suffix == ".png":
+        return open_png(target)
+    if suffix in RAW_SUFFIXES:
+        return open_raw(target, shape, dtype, byte_order, offset)
+    raise InputError(f"Cannot read {target}: voxtopo reads .tif/.tiff (also ImageJ and "
+                     f"OME-TIFF), .png, .npy, OME-Zarr, folders of slices, and raw files "
+                     f"given shape= and dtype=.")
+
+
+def _scan(layout: Layout, source: str, *, spacing, unit, channel, timepoint) -> Scan:
+    axes = layout.axes if layout.labelled else unlabelled_axes(layout.shape, source,
+                                                                channel, timepoint)
+    index = _selection(layout, axes, source, channel, timepoint)
+    kept = "".join(a for a, i in zip(axes, index) if not isinstance(i, int))
+    if kept not in ("ZYX", "YX"):
+        raise InputError(f"{source} holds axes {axes} of shape {layout.shape}; voxtopo needs "
+                         f"(y, x) or (z, y, x) once a channel and time point are picked.")
+    expected = tuple(n for n, i in zip(layout.shape, index) if not isinstance(i, int))
+    peak = layout.peak_bytes(index) if layout.peak_bytes else nbytes(expected, layout.dtype)
+    ensure_fits(peak, f"Reading {source} ({'x'.join(map(str, expected))} of {layout.dtype})",
+                "crop or downsample it before loading, or pick one channel or time point")
+    data = layout.read(index)
+    if data.shape != expected:
+        raise InputError(f"{source} decoded to shape {data.shape} instead of {expected}; the "
+                         f"file is probably damaged.")
+    if data.dtype == np.float16:
+        data = data.astype(np.float32)
+
+    notes: list[str] = []
+    found_spacing, found_unit = _found_spacing(layout, kept, notes)
+    final_spacing, final_unit = _caller_wins(found_spacing, found_unit, spacing, unit, kept,
+                                             source)
+    metadata = dict(layout.metadata)
+    metadata.update({"stored_axes": axes, "stored_shape": list(layout.shape),
+                     "dtype": str(data.dtype)})
+    if layout.rgb:
+        metadata["rgb"] = True
+    selected = {name: int(index[axes.index(letter)]) for letter, name in
+                (("T", "timepoint"), ("C", "channel")) if letter in axes}
+    if selected:
+        metadata["selected"] = selected
+    if spacing is not None:
+        metadata["spacing_from"] = "caller"
+    elif unit is not None:
+        metadata["unit_from"] = "caller"
+    if notes and spacing is None:
+        metadata["notes"] = notes
+    return Scan(data, spacing=final_spacing, unit=final_unit, source=source,
+                metadata=_jsonable(metadata))
+
+
+_WHAT = {"T": ("timepoint", "time point"), "C": ("channel", "channel")}
+
+
+def _selection(layout: Layout, axes: str, source: str, channel, timepoint) -> tuple:
+    """One index per stored axis: the chosen time point and channel, all of the rest."""
+    index: list = [slice(None)] * len(axes)
+    unpicked = []
+    for letter, option in (("T", timepoint), ("C", channel)):
+        name, word = _WHAT[letter]
+        pos = axes.find(letter)
+        if pos < 0:
+            if option is not None:
+                raise InputError(f"{name}={option} was given but {source} has no {word} axis "
+                                 f"(its axes are {axes}, shape {layout.shape}).")
+            continue
+        size = layout.shape[pos]
+        if option is None:
+            if size == 1:
+                index[pos] = 0
+            else:
+                unpicked.append((letter, size))
+            continue
+        if not 0 <= option < size:
+            raise InputError(f"{name}={option} is out of range: {source} has {size} {word}s, "
+                             f"numbered 0 to {size - 1}.")
+        index[pos] = int(option)
+    if unpicked:
+        raise InputError(_pick_message(source, layout, unpicked))
+    return tuple(index)
+
+
+def _pick_message(source: str, layout: Layout, unpicked) -> str:
+    sizes = dict(unpicked)
+    if set(sizes) == {"T", "C"}:
+        return (f"{source} has {sizes['T']} time points and {sizes['C']} channels; pick one "
+                f"of each with timepoint=N and channel=M (--timepoint N --channel M on the "
+                f"command line).")
+    letter, size = unpicked[0]
+    name, word = _WHAT[letter]
+    what = (f"is an RGB{'A' if size == 4 else ''} image with {size} channels"
+            if letter == "C" and layout.rgb else f"has {size} {word}s")
+    return (f"{source} {what}; pick one with {name}=N (--{name} N on the command line), "
+            f"N from 0 to {size - 1}.")
+
+
+def _found_spacing(layout: Layout, kept: str, notes: list[str]):
+    """The metadata's voxel size for the kept axes, z taken as x when only x and y are known."""
+    found = dict(layout.spacing)
+    if not any(a in found for a in kept):
+        return None, "px"
+    if "Z" in kept and "Z" not in found and "X" in found:
+        found["Z"] = found["X"]
+        notes.append("The file gives no z spacing; z is taken equal to the x spacing.")
+    for a in "YX":
+        if a not in found:
+            other = "X" if a == "Y" else "Y"
+            if other in found:
+                found[a] = found[other]
+                notes.append(f"The file gives no {a.lower()} spacing; it is taken equal to "
+                             f"the {other.lower()} spacing.")
+    values = tuple(float(found[a]) for a in kept)
+    if not all(math.isfinite(v) and v > 0 for v in values):
+        notes.append(f"The file's voxel size {values} is not usable; 1 px is used instead.")
+        return None, "px"
+    return values, normalise_unit(layout.unit)
+
+
+def _caller_wins(found, found_unit, spacing, unit, kept, source):
+    """The caller's spacing and unit over the file's."""
+    ndim = len(kept)
+    if spacing is not None:
+        values = _spacing_option(spacing, ndim, source)
+        chosen_unit = normalise_unit(unit) if unit is not None else (found_unit if found else "px")
+        return values, chosen_unit
+    if unit is not None:
+        wanted = normalise_unit(unit)
+        if found is not None and is_length(found_unit) and is_length(wanted):
+            return tuple(convert(v, found_unit, wanted) for v in found), wanted
+        return found or (1.0,) * ndim, wanted
+    return found or (1.0,) * ndim, found_unit if found else "px"
+
+
+def _spacing_option(spacing, ndim: int, source: str) -> tuple[float, ...]:
+    try:
+        values = (float(spacing),) * ndim if np.ndim(spacing) == 0 else \
+            tuple(float(s) for s in spacing)
+    except (TypeError, ValueError):
+        raise InputError(f"spacing={spacing!r} is not a number or a list of numbers.") from None
+    if len(values) != ndim:
+        raise InputError(f"spacing={spacing!r} has {len(values)} values but {source} is "
+                         f"{ndim}D; give one per axis in ({', '.join('zyx'[3 - ndim:])}) order "
+                         f"or a single number.")
+    if not all(math.isfinite(v) and v > 0 for v in values):
+        raise InputError(f"spacing={spacing!r} must be positive numbers.")
+    return values
+
+
+def _jsonable(value):
+    """Metadata as plain JSON values (numpy scalars and tuples converted)."""
+    if isinstance(value, dict):
+        return {str(k): _jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_jsonable(v) for v in value]
+    if isinstance(value, np.generic):
+        return value.item()
+    if value is None or isinstance(value, (str, int, float, bool)):
+        return value
+    return str(value)
+

@@ -1,0 +1,52 @@
+"""NumPy .npy files, never with pickles: the header is read first, object arrays refused."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import InputError
+from ._layout import Layout, check_dtype, nbytes
+
+
+def _header(path: Path):
+    fmt = np.lib.format
+    with open(path, "rb") as fh:
+        try:
+            version = fmt.read_magic(fh)
+            if version == (1, 0):
+                shape, fortran, dtype = fmt.read_array_header_1_0(fh)
+            elif version == (2, 0):
+                shape, fortran, dtype = fmt.read_array_header_2_0(fh)
+            else:
+                shape, fortran, dtype = fmt._read_array_header(fh, version)
+        except Exception as exc:
+            raise InputError(f"{path} is not a readable .npy file "
+                             f"({' '.join(str(exc).split())[:100]}).") from None
+        return tuple(shape), fortran, np.dtype(dtype), fh.tell()
+
+
+def open_npy(path: Path) -> Layout:
+    shape, fortran, dtype, data_offset = _header(path)
+    if dtype.hasobject:
+        raise InputError(f"{path} holds Python objects, which only unpickling could read; "
+                         f"voxtopo never loads pickles, so save a numeric array instead.")
+    check_dtype(dtype, str(path))
+    present = path.stat().st_size - data_offset
+    needed = nbytes(shape, dtype)
+    if present < needed:
+        raise InputError(f"{path} is truncated: shape {shape} of {dtype} needs {needed} bytes "
+                         f"of data but only {present} follow its header.")
+
+    def read(index: tuple) -> np.ndarray:
+        try:
+            mapped = np.load(path, mmap_mode="r", allow_pickle=False)
+            data = np.array(mapped[index], dtype=dtype.newbyteorder("="))
+        except (OSError, ValueError) as exc:
+            raise InputError(f"{path} could not be read ({' '.join(str(exc).split())[:100]})."
+                             ) from None
+        return data
+
+    return Layout(axes="", shape=shape, dtype=dtype, read=read,
+                  metadata={"format": "npy", "fortran_order": bool(fortran)}, labelled=False)
