@@ -24,7 +24,7 @@ SETTINGS = settings(max_examples=40, deadline=None)
 def small_images(draw, max_side=5):
     """2D or 3D arrays with odd/unequal/one-voxel sides and few distinct values."""
     ndim = draw(st.sampled_from([2, 3]))
-    side = max_side + 2 if ndim == 2 else max_side
+    side = max_side + 3 if ndim == 2 else max_side
     shape = tuple(draw(st.integers(1, side)) for _ in range(ndim))
     levels = draw(st.integers(1, 5))
     return draw(arrays(np.int16, shape, elements=st.integers(0, levels - 1)))
@@ -33,9 +33,8 @@ def small_images(draw, max_side=5):
 def _kernel_pairs(values, ascending, corners, with_outside):
     flat = np.ascontiguousarray(values).ravel()
     shape = np.array((1,) * (3 - values.ndim) + values.shape, dtype=np.int64)
-    order = own.sorted_order(flat)
-    parent = np.empty(flat.size + 1, dtype=order.dtype)
-    roots, voxels = own._sweep(flat, order, shape, values.ndim, ascending=ascending,
+    parent = np.empty(flat.size + 1, dtype=_union_find.index_dtype(flat.size))
+    roots, voxels = own._sweep(flat, shape, values.ndim, ascending=ascending,
                                corners=corners, with_outside=values.ndim if with_outside
                                else 0, parent=parent, progress=None, phase="test")
     return list(zip(roots.tolist(), voxels.tolist()))
@@ -51,7 +50,7 @@ def _gudhi_pairs(values, construction, dim):
 
 
 @SETTINGS
-@given(small_images(), st.booleans(), st.booleans(), st.booleans())
+@given(small_images(max_side=6), st.booleans(), st.booleans(), st.booleans())
 def test_kernel_equals_pure_python_twin(values, ascending, corners, with_outside):
     """The numba sweep and its readable twin leave the same pairs, in the same order."""
     twin = _union_find.sweep_reference(values, ascending, corners, with_outside)
@@ -119,3 +118,26 @@ def test_sweep_resumes_when_pair_buffer_fills():
     the 4-neighbourhood (common practice, no source), all but one die."""
     board = (np.indices((256, 256)).sum(axis=0) % 2).astype(np.uint8)
     assert len(_kernel_pairs(board, True, False, False)) == 256 * 256 // 2 - 1
+
+
+def _grow_by_definition(mask, corners):
+    """Readable twin of the bit-parallel cube growth: every position within one step."""
+    cells = [(b // 9 - 1, (b // 3) % 3 - 1, b % 3 - 1) for b in range(27)]
+    grown = 0
+    for b, here in enumerate(cells):
+        if mask >> b & 1:
+            for c, there in enumerate(cells):
+                step = [abs(p - q) for p, q in zip(here, there)]
+                if (max(step) if corners else sum(step)) <= 1 and c != 13:
+                    grown |= 1 << c
+    return grown
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.integers(0, (1 << 27) - 1), st.booleans())
+def test_cube_growth_equals_its_definition(mask, corners):
+    """The shifted-mask growth in the 3x3x3 cube (centre excluded) reaches exactly the
+    positions one 26- (or 6-) step away (common practice, no source: the definition of
+    the neighbourhoods)."""
+    mask &= ~(1 << 13)
+    assert _union_find._grow(mask, corners) == _grow_by_definition(mask, corners)

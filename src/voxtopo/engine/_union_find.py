@@ -116,6 +116,121 @@ def _visited_before(values, a, b, ascending):
     return va > vb or (va == vb and a > b)
 
 
+def _cube_masks():
+    """Bit masks over the 3x3x3 cube around a voxel, bit ``9 (dz+1) + 3 (dy+1) + (dx+1)``:
+    the positions at x = -1, x = +1, y = -1, y = +1, the 26 neighbours, the 6 faces."""
+    bits = np.arange(27)
+    x, y = bits % 3, (bits // 3) % 3
+    as_mask = lambda chosen: int(np.sum(1 << bits[chosen]))  # noqa: E731
+    return (as_mask(x == 0), as_mask(x == 2), as_mask(y == 0), as_mask(y == 2),
+            as_mask(bits >= 0) & ~(1 << 13),
+            sum(1 << (13 + step) for step in (-9, -3, -1, 1, 3, 9)))
+
+
+_X_LOW, _X_HIGH, _Y_LOW, _Y_HIGH, _CUBE, _FACES = _cube_masks()
+_WHOLE_CUBE = (1 << 27) - 1
+
+
+@njit(cache=True)
+def _grow(mask, corners):
+    """Dilate a set of cube positions by one step of the 26 (or 6) neighbourhood."""
+    if corners:
+        # The box is separable: grow along x, then y, then z, clipping to the cube at
+        # each step so that no bit shifted out of it comes back in.
+        along_x = (mask | ((mask << 1) & ~_X_LOW) | ((mask >> 1) & ~_X_HIGH)) & _WHOLE_CUBE
+        along_y = (along_x | ((along_x << 3) & ~_Y_LOW)
+                   | ((along_x >> 3) & ~_Y_HIGH)) & _WHOLE_CUBE
+        return (along_y | (along_y << 9) | (along_y >> 9)) & _CUBE
+    return (mask | ((mask << 1) & ~_X_LOW) | ((mask >> 1) & ~_X_HIGH)
+            | ((mask << 3) & ~_Y_LOW) | ((mask >> 3) & ~_Y_HIGH)
+            | (mask << 9) | (mask >> 9)) & _CUBE
+
+
+@njit(cache=True)
+def link_regular_voxels(values, start, stop, ascending, shape, cube_offsets, corners,
+                        with_outside, parent):
+    """Pre-link the voxels that cannot merge anything; mark the others.
+
+    Streams over flat indices ``start .. stop-1`` in memory order. A voxel whose earlier
+    visited neighbours (in the sweep) are all connected to each other inside its 3x3x3
+    cube, through voxels visited before it, joins a component that already exists: the
+    sweep would merge nothing there. Such a voxel points at its earliest neighbour
+    (``parent[v] = u``); a voxel with no earlier neighbour is a new component
+    (``parent[v] = v``); a voxel on the image border in a sweep with the outside and no
+    earlier neighbour joins the outside (``parent[v] = n``). Every other voxel may merge
+    components and is marked ``parent[v] = -1`` for :func:`sweep`, which visits only
+    those, in order. Parent links always point to voxels visited earlier, so a ``find``
+    from a visited voxel never passes through a voxel the sweep has not reached.
+
+    ``cube_offsets`` are the 26 (2D: 8) offsets of the cube in the order of
+    :func:`neighbour_offsets` with corners; the neighbourhood used for joining is the
+    full cube when ``corners`` is true, else its faces. Returns the number of marked
+    voxels.
+    """
+    outside = values.size
+    size_z, size_y, size_x = shape[0], shape[1], shape[2]
+    plane = size_y * size_x
+    k_offsets = cube_offsets.shape[0]
+    flat_offsets = np.empty(k_offsets, dtype=np.int64)
+    cube_bits = np.empty(k_offsets, dtype=np.int64)
+    steps_in_z = False
+    for k in range(k_offsets):
+        dz, dy, dx = cube_offsets[k, 0], cube_offsets[k, 1], cube_offsets[k, 2]
+        flat_offsets[k] = dz * plane + dy * size_x + dx
+        cube_bits[k] = 1 << (9 * (dz + 1) + 3 * (dy + 1) + (dx + 1))
+        if dz != 0:
+            steps_in_z = True
+    joined_bits = _CUBE if corners else _FACES
+    marked = 0
+    for v in range(start, stop):
+        z = v // plane
+        rest = v - z * plane
+        y = rest // size_x
+        x = rest - y * size_x
+        interior = (0 < y < size_y - 1 and 0 < x < size_x - 1
+                    and (not steps_in_z or 0 < z < size_z - 1))
+        visited = 0
+        earliest = -1
+        for k in range(k_offsets):
+            if not interior:
+                zz = z + cube_offsets[k, 0]
+                yy = y + cube_offsets[k, 1]
+                xx = x + cube_offsets[k, 2]
+                if (zz < 0 or zz >= size_z or yy < 0 or yy >= size_y
+                        or xx < 0 or xx >= size_x):
+                    continue
+            u = v + flat_offsets[k]
+            if _visited_before(values, u, v, ascending):
+                visited |= cube_bits[k]
+                if (cube_bits[k] & joined_bits) != 0 and (
+                        earliest < 0 or _visited_before(values, u, earliest, ascending)):
+                    earliest = u
+        joined = visited & joined_bits
+        on_border = False
+        if with_outside and not interior:
+            on_border = (y == 0 or y == size_y - 1 or x == 0 or x == size_x - 1
+                         or (with_outside == 3 and (z == 0 or z == size_z - 1)))
+        if joined == 0:
+            parent[v] = outside if on_border else v
+            continue
+        if on_border:
+            parent[v] = -1
+            marked += 1
+            continue
+        reached = joined & -joined
+        while True:
+            grown = _grow(reached, corners) & visited
+            if grown == reached:
+                break
+            reached = grown
+        if (joined & ~reached) != 0:
+            parent[v] = -1
+            marked += 1
+        else:
+            parent[v] = earliest
+    return marked
+
+
 @njit(cache=True)
 def sweep(values, order, start, stop, ascending, shape, offsets, with_outside,
           parent, pair_root, pair_voxel, n_pairs):
@@ -146,8 +261,8 @@ def sweep(values, order, start, stop, ascending, shape, offsets, with_outside,
     (next_step, n_pairs) : the first step not yet visited (``stop`` unless the output
     buffers could not hold another voxel's merges) and the number of pairs written.
     """
-    n = values.size
-    outside = n
+    outside = values.size
+    last = order.size - 1
     size_z, size_y, size_x = shape[0], shape[1], shape[2]
     plane = size_y * size_x
     k_offsets = offsets.shape[0]
@@ -164,7 +279,7 @@ def sweep(values, order, start, stop, ascending, shape, offsets, with_outside,
     for step in range(start, stop):
         if capacity - n_pairs < MERGES_PER_VOXEL:
             return step, n_pairs
-        v = order[step] if ascending else order[n - 1 - step]
+        v = order[step] if ascending else order[last - step]
         parent[v] = v
         root_v = v
         z = v // plane

@@ -89,21 +89,18 @@ def compute(values: np.ndarray, *, superlevel: bool, construction: str,
     shape = np.array((1,) * (3 - ndim) + tuple(values.shape), dtype=np.int64)
     ascending = not superlevel
 
-    _report(progress, "sort", 0.0)
-    order = sorted_order(flat)
-    _report(progress, "sort", 1.0)
-
-    parent = np.empty(flat.size + 1, dtype=order.dtype)
-    roots_0, voxels_0 = _sweep(flat, order, shape, ndim, ascending=ascending,
+    parent = np.empty(flat.size + 1, dtype=_union_find.index_dtype(flat.size))
+    roots_0, voxels_0 = _sweep(flat, shape, ndim, ascending=ascending,
                                corners=construction == "voxel", with_outside=0,
                                parent=parent, progress=progress, phase="dimension 0")
     top = ndim - 1
-    roots_top, voxels_top = _sweep(flat, order, shape, ndim, ascending=not ascending,
+    roots_top, voxels_top = _sweep(flat, shape, ndim, ascending=not ascending,
                                    corners=construction == "vertex", with_outside=ndim,
                                    parent=parent, progress=progress,
                                    phase=f"dimension {top}")
-    eldest = int(order[0] if ascending else order[-1])
     del parent
+    # The eldest voxel of all: first in (value, flat index) order, or last for superlevel.
+    eldest = int(np.argmin(flat)) if ascending else flat.size - 1 - int(np.argmax(flat[::-1]))
 
     forever = -np.inf if superlevel else np.inf
     dims = [np.zeros(len(roots_0) + 1, np.int8), np.full(len(voxels_top), top, np.int8)]
@@ -112,10 +109,7 @@ def compute(values: np.ndarray, *, superlevel: bool, construction: str,
     birth_index = [roots_0, np.array([eldest]), voxels_top]
     death_index = [voxels_0, np.array([-1]), roots_top]
     if ndim == 3:
-        if superlevel:
-            order = None  # freed: the reduction sorts its own reversed values
-        dim1 = _dimension_one(values, flat, superlevel, construction, order, progress)
-        del order
+        dim1 = _dimension_one(values, flat, superlevel, construction, progress)
         dims.append(np.ones(len(dim1[0]), np.int8))
         for column, part in zip((births, deaths, birth_index, death_index), dim1):
             column.append(part)
@@ -212,44 +206,57 @@ def _report(progress, phase: str, fraction: float) -> None:
         progress(phase, fraction)
 
 
-def _sweep(flat, order, shape, ndim, *, ascending, corners, with_outside, parent, progress,
+def _sweep(flat, shape, ndim, *, ascending, corners, with_outside, parent, progress,
            phase) -> tuple[np.ndarray, np.ndarray]:
-    """(dying roots, voxels they died at) of one union-find sweep, reported in chunks."""
+    """(dying roots, voxels they died at) of one union-find sweep, reported in chunks.
+
+    First a streaming pass in memory order links every voxel that cannot merge anything
+    (the first half of the phase's progress); then the sweep proper visits the remaining
+    voxels in (value, flat index) order.
+    """
     voxels = flat.size
+    cube = _union_find.neighbour_offsets(ndim, True)
     offsets = _union_find.neighbour_offsets(ndim, corners)
-    capacity = max(4096, int(voxels * _FIRST_BUFFER_FRACTION))
-    roots = np.empty(capacity, dtype=order.dtype)
-    dying_at = np.empty(capacity, dtype=order.dtype)
+    parent[voxels] = voxels  # the outside node, used when with_outside
+    _report(progress, phase, 0.0)
+    for start in range(0, voxels, _STEPS_PER_REPORT):
+        stop = min(voxels, start + _STEPS_PER_REPORT)
+        _union_find.link_regular_voxels(flat, start, stop, ascending, shape, cube, corners,
+                                        with_outside, parent)
+        _report(progress, phase, 0.5 * stop / voxels)
+    marked = np.flatnonzero(parent[:voxels] == -1).astype(parent.dtype)
+    order = marked[sorted_order(flat[marked])]
+    del marked
+    capacity = max(4096, int(len(order) * _FIRST_BUFFER_FRACTION))
+    roots = np.empty(capacity, dtype=parent.dtype)
+    dying_at = np.empty(capacity, dtype=parent.dtype)
     count = 0
     step = 0
-    _report(progress, phase, 0.0)
-    while step < voxels:
-        stop = min(voxels, step + _STEPS_PER_REPORT)
+    while step < len(order):
+        stop = min(len(order), step + _STEPS_PER_REPORT)
         step, count = _union_find.sweep(flat, order, step, stop, ascending, shape, offsets,
                                         with_outside, parent, roots, dying_at, count)
         if step < stop:
             capacity *= 2
-            roots = np.concatenate([roots[:count], np.empty(capacity - count, order.dtype)])
+            roots = np.concatenate([roots[:count], np.empty(capacity - count, parent.dtype)])
             dying_at = np.concatenate([dying_at[:count],
-                                       np.empty(capacity - count, order.dtype)])
-        _report(progress, phase, step / voxels)
+                                       np.empty(capacity - count, parent.dtype)])
+        _report(progress, phase, 0.5 + 0.5 * step / len(order))
+    _report(progress, phase, 1.0)
     return roots[:count].copy(), dying_at[:count].copy()
 
 
-def _dimension_one(values, flat, superlevel, construction, order, progress):
+def _dimension_one(values, flat, superlevel, construction, progress):
     """(births, deaths, birth index, death index) of dimension 1 of a 3D volume.
 
     The reduction sweeps a sublevel filtration: a superlevel run hands it values with
-    the order reversed (and lets it sort them); a sublevel run hands it the voxel order
-    already made, which follows the same (value, flat index) rule.
+    the order reversed; the values of the pairs are then read back from ``flat``.
     """
     from . import _reduction
 
-    if superlevel:
-        pairs = _reduction.pairs_dim1(_reversed_order_values(values), construction,
-                                      progress=progress)
-    else:
-        pairs = _reduction.pairs_dim1(values, construction, progress=progress, order=order)
+    swept = _reversed_order_values(values) if superlevel else values
+    pairs = _reduction.pairs_dim1(swept, construction, progress=progress)
+    del swept
     birth_index = np.asarray(pairs[2], dtype=np.int64)
     death_index = np.asarray(pairs[3], dtype=np.int64)
     del pairs
