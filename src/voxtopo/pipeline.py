@@ -208,6 +208,7 @@ def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepare
 def write_result(out, scan: Scan, diagram: Diagram, options: AnalysisOptions | None = None, *,
                  prepared=None, timings=None, notes=None, force: bool = False) -> Path:
     """Write pairs.csv, summary.json and the standard plots into ``out``, atomically."""
+    from .report.html import write_report
     from .report.plots import save_standard_plots
 
     options = options or AnalysisOptions()
@@ -222,4 +223,5 @@ def write_result(out, scan: Scan, diagram: Diagram, options: AnalysisOptions | N
         summary["timings_seconds"]["write"] = round(time.perf_counter() - start, 4)
         summary["diagram"] = diagram.description()
         (tmp / "summary.json").write_text(json.dumps(summary, indent=2, allow_nan=False))
+        write_report(tmp)
     return Path(out)

@@ -1,0 +1,405 @@
+"""HTML reports: one per result folder, one per batch, one per comparison.
+
+Pages are rendered with jinja2 from ``report/templates`` and carry everything inside
+them (plots as base64 PNG, styles inline), so they open offline from a copied folder
+or an e-mail attachment. Every page states the cautions of the house: results support
+research; they are not a medical diagnosis nor a certification of a part or structure.
+"""
+
+from __future__ import annotations
+
+import base64
+import json
+import math
+import platform
+from dataclasses import dataclass
+from datetime import datetime, timezone
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..errors import InputError
+
+__all__ = ["write_report", "write_batch_report", "write_comparison", "render",
+           "plot_distance_heatmap", "plot_embedding", "CAUTIONS", "software_versions"]
+
+TEMPLATES = Path(__file__).parent / "templates"
+
+#: Printed on every page unless the result carries its own (identical in spirit) text.
+CAUTIONS = (
+    "These results support research. They are not a medical diagnosis, nor a certification "
+    "of a part, a material or a structure; defer to local codes and licensed practice.",
+)
+
+#: Our own colours for groups in comparison plots.
+GROUP_COLOURS = ("#1f7a8c", "#c8553d", "#e0a458", "#5b8e7d", "#7b5ea7", "#3d5a80",
+                 "#b5838d", "#6d6875")
+
+#: Keys of summary.json that the result page lays out itself; any other key is shown
+#: in a section of its own, so the numbers of other jobs (pores, patches) appear too.
+_KNOWN_KEYS = {"voxtopo_version", "created", "scan", "analysed", "options", "counts",
+               "essential", "most_persistent", "timings_seconds", "preparation", "software",
+               "cautions", "plots", "diagram", "notes"}
+
+_DIM_WORDS = {"0": "components (dimension 0)", "1": "loops (dimension 1)",
+              "2": "cavities (dimension 2)"}
+
+
+@dataclass
+class Table:
+    """Columns and rows of plain values, what the templates draw as a table."""
+
+    columns: list
+    rows: list
+
+    @classmethod
+    def of(cls, frame: pd.DataFrame) -> "Table":
+        frame = frame.astype(object).where(frame.notna(), None)
+        return cls([str(c) for c in frame.columns], frame.values.tolist())
+
+
+def _show(value) -> str:
+    """One cell: numbers to 6 significant digits, missing values as a dash."""
+    if value is None:
+        return "–"
+    if isinstance(value, (bool, np.bool_)):
+        return "yes" if value else "no"
+    if isinstance(value, (int, np.integer)):
+        return str(int(value))
+    if isinstance(value, (float, np.floating)):
+        value = float(value)
+        if math.isnan(value):
+            return "–"
+        if math.isinf(value):
+            return "never" if value > 0 else "never (superlevel)"
+        return f"{value:.6g}"
+    if isinstance(value, (list, tuple)):
+        return ", ".join(_show(v) for v in value) if value else "–"
+    if isinstance(value, dict):
+        return "; ".join(f"{k}: {_show(v)}" for k, v in value.items()) if value else "–"
+    return str(value)
+
+
+def _environment():
+    import jinja2
+
+    env = jinja2.Environment(loader=jinja2.FileSystemLoader(str(TEMPLATES)),
+                             autoescape=jinja2.select_autoescape(["html"]),
+                             undefined=jinja2.StrictUndefined)
+    env.filters["show"] = _show
+    return env
+
+
+def render(template: str, **context) -> str:
+    """Render one of the templates (``result.html``, ``batch.html``, ``compare.html``)."""
+    context.setdefault("cautions", list(CAUTIONS))
+    context.setdefault("software", software_versions())
+    context.setdefault("created", datetime.now(timezone.utc).isoformat(timespec="seconds"))
+    context.setdefault("subtitle", "")
+    return _environment().get_template(template).render(**context)
+
+
+def software_versions() -> dict:
+    """Versions of voxtopo, Python and the libraries behind the numbers and the pages."""
+    import importlib.metadata as md
+
+    versions = {"python": platform.python_version()}
+    for name in ("voxtopo", "numpy", "scipy", "scikit-image", "gudhi", "numba", "pandas",
+                 "dask", "distributed", "zarr", "scikit-learn", "pot", "matplotlib",
+                 "jinja2"):
+        try:
+            versions[name] = md.version(name)
+        except md.PackageNotFoundError:
+            versions[name] = None
+    return versions
+
+
+def _png(path: Path) -> str:
+    return base64.b64encode(path.read_bytes()).decode("ascii")
+
+
+def _figure_png(figure) -> str:
+    import io
+
+    import matplotlib.pyplot as plt
+
+    buffer = io.BytesIO()
+    figure.savefig(buffer, format="png", dpi=110)
+    plt.close(figure)
+    return base64.b64encode(buffer.getvalue()).decode("ascii")
+
+
+_CAPTIONS = {"diagram.png": "Persistence diagram: each point is one feature, born at its "
+                            "x and dead at its y value.",
+             "barcode.png": "Barcode: one bar per feature, from birth to death.",
+             "betti_curves.png": "Betti numbers of the swept set at every level.",
+             "euler_curve.png": "Euler characteristic of the swept set at every level."}
+
+
+def _read_summary(folder: Path) -> dict:
+    path = folder / "summary.json"
+    if not path.is_file():
+        raise InputError(f"{folder} has no summary.json; a report needs a result folder "
+                         f"written by voxtopo.")
+    try:
+        return json.loads(path.read_text())
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise InputError(f"{path} is not valid JSON ({exc.msg if hasattr(exc, 'msg') else exc}); "
+                         f"rerun the analysis to rewrite it.") from None
+
+
+def _sections(summary: dict) -> list[dict]:
+    """Sections for the keys the page does not lay out itself (other jobs' numbers)."""
+    sections = []
+    for key, value in summary.items():
+        if key in _KNOWN_KEYS:
+            continue
+        title = key.replace("_", " ").capitalize()
+        if isinstance(value, dict):
+            flat = {k: v for k, v in value.items()
+                    if not (isinstance(v, list) and v and isinstance(v[0], dict))}
+            sections.append({"title": title, "mapping": flat, "table": None})
+            for k, v in value.items():
+                if isinstance(v, list) and v and isinstance(v[0], dict):
+                    sections.append({"title": f"{title}: {k.replace('_', ' ')}",
+                                     "mapping": None, "table": Table.of(pd.DataFrame(v))})
+        elif isinstance(value, list) and value and isinstance(value[0], dict):
+            sections.append({"title": title, "mapping": None,
+                             "table": Table.of(pd.DataFrame(value))})
+        else:
+            sections.append({"title": title, "mapping": {key: value}, "table": None})
+    return sections
+
+
+def _final_name(folder: Path) -> str:
+    """The name a result folder will have: the pipeline writes the report inside the
+    temporary ``.NAME.partial-XXXX`` folder that is renamed to NAME at the end."""
+    name = folder.name
+    if name.startswith(".") and ".partial-" in name:
+        return name[1:].rsplit(".partial-", 1)[0]
+    return name
+
+
+def write_report(folder) -> Path:
+    """Write ``report.html`` into a result folder from its summary.json and PNG plots.
+
+    Parameters
+    ----------
+    folder : path
+        A result folder (or the temporary folder the pipeline is filling).
+
+    Returns
+    -------
+    Path of the report.
+
+    Examples
+    --------
+    >>> import numpy as np, voxtopo, tempfile, pathlib
+    >>> from voxtopo.pipeline import analyse
+    >>> out = pathlib.Path(tempfile.mkdtemp()) / "ring"
+    >>> _ = analyse(voxtopo.Scan(np.eye(6)), out)
+    >>> write_report(out).name
+    'report.html'
+    """
+    folder = Path(folder)
+    summary = _read_summary(folder)
+    counts = summary.get("counts", {})
+    essential = summary.get("essential", {})
+    count_rows = [[_DIM_WORDS.get(str(d), f"dimension {d}"), n, essential.get(str(d), 0)]
+                  for d, n in counts.items()]
+    images = [{"data": _png(folder / name), "caption": _CAPTIONS.get(name, name)}
+              for name in summary.get("plots", sorted(p.name for p in folder.glob("*.png")))
+              if (folder / name).is_file()]
+    most = {}
+    for dim, rows in (summary.get("most_persistent") or {}).items():
+        if rows:
+            most[_DIM_WORDS.get(str(dim), f"dimension {dim}")] = Table.of(pd.DataFrame(rows))
+    diagram = summary.get("diagram") or {}
+    notes = list(diagram.get("notes", [])) + list(summary.get("notes", []))
+    for key, value in (summary.get("preparation") or {}).items():
+        notes.append(f"{key}: {_show(value)}")
+    scan = summary.get("scan") or {}
+    name = _final_name(folder)
+    title = Path(str(scan.get("source") or name)).name or name
+    html = render("result.html", title=f"Topology of {title}",
+                  subtitle=f"Result folder {name} · cubical persistent homology",
+                  scan=scan, analysed=summary.get("analysed") if summary.get("analysed")
+                  != scan else None,
+                  counts=Table(["feature", "pairs", "of which never die"], count_rows),
+                  images=images, most_persistent=most, extra_sections=_sections(summary),
+                  settings=summary.get("options") or {}, diagram=diagram,
+                  timings=summary.get("timings_seconds") or {}, notes=notes,
+                  cautions=summary.get("cautions") or list(CAUTIONS),
+                  software=summary.get("software") or software_versions(),
+                  created=summary.get("created", ""))
+    target = folder / "report.html"
+    target.write_text(html, encoding="utf-8")
+    return target
+
+
+def _plot_numeric_columns(summary: pd.DataFrame):
+    """A bar chart of the pair counts of every scan, when the summary has them."""
+    import matplotlib.pyplot as plt
+
+    count_columns = [c for c in summary.columns if c.startswith("pairs_dim")]
+    if summary.empty or not count_columns:
+        return None
+    figure, ax = plt.subplots(figsize=(max(5.0, 0.35 * len(summary) + 2), 3.6),
+                              constrained_layout=True)
+    x = np.arange(len(summary))
+    width = 0.8 / len(count_columns)
+    for k, column in enumerate(count_columns):
+        ax.bar(x + k * width, summary[column].fillna(0), width,
+               color=GROUP_COLOURS[k % len(GROUP_COLOURS)], label=column.replace("_", " "))
+    ax.set_xticks(x + 0.4 - width / 2, summary["name"].astype(str), rotation=60, ha="right",
+                  fontsize=8)
+    ax.set_ylabel("pairs")
+    ax.legend(frameon=False, fontsize=8)
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+    return figure
+
+
+def write_batch_report(folder, settings: dict | None = None) -> Path:
+    """Write ``report.html`` of a batch folder from summary.csv and failures.csv.
+
+    Each scan's own report is linked by a relative path (scans/<name>/report.html), so
+    the folder can be moved as a whole.
+    """
+    folder = Path(folder)
+    summary_path = folder / "summary.csv"
+    summary = pd.read_csv(summary_path) if summary_path.is_file() else pd.DataFrame()
+    failures_path = folder / "failures.csv"
+    failures = pd.read_csv(failures_path) if failures_path.is_file() else pd.DataFrame()
+    if settings is None:
+        settings_path = next((p for p in (folder / "settings.toml", folder / "settings.yaml")
+                              if p.is_file()), None)
+        settings = {"file": settings_path.name if settings_path else "none (defaults)"}
+    links = []
+    for name in summary.get("name", pd.Series(dtype=str)).astype(str):
+        if (folder / "scans" / name / "report.html").is_file():
+            links.append({"name": name, "href": f"scans/{name}/report.html"})
+    overview = {"scans analysed": len(summary), "scans failed": len(failures),
+                "folder": folder.name}
+    figure = _plot_numeric_columns(summary)
+    images = ([{"data": _figure_png(figure), "caption": "Pairs per dimension in each scan."}]
+              if figure is not None else [])
+    html = render("batch.html", title=f"Batch {folder.name}",
+                  subtitle="Many scans, one set of settings", overview=overview,
+                  images=images, summary=Table.of(summary), links=links,
+                  failures=Table.of(failures) if not failures.empty else None,
+                  settings=_flatten(settings))
+    target = folder / "report.html"
+    target.write_text(html, encoding="utf-8")
+    return target
+
+
+def _flatten(mapping: dict, prefix: str = "") -> dict:
+    out = {}
+    for key, value in mapping.items():
+        name = f"{prefix}{key}"
+        if isinstance(value, dict):
+            out.update(_flatten(value, f"{name}."))
+        else:
+            out[name] = value
+    return out
+
+
+# --- comparison pages -------------------------------------------------------------------
+def _group_order(names, groups) -> np.ndarray:
+    return np.array(sorted(range(len(names)), key=lambda i: (str(groups[i]), str(names[i]))))
+
+
+def _colours(groups) -> dict:
+    return {g: GROUP_COLOURS[k % len(GROUP_COLOURS)]
+            for k, g in enumerate(sorted(set(map(str, groups))))}
+
+
+def plot_distance_heatmap(matrix, names, groups, title: str = "distance"):
+    """Heatmap of a distance matrix with rows and columns ordered by group, group borders
+    drawn as lines. Returns the matplotlib Figure."""
+    import matplotlib.pyplot as plt
+
+    order = _group_order(names, groups)
+    ordered = np.asarray(matrix)[np.ix_(order, order)]
+    size = min(10.0, 3.5 + 0.25 * len(names))
+    figure, ax = plt.subplots(figsize=(size + 1.2, size), constrained_layout=True)
+    shown = ax.imshow(ordered, cmap="magma_r", interpolation="nearest")
+    labels = [f"{names[i]} ({groups[i]})" if groups[i] else str(names[i]) for i in order]
+    ax.set_xticks(range(len(order)), labels, rotation=70, ha="right", fontsize=7)
+    ax.set_yticks(range(len(order)), labels, fontsize=7)
+    sorted_groups = [str(groups[i]) for i in order]
+    for k in range(1, len(order)):
+        if sorted_groups[k] != sorted_groups[k - 1]:
+            ax.axhline(k - 0.5, color="#ffffff", linewidth=2)
+            ax.axvline(k - 0.5, color="#ffffff", linewidth=2)
+    figure.colorbar(shown, ax=ax, label=title, shrink=0.8)
+    return figure
+
+
+def plot_embedding(embedding, names, groups):
+    """Scatter plot of a 2D embedding, one colour per group. Returns the Figure."""
+    import matplotlib.pyplot as plt
+
+    figure, ax = plt.subplots(figsize=(5.6, 4.8), constrained_layout=True)
+    colours = _colours(groups)
+    for group, colour in colours.items():
+        members = [i for i, g in enumerate(groups) if str(g) == group]
+        ax.scatter(embedding[members, 0], embedding[members, 1], s=46, color=colour,
+                   label=group or "no group", edgecolor="white", linewidth=0.8)
+    if len(names) <= 40:
+        for i, name in enumerate(names):
+            ax.annotate(str(name), embedding[i], fontsize=7, xytext=(4, 3),
+                        textcoords="offset points", color="#4a4e69")
+    ax.set_xlabel("MDS axis 1")
+    ax.set_ylabel("MDS axis 2")
+    ax.legend(frameon=False, fontsize=8)
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+    return figure
+
+
+def write_comparison(comparison, out, *, force: bool = False) -> Path:
+    """Write a comparison folder: tables (see ``Comparison.save``), heatmap.png, mds.png
+    and report.html, atomically (nothing is left behind on an error)."""
+    from ..io import result_folder
+
+    with result_folder(out, force=force) as tmp:
+        comparison.save(tmp)
+        images = []
+        heat = plot_distance_heatmap(comparison.matrix, comparison.names, comparison.groups,
+                                     title=f"{comparison.metric} distance")
+        heat.savefig(tmp / "heatmap.png", dpi=110)
+        images.append({"data": _png(tmp / "heatmap.png"),
+                       "caption": f"{comparison.metric.capitalize()} distances over dimensions "
+                                  f"{', '.join(map(str, comparison.dims))}, ordered by group."})
+        import matplotlib.pyplot as plt
+
+        plt.close(heat)
+        if comparison.embedding is not None:
+            embed = plot_embedding(comparison.embedding, comparison.names, comparison.groups)
+            embed.savefig(tmp / "mds.png", dpi=110)
+            plt.close(embed)
+            images.append({"data": _png(tmp / "mds.png"),
+                           "caption": "Metric MDS of the distance matrix, coloured by group."})
+        summary = comparison.summary()
+        summary["cautions"] = list(CAUTIONS)
+        summary["software"] = software_versions()
+        (tmp / "summary.json").write_text(json.dumps(summary, indent=2, allow_nan=True))
+        test = comparison.test.description() if comparison.test else None
+        reason = "; ".join(comparison.notes) or "no groups were given"
+        members = pd.DataFrame({"name": comparison.names, "group": comparison.groups})
+        settings = {"dimensions": list(comparison.dims), "metric": comparison.metric,
+                    "Wasserstein order": comparison.order,
+                    "essential classes": summary["essential_classes"],
+                    "combining dimensions": summary["combining_dimensions"]}
+        for dim, grid in comparison.grids.items():
+            settings[f"persistence image, dimension {dim}"] = grid.description()
+        html = render("compare.html", title="Comparison of persistence diagrams",
+                      subtitle=f"{len(comparison.names)} diagrams · {comparison.metric} distance",
+                      members=Table.of(members), images=images, test=test,
+                      no_test_reason=reason, distances=Table.of(comparison.distance_table()),
+                      settings=settings, notes=comparison.notes)
+        (tmp / "report.html").write_text(html, encoding="utf-8")
+    return Path(out)
