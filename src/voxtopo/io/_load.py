@@ -65,7 +65,8 @@ def load(path, *, spacing=None, unit=None, channel=None, timepoint=None, shape=N
     -----
     Nothing is ever written: files are opened read-only, zarr stores with ``mode="r"``,
     .npy files without pickles. When the file gives the x and y voxel size but no z
-    spacing, z is taken equal to x and ``metadata["notes"]`` says so.
+    spacing, z is taken equal to x and ``metadata["notes"]`` says so. NaN voxels are kept
+    as they are; the filtration refuses them unless told how to fill them.
 
     Examples
     --------

@@ -17,6 +17,7 @@ from __future__ import annotations
 import contextlib
 import logging
 import math
+import re
 import warnings
 import xml.etree.ElementTree as ElementTree
 from pathlib import Path
@@ -62,15 +63,16 @@ def quiet_tifffile(found: list[str]):
 
 
 def _reason(exc: BaseException) -> str:
-    text = " ".join(str(exc).split()) or type(exc).__name__
+    """A short one-line reason, without tifffile's "<tifffile.TiffPages @8>" prefix."""
+    text = re.sub(r"^<[^>]*>\s*", "", " ".join(str(exc).split())) or type(exc).__name__
     return text if len(text) <= 120 else text[:117] + "..."
 
 
 def _raise_if_damaged(path: Path, messages: list[str]) -> None:
     for message in messages:
         if any(word in message.lower() for word in _DAMAGE):
-            raise InputError(f"{path} is truncated or corrupt: tifffile reports "
-                             f"'{_reason(Exception(message))}'.")
+            raise InputError(f"{path} is truncated or corrupt (tifffile: "
+                             f"{_reason(Exception(message))}).")
 
 
 def open_tiff(path: Path, level: int = 0) -> Layout:
@@ -86,7 +88,11 @@ def open_tiff(path: Path, level: int = 0) -> Layout:
         except BaseException:
             tif.close()
             raise
-    _raise_if_damaged(path, messages)
+    try:
+        _raise_if_damaged(path, messages)
+    except InputError:
+        tif.close()
+        raise
     layout.metadata["warnings"] = [_reason(Exception(m)) for m in messages]
     return layout
 
