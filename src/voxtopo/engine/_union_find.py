@@ -147,87 +147,105 @@ def _grow(mask, corners):
 
 
 @njit(cache=True)
-def link_regular_voxels(values, start, stop, ascending, shape, cube_offsets, corners,
-                        with_outside, parent):
+def link_regular_voxels(values, row_start, row_stop, ascending, shape, cube_offsets,
+                        corners, with_outside, parent):
     """Pre-link the voxels that cannot merge anything; mark the others.
 
-    Streams over flat indices ``start .. stop-1`` in memory order. A voxel whose earlier
-    visited neighbours (in the sweep) are all connected to each other inside its 3x3x3
-    cube, through voxels visited before it, joins a component that already exists: the
-    sweep would merge nothing there. Such a voxel points at its earliest neighbour
-    (``parent[v] = u``); a voxel with no earlier neighbour is a new component
-    (``parent[v] = v``); a voxel on the image border in a sweep with the outside and no
-    earlier neighbour joins the outside (``parent[v] = n``). Every other voxel may merge
-    components and is marked ``parent[v] = -1`` for :func:`sweep`, which visits only
-    those, in order. Parent links always point to voxels visited earlier, so a ``find``
-    from a visited voxel never passes through a voxel the sweep has not reached.
+    Streams over the rows ``row_start .. row_stop-1`` (row ``z * size_y + y``) in memory
+    order. A voxel whose earlier visited neighbours (in the sweep) are all connected to
+    each other inside its 3x3x3 cube, through voxels visited before it, joins a component
+    that already exists: the sweep would merge nothing there. Such a voxel points at its
+    first visited neighbour in the cube (``parent[v] = u``); a voxel with no earlier neighbour is a new
+    component (``parent[v] = v``); a voxel on the image border in a sweep with the outside
+    and no earlier neighbour joins the outside (``parent[v] = n``). Every other voxel may
+    merge components and is marked ``parent[v] = -1`` for :func:`sweep`, which visits
+    only those, in order. Parent links always point to voxels visited earlier, so a
+    ``find`` from a visited voxel never passes through a voxel the sweep has not reached.
 
     ``cube_offsets`` are the 26 (2D: 8) offsets of the cube in the order of
     :func:`neighbour_offsets` with corners; the neighbourhood used for joining is the
     full cube when ``corners`` is true, else its faces. Returns the number of marked
     voxels.
     """
-    outside = values.size
     size_z, size_y, size_x = shape[0], shape[1], shape[2]
     plane = size_y * size_x
     k_offsets = cube_offsets.shape[0]
     flat_offsets = np.empty(k_offsets, dtype=np.int64)
     cube_bits = np.empty(k_offsets, dtype=np.int64)
+    offset_at = np.zeros(27, dtype=np.int64)
     steps_in_z = False
     for k in range(k_offsets):
         dz, dy, dx = cube_offsets[k, 0], cube_offsets[k, 1], cube_offsets[k, 2]
         flat_offsets[k] = dz * plane + dy * size_x + dx
-        cube_bits[k] = 1 << (9 * (dz + 1) + 3 * (dy + 1) + (dx + 1))
+        position = 9 * (dz + 1) + 3 * (dy + 1) + (dx + 1)
+        cube_bits[k] = 1 << position
+        offset_at[position] = flat_offsets[k]
         if dz != 0:
             steps_in_z = True
+    outside = values.size
     joined_bits = _CUBE if corners else _FACES
+    # In the image's interior the tie rule is fixed by the offset's sign: a neighbour at
+    # a lower flat index wins a tie in an ascending sweep, loses it in a descending one.
+    # Splitting the offsets that way makes the test a single branch-free comparison.
+    lower_half = k_offsets // 2
     marked = 0
-    for v in range(start, stop):
-        z = v // plane
-        rest = v - z * plane
-        y = rest // size_x
-        x = rest - y * size_x
-        interior = (0 < y < size_y - 1 and 0 < x < size_x - 1
-                    and (not steps_in_z or 0 < z < size_z - 1))
-        visited = 0
-        earliest = -1
-        for k in range(k_offsets):
-            if not interior:
-                zz = z + cube_offsets[k, 0]
-                yy = y + cube_offsets[k, 1]
-                xx = x + cube_offsets[k, 2]
-                if (zz < 0 or zz >= size_z or yy < 0 or yy >= size_y
-                        or xx < 0 or xx >= size_x):
-                    continue
-            u = v + flat_offsets[k]
-            if _visited_before(values, u, v, ascending):
-                visited |= cube_bits[k]
-                if (cube_bits[k] & joined_bits) != 0 and (
-                        earliest < 0 or _visited_before(values, u, earliest, ascending)):
-                    earliest = u
-        joined = visited & joined_bits
-        on_border = False
-        if with_outside and not interior:
-            on_border = (y == 0 or y == size_y - 1 or x == 0 or x == size_x - 1
-                         or (with_outside == 3 and (z == 0 or z == size_z - 1)))
-        if joined == 0:
-            parent[v] = outside if on_border else v
-            continue
-        if on_border:
-            parent[v] = -1
-            marked += 1
-            continue
-        reached = joined & -joined
-        while True:
-            grown = _grow(reached, corners) & visited
-            if grown == reached:
-                break
-            reached = grown
-        if (joined & ~reached) != 0:
-            parent[v] = -1
-            marked += 1
-        else:
-            parent[v] = earliest
+    for row in range(row_start, row_stop):
+        z = row // size_y
+        y = row - z * size_y
+        inner_row = 0 < y < size_y - 1 and (not steps_in_z or 0 < z < size_z - 1)
+        v = row * size_x
+        for x in range(size_x):
+            interior = inner_row and 0 < x < size_x - 1
+            visited = 0
+            if interior:
+                here = values[v]
+                if ascending:
+                    for k in range(lower_half):
+                        visited |= cube_bits[k] * (values[v + flat_offsets[k]] <= here)
+                    for k in range(lower_half, k_offsets):
+                        visited |= cube_bits[k] * (values[v + flat_offsets[k]] < here)
+                else:
+                    for k in range(lower_half):
+                        visited |= cube_bits[k] * (values[v + flat_offsets[k]] > here)
+                    for k in range(lower_half, k_offsets):
+                        visited |= cube_bits[k] * (values[v + flat_offsets[k]] >= here)
+            else:
+                for k in range(k_offsets):
+                    zz = z + cube_offsets[k, 0]
+                    yy = y + cube_offsets[k, 1]
+                    xx = x + cube_offsets[k, 2]
+                    if (0 <= zz < size_z and 0 <= yy < size_y and 0 <= xx < size_x
+                            and _visited_before(values, v + flat_offsets[k], v, ascending)):
+                        visited |= cube_bits[k]
+            joined = visited & joined_bits
+            on_border = False
+            if with_outside and not interior:
+                on_border = (y == 0 or y == size_y - 1 or x == 0 or x == size_x - 1
+                             or (with_outside == 3 and (z == 0 or z == size_z - 1)))
+            if joined == 0:
+                parent[v] = outside if on_border else v
+            elif on_border:
+                parent[v] = -1
+                marked += 1
+            else:
+                lowest = joined & -joined
+                reached = lowest
+                while True:
+                    grown = _grow(reached, corners) & visited
+                    if grown == reached:
+                        break
+                    reached = grown
+                if (joined & ~reached) != 0:
+                    parent[v] = -1
+                    marked += 1
+                else:
+                    # Any visited neighbour will do (they are all in one component);
+                    # the first cube position is found without comparing values.
+                    position = 0
+                    while (lowest >> position) != 1:
+                        position += 1
+                    parent[v] = v + offset_at[position]
+            v += 1
     return marked
 
 

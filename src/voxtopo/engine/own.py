@@ -219,11 +219,13 @@ def _sweep(flat, shape, ndim, *, ascending, corners, with_outside, parent, progr
     offsets = _union_find.neighbour_offsets(ndim, corners)
     parent[voxels] = voxels  # the outside node, used when with_outside
     _report(progress, phase, 0.0)
-    for start in range(0, voxels, _STEPS_PER_REPORT):
-        stop = min(voxels, start + _STEPS_PER_REPORT)
+    rows = int(shape[0] * shape[1])
+    rows_per_report = max(1, _STEPS_PER_REPORT // int(shape[2]))
+    for start in range(0, rows, rows_per_report):
+        stop = min(rows, start + rows_per_report)
         _union_find.link_regular_voxels(flat, start, stop, ascending, shape, cube, corners,
                                         with_outside, parent)
-        _report(progress, phase, 0.5 * stop / voxels)
+        _report(progress, phase, 0.5 * stop / rows)
     marked = np.flatnonzero(parent[:voxels] == -1).astype(parent.dtype)
     order = marked[sorted_order(flat[marked])]
     del marked
