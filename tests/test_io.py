@@ -571,7 +571,7 @@ def test_constant_and_one_voxel_thick_inputs_load(tmp_path):
     assert (voxtopo.load(tmp_path / "const.tif").data == 7).all()
 
 
-# --- through the command line ----------------------------------------------------------------------
+# --- through the command line -----------------------------------------------------------------
 CLI_BAD = {
     "missing path": (lambda d: [str(d / "nowhere.tif")], "No file or folder"),
     "garbage TIFF": (lambda d: [str(_garbage(d))], "not a readable TIFF"),
