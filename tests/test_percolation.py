@@ -1,0 +1,149 @@
+"""Percolation radius, the union-find sweeps and their pure-Python twins.
+
+Reference for components: scipy.ndimage.label with generate_binary_structure(ndim, 1 | ndim)
+counts the components of a set (CHECKS.md, scipy entry); distances:
+scipy.ndimage.distance_transform_edt with sampling=.
+"""
+
+import numpy as np
+import pytest
+from scipy import ndimage
+
+from voxtopo.filtration import signed_distance
+from voxtopo.porosity import analyse
+from voxtopo.porosity import _sweep
+from voxtopo.porosity._analysis import percolation
+
+ENGINE = "gudhi"
+
+
+def channel(shape=(24, 33, 33), radius=5.0, axis=0):
+    """Pore mask of a straight cylinder of ``radius`` voxels through the whole scan."""
+    grids = np.meshgrid(*[np.arange(n) for n in shape], indexing="ij")
+    across = [g - (n - 1) / 2 for k, (g, n) in enumerate(zip(grids, shape)) if k != axis]
+    return np.hypot(*across) <= radius
+
+
+def test_straight_channel_percolates_along_its_axis_with_its_radius():
+    # A cylinder of radius r (geometry, common practice, no source): the largest ball that
+    # travels its length has radius r; within one voxel (a distance between voxel centres,
+    # see tests/test_porosity.py for the derivation).
+    result = analyse(channel(radius=5.0), engine=ENGINE)
+    summary = result.summary
+    assert summary["percolates"] == {"z": True, "y": False, "x": False}
+    assert summary["percolation_radius"]["z"] == pytest.approx(5.0, abs=1.0)
+    assert summary["percolation_radius"]["y"] == 0.0
+    assert summary["percolation_radius"]["x"] == 0.0
+    assert summary["critical_throat"]["y"] is None
+
+
+def test_channel_with_a_constriction_is_limited_by_it():
+    # A wide channel (radius 7) pinched to radius 3 over two slices: the percolation radius
+    # is the pinch, and the critical throat sits in it (common practice, no source).
+    mask = channel(shape=(30, 33, 33), radius=7.0)
+    mask[14:16] = channel(shape=(2, 33, 33), radius=3.0)
+    result = analyse(mask, axis="z", engine=ENGINE)
+    assert result.summary["percolation_radius"]["z"] == pytest.approx(3.0, abs=1.0)
+    assert result.summary["percolation_radius"]["z"] < 5.0
+    assert 13 <= result.critical_throats["z"][0] <= 16
+    assert list(result.summary["percolates"]) == ["z"]
+
+
+def test_anisotropic_channel_radius_is_physical():
+    # The same cylinder sampled every 2 um across and 1 um along (distance_transform_edt
+    # with sampling=, CHECKS.md): radius 10 um within one coarse voxel (2 um).
+    shape = (20, 21, 21)
+    grids = np.meshgrid(*[np.arange(n) for n in shape], indexing="ij")
+    mask = np.hypot((grids[1] - 10) * 2.0, (grids[2] - 10) * 2.0) <= 10.0
+    result = analyse(mask, spacing=(1.0, 2.0, 2.0), unit="um", engine=ENGINE)
+    assert result.summary["percolation_radius"]["z"] == pytest.approx(10.0, abs=2.0)
+
+
+def test_closed_cavity_never_percolates():
+    # A ball of pore inside solid touches no face: nothing connects (common practice).
+    n = 24
+    z, y, x = np.meshgrid(*[np.arange(n) - 11.5] * 3, indexing="ij")
+    result = analyse(np.sqrt(z * z + y * y + x * x) <= 7, engine=ENGINE)
+    assert result.summary["percolates"] == {"z": False, "y": False, "x": False}
+    assert set(result.summary["percolation_radius"].values()) == {0.0}
+    assert set(result.summary["connected_porosity"].values()) == {0.0}
+
+
+def test_channel_touching_only_one_face_does_not_percolate():
+    mask = channel(radius=4.0)
+    mask[12:] = False
+    result = analyse(mask, axis="z", engine=ENGINE)
+    assert result.summary["percolates"]["z"] is False
+
+
+def _brute_force_radius(mask, axis, neighbourhood):
+    """Largest r with {distance >= r} joining the two faces, by trying every distinct
+    distance with scipy.ndimage.label (the reference; the library never tries radii)."""
+    distance = -signed_distance(mask).data
+    structure = ndimage.generate_binary_structure(mask.ndim,
+                                                  mask.ndim if neighbourhood in (8, 26) else 1)
+    for r in np.unique(distance[mask])[::-1]:
+        labels, _ = ndimage.label(mask & (distance >= r), structure=structure)
+        inlet = set(np.unique(np.take(labels, 0, axis=axis))) - {0}
+        outlet = set(np.unique(np.take(labels, -1, axis=axis))) - {0}
+        if inlet & outlet:
+            return float(r)
+    return 0.0
+
+
+@pytest.mark.parametrize("shape, neighbourhood", [((9, 10, 11), 26), ((9, 10, 11), 6),
+                                                  ((17, 19), 8), ((17, 19), 4)])
+def test_sweep_matches_trying_every_radius(shape, neighbourhood):
+    # scipy.ndimage.label on every distance level is the reference (CHECKS.md).
+    rng = np.random.default_rng(len(shape) * neighbourhood)
+    for trial in range(4):
+        mask = ndimage.gaussian_filter(rng.normal(size=shape), 1.0) > -0.1
+        if mask.all() or not mask.any():
+            continue
+        field = signed_distance(mask).data
+        for axis in range(len(shape)):
+            expected = _brute_force_radius(mask, axis, neighbourhood)
+            radius, where = percolation(field, mask, axis, neighbourhood, (1.0,) * len(shape))
+            assert radius == pytest.approx(expected)
+            assert (where is None) == (expected == 0.0)
+
+
+@pytest.mark.parametrize("neighbourhood", [26, 6])
+def test_kernels_agree_with_their_python_twins(neighbourhood):
+    rng = np.random.default_rng(neighbourhood)
+    shape = (5, 6, 7)
+    for _ in range(5):
+        mask = rng.random(shape) < 0.6
+        field = signed_distance(mask).data
+        order = _sweep.sweep_order(field, mask)
+        for axis in range(3):
+            assert _sweep.percolation_step(order, shape, axis, neighbourhood) == \
+                _sweep.percolation_step(order, shape, axis, neighbourhood, python=True)
+        voxels = order[rng.choice(len(order), size=6, replace=False)]
+        levels = np.sort(rng.uniform(field[mask].min(), 0.0, size=6))
+        fast = _sweep.basins(order, field, shape, neighbourhood, voxels, levels)
+        slow = _sweep.basins(order, field, shape, neighbourhood, voxels, levels, python=True)
+        for a, b in zip(fast, slow):
+            assert np.array_equal(a, b)
+
+
+def test_basin_sizes_match_scipy_labels():
+    # The component of {f < level} holding a voxel, counted by scipy.ndimage.label.
+    rng = np.random.default_rng(11)
+    mask = ndimage.gaussian_filter(rng.normal(size=(12, 13, 14)), 1.0) > -0.2
+    field = signed_distance(mask).data
+    order = _sweep.sweep_order(field, mask)
+    voxels = order[:: max(1, len(order) // 7)][:7]
+    levels = np.sort(np.linspace(field[mask].min() + 0.5, -0.5, len(voxels)))
+    size, own, border = _sweep.basins(order, field, mask.shape, 26, voxels, levels)
+    structure = ndimage.generate_binary_structure(3, 3)
+    for voxel, level, got, touches in zip(voxels, levels, size, border):
+        labels, _ = ndimage.label(mask & (field < level), structure=structure)
+        label = labels.ravel()[voxel]
+        component = labels == label
+        assert got == (component.sum() if label else 0)
+        if label:
+            edge = np.zeros_like(component)
+            edge[[0, -1]] = edge[:, [0, -1]] = edge[:, :, [0, -1]] = True
+            assert touches == bool((component & edge).any())
+    assert own.sum() <= mask.sum()

@@ -1,0 +1,473 @@
+"""Pore bodies, throats, porosity and integral geometry against outside sources.
+
+Sphere packings: standard crystallography geometry (Callister & Rethwisch, "Materials
+Science and Engineering: An Introduction", interstitial sites). Euler characteristic:
+skimage.measure.euler_number (Ohser, Nagel & Schladitz 2002). Connectivity density:
+Odgaard & Gundersen 1993 on a rod lattice counted by hand. Surface area: marching cubes
+(Lorensen & Cline 1987) against 4 pi R^2.
+
+Tolerance for radii, derived from the voxel size: a radius is a distance between voxel
+centres. The nearest solid voxel centre lies between 0 and 1 voxel beyond the true surface
+(half a voxel from digitising the sphere, half from measuring to a centre rather than a
+face), and the deepest voxel centre lies up to half a voxel diagonal (sqrt(3)/2) off the
+true centre of a body. Every radius is therefore within one voxel of the geometric value.
+
+The persistence engine is gudhi here for speed on a shared machine; the project's own
+engine gives the same diagram (tests/test_persistence_checks.py).
+"""
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from skimage.measure import euler_number
+
+from voxtopo.errors import InputError
+from voxtopo.porosity import analyse, write_pores
+from voxtopo.porosity._euler import euler_characteristic, euler_characteristic_python
+
+ONE_VOXEL = 1.0
+ENGINE = "gudhi"
+
+
+def packing(kind, cell, cells, offset=0.0):
+    """Pore mask of touching spheres on a cubic lattice of side ``cell`` voxels.
+
+    Voxel i has its centre at ``i + offset``; sphere centres sit on the lattice points,
+    repeated without end (the box cuts a periodic packing). Returns (mask, R).
+    """
+    n = int(round(cell * cells))
+    c = np.arange(n) + offset
+    z, y, x = np.meshgrid(c, c, c, indexing="ij")
+    if kind == "simple cubic":
+        radius = cell / 2
+
+        def wrap(u):
+            r = np.mod(u, cell)
+            return np.minimum(r, cell - r)
+
+        nearest = np.sqrt(wrap(z) ** 2 + wrap(y) ** 2 + wrap(x) ** 2)
+    else:  # face-centred cubic: lattice points of the half-cell grid with an even sum
+        radius = cell / (2 * np.sqrt(2))
+        half = cell / 2
+        u = np.stack([z / half, y / half, x / half])
+        low = np.floor(u)
+        nearest = np.full(z.shape, np.inf)
+        for corner in np.ndindex(2, 2, 2):
+            p = low + np.array(corner).reshape(3, 1, 1, 1)
+            dist = np.sqrt((((u - p) * half) ** 2).sum(axis=0))
+            nearest = np.where(p.sum(axis=0) % 2 == 0, np.minimum(nearest, dist), nearest)
+    return nearest > radius, radius
+
+
+@pytest.fixture(scope="module")
+def simple_cubic():
+    mask, radius = packing("simple cubic", 20, 2)
+    return mask, radius, analyse(mask, engine=ENGINE)
+
+
+@pytest.fixture(scope="module")
+def face_centred():
+    mask, radius = packing("face-centred cubic", 40, 1.1, offset=-3)
+    return mask, radius, analyse(mask, engine=ENGINE)
+
+
+def test_simple_cubic_porosity_is_one_minus_pi_over_six(simple_cubic):
+    # Callister & Rethwisch, interstitial sites: packing fraction pi/6. Tolerance: a tenth
+    # of a voxel of mean boundary displacement times the surface area density pi/(2R).
+    mask, radius, result = simple_cubic
+    assert result.summary["porosity"] == pytest.approx(1 - np.pi / 6, abs=0.1 * np.pi / (2 * radius))
+
+
+def test_simple_cubic_pore_bodies_and_square_windows(simple_cubic):
+    # Callister & Rethwisch, interstitial sites: largest empty sphere (sqrt(3)-1)R at the
+    # cube centre, square window (sqrt(2)-1)R between two cubes; within one voxel.
+    mask, radius, result = simple_cubic
+    inner = result.pores[~result.pores["border"]]
+    assert len(inner) == 7          # 8 cube centres; the eldest drains the whole pore space
+    assert np.allclose(inner["body_radius"], (np.sqrt(3) - 1) * radius, atol=ONE_VOXEL)
+    assert np.allclose(inner["throat_radius"], (np.sqrt(2) - 1) * radius, atol=ONE_VOXEL)
+    # the body centres are the cube centres (10 or 30 along each axis), to within a voxel
+    centres = inner[["body_z", "body_y", "body_x"]].to_numpy()
+    assert np.all(np.min(np.abs(centres[..., None] - np.array([10, 30])), axis=-1) <= 1)
+
+
+def test_simple_cubic_percolates_through_its_windows(simple_cubic):
+    # Callister & Rethwisch, interstitial sites: the narrowest passage along every axis is
+    # the square window (sqrt(2)-1)R.
+    mask, radius, result = simple_cubic
+    for axis in "zyx":
+        assert result.summary["percolates"][axis]
+        assert result.summary["percolation_radius"][axis] == pytest.approx(
+            (np.sqrt(2) - 1) * radius, abs=ONE_VOXEL)
+
+
+def test_face_centred_cubic_porosity(face_centred):
+    # Callister & Rethwisch, interstitial sites: packing fraction pi/(3 sqrt 2); tolerance
+    # a tenth of a voxel times the surface area density 2 pi / cell.
+    mask, radius, result = face_centred
+    assert result.summary["porosity"] == pytest.approx(1 - np.pi / (3 * np.sqrt(2)),
+                                                       abs=0.1 * 2 * np.pi / 40)
+
+
+def test_face_centred_cubic_octahedral_and_tetrahedral_sites(face_centred):
+    # Callister & Rethwisch, interstitial sites: octahedral (sqrt(2)-1)R, tetrahedral
+    # (sqrt(3/2)-1)R, triangular windows (2/sqrt(3)-1)R; within one voxel each.
+    mask, radius, result = face_centred
+    inner = result.pores[~result.pores["border"]]
+    octahedral = (np.sqrt(2) - 1) * radius
+    tetrahedral = (np.sqrt(1.5) - 1) * radius
+    near_oct = np.abs(inner["body_radius"] - octahedral) <= ONE_VOXEL
+    near_tet = np.abs(inner["body_radius"] - tetrahedral) <= ONE_VOXEL
+    assert (near_oct | near_tet).all()
+    assert near_oct.sum() == 1 and near_tet.sum() == 8   # one cube centre, eight tetrahedra
+    assert np.allclose(inner["throat_radius"], (2 / np.sqrt(3) - 1) * radius, atol=ONE_VOXEL)
+
+
+def test_anisotropic_spacing_gives_the_same_physical_answer():
+    # The same simple cubic packing (Callister & Rethwisch, interstitial sites) seen with
+    # every other z slice: spacing (2, 1, 1). Radii agree within one coarse voxel (2),
+    # porosity within the z sampling of one slice in twenty (common practice, no source).
+    iso, radius = packing("simple cubic", 20, 2)
+    coarse = analyse(iso[::2], spacing=(2.0, 1.0, 1.0), unit="um", engine=ENGINE)
+    fine = analyse(iso, spacing=(1.0, 1.0, 1.0), unit="um", engine=ENGINE)
+    assert coarse.summary["porosity"] == pytest.approx(fine.summary["porosity"], abs=0.02)
+    a, b = (r.pores[~r.pores["border"]] for r in (coarse, fine))
+    assert np.allclose(a["body_radius"].median(), b["body_radius"].median(), atol=2.0)
+    assert np.allclose(a["throat_radius"].median(), b["throat_radius"].median(), atol=2.0)
+    assert abs(a["body_radius"].median() - (np.sqrt(3) - 1) * radius) <= 2.0
+    for axis in "zyx":
+        assert coarse.summary["percolation_radius"][axis] == pytest.approx(
+            (np.sqrt(2) - 1) * radius, abs=2.0)
+    # surface area density is a physical quantity too: within 5 % (marching cubes,
+    # Lorensen & Cline 1987, on a twice coarser z axis)
+    assert coarse.summary["minkowski"]["surface_area_density"] == pytest.approx(
+        fine.summary["minkowski"]["surface_area_density"], rel=0.05)
+    assert coarse.summary["unit"] == "um"
+
+
+def _blobs(shape, seed, level=0.0):
+    from scipy import ndimage
+    noise = np.random.default_rng(seed).normal(size=shape)
+    return ndimage.gaussian_filter(noise, 1.5) > level
+
+
+@pytest.mark.parametrize("neighbourhood, complement, pore_conn, solid_conn",
+                         [(26, 6, 3, 1), (6, 26, 1, 3)])
+def test_euler_characteristic_of_each_phase_matches_scikit_image(neighbourhood, complement,
+                                                                 pore_conn, solid_conn):
+    # skimage.measure.euler_number (Ohser, Nagel & Schladitz 2002), matching connectivity:
+    # 26 <-> connectivity 3, 6 <-> connectivity 1.
+    mask = _blobs((20, 22, 24), seed=3)
+    result = analyse(mask, neighbourhood=neighbourhood, engine=ENGINE)
+    chi = result.summary["euler_characteristic"]
+    assert chi["pore"] == euler_number(mask, connectivity=pore_conn)
+    assert chi["solid"] == euler_number(~mask, connectivity=solid_conn)
+    assert chi["neighbourhood"] == {"pore": neighbourhood, "solid": complement}
+
+
+@pytest.mark.parametrize("connectivity, neighbourhood", [(1, 4), (2, 8), (1, 6), (3, 26)])
+def test_euler_counting_matches_scikit_image_and_its_twin(connectivity, neighbourhood):
+    # skimage.measure.euler_number (Ohser, Nagel & Schladitz 2002) on random masks.
+    rng = np.random.default_rng(connectivity * neighbourhood)
+    shape = (9, 11) if neighbourhood in (4, 8) else (6, 7, 8)
+    for _ in range(5):
+        mask = rng.random(shape) < 0.45
+        expected = euler_number(mask, connectivity=connectivity)
+        assert euler_characteristic(mask, neighbourhood) == expected
+        assert euler_characteristic_python(mask, neighbourhood) == expected
+
+
+def test_euler_characteristic_agrees_with_the_betti_numbers_at_level_zero():
+    # CHECKS.md, scikit-image entry: the Euler characteristic equals the alternating sum of
+    # the Betti numbers of the sublevel set {signed distance <= 0}, i.e. the pore phase.
+    mask = _blobs((18, 18, 18), seed=8)
+    result = analyse(mask, engine=ENGINE)
+    betti = result.diagram.betti(0.0)
+    assert betti[0] - betti[1] + betti[2] == result.summary["euler_characteristic"]["pore"]
+
+
+def rod_lattice(n=36, nodes=(6, 18, 30), half_width=1):
+    """Solid rods along all three axes joining a 3 x 3 x 3 grid of nodes (pore elsewhere)."""
+    solid = np.zeros((n, n, n), bool)
+    lo, hi = nodes[0], nodes[-1]
+    for a in nodes:
+        for b in nodes:
+            sa = slice(a - half_width, a + half_width + 1)
+            sb = slice(b - half_width, b + half_width + 1)
+            run = slice(lo - half_width, hi + half_width + 1)
+            solid[run, sa, sb] = True
+            solid[sa, run, sb] = True
+            solid[sa, sb, run] = True
+    return ~solid
+
+
+def test_rod_lattice_connectivity_density():
+    # Odgaard & Gundersen 1993: Conn.D = (1 - chi) / V. Counted by hand: 27 nodes and
+    # 3 axes x 9 lines x 2 rods = 54 rods, one component, so 54 - 27 + 1 = 28 loops.
+    mask = rod_lattice()
+    result = analyse(mask, engine=ENGINE)
+    density = result.summary["connectivity_density"]
+    assert density["phase"] == "solid"
+    assert result.summary["euler_characteristic"]["solid"] == 1 - 28
+    assert density["value"] == pytest.approx(28 / 36 ** 3)
+    spaced = analyse(mask, spacing=(0.5, 0.5, 0.5), unit="mm", engine=ENGINE)
+    assert spaced.summary["connectivity_density"]["value"] == pytest.approx(28 / 18 ** 3)
+
+
+def test_rod_lattice_loops_are_in_the_loop_table():
+    # Same hand count (Odgaard & Gundersen 1993): 28 independent loops of the solid, which
+    # the pore phase sees as 28 tunnels; they exist in the segmented mask (crossing pairs).
+    result = analyse(rod_lattice(), engine=ENGINE)
+    crossing = result.loops[result.loops["kind"] == "crossing"]
+    assert len(crossing) == 28
+    # each wraps a rod of half-width 1.5 voxels (a 3-voxel square), to within one voxel
+    assert np.allclose(crossing["strut_radius"], 1.5, atol=ONE_VOXEL)
+
+
+def test_sphere_surface_area_and_mean_curvature():
+    # Lorensen & Cline 1987 (marching cubes) against 4 pi R^2, within 3 % for R = 10 voxels
+    # (the binary staircase alone would add about 8 %, from memory). The integral mean
+    # curvature of a sphere, 4 pi R, from memory, within 5 %. Euler density: a ball has
+    # Betti numbers (1, 0, 0) (Hatcher 2002), so chi / V = 1 / V.
+    n, radius = 32, 10.0
+    c = np.arange(n) - (n - 1) / 2
+    z, y, x = np.meshgrid(c, c, c, indexing="ij")
+    pore = np.sqrt(z * z + y * y + x * x) <= radius
+    result = analyse(pore, spacing=(2.0, 2.0, 2.0), unit="um", engine=ENGINE)
+    functionals = result.summary["minkowski"]
+    volume = (n * 2.0) ** 3
+    physical_radius = 2.0 * radius
+    assert functionals["surface_area_density"] * volume == pytest.approx(
+        4 * np.pi * physical_radius ** 2, rel=0.03)
+    assert functionals["mean_curvature_density"] * volume == pytest.approx(
+        4 * np.pi * physical_radius, rel=0.05)
+    assert functionals["euler_density"] * volume == pytest.approx(1.0)
+    # a closed cavity: one isolated pore whose body is the sphere, radius within one voxel
+    pores = result.pores
+    assert len(pores) == 1 and pores["isolated"].iloc[0] and not pores["border"].iloc[0]
+    assert pores["body_radius"].iloc[0] == pytest.approx(physical_radius, abs=2.0 * ONE_VOXEL)
+    assert np.isnan(pores["throat_radius"].iloc[0])
+
+
+def test_border_flag_marks_the_pore_cut_by_the_field_of_view():
+    # common practice, no source: a ball cut by the scan's edge cannot be measured; one well
+    # inside can. Basin or inscribed ball touching the outer layer sets the flag.
+    n = 40
+    z, y, x = np.meshgrid(*[np.arange(n)] * 3, indexing="ij")
+    inside = (z - 20) ** 2 + (y - 12) ** 2 + (x - 12) ** 2 <= 36
+    cut = (z - 20) ** 2 + (y - 30) ** 2 + (x - 37) ** 2 <= 36
+    result = analyse(inside | cut, engine=ENGINE)
+    pores = result.pores
+    assert len(pores) == 2
+    left = pores[pores["body_x"] < 20]
+    right = pores[pores["body_x"] >= 20]
+    assert len(left) == 1 and not left["border"].iloc[0]
+    assert len(right) == 1 and right["border"].iloc[0]
+
+
+def test_grains_of_a_two_bead_chain():
+    # Two solid spheres of radius 8 whose centres are 14 apart in a pore matrix: their neck
+    # is a circle of radius sqrt(8^2 - 7^2) = 3.87 (plane geometry, common practice, no
+    # source); grain radii within one voxel of 8, neck within one voxel.
+    n = 40
+    z, y, x = np.meshgrid(*[np.arange(n)] * 3, indexing="ij")
+    beads = ((z - 20) ** 2 + (y - 20) ** 2 + (x - 13) ** 2 <= 64) | \
+            ((z - 20) ** 2 + (y - 20) ** 2 + (x - 27) ** 2 <= 64)
+    result = analyse(~beads, engine=ENGINE)
+    grains = result.grains
+    assert len(grains) == 2
+    assert np.allclose(grains["body_radius"], 8.0, atol=ONE_VOXEL)
+    joined = grains.dropna(subset=["neck_radius"])
+    assert len(joined) == 1
+    assert joined["neck_radius"].iloc[0] == pytest.approx(np.sqrt(64 - 49), abs=ONE_VOXEL)
+    assert joined["neck_x"].iloc[0] == pytest.approx(20.0, abs=1.0)
+
+
+def test_enclosed_pore_is_a_void_of_the_solid():
+    # A spherical shell of solid (radii 6 and 11) around a pore: the solid has Betti
+    # numbers (1, 0, 1) (Hatcher 2002, spherical shell), so one enclosed void, whose radius
+    # is the inner radius within one voxel and whose wall is half of 5 voxels thick.
+    n = 32
+    c = np.arange(n) - (n - 1) / 2
+    z, y, x = np.meshgrid(c, c, c, indexing="ij")
+    r = np.sqrt(z * z + y * y + x * x)
+    solid = (r >= 6) & (r <= 11)
+    result = analyse(~solid, engine=ENGINE)
+    crossing = result.voids[result.voids["kind"] == "crossing"]
+    assert len(crossing) == 1
+    assert crossing["void_radius"].iloc[0] == pytest.approx(6.0, abs=ONE_VOXEL)
+    assert crossing["wall_radius"].iloc[0] == pytest.approx(2.5, abs=ONE_VOXEL)
+    assert result.summary["euler_characteristic"]["solid"] == 2
+
+
+def test_threshold_and_label_inputs_select_the_pores():
+    # Segmentation: pores at or below the threshold (or above with pores_bright); Otsu's
+    # method (scikit-image) separates two well-separated gray levels; common practice.
+    mask = _blobs((16, 16, 16), seed=5)
+    gray = np.where(mask, 40, 200).astype(np.uint8)
+    by_value = analyse(gray, threshold=100, engine=ENGINE)
+    assert by_value.summary["porosity"] == pytest.approx(mask.mean())
+    by_otsu = analyse(gray, threshold="otsu", engine=ENGINE)
+    assert 40 <= by_otsu.summary["threshold"] < 200
+    assert by_otsu.summary["threshold_method"] == "otsu"
+    assert by_otsu.summary["porosity"] == pytest.approx(mask.mean())
+    bright = analyse(255 - gray, threshold=100, pores_bright=True, engine=ENGINE)
+    assert bright.summary["porosity"] == pytest.approx(mask.mean())
+    labels = np.where(mask, 3, 7).astype(np.int32)
+    by_label = analyse(labels, label=3, engine=ENGINE)
+    assert by_label.summary["porosity"] == pytest.approx(mask.mean())
+    assert np.array_equal(gray, np.where(mask, 40, 200))      # input untouched
+
+
+def test_two_dimensional_packing_of_discs():
+    # Square packing of discs of radius R (plane version of the simple cubic case,
+    # common practice, no source): porosity 1 - pi/4, largest empty disc (sqrt(2)-1)R,
+    # window 0 -- the discs touch, so the pores are isolated (no throat).
+    cell = 25
+    c = np.arange(2 * cell)
+    y, x = np.meshgrid(c, c, indexing="ij")
+    wrap = lambda u: np.minimum(np.mod(u, cell), cell - np.mod(u, cell))  # noqa: E731
+    mask = np.hypot(wrap(y), wrap(x)) > cell / 2
+    result = analyse(mask, engine=ENGINE)
+    assert result.summary["porosity"] == pytest.approx(1 - np.pi / 4, abs=0.1 * np.pi / cell)
+    inner = result.pores[~result.pores["border"]]
+    assert len(inner) == 4
+    assert np.allclose(inner["body_radius"], (np.sqrt(2) - 1) * cell / 2, atol=ONE_VOXEL)
+    assert inner["isolated"].all()
+    assert result.summary["minkowski"]["mean_curvature_density"] is None
+    assert "body_z" not in result.pores.columns
+
+
+# ---------------------------------------------------------------------------- bad input
+def _one_sentence(error):
+    text = str(error.value)
+    assert "\n" not in text and text.endswith(".")
+    return text
+
+
+def test_empty_mask_is_refused():
+    with pytest.raises(InputError) as error:
+        analyse(np.zeros((8, 8, 8), bool))
+    assert "no pore voxels" in _one_sentence(error)
+
+
+def test_all_pore_mask_is_refused():
+    with pytest.raises(InputError) as error:
+        analyse(np.ones((8, 8, 8), bool))
+    assert "pore in every voxel" in _one_sentence(error)
+
+
+def test_gray_scan_without_threshold_is_refused():
+    gray = np.arange(512, dtype=np.uint16).reshape(8, 8, 8)
+    with pytest.raises(InputError) as error:
+        analyse(gray)
+    assert "not a binary mask" in _one_sentence(error)
+    assert "threshold" in str(error.value)
+
+
+@pytest.mark.parametrize("kwargs, words", [
+    ({"label": 9}, "No voxel"),
+    ({"label": 1, "threshold": 0.5}, "not both"),
+    ({"axis": "w"}, "percolation axis"),
+    ({"neighbourhood": 8}, "Neighbourhood"),
+    ({"threshold": "median"}, "number or 'otsu'"),
+    ({"min_lifetime": -1.0}, "min_lifetime"),
+])
+def test_bad_options_are_refused_with_one_sentence(kwargs, words):
+    labels = np.zeros((8, 8, 8), np.int32)
+    labels[2:6, 2:6, 2:6] = 1
+    with pytest.raises(InputError) as error:
+        analyse(labels, **kwargs)
+    assert words in _one_sentence(error)
+
+
+def test_nan_in_a_gray_scan_is_refused():
+    gray = np.random.default_rng(0).random((8, 8, 8))
+    gray[3, 3, 3] = np.nan
+    with pytest.raises(InputError) as error:
+        analyse(gray, threshold=0.5)
+    assert "NaN" in _one_sentence(error)
+
+
+def test_too_big_for_memory_is_refused(monkeypatch):
+    from voxtopo.errors import TooBigError
+    monkeypatch.setenv("VOXTOPO_MEMORY_LIMIT", "100000")
+    mask = _blobs((16, 16, 16), seed=1)
+    with pytest.raises(TooBigError) as error:
+        analyse(mask)
+    assert "memory" in _one_sentence(error)
+
+
+# ------------------------------------------------------------------------------ files
+def test_result_folder_has_the_contract_columns_and_keys(tmp_path, simple_cubic):
+    mask, radius, result = simple_cubic
+    out = write_pores(tmp_path / "beads", result)
+    pores = pd.read_csv(out / "pores.csv")
+    assert list(pores.columns[:11]) == ["id", "body_radius", "body_z", "body_y", "body_x",
+                                        "throat_radius", "throat_z", "throat_y", "throat_x",
+                                        "border", "lifetime"]
+    assert len(pores) == len(result.pores)
+    summary = json.loads((out / "summary.json").read_text())
+    for key in ("porosity", "connected_porosity", "percolates", "euler_characteristic",
+                "connectivity_density", "minkowski", "percolation_radius", "counts",
+                "threshold", "threshold_method", "unit", "cautions", "diagram"):
+        assert key in summary
+    assert summary["connectivity_density"]["neighbourhood"] == 6
+    assert set(summary["minkowski"]) >= {"volume_fraction", "surface_area_density",
+                                         "mean_curvature_density", "euler_density"}
+    assert any("not a medical diagnosis" in c for c in summary["cautions"])
+    assert any("two voxels" in c for c in summary["cautions"])
+    for plot in ("pore_sizes.png", "distance_diagram.png", "pore_slices.png"):
+        assert (out / plot).stat().st_size > 10_000
+    # an existing folder is kept unless force is given
+    stamp = (out / "pores.csv").stat().st_mtime_ns
+    with pytest.raises(InputError):
+        write_pores(out, result)
+    assert (out / "pores.csv").stat().st_mtime_ns == stamp
+    write_pores(out, result, force=True)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["beads"]
+
+
+def test_connected_porosity_counts_only_components_spanning_the_axis():
+    # A through channel along x (volume known by counting) and a closed cavity: only the
+    # channel counts along x, nothing along z (common practice, no source).
+    mask = np.zeros((20, 20, 20), bool)
+    mask[8:12, 8:12, :] = True
+    mask[2:5, 2:5, 2:5] = True
+    result = analyse(mask, engine=ENGINE)
+    assert result.summary["connected_porosity"]["x"] == pytest.approx(4 * 4 * 20 / 20 ** 3)
+    assert result.summary["connected_porosity"]["z"] == 0.0
+    assert result.summary["porosity"] == pytest.approx((320 + 27) / 8000)
+
+
+# -------------------------------------------------------------------------------- CLI
+def test_cli_writes_the_result_folder(tmp_path, capsys):
+    # The closed-cavity geometry of test_sphere_surface_area_and_mean_curvature, saved as an
+    # 8-bit mask (255 = pore): one isolated pore, nothing percolates (common practice).
+    from voxtopo.cli import main
+    n = 24
+    z, y, x = np.meshgrid(*[np.arange(n) - 11.5] * 3, indexing="ij")
+    mask = (np.sqrt(z * z + y * y + x * x) <= 7).astype(np.uint8) * 255
+    path = tmp_path / "cavity.npy"
+    np.save(path, mask)
+    code = main(["pores", str(path), "--out", str(tmp_path / "res"), "--spacing", "1.5,1.5,1.5",
+                 "--unit", "um", "--engine", "gudhi", "--axis", "z"])
+    assert code == 0
+    summary = json.loads((tmp_path / "res" / "summary.json").read_text())
+    assert summary["unit"] == "um" and summary["percolates"] == {"z": False}
+    assert summary["counts"]["pores"] == 1
+    assert "research use only" in capsys.readouterr().out
+
+
+def test_cli_refuses_a_gray_scan_without_threshold(tmp_path, capsys):
+    from voxtopo.cli import main
+    path = tmp_path / "gray.npy"
+    np.save(path, np.arange(4096, dtype=np.uint16).reshape(16, 16, 16))
+    code = main(["pores", str(path), "--out", str(tmp_path / "res")])
+    err = capsys.readouterr().err.strip()
+    assert code == 2
+    assert "not a binary mask" in err and "Traceback" not in err and len(err.splitlines()) == 1
+    assert not (tmp_path / "res").exists()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["gray.npy"]
