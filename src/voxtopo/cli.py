@@ -178,7 +178,89 @@ def _fill_value(text):
         raise VoxtopoError(f"--fill-invalid should be max, min or a number, got {text!r}.")
 
 
-SUBCOMMANDS = (_add_analyse,)
+def _add_pores(subparsers) -> None:
+    p = subparsers.add_parser(
+        "pores",
+        help="pore bodies, throats, percolation and connectivity of a segmented scan",
+        description="Measure the pore space of a two-phase scan: pore bodies and throats "
+                    "from the persistence of the signed distance transform, grains, loops, "
+                    "enclosed voids, percolation radius and connected porosity per axis, "
+                    "Euler characteristic, connectivity density and Minkowski functionals. "
+                    "Writes pores.csv, summary.json and plots into a new folder. Research "
+                    "use only: not a diagnosis nor a certification.")
+    p.add_argument("scan", help="binary mask, label image or gray scan (any format voxtopo "
+                                "reads)")
+    p.add_argument("--out", required=True, help="result folder to create")
+    p.add_argument("--force", action="store_true", help="replace the result folder if it exists")
+    s = p.add_argument_group("which voxels are pores")
+    s.add_argument("--mask", metavar="MASKFILE",
+                   help="a binary pore mask (1 = pore) for the gray SCAN, which is then only "
+                        "drawn under the marks of the slice plot")
+    s.add_argument("--label", type=int, metavar="N", help="pore label of a label image")
+    s.add_argument("--threshold", metavar="VALUE|otsu",
+                   help="segment a gray scan: pores at or below VALUE, or Otsu's threshold")
+    s.add_argument("--pores-bright", action="store_true",
+                   help="with --threshold: pores are the voxels above it")
+    m = p.add_argument_group("measurement")
+    m.add_argument("--axis", choices=["z", "y", "x"], action="append",
+                   help="axis for percolation and connected porosity (repeat for several; "
+                        "default all)")
+    m.add_argument("--neighbourhood", "--neighborhood", type=int, choices=[26, 6, 8, 4],
+                   help="connectivity of the pore phase: 26 or 6 in 3D, 8 or 4 in 2D "
+                        "(default 26/8); the solid takes the complementary 6/4")
+    m.add_argument("--min-lifetime", type=float, metavar="LENGTH",
+                   help="merge pores whose body exceeds their throat by no more than this "
+                        "(default half a voxel)")
+    m.add_argument("--engine", choices=["auto", "voxtopo", "gudhi"], default="auto",
+                   help="persistence engine (the diagram is the same)")
+    add_load_options(p)
+    p.set_defaults(handler=_run_pores)
+
+
+def _run_pores(args) -> int:
+    from .io import load
+    from .io.results import check_target
+    from .porosity import analyse, write_pores
+    threshold = args.threshold
+    if threshold is not None and threshold != "otsu":
+        try:
+            threshold = float(threshold)
+        except ValueError:
+            raise VoxtopoError(f"--threshold should be a number or 'otsu', got {threshold!r}.")
+    if args.mask and (threshold is not None or args.label is not None):
+        raise VoxtopoError("--mask already says which voxels are pores; leave out "
+                           "--threshold and --label.")
+    check_target(args.out, args.force)
+    load_options = load_options_from(args)
+    scan = load(args.scan, **load_options)
+    target = scan
+    if args.mask:
+        target = load(args.mask, **load_options)
+        if target.shape != scan.shape:
+            raise VoxtopoError(f"The mask {args.mask} has shape {target.shape} but the scan "
+                               f"{args.scan} has shape {scan.shape}; give a mask of the same "
+                               f"scan.")
+        target = target.with_data(target.data, spacing=scan.spacing, unit=scan.unit)
+    bar = ProgressBar()
+    try:
+        analysis = analyse(target, threshold=threshold, pores_bright=args.pores_bright,
+                           label=args.label, axis=args.axis, neighbourhood=args.neighbourhood,
+                           min_lifetime=args.min_lifetime, engine=args.engine, progress=bar)
+        write_pores(args.out, analysis, scan, force=args.force)
+    finally:
+        bar.close()
+    summary = analysis.summary
+    unit = summary["unit"]
+    flow = ", ".join(f"{a}: {'yes' if summary['percolates'][a] else 'no'} "
+                     f"(r = {summary['percolation_radius'][a]:.4g} {unit})"
+                     for a in summary["percolates"])
+    print(f"voxtopo: porosity {summary['porosity']:.4f}, {summary['counts']['pores']} pores "
+          f"({summary['counts']['pores_at_border']} at the border); percolates {flow}")
+    print(f"voxtopo: results written to {args.out} (research use only)")
+    return 0
+
+
+SUBCOMMANDS = (_add_analyse, _add_pores)
 
 
 def build_parser() -> argparse.ArgumentParser:
