@@ -1,0 +1,32 @@
+"""Viewer tests need a display that can give OpenGL (Xvfb with Mesa on a server).
+
+Where none can be had they are skipped with the reason; in CI (CI=true) a missing display
+is an error instead, so the viewer tests can never pass by not running.
+"""
+
+import os
+
+import pytest
+
+
+def display_problem() -> str | None:
+    """Why napari cannot draw here, or None when it can."""
+    platform = os.environ.get("QT_QPA_PLATFORM", "")
+    if platform in ("offscreen", "minimal"):
+        return (f"QT_QPA_PLATFORM={platform} gives no OpenGL context for napari's canvas; "
+                f"run under Xvfb with QT_QPA_PLATFORM=xcb")
+    if not os.environ.get("DISPLAY") and not os.environ.get("WAYLAND_DISPLAY"):
+        return "no display (DISPLAY is unset); run the tests under xvfb-run -a"
+    return None
+
+
+@pytest.fixture(autouse=True)
+def _needs_display(request):
+    if request.node.get_closest_marker("viewer") is None:
+        return
+    problem = display_problem()
+    if problem is None:
+        return
+    if os.environ.get("CI", "").lower() == "true":
+        pytest.fail(f"Viewer tests must run in CI, but {problem}.")
+    pytest.skip(f"Viewer test skipped: {problem}.")

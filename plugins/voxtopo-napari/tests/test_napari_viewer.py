@@ -1,0 +1,272 @@
+"""The plugin in a real (headless) viewer: run, layers, slider, selection, cancel, reader.
+
+Every test here needs a display (Xvfb in CI); see conftest.py. Volumes are small so the
+whole file runs in well under a minute.
+"""
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import voxtopo
+from voxtopo import cli
+from voxtopo.diagram import AXES_3D
+from voxtopo_napari._layers import METADATA_KEY
+from voxtopo_napari._pore_regions import pore_regions_by_levels
+from voxtopo_napari._reader import napari_get_reader
+from voxtopo_napari._widget import AnalysisWidget
+
+pytestmark = pytest.mark.viewer
+
+WAIT_MS = 60_000
+
+
+def _widget(make_napari_viewer, data, name="scan", scale=None, labels=False):
+    viewer = make_napari_viewer()
+    add = viewer.add_labels if labels else viewer.add_image
+    add(data, name=name, **({"scale": scale} if scale else {}))
+    widget = AnalysisWidget(viewer)
+    viewer.window.add_dock_widget(widget, name="voxtopo analysis")
+    widget.layer_choice.setCurrentText(name)
+    return viewer, widget
+
+
+def _run(qtbot, widget):
+    widget.run()
+    qtbot.waitUntil(lambda: not widget.running, timeout=WAIT_MS)
+
+
+def _result_layers(viewer, which="birth"):
+    return {layer.metadata[METADATA_KEY]["dim"]: layer for layer in viewer.layers
+            if (layer.metadata.get(METADATA_KEY) or {}).get("which") == which}
+
+
+def _sorted_rows(array):
+    array = np.asarray(array, dtype=np.float64)
+    return array[np.lexsort(array.T[::-1])] if len(array) else array
+
+
+def test_points_layers_equal_gudhi_persistence(make_napari_viewer, qtbot):
+    """Birth voxels, births, deaths and persistence of every Points layer equal the diagram
+    of gudhi (Maria et al. 2014, CubicalComplex, top-dimensional cells = 26-neighbourhood)
+    on the same data, through voxtopo.persistence(engine="gudhi"). Random floats: no ties,
+    so any exact engine must give the same pairs and locations."""
+    data = np.random.default_rng(7).random((9, 10, 11))
+    viewer, widget = _widget(make_napari_viewer, data, scale=(2.0, 1.0, 0.5))
+    _run(qtbot, widget)
+    expected = voxtopo.persistence(data, neighbourhood=26, engine="gudhi")
+    layers = _result_layers(viewer)
+    assert sorted(layers) == [0, 1, 2]
+    for dim, layer in layers.items():
+        rows = expected.pairs[expected.pairs["dim"] == dim]
+        births = rows[[f"birth_{a}" for a in AXES_3D]].to_numpy(dtype=np.float64)
+        np.testing.assert_array_equal(_sorted_rows(layer.data), _sorted_rows(births))
+        table = layer.features.sort_values(["birth", "death"]).reset_index(drop=True)
+        rows = rows.sort_values(["birth", "death"]).reset_index(drop=True)
+        np.testing.assert_allclose(table["birth"], rows["birth"])
+        np.testing.assert_allclose(table["death"], rows["death"])
+        np.testing.assert_allclose(table["persistence"], rows["persistence"])
+        assert tuple(layer.scale) == (2.0, 1.0, 0.5)
+
+
+def test_spherical_shell_shows_one_component_and_one_cavity(make_napari_viewer, qtbot):
+    """A bright spherical shell swept bright to dark: Betti numbers (1, 0, 1) (Hatcher 2002,
+    spherical shell), so above a noise threshold one component, no loop, one cavity."""
+    z, y, x = np.indices((22, 22, 22)) - 10.5
+    r = np.sqrt(z ** 2 + y ** 2 + x ** 2)
+    data = np.where((r > 6) & (r < 9), 1.0, 0.0)
+    data += np.random.default_rng(2).normal(0, 0.05, data.shape)
+    viewer, widget = _widget(make_napari_viewer, data)
+    widget.mode_choice.setCurrentText("gray values, bright to dark (superlevel)")
+    widget.min_persistence_box.setValue(0.5)
+    _run(qtbot, widget)
+    layers = _result_layers(viewer)
+    assert [len(layers[d].data) for d in (0, 1, 2)] == [1, 0, 1]
+    cavity_birth = layers[2].data[0]
+    assert 6 - 1 <= np.linalg.norm(cavity_birth - 10.5) <= 9 + 1  # born on the shell
+
+
+def test_slider_hides_exactly_the_features_below_the_threshold(make_napari_viewer, qtbot):
+    """Common practice, no source: a persistence threshold separates features from noise;
+    here 'hidden' must mean exactly persistence < threshold, in layers and diagram."""
+    data = np.random.default_rng(11).random((10, 10, 10))
+    viewer, widget = _widget(make_napari_viewer, data)
+    widget.deaths_check.setChecked(True)
+    _run(qtbot, widget)
+    panel = widget.diagram_panel
+    all_persistence = widget.result.diagram.pairs["persistence"].to_numpy()
+    threshold = float(np.median(all_persistence[np.isfinite(all_persistence)]))
+    panel.set_min_lifetime(threshold)
+    expected_visible = set()
+    for which in ("birth", "death"):
+        for layer in _result_layers(viewer, which).values():
+            persistence = layer.features["persistence"].to_numpy()
+            np.testing.assert_array_equal(layer.shown, persistence >= threshold)
+            if which == "birth":
+                expected_visible |= set(layer.features["feature"][persistence >= threshold])
+    assert panel.visible_features() == expected_visible
+    assert 0 < len(expected_visible) < len(all_persistence)
+    panel.slider.setValue(0)
+    assert all(layer.shown.all() for layer in _result_layers(viewer).values())
+
+
+def test_selection_links_diagram_and_viewer_both_ways(make_napari_viewer, qtbot):
+    data = np.random.default_rng(5).random((8, 9, 10))
+    viewer, widget = _widget(make_napari_viewer, data, scale=(1.0, 2.0, 2.0))
+    _run(qtbot, widget)
+    panel = widget.diagram_panel
+    loops = _result_layers(viewer)[1]
+    table = loops.features
+    target = int(table["persistence"].to_numpy().argmax())
+    feature = int(table["feature"][target])
+    birth, death = table["birth"][target], table["death"][target]
+
+    # a click on the point in the diagram selects it in the viewer and centres on it
+    panel.select_at((birth, death))
+    assert set(loops.selected_data) == {target}
+    world = np.asarray(loops.data_to_world(loops.data[target]))
+    assert viewer.dims.point[0] == pytest.approx(world[0])
+    assert tuple(viewer.camera.center)[-2:] == pytest.approx(tuple(world[1:]))
+
+    # a loop drawn around it in the diagram does the same
+    eps = 1e-6
+    panel._on_lasso([(birth - eps, death - eps), (birth + eps, death - eps),
+                     (birth + eps, death + eps), (birth - eps, death + eps)])
+    assert set(loops.selected_data) == {target}
+
+    # selecting points in the viewer rings them in the diagram
+    other = [i for i in range(len(table)) if i != target][:2]
+    loops.selected_data = set(other)
+    assert panel.highlighted == {int(table["feature"][i]) for i in other}
+    assert feature not in panel.highlighted
+
+
+def test_cancel_before_and_during_the_run_adds_no_layer(make_napari_viewer, qtbot):
+    data = np.random.default_rng(9).random((40, 40, 40))
+    viewer, widget = _widget(make_napari_viewer, data)
+    before = [layer.name for layer in viewer.layers]
+
+    widget.run()
+    widget.cancel()
+    qtbot.waitUntil(lambda: not widget.running, timeout=WAIT_MS)
+    assert isinstance(widget.last_error, voxtopo.Cancelled)
+    assert [layer.name for layer in viewer.layers] == before
+    assert widget.result is None
+
+    widget.run()
+    # wait until the engine itself reports (its phases are the engine's own words)
+    qtbot.waitUntil(lambda: not widget.status.text().startswith(("Analysing", "preparing")),
+                    timeout=WAIT_MS)
+    widget.cancel()
+    qtbot.waitUntil(lambda: not widget.running, timeout=WAIT_MS)
+    assert isinstance(widget.last_error, voxtopo.Cancelled)
+    assert [layer.name for layer in viewer.layers] == before
+    assert widget.status.text() == "Cancelled; nothing was added."
+    assert widget.run_button.isEnabled()
+
+
+def test_distance_mode_labels_each_pore_region(make_napari_viewer, qtbot):
+    """Two ball pores (radius 5) joined by a narrow tube in a labels layer: two pores with
+    radius -birth = 5 within one voxel (closed form of a ball on a voxel grid, CHECKS.md
+    tolerance), and the pore-region layer equals the definition (scipy.ndimage.label of
+    {distance < death level} per pore)."""
+    z, y, x = np.indices((16, 16, 34))
+    ball = lambda cx: (z - 8) ** 2 + (y - 8) ** 2 + (x - cx) ** 2 <= 25
+    tube = ((z - 8) ** 2 + (y - 8) ** 2 <= 2) & (x >= 10) & (x <= 24)
+    mask = (ball(10) | ball(24) | tube).astype(np.uint8)
+    viewer, widget = _widget(make_napari_viewer, mask, name="pores", labels=True)
+    widget.min_persistence_box.setValue(0.5)
+    _run(qtbot, widget)
+    pores = _result_layers(viewer)[0]
+    assert pores.name.startswith("pores")
+    assert len(pores.data) == 2
+    np.testing.assert_allclose(pores.features["pore_radius"], 5.0, atol=1.0)
+    regions = [layer for layer in viewer.layers
+               if (layer.metadata.get(METADATA_KEY) or {}).get("which") == "regions"]
+    assert len(regions) == 1
+    distance = widget.result.prepared.data
+    births = pores.data.astype(np.int64)
+    expected = pore_regions_by_levels(distance, births, pores.features["death"].to_numpy(), 26)
+    np.testing.assert_array_equal(regions[0].data, expected)
+    assert set(np.unique(regions[0].data)) == {0, 1, 2}
+
+
+def test_reader_opens_a_folder_written_by_the_cli(make_napari_viewer, tmp_path):
+    """The reader shows what `voxtopo analyse` wrote: the scan under the features and one
+    layer per dimension at the births in pairs.csv (read here with pandas alone); the
+    number of pairs per dimension is gudhi's (Maria et al. 2014, CubicalComplex)."""
+    import gudhi
+
+    data = np.random.default_rng(4).random((8, 9, 10))
+    scan_path = tmp_path / "speckle.npy"
+    np.save(scan_path, data)
+    out = tmp_path / "speckle-result"
+    assert cli.main(["analyse", str(scan_path), "--out", str(out), "--spacing", "3,3,3"]) == 0
+    assert napari_get_reader(str(out)) is not None
+    assert napari_get_reader(str(tmp_path)) is None
+
+    viewer = make_napari_viewer()
+    viewer.open(str(out), plugin="voxtopo-napari")
+    scan_layer = viewer.layers["speckle"]
+    np.testing.assert_array_equal(scan_layer.data, data)
+    assert tuple(scan_layer.scale) == (3.0, 3.0, 3.0)
+
+    pairs = pd.read_csv(out / "pairs.csv")
+    complex_ = gudhi.CubicalComplex(top_dimensional_cells=data)
+    complex_.compute_persistence(homology_coeff_field=2, min_persistence=0)
+    layers = _result_layers(viewer)
+    for dim in range(3):
+        rows = pairs[pairs["dim"] == dim]
+        gudhi_pairs = complex_.persistence_intervals_in_dimension(dim)
+        assert len(rows) == int((gudhi_pairs[:, 1] > gudhi_pairs[:, 0]).sum())
+        np.testing.assert_array_equal(
+            _sorted_rows(layers[dim].data),
+            _sorted_rows(rows[["birth_z", "birth_y", "birth_x"]].to_numpy()))
+        assert tuple(layers[dim].scale) == (3.0, 3.0, 3.0)
+    assert set(_result_layers(viewer, "death")) == {0, 1, 2}
+
+
+def test_reader_without_the_scan_shows_the_features_alone(make_napari_viewer, tmp_path):
+    data = np.random.default_rng(6).random((6, 7))
+    scan_path = tmp_path / "gone.npy"
+    np.save(scan_path, data)
+    out = tmp_path / "gone-result"
+    assert cli.main(["analyse", str(scan_path), "--out", str(out)]) == 0
+    scan_path.unlink()
+    viewer = make_napari_viewer()
+    viewer.open(str(out), plugin="voxtopo-napari")
+    assert "gone" not in [layer.name for layer in viewer.layers]
+    pairs = pd.read_csv(out / "pairs.csv")
+    assert sum(len(layer.data) for layer in _result_layers(viewer).values()) == len(pairs)
+
+
+def test_export_writes_the_same_folder_as_the_cli(make_napari_viewer, qtbot, tmp_path):
+    """Export and `voxtopo analyse` on the same data give the same pairs.csv."""
+    data = np.random.default_rng(8).random((7, 8, 9))
+    viewer, widget = _widget(make_napari_viewer, data)
+    _run(qtbot, widget)
+    exported = widget.export(tmp_path / "from-viewer")
+    np.save(tmp_path / "same.npy", data)
+    assert cli.main(["analyse", str(tmp_path / "same.npy"), "--out",
+                     str(tmp_path / "from-cli")]) == 0
+    ours = pd.read_csv(exported / "pairs.csv")
+    theirs = pd.read_csv(tmp_path / "from-cli" / "pairs.csv")
+    pd.testing.assert_frame_equal(ours, theirs)
+    summary = json.loads((exported / "summary.json").read_text())
+    assert summary["diagram"]["neighbourhood"] == 26
+    assert widget.export(tmp_path / "from-viewer") is None  # never overwritten silently
+    assert "already exists" in widget.status.text()
+
+
+def test_colour_layer_is_refused_with_one_sentence(make_napari_viewer):
+    viewer = make_napari_viewer()
+    viewer.add_image(np.zeros((5, 6, 3), dtype=np.uint8), rgb=True, name="photo")
+    widget = AnalysisWidget(viewer)
+    widget.layer_choice.setCurrentText("photo")
+    widget.run()
+    assert not widget.running
+    assert widget.status.text() == ("The layer 'photo' holds colour (RGB) pixels; convert "
+                                    "it to gray values or pick a gray image layer.")
+    assert [layer.name for layer in viewer.layers] == ["photo"]
