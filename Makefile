@@ -7,10 +7,11 @@ STAMP  := $(VENV)/.installed
 
 .PHONY: demo test install benchmark samples clean
 
-$(STAMP): pyproject.toml
+$(STAMP): pyproject.toml plugins/voxtopo-napari/pyproject.toml
 	$(PYTHON) -m venv $(VENV)
 	$(PY) -m pip install --quiet --upgrade pip
 	$(PY) -m pip install --quiet -e ".[test]"
+	$(PY) -m pip install --quiet -e "plugins/voxtopo-napari[test]"
 	touch $(STAMP)
 
 install: $(STAMP)
