@@ -249,7 +249,7 @@ def test_save_tiff_round_trip_keeps_values_spacing_and_unit(tmp_path, dtype, sha
 
 def test_save_tiff_writes_what_imagej_reads(tmp_path):
     scan = voxtopo.Scan(volume((4, 6, 8), np.uint16), spacing=(3.0, 1.5, 1.5), unit="um")
-    path = save_tiff(scan, tmp_path / "fiji.tif")
+    path = save_tiff(scan, tmp_path / "written.tif")
     with tifffile.TiffFile(path) as tif:           # tifffile as the reference reader
         assert tif.is_imagej
         assert tif.imagej_metadata["spacing"] == pytest.approx(3.0)

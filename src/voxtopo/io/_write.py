@@ -1,4 +1,4 @@
-"""save_tiff: a Scan as a TIFF file that ImageJ, Fiji and voxtopo read with its voxel size."""
+"""save_tiff: a Scan as a TIFF file that ImageJ-compatible readers and voxtopo read with its voxel size."""
 
 from __future__ import annotations
 
@@ -20,7 +20,7 @@ def save_tiff(scan, path, *, compression: str | None = "zlib") -> Path:
     """Write ``scan`` to ``path`` as a TIFF, keeping spacing and unit.
 
     uint8, uint16 and float32 scans become ImageJ hyperstacks (``spacing`` and ``unit`` in
-    the ImageJ description, x and y in the resolution tags, in pixels per unit), as Fiji
+    the ImageJ description, x and y in the resolution tags, in pixels per unit), the usual layout
     writes them. A boolean scan becomes an 8-bit ImageJ stack of 0 and 255 (ImageJ's binary
     convention) marked ``voxtopo_dtype=bool``, so that ``voxtopo.load`` gives it back as
     bool. Other types (int8, int16, float64, ...), which ImageJ cannot hold, are written as a
