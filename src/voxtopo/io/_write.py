@@ -20,8 +20,8 @@ def save_tiff(scan, path, *, compression: str | None = "zlib") -> Path:
     """Write ``scan`` to ``path`` as a TIFF, keeping spacing and unit.
 
     uint8, uint16 and float32 scans become ImageJ hyperstacks (``spacing`` and ``unit`` in
-    the ImageJ description, x and y in the resolution tags, in pixels per unit). A boolean scan becomes an 8-bit ImageJ stack of 0 and 255 (ImageJ's binary
-    convention) marked ``voxtopo_dtype=bool``, so that ``voxtopo.load`` gives it back as
+    the ImageJ description, x and y in the resolution tags, in pixels per unit). A boolean scan becomes an
+    8-bit ImageJ stack of 0 and 255 (ImageJ's binary convention) marked ``voxtopo_dtype=bool``, so that ``voxtopo.load`` gives it back as
     bool. Other types (int8, int16, float64, ...), which ImageJ cannot hold, are written as a
     plain TIFF with ``spacing`` and ``unit`` in tifffile's JSON description; voxtopo and
     tifffile read them back exactly.
