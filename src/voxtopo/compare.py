@@ -39,7 +39,7 @@ from .errors import InputError
 __all__ = ["bottleneck", "wasserstein", "distance_matrix", "check_comparable",
            "PersistenceImageGrid", "image_grid", "persistence_image", "betti_curves",
            "embed_mds", "permutation_test", "PermutationResult", "Comparison",
-           "compare_diagrams"]
+           "compare_diagrams", "load_results"]
 
 METRICS = ("bottleneck", "wasserstein")
 ESSENTIAL_CHOICES = ("separate", "ignore")
@@ -642,3 +642,42 @@ def compare_diagrams(diagrams, names=None, groups=None, *, dims=(0, 1),
     return Comparison(names, [str(g) for g in groups] if groups is not None
                       else [""] * len(diagrams), dims, metric, float(order), essential,
                       matrices, images, grids, curves, embedding, test, notes)
+
+
+# --- reading result folders -------------------------------------------------------------
+def load_results(paths, group_column: str = "group"):
+    """Diagrams, names and groups from result folders and batch folders.
+
+    A result folder (pairs.csv + summary.json) gives one diagram named after the folder and
+    grouped by the name of the folder that holds it (``results/treated/s1`` is in group
+    "treated"). A batch folder (summary.csv + scans/) gives every complete scan in it,
+    named and grouped by its summary.csv (``name`` and ``group_column`` columns).
+
+    Returns
+    -------
+    (list of Diagram, list of str, list of str)
+    """
+    from pathlib import Path
+
+    diagrams, names, groups = [], [], []
+    for path in paths:
+        path = Path(path)
+        if not path.is_dir():
+            raise InputError(f"{path} is not a folder; give result folders written by "
+                             f"voxtopo analyse or a batch folder written by voxtopo batch.")
+        if (path / "summary.csv").is_file() and (path / "scans").is_dir():
+            table = pd.read_csv(path / "summary.csv", dtype=str, keep_default_na=False)
+            if group_column not in table.columns and group_column != "group":
+                raise InputError(f"{path / 'summary.csv'} has no column {group_column!r}; "
+                                 f"its columns are {list(table.columns)}.")
+            for _, row in table.iterrows():
+                folder = path / "scans" / row["name"]
+                if (folder / "pairs.csv").is_file():
+                    diagrams.append(Diagram.load(folder))
+                    names.append(row["name"])
+                    groups.append(row.get(group_column, ""))
+        else:
+            diagrams.append(Diagram.load(path))
+            names.append(path.name)
+            groups.append(path.resolve().parent.name)
+    return diagrams, names, groups

@@ -280,14 +280,18 @@ def write_batch_report(folder, settings: dict | None = None) -> Path:
     for name in summary.get("name", pd.Series(dtype=str)).astype(str):
         if (folder / "scans" / name / "report.html").is_file():
             links.append({"name": name, "href": f"scans/{name}/report.html"})
-    overview = {"scans analysed": len(summary), "scans failed": len(failures),
-                "folder": folder.name}
+    complete = int((summary["status"] == "done").sum()) if "status" in summary else 0
+    overview = {"scans in the batch": len(summary), "complete": complete,
+                "failed": len(failures), "folder": folder.name}
+    # The page shows what tells scans apart; summary.csv keeps every column.
+    shown = [c for c in summary.columns
+             if not c.startswith(("scan_", "analysed_", "timings_")) and c != "message"]
     figure = _plot_numeric_columns(summary)
     images = ([{"data": _figure_png(figure), "caption": "Pairs per dimension in each scan."}]
               if figure is not None else [])
     html = render("batch.html", title=f"Batch {folder.name}",
                   subtitle="Many scans, one set of settings", overview=overview,
-                  images=images, summary=Table.of(summary), links=links,
+                  images=images, summary=Table.of(summary[shown]), links=links,
                   failures=Table.of(failures) if not failures.empty else None,
                   settings=_flatten(settings))
     target = folder / "report.html"

@@ -1,0 +1,261 @@
+"""Batch runs on a real dask.distributed LocalCluster (processes, loopback, 2 workers)."""
+
+import io
+import json
+import shutil
+
+import gudhi
+import numpy as np
+import pandas as pd
+import pytest
+import zarr
+from scipy import ndimage
+
+from voxtopo import batch, cli
+from voxtopo.errors import InputError
+from voxtopo.pipeline import AnalysisOptions, analyse
+
+
+@pytest.fixture(scope="module")
+def cluster_address():
+    """One local cluster for the whole module: starting one takes seconds."""
+    import dask
+    from distributed import LocalCluster
+
+    with dask.config.set(batch._WORKER_MEMORY_CONFIG):
+        cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                               host="127.0.0.1", dashboard_address=None,
+                               memory_limit="3GiB", silence_logs=40)
+    yield cluster.scheduler_address
+    cluster.close()
+
+
+def _textures(folder, count=4, shape=(28, 28)):
+    """Generated scans: smoothed noise of two correlation lengths."""
+    folder.mkdir(parents=True, exist_ok=True)
+    rng = np.random.default_rng(42)
+    paths = []
+    for i in range(count):
+        image = ndimage.gaussian_filter(rng.standard_normal(shape), 1.0 + 2.0 * (i % 2))
+        path = folder / f"scan_{i}.npy"
+        np.save(path, image.astype(np.float32))
+        paths.append(path)
+    return paths
+
+
+def _manifest(path, rows):
+    pd.DataFrame(rows).to_csv(path, index=False)
+    return path
+
+
+def _gudhi_pair_count(image, dim):
+    """Number of pairs of positive persistence of dimension ``dim`` computed by gudhi
+    (Maria, Boissonnat, Glisse & Yvinec 2014, "The Gudhi Library", ICMS), voxel
+    construction, sublevel."""
+    cc = gudhi.CubicalComplex(top_dimensional_cells=np.asarray(image, dtype=np.float64))
+    cc.compute_persistence()
+    intervals = cc.persistence_intervals_in_dimension(dim)
+    return int(np.sum(intervals[:, 1] > intervals[:, 0]))
+
+
+@pytest.fixture(scope="module")
+def finished_batch(tmp_path_factory, cluster_address):
+    """A batch of four good scans, one truncated file and one missing file."""
+    root = tmp_path_factory.mktemp("batch")
+    paths = _textures(root / "in")
+    truncated = root / "in" / "truncated.npy"
+    truncated.write_bytes(paths[0].read_bytes()[:100])
+    rows = [{"path": f"in/{p.name}", "spacing": "0.5,0.5" if i == 0 else "", "unit": "um",
+             "group": "fine" if i % 2 == 0 else "coarse", "operator": f"op{i}"}
+            for i, p in enumerate(paths)]
+    rows.insert(2, {"path": "in/truncated.npy", "spacing": "", "unit": "", "group": "fine",
+                    "operator": "op9"})
+    rows.append({"path": "in/missing.npy", "spacing": "", "unit": "", "group": "coarse",
+                 "operator": "op8"})
+    manifest = _manifest(root / "manifest.csv", rows)
+    stream = io.StringIO()
+    table = batch.run_batch(manifest, root / "out", scheduler=cluster_address, stream=stream)
+    return root, paths, table, stream.getvalue()
+
+
+def test_summary_table_equals_analysing_each_scan_alone(finished_batch, tmp_path):
+    root, paths, table, _ = finished_batch
+    summary = pd.read_csv(root / "out" / "summary.csv")
+    done = summary[summary["status"] == "done"].set_index("name")
+    assert sorted(done.index) == [f"scan_{i}" for i in range(4)]
+    for i, path in enumerate(paths):
+        name = f"scan_{i}"
+        alone = tmp_path / name
+        load = {"spacing": (0.5, 0.5)} if i == 0 else {}
+        load["unit"] = "um"
+        diagram = analyse(path, alone, AnalysisOptions(), load_options=load)
+        mine = json.loads((alone / "summary.json").read_text())
+        for d in (0, 1):
+            assert done.loc[name, f"pairs_dim{d}"] == mine["counts"][str(d)]
+            assert done.loc[name, f"essential_dim{d}"] == mine["essential"][str(d)]
+            # and both equal gudhi's own count on the same array (external reference)
+            assert mine["counts"][str(d)] == _gudhi_pair_count(np.load(path), d)
+        assert done.loc[name, "scan_spacing"] == ("0.5,0.5" if i == 0 else "1.0,1.0")
+        pd.testing.assert_frame_equal(pd.read_csv(root / "out" / "scans" / name / "pairs.csv"),
+                                      pd.read_csv(alone / "pairs.csv"))
+        assert len(diagram) == len(pd.read_csv(alone / "pairs.csv"))
+    # manifest columns are kept, in manifest order, and the Parquet copy holds the same
+    assert summary["operator"].tolist() == ["op0", "op1", "op9", "op2", "op3", "op8"]
+    parquet = pd.read_parquet(root / "out" / "summary.parquet")
+    assert parquet["name"].tolist() == summary["name"].tolist()
+    assert parquet["pairs_dim0"].tolist()[:2] == summary["pairs_dim0"].tolist()[:2]
+
+
+def test_failing_scans_are_recorded_and_the_rest_complete(finished_batch):
+    root, _, table, log = finished_batch
+    failures = pd.read_csv(root / "out" / "failures.csv").set_index("name")
+    assert sorted(failures.index) == ["missing", "truncated"]
+    assert "truncated.npy" in failures.loc["truncated", "message"]
+    assert "missing.npy" in failures.loc["missing", "message"]
+    assert "Traceback" not in failures.to_string()
+    for name in ("missing", "truncated"):
+        assert not (root / "out" / "scans" / name).exists()
+        assert not list((root / "out" / "scans").glob(f".{name}.*"))
+    assert all((root / "out" / "scans" / f"scan_{i}" / "report.html").is_file()
+               for i in range(4))
+    assert "4 done, 2 failed, 0 left" in log
+    assert "dashboard at" in log
+    page = (root / "out" / "report.html").read_text()
+    assert "Scans that failed" in page and "not a medical diagnosis" in page
+    assert 'href="scans/scan_0/report.html"' in page
+
+
+def test_rerun_after_an_interruption_redoes_only_what_was_missing(finished_batch,
+                                                                   cluster_address):
+    root, _, _, _ = finished_batch
+    out = root / "out"
+    scans = out / "scans"
+    kept = {n: (scans / n / "summary.json").stat().st_mtime_ns for n in ("scan_0", "scan_3")}
+    shutil.rmtree(scans / "scan_1")                              # never finished
+    (scans / ".scan_1.partial-x1y2z3").mkdir()                   # its half-made temp folder
+    (scans / ".scan_1.partial-x1y2z3" / "pairs.csv").write_text("dim,birth\n0,")
+    (scans / "scan_2" / "summary.json").unlink()                 # a half-made folder
+    stream = io.StringIO()
+    table = batch.run_batch(root / "manifest.csv", out, scheduler=cluster_address,
+                            stream=stream)
+    log = stream.getvalue()
+    assert "6 scans, 2 already complete, 4 to run" in log
+    assert "scan_2 was left half-made; redoing it" in log
+    assert "scan_1 was left half-made; redoing it" in log
+    for name, stamp in kept.items():
+        assert (scans / name / "summary.json").stat().st_mtime_ns == stamp
+    for name in ("scan_1", "scan_2"):
+        assert (scans / name / "summary.json").is_file()
+    assert not list(scans.glob(".*"))
+    assert (table["status"] == "done").sum() == 4
+    # the two broken inputs are tried again and still fail
+    assert "2 done, 2 failed, 0 left (+2 done earlier)" in log
+
+
+def test_settings_file_chooses_the_job_and_is_saved(tmp_path, cluster_address):
+    paths = _textures(tmp_path / "in", count=2)
+    settings = tmp_path / "upward.yaml"
+    settings.write_text("job: analyse\nanalyse:\n  superlevel: true\n  neighbourhood: 4\n"
+                        "load:\n  unit: mm\n")
+    out = tmp_path / "out"
+    batch.run_batch(str(tmp_path / "in" / "*.npy"), out, settings_path=settings,
+                    scheduler=cluster_address, stream=io.StringIO())
+    assert (out / "settings.yaml").read_text() == settings.read_text()
+    for path in paths:
+        summary = json.loads((out / "scans" / path.stem / "summary.json").read_text())
+        assert summary["diagram"]["superlevel"] is True
+        assert summary["diagram"]["neighbourhood"] == 4
+        assert summary["scan"]["unit"] == "mm"
+    other = tmp_path / "other.toml"
+    other.write_text('job = "analyse"\n[analyse]\nsuperlevel = false\n')
+    with pytest.raises(InputError, match="differ from these"):
+        batch.run_batch(str(tmp_path / "in" / "*.npy"), out, settings_path=other,
+                        scheduler=cluster_address, stream=io.StringIO())
+
+
+def test_out_of_core_scans_run_their_chunks_on_the_cluster(tmp_path, cluster_address):
+    rng = np.random.default_rng(7)
+    volume = np.round(ndimage.gaussian_filter(rng.standard_normal((20, 20, 20)), 1.5), 2)
+    store = zarr.create_array(str(tmp_path / "disc.zarr"), shape=volume.shape,
+                              chunks=(8, 8, 8), dtype="f8")
+    store[...] = volume
+    settings = tmp_path / "settings.toml"
+    settings.write_text('[batch]\nout_of_core = true\nchunks = [7, 10, 20]\n')
+    manifest = _manifest(tmp_path / "m.csv", [{"path": "disc.zarr", "group": "g"}])
+    batch.run_batch(manifest, tmp_path / "out", settings_path=settings,
+                    scheduler=cluster_address, stream=io.StringIO())
+    pairs = pd.read_csv(tmp_path / "out" / "scans" / "disc" / "pairs.csv")
+    # gudhi (Maria et al. 2014) reference diagrams of dimensions 0 and 2
+    cc = gudhi.CubicalComplex(top_dimensional_cells=volume)
+    cc.compute_persistence()
+    for dim in (0, 2):
+        expected = cc.persistence_intervals_in_dimension(dim)
+        expected = sorted(map(tuple, np.round(expected[expected[:, 1] > expected[:, 0]], 9)))
+        got = pairs[pairs["dim"] == dim][["birth", "death"]].to_numpy()
+        assert sorted(map(tuple, np.round(got, 9))) == expected
+    summary = json.loads((tmp_path / "out" / "scans" / "disc" / "summary.json").read_text())
+    assert any("out of core" in note for note in summary["diagram"]["notes"])
+
+
+def test_cli_batch_then_compare_by_group(finished_batch, tmp_path, capsys, cluster_address):
+    root, paths, _, _ = finished_batch
+    code = cli.main(["batch", str(root / "manifest.csv"), "--out", str(root / "out"),
+                     "--scheduler", cluster_address])
+    assert code == 1            # two scans of the manifest cannot be read
+    assert "4 scans complete, 2 failed" in capsys.readouterr().out
+    code = cli.main(["compare", str(root / "out"), "--out", str(tmp_path / "cmp"),
+                     "--dims", "0", "--permutations", "99"])
+    assert code == 0
+    summary = json.loads((tmp_path / "cmp" / "summary.json").read_text())
+    assert sorted(d["group"] for d in summary["diagrams"]) == ["coarse", "coarse", "fine",
+                                                               "fine"]
+    distances = pd.read_csv(tmp_path / "cmp" / "distances.csv")
+    row = distances[(distances["first"] == "scan_0") & (distances["second"] == "scan_1")]
+    # gudhi.bottleneck_distance (Maria et al. 2014) on gudhi's own dimension-0 diagrams
+    reference = []
+    for path in paths[:2]:
+        cc = gudhi.CubicalComplex(top_dimensional_cells=np.load(path).astype(np.float64))
+        cc.compute_persistence()
+        reference.append(cc.persistence_intervals_in_dimension(0))
+    assert row["bottleneck_dim0"].iloc[0] == pytest.approx(
+        gudhi.bottleneck_distance(*reference), rel=1e-6)
+
+
+def test_plan_gives_each_worker_room_for_the_largest_scan():
+    gib = 2**30
+    # small scans: every core gets a worker with the 2 GiB floor
+    assert batch.plan_workers([1 * gib], available=40 * gib, cores=4) == (4, 2 * gib)
+    # a 10 GiB scan: 12.5 GiB per worker, and 80 % of 30 GiB holds only one of them
+    count, limit = batch.plan_workers([10 * gib], available=30 * gib, cores=4)
+    assert (count, limit) == (1, int(12.5 * gib))
+    assert batch.plan_workers([gib], workers=3, memory_per_worker=4 * gib,
+                              available=100 * gib, cores=8) == (3, 4 * gib)
+
+
+def test_bad_manifests_and_settings_are_refused_in_one_sentence(tmp_path, capsys):
+    with pytest.raises(InputError, match="no scans match"):
+        batch.read_manifest(tmp_path / "nothing-*.tif")
+    bad = tmp_path / "bad.csv"
+    bad.write_text("file,group\na.npy,x\n")
+    with pytest.raises(InputError, match="no 'path' column"):
+        batch.read_manifest(bad)
+    spacing = tmp_path / "spacing.csv"
+    spacing.write_text('path,spacing\na.npy,"2,x,2"\n')
+    with pytest.raises(InputError, match="spacing"):
+        batch.read_manifest(spacing)
+    broken = tmp_path / "broken.toml"
+    broken.write_text("job = \n")
+    with pytest.raises(InputError, match="not valid TOML"):
+        batch.read_settings(broken)
+    unknown = tmp_path / "unknown.toml"
+    unknown.write_text("[analyse]\nsmoothness = 2\n")
+    with pytest.raises(InputError, match="smoothness"):
+        batch.read_settings(unknown)
+    job = tmp_path / "job.toml"
+    job.write_text('job = "everything"\n')
+    with pytest.raises(InputError, match="everything"):
+        batch.read_settings(job)
+    assert cli.main(["batch", str(bad), "--out", str(tmp_path / "out")]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "Traceback" not in err
+    assert not (tmp_path / "out").exists()
