@@ -134,6 +134,12 @@ def _add_analyse(subparsers) -> None:
     e.add_argument("--field", type=int, default=2, help="prime p of the coefficients Z/p")
     e.add_argument("--engine", choices=["auto", "voxtopo", "gudhi"], default="auto",
                    help="persistence engine (auto: our own where it applies)")
+    o = p.add_argument_group("volumes larger than memory")
+    o.add_argument("--out-of-core", action="store_true",
+                   help="read a zarr / OME-Zarr store chunk by chunk and compute dimension 0 "
+                        "and d-1 exactly (dimension 1 of a volume is not computed)")
+    o.add_argument("--chunks", type=_shape, metavar="Z,Y,X",
+                   help="with --out-of-core: block shape of the tasks (default the store's)")
     add_load_options(p)
     p.set_defaults(handler=_run_analyse)
 
@@ -156,6 +162,8 @@ def _run_analyse(args) -> int:
         periodic=args.periodic, field=args.field, engine=args.engine)
     check_target(args.out, args.force)
     load_options = load_options_from(args)
+    if args.out_of_core:
+        return _run_out_of_core(args, options, load_options)
     scan = load(args.scan, **load_options)
     bar = ProgressBar()
     try:
@@ -260,7 +268,194 @@ def _run_pores(args) -> int:
     return 0
 
 
-SUBCOMMANDS = (_add_analyse, _add_pores)
+def _run_out_of_core(args, options, load_options) -> int:
+    from .batch import analyse_out_of_core
+    diagram = analyse_out_of_core(args.scan, args.out, options, load_options=load_options,
+                                  chunks=args.chunks, force=args.force)
+    counts = ", ".join(f"dim {d}: {n}" for d, n in diagram.counts(args.min_persistence).items()
+                       if d in (0, diagram.ndim - 1))
+    print(f"voxtopo: {len(diagram)} pairs ({counts}) out of core; {'; '.join(diagram.notes)}")
+    print(f"voxtopo: results written to {args.out}")
+    return 0
+
+
+def _add_batch(subparsers) -> None:
+    from .batch import __doc__ as batch_doc
+    p = subparsers.add_parser(
+        "batch", help="run one job on every scan of a manifest, as dask tasks",
+        description=batch_doc, formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("manifest", help="CSV manifest (path, spacing, unit, group, ...) or a "
+                                    "quoted glob of scan files")
+    p.add_argument("--out", required=True,
+                   help="batch folder to create, or to resume with the same settings")
+    p.add_argument("--settings", metavar="FILE", help="TOML or YAML settings file")
+    p.add_argument("--scheduler", metavar="ADDRESS",
+                   help="address of a running dask scheduler (default: a local cluster)")
+    p.add_argument("--workers", type=int, metavar="N",
+                   help="workers of the local cluster (default: one per core)")
+    p.set_defaults(handler=_run_batch)
+
+
+def _run_batch(args) -> int:
+    from .batch import run_batch
+    if args.workers is not None and args.workers < 1:
+        raise VoxtopoError(f"--workers should be 1 or more, got {args.workers}.")
+    table = run_batch(args.manifest, args.out, settings_path=args.settings,
+                      scheduler=args.scheduler, workers=args.workers)
+    failed = int((table["status"] != "done").sum())
+    print(f"voxtopo: {len(table) - failed} scans complete, {failed} failed; "
+          f"summary in {args.out}/summary.csv")
+    return 0 if failed == 0 else 1
+
+
+def _add_compare(subparsers) -> None:
+    p = subparsers.add_parser(
+        "compare", help="distances, embedding and a group test between result folders",
+        description="Compare the persistence diagrams of result folders (or of every scan of "
+                    "a batch folder): bottleneck and Wasserstein distances, persistence "
+                    "images, Betti curves, an MDS plot and a permutation test by group.")
+    p.add_argument("results", nargs="+", help="result folders, or batch folders")
+    p.add_argument("--out", required=True, help="comparison folder to create")
+    p.add_argument("--force", action="store_true", help="replace the folder if it exists")
+    p.add_argument("--dims", default="0,1", metavar="D,D",
+                   help="homological dimensions to compare (default 0,1)")
+    p.add_argument("--metric", choices=["bottleneck", "wasserstein"], default="bottleneck",
+                   help="distance used for the embedding and the test (default bottleneck)")
+    p.add_argument("--order", type=float, default=1.0, help="Wasserstein order q (default 1)")
+    p.add_argument("--essential", choices=["separate", "ignore"], default="separate",
+                   help="essential classes: matched among themselves (default) or left out")
+    p.add_argument("--permutations", type=int, default=999,
+                   help="relabellings in the permutation test (default 999)")
+    p.add_argument("--seed", type=int, default=0, help="seed of the permutations and MDS")
+    p.add_argument("--group-column", default="group",
+                   help="summary.csv column holding the groups of a batch folder")
+    p.set_defaults(handler=_run_compare)
+
+
+def _run_compare(args) -> int:
+    from .compare import compare_diagrams, load_results
+    from .io.results import check_target
+    from .report.html import write_comparison
+    try:
+        dims = tuple(int(d) for d in args.dims.split(","))
+    except ValueError:
+        raise VoxtopoError(f"--dims should be dimensions like 0,1; got {args.dims!r}.")
+    check_target(args.out, args.force)
+    diagrams, names, groups = load_results(args.results, args.group_column)
+    use_groups = groups if len(set(groups)) > 1 else None
+    comparison = compare_diagrams(diagrams, names, use_groups, dims=dims, metric=args.metric,
+                                  order=args.order, essential=args.essential,
+                                  n_permutations=args.permutations, seed=args.seed)
+    write_comparison(comparison, args.out, force=args.force)
+    if comparison.test is not None:
+        print(f"voxtopo: permutation test p = {comparison.test.p_value:.4g} "
+              f"({comparison.test.n_permutations} permutations)")
+    print(f"voxtopo: comparison of {len(names)} diagrams written to {args.out}")
+    return 0
+
+
+def _primes(text: str):
+    try:
+        return tuple(int(v) for v in text.split(","))
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"field should be a prime or primes like 2,3; "
+                                         f"got {text!r}")
+
+
+def _positions(text: str):
+    if text == "all":
+        return text
+    try:
+        return int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"positions should be a whole number or 'all'; "
+                                         f"got {text!r}")
+
+
+def _add_patches(subparsers) -> None:
+    from .patches import PatchOptions
+    defaults = PatchOptions()
+    p = subparsers.add_parser(
+        "patches",
+        help="topology of the space of high-contrast patches of images",
+        description="Sample k x k patches of one or more images (or slices of volumes), keep "
+                    "the high-contrast ones, normalise them onto a sphere in DCT "
+                    "coordinates, keep the dense core and compute the persistence of its "
+                    "landmarks. Writes the cloud, pairs.csv, summary.json and plots into a "
+                    "new folder. The defaults show the primary circle on natural "
+                    "photographs of texture; research use only.")
+    p.add_argument("images", nargs="+", metavar="IMAGE",
+                   help="gray 2D images or 3D volumes in any format voxtopo reads")
+    p.add_argument("--out", required=True, help="result folder to create")
+    p.add_argument("--force", action="store_true", help="replace the result folder if it exists")
+    s = p.add_argument_group("sampling")
+    s.add_argument("-k", "--patch-size", type=int, default=defaults.k, choices=[3, 5, 7],
+                   help=f"patch size k (default {defaults.k})")
+    s.add_argument("--positions", type=_positions, default=defaults.positions,
+                   help=f"patch positions drawn at random from all images together, or "
+                        f"'all' (default {defaults.positions})")
+    s.add_argument("--contrast-percent", type=float, default=defaults.contrast_percent,
+                   help=f"keep this percentage of highest-contrast patches per image "
+                        f"(default {defaults.contrast_percent:g})")
+    s.add_argument("--log", action=argparse.BooleanOptionalAction, default=defaults.log,
+                   help="use log intensities log(1 + value) (default on)")
+    s.add_argument("--axis", choices=["z", "y", "x"],
+                   help="cut volumes into slices along this axis (default z)")
+    s.add_argument("--slices", type=_shape, metavar="I,J,..",
+                   help="use only these slices of each volume (default all)")
+    s.add_argument("--seed", type=int, default=defaults.seed,
+                   help="seed of the random positions and the first landmark")
+    t = p.add_argument_group("core and persistence")
+    t.add_argument("--k-neighbour", "--k-neighbor", type=int, default=defaults.k_neighbour,
+                   help=f"density from the distance to this nearest neighbour "
+                        f"(default {defaults.k_neighbour})")
+    t.add_argument("--density-percent", type=float, default=defaults.density_percent,
+                   help=f"keep the densest percentage of the cloud "
+                        f"(default {defaults.density_percent:g})")
+    t.add_argument("--landmarks", type=int, default=defaults.landmarks,
+                   help=f"number of max-min landmarks (default {defaults.landmarks})")
+    t.add_argument("--field", type=_primes, default=defaults.fields, metavar="P[,Q]",
+                   help="coefficient field Z/p; 2,3 computes both side by side (default 2)")
+    t.add_argument("--max-edge", type=float,
+                   help="largest scale (default: the median landmark distance, lowered "
+                        "while the complex would be too large)")
+    t.add_argument("--method", choices=["rips", "witness"], default=defaults.method,
+                   help="Rips complex of the landmarks or the witness complex")
+    t.add_argument("--max-dimension", type=int, choices=[0, 1, 2],
+                   default=defaults.max_dimension, help="highest homology dimension")
+    add_load_options(p)
+    p.set_defaults(handler=_run_patches)
+
+
+def _run_patches(args) -> int:
+    from .io import load
+    from .io.results import check_target
+    from .patches import PatchOptions, analyse
+    options = PatchOptions(
+        k=args.patch_size, contrast_percent=args.contrast_percent, positions=args.positions,
+        seed=args.seed, log=args.log, axis=args.axis, slices=args.slices,
+        k_neighbour=args.k_neighbour, density_percent=args.density_percent,
+        landmarks=args.landmarks, fields=args.field, max_edge=args.max_edge,
+        method=args.method, max_dimension=args.max_dimension)
+    check_target(args.out, args.force)
+    load_options = load_options_from(args)
+    scans = [load(path, **load_options) for path in args.images]
+    bar = ProgressBar()
+    try:
+        dense, result = analyse(scans, args.out, options, force=args.force, progress=bar)
+    finally:
+        bar.close()
+    for f in result.fields:
+        margin = result.margin(f)
+        print(f"voxtopo: Z/{f}: Betti numbers {result.betti[f]} at scale "
+              f"{result.middle_scale:.3g}; longest loop {margin['longest']:.3g}, "
+              f"{margin['ratio']:.2f} times the second")
+    print(f"voxtopo: {len(dense)} core patches, {len(result.landmarks)} landmarks; results "
+          f"written to {args.out} (research use only)")
+    return 0
+
+
+SUBCOMMANDS = (_add_analyse, _add_pores, _add_batch, _add_compare, _add_patches)
 
 
 def build_parser() -> argparse.ArgumentParser:
