@@ -1,5 +1,7 @@
 """The out-of-core dimension-0 (and d-1) diagram equals the in-memory one."""
 
+import json
+
 import gudhi
 import numpy as np
 import pytest
@@ -214,3 +216,30 @@ def test_bad_inputs_are_refused_in_one_sentence(tmp_path):
     chunk_files[-1].write_bytes(b"\x00garbage")
     with pytest.raises(InputError, match="could not be read"):
         chunked_persistence(path, scheduler="sync")
+
+
+def test_cli_analyse_out_of_core_writes_a_result_folder(tmp_path, capsys):
+    import pandas as pd
+
+    from voxtopo import cli
+
+    image = _shells()
+    path = _store(tmp_path, image, (8, 8, 8))
+    out = tmp_path / "shells"
+    assert cli.main(["analyse", str(path), "--out", str(out), "--out-of-core", "--superlevel",
+                     "--chunks", "5,12,24", "--spacing", "2.5", "--unit", "um"]) == 0
+    pairs = pd.read_csv(out / "pairs.csv")
+    for dim in (0, 2):
+        rows = pairs[pairs["dim"] == dim][["birth", "death"]].to_numpy()
+        assert sorted(map(tuple, np.round(rows, 9))) == _gudhi_intervals(image, dim, True,
+                                                                         "voxel")
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["scan"]["spacing"] == [2.5, 2.5, 2.5]
+    assert (out / "report.html").is_file()
+    capsys.readouterr()
+    refused = tmp_path / "smoothed"
+    assert cli.main(["analyse", str(path), "--out", str(refused), "--out-of-core",
+                     "--smooth", "1.0"]) == 2
+    err = capsys.readouterr().err
+    assert "cannot apply sigma" in err and err.count("\n") == 1
+    assert not refused.exists()
