@@ -71,6 +71,25 @@ def test_points_layers_equal_gudhi_persistence(make_napari_viewer, qtbot):
         assert tuple(layer.scale) == (2.0, 1.0, 0.5)
 
 
+def test_2d_image_with_the_4_neighbourhood_equals_gudhi_vertices(make_napari_viewer, qtbot):
+    """A 2D image with neighbourhood 4 is gudhi's vertex construction (Maria et al. 2014,
+    CubicalComplex(vertices=...)), compared through voxtopo.persistence(engine="gudhi")."""
+    data = np.random.default_rng(12).random((12, 13))
+    viewer, widget = _widget(make_napari_viewer, data)
+    widget.set_neighbourhood(4)
+    _run(qtbot, widget)
+    expected = voxtopo.persistence(data, neighbourhood=4, engine="gudhi")
+    layers = _result_layers(viewer)
+    assert sorted(layers) == [0, 1]
+    for dim, layer in layers.items():
+        rows = expected.pairs[expected.pairs["dim"] == dim]
+        np.testing.assert_array_equal(
+            _sorted_rows(layer.data), _sorted_rows(rows[["birth_y", "birth_x"]].to_numpy()))
+        np.testing.assert_allclose(np.sort(layer.features["death"]), np.sort(rows["death"]))
+    with pytest.raises(voxtopo.InputError, match=r"choose one of \[8, 4\]\.$"):
+        widget.set_neighbourhood(26)
+
+
 def test_spherical_shell_shows_one_component_and_one_cavity(make_napari_viewer, qtbot):
     """A bright spherical shell swept bright to dark: Betti numbers (1, 0, 1) (Hatcher 2002,
     spherical shell), so above a noise threshold one component, no loop, one cavity."""
@@ -191,6 +210,12 @@ def test_distance_mode_labels_each_pore_region(make_napari_viewer, qtbot):
     expected = pore_regions_by_levels(distance, births, pores.features["death"].to_numpy(), 26)
     np.testing.assert_array_equal(regions[0].data, expected)
     assert set(np.unique(regions[0].data)) == {0, 1, 2}
+    # voxtopo.porosity sweeps its own basins: the pore that ends at the throat drains
+    # exactly the voxels of its region (voxel volume 1)
+    table = pores.features
+    ending = int(np.flatnonzero(np.isfinite(table["death"].to_numpy()))[0])
+    assert table["body_volume"][ending] == np.count_nonzero(regions[0].data == ending + 1)
+    assert "Porosity" in widget.status.text()
 
 
 def test_reader_opens_a_folder_written_by_the_cli(make_napari_viewer, tmp_path):

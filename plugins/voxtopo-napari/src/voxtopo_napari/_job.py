@@ -36,6 +36,7 @@ class AnalysisResult:
     placement: Placement
     layers: list = field(default_factory=list)
     regions: np.ndarray | None = None
+    porosity: dict | None = None
     notes: dict = field(default_factory=dict)
     timings: dict = field(default_factory=dict)
 
@@ -68,9 +69,34 @@ def scan_from_layer_data(data, *, name: str, spacing, unit: str, source: str = "
     return Scan(array, spacing=spacing, unit=unit, source=source or f"napari layer {name}")
 
 
+def _pore_details(prepared: Scan, diagram, options: AnalysisOptions, progress):
+    """voxtopo.porosity's measures of the same pore phase: (summary, per-pore table).
+
+    The table has the diagram row of each pore (``feature``, matched by the pore's
+    deepest voxel) and the porosity columns ``body_volume``, ``border``, ``isolated``.
+    """
+    from voxtopo import porosity
+
+    analysis = porosity.analyse(prepared.data < 0, spacing=prepared.spacing,
+                                unit=prepared.unit, neighbourhood=diagram.neighbourhood,
+                                engine=options.engine, progress=progress)
+    axes = ("z", "y", "x")[3 - diagram.ndim:]
+    spacing = np.asarray(prepared.spacing)
+    body_voxels = np.rint(analysis.pores[[f"body_{a}" for a in axes]].to_numpy(
+        dtype=np.float64) / spacing).astype(np.int64)
+    pores = diagram.dimension(0).pairs
+    rows = diagram.pairs.index[diagram.pairs["dim"] == 0]
+    birth_voxels = pores[[f"birth_{a}" for a in axes]].to_numpy(dtype=np.int64)
+    row_of_voxel = {tuple(v): int(r) for v, r in zip(birth_voxels, rows)}
+    features = [row_of_voxel.get(tuple(v), -1) for v in body_voxels]
+    table = analysis.pores[["body_volume", "border", "isolated"]].copy()
+    table.insert(0, "feature", features)
+    return analysis.summary, table[table["feature"] >= 0].reset_index(drop=True)
+
+
 def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=None,
                  mark_deaths: bool = False, with_regions: bool = True,
-                 progress=None) -> AnalysisResult:
+                 with_porosity: bool = False, progress=None) -> AnalysisResult:
     """Prepare, compute persistence and build the layers of one result.
 
     Parameters
@@ -87,6 +113,9 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
         Also make Points layers at the death voxels.
     with_regions : bool
         For a distance transform, label the region of every pore.
+    with_porosity : bool
+        For a distance transform, also run :func:`voxtopo.porosity.analyse` on the pore
+        phase: its summary (porosity, percolation) and per-pore volumes join the result.
     progress : callable(phase, fraction), optional
         Raise voxtopo.Cancelled in it to stop; the run then leaves nothing behind.
 
@@ -123,11 +152,19 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
                                progress=progress)
         timings["pore_regions"] = time.perf_counter() - start
 
+    porosity_summary, pore_details = None, None
+    if with_porosity and prepared.values == "distance":
+        start = time.perf_counter()
+        porosity_summary, pore_details = _pore_details(prepared, diagram, options, progress)
+        timings["porosity"] = time.perf_counter() - start
+
     report("building the layers", 0.0)
     placement = placement_of(scan.shape, scan.spacing, scan.unit, crop=options.crop,
                              downsample=options.downsample, translate=translate)
-    layers = result_layers(diagram, placement, name, mark_deaths=mark_deaths, regions=regions)
+    layers = result_layers(diagram, placement, name, mark_deaths=mark_deaths, regions=regions,
+                           pore_details=pore_details)
     report("building the layers", 1.0)
     return AnalysisResult(name=name, scan=scan, prepared=prepared, options=options,
                           diagram=diagram, placement=placement, layers=layers,
-                          regions=regions, notes=notes, timings=timings)
+                          regions=regions, porosity=porosity_summary, notes=notes,
+                          timings=timings)

@@ -101,9 +101,11 @@ def features_table(diagram, dim: int, placement: Placement) -> pd.DataFrame:
     return table
 
 
-def _points(diagram, dim, which, placement, longest, result_name):
+def _points(diagram, dim, which, placement, longest, result_name, pore_details=None):
     axes = AXES_3D[3 - diagram.ndim:]
     table = features_table(diagram, dim, placement)
+    if pore_details is not None and dim == 0:
+        table = table.merge(pore_details, on="feature", how="left")
     coords = table[[f"{which}_{a}" for a in axes]].to_numpy(dtype=np.float64, na_value=np.nan)
     if which == "death":
         has_death = ~np.isnan(coords).any(axis=1)
@@ -135,15 +137,17 @@ def _points(diagram, dim, which, placement, longest, result_name):
 
 
 def result_layers(diagram, placement: Placement, result_name: str, *,
-                  mark_deaths: bool = False, regions=None) -> list[tuple]:
+                  mark_deaths: bool = False, regions=None, pore_details=None) -> list[tuple]:
     """Layer-data tuples for one result: births per dimension, deaths on request, and
-    the pore regions when given (an int array on the analysed grid, k + 1 = pore k)."""
+    the pore regions when given (an int array on the analysed grid, k + 1 = pore k).
+
+    ``pore_details`` (a table with a ``feature`` column, e.g. voxtopo.porosity's pore
+    volumes) is joined to the features of dimension 0.
+    """
     longest = longest_finite(diagram.pairs["persistence"])
-    layers = [_points(diagram, dim, "birth", placement, longest, result_name)
-              for dim in range(diagram.ndim)]
-    if mark_deaths:
-        layers += [_points(diagram, dim, "death", placement, longest, result_name)
-                   for dim in range(diagram.ndim)]
+    which = ["birth", "death"] if mark_deaths else ["birth"]
+    layers = [_points(diagram, dim, end, placement, longest, result_name, pore_details)
+              for end in which for dim in range(diagram.ndim)]
     if regions is not None:
         layers.append((regions, {
             "name": f"pore regions · {result_name}",

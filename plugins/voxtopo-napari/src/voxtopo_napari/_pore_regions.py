@@ -116,9 +116,9 @@ def pore_regions(distance, birth_voxels, death_levels, neighbourhood: int = 26,
     order = in_pores[np.argsort(flat[in_pores], kind="stable")]
     if progress is not None:
         progress("pore regions", 0.3)
-    entry_pore, parent_pore, merge_level, tag = _flood(flat, order, np.array(shape3, dtype=np.int64),
-                                          _offsets(distance.ndim, neighbourhood),
-                                          seed_of_voxel, levels)
+    entry_pore, parent_pore, merge_level, tag = _flood(
+        flat, order, np.array(shape3, dtype=np.int64), _offsets(distance.ndim, neighbourhood),
+        seed_of_voxel, levels)
     if progress is not None:
         progress("pore regions", 0.8)
     labels = _assign(flat, order, entry_pore, parent_pore, merge_level, tag, levels)

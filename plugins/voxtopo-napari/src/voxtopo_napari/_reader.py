@@ -41,9 +41,22 @@ def napari_get_reader(path):
 def _summary(folder: Path) -> dict:
     try:
         return json.loads((folder / "summary.json").read_text())
-    except (json.JSONDecodeError, UnicodeDecodeError) as error:
-        raise InputError(f"{folder / 'summary.json'} is not valid JSON ({error.msg if hasattr(error, 'msg') else error}); "
-                         f"write the folder again with voxtopo analyse.") from None
+    except (json.JSONDecodeError, UnicodeDecodeError):
+        raise InputError(f"{folder / 'summary.json'} is not valid JSON (truncated or "
+                         f"edited?); write the folder again with voxtopo analyse.") from None
+
+
+def _check_counts(folder: Path, summary: dict, diagram: Diagram) -> None:
+    """A pairs.csv cut at a line break still parses: compare with the counts on record."""
+    counts = summary.get("counts")
+    if not counts:
+        return
+    found = diagram.counts(float(summary.get("options", {}).get("min_persistence", 0.0)))
+    listed = {int(d): int(n) for d, n in counts.items()}
+    if found != listed:
+        raise InputError(f"{folder / 'pairs.csv'} holds {sum(found.values())} pairs but "
+                         f"summary.json lists {sum(listed.values())}; the folder is "
+                         f"incomplete, write it again with voxtopo analyse.")
 
 
 def _options(summary: dict) -> AnalysisOptions:
@@ -64,6 +77,7 @@ def read_result_folder(path) -> list[tuple]:
             raise
         raise InputError(f"{folder / 'pairs.csv'} cannot be read as a table of pairs "
                          f"({error}); write the folder again with voxtopo analyse.") from None
+    _check_counts(folder, summary, diagram)
     options = _options(summary)
     scan_info = summary.get("scan", {})
     source = scan_info.get("source", "")

@@ -21,7 +21,7 @@ from qtpy.QtWidgets import (QCheckBox, QComboBox, QDoubleSpinBox, QFileDialog, Q
                             QHBoxLayout, QLabel, QProgressBar, QPushButton, QVBoxLayout,
                             QWidget)
 
-from voxtopo.errors import Cancelled, VoxtopoError
+from voxtopo.errors import Cancelled, InputError, VoxtopoError
 from voxtopo.pipeline import AnalysisOptions
 
 from ._diagram_panel import DiagramPanel
@@ -106,6 +106,11 @@ class AnalysisWidget(QWidget):
         self.deaths_check = QCheckBox("also mark where features end")
         self.deaths_check.setToolTip("Adds a second layer per dimension at the voxels where "
                                      "the features die.")
+        self.porosity_check = QCheckBox("also measure porosity and percolation")
+        self.porosity_check.setChecked(True)
+        self.porosity_check.setToolTip("With the distance transform: run voxtopo's pore "
+                                       "analysis too (pore volumes, percolation); it takes "
+                                       "about twice as long.")
 
         self.run_button = QPushButton("Find features")
         self.run_button.setToolTip("Compute the persistence of the chosen layer in the "
@@ -133,6 +138,7 @@ class AnalysisWidget(QWidget):
         form.addRow("smoothing σ", self.sigma_box)
         form.addRow("minimum lifetime", self.min_persistence_box)
         form.addRow(self.deaths_check)
+        form.addRow(self.porosity_check)
         buttons = QHBoxLayout()
         buttons.addWidget(self.run_button)
         buttons.addWidget(self.cancel_button)
@@ -189,16 +195,18 @@ class AnalysisWidget(QWidget):
     def _on_mode_changed(self, index=None):
         distance = MODES[self.mode_choice.currentText()][1]
         self.pore_choice.setEnabled(distance)
+        self.porosity_check.setEnabled(distance)
 
     def set_neighbourhood(self, value: int) -> None:
         """Choose the neighbourhood by its number (4, 8, 6 or 26)."""
-        for text in [self.neighbourhood_choice.itemText(i)
-                     for i in range(self.neighbourhood_choice.count())]:
+        offered = [self.neighbourhood_choice.itemText(i)
+                   for i in range(self.neighbourhood_choice.count())]
+        for text in offered:
             if text.startswith(f"{value}:"):
                 self.neighbourhood_choice.setCurrentText(text)
                 return
-        raise ValueError(f"Neighbourhood {value} is not offered for this layer; choose one of "
-                         f"{[self.neighbourhood_choice.itemText(i).split(':')[0] for i in range(self.neighbourhood_choice.count())]}.")
+        raise InputError(f"Neighbourhood {value} is not offered for this layer; choose one of "
+                         f"{[int(text.split(':')[0]) for text in offered]}.")
 
     def options(self) -> AnalysisOptions:
         """The controls as the library's AnalysisOptions."""
@@ -248,7 +256,8 @@ class AnalysisWidget(QWidget):
         self.last_error = None
         self.worker = create_worker(
             run_analysis, scan, options, name=name, translate=translate,
-            mark_deaths=self.deaths_check.isChecked(), progress=self._progress,
+            mark_deaths=self.deaths_check.isChecked(),
+            with_porosity=self.porosity_check.isChecked(), progress=self._progress,
             _start_thread=False,
             _connect={"returned": self._on_done, "errored": self._on_error,
                       "finished": self._on_finished})
@@ -289,8 +298,14 @@ class AnalysisWidget(QWidget):
         counts = result.diagram.counts()
         names = [kwargs["name"].split(" · ")[0] for _, kwargs, t in result.layers
                  if t == "points" and kwargs["metadata"][METADATA_KEY]["which"] == "birth"]
-        self.status.setText("Found " + ", ".join(f"{counts[d]} {names[d]}"
-                                                  for d in range(result.diagram.ndim)) + ".")
+        found = "Found " + ", ".join(f"{counts[d]} {names[d]}"
+                                     for d in range(result.diagram.ndim)) + "."
+        if result.porosity is not None:
+            through = [a for a, yes in result.porosity["percolates"].items() if yes]
+            found += (f" Porosity {100 * result.porosity['porosity']:.1f} %; the pores "
+                      + (f"connect across {', '.join(through)}." if through
+                         else "connect across no axis."))
+        self.status.setText(found)
         self._show_diagram(result.name)
 
     def _on_error(self, error) -> None:

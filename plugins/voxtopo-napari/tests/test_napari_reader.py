@@ -1,0 +1,58 @@
+"""The reader on damaged result folders: one clear sentence, nothing opened."""
+
+import shutil
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from voxtopo import cli
+from voxtopo.errors import InputError
+from voxtopo_napari._reader import napari_get_reader, read_result_folder
+
+
+@pytest.fixture(scope="module")
+def written_by_the_cli(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("cli")
+    np.save(folder / "speckle.npy", np.random.default_rng(1).random((6, 7)))
+    out = folder / "result"
+    assert cli.main(["analyse", str(folder / "speckle.npy"), "--out", str(out)]) == 0
+    return out
+
+
+@pytest.fixture
+def result_folder(written_by_the_cli, tmp_path):
+    """A fresh copy for each test to damage."""
+    return Path(shutil.copytree(written_by_the_cli, tmp_path / "result"))
+
+
+def test_pairs_cut_at_a_line_break_are_refused(result_folder):
+    pairs = result_folder / "pairs.csv"
+    lines = pairs.read_text().splitlines(keepends=True)
+    pairs.write_text("".join(lines[:len(lines) // 2]))
+    with pytest.raises(InputError, match=r"pairs\.csv holds \d+ pairs but summary\.json lists "
+                                         r"\d+; the folder is incomplete"):
+        read_result_folder(str(result_folder))
+
+
+def test_pairs_cut_inside_a_line_are_refused(result_folder):
+    pairs = result_folder / "pairs.csv"
+    text = pairs.read_text()
+    pairs.write_text(text[:len(text) // 2 + 3])
+    with pytest.raises(InputError):
+        read_result_folder(str(result_folder))
+
+
+def test_broken_summary_is_refused_in_one_sentence(result_folder):
+    summary = result_folder / "summary.json"
+    summary.write_text(summary.read_text()[:40])
+    with pytest.raises(InputError, match=r"summary\.json is not valid JSON \(truncated or "
+                                         r"edited\?\); write the folder again with voxtopo "
+                                         r"analyse\.$"):
+        read_result_folder(str(result_folder))
+
+
+def test_a_folder_without_results_is_left_to_other_readers(tmp_path):
+    (tmp_path / "notes.txt").write_text("not a result")
+    assert napari_get_reader(str(tmp_path)) is None
+    assert napari_get_reader(str(tmp_path / "notes.txt")) is None
