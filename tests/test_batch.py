@@ -259,3 +259,25 @@ def test_bad_manifests_and_settings_are_refused_in_one_sentence(tmp_path, capsys
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "Traceback" not in err
     assert not (tmp_path / "out").exists()
+
+
+def test_settings_choose_the_pores_job(tmp_path, cluster_address):
+    folder = tmp_path / "in"
+    folder.mkdir()
+    masks = []
+    for i, radius in enumerate((4, 7)):
+        yy, xx = np.indices((30, 30))
+        mask = np.hypot(yy - 15, xx - 15) < radius
+        mask[15, :] = True                       # a channel across the disc
+        np.save(folder / f"disc_{i}.npy", mask)
+        masks.append(mask)
+    settings = tmp_path / "pores.toml"
+    settings.write_text('job = "pores"\n[load]\nspacing = [2.0, 2.0]\nunit = "um"\n')
+    table = batch.run_batch(str(folder / "*.npy"), tmp_path / "out", settings_path=settings,
+                            scheduler=cluster_address, stream=io.StringIO())
+    assert (table["status"] == "done").all()
+    for i, mask in enumerate(masks):
+        # porosity is the pore volume fraction of the scan (common practice, no source)
+        assert table.loc[i, "porosity"] == pytest.approx(mask.mean(), abs=1e-9)
+        assert (tmp_path / "out" / "scans" / f"disc_{i}" / "pores.csv").is_file()
+    assert "counts_pores" in table.columns and "pairs_dimpores" not in table.columns

@@ -1,8 +1,9 @@
 """Many scans with one set of settings, as dask.distributed tasks.
 
-``voxtopo batch MANIFEST --out DIR`` runs one job ("analyse", or "pores" when
-:mod:`voxtopo.porosity` is installed) on every scan of a manifest, one dask task per scan,
-on a local cluster or on any dask scheduler, and writes::
+``voxtopo batch MANIFEST --out DIR`` runs one job ("analyse", "pores" with
+:mod:`voxtopo.porosity`, or "patches" with :mod:`voxtopo.patches`) on every scan of a
+manifest, one dask task per scan, on a local cluster or on any dask scheduler, and
+writes::
 
     DIR/settings.toml (or .yaml)   the settings every scan was run with
     DIR/manifest.csv               the manifest as read, with the result folder names
@@ -39,7 +40,8 @@ The settings file (TOML, or YAML with the same keys)
 ----------------------------------------------------
 ::
 
-    job = "analyse"            # "analyse" (persistence diagram) or "pores" (porosity)
+    job = "analyse"            # "analyse" (persistence diagram), "pores" (porosity)
+                               # or "patches" (high-contrast patch space of each scan)
 
     [load]                     # how every scan is read (manifest columns win)
     spacing = [2.5, 2.5, 2.5]  # voxel size z, y, x (or one number)
@@ -60,6 +62,11 @@ The settings file (TOML, or YAML with the same keys)
     [pores]                    # keywords of voxtopo.porosity.analyse: threshold,
     threshold = "otsu"         # pores_bright, label, axis, neighbourhood,
     pores_bright = false       # min_lifetime, engine
+
+    [patches]                  # every field of voxtopo.patches.PatchOptions: k,
+    k = 3                      # contrast_percent, positions, seed, log, axis, slices,
+    landmarks = 150            # k_neighbour, density_percent, landmarks, fields,
+                               # max_edge, method, max_dimension
 
     [batch]
     workers = 2                # local cluster size (default: the number of cores)
@@ -93,7 +100,7 @@ from .errors import InputError, VoxtopoError
 __all__ = ["run_batch", "read_manifest", "read_settings", "Settings", "ScanEntry",
            "analyse_out_of_core", "summary_table", "plan_workers"]
 
-JOBS = ("analyse", "pores")
+JOBS = ("analyse", "pores", "patches")
 LOAD_KEYS = ("spacing", "unit", "channel", "timepoint", "level", "shape", "dtype",
              "byte_order", "offset")
 PORES_KEYS = ("threshold", "pores_bright", "label", "axis", "neighbourhood", "min_lifetime",
@@ -135,17 +142,27 @@ class Settings:
     load: dict = field(default_factory=dict)
     analyse: dict = field(default_factory=dict)
     pores: dict = field(default_factory=dict)
+    patches: dict = field(default_factory=dict)
     batch: dict = field(default_factory=dict)
 
     def as_dict(self) -> dict:
         return {"job": self.job, "load": dict(self.load), "analyse": dict(self.analyse),
-                "pores": dict(self.pores), "batch": dict(self.batch)}
+                "pores": dict(self.pores), "patches": dict(self.patches),
+                "batch": dict(self.batch)}
 
 
 def _analysis_fields() -> tuple[str, ...]:
     from .pipeline import AnalysisOptions
 
     return tuple(f.name for f in fields(AnalysisOptions))
+
+
+def _patch_fields() -> tuple[str, ...]:
+    try:
+        from .patches import PatchOptions
+    except ImportError:
+        return ()
+    return tuple(f.name for f in fields(PatchOptions))
 
 
 def read_settings(path=None) -> tuple[Settings, str, str]:
@@ -187,7 +204,7 @@ def read_settings(path=None) -> tuple[Settings, str, str]:
 
 
 def _check_settings(raw: dict, path) -> Settings:
-    allowed = {"job", "load", "analyse", "pores", "batch"}
+    allowed = {"job", "load", "analyse", "pores", "patches", "batch"}
     unknown = set(raw) - allowed
     if unknown:
         raise InputError(f"{path} has the unknown key(s) {sorted(unknown)}; the settings "
@@ -197,7 +214,7 @@ def _check_settings(raw: dict, path) -> Settings:
         raise InputError(f"job = {job!r} in {path} is not a job voxtopo batch runs; choose "
                          f"one of {list(JOBS)}.")
     tables = {"load": LOAD_KEYS, "analyse": _analysis_fields(), "pores": PORES_KEYS,
-              "batch": BATCH_KEYS}
+              "patches": _patch_fields(), "batch": BATCH_KEYS}
     checked = {}
     for table, keys in tables.items():
         value = raw.get(table, {}) or {}
@@ -436,8 +453,10 @@ def _run_one(job: str, path: str, out: str, load_options: dict, settings: dict) 
 
             analyse(path, out, _analysis_options(settings), force=True,
                     load_options=load_options)
-        else:
+        elif job == "pores":
             _run_pores(path, out, load_options, settings)
+        else:
+            _run_patches(path, out, load_options, settings)
         return {"status": "done", "message": "", "seconds": time.perf_counter() - start}
     except (VoxtopoError, MemoryError) as error:
         message = str(error) or type(error).__name__
@@ -461,6 +480,25 @@ def _run_pores(path, out, load_options, settings: Settings) -> None:
         options["axis"] = list(options["axis"])
     analysis = porosity.analyse(scan, **options)
     porosity.write_pores(out, analysis, scan, force=True)
+    write_report(out)
+
+
+def _run_patches(path, out, load_options, settings: Settings) -> None:
+    try:
+        from . import patches
+    except ImportError:
+        raise InputError("The patches job needs voxtopo.patches, which this installation "
+                         "lacks; use job = \"analyse\".") from None
+    from .io import load
+    from .report.html import write_report
+
+    scan = load(path, **load_options)
+    options = {k: tuple(v) if isinstance(v, list) else v for k, v in settings.patches.items()}
+    try:
+        chosen = patches.PatchOptions(**options)
+    except TypeError as exc:
+        raise InputError(f"The [patches] settings cannot be used ({exc}).") from None
+    patches.analyse([scan], out, chosen, force=True)
     write_report(out)
 
 
@@ -544,10 +582,10 @@ def _clear_half_made(scans_dir: Path, name: str) -> bool:
 def _key_numbers(summary: dict) -> dict:
     """The scalar numbers of a scan's summary.json, flattened to table columns."""
     row = {}
-    for d, n in (summary.get("counts") or {}).items():
-        row[f"pairs_dim{d}"] = n
-    for d, n in (summary.get("essential") or {}).items():
-        row[f"essential_dim{d}"] = n
+    for key, prefix in (("counts", "pairs_dim"), ("essential", "essential_dim")):
+        for d, n in (summary.get(key) or {}).items():
+            # the analyse job counts pairs per dimension; other jobs count their features
+            row[f"{prefix}{d}" if str(d).isdigit() else f"{key}_{d}"] = n
 
     def add(prefix, value, depth):
         if isinstance(value, dict):
