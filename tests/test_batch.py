@@ -195,6 +195,9 @@ def test_out_of_core_scans_run_their_chunks_on_the_cluster(tmp_path, cluster_add
         assert sorted(map(tuple, np.round(got, 9))) == expected
     summary = json.loads((tmp_path / "out" / "scans" / "disc" / "summary.json").read_text())
     assert any("out of core" in note for note in summary["diagram"]["notes"])
+    table = pd.read_csv(tmp_path / "out" / "summary.csv")
+    assert table.loc[0, "pairs_dim0"] == len(pairs[pairs["dim"] == 0])
+    assert pd.isna(table.loc[0, "pairs_dim1"])     # not computed, so not reported as zero
 
 
 def test_cli_batch_then_compare_by_group(finished_batch, tmp_path, capsys, cluster_address):
@@ -281,3 +284,5 @@ def test_settings_choose_the_pores_job(tmp_path, cluster_address):
         assert table.loc[i, "porosity"] == pytest.approx(mask.mean(), abs=1e-9)
         assert (tmp_path / "out" / "scans" / f"disc_{i}" / "pores.csv").is_file()
     assert "counts_pores" in table.columns and "pairs_dimpores" not in table.columns
+    page = (tmp_path / "out" / "scans" / "disc_0" / "report.html").read_text()
+    assert "<h2>Counts</h2>" in page and "not a medical diagnosis" in page

@@ -235,7 +235,8 @@ def test_cli_analyse_out_of_core_writes_a_result_folder(tmp_path, capsys):
                                                                          "voxel")
     summary = json.loads((out / "summary.json").read_text())
     assert summary["scan"]["spacing"] == [2.5, 2.5, 2.5]
-    assert (out / "report.html").is_file()
+    page = (out / "report.html").read_text()
+    assert "<td>loops (dimension 1)</td><td>not computed</td>" in page
     capsys.readouterr()
     refused = tmp_path / "smoothed"
     assert cli.main(["analyse", str(path), "--out", str(refused), "--out-of-core",

@@ -435,8 +435,10 @@ def analyse_out_of_core(source, out, options=None, *, load_options=None, chunks=
     seconds = time.perf_counter() - start
     placeholder = np.broadcast_to(np.zeros((), opened.dtype), opened.shape)
     scan = Scan(placeholder, spacing=opened.spacing, unit=opened.unit, source=opened.source)
+    missing = [d for d in range(1, opened.ndim - 1)]
     write_result(out, scan, diagram, options, timings={"persistence": seconds},
-                 notes={"out_of_core": list(diagram.notes)}, force=force)
+                 notes={"out_of_core": {"chunks": list(opened.chunks),
+                                        "dimensions_not_computed": missing}}, force=force)
     return diagram
 
 
@@ -601,6 +603,10 @@ def _key_numbers(summary: dict) -> dict:
     for key, value in summary.items():
         if key not in _NOT_KEY_NUMBERS:
             add(key, value, 0)
+    out_of_core = (summary.get("preparation") or {}).get("out_of_core") or {}
+    for d in out_of_core.get("dimensions_not_computed", []):
+        # an out-of-core run has no pairs of these dimensions: unknown, not zero
+        row[f"pairs_dim{d}"] = row[f"essential_dim{d}"] = None
     return row
 
 

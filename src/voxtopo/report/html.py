@@ -206,8 +206,12 @@ def write_report(folder) -> Path:
     summary = _read_summary(folder)
     counts = summary.get("counts", {})
     essential = summary.get("essential", {})
-    count_rows = [[_DIM_WORDS.get(str(d), f"dimension {d}"), n, essential.get(str(d), 0)]
-                  for d, n in counts.items()]
+    skipped = ((summary.get("preparation") or {}).get("out_of_core") or {}).get(
+        "dimensions_not_computed", [])
+    count_rows = [[_DIM_WORDS.get(str(d), f"dimension {d}"),
+                   "not computed" if int(d) in skipped else n,
+                   "not computed" if int(d) in skipped else essential.get(str(d), 0)]
+                  for d, n in counts.items() if str(d).isdigit()]
     images = [{"data": _png(folder / name), "caption": _CAPTIONS.get(name, name)}
               for name in summary.get("plots", sorted(p.name for p in folder.glob("*.png")))
               if (folder / name).is_file()]
@@ -219,6 +223,10 @@ def write_report(folder) -> Path:
     notes = list(diagram.get("notes", [])) + list(summary.get("notes", []))
     for key, value in (summary.get("preparation") or {}).items():
         notes.append(f"{key}: {_show(value)}")
+    sections = _sections(summary)
+    named_counts = {k: v for k, v in counts.items() if not str(k).isdigit()}
+    if named_counts:   # other jobs count their own features (pores, grains, ...)
+        sections.insert(0, {"title": "Counts", "mapping": named_counts, "table": None})
     scan = summary.get("scan") or {}
     name = _final_name(folder)
     title = Path(str(scan.get("source") or name)).name or name
@@ -227,7 +235,7 @@ def write_report(folder) -> Path:
                   scan=scan, analysed=summary.get("analysed") if summary.get("analysed")
                   != scan else None,
                   counts=Table(["feature", "pairs", "of which never die"], count_rows),
-                  images=images, most_persistent=most, extra_sections=_sections(summary),
+                  images=images, most_persistent=most, extra_sections=sections,
                   settings=summary.get("options") or {}, diagram=diagram,
                   timings=summary.get("timings_seconds") or {}, notes=notes,
                   cautions=summary.get("cautions") or list(CAUTIONS),
