@@ -1,0 +1,917 @@
+"""Dimension 1 of a 3D volume by a cohomology reduction over an implicit cubical complex.
+
+Loops (tunnels, handles) of a sublevel filtration cannot be had from a union-find, so this
+module reduces a coboundary matrix, but never builds it: every cell is addressed by index
+arithmetic, its value is read from the voxels around it, and only the columns that really
+need a reduction leave a trace in memory.
+
+The complex
+-----------
+Cells live in the doubled grid: a cell has coordinates ``c = (c0, c1, c2)`` and its
+dimension is the number of odd coordinates. Grid corners sit at even coordinates.
+
+* ``"vertex"`` construction (6-neighbourhood; gudhi's ``vertices``): voxel ``i`` is the
+  vertex ``c = 2 i``; the grid runs over ``0 .. 2 n - 2`` and a cell takes the largest
+  value of its vertices.
+* ``"voxel"`` construction (26-neighbourhood; gudhi's ``top_dimensional_cells``): voxel
+  ``i`` is the cube ``c = 2 i + 1``; the grid runs over ``0 .. 2 n`` (the closed box) and
+  a cell takes the smallest value of the cubes it bounds.
+
+Order of the filtration and tie rule
+------------------------------------
+Voxels are ranked once by ``(value, C-order flat index)`` (a stable sort; a counting sort
+for 8- and 16-bit data). Every cell takes the *rank* of the voxel its value comes from
+(vertex construction: the highest-ranked vertex; voxel construction: the lowest-ranked
+cube around it): its *representative voxel*. Cells are ordered by
+
+    (rank of the representative voxel, dimension, offset code)
+
+where the offset code ``9 (o0 + 1) + 3 (o1 + 1) + (o2 + 1)`` numbers the position
+``o = c - centre(voxel)`` in ``{-1, 0, 1}^3`` of the cell around its voxel. A face never
+has a higher rank than its coface (it has fewer vertices, or bounds more cubes) and has a
+lower dimension, so this order puts faces before cofaces; it orders values like the
+filtration does, so its persistence pairs have the same values as any other valid order
+(gudhi's included). A cell of a given dimension is identified by its *key*
+``32 * rank + code``: comparing keys is comparing positions in the filtration, and the key
+gives the cell back through the sorted voxel list.
+
+The reduction
+-------------
+Cohomology (de Silva, Morozov & Vejdemo-Johansson 2011, "Dualities in persistent
+(co)homology"): edges are visited from the last to the first; the column of an edge is
+its coboundary (the at most four squares around it) and its pivot the earliest square.
+Clearing (Chen & Kerber 2011, "Persistent homology computation with a twist"): an edge
+that joins two components of the sublevel set kills a dimension-0 class, so its column is
+zero and is skipped; these edges come from a small union-find over the cells of this
+module's own indexing (the dimension-0 *diagram* itself comes from ``_union_find.py``).
+Apparent and emergent pairs (Bauer 2021, "Ripser: efficient computation of Vietoris-Rips
+persistence barcodes", J. Appl. Comput. Topol.): when the earliest square of an edge's
+coboundary is the pivot of no column visited before, the edge pairs with it at once, with
+no reduction; in the voxel construction that square is always a face of the edge's own
+cube, found from the edge's code alone. One bit per square says whether it is already a
+pivot. The column that owns such a square needs no table either: it is the first-visited
+of the square's (at most four) edges, not cleared, whose earliest square it is. Only
+columns that needed an addition are remembered, in a hash table from their pivot square
+to the reduced column itself, so memory grows with the number of truly reduced columns,
+not with the volume.
+
+Memory per voxel: the sorted order and the ranks (4 bytes each up to 2^31 voxels), the
+distinct-value level of each rank (4), one 32-bit word of flags (own edges left by the
+clearing, squares already a pivot), and during the clearing a union-find parent per grid
+corner (4).
+
+Coefficients are Z/2. Without periodic boundaries the box is contractible, so every loop
+dies and there are no essential dimension-1 classes.
+"""
+
+from __future__ import annotations
+
+import itertools
+
+import numpy as np
+from numba import njit
+
+from ..errors import InputError
+
+__all__ = ["pairs_dim1", "pairs_dim1_explicit", "CONSTRUCTIONS"]
+
+CONSTRUCTIONS = ("voxel", "vertex")
+
+#: Bits of a cell key that hold the offset code (27 codes fit in 5 bits).
+CODE_BITS = 5
+_CODE_MASK = (1 << CODE_BITS) - 1
+
+#: Offset codes of the edges around a voxel, ascending (vertex construction: the six
+#: half-edges to the face neighbours; voxel construction: the twelve edges of the cube).
+_EDGE_CODES_VERTEX = np.array(
+    [9 * (a + 1) + 3 * (b + 1) + (c + 1)
+     for a, b, c in itertools.product((-1, 0, 1), repeat=3) if abs(a) + abs(b) + abs(c) == 1],
+    dtype=np.int64)
+_EDGE_CODES_VOXEL = np.array(
+    [9 * (a + 1) + 3 * (b + 1) + (c + 1)
+     for a, b, c in itertools.product((-1, 0, 1), repeat=3) if (a, b, c).count(0) == 1],
+    dtype=np.int64)
+
+
+#: Offset codes of the squares around a voxel that can take their value from it.
+_SQUARE_CODES_VERTEX = np.array(
+    [9 * (a + 1) + 3 * (b + 1) + (c + 1)
+     for a, b, c in itertools.product((-1, 0, 1), repeat=3) if abs(a) + abs(b) + abs(c) == 2],
+    dtype=np.int64)
+_SQUARE_CODES_VOXEL = np.array(
+    [9 * (a + 1) + 3 * (b + 1) + (c + 1)
+     for a, b, c in itertools.product((-1, 0, 1), repeat=3) if (a, b, c).count(0) == 2],
+    dtype=np.int64)
+
+#: Each voxel has one 32-bit word: bits 0-11 say which of its own edges are columns
+#: (own and not cleared), bits 12-23 which of its own squares are already a pivot.
+_SQUARE_SHIFT = 12
+
+
+def _bit_of(codes, first):
+    """code -> bit of that cell in a voxel's word (-1: not such a cell)."""
+    bit = np.full(27, -1, dtype=np.int64)
+    bit[codes] = first + np.arange(codes.size)
+    return bit
+
+
+_EDGE_BIT_VERTEX = _bit_of(_EDGE_CODES_VERTEX, 0)
+_EDGE_BIT_VOXEL = _bit_of(_EDGE_CODES_VOXEL, 0)
+_SQUARE_BIT_VERTEX = _bit_of(_SQUARE_CODES_VERTEX, _SQUARE_SHIFT)
+_SQUARE_BIT_VOXEL = _bit_of(_SQUARE_CODES_VOXEL, _SQUARE_SHIFT)
+
+#: Number of voxel ranks the reduction handles between two progress reports.
+_PROGRESS_STEPS = 10
+
+#: Phase name given to the progress callback.
+PHASE = "dimension 1"
+
+
+# --------------------------------------------------------------------------- cells
+
+
+@njit(cache=True, inline="always")
+def _cell_key(c0, c1, c2, rank, n0, n1, n2, vertex):
+    """Key ``32 * rank + code`` of the cell at doubled-grid coordinates ``c``."""
+    b0 = b1 = b2 = 0
+    if vertex:
+        best = np.int64(-1)
+        for i0 in range(c0 >> 1, ((c0 + 1) >> 1) + 1):
+            for i1 in range(c1 >> 1, ((c1 + 1) >> 1) + 1):
+                base = (i0 * n1 + i1) * n2
+                for i2 in range(c2 >> 1, ((c2 + 1) >> 1) + 1):
+                    r = np.int64(rank[base + i2])
+                    if r > best:
+                        best = r
+                        b0, b1, b2 = i0, i1, i2
+        code = 9 * (c0 - 2 * b0 + 1) + 3 * (c1 - 2 * b1 + 1) + (c2 - 2 * b2 + 1)
+    else:
+        best = np.int64(1) << 62
+        for i0 in range(max((c0 - 1) >> 1, 0), min(c0 >> 1, n0 - 1) + 1):
+            for i1 in range(max((c1 - 1) >> 1, 0), min(c1 >> 1, n1 - 1) + 1):
+                base = (i0 * n1 + i1) * n2
+                for i2 in range(max((c2 - 1) >> 1, 0), min(c2 >> 1, n2 - 1) + 1):
+                    r = np.int64(rank[base + i2])
+                    if r < best:
+                        best = r
+                        b0, b1, b2 = i0, i1, i2
+        code = 9 * (c0 - 2 * b0) + 3 * (c1 - 2 * b1) + (c2 - 2 * b2)
+    return (best << CODE_BITS) | code
+
+
+@njit(cache=True, inline="always")
+def _earliest_own_coface(i0, i1, i2, code, r, rank, n0, n1, n2, vertex):
+    """Key of the earliest square around an edge that is voxel ``i``'s own (rank ``r``).
+
+    Voxel construction: the other cubes around the edge come later, so the two faces of
+    the voxel's own cube that contain the edge have rank ``r`` and the earlier of them (the
+    smaller code) is the answer, without reading any rank. Vertex construction: the squares
+    spanned with the four face neighbours of the edge's two ends.
+    """
+    o0, o1, o2 = code // 9 - 1, (code // 3) % 3 - 1, code % 3 - 1
+    if not vertex:
+        if o0 == 0:
+            return (np.int64(r) << CODE_BITS) | min(code - 3 * o1, code - o2)
+        if o1 == 0:
+            return (np.int64(r) << CODE_BITS) | min(code - 9 * o0, code - o2)
+        return (np.int64(r) << CODE_BITS) | min(code - 9 * o0, code - 3 * o1)
+    best = np.int64(-1)
+    other = ((i0 + o0) * n1 + (i1 + o1)) * n2 + (i2 + o2)
+    here = (i0 * n1 + i1) * n2 + i2
+    for axis in range(3):
+        if (axis == 0 and o0 != 0) or (axis == 1 and o1 != 0) or (axis == 2 and o2 != 0):
+            continue
+        weight = 9 if axis == 0 else (3 if axis == 1 else 1)
+        stride = n1 * n2 if axis == 0 else (n2 if axis == 1 else 1)
+        position = i0 if axis == 0 else (i1 if axis == 1 else i2)
+        extent = n0 if axis == 0 else (n1 if axis == 1 else n2)
+        for t in (-1, 1):
+            if position + t < 0 or position + t >= extent:
+                continue
+            side = np.int64(rank[here + t * stride])
+            far = np.int64(rank[other + t * stride])
+            if side < r and far < r:
+                key = (np.int64(r) << CODE_BITS) | (code + weight * t)
+            elif side > far:
+                key = (side << CODE_BITS) | (code - weight * t)
+            else:
+                key = (far << CODE_BITS) | (26 - code - weight * t)
+            if best < 0 or key < best:
+                best = key
+    return best
+
+
+@njit(cache=True, inline="always")
+def _cell_coords(key, order, n1, n2, vertex):
+    """Doubled-grid coordinates of the cell with ``key``."""
+    v = np.int64(order[key >> CODE_BITS])
+    code = key & _CODE_MASK
+    i2 = v % n2
+    i1 = (v // n2) % n1
+    i0 = v // (n1 * n2)
+    shift = 0 if vertex else 1
+    return (2 * i0 + shift + code // 9 - 1, 2 * i1 + shift + (code // 3) % 3 - 1,
+            2 * i2 + shift + code % 3 - 1)
+
+
+@njit(cache=True, inline="always")
+def _marked(key, order, words, square_bit):
+    """Whether the square ``key`` is already the pivot of a column."""
+    return (words[order[key >> CODE_BITS]] >> square_bit[key & _CODE_MASK]) & 1
+
+
+@njit(cache=True)
+def _coboundary_at(c0, c1, c2, rank, n0, n1, n2, vertex, out):
+    """Write the keys of the squares around the edge at ``c`` into ``out``; return how many."""
+    e0, e1, e2 = (2 * n0 - 1, 2 * n1 - 1, 2 * n2 - 1) if vertex else (2 * n0 + 1, 2 * n1 + 1,
+                                                                      2 * n2 + 1)
+    count = 0
+    if c0 % 2 == 0:
+        if c0 > 0:
+            out[count] = _cell_key(c0 - 1, c1, c2, rank, n0, n1, n2, vertex)
+            count += 1
+        if c0 < e0 - 1:
+            out[count] = _cell_key(c0 + 1, c1, c2, rank, n0, n1, n2, vertex)
+            count += 1
+    if c1 % 2 == 0:
+        if c1 > 0:
+            out[count] = _cell_key(c0, c1 - 1, c2, rank, n0, n1, n2, vertex)
+            count += 1
+        if c1 < e1 - 1:
+            out[count] = _cell_key(c0, c1 + 1, c2, rank, n0, n1, n2, vertex)
+            count += 1
+    if c2 % 2 == 0:
+        if c2 > 0:
+            out[count] = _cell_key(c0, c1, c2 - 1, rank, n0, n1, n2, vertex)
+            count += 1
+        if c2 < e2 - 1:
+            out[count] = _cell_key(c0, c1, c2 + 1, rank, n0, n1, n2, vertex)
+            count += 1
+    return count
+
+
+@njit(cache=True)
+def _coboundary(key, order, rank, n0, n1, n2, vertex, out):
+    """Write the keys of the squares around edge ``key`` into ``out``; return how many."""
+    c0, c1, c2 = _cell_coords(key, order, n1, n2, vertex)
+    return _coboundary_at(c0, c1, c2, rank, n0, n1, n2, vertex, out)
+
+
+@njit(cache=True)
+def _boundary(key, order, rank, n0, n1, n2, vertex, out):
+    """Write the keys of the four edges of square ``key`` into ``out``; return 4."""
+    c0, c1, c2 = _cell_coords(key, order, n1, n2, vertex)
+    count = 0
+    if c0 % 2 == 1:
+        out[count] = _cell_key(c0 - 1, c1, c2, rank, n0, n1, n2, vertex)
+        out[count + 1] = _cell_key(c0 + 1, c1, c2, rank, n0, n1, n2, vertex)
+        count += 2
+    if c1 % 2 == 1:
+        out[count] = _cell_key(c0, c1 - 1, c2, rank, n0, n1, n2, vertex)
+        out[count + 1] = _cell_key(c0, c1 + 1, c2, rank, n0, n1, n2, vertex)
+        count += 2
+    if c2 % 2 == 1:
+        out[count] = _cell_key(c0, c1, c2 - 1, rank, n0, n1, n2, vertex)
+        out[count + 1] = _cell_key(c0, c1, c2 + 1, rank, n0, n1, n2, vertex)
+        count += 2
+    return count
+
+
+@njit(cache=True)
+def _counting_order(flat, offset, levels):
+    """Stable counting sort of small non-negative integers ``flat - offset``."""
+    counts = np.zeros(levels + 1, dtype=np.int64)
+    for v in range(flat.size):
+        counts[np.int64(flat[v]) - offset + 1] += 1
+    for k in range(levels):
+        counts[k + 1] += counts[k]
+    order = np.empty(flat.size, dtype=np.int64)
+    for v in range(flat.size):
+        slot = np.int64(flat[v]) - offset
+        order[counts[slot]] = v
+        counts[slot] += 1
+    return order
+
+
+def voxel_order(values: np.ndarray) -> np.ndarray:
+    """C-order flat voxel indices sorted by ``(value, flat index)``.
+
+    8- and 16-bit data (and integers spanning few levels) take a counting sort; float32
+    values are sorted as one 64-bit word per voxel (order-preserving bits of the value,
+    then the flat index), which numpy sorts much faster than a stable argsort; the rest
+    take numpy's stable sort.
+    """
+    flat = values.reshape(-1)
+    if np.issubdtype(flat.dtype, np.integer) and flat.size:
+        low, high = int(flat.min()), int(flat.max())
+        if high - low < max(1 << 16, flat.size):
+            return _counting_order(flat, low, high - low + 1)
+    if flat.dtype == np.float32 and flat.size < 2**32:
+        # adding zero turns -0.0 into 0.0, so that equal values get equal bits
+        words = _float32_words((flat + np.float32(0.0)).view(np.uint32))
+        words.sort()
+        return (words & np.uint64(0xFFFFFFFF)).astype(np.int64)
+    return np.argsort(flat, kind="stable")
+
+
+@njit(cache=True)
+def _float32_words(raw_bits):
+    """(order-preserving bits of the float32 value) << 32 | flat index, per voxel."""
+    words = np.empty(raw_bits.size, dtype=np.uint64)
+    for v in range(raw_bits.size):
+        bits = np.uint64(raw_bits[v])
+        if bits >> np.uint64(31):
+            bits = ~bits & np.uint64(0xFFFFFFFF)
+        else:
+            bits = bits | np.uint64(0x80000000)
+        words[v] = (bits << np.uint64(32)) | np.uint64(v)
+    return words
+
+
+def _index_type(count: int):
+    return np.int32 if count < 2**31 else np.int64
+
+
+@njit(cache=True)
+def _ranks(order, rank):
+    for r in range(order.size):
+        rank[order[r]] = r
+
+
+# --------------------------------------------------------------------------- clearing
+
+
+def _later_neighbours(codes, vertex):
+    """For each edge code, the 3x3x3-block positions (9 a + 3 b + c) of the voxels that must
+    come later than the centre voxel for the edge to be the centre's own (-1 pads)."""
+    table = np.full((codes.size, 3), -1, dtype=np.int64)
+    for k, code in enumerate(codes):
+        offset = (code // 9 - 1, (code // 3) % 3 - 1, code % 3 - 1)
+        if vertex:
+            # the edge's other end must come *earlier*: stored as a single entry
+            table[k, 0] = 9 * (offset[0] + 1) + 3 * (offset[1] + 1) + (offset[2] + 1)
+            continue
+        spans = [(0, o) if o else (0,) for o in offset]
+        around = [9 * (a + 1) + 3 * (b + 1) + (c + 1)
+                  for a, b, c in itertools.product(*spans) if (a, b, c) != (0, 0, 0)]
+        table[k, :len(around)] = around
+    return table
+
+
+_LATER_VERTEX = _later_neighbours(_EDGE_CODES_VERTEX, True)
+_LATER_VOXEL = _later_neighbours(_EDGE_CODES_VOXEL, False)
+
+
+@njit(cache=True)
+def _own_edges(rank, n0, n1, n2, vertex, later, words):
+    """Set bit ``k`` of ``words[v]`` (and clear the rest) when the ``k``-th edge around
+    voxel ``v`` exists and takes its value from ``v``; one pass in memory order, so that
+    the sweeps in value order read one word per voxel instead of its neighbourhood.
+
+    Vertex construction: the edge to a face neighbour is the voxel's own when that
+    neighbour comes earlier; voxel construction: a cube edge is the cube's own when the
+    (up to three) other cubes around it come later. Voxels outside the volume count as
+    missing (vertex) or as coming later (voxel).
+    """
+    block = np.empty(27, dtype=np.int64)
+    missing = np.int64(-1) if vertex else np.int64(1) << 62
+    for i0 in range(n0):
+        for i1 in range(n1):
+            for i2 in range(n2):
+                for a in range(3):
+                    j0 = i0 + a - 1
+                    for b in range(3):
+                        j1 = i1 + b - 1
+                        for c in range(3):
+                            j2 = i2 + c - 1
+                            if (j0 < 0 or j1 < 0 or j2 < 0 or j0 >= n0 or j1 >= n1
+                                    or j2 >= n2):
+                                block[9 * a + 3 * b + c] = missing
+                            else:
+                                block[9 * a + 3 * b + c] = rank[(j0 * n1 + j1) * n2 + j2]
+                r = block[13]
+                bits = 0
+                for k in range(later.shape[0]):
+                    if vertex:
+                        own = 0 <= block[later[k, 0]] < r
+                    else:
+                        own = True
+                        for t in range(3):
+                            if later[k, t] >= 0 and block[later[k, t]] < r:
+                                own = False
+                    if own:
+                        bits |= 1 << k
+                words[(i0 * n1 + i1) * n2 + i2] = bits
+
+
+@njit(cache=True)
+def _find(parent, x):
+    """Root of ``x``; a root holds minus the size of its set (union by size)."""
+    root = x
+    while parent[root] >= 0:
+        root = parent[root]
+    while x != root:
+        up = parent[x]
+        parent[x] = root
+        x = up
+    return root
+
+
+@njit(cache=True)
+def _death_edges(order, n0, n1, n2, vertex, edge_codes, words, parent):
+    """Clear in ``words`` every edge that joins two components when the edges are added
+    in filtration order: these are the columns that clearing skips.
+
+    A small union-find over this module's own vertices (voxels, or grid corners in the
+    voxel construction); it only feeds the clearing, the dimension-0 diagram comes from
+    ``_union_find.py``.
+    """
+    parent[:] = -1
+    m1, m2 = (n1, n2) if vertex else (n1 + 1, n2 + 1)
+    shift = 0 if vertex else 1
+    for r in range(order.size):
+        v = np.int64(order[r])
+        i2 = v % n2
+        i1 = (v // n2) % n1
+        i0 = v // (n1 * n2)
+        bits = words[v]
+        for k in range(edge_codes.size):
+            if not (bits >> k) & 1:
+                continue
+            code = edge_codes[k]
+            c0 = 2 * i0 + shift + code // 9 - 1
+            c1 = 2 * i1 + shift + (code // 3) % 3 - 1
+            c2 = 2 * i2 + shift + code % 3 - 1
+            # the two end corners of the edge, halving the doubled coordinates
+            if c0 % 2 == 1:
+                a = ((c0 - 1) // 2 * m1 + c1 // 2) * m2 + c2 // 2
+                b = ((c0 + 1) // 2 * m1 + c1 // 2) * m2 + c2 // 2
+            elif c1 % 2 == 1:
+                a = (c0 // 2 * m1 + (c1 - 1) // 2) * m2 + c2 // 2
+                b = (c0 // 2 * m1 + (c1 + 1) // 2) * m2 + c2 // 2
+            else:
+                a = (c0 // 2 * m1 + c1 // 2) * m2 + (c2 - 1) // 2
+                b = (c0 // 2 * m1 + c1 // 2) * m2 + (c2 + 1) // 2
+            ra = _find(parent, a)
+            rb = _find(parent, b)
+            if ra != rb:
+                if parent[ra] > parent[rb]:
+                    ra, rb = rb, ra
+                parent[ra] += parent[rb]
+                parent[rb] = ra
+                words[v] &= ~np.uint32(1 << k)
+
+
+# --------------------------------------------------------------------------- pivot table
+
+
+@njit(cache=True, inline="always")
+def _slot(key, mask):
+    h = key * np.int64(-7046029254386353131)
+    h ^= h >> 29
+    return h & mask
+
+
+@njit(cache=True)
+def _table_find(table_keys, table_vals, key):
+    mask = table_keys.size - 1
+    s = _slot(key, mask)
+    while table_keys[s] != -1:
+        if table_keys[s] == key:
+            return table_vals[s]
+        s = (s + 1) & mask
+    return -1
+
+
+@njit(cache=True)
+def _table_put(table_keys, table_vals, key, value):
+    mask = table_keys.size - 1
+    s = _slot(key, mask)
+    while table_keys[s] != -1:
+        s = (s + 1) & mask
+    table_keys[s] = key
+    table_vals[s] = value
+
+
+@njit(cache=True)
+def _table_grow(table_keys, table_vals):
+    new_keys = np.full(table_keys.size * 2, -1, dtype=np.int64)
+    new_vals = np.empty(table_keys.size * 2, dtype=np.int64)
+    for s in range(table_keys.size):
+        if table_keys[s] != -1:
+            _table_put(new_keys, new_vals, table_keys[s], table_vals[s])
+    return new_keys, new_vals
+
+
+# --------------------------------------------------------------------------- working column
+
+
+@njit(cache=True)
+def _heap_push(heap, size, key):
+    if size == heap.size:
+        bigger = np.empty(heap.size * 2, dtype=np.int64)
+        bigger[:size] = heap[:size]
+        heap = bigger
+    j = size
+    heap[j] = key
+    while j > 0:
+        up = (j - 1) >> 1
+        if heap[up] <= key:
+            break
+        heap[j] = heap[up]
+        j = up
+    heap[j] = key
+    return heap, size + 1
+
+
+@njit(cache=True)
+def _heap_pop(heap, size):
+    size -= 1
+    last = heap[size]
+    j = 0
+    while True:
+        child = 2 * j + 1
+        if child >= size:
+            break
+        if child + 1 < size and heap[child + 1] < heap[child]:
+            child += 1
+        if heap[child] >= last:
+            break
+        heap[j] = heap[child]
+        j = child
+    if size > 0:
+        heap[j] = last
+    return size
+
+
+@njit(cache=True)
+def _heap_pivot(heap, size):
+    """Smallest entry that survives Z/2 cancellation (-1 if none), left on the heap."""
+    while size > 0:
+        top = heap[0]
+        size = _heap_pop(heap, size)
+        if size > 0 and heap[0] == top:
+            size = _heap_pop(heap, size)
+            continue
+        heap, size = _heap_push(heap, size, top)
+        return top, heap, size
+    return np.int64(-1), heap, size
+
+
+# --------------------------------------------------------------------------- reduction
+
+
+@njit(cache=True)
+def _unreduced_owner(square, edge, order, rank, words, edge_bit, n0, n1, n2, vertex, faces):
+    """Edge visited before ``edge`` (a larger key) whose coboundary, unreduced, has
+    ``square`` as pivot, or -1. The first such edge visited (largest key) is the owner."""
+    _boundary(square, order, rank, n0, n1, n2, vertex, faces)
+    owner = np.int64(-1)
+    for j in range(4):
+        face = faces[j]
+        if face <= edge or face <= owner:
+            continue
+        if not (words[order[face >> CODE_BITS]] >> edge_bit[face & _CODE_MASK]) & 1:
+            continue
+        v = np.int64(order[face >> CODE_BITS])
+        i2 = v % n2
+        i1 = (v // n2) % n1
+        i0 = v // (n1 * n2)
+        if _earliest_own_coface(i0, i1, i2, face & _CODE_MASK, face >> CODE_BITS, rank, n0, n1,
+                                n2, vertex) == square:
+            owner = face
+    return owner
+
+
+@njit(cache=True)
+def _reduce_ranks(r_high, r_low, level, order, rank, words, n0, n1, n2, vertex,
+                  edge_codes, edge_bit, square_bit, table_keys, table_vals, pool, counters, births, deaths):
+    """Visit the edges of the voxels of rank ``r_high`` down to ``r_low`` (inclusive),
+    last edge first, and pair each with a square.
+
+    ``words`` holds, per voxel, a bit for each of its own edges that clearing left and
+    one for each of its own squares that is already the pivot of a column. ``counters`` = [table entries, pool length,
+    pairs written, columns reduced, columns paired without reduction, columns left empty,
+    heap pushes]. Returns the (possibly grown) table, pool and output arrays.
+    """
+    shift = 0 if vertex else 1
+    faces = np.empty(4, dtype=np.int64)
+    cofaces = np.empty(6, dtype=np.int64)
+    heap = np.empty(64, dtype=np.int64)
+    for r in range(r_high, r_low - 1, -1):
+        v = np.int64(order[r])
+        i2 = v % n2
+        i1 = (v // n2) % n1
+        i0 = v // (n1 * n2)
+        bits = words[v]
+        for k in range(edge_codes.size - 1, -1, -1):
+            if not (bits >> k) & 1:
+                continue
+            code = edge_codes[k]
+            edge = (np.int64(r) << CODE_BITS) | code
+            pivot = _earliest_own_coface(i0, i1, i2, code, r, rank, n0, n1, n2, vertex)
+            if pivot < 0:
+                counters[5] += 1
+                continue
+            if not _marked(pivot, order, words, square_bit):
+                counters[4] += 1
+            else:
+                counters[3] += 1
+                size = 0
+                count = _coboundary_at(2 * i0 + shift + code // 9 - 1,
+                                       2 * i1 + shift + (code // 3) % 3 - 1,
+                                       2 * i2 + shift + code % 3 - 1,
+                                       rank, n0, n1, n2, vertex, cofaces)
+                for j in range(count):
+                    heap, size = _heap_push(heap, size, cofaces[j])
+                counters[6] += count
+                while True:
+                    stored = _table_find(table_keys, table_vals, pivot)
+                    if stored >= 0:
+                        for j in range(pool[stored]):
+                            heap, size = _heap_push(heap, size, pool[stored + 1 + j])
+                        counters[6] += pool[stored]
+                    else:
+                        owner = _unreduced_owner(pivot, edge, order, rank, words, edge_bit,
+                                                 n0, n1, n2, vertex, faces)
+                        if owner < 0:
+                            raise RuntimeError("a pivot square has no owner column")
+                        count = _coboundary(owner, order, rank, n0, n1, n2, vertex, cofaces)
+                        for j in range(count):
+                            heap, size = _heap_push(heap, size, cofaces[j])
+                        counters[6] += count
+                    pivot, heap, size = _heap_pivot(heap, size)
+                    if pivot < 0 or not _marked(pivot, order, words, square_bit):
+                        break
+                if pivot < 0:
+                    counters[5] += 1
+                    continue
+                # keep the reduced column itself (pivot first), as the heap drains
+                start = counters[1]
+                if start + 2 > pool.size:
+                    bigger = np.empty(pool.size * 2, dtype=np.int64)
+                    bigger[:start] = pool[:start]
+                    pool = bigger
+                write = start + 1
+                while True:
+                    entry, heap, size = _heap_pivot(heap, size)
+                    if entry < 0:
+                        break
+                    size = _heap_pop(heap, size)
+                    if write == pool.size:
+                        bigger = np.empty(pool.size * 2, dtype=np.int64)
+                        bigger[:write] = pool[:write]
+                        pool = bigger
+                    pool[write] = entry
+                    write += 1
+                pool[start] = write - start - 1
+                counters[1] = write
+                if 2 * (counters[0] + 1) > table_keys.size:
+                    table_keys, table_vals = _table_grow(table_keys, table_vals)
+                _table_put(table_keys, table_vals, pivot, start)
+                counters[0] += 1
+            words[order[pivot >> CODE_BITS]] |= np.uint32(1) << np.uint32(
+                square_bit[pivot & _CODE_MASK])
+            # equal ranks are a zero-persistence pair; only others need the (random) read
+            if (pivot >> CODE_BITS) != r and level[pivot >> CODE_BITS] > level[r]:
+                n = counters[2]
+                if n == births.size:
+                    bigger_b = np.empty(births.size * 2, dtype=np.int64)
+                    bigger_d = np.empty(births.size * 2, dtype=np.int64)
+                    bigger_b[:n] = births[:n]
+                    bigger_d[:n] = deaths[:n]
+                    births, deaths = bigger_b, bigger_d
+                births[n] = v
+                deaths[n] = order[pivot >> CODE_BITS]
+                counters[2] = n + 1
+    return table_keys, table_vals, pool, births, deaths
+
+
+# --------------------------------------------------------------------------- public
+
+
+def _check(values, construction):
+    if construction not in CONSTRUCTIONS:
+        raise InputError(f"The construction must be one of {list(CONSTRUCTIONS)}, "
+                         f"got {construction!r}.")
+    values = np.asarray(values)
+    if values.ndim != 3:
+        raise InputError(f"Dimension 1 by reduction needs a 3D volume (z, y, x), got an array "
+                         f"of shape {values.shape}; give 2D images to the union-find.")
+    if values.size == 0:
+        raise InputError(f"Cannot compute persistence of an empty volume of shape "
+                         f"{values.shape}; give at least one voxel.")
+    if values.dtype == bool:
+        values = values.astype(np.uint8)
+    if not (np.issubdtype(values.dtype, np.integer) or np.issubdtype(values.dtype, np.floating)):
+        raise InputError(f"Cannot compute persistence of {values.dtype} values; give gray "
+                         f"values as integers or floats.")
+    if np.issubdtype(values.dtype, np.floating) and not np.isfinite(values).all():
+        bad = int(np.count_nonzero(~np.isfinite(values)))
+        raise InputError(f"The volume has {bad} NaN or infinite voxels; fill or mask them "
+                         f"before computing persistence.")
+    if values.dtype == np.float16:
+        values = values.astype(np.float32)
+    return np.ascontiguousarray(values)
+
+
+def pairs_dim1(values, construction, progress=None, *, order=None):
+    """Finite dimension-1 persistence pairs of the sublevel filtration of a 3D volume.
+
+    Parameters
+    ----------
+    values : ndarray, shape (z, y, x)
+        Gray values (integers or floats, finite). One-voxel-thin axes are fine.
+    construction : {"voxel", "vertex"}
+        "voxel": voxels are the cubes of the complex and lower cells take the smallest
+        value around them (26-neighbourhood); "vertex": voxels are the vertices and a
+        cell takes the largest value of its vertices (6-neighbourhood).
+    progress : callable(phase, fraction), optional
+        Called with ``"dimension 1"`` and the fraction done at coarse checkpoints; raise
+        ``voxtopo.Cancelled`` inside it to stop.
+    order : ndarray, optional
+        C-order flat voxel indices sorted by ``(value, flat index)``, when the caller has
+        already sorted the voxels; skips the sort.
+
+    Returns
+    -------
+    birth, death : ndarray of float64
+        Values of the pairs with ``death > birth``, read from ``values``.
+    birth_index, death_index : ndarray of int64
+        C-order flat indices of the voxels the birth and death values come from.
+
+    Notes
+    -----
+    A cohomology reduction with clearing and apparent/emergent pairs over an implicit
+    cubical complex; see the module docstring for the cells, the tie rule and the method.
+    Superlevel filtrations are the sublevel filtration of the negated values (the caller
+    transforms). Without periodic boundaries there are no essential loops.
+
+    References
+    ----------
+    de Silva, Morozov & Vejdemo-Johansson 2011, "Dualities in persistent (co)homology".
+    Chen & Kerber 2011, "Persistent homology computation with a twist".
+    Bauer 2021, "Ripser: efficient computation of Vietoris-Rips persistence barcodes",
+    J. Appl. Comput. Topol.
+
+    Examples
+    --------
+    A ring of low voxels around a high centre in one slice: one loop, born when the ring
+    is closed (value 0) and filled when the centre enters (value 5).
+
+    >>> import numpy as np
+    >>> ring = np.full((1, 3, 3), 0.0); ring[0, 1, 1] = 5.0
+    >>> birth, death, birth_index, death_index = pairs_dim1(ring, "vertex")
+    >>> birth.tolist(), death.tolist(), death_index.tolist()
+    ([0.0], [5.0], [4])
+    """
+    birth, death, birth_index, death_index, _ = reduce_dim1(values, construction, progress,
+                                                            order=order)
+    return birth, death, birth_index, death_index
+
+
+def reduce_dim1(values, construction, progress=None, *, order=None):
+    """:func:`pairs_dim1` plus a dict of counts (columns reduced, columns paired at once,
+    pairs of positive persistence, reduction-matrix entries kept), which
+    the benchmark prints."""
+    values = _check(values, construction)
+    vertex = construction == "vertex"
+    n0, n1, n2 = values.shape
+    voxels = values.size
+    if progress is not None:
+        progress(PHASE, 0.0)
+    if order is None:
+        order = voxel_order(values)
+    index_type = _index_type(voxels)
+    order = np.asarray(order).astype(index_type, copy=False)
+    rank = np.empty(voxels, dtype=index_type)
+    _ranks(order, rank)
+    flat = values.reshape(-1)
+    # level[r]: how many distinct values come before rank r, so that the kernel tells
+    # zero-persistence pairs apart without being compiled once per value type
+    ascending = flat[order]
+    level = np.zeros(voxels, dtype=index_type)
+    np.cumsum(ascending[1:] != ascending[:-1], out=level[1:])
+    del ascending
+    edge_codes = _EDGE_CODES_VERTEX if vertex else _EDGE_CODES_VOXEL
+    edge_bit = _EDGE_BIT_VERTEX if vertex else _EDGE_BIT_VOXEL
+    square_bit = _SQUARE_BIT_VERTEX if vertex else _SQUARE_BIT_VOXEL
+    if progress is not None:
+        progress(PHASE, 0.1)
+
+    words = np.empty(voxels, dtype=np.uint32)
+    _own_edges(rank, n0, n1, n2, vertex, _LATER_VERTEX if vertex else _LATER_VOXEL, words)
+    if progress is not None:
+        progress(PHASE, 0.15)
+    corners = voxels if vertex else (n0 + 1) * (n1 + 1) * (n2 + 1)
+    parent = np.empty(corners, dtype=_index_type(corners))
+    _death_edges(order, n0, n1, n2, vertex, edge_codes, words, parent)
+    del parent
+    if progress is not None:
+        progress(PHASE, 0.25)
+
+    table_keys = np.full(1024, -1, dtype=np.int64)
+    table_vals = np.empty(1024, dtype=np.int64)
+    pool = np.empty(1024, dtype=np.int64)
+    counters = np.zeros(7, dtype=np.int64)
+    births = np.empty(1024, dtype=np.int64)
+    deaths = np.empty(1024, dtype=np.int64)
+    steps = np.linspace(voxels, 0, _PROGRESS_STEPS + 1).astype(np.int64)
+    for step in range(_PROGRESS_STEPS):
+        high, low = steps[step] - 1, steps[step + 1]
+        if high >= low:
+            table_keys, table_vals, pool, births, deaths = _reduce_ranks(
+                high, low, level, order, rank, words, n0, n1, n2, vertex, edge_codes,
+                edge_bit, square_bit,
+                table_keys, table_vals, pool, counters, births, deaths)
+        if progress is not None:
+            progress(PHASE, 0.25 + 0.75 * (step + 1) / _PROGRESS_STEPS)
+    if counters[5]:
+        raise RuntimeError(f"{counters[5]} dimension-1 columns did not pair in a box, which "
+                           f"cannot happen; this is a bug in voxtopo's reduction.")
+    counts = {"reduced": int(counters[3]), "paired_at_once": int(counters[4]),
+              "pairs": int(counters[2]), "kept_entries": int(counters[1]),
+              "heap_pushes": int(counters[6])}
+    birth_index = births[:counters[2]].copy()
+    death_index = deaths[:counters[2]].copy()
+    birth = flat[birth_index].astype(np.float64)
+    death = flat[death_index].astype(np.float64)
+    keep = death > birth
+    return birth[keep], death[keep], birth_index[keep], death_index[keep], counts
+
+
+# --------------------------------------------------------------------------- twin
+
+
+def _explicit_cells(values, construction):
+    """Every cell of the complex with its representative voxel, dimension and code."""
+    vertex = construction == "vertex"
+    shape = values.shape
+    order = np.argsort(values.reshape(-1), kind="stable")
+    rank = np.empty(values.size, dtype=np.int64)
+    rank[order] = np.arange(values.size)
+    extent = [2 * n - 1 if vertex else 2 * n + 1 for n in shape]
+    cells = {}
+    for c in itertools.product(*(range(e) for e in extent)):
+        if vertex:
+            spans = [sorted({x // 2, (x + 1) // 2}) for x in c]
+        else:
+            spans = [sorted({max((x - 1) // 2, 0), min(x // 2, n - 1)})
+                     for x, n in zip(c, shape)]
+        around = [int(np.ravel_multi_index(i, shape)) for i in itertools.product(*spans)]
+        pick = max if vertex else min
+        voxel = pick(around, key=lambda w: rank[w])
+        centre = [2 * i + (0 if vertex else 1) for i in np.unravel_index(voxel, shape)]
+        code = sum(w * (x - m + 1) for w, x, m in zip((9, 3, 1), c, centre))
+        dim = sum(x % 2 for x in c)
+        cells[c] = (int(rank[voxel]), dim, code, voxel)
+    return cells
+
+
+def pairs_dim1_explicit(values, construction):
+    """Plain column reduction of an explicit boundary matrix; a readable twin of
+    :func:`pairs_dim1` for tiny volumes (used in tests).
+
+    The filtration order is the documented one (rank of the representative voxel, then
+    dimension, then offset code), so the pairs, locations included, equal the kernel's.
+    Returns the same four arrays as :func:`pairs_dim1`.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> ring = np.full((1, 3, 3), 0.0); ring[0, 1, 1] = 5.0
+    >>> pairs_dim1_explicit(ring, "vertex")[1].tolist()
+    [5.0]
+    """
+    values = _check(values, construction)
+    cells = _explicit_cells(values, construction)
+    ordered = sorted(cells, key=lambda c: cells[c][:3])
+    position = {c: j for j, c in enumerate(ordered)}
+    columns = []
+    for c in ordered:
+        faces = set()
+        for axis in range(3):
+            if c[axis] % 2 == 1:
+                for step in (-1, 1):
+                    face = list(c)
+                    face[axis] += step
+                    faces.add(position[tuple(face)])
+        columns.append(faces)
+    owner_of_low = {}
+    flat = values.reshape(-1)
+    births, deaths = [], []
+    for j, column in enumerate(columns):
+        while column and max(column) in owner_of_low:
+            column ^= columns[owner_of_low[max(column)]]
+        if column:
+            low = max(column)
+            owner_of_low[low] = j
+            if cells[ordered[j]][1] == 2:
+                birth_voxel, death_voxel = cells[ordered[low]][3], cells[ordered[j]][3]
+                if flat[death_voxel] > flat[birth_voxel]:
+                    births.append(birth_voxel)
+                    deaths.append(death_voxel)
+    birth_index = np.array(births, dtype=np.int64)
+    death_index = np.array(deaths, dtype=np.int64)
+    return (flat[birth_index].astype(np.float64), flat[death_index].astype(np.float64),
+            birth_index, death_index)
