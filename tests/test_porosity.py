@@ -125,13 +125,12 @@ def test_face_centred_cubic_octahedral_and_tetrahedral_sites(face_centred):
     assert np.allclose(inner["throat_radius"], (2 / np.sqrt(3) - 1) * radius, atol=ONE_VOXEL)
 
 
-def test_anisotropic_spacing_gives_the_same_physical_answer():
+def test_anisotropic_spacing_gives_the_same_physical_answer(simple_cubic):
     # The same simple cubic packing (Callister & Rethwisch, interstitial sites) seen with
     # every other z slice: spacing (2, 1, 1). Radii agree within one coarse voxel (2),
     # porosity within the z sampling of one slice in twenty (common practice, no source).
-    iso, radius = packing("simple cubic", 20, 2)
+    iso, radius, fine = simple_cubic
     coarse = analyse(iso[::2], spacing=(2.0, 1.0, 1.0), unit="um", engine=ENGINE)
-    fine = analyse(iso, spacing=(1.0, 1.0, 1.0), unit="um", engine=ENGINE)
     assert coarse.summary["porosity"] == pytest.approx(fine.summary["porosity"], abs=0.02)
     a, b = (r.pores[~r.pores["border"]] for r in (coarse, fine))
     assert np.allclose(a["body_radius"].median(), b["body_radius"].median(), atol=2.0)
@@ -144,7 +143,7 @@ def test_anisotropic_spacing_gives_the_same_physical_answer():
     # Lorensen & Cline 1987, on a twice coarser z axis)
     assert coarse.summary["minkowski"]["surface_area_density"] == pytest.approx(
         fine.summary["minkowski"]["surface_area_density"], rel=0.05)
-    assert coarse.summary["unit"] == "um"
+    assert coarse.summary["unit"] == "um" and coarse.summary["spacing"] == [2.0, 1.0, 1.0]
 
 
 def _blobs(shape, seed, level=0.0):
@@ -203,11 +202,16 @@ def rod_lattice(n=36, nodes=(6, 18, 30), half_width=1):
     return ~solid
 
 
-def test_rod_lattice_connectivity_density():
+@pytest.fixture(scope="module")
+def rods():
+    mask = rod_lattice()
+    return mask, analyse(mask, engine=ENGINE)
+
+
+def test_rod_lattice_connectivity_density(rods):
     # Odgaard & Gundersen 1993: Conn.D = (1 - chi) / V. Counted by hand: 27 nodes and
     # 3 axes x 9 lines x 2 rods = 54 rods, one component, so 54 - 27 + 1 = 28 loops.
-    mask = rod_lattice()
-    result = analyse(mask, engine=ENGINE)
+    mask, result = rods
     density = result.summary["connectivity_density"]
     assert density["phase"] == "solid"
     assert result.summary["euler_characteristic"]["solid"] == 1 - 28
@@ -216,12 +220,12 @@ def test_rod_lattice_connectivity_density():
     assert spaced.summary["connectivity_density"]["value"] == pytest.approx(28 / 18 ** 3)
 
 
-def test_rod_lattice_loops_are_in_the_loop_table():
+def test_rod_lattice_loops_are_in_the_loop_table(rods):
     # Same hand count (Odgaard & Gundersen 1993): 28 independent loops of the solid, which
     # the pore phase sees as 28 tunnels; they exist in the segmented mask (crossing pairs).
-    result = analyse(rod_lattice(), engine=ENGINE)
+    mask, result = rods
     crossing = result.loops[result.loops["kind"] == "crossing"]
-    assert len(crossing) == 28
+    assert len(crossing) == 28 == result.summary["counts"]["loops"]
     # each wraps a rod of half-width 1.5 voxels (a 3-voxel square), to within one voxel
     assert np.allclose(crossing["strut_radius"], 1.5, atol=ONE_VOXEL)
 
@@ -471,3 +475,18 @@ def test_cli_refuses_a_gray_scan_without_threshold(tmp_path, capsys):
     assert "not a binary mask" in err and "Traceback" not in err and len(err.splitlines()) == 1
     assert not (tmp_path / "res").exists()
     assert sorted(p.name for p in tmp_path.iterdir()) == ["gray.npy"]
+
+
+def test_progress_is_reported_and_cancel_stops_the_work():
+    from voxtopo.errors import Cancelled
+    mask = _blobs((12, 12, 12), seed=2)
+    phases = []
+    analyse(mask, engine=ENGINE, progress=lambda phase, fraction: phases.append(phase))
+    assert {"distance transform", "percolation", "integral geometry"} <= set(phases)
+
+    def stop(phase, fraction):
+        if phase == "percolation":
+            raise Cancelled("stopped by the user")
+
+    with pytest.raises(Cancelled):
+        analyse(mask, engine=ENGINE, progress=stop)

@@ -27,9 +27,11 @@ COMPLEMENT = {26: 6, 6: 26, 8: 4, 4: 8}
 #: 6 to 15 voxels) while moving the surface far less than a voxel.
 SURFACE_SMOOTHING_VOXELS = 0.7
 
-#: bytes per voxel, besides persistence, of the distance transform (two EDTs with their
-#: feature transforms, the signed field), the sweep (order, parents, sizes) and labels
-_BYTES_PER_VOXEL = 8 + 12 + 8 + 1 + 8 * 4 + 4
+#: bytes per voxel, besides persistence: the distance transform (two EDTs with their
+#: feature transforms, the signed field), the sweeps (order, parents, sizes, claims) and
+#: labels. Peak resident memory of a 256^3 bead packing was 2.3 GB (123 bytes per voxel,
+#: interpreter and libraries included; benchmarks/bench_pores.py), hence the margin.
+_BYTES_PER_VOXEL = 128
 
 
 def cautions(spacing, unit) -> list[str]:
@@ -88,19 +90,20 @@ def pore_mask(scan: Scan, *, threshold=None, pores_bright=False, label=None):
     ``segmentation`` says how the pores were chosen, for the summary.
     """
     data = scan.data
-    where = scan.source or "the scan"
+    where = _name(scan)
     if threshold is not None and label is not None:
         raise InputError(f"Give either a threshold or a pore label for {where}, not both "
                          f"(got threshold={threshold!r}, label={label!r}).")
     if label is not None:
         if not np.issubdtype(data.dtype, np.integer) and data.dtype != bool:
-            raise InputError(f"A pore label picks voxels of a label image, but {where} holds "
-                             f"{data.dtype} values; give an integer label image or a threshold.")
+            raise InputError(f"A pore label picks voxels of a label image, but the input "
+                             f"{where} holds {data.dtype} values; give an integer label image "
+                             f"or a threshold.")
         mask = data == label
         if not mask.any():
             present = np.unique(data)[:8].tolist()
-            raise InputError(f"No voxel of {where} has the pore label {label}; labels present "
-                             f"include {present}.")
+            raise InputError(f"No voxel of the input {where} has the pore label {label}; "
+                             f"labels present include {present}.")
         return mask, {"method": "label", "label": int(label), "threshold": None}
     if threshold is not None:
         if isinstance(threshold, str) and threshold != "otsu":
@@ -118,20 +121,27 @@ def pore_mask(scan: Scan, *, threshold=None, pores_bright=False, label=None):
     if not binary.all():
         examples = np.unique(data[~binary])[:3].tolist()
         raise InputError(
-            f"{where} is not a binary mask (it holds values such as {examples}); give a "
+            f"The input {where} is not a binary mask (it holds values such as {examples}); "
+            f"give a "
             f"threshold (a value or 'otsu', CLI --threshold) or the pore label of a label "
             f"image (CLI --label).")
     return data == foreground, {"method": "mask", "threshold": None}
 
 
+def _name(scan: Scan) -> str:
+    """The scan's file for messages, or 'array' for data handed over in memory."""
+    return scan.source or "array"
+
+
 def _check_phases(mask: np.ndarray, where: str) -> None:
     if not mask.any():
-        raise InputError(f"{where} has no pore voxels, so there is no pore space to measure; "
-                         f"check the threshold or label, or whether pores are bright.")
-    if mask.all():
-        raise InputError(f"{where} is pore in every voxel, so there is no solid to bound "
-                         f"the pores; check the threshold or label, or whether pores are "
+        raise InputError(f"The input {where} has no pore voxels, so there is no pore space "
+                         f"to measure; check the threshold or label, or whether pores are "
                          f"bright.")
+    if mask.all():
+        raise InputError(f"The input {where} is pore in every voxel, so there is no solid to "
+                         f"bound the pores; check the threshold or label, or whether pores "
+                         f"are bright.")
 
 
 def _axes(axis, ndim: int) -> list[int]:
@@ -171,7 +181,7 @@ def _flat(pairs: pd.DataFrame, which: str, shape) -> np.ndarray:
 
 
 def _basin_features(depth: np.ndarray, phase: np.ndarray, neighbourhood: int, births,
-                    deaths, birth_voxel, spacing):
+                    deaths, birth_voxel, spacing, order):
     """Body radius, constriction radius, border flag and own volume of dimension-0 features.
 
     ``depth`` is the signed distance oriented so that the phase is negative; ``births`` and
@@ -182,7 +192,6 @@ def _basin_features(depth: np.ndarray, phase: np.ndarray, neighbourhood: int, bi
     shape = phase.shape
     level = np.minimum(deaths, 0.0)
     order_q = np.argsort(level, kind="stable")
-    order = _sweep.sweep_order(depth, phase)
     size, own, touches = _sweep.basins(order, depth, shape, neighbourhood,
                                        birth_voxel[order_q], level[order_q])
     back = np.empty_like(order_q)
@@ -206,8 +215,11 @@ def _basin_features(depth: np.ndarray, phase: np.ndarray, neighbourhood: int, bi
 
 
 def _phase_table(pairs: pd.DataFrame, depth: np.ndarray, phase: np.ndarray, neighbourhood,
-                 spacing, flip: bool, min_lifetime: float, names: tuple[str, str]):
-    """Table of the dimension-0 features of one phase (pores, or grains with ``flip``)."""
+                 spacing, flip: bool, min_lifetime: float, names: tuple[str, str],
+                 order=None):
+    """Table of the dimension-0 features of one phase (pores, or grains with ``flip``).
+
+    ``order``: the phase's voxels by increasing ``depth`` (computed when not given)."""
     ndim = phase.ndim
     axes = AXES_3D[3 - ndim:]
     body, neck = names
@@ -221,7 +233,10 @@ def _phase_table(pairs: pd.DataFrame, depth: np.ndarray, phase: np.ndarray, neig
     pairs, births, deaths = pairs[keep], births[keep], deaths[keep]
     birth_voxel = _flat(pairs, "birth", phase.shape)
     death_voxel = _flat(pairs, "death", phase.shape)
-    feats = _basin_features(depth, phase, neighbourhood, births, deaths, birth_voxel, spacing)
+    if order is None:
+        order = _sweep.sweep_order(depth, phase)
+    feats = _basin_features(depth, phase, neighbourhood, births, deaths, birth_voxel, spacing,
+                            order)
     joined = deaths < 0
     neck_radius = np.where(joined, -deaths, np.nan)
     neck_at = _coordinates(np.where(joined, death_voxel, -1), phase.shape, spacing)
@@ -323,17 +338,21 @@ def percolation(distance: np.ndarray, mask: np.ndarray, axis: int, neighbourhood
                                                           spacing)[0]
 
 
-def connected_fraction(mask: np.ndarray, axis: int, neighbourhood: int) -> float:
-    """Fraction of the scan's volume in pore components touching both faces of ``axis``."""
+def pore_components(mask: np.ndarray, neighbourhood: int) -> np.ndarray:
+    """Labels of the connected pieces of the pore phase (scipy.ndimage.label)."""
     full = neighbourhood in (26, 8)
     structure = ndimage.generate_binary_structure(mask.ndim, mask.ndim if full else 1)
-    labels, _ = ndimage.label(mask, structure=structure)
+    return ndimage.label(mask, structure=structure)[0]
+
+
+def connected_fraction(labels: np.ndarray, axis: int) -> float:
+    """Fraction of the scan's volume in pore components touching both faces of ``axis``."""
     inlet = np.unique(np.take(labels, 0, axis=axis))
     outlet = np.unique(np.take(labels, -1, axis=axis))
     through = np.intersect1d(inlet[inlet > 0], outlet[outlet > 0])
     if len(through) == 0:
         return 0.0
-    return float(np.isin(labels, through).sum() / mask.size)
+    return float(np.isin(labels, through).sum() / labels.size)
 
 
 def minkowski(mask: np.ndarray, spacing, chi_pore: int) -> dict:
@@ -471,7 +490,7 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
     timings = {}
     clock = time.perf_counter()
     scan = as_scan(mask_or_scan, spacing=spacing, unit=unit)
-    where = scan.source if scan.source and scan.source != "array" else "The scan"
+    where = _name(scan)
     n_pore, _ = construction_of(scan.ndim, neighbourhood)
     n_solid = COMPLEMENT[n_pore]
     axes = _axes(axis, scan.ndim)
@@ -506,8 +525,9 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
 
     step("pores and grains", 0.0)
     clock = time.perf_counter()
+    pore_order = _sweep.sweep_order(field, mask)
     pores = _phase_table(diagram.dimension(0).pairs, field, mask, n_pore, spacing, False,
-                         min_lifetime, ("body", "throat"))
+                         min_lifetime, ("body", "throat"), pore_order)
     grains = _phase_table(solid_diagram.dimension(0).pairs, -field, ~mask, n_solid, spacing,
                           True, min_lifetime, ("body", "neck"))
     loops = _loop_table(diagram, spacing, min_lifetime)
@@ -518,12 +538,13 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
     clock = time.perf_counter()
     names = AXES_3D[3 - scan.ndim:]
     radius, critical, connected = {}, {}, {}
-    order = _sweep.sweep_order(field, mask)
+    labels = pore_components(mask, n_pore)
     for k, a in enumerate(axes):
         radius[names[a]], critical[names[a]] = percolation(field, mask, a, n_pore, spacing,
-                                                           order)
-        connected[names[a]] = connected_fraction(mask, a, n_pore)
+                                                           pore_order)
+        connected[names[a]] = connected_fraction(labels, a)
         step("percolation", (k + 1) / len(axes))
+    del labels, pore_order
     timings["percolation"] = time.perf_counter() - clock
 
     step("integral geometry", 0.0)

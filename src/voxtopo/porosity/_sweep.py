@@ -192,14 +192,14 @@ def percolation_step_python(order, shape, axis, offsets):
 def basins_python(order, values, shape, offsets, query_voxel, query_level, on_border):
     """Twin of the basin kernel: for each query (sorted by level), the size of the
     component of ``{f < level}`` holding the voxel, its unclaimed part and its border flag."""
-    entered = set()
     sizes, owns, borders = [], [], []
     claimed_voxels = set()
-    flat_values = values
     for voxel, level in zip(query_voxel, query_level):
-        entered = {int(v) for v in order if flat_values[v] < level}
+        entered = {int(v) for v in order if values[v] < level}
         if int(voxel) not in entered:
-            sizes.append(0), owns.append(0), borders.append(False)
+            sizes.append(0)
+            owns.append(0)
+            borders.append(False)
             continue
         component, stack = {int(voxel)}, [int(voxel)]
         while stack:
