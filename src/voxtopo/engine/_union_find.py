@@ -6,6 +6,12 @@ it was born at the very value it dies at, leaves a persistence pair. The same sw
 the other way over the other construction's neighbourhood with the outside of the image
 as one extra node, gives dimension d-1 (loops in 2D, cavities in 3D).
 
+A sweep runs in two passes. :func:`link_regular_voxels` streams over the image in memory
+order and links every voxel whose earlier neighbours are already connected to each other
+inside its 3x3x3 cube (it cannot merge anything); :func:`sweep` then visits only the
+other voxels, sorted, and does the merging. The result is that of visiting every voxel in
+order, which :func:`sweep_reference` does in plain Python for the tests.
+
 Order of the sweep and tie rule
 -------------------------------
 Voxels are ranked by ``(value, C-order flat index)``. An *ascending* sweep visits ranks
@@ -121,7 +127,10 @@ def _cube_masks():
     the positions at x = -1, x = +1, y = -1, y = +1, the 26 neighbours, the 6 faces."""
     bits = np.arange(27)
     x, y = bits % 3, (bits // 3) % 3
-    as_mask = lambda chosen: int(np.sum(1 << bits[chosen]))  # noqa: E731
+
+    def as_mask(chosen):
+        return int(np.sum(1 << bits[chosen]))
+
     return (as_mask(x == 0), as_mask(x == 2), as_mask(y == 0), as_mask(y == 2),
             as_mask(bits >= 0) & ~(1 << 13),
             sum(1 << (13 + step) for step in (-9, -3, -1, 1, 3, 9)))
@@ -186,7 +195,8 @@ def link_regular_voxels(values, row_start, row_stop, ascending, shape, cube_offs
     joined_bits = _CUBE if corners else _FACES
     # In the image's interior the tie rule is fixed by the offset's sign: a neighbour at
     # a lower flat index wins a tie in an ascending sweep, loses it in a descending one.
-    # Splitting the offsets that way makes the test a single branch-free comparison.
+    # Splitting the offsets that way makes the test a single branch-free comparison;
+    # neighbour_offsets lists them by increasing flat offset, the first half negative.
     lower_half = k_offsets // 2
     marked = 0
     for row in range(row_start, row_stop):

@@ -1,8 +1,10 @@
 """voxtopo's own exact persistence engine (Z/2 coefficients, no periodic boundaries).
 
-The engine sorts the voxels once and runs two union-find sweeps over them
+The engine runs two union-find sweeps with the elder rule over the voxels
 (:mod:`voxtopo.engine._union_find`): one gives dimension 0, the other, by the duality of
-image constructions, dimension d-1 (loops of a 2D image, cavities of a 3D volume). A 3D
+image constructions, dimension d-1 (loops of a 2D image, cavities of a 3D volume). Each
+sweep first links, in one pass in memory order, every voxel that cannot merge two
+components, then sorts only the remaining voxels and visits them in value order. A 3D
 volume's dimension 1 comes from the reduction over the implicit cubical complex in
 :mod:`voxtopo.engine._reduction`. The diagram equals gudhi's pair for pair in value; where
 several voxels share a value, the reported locations follow the tie rule documented in
@@ -26,15 +28,20 @@ __all__ = ["compute", "bytes_needed", "BYTES_PER_VOXEL"]
 #: Sweep steps between two progress reports (and cancellation checks).
 _STEPS_PER_REPORT = 1 << 21
 
-#: Pairs a sweep may leave per voxel, for sizing the first output buffer: the number of
-#: local minima of 26-connected white noise is about one voxel in 27, smooth scans have
-#: far fewer; buffers double when needed.
+#: Pairs per voxel left for the sweep proper, for sizing its first output buffers (they
+#: double when needed).
 _FIRST_BUFFER_FRACTION = 1 / 16
 
-#: Bytes per pair held in the result (RawPairs: int8 dim, two float64 values, two int64
-#: locations) and the planning density of pairs per voxel for the memory estimate.
-_RESULT_BYTES_PER_PAIR = 33
-_PLANNED_PAIRS_PER_VOXEL = 0.1
+#: Memory planning, from peaks measured on the benchmark cases (benchmarks/bench_engine.py):
+#: the share of voxels left for the sweep proper (0.6 % to 7 % measured), the pairs per
+#: voxel (0.3 % on smooth noise, 3 % on noisy beads; white noise has more), the bytes a
+#: pair holds until the result is built (RawPairs: int8 dim, two float64 values, two int64
+#: locations, and the concatenation copies), and the dimension-1 reduction's need per voxel
+#: when it does not say (33 bytes measured on 128^3 float32 smooth noise).
+_PLANNED_SWEPT_FRACTION = 0.05
+_PLANNED_PAIRS_PER_VOXEL = 0.02
+_BYTES_PER_PAIR = 66
+_REDUCTION_BYTES_PER_VOXEL = 36
 
 
 def compute(values: np.ndarray, *, superlevel: bool, construction: str,
@@ -57,8 +64,9 @@ def compute(values: np.ndarray, *, superlevel: bool, construction: str,
     field : int
         Must be 2: the engine computes with Z/2 coefficients.
     progress : callable(phase: str, fraction: float), optional
-        Called at coarse checkpoints in the phases "sort", "dimension 0",
-        "dimension 1"/"dimension 2" and those of the 3D dimension-1 reduction. Raising
+        Called at coarse checkpoints in the phases "dimension 0" and "dimension 1" (2D)
+        or "dimension 0", "dimension 2" and the reduction's "dimension 1" (3D); the
+        linking pass is the first half of a sweep's fraction. Raising
         :class:`voxtopo.Cancelled` inside it stops the run; nothing is kept.
 
     Returns
@@ -72,8 +80,9 @@ def compute(values: np.ndarray, *, superlevel: bool, construction: str,
     Dimension 0 is a union-find sweep with the elder rule; dimension d-1 is the same
     sweep run the other way in the other construction, with the outside of the image as
     the eldest node (Garin, Heiss, Maggs, Bleile & Robins 2020, "Duality in persistent
-    homology of images"). Voxels are sorted by a counting sort for 8- and 16-bit data,
-    by a stable comparison sort otherwise.
+    homology of images"). The voxels a sweep must visit in order (those whose earlier
+    neighbours are not already connected inside their 3x3x3 cube) are sorted by a
+    counting sort for 8- and 16-bit data, by a stable comparison sort otherwise.
 
     Examples
     --------
@@ -151,31 +160,25 @@ def sorted_order(flat: np.ndarray) -> np.ndarray:
 def bytes_needed(shape, dtype, neighbourhood=None) -> int:
     """Bytes a run on an array of ``shape`` and ``dtype`` needs beyond the array itself.
 
-    The peak is the larger of the sort and the sweeps (a sort order and a union-find
-    forest, one index each per voxel, plus the pair buffers), then the 3D dimension-1
-    reduction; the result arrays are planned for one pair in ten voxels.
+    The sweeps hold one union-find index per voxel, a byte per voxel while the voxels
+    left for the sweep proper are collected, and those voxels' order; a 3D volume's
+    dimension-1 reduction runs after them (with a reversed copy of the values for a
+    superlevel run, planned for here). The pairs are planned at one per fifty voxels.
     ``neighbourhood`` does not change the need and is accepted for the common signature.
 
     Examples
     --------
-    >>> bytes_needed((100, 100), np.uint8) > 100 * 100 * 8
+    >>> 25e6 < bytes_needed((2048, 2048), np.float32) < 40e6
     True
     """
     voxels = int(np.prod(shape, dtype=np.int64))
     dtype = np.dtype(dtype)
     index = _union_find.index_dtype(voxels).itemsize
-    if dtype.kind in "uib" and dtype.itemsize <= 2:
-        sort_peak = voxels * (index + (dtype.itemsize if dtype.kind == "i" else 0))
-    else:
-        # numpy's stable argsort: int64 indices plus a merge buffer of half as many.
-        sort_peak = voxels * (8 + 4 + index)
-    buffers = 2 * index * voxels * _FIRST_BUFFER_FRACTION
-    sweep_peak = voxels * 2 * index + buffers
-    result = _RESULT_BYTES_PER_PAIR * voxels * _PLANNED_PAIRS_PER_VOXEL
-    peak = max(sort_peak, sweep_peak)
+    swept = _PLANNED_SWEPT_FRACTION * voxels * (8 + 2 * index + dtype.itemsize)
+    peak = voxels * (index + 1) + swept
     if len(shape) == 3:
-        peak = max(peak, _reduction_bytes(tuple(shape), dtype))
-    return int(peak + result)
+        peak = max(peak, _reduction_bytes(tuple(shape), dtype) + voxels * dtype.itemsize)
+    return int(peak + _BYTES_PER_PAIR * _PLANNED_PAIRS_PER_VOXEL * voxels)
 
 
 BYTES_PER_VOXEL = bytes_needed
@@ -288,4 +291,6 @@ def _reduction_bytes(shape, dtype) -> int:
     except ImportError:
         return 0
     need = getattr(_reduction, "bytes_needed", None)
-    return int(need(shape, dtype)) if callable(need) else 0
+    if callable(need):
+        return int(need(shape, dtype))
+    return _REDUCTION_BYTES_PER_VOXEL * int(np.prod(shape, dtype=np.int64))
