@@ -623,7 +623,9 @@ def summary_table(out, entries: list[ScanEntry], records: dict | None = None) ->
         if summary_path.is_file():
             row["status"] = "done"
             row["result"] = f"scans/{entry.name}"
-            row.update(_key_numbers(json.loads(summary_path.read_text())))
+            for key, value in _key_numbers(json.loads(summary_path.read_text())).items():
+                # the manifest's own columns are kept as the user wrote them
+                row[f"result_{key}" if key in entry.columns else key] = value
         else:
             row["status"] = "failed"
             row["result"] = ""
