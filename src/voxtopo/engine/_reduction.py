@@ -73,7 +73,7 @@ from numba import njit
 
 from ..errors import InputError
 
-__all__ = ["pairs_dim1", "pairs_dim1_explicit", "CONSTRUCTIONS"]
+__all__ = ["pairs_dim1", "pairs_dim1_explicit", "bytes_needed", "CONSTRUCTIONS"]
 
 CONSTRUCTIONS = ("voxel", "vertex")
 
@@ -838,6 +838,27 @@ def reduce_dim1(values, construction, progress=None, *, order=None):
     death = flat[death_index].astype(np.float64)
     keep = death > birth
     return birth[keep], death[keep], birth_index[keep], death_index[keep], counts
+
+
+def bytes_needed(shape, dtype) -> int:
+    """Peak bytes :func:`pairs_dim1` needs for a volume of ``shape`` and ``dtype``.
+
+    Per voxel: order, rank, level, flags and the clearing's union-find parent (4 bytes
+    each with 32-bit indices, 8 above 2^31 voxels), the sorted copy of the values used
+    for the levels, and the sort's scratch (8 bytes per voxel for the 64-bit words of a
+    float32 sort or the counting sort's output); plus 64 MB for the pivot table and
+    reduced columns, which hold only the columns that needed a reduction (a few percent
+    of the voxels on smooth data).
+
+    Examples
+    --------
+    >>> bytes_needed((512, 512, 512), "uint8") / 1e9 < 6
+    True
+    """
+    voxels = int(np.prod(shape, dtype=np.int64))
+    index = 4 if voxels < 2**31 else 8
+    itemsize = np.dtype(dtype).itemsize
+    return voxels * (5 * index + itemsize + 8) + 64 * 2**20
 
 
 # --------------------------------------------------------------------------- twin
