@@ -38,10 +38,11 @@ def main(size: int = 256, mode: str = "sublevel") -> None:
         widget.mode_choice.setCurrentText("distance transform of a mask (pores)")
     app = QApplication.instance()
     delays, last = [], [time.perf_counter()]
+    computed = []  # when the worker handed its result to the GUI thread
 
     def tick():
         now = time.perf_counter()
-        delays.append(now - last[0] - TICK_MS / 1000)
+        delays.append((now, now - last[0] - TICK_MS / 1000))
         last[0] = now
 
     timer = QTimer()
@@ -49,17 +50,32 @@ def main(size: int = 256, mode: str = "sublevel") -> None:
     timer.start(TICK_MS)
     start = time.perf_counter()
     widget.run()
+    phases = []  # (time, phase) as the worker reported them
+    widget._relay.changed.connect(
+        lambda phase, fraction: phases.append((time.perf_counter(), phase, fraction)))
+    widget.worker.returned.connect(lambda _: computed.append(time.perf_counter()))
     while widget.running:
         app.processEvents()
         time.sleep(0.002)
     seconds = time.perf_counter() - start
     timer.stop()
-    delays = np.array(delays[1:]) * 1000
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     print(f"volume {size}^3 ({mode}): {widget.status.text()}")
-    print(f"run {seconds:.1f} s; GUI timer late by at most {delays.max():.0f} ms, "
-          f"99th percentile {np.percentile(delays, 99):.0f} ms, median "
-          f"{np.median(delays):.0f} ms over {len(delays)} ticks; peak memory {peak:.0f} MB")
+    print(f"run {seconds:.1f} s, peak memory {peak:.0f} MB")
+    end_of_work = computed[0] if computed else time.perf_counter()
+    stamps = np.array([t for t, _ in delays[1:]])
+    late = np.array([d for _, d in delays[1:]]) * 1000
+    worst = int(np.argmax(late))
+    before = [p for p in phases if p[0] <= stamps[worst]]
+    print(f"longest delay ended at {stamps[worst] - start:.1f} s into the run, after the "
+          f"report {before[-1][1:] if before else None} (work handed over at "
+          f"{end_of_work - start:.1f} s)")
+    for label, part in (("while the worker computed", stamps <= end_of_work),
+                        ("while the layers were added", stamps > end_of_work)):
+        if part.any():
+            print(f"GUI timer {label}: late by at most {late[part].max():.0f} ms, "
+                  f"99th percentile {np.percentile(late[part], 99):.0f} ms, median "
+                  f"{np.median(late[part]):.0f} ms over {part.sum()} ticks")
     viewer.close()
 
 

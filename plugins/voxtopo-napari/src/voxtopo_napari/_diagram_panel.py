@@ -78,6 +78,8 @@ class DiagramPanel(QWidget):
         self.slider.setRange(0, SLIDER_STEPS)
         self.slider.setToolTip("Hide features that live less than this (in the diagram and "
                                "in the viewer).")
+        # redraw when the handle is let go: a diagram of many points takes a moment to draw
+        self.slider.setTracking(False)
         self.slider.valueChanged.connect(self._on_slider)
         self.lifetime_box = QDoubleSpinBox()
         self.lifetime_box.setDecimals(4)

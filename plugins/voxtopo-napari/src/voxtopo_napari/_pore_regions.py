@@ -19,7 +19,8 @@ whose level lies above the voxel. :func:`pore_regions_by_levels` computes the sa
 straight from the definition (one connected-component labelling per pore), slow but easy to
 read, and is the kernel's twin in the tests.
 
-This lives in the plugin for now; it belongs with the pore analysis of the library and can
+The kernels release the GIL (``nogil=True``) so that the viewer stays responsive while a
+worker thread floods a large volume. This lives in the plugin for now; it belongs with the pore analysis of the library and can
 move there unchanged.
 """
 
@@ -127,7 +128,7 @@ def pore_regions(distance, birth_voxels, death_levels, neighbourhood: int = 26,
     return labels.reshape(distance.shape)
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _find(parent, v):
     root = v
     while parent[root] != root:
@@ -137,7 +138,7 @@ def _find(parent, v):
     return root
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _elder_first(a, b, values, tag, levels):
     """True when pore ``a`` is older than pore ``b``: born lower; on a tie, the one a
     diagram pore is attached to (the longer-lived diagram pore first), then voxel order."""
@@ -150,7 +151,7 @@ def _elder_first(a, b, values, tag, levels):
     return a < b
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _flood(values, order, shape3, offsets, seed_of_voxel, levels):
     n = values.size
     parent = np.full(n, -1, dtype=np.int64)        # union-find over entered voxels
@@ -207,7 +208,7 @@ def _flood(values, order, shape3, offsets, seed_of_voxel, levels):
     return entry_pore, parent_pore, merge_level, tag
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _nearest_tagged(pore, parent_pore, merge_level, tag, memo_pore, memo_level):
     """The pore itself or the nearest older pore above it in the merge tree that carries a
     diagram pore (-1 when none), and the level at which the path from ``pore`` joined it
@@ -236,7 +237,7 @@ def _nearest_tagged(pore, parent_pore, merge_level, tag, memo_pore, memo_level):
     return found, level
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _assign(values, order, entry_pore, parent_pore, merge_level, tag, levels):
     labels = np.zeros(values.size, dtype=np.int32)
     memo_pore = np.full(values.size, -2, dtype=np.int64)

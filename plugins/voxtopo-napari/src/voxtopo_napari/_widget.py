@@ -242,7 +242,9 @@ class AnalysisWidget(QWidget):
             scan = scan_from_layer_data(
                 layer.data if not getattr(layer, "multiscale", False) else layer.data[0],
                 name=layer.name, spacing=layer.scale, unit=layer_unit(layer),
-                source=str(layer.source.path or ""), rgb=bool(getattr(layer, "rgb", False)),
+                # a mask made from labels is not the file the labels came from
+                source="" if isinstance(layer, Labels) else str(layer.source.path or ""),
+                rgb=bool(getattr(layer, "rgb", False)),
                 is_mask=isinstance(layer, Labels),
                 pores_labelled=PORE_PHASES[self.pore_choice.currentText()])
             options = self.options()
@@ -331,12 +333,16 @@ class AnalysisWidget(QWidget):
 
     # diagram and export -----------------------------------------------------------------
     def _show_diagram(self, name: str) -> None:
-        if self.diagram_panel is None:
-            self.diagram_panel = DiagramPanel(self.viewer)
-            window = getattr(self.viewer, "window", None)
-            if window is not None:
-                window.add_dock_widget(self.diagram_panel, name="voxtopo diagram",
-                                       area="right")
+        try:
+            if self.diagram_panel is not None:
+                self.diagram_panel.show_result(name)
+                return
+        except RuntimeError:  # the user closed the panel and Qt deleted it
+            pass
+        self.diagram_panel = DiagramPanel(self.viewer)
+        window = getattr(self.viewer, "window", None)
+        if window is not None:
+            window.add_dock_widget(self.diagram_panel, name="voxtopo diagram", area="right")
         self.diagram_panel.show_result(name)
 
     def _ask_export(self) -> None:
