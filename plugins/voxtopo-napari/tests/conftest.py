@@ -20,9 +20,10 @@ def display_problem() -> str | None:
     return None
 
 
-@pytest.fixture(autouse=True)
-def _needs_display(request):
-    if request.node.get_closest_marker("viewer") is None:
+def pytest_runtest_setup(item):
+    # a hook, not a fixture: it must run before pytest-qt makes its QApplication, which
+    # aborts the whole process when Qt cannot reach a display
+    if item.get_closest_marker("viewer") is None:
         return
     problem = display_problem()
     if problem is None:
