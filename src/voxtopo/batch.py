@@ -331,10 +331,7 @@ def read_manifest(manifest) -> list[ScanEntry]:
                              f"path (then optionally spacing, unit, group, name).")
         base = path.parent
         rows = frame.to_dict(orient="records")
-    elif path.exists() and not path.is_dir():
-        raise InputError(f"{path} is not a manifest: give a .csv file with a 'path' column "
-                         f"or a quoted glob such as \"scans/*.tif\".")
-    else:
+    else:  # a glob, or the path of one scan (a glob that matches itself)
         matches = sorted(glob.glob(text))
         if not matches:
             raise InputError(f"No manifest file and no scans match {text}; give a .csv "
