@@ -119,3 +119,12 @@ def _four_d_file(folder):
 
 def _digest(path):
     return hashlib.sha256(path.read_bytes()).hexdigest() if path.exists() else None
+
+
+def test_one_spacing_number_applies_to_every_axis(tmp_path):
+    np.save(tmp_path / "v.npy", np.zeros((4, 5, 6), np.uint8))
+    out = tmp_path / "r"
+    assert main(["analyse", str(tmp_path / "v.npy"), "--out", str(out), "--spacing", "3",
+                 "--unit", "um"]) == 0
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["scan"]["spacing"] == [3.0, 3.0, 3.0] and summary["scan"]["unit"] == "um"

@@ -2,7 +2,8 @@
 
 Backends are plain functions ``compute(values, *, superlevel, construction, periodic,
 field, progress) -> RawPairs``. ``"gudhi"`` is the reference; the project's own exact
-engine registers itself as ``"voxtopo"`` and is preferred by ``engine="auto"``.
+engine is ``"voxtopo"`` (engine/own.py) and ``engine="auto"`` prefers it where it applies
+(Z/2 coefficients, no periodic boundaries).
 """
 
 from __future__ import annotations
@@ -15,21 +16,17 @@ from ..diagram import Diagram
 from ..errors import InputError
 from ..memory import ensure_fits
 from ..scan import Scan, as_scan
-from . import _gudhi
+from . import _gudhi, own
 from ._pairs import RawPairs
 
 __all__ = ["persistence", "estimate", "construction_of", "default_neighbourhood",
            "BACKENDS", "RawPairs"]
 
-#: name -> (compute function, bytes per voxel for the memory estimate)
-BACKENDS = {"gudhi": (_gudhi.compute, _gudhi.BYTES_PER_VOXEL)}
-
-try:  # the project's own engine, when its module is present
-    from . import own as _own
-except ImportError:  # pragma: no cover - only while the engine is being built
-    _own = None
-else:
-    BACKENDS["voxtopo"] = (_own.compute, _own.BYTES_PER_VOXEL)
+#: name -> (compute function, bytes per voxel or a callable giving the bytes of a run)
+BACKENDS = {
+    "gudhi": (_gudhi.compute, _gudhi.BYTES_PER_VOXEL),
+    "voxtopo": (own.compute, own.BYTES_PER_VOXEL),
+}
 
 _NEIGHBOURHOODS = {2: {4: "vertex", 8: "voxel"}, 3: {6: "vertex", 26: "voxel"}}
 
@@ -56,11 +53,10 @@ def construction_of(ndim: int, neighbourhood: int | None) -> tuple[int, str]:
 def _choose_engine(engine: str, field: int, periodic: bool) -> tuple[str, list[str]]:
     notes = []
     if engine == "auto":
-        if "voxtopo" in BACKENDS and field == 2 and not periodic:
+        if field == 2 and not periodic:
             return "voxtopo", notes
-        if "voxtopo" in BACKENDS:
-            reason = "periodic boundaries" if periodic else f"coefficients in Z/{field}"
-            notes.append(f"{reason}: computed with the gudhi backend")
+        reason = "periodic boundaries" if periodic else f"coefficients in Z/{field}"
+        notes.append(f"{reason}: computed with the gudhi backend")
         return "gudhi", notes
     if engine not in BACKENDS:
         raise InputError(f"Unknown engine {engine!r}; choose one of "

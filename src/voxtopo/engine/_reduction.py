@@ -220,7 +220,7 @@ def _marked(key, order, words, square_bit):
     return (words[order[key >> CODE_BITS]] >> square_bit[key & _CODE_MASK]) & 1
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _coboundary_at(c0, c1, c2, rank, n0, n1, n2, vertex, out):
     """Write the keys of the squares around the edge at ``c`` into ``out``; return how many."""
     e0, e1, e2 = (2 * n0 - 1, 2 * n1 - 1, 2 * n2 - 1) if vertex else (2 * n0 + 1, 2 * n1 + 1,
@@ -250,14 +250,14 @@ def _coboundary_at(c0, c1, c2, rank, n0, n1, n2, vertex, out):
     return count
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _coboundary(key, order, rank, n0, n1, n2, vertex, out):
     """Write the keys of the squares around edge ``key`` into ``out``; return how many."""
     c0, c1, c2 = _cell_coords(key, order, n1, n2, vertex)
     return _coboundary_at(c0, c1, c2, rank, n0, n1, n2, vertex, out)
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _boundary(key, order, rank, n0, n1, n2, vertex, out):
     """Write the keys of the four edges of square ``key`` into ``out``; return 4."""
     c0, c1, c2 = _cell_coords(key, order, n1, n2, vertex)
@@ -277,7 +277,7 @@ def _boundary(key, order, rank, n0, n1, n2, vertex, out):
     return count
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _counting_order(flat, offset, levels):
     """Stable counting sort of small non-negative integers ``flat - offset``."""
     counts = np.zeros(levels + 1, dtype=np.int64)
@@ -314,7 +314,7 @@ def voxel_order(values: np.ndarray) -> np.ndarray:
     return np.argsort(flat, kind="stable")
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _float32_words(raw_bits):
     """(order-preserving bits of the float32 value) << 32 | flat index, per voxel."""
     words = np.empty(raw_bits.size, dtype=np.uint64)
@@ -332,7 +332,7 @@ def _index_type(count: int):
     return np.int32 if count < 2**31 else np.int64
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _ranks(order, rank):
     for r in range(order.size):
         rank[order[r]] = r
@@ -362,7 +362,7 @@ _LATER_VERTEX = _later_neighbours(_EDGE_CODES_VERTEX, True)
 _LATER_VOXEL = _later_neighbours(_EDGE_CODES_VOXEL, False)
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _own_edges(rank, n0, n1, n2, vertex, later, words):
     """Set bit ``k`` of ``words[v]`` (and clear the rest) when the ``k``-th edge around
     voxel ``v`` exists and takes its value from ``v``; one pass in memory order, so that
@@ -404,7 +404,7 @@ def _own_edges(rank, n0, n1, n2, vertex, later, words):
                 words[(i0 * n1 + i1) * n2 + i2] = bits
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _find(parent, x):
     """Root of ``x``; a root holds minus the size of its set (union by size)."""
     root = x
@@ -417,7 +417,7 @@ def _find(parent, x):
     return root
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _death_edges(order, n0, n1, n2, vertex, edge_codes, words, parent):
     """Clear in ``words`` every edge that joins two components when the edges are added
     in filtration order: these are the columns that clearing skips.
@@ -472,7 +472,7 @@ def _slot(key, mask):
     return h & mask
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _table_find(table_keys, table_vals, key):
     mask = table_keys.size - 1
     s = _slot(key, mask)
@@ -483,7 +483,7 @@ def _table_find(table_keys, table_vals, key):
     return -1
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _table_put(table_keys, table_vals, key, value):
     mask = table_keys.size - 1
     s = _slot(key, mask)
@@ -493,7 +493,7 @@ def _table_put(table_keys, table_vals, key, value):
     table_vals[s] = value
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _table_grow(table_keys, table_vals):
     new_keys = np.full(table_keys.size * 2, -1, dtype=np.int64)
     new_vals = np.empty(table_keys.size * 2, dtype=np.int64)
@@ -506,7 +506,7 @@ def _table_grow(table_keys, table_vals):
 # --------------------------------------------------------------------------- working column
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _heap_push(heap, size, key):
     if size == heap.size:
         bigger = np.empty(heap.size * 2, dtype=np.int64)
@@ -524,7 +524,7 @@ def _heap_push(heap, size, key):
     return heap, size + 1
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _heap_pop(heap, size):
     size -= 1
     last = heap[size]
@@ -544,7 +544,7 @@ def _heap_pop(heap, size):
     return size
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _heap_pivot(heap, size):
     """Smallest entry that survives Z/2 cancellation (-1 if none), left on the heap."""
     while size > 0:
@@ -561,7 +561,7 @@ def _heap_pivot(heap, size):
 # --------------------------------------------------------------------------- reduction
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _unreduced_owner(square, edge, order, rank, words, edge_bit, n0, n1, n2, vertex, faces):
     """Edge visited before ``edge`` (a larger key) whose coboundary, unreduced, has
     ``square`` as pivot, or -1. The first such edge visited (largest key) is the owner."""
@@ -583,7 +583,7 @@ def _unreduced_owner(square, edge, order, rank, words, edge_bit, n0, n1, n2, ver
     return owner
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _reduce_ranks(r_high, r_low, level, order, rank, words, n0, n1, n2, vertex,
                   edge_codes, edge_bit, square_bit, table_keys, table_vals, pool, counters, births, deaths):
     """Visit the edges of the voxels of rank ``r_high`` down to ``r_low`` (inclusive),

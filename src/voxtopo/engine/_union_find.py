@@ -85,7 +85,7 @@ def neighbour_offsets(ndim: int, corners: bool) -> np.ndarray:
     return np.array(offsets, dtype=np.int64)
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def counting_order(keys, levels, order):
     """Fill ``order`` with the flat indices of ``keys`` sorted by key, ties by index.
 
@@ -103,7 +103,7 @@ def counting_order(keys, levels, order):
         counts[k] += 1
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _find(parent, v):
     # Path halving keeps the trees shallow without a second pass or a rank array.
     while parent[v] != v:
@@ -113,7 +113,7 @@ def _find(parent, v):
     return v
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _visited_before(values, a, b, ascending):
     va = values[a]
     vb = values[b]
@@ -140,7 +140,7 @@ _X_LOW, _X_HIGH, _Y_LOW, _Y_HIGH, _CUBE, _FACES = _cube_masks()
 _WHOLE_CUBE = (1 << 27) - 1
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _grow(mask, corners):
     """Dilate a set of cube positions by one step of the 26 (or 6) neighbourhood."""
     if corners:
@@ -155,7 +155,7 @@ def _grow(mask, corners):
             | (mask << 9) | (mask >> 9)) & _CUBE
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def link_regular_voxels(values, row_start, row_stop, ascending, shape, cube_offsets,
                         corners, with_outside, parent):
     """Pre-link the voxels that cannot merge anything; mark the others.
@@ -259,7 +259,7 @@ def link_regular_voxels(values, row_start, row_stop, ascending, shape, cube_offs
     return marked
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def sweep(values, order, start, stop, ascending, shape, offsets, with_outside,
           parent, pair_root, pair_voxel, n_pairs):
     """Visit sweep steps ``start .. stop-1`` and record the pairs that die on the way.

@@ -246,8 +246,9 @@ def _caller_wins(found, found_unit, spacing, unit, kept, source):
 
 def _spacing_option(spacing, ndim: int, source: str) -> tuple[float, ...]:
     try:
-        values = (float(spacing),) * ndim if np.ndim(spacing) == 0 else \
-            tuple(float(s) for s in spacing)
+        values = tuple(float(s) for s in np.atleast_1d(spacing))
+        if len(values) == 1:  # one number: the same size along every axis
+            values = values * ndim
     except (TypeError, ValueError):
         raise InputError(f"spacing={spacing!r} is not a number or a list of numbers.") from None
     if len(values) != ndim:

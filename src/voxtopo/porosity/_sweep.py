@@ -50,7 +50,7 @@ def as_3d_shape(shape) -> tuple[int, int, int]:
 
 
 # ---------------------------------------------------------------------------- numba kernels
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _find(parent, i):
     root = i
     while parent[root] != root:
@@ -62,7 +62,7 @@ def _find(parent, i):
     return root
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _percolation_kernel(order, shape, axis, offsets):
     nz, ny, nx = shape[0], shape[1], shape[2]
     n = nz * ny * nx
@@ -101,7 +101,7 @@ def _percolation_kernel(order, shape, axis, offsets):
     return -1
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _basin_kernel(order, values, shape, offsets, query_voxel, query_level, on_border):
     nz, ny, nx = shape[0], shape[1], shape[2]
     n = nz * ny * nx
