@@ -181,7 +181,10 @@ def read_settings(path=None) -> tuple[Settings, str, str]:
     suffix = path.suffix.lower()
     try:
         if suffix == ".toml":
-            import tomllib
+            try:
+                import tomllib
+            except ModuleNotFoundError:  # Python 3.10: the same parser, packaged as tomli
+                import tomli as tomllib
 
             raw = tomllib.loads(text)
             kind = "toml"

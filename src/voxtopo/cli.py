@@ -148,12 +148,7 @@ def _run_analyse(args) -> int:
     from .io import load
     from .io.results import check_target
     from .pipeline import AnalysisOptions, analyse
-    threshold = args.threshold
-    if threshold is not None and threshold != "otsu":
-        try:
-            threshold = float(threshold)
-        except ValueError:
-            raise VoxtopoError(f"--threshold should be a number or 'otsu', got {threshold!r}.")
+    threshold = _threshold_value(args.threshold)
     options = AnalysisOptions(
         superlevel=args.superlevel, neighbourhood=args.neighbourhood, sigma=args.smooth,
         crop=args.crop, downsample=args.downsample, distance=args.distance,
@@ -175,6 +170,16 @@ def _run_analyse(args) -> int:
           f"with the {diagram.engine} engine")
     print(f"voxtopo: results written to {args.out}")
     return 0
+
+
+def _threshold_value(text):
+    """--threshold: None, "otsu" or a number."""
+    if text is None or text == "otsu":
+        return text
+    try:
+        return float(text)
+    except ValueError:
+        raise VoxtopoError(f"--threshold should be a number or 'otsu', got {text!r}.") from None
 
 
 def _fill_value(text):
@@ -229,12 +234,7 @@ def _run_pores(args) -> int:
     from .io import load
     from .io.results import check_target
     from .porosity import analyse, write_pores
-    threshold = args.threshold
-    if threshold is not None and threshold != "otsu":
-        try:
-            threshold = float(threshold)
-        except ValueError:
-            raise VoxtopoError(f"--threshold should be a number or 'otsu', got {threshold!r}.")
+    threshold = _threshold_value(args.threshold)
     if args.mask and (threshold is not None or args.label is not None):
         raise VoxtopoError("--mask already says which voxels are pores; leave out "
                            "--threshold and --label.")
