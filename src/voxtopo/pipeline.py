@@ -15,6 +15,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 
 from . import __version__
 from . import filtration as filt
@@ -143,12 +144,12 @@ def analyse(source, out, options: AnalysisOptions | None = None, *, force: bool 
 
 
 def _records(frame) -> list[dict]:
+    """Rows as JSON values: missing and infinite numbers become null."""
     out = []
     for row in frame.to_dict(orient="records"):
         clean = {}
         for key, value in row.items():
-            if value is None or (not isinstance(value, str) and value is not None
-                                 and _is_missing(value)):
+            if pd.isna(value):
                 clean[key] = None
             elif isinstance(value, (np.integer, int)):
                 clean[key] = int(value)
@@ -158,14 +159,6 @@ def _records(frame) -> list[dict]:
                 clean[key] = value
         out.append(clean)
     return out
-
-
-def _is_missing(value) -> bool:
-    try:
-        import pandas as pd
-        return bool(pd.isna(value))
-    except (TypeError, ValueError):
-        return False
 
 
 def software_versions() -> dict:

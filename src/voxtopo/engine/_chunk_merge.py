@@ -24,19 +24,11 @@ import numpy as np
 from numba import njit
 
 from ._union_find import _find
+from ._union_find import _visited_before as _before  # one tie rule for every sweep
 
 #: Record kinds written by the kernels.
 FINAL_PAIR = 0
 KEPT_EDGE = 1
-
-
-@njit(cache=True, nogil=True)
-def _before(values, a, b, ascending):
-    va = values[a]
-    vb = values[b]
-    if ascending:
-        return va < vb or (va == vb and a < b)
-    return va > vb or (va == vb and a > b)
 
 
 @njit(cache=True, nogil=True)
