@@ -168,6 +168,52 @@ def test_progress_reports_every_phase_and_cancel_stops():
                     progress=cancel_in_dimension_zero)
 
 
+@pytest.mark.parametrize("construction", ["voxel", "vertex"])
+def test_two_threads_give_the_same_pairs_and_report_from_the_calling_thread(construction):
+    """Dimension 1 in a second thread changes nothing in the result (same pairs and
+    locations as one thread, and as gudhi's diagram); the callback only ever runs in the
+    calling thread, and a cancel during dimension 1 stops the worker (common practice,
+    no source)."""
+    import threading
+
+    values = np.random.default_rng(7).integers(0, 6, (9, 10, 11)).astype(np.uint8)
+    threads_seen = set()
+
+    def note(phase, fraction):
+        threads_seen.add(threading.get_ident())
+
+    one = own.compute(values, superlevel=False, construction=construction, threads=1)
+    two = own.compute(values, superlevel=False, construction=construction, threads=2,
+                      progress=note)
+    for name in ("dim", "birth", "death", "birth_index", "death_index"):
+        assert np.array_equal(getattr(one, name), getattr(two, name)), name
+    assert threads_seen == {threading.get_ident()}
+    theirs = _gudhi.compute(values, superlevel=False, construction=construction,
+                            periodic=None, field=2)
+    assert (Counter(zip(two.dim.tolist(), two.birth.tolist(), two.death.tolist()))
+            == Counter(zip(theirs.dim.tolist(), theirs.birth.tolist(),
+                           theirs.death.tolist())))
+
+    def cancel_in_dimension_one(phase, fraction):
+        if phase == "dimension 1":
+            raise Cancelled("stopped by the test")
+
+    before = threading.active_count()
+    with pytest.raises(Cancelled):
+        own.compute(values, superlevel=False, construction=construction, threads=2,
+                    progress=cancel_in_dimension_one)
+    assert threading.active_count() == before
+
+
+def test_thread_setting_is_read_from_the_environment(monkeypatch):
+    """VOXTOPO_THREADS sets the threads; a bad value gets one sentence."""
+    monkeypatch.setenv("VOXTOPO_THREADS", "1")
+    assert own.default_threads() == 1
+    monkeypatch.setenv("VOXTOPO_THREADS", "many")
+    with pytest.raises(InputError, match="VOXTOPO_THREADS"):
+        own.default_threads()
+
+
 @pytest.mark.parametrize("kwargs, words", [
     ({"periodic": (True, False)}, "periodic"),
     ({"field": 3}, "Z/3"),

@@ -42,8 +42,12 @@ Cohomology (de Silva, Morozov & Vejdemo-Johansson 2011, "Dualities in persistent
 its coboundary (the at most four squares around it) and its pivot the earliest square.
 Clearing (Chen & Kerber 2011, "Persistent homology computation with a twist"): an edge
 that joins two components of the sublevel set kills a dimension-0 class, so its column is
-zero and is skipped; these edges come from a small union-find over the cells of this
-module's own indexing (the dimension-0 *diagram* itself comes from ``_union_find.py``).
+zero and is skipped. Most of these edges are found in one pass in memory order, from the
+3x3x3 block around each voxel alone (where the cells present before the voxel are
+connected within its cube, an own edge joins two components exactly when one end lies
+in a part made of the voxel's own corners only); a union-find over the grid corners, its
+links set by that pass, decides the rest in value order (the dimension-0 *diagram*
+itself comes from ``_union_find.py``).
 Apparent and emergent pairs (Bauer 2021, "Ripser: efficient computation of Vietoris-Rips
 persistence barcodes", J. Appl. Comput. Topol.): when the earliest square of an edge's
 coboundary is the pivot of no column visited before, the edge pairs with it at once, with
@@ -362,19 +366,71 @@ _LATER_VERTEX = _later_neighbours(_EDGE_CODES_VERTEX, True)
 _LATER_VOXEL = _later_neighbours(_EDGE_CODES_VOXEL, False)
 
 
-@njit(cache=True, nogil=True)
-def _own_edges(rank, n0, n1, n2, vertex, later, words):
-    """Set bit ``k`` of ``words[v]`` (and clear the rest) when the ``k``-th edge around
-    voxel ``v`` exists and takes its value from ``v``; one pass in memory order, so that
-    the sweeps in value order read one word per voxel instead of its neighbourhood.
+def _corner_tables():
+    """Voxel construction: for each of the 8 corners of a cube (local index 4 a + 2 b + c),
+    the 3x3x3-block positions of the 7 other cubes around it; for each of the 12 edges (in
+    code order), the local indices of its two end corners."""
+    around = np.empty((8, 7), dtype=np.int64)
+    for q, (a, b, c) in enumerate(itertools.product((0, 1), repeat=3)):
+        cubes = [9 * (a + x) + 3 * (b + y) + (c + z)
+                 for x, y, z in itertools.product((0, 1), repeat=3)]
+        around[q] = [p for p in cubes if p != 13]
+    ends = np.empty((_EDGE_CODES_VOXEL.size, 2), dtype=np.int64)
+    for k, code in enumerate(_EDGE_CODES_VOXEL):
+        offset = (code // 9 - 1, (code // 3) % 3 - 1, code % 3 - 1)
+        for end in (0, 1):
+            corner = [end if o == 0 else (o + 1) // 2 for o in offset]
+            ends[k, end] = 4 * corner[0] + 2 * corner[1] + corner[2]
+    return around, ends
 
-    Vertex construction: the edge to a face neighbour is the voxel's own when that
-    neighbour comes earlier; voxel construction: a cube edge is the cube's own when the
-    (up to three) other cubes around it come later. Voxels outside the volume count as
-    missing (vertex) or as coming later (voxel).
+
+def _bridges():
+    """Vertex construction: (edge bit, edge bit, block position) for each pair of face
+    neighbours on different axes and the edge neighbour that joins them."""
+    steps = [int(code) - 13 for code in _EDGE_CODES_VERTEX]
+    table = [(k, j, 13 + steps[k] + steps[j]) for k in range(6) for j in range(k + 1, 6)
+             if abs(steps[k]) != abs(steps[j])]
+    return np.array(table, dtype=np.int64)
+
+
+_CORNER_AROUND, _EDGE_ENDS_VOXEL = _corner_tables()
+_BRIDGES_VERTEX = _bridges()
+
+#: Flag bit of a voxel whose own edges the local clearing could not decide.
+_IRREGULAR_BIT = 31
+
+
+@njit(cache=True, inline="always")
+def _local_find(parent, x):
+    while parent[x] != x:
+        x = parent[x]
+    return x
+
+
+@njit(cache=True, nogil=True)
+def _own_edges(rank, n0, n1, n2, vertex, later, words, parent):
+    """One pass in memory order that sets up the clearing.
+
+    For each voxel ``v``, bit ``k`` of ``words[v]`` is set when the ``k``-th edge around it
+    exists and takes its value from ``v`` (vertex construction: the edge to a face
+    neighbour that comes earlier; voxel construction: a cube edge whose other cubes come
+    later; voxels outside the volume count as missing or as later).
+
+    Then the clearing, decided here wherever the 3x3x3 block around ``v`` suffices: the
+    cells present before ``v`` within its cube (voxel construction: the corners and edges
+    shared with earlier cubes; vertex construction: the earlier face neighbours, joined
+    through earlier edge neighbours) are checked for being connected there. If they are
+    (or there are none), an own edge of ``v`` joins two components exactly when one of its
+    ends belongs to a part made of ``v``'s own corners only, which a union-find over the 8
+    corners (or 7 voxels) tells; those edges are cleared, and the union-find ``parent``
+    links each of ``v``'s own corners to an earlier corner (or to one of them, the root).
+    Otherwise the voxel gets the flag bit ``_IRREGULAR_BIT`` and its own corners stay roots
+    for :func:`_death_edges`. ``parent`` must be all -1 on entry.
     """
     block = np.empty(27, dtype=np.int64)
+    local = np.empty(8, dtype=np.int64)
     missing = np.int64(-1) if vertex else np.int64(1) << 62
+    m1, m2 = n1 + 1, n2 + 1
     for i0 in range(n0):
         for i1 in range(n1):
             for i2 in range(n2):
@@ -390,7 +446,8 @@ def _own_edges(rank, n0, n1, n2, vertex, later, words):
                             else:
                                 block[9 * a + 3 * b + c] = rank[(j0 * n1 + j1) * n2 + j2]
                 r = block[13]
-                bits = 0
+                v = (i0 * n1 + i1) * n2 + i2
+                bits = np.uint32(0)
                 for k in range(later.shape[0]):
                     if vertex:
                         own = 0 <= block[later[k, 0]] < r
@@ -400,8 +457,88 @@ def _own_edges(rank, n0, n1, n2, vertex, later, words):
                             if later[k, t] >= 0 and block[later[k, t]] < r:
                                 own = False
                     if own:
-                        bits |= 1 << k
-                words[(i0 * n1 + i1) * n2 + i2] = bits
+                        bits |= np.uint32(1 << k)
+                if vertex:
+                    first = -1
+                    count = 0
+                    for k in range(6):
+                        if (bits >> k) & 1:
+                            count += 1
+                            if first < 0:
+                                first = k
+                    regular = True
+                    if count >= 2:
+                        for k in range(6):
+                            local[k] = k
+                        for t in range(_BRIDGES_VERTEX.shape[0]):
+                            p, q, w = (_BRIDGES_VERTEX[t, 0], _BRIDGES_VERTEX[t, 1],
+                                       _BRIDGES_VERTEX[t, 2])
+                            if ((bits >> p) & 1 and (bits >> q) & 1
+                                    and 0 <= block[w] < r):
+                                gp = _local_find(local, p)
+                                gq = _local_find(local, q)
+                                local[gp] = gq
+                        root = _local_find(local, first)
+                        for k in range(first + 1, 6):
+                            if (bits >> k) & 1 and _local_find(local, k) != root:
+                                regular = False
+                    if not regular:
+                        bits |= np.uint32(1) << np.uint32(_IRREGULAR_BIT)
+                    elif first >= 0:
+                        bits &= ~np.uint32(1 << first)
+                        code = later[first, 0]
+                        parent[v] = v + ((code // 9 - 1) * n1 + (code // 3) % 3 - 1) * n2 \
+                            + code % 3 - 1
+                    words[v] = bits
+                    continue
+                fresh = 0
+                for q in range(8):
+                    local[q] = q
+                    alone = True
+                    for t in range(7):
+                        if block[_CORNER_AROUND[q, t]] < r:
+                            alone = False
+                            break
+                    if alone:
+                        fresh |= 1 << q
+                for k in range(12):
+                    if not (bits >> k) & 1:
+                        ga = _local_find(local, _EDGE_ENDS_VOXEL[k, 0])
+                        gb = _local_find(local, _EDGE_ENDS_VOXEL[k, 1])
+                        local[ga] = gb
+                anchor = -1
+                root = -1
+                regular = True
+                for q in range(8):
+                    if not (fresh >> q) & 1:
+                        g = _local_find(local, q)
+                        if anchor < 0:
+                            anchor = q
+                            root = g
+                        elif g != root:
+                            regular = False
+                            break
+                if not regular:
+                    words[v] = bits | (np.uint32(1) << np.uint32(_IRREGULAR_BIT))
+                    continue
+                for k in range(12):
+                    if (bits >> k) & 1:
+                        ga = _local_find(local, _EDGE_ENDS_VOXEL[k, 0])
+                        gb = _local_find(local, _EDGE_ENDS_VOXEL[k, 1])
+                        if ga != gb:
+                            local[ga] = gb
+                            bits &= ~np.uint32(1 << k)
+                words[v] = bits
+                if anchor < 0:
+                    anchor = 0
+                target = ((i0 + (anchor >> 2)) * m1 + i1 + ((anchor >> 1) & 1)) * m2 \
+                    + i2 + (anchor & 1)
+                for q in range(8):
+                    if (fresh >> q) & 1:
+                        corner = ((i0 + (q >> 2)) * m1 + i1 + ((q >> 1) & 1)) * m2 \
+                            + i2 + (q & 1)
+                        if corner != target:
+                            parent[corner] = target
 
 
 @njit(cache=True, nogil=True)
@@ -418,19 +555,21 @@ def _find(parent, x):
 
 
 @njit(cache=True, nogil=True)
-def _death_edges(order, n0, n1, n2, vertex, edge_codes, words, parent):
-    """Clear in ``words`` every edge that joins two components when the edges are added
-    in filtration order: these are the columns that clearing skips.
+def _death_edges(ranks, order, n0, n1, n2, vertex, edge_codes, words, parent):
+    """Clear in ``words`` every own edge of the voxels of ``ranks`` (ascending; those the
+    local clearing left undecided) that joins two components when the edges are added in
+    filtration order: these are the columns that clearing skips.
 
-    A small union-find over this module's own vertices (voxels, or grid corners in the
-    voxel construction); it only feeds the clearing, the dimension-0 diagram comes from
-    ``_union_find.py``.
+    A union-find over this module's own vertices (voxels, or grid corners in the voxel
+    construction), whose links for the other voxels :func:`_own_edges` has set: a link
+    always points to a corner present no later than the one it leaves, so the trees seen
+    at rank ``r`` join exactly the corners connected at ``r``. It only feeds the clearing;
+    the dimension-0 diagram comes from ``_union_find.py``.
     """
-    parent[:] = -1
     m1, m2 = (n1, n2) if vertex else (n1 + 1, n2 + 1)
     shift = 0 if vertex else 1
-    for r in range(order.size):
-        v = np.int64(order[r])
+    for j in range(ranks.size):
+        v = np.int64(order[ranks[j]])
         i2 = v % n2
         i1 = (v // n2) % n1
         i0 = v // (n1 * n2)
@@ -460,6 +599,7 @@ def _death_edges(order, n0, n1, n2, vertex, edge_codes, words, parent):
                 parent[ra] += parent[rb]
                 parent[rb] = ra
                 words[v] &= ~np.uint32(1 << k)
+        words[v] &= ~(np.uint32(1) << np.uint32(_IRREGULAR_BIT))
 
 
 # --------------------------------------------------------------------------- pivot table
@@ -564,7 +704,39 @@ def _heap_pivot(heap, size):
 @njit(cache=True, nogil=True)
 def _unreduced_owner(square, edge, order, rank, words, edge_bit, n0, n1, n2, vertex, faces):
     """Edge visited before ``edge`` (a larger key) whose coboundary, unreduced, has
-    ``square`` as pivot, or -1. The first such edge visited (largest key) is the owner."""
+    ``square`` as pivot, or -1. The first such edge visited (largest key) is the owner.
+
+    Voxel construction: an edge's earliest own coface is a face of the edge's own cube
+    with the cube's rank, so the owner is one of the square's edges that belong to the
+    square's cube; its flags and the codes tell, without reading a rank.
+    """
+    if not vertex:
+        r = square >> CODE_BITS
+        code = square & _CODE_MASK
+        flags = words[order[r]]
+        owner = np.int64(-1)
+        offset = (code // 9 - 1, (code // 3) % 3 - 1, code % 3 - 1)
+        for axis in range(3):
+            if offset[axis] != 0:
+                continue
+            weight = 9 if axis == 0 else (3 if axis == 1 else 1)
+            for t in (-1, 1):
+                face = code + weight * t
+                key = (r << CODE_BITS) | face
+                if key <= edge or key <= owner:
+                    continue
+                if not (flags >> edge_bit[face]) & 1:
+                    continue
+                o0, o1, o2 = face // 9 - 1, (face // 3) % 3 - 1, face % 3 - 1
+                if o0 == 0:
+                    earliest = min(face - 3 * o1, face - o2)
+                elif o1 == 0:
+                    earliest = min(face - 9 * o0, face - o2)
+                else:
+                    earliest = min(face - 9 * o0, face - 3 * o1)
+                if earliest == code:
+                    owner = key
+        return owner
     _boundary(square, order, rank, n0, n1, n2, vertex, faces)
     owner = np.int64(-1)
     for j in range(4):
@@ -800,13 +972,16 @@ def reduce_dim1(values, construction, progress=None, *, order=None):
         progress(PHASE, 0.1)
 
     words = np.empty(voxels, dtype=np.uint32)
-    _own_edges(rank, n0, n1, n2, vertex, _LATER_VERTEX if vertex else _LATER_VOXEL, words)
+    corners = voxels if vertex else (n0 + 1) * (n1 + 1) * (n2 + 1)
+    parent = np.full(corners, -1, dtype=_index_type(corners))
+    _own_edges(rank, n0, n1, n2, vertex, _LATER_VERTEX if vertex else _LATER_VOXEL, words,
+               parent)
     if progress is not None:
         progress(PHASE, 0.15)
-    corners = voxels if vertex else (n0 + 1) * (n1 + 1) * (n2 + 1)
-    parent = np.empty(corners, dtype=_index_type(corners))
-    _death_edges(order, n0, n1, n2, vertex, edge_codes, words, parent)
-    del parent
+    undecided = np.flatnonzero(words >> np.uint32(_IRREGULAR_BIT))
+    undecided = np.sort(rank[undecided])
+    _death_edges(undecided, order, n0, n1, n2, vertex, edge_codes, words, parent)
+    del parent, undecided
     if progress is not None:
         progress(PHASE, 0.25)
 

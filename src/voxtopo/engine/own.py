@@ -17,13 +17,19 @@ superlevel diagram carries the scan's own numbers bit for bit.
 
 from __future__ import annotations
 
+import os
+import threading
+
 import numpy as np
 
-from ..errors import InputError
+from ..errors import Cancelled, InputError
 from . import _union_find
 from ._pairs import RawPairs
 
-__all__ = ["compute", "bytes_needed", "BYTES_PER_VOXEL"]
+__all__ = ["compute", "bytes_needed", "BYTES_PER_VOXEL", "default_threads"]
+
+#: Environment variable that sets the engine's threads (batch workers set it to 1).
+THREADS_VARIABLE = "VOXTOPO_THREADS"
 
 #: Sweep steps between two progress reports (and cancellation checks).
 _STEPS_PER_REPORT = 1 << 21
@@ -47,7 +53,7 @@ _REDUCTION_BYTES_PER_VOXEL = 26
 
 def compute(values: np.ndarray, *, superlevel: bool, construction: str,
             periodic: tuple[bool, ...] | None = None, field: int = 2,
-            progress=None) -> RawPairs:
+            progress=None, threads: int | None = None) -> RawPairs:
     """Persistence pairs of a 2D image or 3D volume with voxtopo's own engine.
 
     Parameters
@@ -68,7 +74,11 @@ def compute(values: np.ndarray, *, superlevel: bool, construction: str,
         Called at coarse checkpoints in the phases "dimension 0" and "dimension 1" (2D)
         or "dimension 0", "dimension 2" and the reduction's "dimension 1" (3D); the
         linking pass is the first half of a sweep's fraction. Raising
-        :class:`voxtopo.Cancelled` inside it stops the run; nothing is kept.
+        :class:`voxtopo.Cancelled` inside it stops the run; nothing is kept. It is
+        always called from the calling thread.
+    threads : int, optional
+        Threads for a 3D volume: with 2 or more, dimension 1 runs in a second thread
+        beside the two sweeps (the result is the same). Default :func:`default_threads`.
 
     Returns
     -------
@@ -99,19 +109,23 @@ def compute(values: np.ndarray, *, superlevel: bool, construction: str,
     shape = np.array((1,) * (3 - ndim) + tuple(values.shape), dtype=np.int64)
     ascending = not superlevel
 
-    parent = np.empty(flat.size + 1, dtype=_union_find.index_dtype(flat.size))
-    roots_0, voxels_0 = _sweep(flat, shape, ndim, ascending=ascending,
-                               corners=construction == "voxel", with_outside=0,
-                               parent=parent, progress=progress, phase="dimension 0")
-    top = ndim - 1
-    roots_top, voxels_top = _sweep(flat, shape, ndim, ascending=not ascending,
-                                   corners=construction == "vertex", with_outside=ndim,
-                                   parent=parent, progress=progress,
-                                   phase=f"dimension {top}")
-    del parent
+    loops = None
+    if ndim == 3 and (threads or default_threads()) >= 2:
+        # dimension 1 runs beside the two sweeps: all three kernels release the GIL
+        loops = _Background(_dimension_one, values, flat, superlevel, construction)
+    try:
+        roots_0, voxels_0, roots_top, voxels_top = _sweeps(flat, shape, ndim, ascending,
+                                                           construction, progress)
+        if ndim == 3:
+            dim1 = (loops.result(progress) if loops is not None else
+                    _dimension_one(values, flat, superlevel, construction, progress))
+    finally:
+        if loops is not None:
+            loops.stop()
     # The eldest voxel of all: first in (value, flat index) order, or last for superlevel.
     eldest = int(np.argmin(flat)) if ascending else flat.size - 1 - int(np.argmax(flat[::-1]))
 
+    top = ndim - 1
     forever = -np.inf if superlevel else np.inf
     dims = [np.zeros(len(roots_0) + 1, np.int8), np.full(len(voxels_top), top, np.int8)]
     births = [flat[roots_0], flat[[eldest]], flat[voxels_top]]
@@ -119,7 +133,6 @@ def compute(values: np.ndarray, *, superlevel: bool, construction: str,
     birth_index = [roots_0, np.array([eldest]), voxels_top]
     death_index = [voxels_0, np.array([-1]), roots_top]
     if ndim == 3:
-        dim1 = _dimension_one(values, flat, superlevel, construction, progress)
         dims.append(np.ones(len(dim1[0]), np.int8))
         for column, part in zip((births, deaths, birth_index, death_index), dim1):
             column.append(part)
@@ -131,6 +144,86 @@ def compute(values: np.ndarray, *, superlevel: bool, construction: str,
         death_index=np.concatenate([i.astype(np.int64) for i in death_index]),
         engine="voxtopo",
     )
+
+
+def default_threads() -> int:
+    """Threads the engine uses: ``$VOXTOPO_THREADS`` if set, else 2 when this process may
+    run on two cores or more (the engine has at most two independent parts), else 1."""
+    setting = os.environ.get(THREADS_VARIABLE, "").strip()
+    if setting:
+        try:
+            return max(1, int(setting))
+        except ValueError:
+            raise InputError(f"{THREADS_VARIABLE} should be a whole number of threads, got "
+                             f"{setting!r}.") from None
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:  # not on Linux
+        cores = os.cpu_count() or 1
+    return min(2, cores)
+
+
+class _Background:
+    """``work(*args, progress=...)`` in a second thread.
+
+    The user's progress callback is only ever called from the calling thread: the worker
+    records its latest (phase, fraction), which :meth:`result` passes on while it waits,
+    and stops with :class:`Cancelled` at its next checkpoint once :meth:`stop` is called.
+    """
+
+    def __init__(self, work, *args):
+        self._latest = None
+        self._stopping = threading.Event()
+        self._outcome = None
+        self._thread = threading.Thread(target=self._run, args=(work, args), daemon=True,
+                                        name="voxtopo-dimension-1")
+        self._thread.start()
+
+    def _checkpoint(self, phase, fraction):
+        if self._stopping.is_set():
+            raise Cancelled("The run was stopped.")
+        self._latest = (phase, fraction)
+
+    def _run(self, work, args):
+        try:
+            self._outcome = (True, work(*args, self._checkpoint))
+        except BaseException as error:  # handed to the caller by result()
+            self._outcome = (False, error)
+
+    def result(self, progress=None):
+        reported = None
+        while self._thread.is_alive():
+            self._thread.join(0.1)
+            latest = self._latest
+            if progress is not None and latest is not None and latest != reported:
+                progress(*latest)
+                reported = latest
+        finished, value = self._outcome
+        if not finished:
+            raise value
+        if progress is not None and self._latest is not None and self._latest != reported:
+            progress(*self._latest)
+        return value
+
+    def stop(self):
+        """Ask the worker to stop and wait for it (it stops at its next checkpoint)."""
+        self._stopping.set()
+        self._thread.join()
+
+
+def _sweeps(flat, shape, ndim, ascending, construction, progress):
+    """(roots, voxels) of the dimension-0 sweep and of the dual dimension d-1 sweep."""
+    parent = np.empty(flat.size + 1, dtype=_union_find.index_dtype(flat.size))
+    roots_0, voxels_0 = _sweep(flat, shape, ndim, ascending=ascending,
+                               corners=construction == "voxel", with_outside=0,
+                               parent=parent, progress=progress, phase="dimension 0")
+    top = ndim - 1
+    roots_top, voxels_top = _sweep(flat, shape, ndim, ascending=not ascending,
+                                   corners=construction == "vertex", with_outside=ndim,
+                                   parent=parent, progress=progress,
+                                   phase=f"dimension {top}")
+    del parent
+    return roots_0, voxels_0, roots_top, voxels_top
 
 
 def sorted_order(flat: np.ndarray) -> np.ndarray:
@@ -163,8 +256,8 @@ def bytes_needed(shape, dtype, neighbourhood=None) -> int:
 
     The sweeps hold one union-find index per voxel, a byte per voxel while the voxels
     left for the sweep proper are collected, and those voxels' order; a 3D volume's
-    dimension-1 reduction runs after them (with a reversed copy of the values for a
-    superlevel run, planned for here). The pairs are planned at one per fifty voxels.
+    dimension-1 reduction runs beside them, or after them with one thread (with a reversed
+    copy of the values for a superlevel run, planned for here). The pairs are planned at one per fifty voxels.
     ``neighbourhood`` does not change the need and is accepted for the common signature.
 
     Examples
@@ -178,7 +271,9 @@ def bytes_needed(shape, dtype, neighbourhood=None) -> int:
     swept = _PLANNED_SWEPT_FRACTION * voxels * (8 + 2 * index + dtype.itemsize)
     peak = voxels * (index + 1) + swept
     if len(shape) == 3:
-        peak = max(peak, _reduction_bytes(tuple(shape), dtype) + voxels * dtype.itemsize)
+        loops = _reduction_bytes(tuple(shape), dtype) + voxels * dtype.itemsize
+        # with two threads the reduction runs while the sweeps hold their arrays
+        peak = peak + loops if default_threads() >= 2 else max(peak, loops)
     return int(peak + _BYTES_PER_PAIR * _PLANNED_PAIRS_PER_VOXEL * voxels)
 
 
