@@ -2,7 +2,8 @@
 
 Generates COUNT scans of SIZE^3 voxels (smoothed noise, seeded), then times
 
-* ``direct``: :func:`voxtopo.pipeline.analyse` called on each scan in turn, in this process;
+* ``direct``: :func:`voxtopo.pipeline.analyse` called on each scan in turn, in this process,
+  once before and once after the batch runs (the mean is the reference);
 * ``batch-1`` and ``batch-2``: ``voxtopo.batch.run_batch`` on a new LocalCluster with one
   and two worker processes (cluster start-up included, and reported on its own).
 
@@ -53,16 +54,17 @@ def time_direct(paths: list[Path], out: Path) -> float:
     return time.perf_counter() - start
 
 
-def _warm_up() -> None:
-    """Load the kernels in a worker (numba compiles them, or reads its cache) on a tiny scan,
-    as the direct run was warmed up, so that the steady figures compare like with like."""
+def _warm_up(size: int = 24) -> None:
+    """Load the kernels (numba compiles them, or reads its cache) on a small scan, in each
+    worker and in this process before the direct calls alike, so that the steady figures
+    compare like with like."""
     from voxtopo import Scan
     from voxtopo.pipeline import analyse
 
     folder = Path(tempfile.mkdtemp(prefix="voxtopo-warm-"))
     try:
         rng = np.random.default_rng(0)
-        analyse(Scan(ndimage.gaussian_filter(rng.standard_normal((24, 24, 24)), 2.0)),
+        analyse(Scan(ndimage.gaussian_filter(rng.standard_normal((size,) * 3), 2.0)),
                 folder / "warm")
     finally:
         shutil.rmtree(folder, ignore_errors=True)
@@ -77,7 +79,7 @@ def time_batch(manifest: Path, out: Path, workers: int) -> tuple[float, float, f
     from voxtopo import batch
 
     start = time.perf_counter()
-    with dask.config.set(batch._WORKER_MEMORY_CONFIG):
+    with dask.config.set(batch._WORKER_CONFIG):
         cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
                                host="127.0.0.1", dashboard_address=None, silence_logs=40,
                                memory_limit="6GiB")
@@ -94,6 +96,9 @@ def time_batch(manifest: Path, out: Path, workers: int) -> tuple[float, float, f
 
 
 def main() -> None:
+    # batch tasks run the engine in one thread each; the direct calls must do the same
+    # for a like-for-like comparison (the workers inherit this setting too)
+    os.environ["VOXTOPO_THREADS"] = "1"
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--size", type=int, default=128)
     parser.add_argument("--count", type=int, default=16)
@@ -104,19 +109,22 @@ def main() -> None:
         paths = make_scans(work, args.count, args.size)
         manifest = work / "manifest.csv"
         manifest.write_text("path\n" + "".join(f"{p.name}\n" for p in paths))
-        from voxtopo.pipeline import analyse
-
-        analyse(paths[0], work / "warm-up")   # compile the kernels once (numba cache)
-        direct = time_direct(paths, work / "direct")
+        _warm_up()
+        # direct calls before and after the batch runs: their mean is the reference, and
+        # their difference shows how much the machine itself drifted meanwhile
+        before = time_direct(paths, work / "direct-before")
         one, one_start, one_warm = time_batch(manifest, work / "batch-1", 1)
         two, two_start, two_warm = time_batch(manifest, work / "batch-2", 2)
+        after = time_direct(paths, work / "direct-after")
+        direct = (before + after) / 2
     finally:
         shutil.rmtree(work, ignore_errors=True)
     n = args.count
     own_peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2**10
     worker_peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 2**10
     print(f"{n} scans of {args.size}^3 voxels")
-    print(f"direct analyse : {direct:8.1f} s  ({direct / n:6.2f} s per scan)")
+    print(f"direct analyse : {direct:8.1f} s  ({direct / n:6.2f} s per scan; {before:.1f} s "
+          f"before the batch runs, {after:.1f} s after)")
     for label, total, start, warm in (("1 worker ", one, one_start, one_warm),
                                       ("2 workers", two, two_start, two_warm)):
         print(f"batch, {label}: {total:7.1f} s  ({total / n:6.2f} s per scan; cluster start "

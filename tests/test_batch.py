@@ -22,7 +22,7 @@ def cluster_address():
     import dask
     from distributed import LocalCluster
 
-    with dask.config.set(batch._WORKER_MEMORY_CONFIG):
+    with dask.config.set(batch._WORKER_CONFIG):
         cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                host="127.0.0.1", dashboard_address=None,
                                memory_limit="3GiB", silence_logs=40)

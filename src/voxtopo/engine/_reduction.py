@@ -164,6 +164,18 @@ def _cell_key(c0, c1, c2, rank, n0, n1, n2, vertex):
 
 
 @njit(cache=True, inline="always")
+def _own_square_code(code):
+    """Voxel construction: code of the earliest of the two faces of a cube that contain
+    the cube's edge ``code`` (the face with the smaller code)."""
+    o0, o1, o2 = code // 9 - 1, (code // 3) % 3 - 1, code % 3 - 1
+    if o0 == 0:
+        return min(code - 3 * o1, code - o2)
+    if o1 == 0:
+        return min(code - 9 * o0, code - o2)
+    return min(code - 9 * o0, code - 3 * o1)
+
+
+@njit(cache=True, inline="always")
 def _earliest_own_coface(i0, i1, i2, code, r, rank, n0, n1, n2, vertex):
     """Key of the earliest square around an edge that is voxel ``i``'s own (rank ``r``).
 
@@ -174,11 +186,7 @@ def _earliest_own_coface(i0, i1, i2, code, r, rank, n0, n1, n2, vertex):
     """
     o0, o1, o2 = code // 9 - 1, (code // 3) % 3 - 1, code % 3 - 1
     if not vertex:
-        if o0 == 0:
-            return (np.int64(r) << CODE_BITS) | min(code - 3 * o1, code - o2)
-        if o1 == 0:
-            return (np.int64(r) << CODE_BITS) | min(code - 9 * o0, code - o2)
-        return (np.int64(r) << CODE_BITS) | min(code - 9 * o0, code - 3 * o1)
+        return (np.int64(r) << CODE_BITS) | _own_square_code(code)
     best = np.int64(-1)
     other = ((i0 + o0) * n1 + (i1 + o1)) * n2 + (i2 + o2)
     here = (i0 * n1 + i1) * n2 + i2
@@ -301,35 +309,64 @@ def voxel_order(values: np.ndarray) -> np.ndarray:
     """C-order flat voxel indices sorted by ``(value, flat index)``.
 
     8- and 16-bit data (and integers spanning few levels) take a counting sort; float32
-    values are sorted as one 64-bit word per voxel (order-preserving bits of the value,
-    then the flat index), which numpy sorts much faster than a stable argsort; the rest
-    take numpy's stable sort.
+    values a radix sort of their order-preserving bits (int32 indices); the rest numpy's
+    stable sort.
     """
     flat = values.reshape(-1)
     if np.issubdtype(flat.dtype, np.integer) and flat.size:
         low, high = int(flat.min()), int(flat.max())
         if high - low < max(1 << 16, flat.size):
             return _counting_order(flat, low, high - low + 1)
-    if flat.dtype == np.float32 and flat.size < 2**32:
+    if flat.dtype == np.float32 and flat.size < 2**31:
         # adding zero turns -0.0 into 0.0, so that equal values get equal bits
-        words = _float32_words((flat + np.float32(0.0)).view(np.uint32))
-        words.sort()
-        return (words & np.uint64(0xFFFFFFFF)).astype(np.int64)
+        return _radix_order((flat + np.float32(0.0)).view(np.uint32))
     return np.argsort(flat, kind="stable")
 
 
+#: Bits of the key sorted per pass of the float32 radix sort (3 passes cover 32 bits).
+_RADIX_BITS = 11
+
+
 @njit(cache=True, nogil=True)
-def _float32_words(raw_bits):
-    """(order-preserving bits of the float32 value) << 32 | flat index, per voxel."""
-    words = np.empty(raw_bits.size, dtype=np.uint64)
-    for v in range(raw_bits.size):
-        bits = np.uint64(raw_bits[v])
-        if bits >> np.uint64(31):
-            bits = ~bits & np.uint64(0xFFFFFFFF)
-        else:
-            bits = bits | np.uint64(0x80000000)
-        words[v] = (bits << np.uint64(32)) | np.uint64(v)
-    return words
+def _radix_order(raw_bits):
+    """Flat indices sorted by float32 value (given as its raw bits), ties by index.
+
+    The bits are made order-preserving (negative values: all bits flipped; positive: the
+    sign bit set), then a least-significant-digit radix sort in three passes of 11 bits;
+    each pass is stable, so equal values keep their index order.
+    """
+    n = raw_bits.size
+    keys = np.empty(n, dtype=np.uint32)
+    for v in range(n):
+        bits = raw_bits[v]
+        keys[v] = ~bits if bits >> np.uint32(31) else bits | np.uint32(0x80000000)
+    buckets = 1 << _RADIX_BITS
+    counts = np.zeros((3, buckets), dtype=np.int64)
+    for v in range(n):
+        key = keys[v]
+        for p in range(3):
+            counts[p, (key >> np.uint32(_RADIX_BITS * p)) & np.uint32(buckets - 1)] += 1
+    order = np.arange(n, dtype=np.int32)
+    spare = np.empty(n, dtype=np.int32)
+    spare_keys = np.empty(n, dtype=np.uint32)
+    for p in range(3):
+        start = 0
+        for b in range(buckets):
+            size = counts[p, b]
+            counts[p, b] = start
+            start += size
+        shift = np.uint32(_RADIX_BITS * p)
+        # keys travel with their indices, so that every pass reads in sequence
+        for j in range(n):
+            key = keys[j]
+            b = (key >> shift) & np.uint32(buckets - 1)
+            slot = counts[p, b]
+            spare[slot] = order[j]
+            spare_keys[slot] = key
+            counts[p, b] = slot + 1
+        order, spare = spare, order
+        keys, spare_keys = spare_keys, keys
+    return order
 
 
 def _index_type(count: int):
@@ -407,8 +444,31 @@ def _local_find(parent, x):
     return x
 
 
+def _masks(positions):
+    """27-bit masks of 3x3x3-block positions, one per row of ``positions`` (-1 pads)."""
+    masks = np.zeros(positions.shape[0], dtype=np.int64)
+    for k, row in enumerate(positions):
+        for p in row:
+            if p >= 0:
+                masks[k] |= 1 << int(p)
+    return masks
+
+
+#: Voxel construction: the other cubes around each cube edge, and around each corner.
+_EDGE_MASK_VOXEL = _masks(_LATER_VOXEL)
+_CORNER_MASK_VOXEL = _masks(_CORNER_AROUND)
+
+
+def _block_offsets(n1, n2):
+    """Flat offsets of the 26 neighbours in the 3x3x3 block, and their block positions."""
+    positions = np.array([p for p in range(27) if p != 13], dtype=np.int64)
+    offsets = np.array([((p // 9 - 1) * n1 + (p // 3) % 3 - 1) * n2 + p % 3 - 1
+                        for p in positions], dtype=np.int64)
+    return offsets, positions
+
+
 @njit(cache=True, nogil=True)
-def _own_edges(rank, n0, n1, n2, vertex, later, words, parent):
+def _own_edges(rank, n0, n1, n2, vertex, later, words, parent, offsets, positions, memo):
     """One pass in memory order that sets up the clearing.
 
     For each voxel ``v``, bit ``k`` of ``words[v]`` is set when the ``k``-th edge around it
@@ -425,40 +485,34 @@ def _own_edges(rank, n0, n1, n2, vertex, later, words, parent):
     corners (or 7 voxels) tells; those edges are cleared, and the union-find ``parent``
     links each of ``v``'s own corners to an earlier corner (or to one of them, the root).
     Otherwise the voxel gets the flag bit ``_IRREGULAR_BIT`` and its own corners stay roots
-    for :func:`_death_edges`. ``parent`` must be all -1 on entry.
+    for :func:`_death_edges`. ``parent`` must be all -1 on entry; ``offsets`` and
+    ``positions`` come from :func:`_block_offsets`; ``memo`` (voxel construction: 2^20
+    entries of ``_UNKNOWN``) remembers the outcome of each pattern of own corners and edges.
     """
-    block = np.empty(27, dtype=np.int64)
     local = np.empty(8, dtype=np.int64)
-    missing = np.int64(-1) if vertex else np.int64(1) << 62
     m1, m2 = n1 + 1, n2 + 1
     for i0 in range(n0):
         for i1 in range(n1):
             for i2 in range(n2):
-                for a in range(3):
-                    j0 = i0 + a - 1
-                    for b in range(3):
-                        j1 = i1 + b - 1
-                        for c in range(3):
-                            j2 = i2 + c - 1
-                            if (j0 < 0 or j1 < 0 or j2 < 0 or j0 >= n0 or j1 >= n1
-                                    or j2 >= n2):
-                                block[9 * a + 3 * b + c] = missing
-                            else:
-                                block[9 * a + 3 * b + c] = rank[(j0 * n1 + j1) * n2 + j2]
-                r = block[13]
                 v = (i0 * n1 + i1) * n2 + i2
+                r = rank[v]
+                # bit p: the block position p holds a voxel that comes earlier
+                earlier = np.int64(0)
+                if 0 < i0 < n0 - 1 and 0 < i1 < n1 - 1 and 0 < i2 < n2 - 1:
+                    for t in range(26):
+                        earlier |= np.int64(rank[v + offsets[t]] < r) << positions[t]
+                else:
+                    for t in range(26):
+                        p = positions[t]
+                        j0, j1, j2 = i0 + p // 9 - 1, i1 + (p // 3) % 3 - 1, i2 + p % 3 - 1
+                        if (0 <= j0 < n0 and 0 <= j1 < n1 and 0 <= j2 < n2
+                                and rank[v + offsets[t]] < r):
+                            earlier |= np.int64(1) << p
                 bits = np.uint32(0)
-                for k in range(later.shape[0]):
-                    if vertex:
-                        own = 0 <= block[later[k, 0]] < r
-                    else:
-                        own = True
-                        for t in range(3):
-                            if later[k, t] >= 0 and block[later[k, t]] < r:
-                                own = False
-                    if own:
-                        bits |= np.uint32(1 << k)
                 if vertex:
+                    for k in range(6):
+                        if (earlier >> later[k, 0]) & 1:
+                            bits |= np.uint32(1 << k)
                     first = -1
                     count = 0
                     for k in range(6):
@@ -473,8 +527,7 @@ def _own_edges(rank, n0, n1, n2, vertex, later, words, parent):
                         for t in range(_BRIDGES_VERTEX.shape[0]):
                             p, q, w = (_BRIDGES_VERTEX[t, 0], _BRIDGES_VERTEX[t, 1],
                                        _BRIDGES_VERTEX[t, 2])
-                            if ((bits >> p) & 1 and (bits >> q) & 1
-                                    and 0 <= block[w] < r):
+                            if (bits >> p) & 1 and (bits >> q) & 1 and (earlier >> w) & 1:
                                 gp = _local_find(local, p)
                                 gq = _local_find(local, q)
                                 local[gp] = gq
@@ -491,54 +544,75 @@ def _own_edges(rank, n0, n1, n2, vertex, later, words, parent):
                             + code % 3 - 1
                     words[v] = bits
                     continue
+                for k in range(12):
+                    if not earlier & _EDGE_MASK_VOXEL[k]:
+                        bits |= np.uint32(1 << k)
                 fresh = 0
                 for q in range(8):
-                    local[q] = q
-                    alone = True
-                    for t in range(7):
-                        if block[_CORNER_AROUND[q, t]] < r:
-                            alone = False
-                            break
-                    if alone:
+                    if not earlier & _CORNER_MASK_VOXEL[q]:
                         fresh |= 1 << q
-                for k in range(12):
-                    if not (bits >> k) & 1:
-                        ga = _local_find(local, _EDGE_ENDS_VOXEL[k, 0])
-                        gb = _local_find(local, _EDGE_ENDS_VOXEL[k, 1])
-                        local[ga] = gb
-                anchor = -1
-                root = -1
-                regular = True
-                for q in range(8):
-                    if not (fresh >> q) & 1:
-                        g = _local_find(local, q)
-                        if anchor < 0:
-                            anchor = q
-                            root = g
-                        elif g != root:
-                            regular = False
-                            break
-                if not regular:
+                # the outcome depends on these 20 bits alone; few patterns occur, so each
+                # is worked out once and remembered
+                key = fresh | (np.int64(bits) << 8)
+                outcome = memo[key]
+                if outcome == _UNKNOWN:
+                    outcome = _clear_in_cube(fresh, bits, local)
+                    memo[key] = outcome
+                if outcome >> np.uint32(_IRREGULAR_BIT):
                     words[v] = bits | (np.uint32(1) << np.uint32(_IRREGULAR_BIT))
                     continue
-                for k in range(12):
-                    if (bits >> k) & 1:
-                        ga = _local_find(local, _EDGE_ENDS_VOXEL[k, 0])
-                        gb = _local_find(local, _EDGE_ENDS_VOXEL[k, 1])
-                        if ga != gb:
-                            local[ga] = gb
-                            bits &= ~np.uint32(1 << k)
-                words[v] = bits
-                if anchor < 0:
+                words[v] = outcome & np.uint32(0xFFF)
+                anchor = np.int64(outcome >> np.uint32(12)) & 15
+                if anchor == 8:  # no earlier corner: corner 0 is the new component's root
                     anchor = 0
+                    fresh &= ~1
                 target = ((i0 + (anchor >> 2)) * m1 + i1 + ((anchor >> 1) & 1)) * m2 \
                     + i2 + (anchor & 1)
                 for q in range(8):
                     if (fresh >> q) & 1:
-                        corner = ((i0 + (q >> 2)) * m1 + i1 + ((q >> 1) & 1)) * m2 \
-                            + i2 + (q & 1)
-                        if corner != target:
-                            parent[corner] = target
+                        parent[((i0 + (q >> 2)) * m1 + i1 + ((q >> 1) & 1)) * m2
+                               + i2 + (q & 1)] = target
+
+
+#: Marks a pattern of :func:`_own_edges`' table not worked out yet.
+_UNKNOWN = np.uint32(0xFFFFFFFF)
+
+
+@njit(cache=True, inline="always")
+def _clear_in_cube(fresh, bits, local):
+    """Voxel construction: the local clearing of a cube whose own corners are ``fresh``
+    (8 bits) and own edges ``bits`` (12 bits).
+
+    Returns the flag bit ``_IRREGULAR_BIT`` when the earlier corners are not connected
+    within the cube; otherwise the own edges left as columns (bits 0-11) and, in bits
+    12-15, an earlier corner to link the own corners to (8: there is none).
+    """
+    for q in range(8):
+        local[q] = q
+    for k in range(12):
+        if not (bits >> k) & 1:
+            ga = _local_find(local, _EDGE_ENDS_VOXEL[k, 0])
+            gb = _local_find(local, _EDGE_ENDS_VOXEL[k, 1])
+            local[ga] = gb
+    anchor = 8
+    root = -1
+    for q in range(8):
+        if not (fresh >> q) & 1:
+            g = _local_find(local, q)
+            if anchor == 8:
+                anchor = q
+                root = g
+            elif g != root:
+                return np.uint32(1) << np.uint32(_IRREGULAR_BIT)
+    left = bits
+    for k in range(12):
+        if (bits >> k) & 1:
+            ga = _local_find(local, _EDGE_ENDS_VOXEL[k, 0])
+            gb = _local_find(local, _EDGE_ENDS_VOXEL[k, 1])
+            if ga != gb:
+                local[ga] = gb
+                left &= ~np.uint32(1 << k)
+    return np.uint32(left) | (np.uint32(anchor) << np.uint32(12))
 
 
 @njit(cache=True, nogil=True)
@@ -600,6 +674,41 @@ def _death_edges(ranks, order, n0, n1, n2, vertex, edge_codes, words, parent):
                 parent[rb] = ra
                 words[v] &= ~np.uint32(1 << k)
         words[v] &= ~(np.uint32(1) << np.uint32(_IRREGULAR_BIT))
+
+
+@njit(cache=True, nogil=True)
+def _pair_own_squares(words, edge_codes, square_bit, counters):
+    """Voxel construction: pair each voxel's edge columns with its own squares at once,
+    in memory order, and flag (``_IRREGULAR_BIT``) the voxels that need a reduction.
+
+    A square takes the rank of the earlier of its two cubes, and a column's pivot is a
+    square later than its edge, so a voxel's own squares can be the pivot only of columns
+    of the voxel's own edges or of earlier voxels' edges, which the reduction visits after
+    the voxel. When the voxel is visited, then, its squares are marked by its own edges
+    alone, and if no two of its edges (last first) want the same square, every one of them
+    pairs with its earliest own square, as :func:`_reduce_ranks` would do: those pairs
+    (of zero persistence) are marked here. A voxel where two edges want the same square
+    keeps no marks and is flagged, for :func:`_reduce_ranks` to visit in value order.
+    """
+    flag = np.uint32(1) << np.uint32(_IRREGULAR_BIT)
+    for v in range(words.size):
+        bits = words[v]
+        marks = np.uint32(0)
+        paired = 0
+        for k in range(edge_codes.size - 1, -1, -1):
+            if not (bits >> k) & 1:
+                continue
+            square = np.uint32(1) << np.uint32(square_bit[_own_square_code(edge_codes[k])])
+            if marks & square:
+                paired = -1
+                break
+            marks |= square
+            paired += 1
+        if paired < 0:
+            words[v] = bits | flag
+        else:
+            words[v] = bits | marks
+            counters[4] += paired
 
 
 # --------------------------------------------------------------------------- pivot table
@@ -727,14 +836,7 @@ def _unreduced_owner(square, edge, order, rank, words, edge_bit, n0, n1, n2, ver
                     continue
                 if not (flags >> edge_bit[face]) & 1:
                     continue
-                o0, o1, o2 = face // 9 - 1, (face // 3) % 3 - 1, face % 3 - 1
-                if o0 == 0:
-                    earliest = min(face - 3 * o1, face - o2)
-                elif o1 == 0:
-                    earliest = min(face - 9 * o0, face - o2)
-                else:
-                    earliest = min(face - 9 * o0, face - 3 * o1)
-                if earliest == code:
+                if _own_square_code(face) == code:
                     owner = key
         return owner
     _boundary(square, order, rank, n0, n1, n2, vertex, faces)
@@ -756,10 +858,12 @@ def _unreduced_owner(square, edge, order, rank, words, edge_bit, n0, n1, n2, ver
 
 
 @njit(cache=True, nogil=True)
-def _reduce_ranks(r_high, r_low, level, order, rank, words, n0, n1, n2, vertex,
-                  edge_codes, edge_bit, square_bit, table_keys, table_vals, pool, counters, births, deaths):
+def _reduce_ranks(r_high, r_low, listed, use_list, level, order, rank, words, n0, n1, n2,
+                  vertex, edge_codes, edge_bit, square_bit, table_keys, table_vals, pool,
+                  counters, births, deaths):
     """Visit the edges of the voxels of rank ``r_high`` down to ``r_low`` (inclusive),
-    last edge first, and pair each with a square.
+    last edge first, and pair each with a square. With ``use_list``, visit instead the
+    ranks ``listed[r_high]`` down to ``listed[r_low]`` (``listed`` ascending).
 
     ``words`` holds, per voxel, a bit for each of its own edges that clearing left and
     one for each of its own squares that is already the pivot of a column. ``counters`` = [table entries, pool length,
@@ -770,7 +874,8 @@ def _reduce_ranks(r_high, r_low, level, order, rank, words, n0, n1, n2, vertex,
     faces = np.empty(4, dtype=np.int64)
     cofaces = np.empty(6, dtype=np.int64)
     heap = np.empty(64, dtype=np.int64)
-    for r in range(r_high, r_low - 1, -1):
+    for j in range(r_high, r_low - 1, -1):
+        r = np.int64(listed[j]) if use_list else np.int64(j)
         v = np.int64(order[r])
         i2 = v % n2
         i1 = (v // n2) % n1
@@ -974,8 +1079,10 @@ def reduce_dim1(values, construction, progress=None, *, order=None):
     words = np.empty(voxels, dtype=np.uint32)
     corners = voxels if vertex else (n0 + 1) * (n1 + 1) * (n2 + 1)
     parent = np.full(corners, -1, dtype=_index_type(corners))
+    offsets, positions = _block_offsets(n1, n2)
+    memo = np.full(1 if vertex else 1 << 20, _UNKNOWN, dtype=np.uint32)
     _own_edges(rank, n0, n1, n2, vertex, _LATER_VERTEX if vertex else _LATER_VOXEL, words,
-               parent)
+               parent, offsets, positions, memo)
     if progress is not None:
         progress(PHASE, 0.15)
     undecided = np.flatnonzero(words >> np.uint32(_IRREGULAR_BIT))
@@ -991,13 +1098,23 @@ def reduce_dim1(values, construction, progress=None, *, order=None):
     counters = np.zeros(7, dtype=np.int64)
     births = np.empty(1024, dtype=np.int64)
     deaths = np.empty(1024, dtype=np.int64)
-    steps = np.linspace(voxels, 0, _PROGRESS_STEPS + 1).astype(np.int64)
+    if vertex:
+        # an edge's earliest square may belong to a later voxel: every voxel is visited
+        listed = np.empty(0, dtype=index_type)
+        visits = voxels
+    else:
+        _pair_own_squares(words, edge_codes, square_bit, counters)
+        listed = np.flatnonzero(words >> np.uint32(_IRREGULAR_BIT))
+        np.bitwise_and(words, ~(np.uint32(1) << np.uint32(_IRREGULAR_BIT)), out=words)
+        listed = np.sort(rank[listed])
+        visits = listed.size
+    steps = np.linspace(visits, 0, _PROGRESS_STEPS + 1).astype(np.int64)
     for step in range(_PROGRESS_STEPS):
         high, low = steps[step] - 1, steps[step + 1]
         if high >= low:
             table_keys, table_vals, pool, births, deaths = _reduce_ranks(
-                high, low, level, order, rank, words, n0, n1, n2, vertex, edge_codes,
-                edge_bit, square_bit,
+                high, low, listed, not vertex, level, order, rank, words, n0, n1, n2, vertex,
+                edge_codes, edge_bit, square_bit,
                 table_keys, table_vals, pool, counters, births, deaths)
         if progress is not None:
             progress(PHASE, 0.25 + 0.75 * (step + 1) / _PROGRESS_STEPS)
@@ -1020,8 +1137,8 @@ def bytes_needed(shape, dtype) -> int:
 
     Per voxel: order, rank, level, flags and the clearing's union-find parent (4 bytes
     each with 32-bit indices, 8 above 2^31 voxels), the sorted copy of the values used
-    for the levels, and the sort's scratch (8 bytes per voxel for the 64-bit words of a
-    float32 sort or the counting sort's output); plus 64 MB for the pivot table and
+    for the levels, and the sort's scratch (8 bytes per voxel: the counting sort's output,
+    or the keys and indices a float32 radix pass writes into); plus 64 MB for the pivot table and
     reduced columns, which hold only the columns that needed a reduction (a few percent
     of the voxels on smooth data).
 
