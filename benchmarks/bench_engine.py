@@ -5,11 +5,10 @@ Run from the repository root::
     .venv/bin/python benchmarks/bench_engine.py            # all four cases
     .venv/bin/python benchmarks/bench_engine.py --cases 2048x2048 128x128x128
 
-Every case makes its data once, in this process, with a fixed seed. Each engine then runs
-in a forked child of this process (same data, no copy, nothing left over from the other
-engine), which reports its wall and CPU time, its peak memory above the data (the child's
-peak resident set size, counted afresh from its start, minus its resident size then)
-and its pairs. The parent
+Each engine runs in a new child process, which makes the case's data with a fixed seed
+(the same array in every child), loads the compiled kernels on a tiny array, and reports
+its wall and CPU time, its peak memory above the data (the child's peak resident set
+size, counted afresh before the run, minus its resident size then) and its pairs. The parent
 prints, per case, both times, the ratio, both peaks, voxtopo's memory estimate beside its
 measured peak, and whether the two diagrams are the same multiset of (dim, birth, death).
 gudhi is skipped, saying so, where its own estimate would not fit in the memory available.
@@ -89,8 +88,20 @@ def _reset_peak() -> None:
         fh.write("5")
 
 
-def _run_engine(name, values, construction, superlevel, connection):
-    """Child process: run one engine, send back times, peak memory and the pairs."""
+def _warm_up(name, construction, superlevel):
+    """Load numba's compiled kernels (or compile them) on tiny arrays, outside the timing."""
+    if name != "voxtopo":
+        return
+    for dtype in (np.float32, np.uint8):
+        BACKENDS[name][0](np.arange(27, dtype=dtype).reshape(3, 3, 3), superlevel=superlevel,
+                          construction=construction)
+
+
+def _run_engine(name, case, construction, superlevel, connection):
+    """Child process: make the case's data (seeded: the same in every child), warm up, run
+    one engine, and send back times, peak memory and the pairs."""
+    values = CASES[case][1]()
+    _warm_up(name, construction, superlevel)
     _reset_peak()
     start_resident = _status_bytes("VmRSS")
     compute = BACKENDS[name][0]
@@ -103,11 +114,13 @@ def _run_engine(name, values, construction, superlevel, connection):
     connection.close()
 
 
-def run_in_child(name, values, construction, superlevel):
-    context = multiprocessing.get_context("fork")
+def run_in_child(name, case, construction, superlevel):
+    # a new process, not a fork: a forked child would write into its parent's freed heap
+    # pages and pay a copy for each (measured: 0.2-0.3 s more on 128^3 for voxtopo)
+    context = multiprocessing.get_context("spawn")
     receiver, sender = context.Pipe(duplex=False)
     child = context.Process(target=_run_engine,
-                            args=(name, values, construction, superlevel, sender))
+                            args=(name, case, construction, superlevel, sender))
     child.start()
     sender.close()
     result = receiver.recv()
@@ -132,15 +145,13 @@ def main(argv=None):
     args = parser.parse_args(argv)
 
     print(f"load average at start: {os.getloadavg()}  (2 cores; other work may be running)")
-    for dtype in (np.float32, np.uint8):  # compile (or load) the kernels outside the timing
-        BACKENDS["voxtopo"][0](np.arange(27, dtype=dtype).reshape(3, 3, 3),
-                               superlevel=args.superlevel, construction=args.construction)
+    _warm_up("voxtopo", args.construction, args.superlevel)  # compile once, into the cache
     for case in args.cases:
         what, make = CASES[case]
         values = make()
         print(f"\n== {case} {what} ({values.dtype}, {args.construction} construction, "
               f"{'superlevel' if args.superlevel else 'sublevel'}) ==")
-        ours = run_in_child("voxtopo", values, args.construction, args.superlevel)
+        ours = run_in_child("voxtopo", case, args.construction, args.superlevel)
         planned = estimate(values.shape, values.dtype, engine="voxtopo")
         counts = np.bincount(ours[3], minlength=values.ndim).tolist()
         print(f"voxtopo: {ours[0]:8.2f} s wall {ours[1]:8.2f} s CPU  peak {human(ours[2])} "
@@ -154,7 +165,7 @@ def main(argv=None):
             print(f"gudhi: skipped, its estimate {human(gudhi_need)} would not fit in the "
                   f"{human(budget)} available")
         else:
-            theirs = run_in_child("gudhi", values, args.construction, args.superlevel)
+            theirs = run_in_child("gudhi", case, args.construction, args.superlevel)
             print(f"gudhi:   {theirs[0]:8.2f} s wall {theirs[1]:8.2f} s CPU  peak "
                   f"{human(theirs[2])}")
             print(f"ratio gudhi/voxtopo: {theirs[0] / ours[0]:.1f}x wall, "

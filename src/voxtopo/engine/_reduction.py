@@ -107,9 +107,14 @@ _SQUARE_CODES_VOXEL = np.array(
      for a, b, c in itertools.product((-1, 0, 1), repeat=3) if (a, b, c).count(0) == 2],
     dtype=np.int64)
 
-#: Each voxel has one 32-bit word: bits 0-11 say which of its own edges are columns
+#: Each voxel has one 32-bit word, stored at the voxel's rank so that the sweeps in value
+#: order read them in sequence: bits 0-11 say which of its own edges are columns
 #: (own and not cleared), bits 12-23 which of its own squares are already a pivot.
 _SQUARE_SHIFT = 12
+
+#: Voxel construction (six own squares): bit ``square bit + 12`` (bits 24-29) says that a
+#: reduced column with that square as pivot is stored.
+_STORED_SHIFT = 12
 
 
 def _bit_of(codes, first):
@@ -229,7 +234,7 @@ def _cell_coords(key, order, n1, n2, vertex):
 @njit(cache=True, inline="always")
 def _marked(key, order, words, square_bit):
     """Whether the square ``key`` is already the pivot of a column."""
-    return (words[order[key >> CODE_BITS]] >> square_bit[key & _CODE_MASK]) & 1
+    return (words[key >> CODE_BITS] >> square_bit[key & _CODE_MASK]) & 1
 
 
 @njit(cache=True, nogil=True)
@@ -318,8 +323,7 @@ def voxel_order(values: np.ndarray) -> np.ndarray:
         if high - low < max(1 << 16, flat.size):
             return _counting_order(flat, low, high - low + 1)
     if flat.dtype == np.float32 and flat.size < 2**31:
-        # adding zero turns -0.0 into 0.0, so that equal values get equal bits
-        return _radix_order((flat + np.float32(0.0)).view(np.uint32))
+        return _radix_order(flat.view(np.uint32))
     return np.argsort(flat, kind="stable")
 
 
@@ -339,6 +343,8 @@ def _radix_order(raw_bits):
     keys = np.empty(n, dtype=np.uint32)
     for v in range(n):
         bits = raw_bits[v]
+        if bits == np.uint32(0x80000000):  # -0.0 is 0.0: the same key
+            bits = np.uint32(0)
         keys[v] = ~bits if bits >> np.uint32(31) else bits | np.uint32(0x80000000)
     buckets = 1 << _RADIX_BITS
     counts = np.zeros((3, buckets), dtype=np.int64)
@@ -367,6 +373,18 @@ def _radix_order(raw_bits):
         order, spare = spare, order
         keys, spare_keys = spare_keys, keys
     return order
+
+
+@njit(cache=True, nogil=True)
+def _levels(flat, order, level):
+    """level[r]: how many distinct values come before the voxel of rank ``r``."""
+    count = 0
+    if order.size:
+        level[0] = 0
+    for r in range(1, order.size):
+        if flat[order[r]] != flat[order[r - 1]]:
+            count += 1
+        level[r] = count
 
 
 def _index_type(count: int):
@@ -471,7 +489,7 @@ def _block_offsets(n1, n2):
 def _own_edges(rank, n0, n1, n2, vertex, later, words, parent, offsets, positions, memo):
     """One pass in memory order that sets up the clearing.
 
-    For each voxel ``v``, bit ``k`` of ``words[v]`` is set when the ``k``-th edge around it
+    For each voxel ``v`` of rank ``r``, bit ``k`` of ``words[r]`` is set when the ``k``-th edge around it
     exists and takes its value from ``v`` (vertex construction: the edge to a face
     neighbour that comes earlier; voxel construction: a cube edge whose other cubes come
     later; voxels outside the volume count as missing or as later).
@@ -542,7 +560,7 @@ def _own_edges(rank, n0, n1, n2, vertex, later, words, parent, offsets, position
                         code = later[first, 0]
                         parent[v] = v + ((code // 9 - 1) * n1 + (code // 3) % 3 - 1) * n2 \
                             + code % 3 - 1
-                    words[v] = bits
+                    words[r] = bits
                     continue
                 for k in range(12):
                     if not earlier & _EDGE_MASK_VOXEL[k]:
@@ -559,9 +577,9 @@ def _own_edges(rank, n0, n1, n2, vertex, later, words, parent, offsets, position
                     outcome = _clear_in_cube(fresh, bits, local)
                     memo[key] = outcome
                 if outcome >> np.uint32(_IRREGULAR_BIT):
-                    words[v] = bits | (np.uint32(1) << np.uint32(_IRREGULAR_BIT))
+                    words[r] = bits | (np.uint32(1) << np.uint32(_IRREGULAR_BIT))
                     continue
-                words[v] = outcome & np.uint32(0xFFF)
+                words[r] = outcome & np.uint32(0xFFF)
                 anchor = np.int64(outcome >> np.uint32(12)) & 15
                 if anchor == 8:  # no earlier corner: corner 0 is the new component's root
                     anchor = 0
@@ -647,7 +665,7 @@ def _death_edges(ranks, order, n0, n1, n2, vertex, edge_codes, words, parent):
         i2 = v % n2
         i1 = (v // n2) % n1
         i0 = v // (n1 * n2)
-        bits = words[v]
+        bits = words[ranks[j]]
         for k in range(edge_codes.size):
             if not (bits >> k) & 1:
                 continue
@@ -672,14 +690,14 @@ def _death_edges(ranks, order, n0, n1, n2, vertex, edge_codes, words, parent):
                     ra, rb = rb, ra
                 parent[ra] += parent[rb]
                 parent[rb] = ra
-                words[v] &= ~np.uint32(1 << k)
-        words[v] &= ~(np.uint32(1) << np.uint32(_IRREGULAR_BIT))
+                words[ranks[j]] &= ~np.uint32(1 << k)
+        words[ranks[j]] &= ~(np.uint32(1) << np.uint32(_IRREGULAR_BIT))
 
 
 @njit(cache=True, nogil=True)
 def _pair_own_squares(words, edge_codes, square_bit, counters):
     """Voxel construction: pair each voxel's edge columns with its own squares at once,
-    in memory order, and flag (``_IRREGULAR_BIT``) the voxels that need a reduction.
+    voxel by voxel, and flag (``_IRREGULAR_BIT``) the voxels that need a reduction.
 
     A square takes the rank of the earlier of its two cubes, and a column's pivot is a
     square later than its edge, so a voxel's own squares can be the pivot only of columns
@@ -822,7 +840,7 @@ def _unreduced_owner(square, edge, order, rank, words, edge_bit, n0, n1, n2, ver
     if not vertex:
         r = square >> CODE_BITS
         code = square & _CODE_MASK
-        flags = words[order[r]]
+        flags = words[r]
         owner = np.int64(-1)
         offset = (code // 9 - 1, (code // 3) % 3 - 1, code % 3 - 1)
         for axis in range(3):
@@ -845,7 +863,7 @@ def _unreduced_owner(square, edge, order, rank, words, edge_bit, n0, n1, n2, ver
         face = faces[j]
         if face <= edge or face <= owner:
             continue
-        if not (words[order[face >> CODE_BITS]] >> edge_bit[face & _CODE_MASK]) & 1:
+        if not (words[face >> CODE_BITS] >> edge_bit[face & _CODE_MASK]) & 1:
             continue
         v = np.int64(order[face >> CODE_BITS])
         i2 = v % n2
@@ -880,7 +898,7 @@ def _reduce_ranks(r_high, r_low, listed, use_list, level, order, rank, words, n0
         i2 = v % n2
         i1 = (v // n2) % n1
         i0 = v // (n1 * n2)
-        bits = words[v]
+        bits = words[r]
         for k in range(edge_codes.size - 1, -1, -1):
             if not (bits >> k) & 1:
                 continue
@@ -903,7 +921,12 @@ def _reduce_ranks(r_high, r_low, listed, use_list, level, order, rank, words, n0
                     heap, size = _heap_push(heap, size, cofaces[j])
                 counters[6] += count
                 while True:
-                    stored = _table_find(table_keys, table_vals, pivot)
+                    # voxel construction: a bit next to the square's mark says whether a
+                    # reduced column is stored for it, which spares most table lookups
+                    stored = -1
+                    if vertex or (words[pivot >> CODE_BITS] >> np.uint32(
+                            square_bit[pivot & _CODE_MASK] + _STORED_SHIFT)) & 1:
+                        stored = _table_find(table_keys, table_vals, pivot)
                     if stored >= 0:
                         for j in range(pool[stored]):
                             heap, size = _heap_push(heap, size, pool[stored + 1 + j])
@@ -947,7 +970,10 @@ def _reduce_ranks(r_high, r_low, listed, use_list, level, order, rank, words, n0
                     table_keys, table_vals = _table_grow(table_keys, table_vals)
                 _table_put(table_keys, table_vals, pivot, start)
                 counters[0] += 1
-            words[order[pivot >> CODE_BITS]] |= np.uint32(1) << np.uint32(
+                if not vertex:
+                    words[pivot >> CODE_BITS] |= np.uint32(1) << np.uint32(
+                        square_bit[pivot & _CODE_MASK] + _STORED_SHIFT)
+            words[pivot >> CODE_BITS] |= np.uint32(1) << np.uint32(
                 square_bit[pivot & _CODE_MASK])
             # equal ranks are a zero-persistence pair; only others need the (random) read
             if (pivot >> CODE_BITS) != r and level[pivot >> CODE_BITS] > level[r]:
@@ -1066,10 +1092,8 @@ def reduce_dim1(values, construction, progress=None, *, order=None):
     flat = values.reshape(-1)
     # level[r]: how many distinct values come before rank r, so that the kernel tells
     # zero-persistence pairs apart without being compiled once per value type
-    ascending = flat[order]
-    level = np.zeros(voxels, dtype=index_type)
-    np.cumsum(ascending[1:] != ascending[:-1], out=level[1:])
-    del ascending
+    level = np.empty(voxels, dtype=index_type)
+    _levels(flat, order, level)
     edge_codes = _EDGE_CODES_VERTEX if vertex else _EDGE_CODES_VOXEL
     edge_bit = _EDGE_BIT_VERTEX if vertex else _EDGE_BIT_VOXEL
     square_bit = _SQUARE_BIT_VERTEX if vertex else _SQUARE_BIT_VOXEL
@@ -1086,7 +1110,6 @@ def reduce_dim1(values, construction, progress=None, *, order=None):
     if progress is not None:
         progress(PHASE, 0.15)
     undecided = np.flatnonzero(words >> np.uint32(_IRREGULAR_BIT))
-    undecided = np.sort(rank[undecided])
     _death_edges(undecided, order, n0, n1, n2, vertex, edge_codes, words, parent)
     del parent, undecided
     if progress is not None:
@@ -1104,9 +1127,8 @@ def reduce_dim1(values, construction, progress=None, *, order=None):
         visits = voxels
     else:
         _pair_own_squares(words, edge_codes, square_bit, counters)
-        listed = np.flatnonzero(words >> np.uint32(_IRREGULAR_BIT))
+        listed = np.flatnonzero(words >> np.uint32(_IRREGULAR_BIT)).astype(index_type)
         np.bitwise_and(words, ~(np.uint32(1) << np.uint32(_IRREGULAR_BIT)), out=words)
-        listed = np.sort(rank[listed])
         visits = listed.size
     steps = np.linspace(visits, 0, _PROGRESS_STEPS + 1).astype(np.int64)
     for step in range(_PROGRESS_STEPS):
