@@ -624,3 +624,23 @@ def test_cli_channel_option_reaches_the_loader(tmp_path):
     assert main(["analyse", str(path), "--channel", "1", "--out", str(out)]) == 0
     summary = json.loads((out / "summary.json").read_text())
     assert summary["scan"]["shape"] == [8, 8]
+
+
+def test_read_header_gives_the_shape_and_dtype_without_reading_voxels(tmp_path):
+    """The header's shape and dtype match what tifffile and numpy write (tifffile, Gohlke;
+    numpy's .npy format), and a raw file's given shape; bad paths get one sentence."""
+    from voxtopo.io import read_header
+
+    stack = np.zeros((3, 8, 9), dtype=np.uint16)
+    tifffile.imwrite(tmp_path / "stack.tif", stack, imagej=True, metadata={"axes": "ZYX"})
+    np.save(tmp_path / "volume.npy", np.zeros((4, 5, 6), dtype=np.float32))
+    np.zeros((2, 3, 4), dtype=">i2").tofile(tmp_path / "volume.raw")
+    with tifffile.TiffFile(tmp_path / "stack.tif") as tif:
+        tiff_shape = tif.series[0].shape
+    assert read_header(tmp_path / "stack.tif") == (tiff_shape, np.dtype(np.uint16))
+    assert read_header(tmp_path / "volume.npy") == ((4, 5, 6), np.dtype(np.float32))
+    shape, dtype = read_header(tmp_path / "volume.raw", shape=(2, 3, 4), dtype="int16",
+                               byte_order="big")
+    assert shape == (2, 3, 4) and dtype.kind == "i" and dtype.itemsize == 2
+    with pytest.raises(InputError, match="No file or folder"):
+        read_header(tmp_path / "missing.tif")

@@ -520,21 +520,16 @@ def _run_patches(path, out, load_options, settings: Settings) -> None:
 # --- planning -------------------------------------------------------------------------------
 def _peek(path: str, load_options: dict):
     """(shape, dtype) of a scan from its header alone, or None when it cannot be told."""
-    try:
-        from .io._load import _open
+    from .io import read_header
 
-        layout = _open(path, shape=load_options.get("shape"), dtype=load_options.get("dtype"),
-                       byte_order=load_options.get("byte_order", "little"),
-                       offset=load_options.get("offset", 0),
-                       level=int(load_options.get("level", 0)))
+    try:
+        return read_header(path, shape=load_options.get("shape"),
+                           dtype=load_options.get("dtype"),
+                           byte_order=load_options.get("byte_order", "little"),
+                           offset=load_options.get("offset", 0),
+                           level=load_options.get("level", 0))
     except Exception:
         return None
-    try:
-        keep = [n for n, a in zip(layout.shape, layout.axes or "") if a in "ZYX"]
-        shape = tuple(keep) if len(keep) in (2, 3) else tuple(layout.shape[-3:])
-        return shape, layout.dtype
-    finally:
-        layout.close()
 
 
 def scan_bytes(shape, dtype, job: str = "analyse") -> int:

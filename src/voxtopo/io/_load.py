@@ -88,6 +88,33 @@ def load(path, *, spacing=None, unit=None, channel=None, timepoint=None, shape=N
         layout.close()
 
 
+def read_header(path, *, shape=None, dtype=None, byte_order="little", offset=0,
+                level=0) -> tuple[tuple[int, ...], np.dtype]:
+    """(shape, dtype) of the gray image or volume in ``path``, from its header alone.
+
+    The shape keeps the z, y and x axes (channels and timepoints are left out, as
+    :func:`load` leaves them once one is picked); the file's voxels are not read. The
+    arguments are :func:`load`'s, for raw files and pyramid levels. Bad paths and files
+    get the same one-sentence :class:`~voxtopo.InputError` as :func:`load`.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> path = pathlib.Path(tempfile.mkdtemp()) / "scan.npy"
+    >>> np.save(path, np.zeros((4, 5, 6), dtype=np.uint16))
+    >>> read_header(path)
+    ((4, 5, 6), dtype('uint16'))
+    """
+    layout = _open(path, shape=shape, dtype=dtype, byte_order=byte_order, offset=offset,
+                   level=int(level))
+    try:
+        keep = [n for n, a in zip(layout.shape, layout.axes or "") if a in "ZYX"]
+        kept = tuple(keep) if len(keep) in (2, 3) else tuple(layout.shape[-3:])
+        return tuple(int(n) for n in kept), np.dtype(layout.dtype)
+    finally:
+        layout.close()
+
+
 def _open(path, *, shape, dtype, byte_order, offset, level) -> Layout:
     text = str(path)
     target = Path(path)
