@@ -5,7 +5,8 @@ Generates COUNT scans of SIZE^3 voxels (smoothed noise, seeded), then times
 * ``direct``: :func:`voxtopo.pipeline.analyse` called on each scan in turn, in this process,
   once before and once after the batch runs (the mean is the reference);
 * ``batch-1`` and ``batch-2``: ``voxtopo.batch.run_batch`` on a new LocalCluster with one
-  and two worker processes (cluster start-up included, and reported on its own).
+  and two worker processes (cluster start-up, kernel warm-up and shut-down included "in
+  all", and reported on their own; "steady" leaves them out).
 
 and prints the throughput ratio batch-1 / batch-2 (target >= 1.8) and the per-scan
 overhead of the batch machinery against the direct calls (target < 5 %), with the peak
@@ -72,7 +73,7 @@ def _warm_up(size: int = 24) -> None:
 
 def time_batch(manifest: Path, out: Path, workers: int) -> tuple[float, float, float]:
     """(seconds for the whole run, seconds the cluster took to start, seconds the workers
-    took to load the kernels)."""
+    took to load the kernels, seconds the cluster took to shut down)."""
     import dask
     from distributed import Client, LocalCluster
 
@@ -91,8 +92,9 @@ def time_batch(manifest: Path, out: Path, workers: int) -> tuple[float, float, f
         batch.run_batch(manifest, out, scheduler=cluster.scheduler_address,
                         stream=io.StringIO())
     finally:
+        ran = time.perf_counter()
         cluster.close()
-    return time.perf_counter() - start, started, warmed
+    return time.perf_counter() - start, started, warmed, time.perf_counter() - ran
 
 
 def main() -> None:
@@ -113,8 +115,8 @@ def main() -> None:
         # direct calls before and after the batch runs: their mean is the reference, and
         # their difference shows how much the machine itself drifted meanwhile
         before = time_direct(paths, work / "direct-before")
-        one, one_start, one_warm = time_batch(manifest, work / "batch-1", 1)
-        two, two_start, two_warm = time_batch(manifest, work / "batch-2", 2)
+        one, one_start, one_warm, one_stop = time_batch(manifest, work / "batch-1", 1)
+        two, two_start, two_warm, two_stop = time_batch(manifest, work / "batch-2", 2)
         after = time_direct(paths, work / "direct-after")
         direct = (before + after) / 2
     finally:
@@ -125,17 +127,18 @@ def main() -> None:
     print(f"{n} scans of {args.size}^3 voxels")
     print(f"direct analyse : {direct:8.1f} s  ({direct / n:6.2f} s per scan; {before:.1f} s "
           f"before the batch runs, {after:.1f} s after)")
-    for label, total, start, warm in (("1 worker ", one, one_start, one_warm),
-                                      ("2 workers", two, two_start, two_warm)):
+    for label, total, start, warm, stop in (("1 worker ", one, one_start, one_warm, one_stop),
+                                            ("2 workers", two, two_start, two_warm, two_stop)):
         print(f"batch, {label}: {total:7.1f} s  ({total / n:6.2f} s per scan; cluster start "
-              f"{start:.1f} s, kernel warm-up {warm:.1f} s)")
-    print(f"throughput ratio 2 workers / 1 worker: {one / two:5.2f}x, "
-          f"{(one - one_start - one_warm) / (two - two_start - two_warm):5.2f}x steady "
-          f"(target >= 1.8x)")
-    overhead = (one - direct) / direct
-    steady = (one - one_start - one_warm - direct) / direct
-    print(f"batch overhead per scan against direct calls (1 worker): {100 * overhead:+5.1f} % "
-          f"in all, {100 * steady:+5.1f} % steady, without cluster start and warm-up "
+              f"{start:.1f} s, kernel warm-up {warm:.1f} s, cluster shut-down {stop:.1f} s)")
+    one_steady = one - one_start - one_warm - one_stop
+    two_steady = two - two_start - two_warm - two_stop
+    print(f"throughput ratio 2 workers / 1 worker: {one / two:5.2f}x in all, "
+          f"{one_steady / two_steady:5.2f}x steady (target >= 1.8x)")
+    print(f"batch overhead per scan against direct calls (1 worker): "
+          f"{100 * (one - direct) / direct:+5.1f} % in all, "
+          f"{100 * (one_steady - direct) / direct:+5.1f} % steady: the batch command itself "
+          f"(tasks, tables, report), without the cluster's start, warm-up and shut-down "
           f"(target < 5 %)")
     print(f"peak memory: this process {own_peak:.0f} MiB, largest worker {worker_peak:.0f} MiB")
     print(f"load average after: {os.getloadavg()}")

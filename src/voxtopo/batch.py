@@ -846,9 +846,14 @@ def _submit_all(client, todo, jobs, loads, settings, scans_dir, skipped, stream)
                                settings.as_dict(), key=f"voxtopo-scan-{entry.name}",
                                pure=False, retries=0)
         futures[future] = entry
-    # the batch report's libraries load while the first scans run, not after the last
-    from .report import plots  # noqa: F401
+    # the tables' and report's libraries load while the first scans run, not after the last
     import jinja2  # noqa: F401
+
+    from .report import plots  # noqa: F401
+    try:
+        import pyarrow  # noqa: F401
+    except ImportError:
+        pass
 
     for future in as_completed(list(futures)):
         entry = futures[future]
