@@ -107,6 +107,10 @@ def test_noisy_volumes_with_ties_equal_gudhi(construction, levels):
     assert as_sorted_pairs(birth, death) == expected
     flat = values.reshape(-1)
     assert np.array_equal(flat[birth_index], birth) and np.array_equal(flat[death_index], death)
+    # the memory-order pass shared by two threads gives the very same pairs and locations
+    shared = pairs_dim1(values, construction, threads=2)
+    for mine, theirs in zip((birth, death, birth_index, death_index), shared):
+        assert np.array_equal(mine, theirs)
 
 
 def torus_distance(shape=(24, 44, 44), core_radius=12.0):

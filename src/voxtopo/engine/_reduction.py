@@ -71,6 +71,7 @@ dies and there are no essential dimension-1 classes.
 from __future__ import annotations
 
 import itertools
+import threading
 
 import numpy as np
 from numba import njit
@@ -486,7 +487,8 @@ def _block_offsets(n1, n2):
 
 
 @njit(cache=True, nogil=True)
-def _own_edges(rank, n0, n1, n2, vertex, later, words, parent, offsets, positions, memo):
+def _own_edges(rank, n0, n1, n2, vertex, later, words, parent, offsets, positions, memo,
+               first_layer, stop_layer):
     """One pass in memory order that sets up the clearing.
 
     For each voxel ``v`` of rank ``r``, bit ``k`` of ``words[r]`` is set when the ``k``-th edge around it
@@ -506,10 +508,12 @@ def _own_edges(rank, n0, n1, n2, vertex, later, words, parent, offsets, position
     for :func:`_death_edges`. ``parent`` must be all -1 on entry; ``offsets`` and
     ``positions`` come from :func:`_block_offsets`; ``memo`` (voxel construction: 2^20
     entries of ``_UNKNOWN``) remembers the outcome of each pattern of own corners and edges.
+    Only the z-layers ``first_layer`` to ``stop_layer - 1`` are visited, so that two
+    threads can share the pass (each writes the flags and corner links of its own voxels).
     """
     local = np.empty(8, dtype=np.int64)
     m1, m2 = n1 + 1, n2 + 1
-    for i0 in range(n0):
+    for i0 in range(first_layer, stop_layer):
         for i1 in range(n1):
             for i2 in range(n2):
                 v = (i0 * n1 + i1) * n2 + i2
@@ -1018,7 +1022,7 @@ def _check(values, construction):
     return np.ascontiguousarray(values)
 
 
-def pairs_dim1(values, construction, progress=None, *, order=None):
+def pairs_dim1(values, construction, progress=None, *, order=None, threads=1):
     """Finite dimension-1 persistence pairs of the sublevel filtration of a 3D volume.
 
     Parameters
@@ -1035,6 +1039,9 @@ def pairs_dim1(values, construction, progress=None, *, order=None):
     order : ndarray, optional
         C-order flat voxel indices sorted by ``(value, flat index)``, when the caller has
         already sorted the voxels; skips the sort.
+    threads : int
+        With 2 or more, the memory-order pass is shared by two threads (the result is
+        the same).
 
     Returns
     -------
@@ -1069,11 +1076,11 @@ def pairs_dim1(values, construction, progress=None, *, order=None):
     ([0.0], [5.0], [4])
     """
     birth, death, birth_index, death_index, _ = reduce_dim1(values, construction, progress,
-                                                            order=order)
+                                                            order=order, threads=threads)
     return birth, death, birth_index, death_index
 
 
-def reduce_dim1(values, construction, progress=None, *, order=None):
+def reduce_dim1(values, construction, progress=None, *, order=None, threads=1):
     """:func:`pairs_dim1` plus a dict of counts (columns reduced, columns paired at once,
     pairs of positive persistence, reduction-matrix entries kept), which
     the benchmark prints."""
@@ -1104,9 +1111,25 @@ def reduce_dim1(values, construction, progress=None, *, order=None):
     corners = voxels if vertex else (n0 + 1) * (n1 + 1) * (n2 + 1)
     parent = np.full(corners, -1, dtype=_index_type(corners))
     offsets, positions = _block_offsets(n1, n2)
+    later = _LATER_VERTEX if vertex else _LATER_VOXEL
     memo = np.full(1 if vertex else 1 << 20, _UNKNOWN, dtype=np.uint32)
-    _own_edges(rank, n0, n1, n2, vertex, _LATER_VERTEX if vertex else _LATER_VOXEL, words,
-               parent, offsets, positions, memo)
+    if threads >= 2 and n0 >= 2:
+        # the upper half of the layers in a second thread, with its own pattern table
+        middle = n0 // 2
+        other = np.full(memo.size, _UNKNOWN, dtype=np.uint32)
+        helper = threading.Thread(target=_own_edges, args=(
+            rank, n0, n1, n2, vertex, later, words, parent, offsets, positions, other,
+            middle, n0))
+        helper.start()
+        try:
+            _own_edges(rank, n0, n1, n2, vertex, later, words, parent, offsets, positions,
+                       memo, 0, middle)
+        finally:
+            helper.join()
+        del other
+    else:
+        _own_edges(rank, n0, n1, n2, vertex, later, words, parent, offsets, positions, memo,
+                   0, n0)
     if progress is not None:
         progress(PHASE, 0.15)
     undecided = np.flatnonzero(words >> np.uint32(_IRREGULAR_BIT))

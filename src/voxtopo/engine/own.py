@@ -112,13 +112,13 @@ def compute(values: np.ndarray, *, superlevel: bool, construction: str,
     loops = None
     if ndim == 3 and (threads or default_threads()) >= 2:
         # dimension 1 runs beside the two sweeps: all three kernels release the GIL
-        loops = _Background(_dimension_one, values, flat, superlevel, construction)
+        loops = _Background(_dimension_one, values, flat, superlevel, construction, 2)
     try:
         roots_0, voxels_0, roots_top, voxels_top = _sweeps(flat, shape, ndim, ascending,
                                                            construction, progress)
         if ndim == 3:
             dim1 = (loops.result(progress) if loops is not None else
-                    _dimension_one(values, flat, superlevel, construction, progress))
+                    _dimension_one(values, flat, superlevel, construction, 1, progress))
     finally:
         if loops is not None:
             loops.stop()
@@ -347,7 +347,7 @@ def _sweep(flat, shape, ndim, *, ascending, corners, with_outside, parent, progr
     return roots[:count].copy(), dying_at[:count].copy()
 
 
-def _dimension_one(values, flat, superlevel, construction, progress):
+def _dimension_one(values, flat, superlevel, construction, threads, progress):
     """(births, deaths, birth index, death index) of dimension 1 of a 3D volume.
 
     The reduction sweeps a sublevel filtration: a superlevel run hands it values with
@@ -356,7 +356,7 @@ def _dimension_one(values, flat, superlevel, construction, progress):
     from . import _reduction
 
     swept = _reversed_order_values(values) if superlevel else values
-    pairs = _reduction.pairs_dim1(swept, construction, progress=progress)
+    pairs = _reduction.pairs_dim1(swept, construction, progress=progress, threads=threads)
     del swept
     birth_index = np.asarray(pairs[2], dtype=np.int64)
     death_index = np.asarray(pairs[3], dtype=np.int64)
