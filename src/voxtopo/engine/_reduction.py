@@ -238,7 +238,7 @@ def _marked(key, order, words, square_bit):
     return (words[key >> CODE_BITS] >> square_bit[key & _CODE_MASK]) & 1
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, inline="always")
 def _coboundary_at(c0, c1, c2, rank, n0, n1, n2, vertex, out):
     """Write the keys of the squares around the edge at ``c`` into ``out``; return how many."""
     e0, e1, e2 = (2 * n0 - 1, 2 * n1 - 1, 2 * n2 - 1) if vertex else (2 * n0 + 1, 2 * n1 + 1,
@@ -268,14 +268,14 @@ def _coboundary_at(c0, c1, c2, rank, n0, n1, n2, vertex, out):
     return count
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, inline="always")
 def _coboundary(key, order, rank, n0, n1, n2, vertex, out):
     """Write the keys of the squares around edge ``key`` into ``out``; return how many."""
     c0, c1, c2 = _cell_coords(key, order, n1, n2, vertex)
     return _coboundary_at(c0, c1, c2, rank, n0, n1, n2, vertex, out)
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, inline="always")
 def _boundary(key, order, rank, n0, n1, n2, vertex, out):
     """Write the keys of the four edges of square ``key`` into ``out``; return 4."""
     c0, c1, c2 = _cell_coords(key, order, n1, n2, vertex)
@@ -637,7 +637,7 @@ def _clear_in_cube(fresh, bits, local):
     return np.uint32(left) | (np.uint32(anchor) << np.uint32(12))
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, inline="always")
 def _find(parent, x):
     """Root of ``x``; a root holds minus the size of its set (union by size)."""
     root = x
@@ -743,7 +743,7 @@ def _slot(key, mask):
     return h & mask
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, inline="always")
 def _table_find(table_keys, table_vals, key):
     mask = table_keys.size - 1
     s = _slot(key, mask)
@@ -754,7 +754,7 @@ def _table_find(table_keys, table_vals, key):
     return -1
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, inline="always")
 def _table_put(table_keys, table_vals, key, value):
     mask = table_keys.size - 1
     s = _slot(key, mask)
@@ -777,7 +777,7 @@ def _table_grow(table_keys, table_vals):
 # --------------------------------------------------------------------------- working column
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, inline="always")
 def _heap_push(heap, size, key):
     if size == heap.size:
         bigger = np.empty(heap.size * 2, dtype=np.int64)
@@ -795,7 +795,7 @@ def _heap_push(heap, size, key):
     return heap, size + 1
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, inline="always")
 def _heap_pop(heap, size):
     size -= 1
     last = heap[size]
@@ -815,7 +815,7 @@ def _heap_pop(heap, size):
     return size
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, inline="always")
 def _heap_pivot(heap, size):
     """Smallest entry that survives Z/2 cancellation (-1 if none), left on the heap."""
     while size > 0:
@@ -832,7 +832,7 @@ def _heap_pivot(heap, size):
 # --------------------------------------------------------------------------- reduction
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, inline="always")
 def _unreduced_owner(square, edge, order, rank, words, edge_bit, n0, n1, n2, vertex, faces):
     """Edge visited before ``edge`` (a larger key) whose coboundary, unreduced, has
     ``square`` as pivot, or -1. The first such edge visited (largest key) is the owner.

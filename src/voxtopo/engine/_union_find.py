@@ -103,7 +103,7 @@ def counting_order(keys, levels, order):
         counts[k] += 1
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, inline="always")
 def _find(parent, v):
     # Path halving keeps the trees shallow without a second pass or a rank array.
     while parent[v] != v:
@@ -113,7 +113,7 @@ def _find(parent, v):
     return v
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, inline="always")
 def _visited_before(values, a, b, ascending):
     va = values[a]
     vb = values[b]
@@ -140,7 +140,7 @@ _X_LOW, _X_HIGH, _Y_LOW, _Y_HIGH, _CUBE, _FACES = _cube_masks()
 _WHOLE_CUBE = (1 << 27) - 1
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, inline="always")
 def _grow(mask, corners):
     """Dilate a set of cube positions by one step of the 26 (or 6) neighbourhood."""
     if corners:

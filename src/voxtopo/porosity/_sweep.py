@@ -50,7 +50,7 @@ def as_3d_shape(shape) -> tuple[int, int, int]:
 
 
 # ---------------------------------------------------------------------------- numba kernels
-@njit(cache=True, nogil=True)
+@njit(cache=True, inline="always")
 def _find(parent, i):
     root = i
     while parent[root] != root:
