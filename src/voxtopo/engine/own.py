@@ -271,7 +271,11 @@ def bytes_needed(shape, dtype, neighbourhood=None) -> int:
     swept = _PLANNED_SWEPT_FRACTION * voxels * (8 + 2 * index + dtype.itemsize)
     peak = voxels * (index + 1) + swept
     if len(shape) == 3:
-        loops = _reduction_bytes(tuple(shape), dtype) + voxels * dtype.itemsize
+        # a reversed copy of the values, and for the vertex construction a padded one
+        # (in a type up to twice as wide)
+        padded = int(np.prod([n + 2 for n in shape], dtype=np.int64))
+        loops = (_reduction_bytes(tuple(n + 2 for n in shape), dtype)
+                 + voxels * dtype.itemsize + padded * min(2 * dtype.itemsize, 8))
         # with two threads the reduction runs while the sweeps hold their arrays
         peak = peak + loops if default_threads() >= 2 else max(peak, loops)
     return int(peak + _BYTES_PER_PAIR * _PLANNED_PAIRS_PER_VOXEL * voxels)
@@ -355,17 +359,64 @@ def _dimension_one(values, flat, superlevel, construction, threads, progress):
     """
     from . import _reduction
 
-    swept = _reversed_order_values(values) if superlevel else values
-    pairs = _reduction.pairs_dim1(swept, construction, progress=progress, threads=threads)
-    del swept
-    birth_index = np.asarray(pairs[2], dtype=np.int64)
-    death_index = np.asarray(pairs[3], dtype=np.int64)
-    del pairs
+    if construction == "vertex":
+        # By the duality of image constructions (Garin, Heiss, Maggs, Bleile & Robins
+        # 2020), the loops of the vertex construction of f are those of the voxel
+        # construction of -f with the outside of the volume present from the start,
+        # births and deaths swapped; the voxel construction's reduction is the faster one.
+        dual = _padded_below(values if superlevel else _reversed_order_values(values))
+        pairs = _reduction.pairs_dim1(dual, "voxel", progress=progress, threads=threads)
+        birth_index = _unpad(np.asarray(pairs[3], dtype=np.int64), dual.shape)
+        death_index = _unpad(np.asarray(pairs[2], dtype=np.int64), dual.shape)
+        del dual, pairs
+    else:
+        swept = _reversed_order_values(values) if superlevel else values
+        pairs = _reduction.pairs_dim1(swept, construction, progress=progress,
+                                      threads=threads)
+        del swept
+        birth_index = np.asarray(pairs[2], dtype=np.int64)
+        death_index = np.asarray(pairs[3], dtype=np.int64)
+        del pairs
     forever = -np.inf if superlevel else np.inf
     births = flat[birth_index].astype(np.float64)
     deaths = np.where(death_index >= 0, flat[np.maximum(death_index, 0)], forever)
     keep = births != deaths
     return births[keep], deaths[keep], birth_index[keep], death_index[keep]
+
+
+def _padded_below(values: np.ndarray) -> np.ndarray:
+    """``values`` with a one-voxel shell around them that comes before every voxel (the
+    outside of the volume, present from the start of the sweep), in the same dtype when
+    it has room below the smallest value, else in a wider one."""
+    low = values.min()
+    if values.dtype.kind == "f":
+        below = np.nextafter(low, -np.inf).astype(values.dtype)
+        if not np.isfinite(below):
+            values, below = values.astype(np.float64), np.float64(low) - 1.0
+    elif values.dtype.kind in "ui":
+        if low > np.iinfo(values.dtype).min:
+            below = values.dtype.type(low - 1)
+        else:
+            wider = {1: np.int16, 2: np.int32}.get(values.dtype.itemsize, np.int64)
+            if values.dtype == np.int64:
+                raise InputError("The vertex construction's loops need one value below "
+                                 "the smallest int64 voxel; convert the volume to float64.")
+            values, below = values.astype(wider), wider(int(low) - 1)
+    else:
+        values = values.astype(np.int16)
+        below = np.int16(int(values.min()) - 1)
+    return np.pad(values, 1, mode="constant", constant_values=below)
+
+
+def _unpad(index: np.ndarray, padded_shape) -> np.ndarray:
+    """Flat indices into the padded volume -> flat indices into the volume itself."""
+    coordinates = np.unravel_index(index, padded_shape)
+    inner = tuple(n - 2 for n in padded_shape)
+    inside = [c - 1 for c in coordinates]
+    if any(((c < 0) | (c >= n)).any() for c, n in zip(inside, inner)):
+        raise RuntimeError("a loop of the dual volume sits in its outside shell, which "
+                           "cannot happen; this is a bug in voxtopo's engine.")
+    return np.ravel_multi_index(tuple(inside), inner).astype(np.int64)
 
 
 def _reversed_order_values(values: np.ndarray) -> np.ndarray:
