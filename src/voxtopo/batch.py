@@ -116,7 +116,7 @@ _COPIES_PER_SCAN = 3
 #: matplotlib loaded takes about half of it before any scan is read.
 _MIN_WORKER_BYTES = 2 * 2**30
 
-#: How workers run. Memory: Our tasks hold plain numpy arrays that dask
+#: How workers run. Memory: our tasks hold plain numpy arrays that dask
 #: cannot spill, and a paused worker would hold its scan forever, so there is no spilling
 #: and no pausing: a worker that passes 95 % of its limit is restarted and its scan is
 #: recorded as failed (retried once, in case another task was the one that grew).

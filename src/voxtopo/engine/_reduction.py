@@ -233,7 +233,7 @@ def _cell_coords(key, order, n1, n2, vertex):
 
 
 @njit(cache=True, inline="always")
-def _marked(key, order, words, square_bit):
+def _marked(key, words, square_bit):
     """Whether the square ``key`` is already the pivot of a column."""
     return (words[key >> CODE_BITS] >> square_bit[key & _CODE_MASK]) & 1
 
@@ -713,8 +713,8 @@ def _pair_own_squares(words, edge_codes, square_bit, counters):
     keeps no marks and is flagged, for :func:`_reduce_ranks` to visit in value order.
     """
     flag = np.uint32(1) << np.uint32(_IRREGULAR_BIT)
-    for v in range(words.size):
-        bits = words[v]
+    for r in range(words.size):
+        bits = words[r]
         marks = np.uint32(0)
         paired = 0
         for k in range(edge_codes.size - 1, -1, -1):
@@ -727,9 +727,9 @@ def _pair_own_squares(words, edge_codes, square_bit, counters):
             marks |= square
             paired += 1
         if paired < 0:
-            words[v] = bits | flag
+            words[r] = bits | flag
         else:
-            words[v] = bits | marks
+            words[r] = bits | marks
             counters[4] += paired
 
 
@@ -896,8 +896,8 @@ def _reduce_ranks(r_high, r_low, listed, use_list, level, order, rank, words, n0
     faces = np.empty(4, dtype=np.int64)
     cofaces = np.empty(6, dtype=np.int64)
     heap = np.empty(64, dtype=np.int64)
-    for j in range(r_high, r_low - 1, -1):
-        r = np.int64(listed[j]) if use_list else np.int64(j)
+    for step in range(r_high, r_low - 1, -1):
+        r = np.int64(listed[step]) if use_list else np.int64(step)
         v = np.int64(order[r])
         i2 = v % n2
         i1 = (v // n2) % n1
@@ -912,7 +912,7 @@ def _reduce_ranks(r_high, r_low, listed, use_list, level, order, rank, words, n0
             if pivot < 0:
                 counters[5] += 1
                 continue
-            if not _marked(pivot, order, words, square_bit):
+            if not _marked(pivot, words, square_bit):
                 counters[4] += 1
             else:
                 counters[3] += 1
@@ -945,7 +945,7 @@ def _reduce_ranks(r_high, r_low, listed, use_list, level, order, rank, words, n0
                             heap, size = _heap_push(heap, size, cofaces[j])
                         counters[6] += count
                     pivot, heap, size = _heap_pivot(heap, size)
-                    if pivot < 0 or not _marked(pivot, order, words, square_bit):
+                    if pivot < 0 or not _marked(pivot, words, square_bit):
                         break
                 if pivot < 0:
                     counters[5] += 1

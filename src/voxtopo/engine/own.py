@@ -257,7 +257,8 @@ def bytes_needed(shape, dtype, neighbourhood=None) -> int:
     The sweeps hold one union-find index per voxel, a byte per voxel while the voxels
     left for the sweep proper are collected, and those voxels' order; a 3D volume's
     dimension-1 reduction runs beside them, or after them with one thread (with a reversed
-    copy of the values for a superlevel run, planned for here). The pairs are planned at one per fifty voxels.
+    copy of the values for a superlevel run, and for the vertex construction a padded
+    one, planned for here). The pairs are planned at one per fifty voxels.
     ``neighbourhood`` does not change the need and is accepted for the common signature.
 
     Examples
@@ -359,12 +360,13 @@ def _dimension_one(values, flat, superlevel, construction, threads, progress):
     """
     from . import _reduction
 
-    if construction == "vertex":
-        # By the duality of image constructions (Garin, Heiss, Maggs, Bleile & Robins
-        # 2020), the loops of the vertex construction of f are those of the voxel
-        # construction of -f with the outside of the volume present from the start,
-        # births and deaths swapped; the voxel construction's reduction is the faster one.
-        dual = _padded_below(values if superlevel else _reversed_order_values(values))
+    # By the duality of image constructions (Garin, Heiss, Maggs, Bleile & Robins 2020),
+    # the loops of the vertex construction of f are those of the voxel construction of -f
+    # with the outside of the volume present from the start, births and deaths swapped;
+    # the voxel construction's reduction is the faster one.
+    dual = (_padded_below(values if superlevel else _reversed_order_values(values))
+            if construction == "vertex" else None)
+    if dual is not None:
         pairs = _reduction.pairs_dim1(dual, "voxel", progress=progress, threads=threads)
         birth_index = _unpad(np.asarray(pairs[3], dtype=np.int64), dual.shape)
         death_index = _unpad(np.asarray(pairs[2], dtype=np.int64), dual.shape)
@@ -384,23 +386,24 @@ def _dimension_one(values, flat, superlevel, construction, threads, progress):
     return births[keep], deaths[keep], birth_index[keep], death_index[keep]
 
 
-def _padded_below(values: np.ndarray) -> np.ndarray:
+def _padded_below(values: np.ndarray) -> np.ndarray | None:
     """``values`` with a one-voxel shell around them that comes before every voxel (the
     outside of the volume, present from the start of the sweep), in the same dtype when
-    it has room below the smallest value, else in a wider one."""
+    it has room below the smallest value, else in a wider one; None when no dtype holds
+    the values and a smaller one exactly (64-bit integers at the bottom of their range,
+    floats at the most negative finite value)."""
     low = values.min()
     if values.dtype.kind == "f":
         below = np.nextafter(low, -np.inf).astype(values.dtype)
         if not np.isfinite(below):
-            values, below = values.astype(np.float64), np.float64(low) - 1.0
+            return None
     elif values.dtype.kind in "ui":
         if low > np.iinfo(values.dtype).min:
             below = values.dtype.type(low - 1)
+        elif values.dtype.itemsize == 8:
+            return None
         else:
             wider = {1: np.int16, 2: np.int32}.get(values.dtype.itemsize, np.int64)
-            if values.dtype == np.int64:
-                raise InputError("The vertex construction's loops need one value below "
-                                 "the smallest int64 voxel; convert the volume to float64.")
             values, below = values.astype(wider), wider(int(low) - 1)
     else:
         values = values.astype(np.int16)
