@@ -16,20 +16,6 @@ from voxtopo.errors import InputError
 from voxtopo.pipeline import AnalysisOptions, analyse
 
 
-@pytest.fixture(scope="module")
-def cluster_address():
-    """One local cluster for the whole module: starting one takes seconds."""
-    import dask
-    from distributed import LocalCluster
-
-    with dask.config.set(batch._WORKER_CONFIG):
-        cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                               host="127.0.0.1", dashboard_address=None,
-                               memory_limit="3GiB", silence_logs=40)
-    yield cluster.scheduler_address
-    cluster.close()
-
-
 def _textures(folder, count=4, shape=(28, 28)):
     """Generated scans: smoothed noise of two correlation lengths."""
     folder.mkdir(parents=True, exist_ok=True)

@@ -65,9 +65,16 @@ def test_existing_result_folder_is_not_overwritten_without_force(tmp_path):
     assert result.returncode == 2
     assert "--force" in result.stderr and "Traceback" not in result.stderr
     assert (out / "keep.txt").read_text() == "mine"
+    # --force replaces only a folder voxtopo wrote: the user's own folder stays as it was
     result = _run("analyse", tmp_path / "a.npy", "--out", out, "--force")
-    assert result.returncode == 0
-    assert not (out / "keep.txt").exists() and (out / "pairs.csv").exists()
+    assert result.returncode == 2 and "voxtopo wrote" in result.stderr
+    assert (out / "keep.txt").read_text() == "mine" and not (out / "pairs.csv").exists()
+    ours = tmp_path / "ours"
+    assert _run("analyse", tmp_path / "a.npy", "--out", ours).returncode == 0
+    (ours / "pairs.csv").write_text("stale")
+    result = _run("analyse", tmp_path / "a.npy", "--out", ours, "--force")
+    assert result.returncode == 0, result.stderr
+    assert (ours / "pairs.csv").read_text() != "stale"
 
 
 @pytest.mark.parametrize("make, words", [

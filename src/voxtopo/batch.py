@@ -1,9 +1,8 @@
 """Many scans with one set of settings, as dask.distributed tasks.
 
-``voxtopo batch MANIFEST --out DIR`` runs one job ("analyse", "pores" with
-:mod:`voxtopo.porosity`, or "patches" with :mod:`voxtopo.patches`) on every scan of a
-manifest, one dask task per scan, on a local cluster or on any dask scheduler, and
-writes::
+`voxtopo batch MANIFEST --out DIR` runs one job ("analyse", "pores" or "patches") on every
+scan of a manifest, one dask task per scan, on a local cluster or on any dask scheduler,
+and writes:
 
     DIR/settings.toml (or .yaml)   the settings every scan was run with
     DIR/manifest.csv               the manifest as read, with the result folder names
@@ -12,29 +11,35 @@ writes::
     DIR/failures.csv               scans that failed, with their one-sentence message
     DIR/report.html                the batch report, linking each scan's own report
 
-A rerun with the same DIR skips scans whose result folder is complete (it has
-summary.json; folders are written atomically) and redoes the rest, including folders left
-half-made by an interrupted run.
+DIR must be new, or a batch folder voxtopo wrote: a rerun with the same DIR and settings
+skips scans whose result folder is complete (folders are written whole or not at all) and
+redoes the rest; --force starts it anew. DIR may not hold the manifest, the settings file
+or any scan. The tables and the report are written even when a run stops early (Ctrl-C,
+no dask worker left), and the finished scans are kept.
 
 The manifest
 ------------
 A CSV file with a header row and one row per scan. Columns:
 
-``path`` (required)
-    The scan: any file, folder, glob or zarr store :func:`voxtopo.load` reads; relative
-    paths are relative to the manifest's folder.
-``spacing`` (optional)
+path (required)
+    The scan: any file, folder, glob or zarr store voxtopo reads; relative paths are
+    relative to the manifest's folder.
+spacing (optional)
     Voxel size "z,y,x" (or one number for every axis), e.g. "2.5,2.5,2.5"; wins over the
     file's metadata and over the settings file.
-``unit`` (optional)
+unit (optional)
     Unit of the spacing (um, nm, mm, ...).
-``group`` (optional)
-    A label for comparisons (``voxtopo compare DIR`` colours and tests by it).
-``name`` (optional)
-    The result folder name; by default the file name without its extensions, made unique.
+group (optional)
+    A label for comparisons (`voxtopo compare DIR` colours and tests by it).
+name (optional)
+    The result folder name; by default the file name without its extensions. Names are
+    made safe: letters, digits, "-", "_" and inner dots are kept, anything else becomes
+    "_", leading dots go, and rows that would share a folder get -2, -3, ...
+channel, timepoint, level (optional)
+    Which channel, time point or resolution level of this scan to read; win over [load].
 Any other column is kept as it is and copied into summary.csv.
 
-Instead of a CSV file, MANIFEST may be a glob such as ``"scans/*.tif"`` (quote it).
+Instead of a CSV file, MANIFEST may be a glob such as "scans/*.tif" (quote it).
 
 The settings file (TOML, or YAML with the same keys)
 ----------------------------------------------------
@@ -54,19 +59,19 @@ The settings file (TOML, or YAML with the same keys)
     byte_order = "little"
     offset = 0
 
-    [analyse]                  # every field of voxtopo.pipeline.AnalysisOptions:
-    superlevel = false         # superlevel, neighbourhood, sigma, crop, downsample,
+    [analyse]                  # the options of `voxtopo analyse`: superlevel,
+    superlevel = false         # neighbourhood, sigma (= --smooth), crop, downsample,
     neighbourhood = 26         # distance, threshold, pores_bright, fill_invalid,
     min_persistence = 0.0      # min_persistence, periodic, field, engine
 
-    [pores]                    # keywords of voxtopo.porosity.analyse: threshold,
+    [pores]                    # the options of `voxtopo pores`: threshold,
     threshold = "otsu"         # pores_bright, label, axis, neighbourhood,
     pores_bright = false       # min_lifetime, engine
 
-    [patches]                  # every field of voxtopo.patches.PatchOptions: k,
-    k = 3                      # contrast_percent, positions, seed, log, axis, slices,
-    landmarks = 150            # k_neighbour, density_percent, landmarks, fields,
-                               # max_edge, method, max_dimension
+    [patches]                  # the options of `voxtopo patches`: k, contrast_percent,
+    k = 3                      # positions, seed, log, axis, slices, k_neighbour,
+    landmarks = 150            # density_percent, landmarks, fields, max_edge,
+                               # method, max_dimension
 
     [batch]
     workers = 2                # local cluster size (default: the number of cores)
@@ -74,8 +79,10 @@ The settings file (TOML, or YAML with the same keys)
     out_of_core = "auto"       # zarr scans: "auto" (when a scan would not fit a
                                # worker), true (always) or false (never)
     chunks = [128, 128, 128]   # out-of-core block shape (default: the store's chunks)
+    worker_timeout = 120       # seconds with no dask worker before the batch stops
 
-Every key is optional; unknown keys are refused with the key's name.
+Every key is optional. Unknown keys and values of the wrong type or range are refused
+before anything runs, with the key's name.
 """
 
 from __future__ import annotations
@@ -89,24 +96,50 @@ import re
 import shutil
 import sys
 import time
-from dataclasses import dataclass, field, fields
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
 from .errors import InputError, VoxtopoError
+from .io.results import (check_output, is_complete, is_voxtopo_folder, safe_folder_name,
+                         unique_folder_names, write_atomically, write_marker)
+from .options import (AXIS, BOOLEAN, COUNT, ENGINE, NEIGHBOURHOOD, NON_NEGATIVE, POSITIVE, SHAPE,
+                      SPACING, TEXT, THRESHOLD, WHOLE, Rule, check, one_of, optional)
 from .engine.own import THREADS_VARIABLE
 
 __all__ = ["run_batch", "read_manifest", "read_settings", "Settings", "ScanEntry",
            "analyse_out_of_core", "summary_table", "plan_workers"]
 
 JOBS = ("analyse", "pores", "patches")
-LOAD_KEYS = ("spacing", "unit", "channel", "timepoint", "level", "shape", "dtype",
-             "byte_order", "offset")
-PORES_KEYS = ("threshold", "pores_bright", "label", "axis", "neighbourhood", "min_lifetime",
-              "engine")
-BATCH_KEYS = ("workers", "memory_per_worker", "out_of_core", "chunks")
+
+#: How every scan is read ([load]); the manifest's columns of the same names win.
+LOAD_RULES = {
+    "spacing": SPACING, "unit": TEXT, "channel": WHOLE, "timepoint": WHOLE, "level": WHOLE,
+    "shape": SHAPE, "dtype": TEXT, "byte_order": one_of("little", "big"), "offset": WHOLE,
+}
+#: Keywords of voxtopo.porosity.analyse that a settings file may set ([pores]).
+PORES_RULES = {
+    "threshold": optional(THRESHOLD), "pores_bright": BOOLEAN, "label": optional(WHOLE),
+    "axis": optional(AXIS), "neighbourhood": optional(NEIGHBOURHOOD),
+    "min_lifetime": optional(NON_NEGATIVE), "engine": ENGINE,
+}
+#: How the batch itself runs ([batch]).
+BATCH_RULES = {
+    "workers": COUNT,
+    "memory_per_worker": Rule(lambda v: _bytes_or_none(v) is not False,
+                              "a number of bytes, \"auto\" or a size like \"8GB\""),
+    "out_of_core": one_of("auto", True, False),
+    "chunks": SHAPE,
+    "worker_timeout": POSITIVE,
+}
+#: Manifest columns that choose how one scan is read.
+_LOAD_COLUMNS = ("channel", "timepoint", "level")
+
+#: Seconds a batch waits with no dask worker connected before it stops (keeping what
+#: finished); ``[batch] worker_timeout`` changes it.
+WORKER_TIMEOUT = 120.0
 
 #: Working memory of one scan beyond the persistence engine's own estimate: the loaded
 #: array, its float copy and the prepared filtration, planned at 8 bytes a voxel each.
@@ -161,20 +194,6 @@ class Settings:
                 "batch": dict(self.batch)}
 
 
-def _analysis_fields() -> tuple[str, ...]:
-    from .pipeline import AnalysisOptions
-
-    return tuple(f.name for f in fields(AnalysisOptions))
-
-
-def _patch_fields() -> tuple[str, ...]:
-    try:
-        from .patches import PatchOptions
-    except ImportError:
-        return ()
-    return tuple(f.name for f in fields(PatchOptions))
-
-
 def read_settings(path=None) -> tuple[Settings, str, str]:
     """Read and check a TOML or YAML settings file.
 
@@ -226,44 +245,48 @@ def _check_settings(raw: dict, path) -> Settings:
     if job not in JOBS:
         raise InputError(f"job = {job!r} in {path} is not a job voxtopo batch runs; choose "
                          f"one of {list(JOBS)}.")
-    tables = {"load": LOAD_KEYS, "analyse": _analysis_fields(), "pores": PORES_KEYS,
-              "patches": _patch_fields(), "batch": BATCH_KEYS}
     checked = {}
-    for table, keys in tables.items():
+    for table in ("load", "analyse", "pores", "patches", "batch"):
         value = raw.get(table, {}) or {}
         if not isinstance(value, dict):
             raise InputError(f"[{table}] in {path} should be a table of keys, got {value!r}.")
-        unknown = set(value) - set(keys)
-        if unknown:
-            raise InputError(f"[{table}] in {path} has the unknown key(s) {sorted(unknown)}; "
-                             f"it knows {sorted(keys)}.")
         checked[table] = dict(value)
-    out_of_core = checked["batch"].get("out_of_core", "auto")
-    if out_of_core not in ("auto", True, False):
-        raise InputError(f"out_of_core in {path} should be \"auto\", true or false, "
-                         f"got {out_of_core!r}.")
-    workers = checked["batch"].get("workers")
-    if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int)
-                                or workers < 1):
-        raise InputError(f"workers in {path} should be a whole number of 1 or more, "
-                         f"got {workers!r}.")
-    if "memory_per_worker" in checked["batch"]:
-        _parse_bytes(checked["batch"]["memory_per_worker"], path)
+    where = {table: f"[{table}] in {Path(path).name}" for table in checked}
+    from .patches import PATCH_RULES
+    from .pipeline import ANALYSE_RULES
+
+    for table, rules in (("load", LOAD_RULES), ("analyse", ANALYSE_RULES),
+                         ("pores", PORES_RULES), ("patches", PATCH_RULES),
+                         ("batch", BATCH_RULES)):
+        check(checked[table], rules, where[table])
+    # the jobs' own options also check how their fields go together
+    _job_options(_analysis_options, checked["analyse"], where["analyse"])
+    _job_options(_patch_options, checked["patches"], where["patches"])
     return Settings(job=job, **checked)
 
 
-def _parse_bytes(value, where) -> int | None:
+def _job_options(make, values: dict, where: str):
+    try:
+        return make(values)
+    except InputError as error:
+        raise InputError(f"{where}: {error}") from None
+
+
+def _bytes_or_none(value):
+    """Bytes of a memory size, None for "auto", False when it is not a size."""
     if value in (None, "auto"):
         return None
-    if isinstance(value, (int, float)) and not isinstance(value, bool) and value > 0:
-        return int(value)
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        return int(value) if math.isfinite(value) and value > 0 else False
     match = re.fullmatch(r"\s*([\d.]+)\s*([kMGT]?i?B)\s*", str(value))
     units = {"B": 1, "kB": 1e3, "MB": 1e6, "GB": 1e9, "TB": 1e12, "kiB": 2**10,
              "MiB": 2**20, "GiB": 2**30, "TiB": 2**40}
     if not match or match.group(2) not in units:
-        raise InputError(f"memory_per_worker in {where} should be a number of bytes, \"auto\" "
-                         f"or a size like \"8GB\", got {value!r}.")
-    return int(float(match.group(1)) * units[match.group(2)])
+        return False
+    try:
+        return int(float(match.group(1)) * units[match.group(2)])
+    except ValueError:
+        return False
 
 
 def _toml_value(value) -> str:
@@ -300,6 +323,7 @@ class ScanEntry:
     unit: str | None
     group: str
     columns: dict
+    load: dict = field(default_factory=dict)
 
 
 def _spacing_text(text, where) -> tuple | None:
@@ -315,68 +339,103 @@ def _spacing_text(text, where) -> tuple | None:
     return values
 
 
-def _folder_name(path: str) -> str:
-    stem = Path(path.rstrip("/")).name.split(".")[0] or "scan"
-    return re.sub(r"[^A-Za-z0-9_-]+", "_", stem).strip("_") or "scan"
+def _default_name(path: str) -> str:
+    """The result folder name of a scan with no name: its file name without extensions."""
+    return Path(path.rstrip("/")).name.split(".")[0]
+
+
+def _csv_rows(path: Path) -> list[tuple[int, dict]]:
+    """(line number, row) of a CSV manifest; a row with more or fewer fields than the
+    header is refused, naming the line."""
+    try:
+        with open(path, newline="", encoding="utf-8-sig") as handle:
+            lines = [(number, cells) for number, cells in enumerate(csv.reader(handle), 1)
+                     if any(cell.strip() for cell in cells)]
+    except (OSError, UnicodeDecodeError, csv.Error) as exc:
+        raise InputError(f"{path} is not a readable CSV manifest "
+                         f"({' '.join(str(exc).split())[:120]}).") from None
+    if not lines:
+        raise InputError(f"The manifest {path} is empty; its first line should be a header "
+                         f"starting with path.")
+    _, header = lines[0]
+    header = [name.strip() for name in header]
+    if "path" not in header:
+        raise InputError(f"{path} has no 'path' column; its header should start with "
+                         f"path (then optionally spacing, unit, group, name).")
+    rows = []
+    for number, cells in lines[1:]:
+        if len(cells) != len(header):
+            raise InputError(f"Line {number} of {path} has {len(cells)} fields but the header "
+                             f"has {len(header)} ({','.join(header)}); quote values that "
+                             f"hold commas.")
+        rows.append((number, dict(zip(header, (cell.strip() for cell in cells)))))
+    return rows
+
+
+def _load_columns(row: dict, where: str) -> dict:
+    """channel, timepoint and level columns: whole numbers that choose what is read."""
+    chosen = {}
+    for column in _LOAD_COLUMNS:
+        text = str(row.get(column, "") or "").strip()
+        if text:
+            if not text.isdigit():
+                raise InputError(f"{column} {text!r} in {where} should be a whole number, "
+                                 f"0 or more.")
+            chosen[column] = int(text)
+    return chosen
 
 
 def read_manifest(manifest) -> list[ScanEntry]:
     """Read a manifest CSV (or expand a glob) into ScanEntry rows, in file order.
 
+    Each row's result folder name (the ``name`` column, or the file name) is made safe:
+    no separators, no dots-only or hidden names, and no two rows share a folder.
+
     Examples
     --------
     >>> import tempfile, pathlib
     >>> folder = pathlib.Path(tempfile.mkdtemp())
-    >>> _ = (folder / "m.csv").write_text("path,group\\na.npy,before\\nb.npy,after\\n")
+    >>> _ = (folder / "m.csv").write_text("path,group,name\\na.npy,before,..\\nb.npy,after,a\\n")
     >>> [(e.name, e.group) for e in read_manifest(folder / "m.csv")]
-    [('a', 'before'), ('b', 'after')]
+    [('a', 'before'), ('a-2', 'after')]
     """
     text = str(manifest)
     path = Path(manifest)
     if path.is_file() and path.suffix.lower() == ".csv":
-        try:
-            frame = pd.read_csv(path, dtype=str, keep_default_na=False)
-        except Exception as exc:
-            raise InputError(f"{path} is not a readable CSV manifest "
-                             f"({' '.join(str(exc).split())[:120]}).") from None
-        if "path" not in frame.columns:
-            raise InputError(f"{path} has no 'path' column; its header should start with "
-                             f"path (then optionally spacing, unit, group, name).")
         base = path.parent
-        rows = frame.to_dict(orient="records")
+        rows = _csv_rows(path)
     else:  # a glob, or the path of one scan (a glob that matches itself)
         matches = sorted(glob.glob(text))
         if not matches:
             raise InputError(f"No manifest file and no scans match {text}; give a .csv "
                              f"manifest or a glob that matches scan files.")
         base = Path(".")
-        rows = [{"path": m} for m in matches]
+        rows = [(number, {"path": m}) for number, m in enumerate(matches, 1)]
     if not rows:
         raise InputError(f"The manifest {text} lists no scans.")
-    entries, used = [], {}
-    for number, row in enumerate(rows, start=2):
+    names = unique_folder_names(
+        safe_folder_name(row.get("name", ""),
+                         fallback=safe_folder_name(_default_name(row.get("path", ""))))
+        for _, row in rows)
+    entries = []
+    for (number, row), name in zip(rows, names):
+        where = f"line {number} of {text}"
         raw_path = str(row.get("path", "")).strip()
         if not raw_path:
-            raise InputError(f"Row {number} of {text} has an empty path.")
+            raise InputError(f"The path in {where} is empty; give the scan's file or folder.")
         full = raw_path if Path(raw_path).is_absolute() else str(base / raw_path)
-        name = str(row.get("name", "") or "").strip() or _folder_name(raw_path)
-        name = re.sub(r"[^A-Za-z0-9_.-]+", "_", name)
-        if name in used:
-            used[name] += 1
-            name = f"{name}-{used[name]}"
-        used.setdefault(name, 1)
-        where = f"row {number} of {text}"
         entries.append(ScanEntry(name=name, path=full,
                                  spacing=_spacing_text(row.get("spacing"), where),
                                  unit=(str(row.get("unit") or "").strip() or None),
                                  group=str(row.get("group", "") or ""),
-                                 columns={k: v for k, v in row.items() if k != "name"}))
+                                 columns={k: v for k, v in row.items() if k != "name"},
+                                 load=_load_columns(row, where)))
     return entries
 
 
 # --- one scan, on a worker -------------------------------------------------------------------
 def _load_options(entry: ScanEntry, settings: Settings) -> dict:
-    options = dict(settings.load)
+    options = {**settings.load, **entry.load}
     if entry.spacing is not None:
         options["spacing"] = entry.spacing
     if entry.unit is not None:
@@ -388,13 +447,19 @@ def _load_options(entry: ScanEntry, settings: Settings) -> dict:
     return options
 
 
-def _analysis_options(settings: Settings):
+def _analysis_options(values: dict):
+    """AnalysisOptions from an [analyse] table (checked when the settings are read)."""
     from .pipeline import AnalysisOptions
 
-    try:
-        return AnalysisOptions(**settings.analyse)
-    except TypeError as exc:
-        raise InputError(f"The [analyse] settings cannot be used ({exc}).") from None
+    return AnalysisOptions(**values)
+
+
+def _patch_options(values: dict):
+    """PatchOptions from a [patches] table; TOML lists become the tuples it holds."""
+    from .patches import PatchOptions
+
+    return PatchOptions(**{k: tuple(v) if isinstance(v, list) else v
+                           for k, v in values.items()})
 
 
 def analyse_out_of_core(source, out, options=None, *, load_options=None, chunks=None,
@@ -466,7 +531,7 @@ def _run_one(job: str, path: str, out: str, load_options: dict, settings: dict) 
         if job == "analyse":
             from .pipeline import analyse
 
-            analyse(path, out, _analysis_options(settings), force=True,
+            analyse(path, out, _analysis_options(settings.analyse), force=True,
                     load_options=load_options)
         elif job == "pores":
             _run_pores(path, out, load_options, settings)
@@ -481,40 +546,20 @@ def _run_one(job: str, path: str, out: str, load_options: dict, settings: dict) 
 
 
 def _run_pores(path, out, load_options, settings: Settings) -> None:
-    try:
-        from . import porosity
-    except ImportError:
-        raise InputError("The pores job needs voxtopo.porosity, which this installation "
-                         "lacks; use job = \"analyse\".") from None
+    from . import porosity
     from .io import load
-    from .report.html import write_report
 
     scan = load(path, **load_options)
-    options = dict(settings.pores)
-    if isinstance(options.get("axis"), list):
-        options["axis"] = list(options["axis"])
-    analysis = porosity.analyse(scan, **options)
+    analysis = porosity.analyse(scan, **settings.pores)
     porosity.write_pores(out, analysis, scan, force=True)
-    write_report(out)
 
 
 def _run_patches(path, out, load_options, settings: Settings) -> None:
-    try:
-        from . import patches
-    except ImportError:
-        raise InputError("The patches job needs voxtopo.patches, which this installation "
-                         "lacks; use job = \"analyse\".") from None
+    from . import patches
     from .io import load
-    from .report.html import write_report
 
     scan = load(path, **load_options)
-    options = {k: tuple(v) if isinstance(v, list) else v for k, v in settings.patches.items()}
-    try:
-        chosen = patches.PatchOptions(**options)
-    except TypeError as exc:
-        raise InputError(f"The [patches] settings cannot be used ({exc}).") from None
-    patches.analyse([scan], out, chosen, force=True)
-    write_report(out)
+    patches.analyse([scan], out, _patch_options(settings.patches), force=True)
 
 
 # --- planning -------------------------------------------------------------------------------
@@ -575,15 +620,19 @@ def plan_workers(needs: list[int], *, workers=None, memory_per_worker=None,
 
 # --- the run ------------------------------------------------------------------------------
 def _clear_half_made(scans_dir: Path, name: str) -> bool:
-    """Remove what an interrupted run left of one scan; True when something was removed."""
+    """Remove what an interrupted run left of one scan; True when something was removed.
+
+    Only voxtopo's own leftovers go: temporary folders of this scan's name, and a result
+    folder with voxtopo's marker but no summary. Anything else is left for the scan's run
+    to refuse in one sentence."""
     removed = False
-    for partial in scans_dir.glob(f".{name}.partial-*"):
-        shutil.rmtree(partial, ignore_errors=True)
-        removed = True
-    for old in scans_dir.glob(f".{name}.old-*"):
-        shutil.rmtree(old, ignore_errors=True)
+    escaped = glob.escape(name)
+    for pattern in (f".{escaped}.partial-*", f".{escaped}.old-*"):
+        for leftover in scans_dir.glob(pattern):
+            shutil.rmtree(leftover, ignore_errors=True)
+            removed = removed or pattern.endswith("partial-*")
     target = scans_dir / name
-    if target.exists() and not (target / "summary.json").is_file():
+    if target.is_dir() and is_voxtopo_folder(target) and not is_complete(target):
         shutil.rmtree(target, ignore_errors=True)
         removed = True
     return removed
@@ -628,7 +677,7 @@ def summary_table(out, entries: list[ScanEntry], records: dict | None = None) ->
         row["name"] = entry.name
         folder = out / "scans" / entry.name
         summary_path = folder / "summary.json"
-        if summary_path.is_file():
+        if is_complete(folder):
             row["status"] = "done"
             row["result"] = f"scans/{entry.name}"
             for key, value in _key_numbers(json.loads(summary_path.read_text())).items():
@@ -688,30 +737,51 @@ class _Progress:
         self.stream.flush()
 
 
-def _prepare_out(out: Path, settings_text: str, kind: str, settings: Settings) -> None:
-    if out.exists() and not out.is_dir():
-        raise InputError(f"{out} exists and is not a folder; name a folder for the batch.")
-    if not out.parent.exists():
-        raise InputError(f"The folder {out.parent} that should hold {out.name} does not exist.")
-    saved = [p for p in (out / "settings.toml", out / "settings.yaml") if p.is_file()]
+def _check_out(out, inputs, settings: Settings, force: bool) -> Path:
+    """The batch folder, checked before anything runs: new, or a batch folder voxtopo
+    wrote (resumed with the same settings, or started anew with ``force``)."""
+    resolved = check_output(out, inputs)
+    if not resolved.exists() or not any(resolved.iterdir()):
+        return resolved
+    if not is_voxtopo_folder(resolved, "batch"):
+        raise InputError(f"{out} already exists and is not a batch folder voxtopo wrote; name "
+                         f"a new folder for the batch.")
+    if force:
+        return resolved
+    saved = [p for p in (resolved / "settings.toml", resolved / "settings.yaml") if p.is_file()]
     if saved:
         before, _, _ = read_settings(saved[0])
         if before.as_dict() != settings.as_dict():
             raise InputError(f"{out} was run with the settings in {saved[0].name}, which differ "
-                             f"from these; use the same settings to resume, or a new --out.")
-    out.mkdir(exist_ok=True)
+                             f"from these; use the same settings to resume, a new --out, or "
+                             f"--force to start it anew.")
+    return resolved
+
+
+def _make_out(out: Path, settings_text: str, kind: str, force: bool) -> None:
+    """Create (or, with ``force``, empty) the batch folder checked by _check_out."""
+    if force and out.exists() and is_voxtopo_folder(out, "batch"):
+        shutil.rmtree(out)
+    out.mkdir(parents=True, exist_ok=True)
+    if not is_voxtopo_folder(out, "batch"):
+        write_marker(out, "batch")
     (out / "scans").mkdir(exist_ok=True)
-    if not saved:
-        (out / f"settings.{kind}").write_text(settings_text, encoding="utf-8")
+    if not any((out / f"settings.{k}").is_file() for k in ("toml", "yaml")):
+        write_atomically(out / f"settings.{kind}",
+                         lambda p: p.write_text(settings_text, encoding="utf-8"))
 
 
 def _write_manifest(out: Path, entries: list[ScanEntry]) -> None:
     columns = ["name"] + list(dict.fromkeys(k for e in entries for k in e.columns))
-    with open(out / "manifest.csv", "w", newline="", encoding="utf-8") as handle:
-        writer = csv.DictWriter(handle, fieldnames=columns)
-        writer.writeheader()
-        for entry in entries:
-            writer.writerow({"name": entry.name, **entry.columns})
+
+    def write(path):
+        with open(path, "w", newline="", encoding="utf-8") as handle:
+            writer = csv.DictWriter(handle, fieldnames=columns)
+            writer.writeheader()
+            for entry in entries:
+                writer.writerow({"name": entry.name, **entry.columns})
+
+    write_atomically(out / "manifest.csv", write)
 
 
 def _job_of(entry: ScanEntry, settings: Settings, load_options: dict, worker_bytes) -> str:
@@ -731,28 +801,37 @@ def _job_of(entry: ScanEntry, settings: Settings, load_options: dict, worker_byt
     return "analyse"
 
 
-def _client(scheduler, workers, limit, stream):
+def _connect(scheduler):
+    from distributed import Client
+
+    try:
+        return Client(scheduler, timeout="10s")
+    except Exception as exc:
+        raise InputError(f"Could not reach the dask scheduler at {scheduler} "
+                         f"({' '.join(str(exc).split())[:120]}); check the address or leave "
+                         f"out --scheduler to use a local cluster.") from None
+
+
+def _local_cluster(workers, limit, scratch: Path):
+    """A local cluster whose workers keep their scratch files in ``scratch``."""
+    import dask
     from distributed import Client, LocalCluster
 
-    if scheduler:
-        try:
-            client = Client(scheduler, timeout="10s")
-        except Exception as exc:
-            raise InputError(f"Could not reach the dask scheduler at {scheduler} "
-                             f"({' '.join(str(exc).split())[:120]}); check the address or leave "
-                             f"out --scheduler to use a local cluster.") from None
-        return client, None
-    import dask
-
-    with dask.config.set(_WORKER_CONFIG):
+    scratch.mkdir(exist_ok=True)
+    with dask.config.set({**_WORKER_CONFIG, "temporary-directory": str(scratch)}):
         cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
                                memory_limit=limit, host="127.0.0.1",
-                               dashboard_address="127.0.0.1:0", silence_logs=40)
+                               dashboard_address="127.0.0.1:0", silence_logs=40,
+                               local_directory=str(scratch))
     return Client(cluster), cluster
 
 
+class WorkersLost(VoxtopoError):
+    """No dask worker was connected for longer than the batch's worker timeout."""
+
+
 def run_batch(manifest, out, *, settings_path=None, scheduler=None, workers=None,
-              stream=None) -> pd.DataFrame:
+              force: bool = False, stream=None) -> pd.DataFrame:
     """Run every scan of ``manifest`` as a dask task and write the batch folder ``out``.
 
     Parameters
@@ -760,70 +839,83 @@ def run_batch(manifest, out, *, settings_path=None, scheduler=None, workers=None
     manifest : path or glob
         A CSV manifest or a glob of scan files (see the module docstring).
     out : path
-        The batch folder (created; an existing one is resumed with the same settings).
+        The batch folder: created, or, when it is a batch folder voxtopo wrote, resumed
+        with the same settings. It may not hold the manifest, the settings or any scan.
     settings_path : path, optional
         TOML or YAML settings (see the module docstring); default settings otherwise.
     scheduler : str, optional
         Address of a running dask scheduler; default a new local cluster.
     workers : int, optional
         Workers of the local cluster (wins over the settings file).
+    force : bool
+        Start an existing batch folder voxtopo wrote anew instead of resuming it.
     stream : file, optional
         Where progress goes (default stderr).
 
     Returns
     -------
     DataFrame
-        The summary table also written to ``out/summary.csv``.
+        The summary table also written to ``out/summary.csv``. The tables and the report
+        are written even when the run stops early (Ctrl-C, no workers left); finished
+        scans are kept and a rerun resumes.
+
+    Raises
+    ------
+    WorkersLost
+        With ``--scheduler``, when no worker was connected for ``[batch] worker_timeout``
+        seconds.
     """
     from .memory import human
-    from .report.html import write_batch_report
 
     stream = stream or sys.stderr
     settings, text, kind = read_settings(settings_path)
     entries = read_manifest(manifest)
-    out = Path(out)
-    _prepare_out(out, text, kind, settings)
-    _write_manifest(out, entries)
-    scans_dir = out / "scans"
-
-    todo, skipped = [], 0
-    for entry in entries:
-        if (scans_dir / entry.name / "summary.json").is_file():
-            skipped += 1
-            continue
-        if _clear_half_made(scans_dir, entry.name):
-            stream.write(f"voxtopo batch: {entry.name} was left half-made; redoing it\n")
-        todo.append(entry)
-    stream.write(f"voxtopo batch: {len(entries)} scans, {skipped} already complete, "
-                 f"{len(todo)} to run\n")
-
+    manifest_file = Path(manifest) if Path(manifest).is_file() else None
+    inputs = [manifest_file, settings_path, *(entry.path for entry in entries)]
+    out = _check_out(out, [i for i in inputs if i is not None], settings, force)
+    loads = {e.name: _load_options(e, settings) for e in entries}
+    needs = [scan_bytes(*peek, settings.job) for e in entries
+             if (peek := _peek(e.path, loads[e.name])) is not None]
+    count, limit = plan_workers(
+        needs, workers=workers or settings.batch.get("workers"),
+        memory_per_worker=_bytes_or_none(settings.batch.get("memory_per_worker")))
+    # a scheduler that cannot be reached must leave no folder behind
+    client = _connect(scheduler) if scheduler else None
+    cluster = None
     records = {}
-    if todo:
-        loads = {e.name: _load_options(e, settings) for e in todo}
-        needs = [scan_bytes(*peek, settings.job) for e in todo
-                 if (peek := _peek(e.path, loads[e.name])) is not None]
-        count, limit = plan_workers(
-            needs, workers=workers or settings.batch.get("workers"),
-            memory_per_worker=_parse_bytes(settings.batch.get("memory_per_worker"),
-                                           "the settings"))
-        jobs = {e.name: _job_of(e, settings, loads[e.name], limit) for e in todo}
-        client, cluster = _client(scheduler, count, limit, stream)
-        try:
-            if cluster is not None:
+    try:
+        _make_out(out, text, kind, force)
+        _write_manifest(out, entries)
+        scans_dir = out / "scans"
+        todo = []
+        for entry in entries:
+            if is_complete(scans_dir / entry.name):
+                continue
+            if _clear_half_made(scans_dir, entry.name):
+                stream.write(f"voxtopo batch: {entry.name} was left half-made; redoing it\n")
+            todo.append(entry)
+        skipped = len(entries) - len(todo)
+        stream.write(f"voxtopo batch: {len(entries)} scans, {skipped} already complete, "
+                     f"{len(todo)} to run\n")
+        if todo:
+            if client is None:
+                client, cluster = _local_cluster(count, limit, out / _SCRATCH)
                 stream.write(f"voxtopo batch: local cluster of {count} worker(s), "
                              f"{human(limit)} each\n")
             stream.write(f"voxtopo batch: dashboard at {client.dashboard_link}\n")
             stream.flush()
-            records = _submit_all(client, todo, jobs, loads, settings, scans_dir, skipped,
-                                  stream)
-        finally:
+            jobs = {e.name: _job_of(e, settings, loads[e.name], limit) for e in todo}
+            timeout = float(settings.batch.get("worker_timeout", WORKER_TIMEOUT))
+            _submit_all(client, todo, jobs, loads, settings, scans_dir, skipped, stream,
+                        records, scheduler, timeout)
+    finally:
+        if client is not None:
             client.close()
-            if cluster is not None:
-                cluster.close()
-
-    table = summary_table(out, entries, records)
-    _write_tables(out, table, entries, records)
-    write_batch_report(out, settings.as_dict())
+        if cluster is not None:
+            cluster.close()
+        shutil.rmtree(out / _SCRATCH, ignore_errors=True)
+        if out.is_dir() and is_voxtopo_folder(out, "batch"):
+            table = _write_tables(out, entries, records, settings)
     done = int((table["status"] == "done").sum())
     stream.write(f"voxtopo batch: finished: {done} of {len(entries)} scans complete; "
                  f"results in {out}\n")
@@ -831,11 +923,17 @@ def run_batch(manifest, out, *, settings_path=None, scheduler=None, workers=None
     return table
 
 
-def _submit_all(client, todo, jobs, loads, settings, scans_dir, skipped, stream) -> dict:
-    from distributed import as_completed
+#: Where the local cluster's workers keep their scratch files, inside the batch folder.
+_SCRATCH = ".dask-scratch"
+
+
+def _submit_all(client, todo, jobs, loads, settings, scans_dir, skipped, stream, records,
+                scheduler, timeout) -> None:
+    """Run the scans, filling ``records`` as each finishes (so that what finished before an
+    interruption is known)."""
+    from distributed import wait
 
     progress = _Progress(len(todo), skipped, stream)
-    records = {}
     futures = {}
     in_process = [e for e in todo if jobs[e.name] == "analyse-out-of-core"]
     for entry in todo:
@@ -855,30 +953,51 @@ def _submit_all(client, todo, jobs, loads, settings, scans_dir, skipped, stream)
     except ImportError:
         pass
 
-    for future in as_completed(list(futures)):
-        entry = futures[future]
+    pending = set(futures)
+    alone_since = None
+    while pending:
         try:
-            record = future.result()
-        except Exception as error:  # the worker itself died (memory limit, kill)
-            record = {"status": "failed", "seconds": float("nan"),
-                      "message": f"the dask worker running it failed "
-                                 f"({type(error).__name__}: {' '.join(str(error).split())[:200]}); "
-                                 f"it may have run out of memory"}
-        records[entry.name] = record
-        progress.update(entry.name, record)
+            finished, pending = wait(pending, timeout=1.0, return_when="FIRST_COMPLETED")
+        except TimeoutError:        # nothing finished within the second
+            finished = set()
+        for future in finished:
+            entry = futures[future]
+            records[entry.name] = _record_of(future)
+            progress.update(entry.name, records[entry.name])
+        if finished or client.scheduler_info().get("workers"):
+            alone_since = None
+            continue
+        alone_since = alone_since or time.monotonic()
+        if time.monotonic() - alone_since > timeout:
+            for future in pending:
+                future.cancel()
+            kept = sum(r["status"] == "done" for r in records.values()) + skipped
+            raise WorkersLost(
+                f"No dask worker has been connected to the scheduler at "
+                f"{scheduler or 'the local cluster'} for {timeout:g} s; the {kept} finished "
+                f"scan(s) were kept in {scans_dir}, and running the same command again once "
+                f"workers are back resumes the rest.")
     for entry in in_process:
         # Out-of-core scans spread their chunk tasks over the whole cluster.
-        record = _run_out_of_core(client, entry, loads[entry.name], settings,
-                                  scans_dir / entry.name)
-        records[entry.name] = record
-        progress.update(entry.name, record)
-    return records
+        records[entry.name] = _run_out_of_core(client, entry, loads[entry.name], settings,
+                                               scans_dir / entry.name)
+        progress.update(entry.name, records[entry.name])
+
+
+def _record_of(future) -> dict:
+    try:
+        return future.result()
+    except Exception as error:  # the worker itself died (memory limit, kill)
+        return {"status": "failed", "seconds": float("nan"),
+                "message": f"the dask worker running it failed "
+                           f"({type(error).__name__}: {' '.join(str(error).split())[:200]}); "
+                           f"it may have run out of memory"}
 
 
 def _run_out_of_core(client, entry, load_options, settings, out) -> dict:
     start = time.perf_counter()
     try:
-        analyse_out_of_core(entry.path, out, _analysis_options(settings),
+        analyse_out_of_core(entry.path, out, _analysis_options(settings.analyse),
                             load_options=load_options, chunks=settings.batch.get("chunks"),
                             force=True, scheduler=client)
         return {"status": "done", "message": "", "seconds": time.perf_counter() - start}
@@ -887,20 +1006,27 @@ def _run_out_of_core(client, entry, load_options, settings, out) -> dict:
                 "seconds": time.perf_counter() - start}
 
 
-def _write_tables(out: Path, table: pd.DataFrame, entries, records) -> None:
-    table.to_csv(out / "summary.csv", index=False)
+def _write_tables(out: Path, entries, records, settings: Settings) -> pd.DataFrame:
+    """summary.csv (+ .parquet), failures.csv and report.html, each written atomically so
+    that a full disk leaves the previous version readable."""
+    from .report.html import write_batch_report
+
+    table = summary_table(out, entries, records)
+    write_atomically(out / "summary.csv", lambda p: table.to_csv(p, index=False))
     try:
         import pyarrow  # noqa: F401
     except ImportError:
         (out / "summary.parquet").unlink(missing_ok=True)
     else:
-        table.astype({c: str for c in table.columns if table[c].dtype == object}
-                     ).to_parquet(out / "summary.parquet", index=False)
+        frame = table.astype({c: str for c in table.columns if table[c].dtype == object})
+        write_atomically(out / "summary.parquet", lambda p: frame.to_parquet(p, index=False))
     failed = [{"name": e.name, "path": e.path,
                "message": records.get(e.name, {}).get("message", "not run")}
-              for e in entries if not (out / "scans" / e.name / "summary.json").is_file()]
+              for e in entries if not is_complete(out / "scans" / e.name)]
     failures = out / "failures.csv"
     if failed:
-        pd.DataFrame(failed).to_csv(failures, index=False)
+        write_atomically(failures, lambda p: pd.DataFrame(failed).to_csv(p, index=False))
     else:
         failures.unlink(missing_ok=True)
+    write_batch_report(out, settings.as_dict())
+    return table

@@ -14,6 +14,7 @@ import time
 from . import __version__
 from .errors import Cancelled, VoxtopoError
 
+EXIT_FAILED = 1
 EXIT_BAD_INPUT = 2
 EXIT_INTERRUPTED = 130
 
@@ -155,7 +156,7 @@ def _run_analyse(args) -> int:
         threshold=threshold, pores_bright=args.pores_bright,
         fill_invalid=_fill_value(args.fill_invalid), min_persistence=args.min_persistence,
         periodic=args.periodic, field=args.field, engine=args.engine)
-    check_target(args.out, args.force)
+    check_target(args.out, args.force, inputs=[args.scan])
     load_options = load_options_from(args)
     if args.out_of_core:
         return _run_out_of_core(args, options, load_options)
@@ -238,7 +239,7 @@ def _run_pores(args) -> int:
     if args.mask and (threshold is not None or args.label is not None):
         raise VoxtopoError("--mask already says which voxels are pores; leave out "
                            "--threshold and --label.")
-    check_target(args.out, args.force)
+    check_target(args.out, args.force, inputs=[args.scan, args.mask])
     load_options = load_options_from(args)
     scan = load(args.scan, **load_options)
     target = scan
@@ -287,7 +288,11 @@ def _add_batch(subparsers) -> None:
     p.add_argument("manifest", help="CSV manifest (path, spacing, unit, group, ...) or a "
                                     "quoted glob of scan files")
     p.add_argument("--out", required=True,
-                   help="batch folder to create, or to resume with the same settings")
+                   help="batch folder to create, or a batch folder of voxtopo's to resume "
+                        "with the same settings")
+    p.add_argument("--force", action="store_true",
+                   help="start an existing batch folder of voxtopo's anew instead of "
+                        "resuming it")
     p.add_argument("--settings", metavar="FILE", help="TOML or YAML settings file")
     p.add_argument("--scheduler", metavar="ADDRESS",
                    help="address of a running dask scheduler (default: a local cluster)")
@@ -300,8 +305,14 @@ def _run_batch(args) -> int:
     from .batch import run_batch
     if args.workers is not None and args.workers < 1:
         raise VoxtopoError(f"--workers should be 1 or more, got {args.workers}.")
-    table = run_batch(args.manifest, args.out, settings_path=args.settings,
-                      scheduler=args.scheduler, workers=args.workers)
+    try:
+        table = run_batch(args.manifest, args.out, settings_path=args.settings,
+                          scheduler=args.scheduler, workers=args.workers, force=args.force)
+    except KeyboardInterrupt:
+        print(f"voxtopo: interrupted; the scans that had finished were kept in "
+              f"{args.out}/scans, and running the same command again resumes the rest.",
+              file=sys.stderr)
+        return EXIT_INTERRUPTED
     failed = int((table["status"] != "done").sum())
     print(f"voxtopo: {len(table) - failed} scans complete, {failed} failed; "
           f"summary in {args.out}/summary.csv")
@@ -340,13 +351,13 @@ def _run_compare(args) -> int:
         dims = tuple(int(d) for d in args.dims.split(","))
     except ValueError:
         raise VoxtopoError(f"--dims should be dimensions like 0,1; got {args.dims!r}.")
-    check_target(args.out, args.force)
+    check_target(args.out, args.force, inputs=args.results)
     diagrams, names, groups = load_results(args.results, args.group_column)
     use_groups = groups if len(set(groups)) > 1 else None
     comparison = compare_diagrams(diagrams, names, use_groups, dims=dims, metric=args.metric,
                                   order=args.order, essential=args.essential,
                                   n_permutations=args.permutations, seed=args.seed)
-    write_comparison(comparison, args.out, force=args.force)
+    write_comparison(comparison, args.out, force=args.force, inputs=args.results)
     if comparison.test is not None:
         print(f"voxtopo: permutation test p = {comparison.test.p_value:.4g} "
               f"({comparison.test.n_permutations} permutations)")
@@ -437,7 +448,7 @@ def _run_patches(args) -> int:
         k_neighbour=args.k_neighbour, density_percent=args.density_percent,
         landmarks=args.landmarks, fields=args.field, max_edge=args.max_edge,
         method=args.method, max_dimension=args.max_dimension)
-    check_target(args.out, args.force)
+    check_target(args.out, args.force, inputs=args.images)
     load_options = load_options_from(args)
     scans = [load(path, **load_options) for path in args.images]
     bar = ProgressBar()
@@ -473,24 +484,45 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv=None) -> int:
-    parser = build_parser()
-    args = parser.parse_args(argv)
-    if not getattr(args, "handler", None):
-        parser.print_help(sys.stderr)
-        return EXIT_BAD_INPUT
+    """Run the command; returns the exit code (0 done, 1 some batch scans failed or the
+    system failed us, 2 bad input, 130 interrupted)."""
+    debug = "--debug" in (sys.argv[1:] if argv is None else argv)
     try:
+        parser = build_parser()
+        args = parser.parse_args(argv)
+        if not getattr(args, "handler", None):
+            parser.print_help(sys.stderr)
+            return EXIT_BAD_INPUT
+        from .engine.warm_up import kernels_cached
+
+        if not kernels_cached():
+            print("voxtopo: compiling the engine's kernels for this machine (once, about a "
+                  "minute) ...", file=sys.stderr)
         return int(args.handler(args) or 0)
     except Cancelled:
         print("voxtopo: cancelled; nothing was written.", file=sys.stderr)
         return EXIT_INTERRUPTED
     except KeyboardInterrupt:
-        print("voxtopo: interrupted; nothing was written.", file=sys.stderr)
+        print("voxtopo: interrupted; no result folder was written.", file=sys.stderr)
         return EXIT_INTERRUPTED
     except (VoxtopoError, MemoryError) as error:
-        if args.debug:
+        if debug:
             raise
-        print(f"voxtopo: error: {error}", file=sys.stderr)
+        print(f"voxtopo: error: {_one_line(error)}", file=sys.stderr)
         return EXIT_BAD_INPUT
+    except OSError as error:
+        # the disk filled up, a network share went away: not the user's input, but still
+        # one sentence, and the atomic writes left nothing half-made behind
+        if debug:
+            raise
+        where = f" ({error.filename})" if error.filename else ""
+        print(f"voxtopo: error: the system refused a file operation{where}: "
+              f"{error.strerror or error}; nothing half-written was left.", file=sys.stderr)
+        return EXIT_FAILED
+
+
+def _one_line(error) -> str:
+    return " ".join(str(error).split()) or type(error).__name__
 
 
 if __name__ == "__main__":

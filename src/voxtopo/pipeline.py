@@ -22,6 +22,8 @@ from . import filtration as filt
 from .diagram import Diagram
 from .engine import persistence
 from .errors import InputError
+from .options import (BOOLEAN, COUNT, ENGINE, FILL, NEIGHBOURHOOD, NON_NEGATIVE, POSITIVE,
+                      PRIME, TEXT, THRESHOLD, check, optional)
 from .io import load, result_folder
 from .io.results import check_target
 from .scan import Scan
@@ -66,6 +68,33 @@ class AnalysisOptions:
     periodic: bool = False
     field: int = 2
     engine: str = "auto"
+
+    def __post_init__(self):
+        check(asdict(self), ANALYSE_RULES, "the analyse options")
+        if self.threshold is not None and not self.distance:
+            raise InputError("A threshold segments a gray scan for the distance sweep; give "
+                             "--distance with it, or leave --threshold out.")
+        if self.pores_bright and self.threshold is None:
+            raise InputError("--pores-bright says which side of --threshold the pores are; "
+                             "give --distance --threshold with it, or leave it out.")
+
+
+#: What each field of AnalysisOptions accepts (settings files are checked against it).
+ANALYSE_RULES = {
+    "superlevel": BOOLEAN,
+    "neighbourhood": optional(NEIGHBOURHOOD),
+    "sigma": optional(POSITIVE),
+    "crop": optional(TEXT),
+    "downsample": COUNT,
+    "distance": BOOLEAN,
+    "threshold": optional(THRESHOLD),
+    "pores_bright": BOOLEAN,
+    "fill_invalid": optional(FILL),
+    "min_persistence": NON_NEGATIVE,
+    "periodic": BOOLEAN,
+    "field": PRIME,
+    "engine": ENGINE,
+}
 
 
 def prepare(scan: Scan, options: AnalysisOptions) -> tuple[Scan, dict]:
@@ -122,7 +151,7 @@ def analyse(source, out, options: AnalysisOptions | None = None, *, force: bool 
     Diagram
     """
     options = options or AnalysisOptions()
-    check_target(out, force)
+    check_target(out, force, inputs=[source.source if isinstance(source, Scan) else source])
     timings = {}
     start = time.perf_counter()
     scan = source if isinstance(source, Scan) else load(source, **(load_options or {}))
@@ -207,7 +236,7 @@ def write_result(out, scan: Scan, diagram: Diagram, options: AnalysisOptions | N
     options = options or AnalysisOptions()
     timings = dict(timings or {})
     start = time.perf_counter()
-    with result_folder(out, force=force) as tmp:
+    with result_folder(out, force=force, inputs=[scan.source]) as tmp:
         summary = summarise(scan, diagram, options, prepared=prepared, timings=timings,
                             notes=notes)
         (tmp / "summary.json").write_text(json.dumps(summary, indent=2, allow_nan=False))

@@ -1,59 +1,297 @@
-"""Result folders appear whole or not at all.
+"""The result-folder contract: where voxtopo may write, and how.
 
-Everything is written into a hidden temporary folder beside the target and renamed into
-place at the end; on any error the temporary folder is removed and the target is left as
-it was. An existing target is replaced only with ``force=True``.
+A result folder appears whole or not at all. Everything is written into a hidden
+temporary folder beside the target and renamed into place at the end; on any error the
+temporary folder is removed and the target is left as it was.
+
+The rules that keep a user's data safe live here, once, for every job and shell:
+
+- a result folder is only ever created new, or replaced (``force=True``) when it is a
+  folder voxtopo wrote: it holds the marker file :data:`MARKER`;
+- an output is never an input, never contains an input, never lies inside an input
+  folder (a zarr store, a folder of slices), and is never the working directory or a
+  folder above it;
+- an output is never a symbolic link, and its parent must be writable before any
+  computation starts;
+- the final rename is itself the check against a run that finished first: renaming onto
+  a folder that is not empty fails, so one run never silently replaces another's result;
+- single files beside a result (batch tables, reports) are written under a temporary
+  name and renamed, so a full disk leaves the previous file readable.
 """
 
 from __future__ import annotations
 
 import contextlib
+import errno
+import glob
+import json
 import os
 import shutil
 import tempfile
+import unicodedata
 from pathlib import Path
 
 from ..errors import InputError
 
+#: The file that marks a folder as written by voxtopo (JSON: kind and version).
+MARKER = ".voxtopo-folder"
 
-def check_target(out, force: bool = False) -> Path:
-    """Refuse an existing result folder unless ``force``; refuse a file in its place."""
-    out = Path(out)
-    if out.exists() and not out.is_dir():
-        raise InputError(f"{out} exists and is not a folder; name a new folder for the results.")
-    if out.exists() and not force:
-        raise InputError(f"Result folder {out} already exists; choose another name or "
-                         f"pass --force to replace it.")
-    if not out.parent.exists():
-        raise InputError(f"The folder {out.parent} that should hold {out.name} does not exist.")
-    return out
+#: Longest folder name made from a manifest row (bytes stay well under the 255 of most
+#: file systems even for non-ASCII names).
+_MAX_NAME_LENGTH = 80
+
+_GLOB_CHARACTERS = set("*?[")
 
 
-@contextlib.contextmanager
-def result_folder(out, force: bool = False):
-    """Context manager yielding a temporary Path to write into; renamed to ``out`` on success.
+# --- what may be written where --------------------------------------------------------------
+def input_paths(source) -> list[Path]:
+    """The files and folders a source names: the path itself, or every match of a glob.
 
     Examples
     --------
-    >>> with result_folder("results/bead", force=True) as tmp:    # doctest: +SKIP
-    ...     (tmp / "summary.json").write_text("{}")
+    >>> input_paths(None)
+    []
     """
-    out = check_target(out, force)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=out.parent))
+    if source is None:
+        return []
+    text = os.fspath(source) if not isinstance(source, str) else source
+    if _GLOB_CHARACTERS & set(text) and not Path(text).exists():
+        return [Path(p).resolve() for p in sorted(glob.glob(text))]
+    return [Path(text).resolve()]
+
+
+def _within(path: Path, folder: Path) -> bool:
+    return path == folder or folder in path.parents
+
+
+def _nearest_existing(path: Path) -> Path:
+    while not path.exists() and path != path.parent:
+        path = path.parent
+    return path
+
+
+def is_voxtopo_folder(path, kind: str | None = None) -> bool:
+    """True when ``path`` is a folder voxtopo wrote (of ``kind`` when given)."""
+    marker = Path(path) / MARKER
+    if not marker.is_file():
+        return False
+    if kind is None:
+        return True
     try:
+        return json.loads(marker.read_text(encoding="utf-8")).get("kind") == kind
+    except (OSError, ValueError, AttributeError):
+        return False
+
+
+def write_marker(folder, kind: str) -> None:
+    """Mark ``folder`` as a voxtopo folder of ``kind`` ("result", "batch")."""
+    from .. import __version__
+
+    (Path(folder) / MARKER).write_text(
+        json.dumps({"written_by": "voxtopo", "kind": kind, "voxtopo_version": __version__}),
+        encoding="utf-8")
+
+
+def check_output(out, inputs=(), *, option: str = "--out") -> Path:
+    """Refuse an output path that could touch the user's data; return it resolved.
+
+    Checks everything that does not depend on whether the folder exists: not a link,
+    not the working directory or above it, not an input nor around one nor inside an
+    input folder, and a parent that exists or can be made, and can be written.
+    """
+    given = Path(out)
+    if given.is_symlink():
+        raise InputError(f"{option} {out} is a symbolic link; name a real folder for the "
+                         f"results.")
+    resolved = given.resolve()
+    here = Path.cwd().resolve()
+    if _within(here, resolved):
+        raise InputError(f"{option} {out} is the working folder or a folder above it; name a "
+                         f"new folder for the results, such as results/scan.")
+    for source in inputs:
+        for path in input_paths(source):
+            if _within(path, resolved):
+                raise InputError(f"{option} {out} holds the input {path}; name a folder of "
+                                 f"its own for the results, outside the inputs.")
+            if path.is_dir() and _within(resolved, path):
+                raise InputError(f"{option} {out} lies inside the input folder {path}, which "
+                                 f"voxtopo never writes into; name a folder outside it.")
+    if resolved.exists() and not resolved.is_dir():
+        raise InputError(f"{out} exists and is not a folder; name a new folder for the "
+                         f"results.")
+    base = _nearest_existing(resolved.parent)
+    if not base.is_dir():
+        raise InputError(f"{base} is a file, so {out} cannot be made; name a folder whose "
+                         f"parents are folders.")
+    _check_writable(base, out)
+    return resolved
+
+
+def _check_writable(folder: Path, out) -> None:
+    """Try to make (and remove) a folder in ``folder``: permissions, read-only mounts and
+    quotas all show here, before any computation."""
+    try:
+        probe = tempfile.mkdtemp(prefix=".voxtopo-probe-", dir=folder)
+    except OSError as exc:
+        raise InputError(f"Cannot write into {folder} to make {out} "
+                         f"({exc.strerror or exc}); choose a folder you can write to.") from None
+    os.rmdir(probe)
+
+
+def check_target(out, force: bool = False, inputs=()) -> Path:
+    """Refuse an output that exists, unless ``force`` and it is voxtopo's own result folder.
+
+    Returns the resolved path. See :func:`check_output` for the checks made on every
+    output. An existing empty folder counts as new: nothing in it can be lost.
+    """
+    resolved = check_output(out, inputs)
+    if resolved.exists() and any(resolved.iterdir()):
+        if not force:
+            raise InputError(f"Result folder {out} already exists; choose another name or "
+                             f"pass --force to replace it.")
+        if not is_voxtopo_folder(resolved):
+            raise InputError(f"{out} is not a folder voxtopo wrote (it has no {MARKER} "
+                             f"file), so --force will not replace it; choose another --out.")
+    return resolved
+
+
+@contextlib.contextmanager
+def result_folder(out, force: bool = False, inputs=(), kind: str = "result"):
+    """Context manager yielding a temporary Path to write into; renamed to ``out`` on success.
+
+    Missing parent folders are made; the folder gets the user's usual permissions.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> out = pathlib.Path(tempfile.mkdtemp()) / "results" / "bead"
+    >>> with result_folder(out) as tmp:
+    ...     _ = (tmp / "summary.json").write_text("{}")
+    >>> sorted(p.name for p in out.iterdir())
+    ['.voxtopo-folder', 'summary.json']
+    """
+    target = check_target(out, force, inputs)
+    target.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.partial-", dir=target.parent))
+    try:
+        _usual_permissions(tmp)
+        write_marker(tmp, kind)
         yield tmp
-        if out.exists():
-            old = Path(tempfile.mkdtemp(prefix=f".{out.name}.old-", dir=out.parent))
-            os.rename(out, old / out.name)
-            os.rename(tmp, out)
-            shutil.rmtree(old, ignore_errors=True)
-        else:
-            os.rename(tmp, out)
+        _move_into_place(tmp, target, out, force)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
 
 
+def _usual_permissions(folder: Path) -> None:
+    """mkdtemp makes folders 0700; a result folder gets what the umask allows."""
+    mask = os.umask(0)
+    os.umask(mask)
+    os.chmod(folder, 0o777 & ~mask)
+
+
+def _move_into_place(tmp: Path, target: Path, out, force: bool) -> None:
+    if force and target.exists() and any(target.iterdir()):
+        if not is_voxtopo_folder(target):
+            raise InputError(f"{out} was replaced by a folder voxtopo did not write while "
+                             f"this run was computing; it was left as it is.")
+        old = Path(tempfile.mkdtemp(prefix=f".{target.name}.old-", dir=target.parent))
+        with contextlib.suppress(FileNotFoundError):   # another run may have moved it
+            os.rename(target, old / target.name)
+        try:
+            _rename_new(tmp, target, out)
+        finally:
+            shutil.rmtree(old, ignore_errors=True)
+    else:
+        _rename_new(tmp, target, out)
+
+
+def _rename_new(tmp: Path, target: Path, out) -> None:
+    try:
+        # rename(2) replaces an empty folder but never one that holds files: if another
+        # run finished first, this fails instead of replacing its result
+        os.rename(tmp, target)
+    except OSError as exc:
+        if exc.errno in (errno.ENOTEMPTY, errno.EEXIST, errno.EISDIR, errno.ENOTDIR):
+            raise InputError(f"{out} was written by another run while this one was computing; "
+                             f"it was kept and this run's results were not written.") from None
+        raise
+
+
 def is_complete(out) -> bool:
-    """True when ``out`` is a finished result folder (it has summary.json)."""
-    return (Path(out) / "summary.json").is_file()
+    """True when ``out`` is a finished voxtopo result folder (marker and summary.json)."""
+    out = Path(out)
+    return is_voxtopo_folder(out) and (out / "summary.json").is_file()
+
+
+# --- single files ----------------------------------------------------------------------------
+def write_atomically(path, write) -> Path:
+    """Call ``write(temporary_path)`` and rename the file to ``path`` when it succeeded.
+
+    On any error (a full disk included) the temporary file is removed and an existing
+    ``path`` stays as it was.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> path = pathlib.Path(tempfile.mkdtemp()) / "table.csv"
+    >>> write_atomically(path, lambda p: p.write_text("a,b\\n")).read_text()
+    'a,b\\n'
+    """
+    path = Path(path)
+    handle, name = tempfile.mkstemp(prefix=f".{path.name}.partial-", dir=path.parent)
+    os.close(handle)
+    tmp = Path(name)
+    try:
+        write(tmp)
+        mask = os.umask(0)
+        os.umask(mask)
+        os.chmod(tmp, 0o666 & ~mask)
+        os.replace(tmp, path)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
+    return path
+
+
+# --- folder names from user text ------------------------------------------------------------
+def safe_folder_name(text, fallback: str = "scan") -> str:
+    """A folder name made from user text that cannot leave its parent folder.
+
+    Letters and digits of any script, ``-``, ``_`` and inner dots are kept; separators and
+    everything else become ``_``; leading dots (``.``, ``..``, hidden names) go; an empty
+    result becomes ``fallback``.
+
+    Examples
+    --------
+    >>> [safe_folder_name(t) for t in ("..", "a/../b", ".hidden", "Probe 3 (wet)", "é")]
+    ['scan', 'a_._b', 'hidden', 'Probe_3_wet', 'é']
+    """
+    text = unicodedata.normalize("NFC", str(text))
+    kept = "".join(c if (c.isalnum() or c in "-_.") else "_" for c in text)
+    for run, single in (("__", "_"), ("..", ".")):
+        while run in kept:
+            kept = kept.replace(run, single)
+    kept = kept.strip("._ ")[:_MAX_NAME_LENGTH].rstrip("._ ")
+    return kept or fallback
+
+
+def unique_folder_names(names) -> list[str]:
+    """Make safe names distinct (case-insensitively, as some file systems compare them)
+    by adding -2, -3, ... in order.
+
+    Examples
+    --------
+    >>> unique_folder_names(["a", "A", "a-2", "..", ""])
+    ['a', 'A-2', 'a-2-2', 'scan', 'scan-2']
+    """
+    taken, result = set(), []
+    for name in names:
+        base = safe_folder_name(name)
+        candidate, number = base, 1
+        while candidate.casefold() in taken:
+            number += 1
+            candidate = f"{base}-{number}"
+        taken.add(candidate.casefold())
+        result.append(candidate)
+    return result

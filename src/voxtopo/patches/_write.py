@@ -12,6 +12,8 @@ import numpy as np
 
 from ..io import result_folder
 from ..io.results import check_target
+from ..options import (BOOLEAN, COUNT, PERCENT, POSITIVE, PRIME, WHOLE, Rule, check, one_of,
+                       optional)
 from ._core import core
 from ._rips import RESEARCH_CAUTION, persistence
 from ._sample import sample
@@ -43,6 +45,36 @@ class PatchOptions:
     method: str = "rips"
     max_dimension: int = 2
 
+    def __post_init__(self):
+        check(asdict(self), PATCH_RULES, "the patches options")
+
+
+def _whole_numbers(value) -> bool:
+    return isinstance(value, (list, tuple)) and len(value) > 0 and all(
+        WHOLE.accepts(v) for v in value)
+
+
+#: What each field of PatchOptions accepts (settings files are checked against it).
+PATCH_RULES = {
+    "k": one_of(3, 5, 7),
+    "contrast_percent": PERCENT,
+    "positions": Rule(lambda v: COUNT.accepts(v) or v == "all",
+                      "a whole number, 1 or more, or \"all\""),
+    "seed": WHOLE,
+    "log": BOOLEAN,
+    "axis": optional(Rule(lambda v: WHOLE.accepts(v) or v in ("z", "y", "x"),
+                          "\"z\", \"y\", \"x\" or an axis number")),
+    "slices": optional(Rule(_whole_numbers, "a list of slice numbers")),
+    "k_neighbour": COUNT,
+    "density_percent": PERCENT,
+    "landmarks": optional(COUNT),
+    "fields": Rule(lambda v: isinstance(v, (list, tuple)) and 0 < len(v)
+                   and all(PRIME.accepts(p) for p in v), "a list of primes such as [2, 3]"),
+    "max_edge": optional(POSITIVE),
+    "method": one_of("rips", "witness"),
+    "max_dimension": one_of(0, 1, 2),
+}
+
 
 def analyse(images_or_scans, out, options: PatchOptions | None = None, force: bool = False,
             progress=None, mask=None):
@@ -63,7 +95,9 @@ def analyse(images_or_scans, out, options: PatchOptions | None = None, force: bo
     >>> analyse([data.gravel()], "results/gravel")                     # doctest: +SKIP
     """
     options = options or PatchOptions()
-    check_target(out, force)
+    items = images_or_scans if isinstance(images_or_scans, (list, tuple)) else [images_or_scans]
+    sources = [getattr(item, "source", None) for item in items]
+    check_target(out, force, inputs=sources)
     report = progress or (lambda phase, fraction: None)
     started = time.perf_counter()
     report("sampling patches", 0.0)
@@ -82,7 +116,9 @@ def analyse(images_or_scans, out, options: PatchOptions | None = None, force: bo
                          max_edge=options.max_edge, method=options.method, seed=options.seed)
     report("landmark persistence", 1.0)
     report("writing results", 0.0)
-    with result_folder(out, force=force) as folder:
+    from ..report.html import write_report
+
+    with result_folder(out, force=force, inputs=sources) as folder:
         cloud.save(folder)
         np.save(folder / "core.npy", core_index)
         np.save(folder / "landmarks.npy", core_index[result.landmarks])
@@ -91,6 +127,7 @@ def analyse(images_or_scans, out, options: PatchOptions | None = None, force: bo
         summary = _summary(cloud, dense, result, options, keep_n,
                            time.perf_counter() - started)
         (folder / "summary.json").write_text(json.dumps(summary, indent=2))
+        write_report(folder)
     report("writing results", 1.0)
     return dense, result
 

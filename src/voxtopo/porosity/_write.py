@@ -60,7 +60,9 @@ def write_pores(out, analysis, scan=None, force: bool = False) -> Path:
     """
     ndim = analysis.mask.ndim
     background = analysis.mask if scan is None else as_scan(scan).data
-    with result_folder(out, force=force) as tmp:
+    from ..report.html import write_report
+
+    with result_folder(out, force=force, inputs=[getattr(scan, "source", None)]) as tmp:
         pores = analysis.pores
         extra = [c for c in pores.columns if c not in PORE_COLUMNS]
         ordered = [c for c in PORE_COLUMNS if c in pores.columns] + extra
@@ -76,6 +78,7 @@ def write_pores(out, analysis, scan=None, force: bool = False) -> Path:
         (tmp / "summary.json").write_text(json.dumps(_json_ready(summary), indent=2,
                                                      allow_nan=False))
         analysis.diagram.save(tmp)
+        write_report(tmp)
     return Path(out)
 
 

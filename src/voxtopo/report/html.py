@@ -302,9 +302,10 @@ def write_batch_report(folder, settings: dict | None = None) -> Path:
                   images=images, summary=Table.of(summary[shown]), links=links,
                   failures=Table.of(failures) if not failures.empty else None,
                   settings=_flatten(settings))
-    target = folder / "report.html"
-    target.write_text(html, encoding="utf-8")
-    return target
+    from ..io.results import write_atomically
+
+    return write_atomically(folder / "report.html",
+                            lambda path: path.write_text(html, encoding="utf-8"))
 
 
 def _flatten(mapping: dict, prefix: str = "") -> dict:
@@ -372,12 +373,13 @@ def plot_embedding(embedding, names, groups):
     return figure
 
 
-def write_comparison(comparison, out, *, force: bool = False) -> Path:
+def write_comparison(comparison, out, *, force: bool = False, inputs=()) -> Path:
     """Write a comparison folder: tables (see ``Comparison.save``), heatmap.png, mds.png
-    and report.html, atomically (nothing is left behind on an error)."""
+    and report.html, atomically (nothing is left behind on an error). ``inputs`` are the
+    result folders compared, which the output may not be nor contain."""
     from ..io import result_folder
 
-    with result_folder(out, force=force) as tmp:
+    with result_folder(out, force=force, inputs=inputs) as tmp:
         comparison.save(tmp)
         images = []
         heat = plot_distance_heatmap(comparison.matrix, comparison.names, comparison.groups,

@@ -221,7 +221,7 @@ class AnalysisWidget(QWidget):
             sigma=self.sigma_box.value() or None,
             distance=distance,
             threshold="otsu" if distance and not is_labels else None,
-            pores_bright=pores_bright and not is_labels,
+            pores_bright=pores_bright and distance and not is_labels,
             min_persistence=self.min_persistence_box.value(),
         )
 
