@@ -2,9 +2,10 @@
 
 from __future__ import annotations
 
+import math
 import os
 
-from .errors import TooBigError
+from .errors import InputError, TooBigError
 
 #: Fraction of the currently available memory a single run may plan to use.
 BUDGET_FRACTION = 0.8
@@ -14,7 +15,7 @@ def available_bytes() -> int:
     """Memory available to new allocations, from /proc/meminfo (or os.sysconf)."""
     override = os.environ.get("VOXTOPO_MEMORY_LIMIT")
     if override:
-        return int(float(override))
+        return _limit_from_environment(override)
     try:
         with open("/proc/meminfo") as fh:
             for line in fh:
@@ -23,6 +24,17 @@ def available_bytes() -> int:
     except OSError:
         pass
     return os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_AVPHYS_PAGES")
+
+
+def _limit_from_environment(text: str) -> int:
+    try:
+        limit = float(text)
+    except ValueError:
+        limit = float("nan")
+    if not (math.isfinite(limit) and limit > 0):
+        raise InputError(f"The environment variable VOXTOPO_MEMORY_LIMIT should be a positive "
+                         f"number of bytes such as 8e9, got {text!r}; correct or unset it.")
+    return int(limit)
 
 
 def human(nbytes: float) -> str:
