@@ -17,7 +17,7 @@ from ..errors import InputError
 from ..memory import ensure_fits
 from ..scan import Scan, as_scan
 from . import _gudhi, own
-from ._pairs import RawPairs
+from ._pairs import RawPairs, check_exact_in_float64
 
 __all__ = ["persistence", "estimate", "construction_of", "default_neighbourhood",
            "BACKENDS", "RawPairs"]
@@ -86,6 +86,7 @@ def _check_values(data: np.ndarray, source: str) -> None:
             f"{source} has {bad} NaN or infinite voxels; fill them "
             f"(voxtopo.filtration.fill_invalid) or mask them out before computing persistence."
         )
+    check_exact_in_float64(data, source)
 
 
 def persistence(scan_or_array, superlevel: bool = False, neighbourhood: int | None = None,
