@@ -26,6 +26,18 @@ def columns(ndim: int) -> list[str]:
     return ["dim", "birth", "death", "persistence"] + location_columns(ndim)
 
 
+
+def check_min_persistence(value) -> float:
+    """``value`` as the shortest lifetime kept: a finite number >= 0, else InputError."""
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        number = float("nan")
+    if not (np.isfinite(number) and number >= 0):
+        raise InputError(f"min_persistence should be a finite number >= 0 (the shortest "
+                         f"lifetime kept, in the scan's values), got {value!r}.")
+    return number
+
 @dataclass(frozen=True)
 class Diagram:
     """A persistence diagram of a scan.

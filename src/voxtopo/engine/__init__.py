@@ -12,7 +12,7 @@ import time
 
 import numpy as np
 
-from ..diagram import Diagram
+from ..diagram import Diagram, check_min_persistence
 from ..errors import InputError
 from ..memory import ensure_fits
 from ..scan import Scan, as_scan
@@ -130,6 +130,7 @@ def persistence(scan_or_array, superlevel: bool = False, neighbourhood: int | No
     >>> d.betti(1.0)
     [1, 1]
     """
+    min_persistence = check_min_persistence(min_persistence)
     scan = as_scan(scan_or_array, spacing=spacing, unit=unit)
     data = scan.data
     if data.dtype == bool:

@@ -29,7 +29,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..diagram import Diagram
+from ..diagram import Diagram, check_min_persistence
 from ..errors import InputError
 from ..memory import ensure_fits
 from ..scan import Scan
@@ -460,6 +460,7 @@ def chunked_persistence(source, *, superlevel: bool = False, neighbourhood=None,
     """
     from . import construction_of
 
+    min_persistence = check_min_persistence(min_persistence)
     if not isinstance(source, ChunkedSource):
         if isinstance(source, (str, Path)):
             source = open_chunked(source, chunks=chunks, spacing=spacing, unit=unit)
