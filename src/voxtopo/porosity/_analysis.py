@@ -133,6 +133,15 @@ def _name(scan: Scan) -> str:
     return scan.source or "array"
 
 
+def _check_extent(shape, where: str) -> None:
+    """Surfaces and boundary lengths need a face between voxels along every axis."""
+    if min(shape) < 2:
+        hint = (" (a volume of one slice can be given as a 2D image)"
+                if len(shape) == 3 and sorted(shape)[1] >= 2 else "")
+        raise InputError(f"The input {where} has shape {tuple(shape)}, but the pore analysis "
+                         f"needs at least 2 voxels along every axis{hint}.")
+
+
 def _check_phases(mask: np.ndarray, where: str) -> None:
     if not mask.any():
         raise InputError(f"The input {where} has no pore voxels, so there is no pore space "
@@ -491,6 +500,7 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
     clock = time.perf_counter()
     scan = as_scan(mask_or_scan, spacing=spacing, unit=unit)
     where = _name(scan)
+    _check_extent(scan.shape, where)
     n_pore, _ = construction_of(scan.ndim, neighbourhood)
     n_solid = COMPLEMENT[n_pore]
     axes = _axes(axis, scan.ndim)
