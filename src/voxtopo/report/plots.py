@@ -28,12 +28,22 @@ def _unpack(diagram):
     return diagram.pairs, diagram
 
 
+def literal(text: str) -> str:
+    """``text`` as matplotlib should show it, character for character.
+
+    A user's words (a unit such as ``$\\mu$m``) must not be read as mathtext: with two
+    dollar signs matplotlib would parse them, and fail on a command it does not know.
+    An escaped dollar sign is drawn as a dollar sign.
+    """
+    return str(text).replace("$", r"\$")
+
+
 def value_label(diagram) -> str:
     """Axis label for filtration values: the physical unit for distance filtrations."""
     if diagram is None:
         return "scale"
     if diagram.values == "distance":
-        return f"signed distance ({diagram.unit})"
+        return f"signed distance ({literal(diagram.unit)})"
     return "gray value"
 
 
