@@ -180,7 +180,13 @@ class Diagram:
         if len(vals) == 0:
             return np.zeros(1)
         lo, hi = float(vals.min()), float(vals.max())
-        return np.linspace(lo, hi, n) if hi > lo else np.array([lo])
+        if not hi > lo:
+            return np.array([lo])
+        if np.isfinite((hi - lo) * n):  # Python floats: an overflow gives inf, no warning
+            return np.linspace(lo, hi, n)
+        # linspace's steps would overflow float64 (values near +-1.8e308): weigh the ends
+        weight = np.linspace(0.0, 1.0, n)
+        return lo * (1.0 - weight) + hi * weight
 
     # physical positions ---------------------------------------------------------------
     def positions(self, which: str = "birth") -> np.ndarray:
