@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 import os
+from contextlib import contextmanager
 
 from .errors import InputError, TooBigError
 
@@ -58,3 +59,22 @@ def ensure_fits(needed: int, what: str, remedy: str) -> None:
             f"{what} would need about {human(needed)} of memory but only {human(budget)} "
             f"is available; {remedy}."
         )
+
+
+@contextmanager
+def reported_as_too_big(what: str, planned: int, remedy: str):
+    """Turn an allocation that fails inside the block into one sentence with the plan.
+
+    The plan was checked with :func:`ensure_fits` before the work started, so a failure
+    here (numpy's "Unable to allocate ...", numba's "Allocation failed ...") means memory
+    was taken meanwhile or an estimate fell short; the user gets what was planned and a
+    remedy instead of the library's text. A TooBigError from a check inside passes as is.
+    """
+    try:
+        yield
+    except TooBigError:
+        raise
+    except MemoryError:
+        raise TooBigError(f"{what} ran out of memory although about {human(planned)} was "
+                          f"planned and fitted when it started; close other programs, or "
+                          f"{remedy}.") from None
