@@ -504,6 +504,9 @@ def main(argv=None) -> int:
     except (VoxtopoError, MemoryError) as error:
         if args.debug:
             raise
+        if not isinstance(error, VoxtopoError):  # numpy's or numba's own words
+            error = ("the run ran out of memory; close other programs, or crop (--crop) or "
+                     "downsample (--downsample) the scan")
         print(f"voxtopo: error: {error}", file=sys.stderr)
         return EXIT_BAD_INPUT
 
