@@ -8,6 +8,7 @@ Bad input ends with one sentence on stderr and exit code 2 (a traceback only wit
 from __future__ import annotations
 
 import argparse
+import math
 import sys
 import time
 
@@ -129,7 +130,7 @@ def _add_analyse(subparsers) -> None:
     f.add_argument("--fill-invalid", metavar="max|min|VALUE",
                    help="put this value into NaN voxels instead of refusing the scan")
     e = p.add_argument_group("persistence")
-    e.add_argument("--min-persistence", type=float, default=0.0,
+    e.add_argument("--min-persistence", default="0", metavar="LENGTH",
                    help="keep only pairs that live longer than this")
     e.add_argument("--periodic", action="store_true", help="glue opposite faces of the scan")
     e.add_argument("--field", type=int, default=2, help="prime p of the coefficients Z/p")
@@ -150,11 +151,12 @@ def _run_analyse(args) -> int:
     from .io.results import check_target
     from .pipeline import AnalysisOptions, analyse
     threshold = _threshold_value(args.threshold)
+    min_persistence = _min_persistence(args.min_persistence)
     options = AnalysisOptions(
         superlevel=args.superlevel, neighbourhood=args.neighbourhood, sigma=args.smooth,
         crop=args.crop, downsample=args.downsample, distance=args.distance,
         threshold=threshold, pores_bright=args.pores_bright,
-        fill_invalid=_fill_value(args.fill_invalid), min_persistence=args.min_persistence,
+        fill_invalid=_fill_value(args.fill_invalid), min_persistence=min_persistence,
         periodic=args.periodic, field=args.field, engine=args.engine)
     check_target(args.out, args.force, inputs=[args.scan])
     load_options = load_options_from(args)
@@ -166,7 +168,7 @@ def _run_analyse(args) -> int:
         diagram = analyse(scan, args.out, options, force=args.force, progress=bar)
     finally:
         bar.close()
-    counts = ", ".join(f"dim {d}: {n}" for d, n in diagram.counts(args.min_persistence).items())
+    counts = ", ".join(f"dim {d}: {n}" for d, n in diagram.counts(min_persistence).items())
     print(f"voxtopo: {len(diagram)} pairs ({counts}) in {diagram.seconds:.2f} s "
           f"with the {diagram.engine} engine")
     print(f"voxtopo: results written to {args.out}")
@@ -181,6 +183,18 @@ def _threshold_value(text):
         return float(text)
     except ValueError:
         raise VoxtopoError(f"--threshold should be a number or 'otsu', got {text!r}.") from None
+
+
+def _min_persistence(text: str) -> float:
+    """--min-persistence: the shortest lifetime kept, a finite number >= 0."""
+    try:
+        value = float(text)
+    except ValueError:
+        value = float("nan")
+    if not (math.isfinite(value) and value >= 0):
+        raise VoxtopoError(f"--min-persistence should be a finite number >= 0 (the shortest "
+                           f"lifetime kept), got {text!r}.")
+    return value
 
 
 def _fill_value(text):
@@ -273,7 +287,8 @@ def _run_out_of_core(args, options, load_options) -> int:
     from .batch import analyse_out_of_core
     diagram = analyse_out_of_core(args.scan, args.out, options, load_options=load_options,
                                   chunks=args.chunks, force=args.force)
-    counts = ", ".join(f"dim {d}: {n}" for d, n in diagram.counts(args.min_persistence).items()
+    counts = ", ".join(f"dim {d}: {n}"
+                       for d, n in diagram.counts(options.min_persistence).items()
                        if d in (0, diagram.ndim - 1))
     print(f"voxtopo: {len(diagram)} pairs ({counts}) out of core; {'; '.join(diagram.notes)}")
     print(f"voxtopo: results written to {args.out}")
@@ -508,6 +523,9 @@ def main(argv=None) -> int:
     except (VoxtopoError, MemoryError) as error:
         if debug:
             raise
+        if not isinstance(error, VoxtopoError):  # numpy's or numba's own words
+            error = ("the run ran out of memory; close other programs, or crop (--crop) or "
+                     "downsample (--downsample) the scan")
         print(f"voxtopo: error: {_one_line(error)}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except OSError as error:

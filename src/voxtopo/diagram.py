@@ -26,6 +26,18 @@ def columns(ndim: int) -> list[str]:
     return ["dim", "birth", "death", "persistence"] + location_columns(ndim)
 
 
+
+def check_min_persistence(value) -> float:
+    """``value`` as the shortest lifetime kept: a finite number >= 0, else InputError."""
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        number = float("nan")
+    if not (np.isfinite(number) and number >= 0):
+        raise InputError(f"min_persistence should be a finite number >= 0 (the shortest "
+                         f"lifetime kept, in the scan's values), got {value!r}.")
+    return number
+
 @dataclass(frozen=True)
 class Diagram:
     """A persistence diagram of a scan.
@@ -168,7 +180,13 @@ class Diagram:
         if len(vals) == 0:
             return np.zeros(1)
         lo, hi = float(vals.min()), float(vals.max())
-        return np.linspace(lo, hi, n) if hi > lo else np.array([lo])
+        if not hi > lo:
+            return np.array([lo])
+        if np.isfinite((hi - lo) * n):  # Python floats: an overflow gives inf, no warning
+            return np.linspace(lo, hi, n)
+        # linspace's steps would overflow float64 (values near +-1.8e308): weigh the ends
+        weight = np.linspace(0.0, 1.0, n)
+        return lo * (1.0 - weight) + hi * weight
 
     # physical positions ---------------------------------------------------------------
     def positions(self, which: str = "birth") -> np.ndarray:

@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import math
 import os
+from contextlib import contextmanager
 
-from .errors import TooBigError
+from .errors import InputError, TooBigError
 
 #: Fraction of the currently available memory a single run may plan to use.
 BUDGET_FRACTION = 0.8
@@ -14,7 +16,7 @@ def available_bytes() -> int:
     """Memory available to new allocations, from /proc/meminfo (or os.sysconf)."""
     override = os.environ.get("VOXTOPO_MEMORY_LIMIT")
     if override:
-        return int(float(override))
+        return _limit_from_environment(override)
     try:
         with open("/proc/meminfo") as fh:
             for line in fh:
@@ -23,6 +25,17 @@ def available_bytes() -> int:
     except OSError:
         pass
     return os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_AVPHYS_PAGES")
+
+
+def _limit_from_environment(text: str) -> int:
+    try:
+        limit = float(text)
+    except ValueError:
+        limit = float("nan")
+    if not (math.isfinite(limit) and limit > 0):
+        raise InputError(f"The environment variable VOXTOPO_MEMORY_LIMIT should be a positive "
+                         f"number of bytes such as 8e9, got {text!r}; correct or unset it.")
+    return int(limit)
 
 
 def human(nbytes: float) -> str:
@@ -46,3 +59,22 @@ def ensure_fits(needed: int, what: str, remedy: str) -> None:
             f"{what} would need about {human(needed)} of memory but only {human(budget)} "
             f"is available; {remedy}."
         )
+
+
+@contextmanager
+def reported_as_too_big(what: str, planned: int, remedy: str):
+    """Turn an allocation that fails inside the block into one sentence with the plan.
+
+    The plan was checked with :func:`ensure_fits` before the work started, so a failure
+    here (numpy's "Unable to allocate ...", numba's "Allocation failed ...") means memory
+    was taken meanwhile or an estimate fell short; the user gets what was planned and a
+    remedy instead of the library's text. A TooBigError from a check inside passes as is.
+    """
+    try:
+        yield
+    except TooBigError:
+        raise
+    except MemoryError:
+        raise TooBigError(f"{what} ran out of memory although about {human(planned)} was "
+                          f"planned and fitted when it started; close other programs, or "
+                          f"{remedy}.") from None

@@ -20,12 +20,13 @@ import pandas as pd
 from . import __version__
 from . import filtration as filt
 from .diagram import Diagram
-from .engine import persistence
+from .engine import estimate, persistence
 from .errors import InputError
 from .options import (BOOLEAN, COUNT, ENGINE, FILL, NEIGHBOURHOOD, NON_NEGATIVE, POSITIVE,
                       PRIME, TEXT, THRESHOLD, check, optional)
 from .io import load, result_folder
 from .io.results import check_target
+from .memory import ensure_fits, reported_as_too_big
 from .scan import Scan
 
 CAUTIONS = (
@@ -97,9 +98,51 @@ ANALYSE_RULES = {
 }
 
 
+def preparation_plan(scan: Scan, options: AnalysisOptions) -> list[tuple[str, int]]:
+    """What each step of :func:`prepare` and then persistence will allocate beyond the
+    scan, in order.
+
+    Returns ``(step, bytes)`` pairs, worked out from shapes alone so that a step that would
+    not fit is refused before any earlier step has run.
+    """
+    shape, dtype = scan.shape, scan.data.dtype
+    steps = []
+
+    def named(step):
+        return f"{step} the {'x'.join(map(str, shape))} scan"
+
+    if options.crop:
+        box = filt.parse_box(options.crop, scan.ndim)
+        shape = tuple(len(range(*b.indices(n))) for b, n in zip(box, shape))
+    if options.fill_invalid is not None:
+        steps.append((named("Filling the invalid voxels of"),
+                      int(np.prod(shape, dtype=np.int64)) * dtype.itemsize))
+    if options.downsample and options.downsample != 1:
+        factors = (max(int(options.downsample), 1),) * scan.ndim
+        steps.append((named("Downsampling"), filt.downsampling_bytes(shape, factors)))
+        shape = tuple(n // f for n, f in zip(shape, factors))
+    if options.sigma:
+        steps.append((named("Smoothing"), filt.smoothing_bytes(shape, dtype)))
+        dtype = np.dtype(np.float32)
+    if options.distance:
+        steps.append((named("The distance transform of"), filt.distance_bytes(shape)))
+        dtype = np.dtype(np.float64)
+    steps.append((named("Persistence of"),
+                  estimate(shape, dtype, engine=options.engine,
+                           neighbourhood=options.neighbourhood, field=options.field,
+                           periodic=bool(options.periodic))))
+    return steps
+
+
 def prepare(scan: Scan, options: AnalysisOptions) -> tuple[Scan, dict]:
     """Apply crop, invalid-voxel filling, downsampling, smoothing and (optionally) the
-    signed distance transform, in that order. Returns the scan to analyse and notes."""
+    signed distance transform, in that order. Returns the scan to analyse and notes.
+
+    Every step's memory is checked before the first one runs (:func:`preparation_plan`).
+    """
+    # persistence, the last step, is checked by the engine with its own remedies
+    for step, needed in preparation_plan(scan, options)[:-1]:
+        ensure_fits(needed, step, filt.PREPARATION_REMEDY)
     notes = {}
     if options.crop:
         scan = filt.crop(scan, options.crop)
@@ -158,15 +201,18 @@ def analyse(source, out, options: AnalysisOptions | None = None, *, force: bool 
     timings["load"] = time.perf_counter() - start
     if progress is not None:
         progress("load", 1.0)
-    start = time.perf_counter()
-    prepared, notes = prepare(scan, options)
-    timings["prepare"] = time.perf_counter() - start
-    start = time.perf_counter()
-    diagram = persistence(prepared, superlevel=options.superlevel,
-                          neighbourhood=options.neighbourhood, periodic=options.periodic,
-                          field=options.field, engine=options.engine,
-                          min_persistence=options.min_persistence, progress=progress)
-    timings["persistence"] = time.perf_counter() - start
+    planned = max(needed for _, needed in preparation_plan(scan, options))
+    with reported_as_too_big(f"Analysing {scan.source or 'the scan'}", planned,
+                             filt.PREPARATION_REMEDY):
+        start = time.perf_counter()
+        prepared, notes = prepare(scan, options)
+        timings["prepare"] = time.perf_counter() - start
+        start = time.perf_counter()
+        diagram = persistence(prepared, superlevel=options.superlevel,
+                              neighbourhood=options.neighbourhood, periodic=options.periodic,
+                              field=options.field, engine=options.engine,
+                              min_persistence=options.min_persistence, progress=progress)
+        timings["persistence"] = time.perf_counter() - start
     write_result(out, scan, diagram, options, prepared=prepared, timings=timings, notes=notes,
                  force=force)
     return diagram

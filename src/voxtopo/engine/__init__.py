@@ -12,12 +12,12 @@ import time
 
 import numpy as np
 
-from ..diagram import Diagram
+from ..diagram import Diagram, check_min_persistence
 from ..errors import InputError
 from ..memory import ensure_fits
 from ..scan import Scan, as_scan
 from . import _gudhi, own
-from ._pairs import RawPairs
+from ._pairs import RawPairs, check_exact_in_float64
 
 __all__ = ["persistence", "estimate", "construction_of", "default_neighbourhood",
            "BACKENDS", "RawPairs"]
@@ -86,6 +86,7 @@ def _check_values(data: np.ndarray, source: str) -> None:
             f"{source} has {bad} NaN or infinite voxels; fill them "
             f"(voxtopo.filtration.fill_invalid) or mask them out before computing persistence."
         )
+    check_exact_in_float64(data, source)
 
 
 def persistence(scan_or_array, superlevel: bool = False, neighbourhood: int | None = None,
@@ -129,6 +130,7 @@ def persistence(scan_or_array, superlevel: bool = False, neighbourhood: int | No
     >>> d.betti(1.0)
     [1, 1]
     """
+    min_persistence = check_min_persistence(min_persistence)
     scan = as_scan(scan_or_array, spacing=spacing, unit=unit)
     data = scan.data
     if data.dtype == bool:

@@ -6,6 +6,36 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..errors import InputError
+
+#: Whole numbers up to this magnitude are exact in float64 (a 53-bit significand); the
+#: pairs keep their values in float64, so integers beyond it would round together.
+LARGEST_EXACT_INTEGER = 2 ** 53
+
+
+def check_exact_in_float64(values: np.ndarray, source: str) -> None:
+    """Refuse 64-bit integer values that float64, the type of every pair's birth and death,
+    cannot hold exactly.
+
+    Two neighbouring values near 2^60 round to the same float64, and the pair they make
+    would vanish with zero persistence; refusing says so instead of dropping it. Smaller
+    integer types always fit.
+    """
+    if values.dtype.kind not in "iu" or values.dtype.itemsize < 8 or values.size == 0:
+        return
+    low, high = int(values.min()), int(values.max())
+    if -LARGEST_EXACT_INTEGER <= low and high <= LARGEST_EXACT_INTEGER:
+        return
+    span = high - low
+    remedy = (f"subtract an offset such as the minimum {low} first (the values span {span}, "
+              f"which fits)" if span <= LARGEST_EXACT_INTEGER
+              else "rescale them to a narrower range first")
+    raise InputError(f"{source} holds {values.dtype} values from {low} to {high}, beyond "
+                     f"2^53 where float64 (in which birth and death values are kept) stops "
+                     f"holding every whole number, so neighbouring values would merge and "
+                     f"their pairs vanish; {remedy}, or convert to float64 yourself if "
+                     f"rounding is acceptable.")
+
 
 @dataclass
 class RawPairs:

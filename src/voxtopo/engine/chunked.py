@@ -29,12 +29,12 @@ from pathlib import Path
 
 import numpy as np
 
-from ..diagram import Diagram
+from ..diagram import Diagram, check_min_persistence
 from ..errors import InputError
 from ..memory import ensure_fits
 from ..scan import Scan
 from . import _chunk_merge as kernel
-from ._pairs import RawPairs
+from ._pairs import RawPairs, check_exact_in_float64
 from ._union_find import neighbour_offsets
 
 __all__ = ["chunked_persistence", "open_chunked", "ChunkedSource", "BYTES_PER_CHUNK_VOXEL"]
@@ -225,6 +225,7 @@ def _reduce_leaf(source: ChunkedSource, lo, hi, sweep: _Sweep):
     shape3 = _pad3(source.shape, 1)
     n_total = int(np.prod(shape3))
     data = _read3(source, lo, hi)
+    check_exact_in_float64(data, source.source or "The array")
     cshape = data.shape
     flat = data.reshape(-1)
     n = flat.size
@@ -459,6 +460,7 @@ def chunked_persistence(source, *, superlevel: bool = False, neighbourhood=None,
     """
     from . import construction_of
 
+    min_persistence = check_min_persistence(min_persistence)
     if not isinstance(source, ChunkedSource):
         if isinstance(source, (str, Path)):
             source = open_chunked(source, chunks=chunks, spacing=spacing, unit=unit)

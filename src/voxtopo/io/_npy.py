@@ -24,7 +24,12 @@ def _header(path: Path):
         except Exception as exc:
             raise InputError(f"{path} is not a readable .npy file "
                              f"({' '.join(str(exc).split())[:100]}).") from None
-        return tuple(shape), fortran, np.dtype(dtype), fh.tell()
+        data_offset = fh.tell()
+    shape = tuple(shape)
+    if any(n < 0 for n in shape):
+        raise InputError(f"{path} has a header with a negative dimension in its shape "
+                         f"{shape}, so the file is damaged; save the array again.")
+    return shape, fortran, np.dtype(dtype), data_offset
 
 
 def open_npy(path: Path) -> Layout:
@@ -38,6 +43,10 @@ def open_npy(path: Path) -> Layout:
     if present < needed:
         raise InputError(f"{path} is truncated: shape {shape} of {dtype} needs {needed} bytes "
                          f"of data but only {present} follow its header.")
+    if present > needed:
+        raise InputError(f"{path} does not match its header: shape {shape} of {dtype} needs "
+                         f"{needed} bytes of data but {present} bytes follow it, so the header "
+                         f"is damaged; save the array again.")
 
     def read(index: tuple) -> np.ndarray:
         try:

@@ -13,7 +13,7 @@ from .. import filtration
 from ..diagram import AXES_3D
 from ..engine import construction_of, estimate, persistence
 from ..errors import InputError
-from ..memory import ensure_fits
+from ..memory import ensure_fits, reported_as_too_big
 from ..scan import Scan, as_scan
 from . import _euler, _minkowski, _sweep
 
@@ -131,6 +131,15 @@ def pore_mask(scan: Scan, *, threshold=None, pores_bright=False, label=None):
 def _name(scan: Scan) -> str:
     """The scan's file for messages, or 'array' for data handed over in memory."""
     return scan.source or "array"
+
+
+def _check_extent(shape, where: str) -> None:
+    """Surfaces and boundary lengths need a face between voxels along every axis."""
+    if min(shape) < 2:
+        hint = (" (a volume of one slice can be given as a 2D image)"
+                if len(shape) == 3 and sorted(shape)[1] >= 2 else "")
+        raise InputError(f"The input {where} has shape {tuple(shape)}, but the pore analysis "
+                         f"needs at least 2 voxels along every axis{hint}.")
 
 
 def _check_phases(mask: np.ndarray, where: str) -> None:
@@ -491,6 +500,7 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
     clock = time.perf_counter()
     scan = as_scan(mask_or_scan, spacing=spacing, unit=unit)
     where = _name(scan)
+    _check_extent(scan.shape, where)
     n_pore, _ = construction_of(scan.ndim, neighbourhood)
     n_solid = COMPLEMENT[n_pore]
     axes = _axes(axis, scan.ndim)
@@ -502,10 +512,20 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
         min_lifetime = 0.5 * min(spacing)
     elif not (np.isfinite(min_lifetime) and min_lifetime >= 0):
         raise InputError(f"min_lifetime must be a length >= 0 in {scan.unit}, got {min_lifetime}.")
-    ensure_fits(_estimate_bytes(mask.shape, n_pore, engine),
-                f"Pore analysis of the {'x'.join(map(str, mask.shape))} scan",
-                "crop it (--crop) or downsample it (--downsample) first")
+    planned = _estimate_bytes(mask.shape, n_pore, engine)
+    what = f"Pore analysis of the {'x'.join(map(str, mask.shape))} scan"
+    remedy = "crop it (--crop) or downsample it (--downsample) first"
+    ensure_fits(planned, what, remedy)
     timings["segmentation"] = time.perf_counter() - clock
+    with reported_as_too_big(what, planned, remedy):
+        return _measure(scan, mask, segmentation, axes, n_pore, n_solid, min_lifetime, engine,
+                        progress, timings)
+
+
+def _measure(scan, mask, segmentation, axes, n_pore, n_solid, min_lifetime, engine,
+             progress, timings) -> PoreAnalysis:
+    """The work of :func:`analyse` once its input is checked and its memory planned."""
+    spacing = scan.spacing
 
     def step(name, fraction):
         if progress is not None:

@@ -88,7 +88,9 @@ def _plots(folder: Path, analysis, background, ndim) -> list[str]:
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    unit = analysis.summary["unit"]
+    from ..report.plots import literal
+
+    unit = literal(analysis.summary["unit"])
     names = []
     for name, draw in (("pore_sizes.png", _size_plot), ("distance_diagram.png", _diagram_plot),
                        ("pore_slices.png", _slice_plot)):

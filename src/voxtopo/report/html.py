@@ -250,6 +250,8 @@ def _plot_numeric_columns(summary: pd.DataFrame):
     """A bar chart of the pair counts of every scan, when the summary has them."""
     import matplotlib.pyplot as plt
 
+    from .plots import literal
+
     count_columns = [c for c in summary.columns if c.startswith("pairs_dim")]
     if summary.empty or not count_columns:
         return None
@@ -260,8 +262,8 @@ def _plot_numeric_columns(summary: pd.DataFrame):
     for k, column in enumerate(count_columns):
         ax.bar(x + k * width, summary[column].fillna(0), width,
                color=GROUP_COLOURS[k % len(GROUP_COLOURS)], label=column.replace("_", " "))
-    ax.set_xticks(x + 0.4 - width / 2, summary["name"].astype(str), rotation=60, ha="right",
-                  fontsize=8)
+    ax.set_xticks(x + 0.4 - width / 2, summary["name"].astype(str).map(literal), rotation=60,
+                  ha="right", fontsize=8)
     ax.set_ylabel("pairs")
     ax.legend(frameon=False, fontsize=8)
     for side in ("top", "right"):
@@ -334,12 +336,14 @@ def plot_distance_heatmap(matrix, names, groups, title: str = "distance"):
     drawn as lines. Returns the matplotlib Figure."""
     import matplotlib.pyplot as plt
 
+    from .plots import literal
+
     order = _group_order(names, groups)
     ordered = np.asarray(matrix)[np.ix_(order, order)]
     size = min(10.0, 3.5 + 0.25 * len(names))
     figure, ax = plt.subplots(figsize=(size + 1.2, size), constrained_layout=True)
     shown = ax.imshow(ordered, cmap="magma_r", interpolation="nearest")
-    labels = [f"{names[i]} ({groups[i]})" if groups[i] else str(names[i]) for i in order]
+    labels = [literal(f"{names[i]} ({groups[i]})" if groups[i] else names[i]) for i in order]
     ax.set_xticks(range(len(order)), labels, rotation=70, ha="right", fontsize=7)
     ax.set_yticks(range(len(order)), labels, fontsize=7)
     sorted_groups = [str(groups[i]) for i in order]
@@ -355,15 +359,18 @@ def plot_embedding(embedding, names, groups):
     """Scatter plot of a 2D embedding, one colour per group. Returns the Figure."""
     import matplotlib.pyplot as plt
 
+    from .plots import literal
+
     figure, ax = plt.subplots(figsize=(5.6, 4.8), constrained_layout=True)
     colours = _colours(groups)
     for group, colour in colours.items():
         members = [i for i, g in enumerate(groups) if str(g) == group]
         ax.scatter(embedding[members, 0], embedding[members, 1], s=46, color=colour,
-                   label=group or "no group", edgecolor="white", linewidth=0.8)
+                   label=literal(group) if group else "no group", edgecolor="white",
+                   linewidth=0.8)
     if len(names) <= 40:
         for i, name in enumerate(names):
-            ax.annotate(str(name), embedding[i], fontsize=7, xytext=(4, 3),
+            ax.annotate(literal(name), embedding[i], fontsize=7, xytext=(4, 3),
                         textcoords="offset points", color="#4a4e69")
     ax.set_xlabel("MDS axis 1")
     ax.set_ylabel("MDS axis 2")

@@ -7,6 +7,7 @@ Axes. ``save_standard_plots`` writes the four standard figures of a result folde
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 
 import matplotlib
@@ -21,6 +22,10 @@ DIM_COLOURS = ("#1f7a8c", "#c8553d", "#e0a458")
 DIM_NAMES = {0: "components", 1: "loops", 2: "cavities"}
 _INK = "#2b2d42"
 
+#: Values beyond this magnitude are drawn divided by a power of ten: matplotlib's axis
+#: transforms overflow when an axis spans nearly the largest float64 (about 1.8e308).
+_LARGEST_DRAWN = 1e300
+
 
 def _unpack(diagram):
     if isinstance(diagram, pd.DataFrame):
@@ -28,13 +33,44 @@ def _unpack(diagram):
     return diagram.pairs, diagram
 
 
+def literal(text: str) -> str:
+    """``text`` as matplotlib should show it, character for character.
+
+    A user's words (a unit such as ``$\\mu$m``) must not be read as mathtext: with two
+    dollar signs matplotlib would parse them, and fail on a command it does not know.
+    An escaped dollar sign is drawn as a dollar sign.
+    """
+    return str(text).replace("$", r"\$")
+
+
 def value_label(diagram) -> str:
     """Axis label for filtration values: the physical unit for distance filtrations."""
     if diagram is None:
         return "scale"
     if diagram.values == "distance":
-        return f"signed distance ({diagram.unit})"
+        return f"signed distance ({literal(diagram.unit)})"
     return "gray value"
+
+
+def _display_scale(values) -> float:
+    """1, or the power of ten that brings the finite ``values`` into matplotlib's range."""
+    values = np.asarray(values, dtype=np.float64)
+    finite = values[np.isfinite(values)]
+    largest = float(np.abs(finite).max()) if finite.size else 0.0
+    return 1.0 if largest <= _LARGEST_DRAWN else 10.0 ** math.floor(math.log10(largest))
+
+
+def _scaled(label: str, scale: float) -> str:
+    return label if scale == 1.0 else f"{label} (x {scale:.0e})"
+
+
+def _scaled_pairs(pairs: pd.DataFrame) -> tuple[pd.DataFrame, float]:
+    """``pairs`` with birth and death divided by their display scale, and the scale."""
+    scale = _display_scale(pairs[["birth", "death"]].to_numpy(dtype=np.float64))
+    if scale == 1.0:
+        return pairs, scale
+    return pairs.assign(birth=pairs["birth"].astype(float) / scale,
+                        death=pairs["death"].astype(float) / scale), scale
 
 
 def _new_axes(ax, size=(5.2, 5.0)):
@@ -55,6 +91,7 @@ def plot_diagram(diagram, ax=None, title: str | None = None, dims=None):
     """Persistence diagram: death against birth, the diagonal, essential classes on a band
     marked "never dies"."""
     pairs, diag = _unpack(diagram)
+    pairs, scale = _scaled_pairs(pairs)
     ax = _new_axes(ax)
     dims = sorted(pairs["dim"].unique()) if dims is None else dims
     finite_vals = pairs[["birth", "death"]].to_numpy(dtype=float).ravel()
@@ -79,7 +116,7 @@ def plot_diagram(diagram, ax=None, title: str | None = None, dims=None):
     ax.axhline(band, color="#8d99ae", linestyle=":", linewidth=1)
     ax.annotate("never dies", (lo - 0.1 * span, band), textcoords="offset points",
                 xytext=(2, 3), fontsize=8, color=_INK)
-    label = value_label(diag)
+    label = _scaled(value_label(diag), scale)
     ax.set_xlabel(f"birth: {label}")
     ax.set_ylabel(f"death: {label}")
     ax.set_title(title or "Persistence diagram", color=_INK)
@@ -92,6 +129,7 @@ def plot_diagram(diagram, ax=None, title: str | None = None, dims=None):
 def plot_barcode(diagram, ax=None, title: str | None = None, max_bars: int = 60):
     """Barcode: the ``max_bars`` longest bars per dimension, grouped by dimension."""
     pairs, diag = _unpack(diagram)
+    pairs, scale = _scaled_pairs(pairs)
     ax = _new_axes(ax, size=(6.4, 5.0))
     finite = pairs[np.isfinite(pairs["death"].to_numpy(dtype=float))]
     vals = finite[["birth", "death"]].to_numpy(dtype=float).ravel()
@@ -118,7 +156,7 @@ def plot_barcode(diagram, ax=None, title: str | None = None, max_bars: int = 60)
         row += 2
     ax.set_yticks(ticks, names)
     ax.invert_yaxis()
-    ax.set_xlabel(value_label(diag))
+    ax.set_xlabel(_scaled(value_label(diag), scale))
     ax.set_title(title or f"Barcode (longest {max_bars} per dimension)", color=_INK)
     _style(ax)
     return ax
@@ -129,10 +167,11 @@ def plot_betti_curves(diagram, ax=None, levels=None, title: str | None = None):
     ax = _new_axes(ax, size=(6.4, 4.2))
     levels = diagram.level_grid() if levels is None else levels
     curve = diagram.betti_curve(levels)
+    scale = _display_scale(curve["level"])
     for k in range(diagram.ndim):
-        ax.step(curve["level"], curve[f"betti_{k}"], where="post", color=DIM_COLOURS[k],
-                label=f"Betti {k} ({DIM_NAMES[k]})")
-    ax.set_xlabel(value_label(diagram))
+        ax.step(curve["level"] / scale, curve[f"betti_{k}"], where="post",
+                color=DIM_COLOURS[k], label=f"Betti {k} ({DIM_NAMES[k]})")
+    ax.set_xlabel(_scaled(value_label(diagram), scale))
     ax.set_ylabel("count")
     ax.set_title(title or "Betti curves", color=_INK)
     ax.legend(frameon=False, fontsize=8)
@@ -145,9 +184,10 @@ def plot_euler_curve(diagram, ax=None, levels=None, title: str | None = None):
     ax = _new_axes(ax, size=(6.4, 4.2))
     levels = diagram.level_grid() if levels is None else levels
     curve = diagram.euler_curve(levels)
-    ax.step(curve["level"], curve["euler_characteristic"], where="post", color=_INK)
+    scale = _display_scale(curve["level"])
+    ax.step(curve["level"] / scale, curve["euler_characteristic"], where="post", color=_INK)
     ax.axhline(0, color="#8d99ae", linewidth=0.8)
-    ax.set_xlabel(value_label(diagram))
+    ax.set_xlabel(_scaled(value_label(diagram), scale))
     ax.set_ylabel("Euler characteristic")
     ax.set_title(title or "Euler characteristic curve", color=_INK)
     _style(ax)
