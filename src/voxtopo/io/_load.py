@@ -197,6 +197,10 @@ def _time_axes(layout: Layout, source: str, axes) -> str:
         return letters
     if layout.labelled and "T" in layout.axes:
         return layout.axes
+    if layout.labelled and layout.axes.replace("C", "") == "YX":
+        raise InputError(f"{source} is a single image (one frame, shape {layout.shape}); a "
+                         f"rhythm needs a time series of frames covering at least two "
+                         f"periods.")
     found = layout.axes if layout.labelled else "no named axes"
     raise InputError(f"{source} has no time axis (its axes read as {found}, shape "
                      f"{layout.shape}); if one of "

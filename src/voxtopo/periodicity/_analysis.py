@@ -29,7 +29,7 @@ COLUMNS = {
     "score_z3": "the same over Z/3",
     "period": "{time}",
     "p_value": "Monte Carlo p-value of score against phase-randomised surrogates, "
-               "(1 + #{surrogate >= observed}) / (1 + N)",
+               "(1 + #{{surrogate >= observed}}) / (1 + N)",
     "significant": "p_value <= alpha",
     "amplitude": "{value} (sqrt(2) x standard deviation of the detrended trace)",
     "damping": "1/{time} (decay rate of the envelope; e-folding time = 1 / damping)",
