@@ -481,7 +481,98 @@ def _run_patches(args) -> int:
     return 0
 
 
-SUBCOMMANDS = (_add_analyse, _add_pores, _add_batch, _add_compare, _add_patches)
+def _period_range(text: str):
+    try:
+        shortest, longest = (float(v) for v in text.split(":"))
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"periods should look like MIN:MAX in seconds, e.g. "
+                                         f"0.5:4; got {text!r}")
+    return shortest, longest
+
+
+def _add_periodicity(subparsers) -> None:
+    from .periodicity import PeriodicityOptions
+    defaults = PeriodicityOptions()
+    p = subparsers.add_parser(
+        "periodicity",
+        help="where a time-lapse oscillates, with what period, and how surely",
+        description="Measure rhythms in a time-lapse: the mean intensity of every pixel "
+                    "(or bin, tile, region) over time is embedded in sliding windows and "
+                    "scored by the longest H1 bar of its Rips complex (SW1PerS); the period "
+                    "comes from the spectrum and the p-value from phase-randomised "
+                    "surrogates. Writes score.tif, period.tif, regions.csv, summary.json, "
+                    "plots and report.html into a new folder; research use only.")
+    p.add_argument("stack", help="time-lapse: ImageJ hyperstack, OME-TIFF, OME-Zarr, folder "
+                                 "of frames, .npy, ...")
+    p.add_argument("--out", required=True, help="result folder to create")
+    p.add_argument("--force", action="store_true", help="replace the result folder if it exists")
+    t = p.add_argument_group("time")
+    t.add_argument("--axes", help="the stored axes when the file names none or wrongly, e.g. "
+                                  "TYX or TZYX (a folder of frames: TYX)")
+    t.add_argument("--frame-interval", type=float, metavar="SECONDS",
+                   help="seconds between frames; wins over the file's")
+    t.add_argument("--periods", type=_period_range, metavar="MIN:MAX",
+                   help="shortest and longest period searched, in seconds (default: 2 "
+                        "frames to half the duration)")
+    s = p.add_argument_group("signals (pixels by default; one of these at most)")
+    s.add_argument("--bin", type=int, default=defaults.bin, metavar="N",
+                   help="average N x N pixel blocks before measuring (default 1)")
+    s.add_argument("--tiles", type=int, metavar="N",
+                   help="one signal per tile, the frame cut into N parts along each axis")
+    s.add_argument("--regions", metavar="LABELS",
+                   help="one signal per region of this label image (0 = background)")
+    m = p.add_argument_group("significance")
+    m.add_argument("--surrogates", type=int, default=defaults.surrogates, metavar="N",
+                   help=f"phase-randomised surrogates per p-value (default "
+                        f"{defaults.surrogates}; per-pixel maps share one pooled null)")
+    m.add_argument("--significance", type=float, default=defaults.significance,
+                   metavar="ALPHA", help=f"level of significance (default "
+                                         f"{defaults.significance:g})")
+    m.add_argument("--points", type=int, metavar="N",
+                   help="points per sliding-window cloud (default 30 for pixels, 60 for "
+                        "tiles and regions)")
+    m.add_argument("--whole-field", action=argparse.BooleanOptionalAction,
+                   default=defaults.whole_field,
+                   help="also measure the rhythm of the whole field (default on)")
+    m.add_argument("--seed", type=int, default=defaults.seed, help="seed of the surrogates")
+    r = p.add_argument_group("reading the stack")
+    r.add_argument("--spacing", type=_spacing, metavar="Y,X",
+                   help="pixel size (one value, or one per spatial axis); wins over the file")
+    r.add_argument("--unit", help="unit of the spacing, e.g. um")
+    r.add_argument("--channel", type=int, help="channel to take from a multichannel file")
+    r.add_argument("--level", type=int, default=0,
+                   help="resolution level of an OME-Zarr image (0 = full resolution)")
+    p.set_defaults(handler=_run_periodicity)
+
+
+def _run_periodicity(args) -> int:
+    from .io import load_timelapse
+    from .io.results import check_target
+    from .periodicity import PeriodicityOptions, run, write
+    options = PeriodicityOptions(
+        periods=args.periods, bin=args.bin, tiles=args.tiles, regions=args.regions,
+        surrogates=args.surrogates, significance=args.significance, points=args.points,
+        whole_field=args.whole_field, seed=args.seed)
+    check_target(args.out, args.force)
+    lapse = load_timelapse(args.stack, axes=args.axes, frame_interval=args.frame_interval,
+                           spacing=args.spacing, unit=args.unit, channel=args.channel,
+                           level=args.level)
+    bar = ProgressBar()
+    try:
+        result = run(lapse, options, progress=bar)
+        write(result, args.out, force=args.force)
+    finally:
+        bar.close()
+    print(f"voxtopo: {result.counts['statement']}")
+    if result.whole_field is not None:
+        print(f"voxtopo: whole field: score {result.whole_field.score:.3f}, period "
+              f"{result.whole_field.period:.4g} {result.time_unit}")
+    print(f"voxtopo: results written to {args.out} (research use only)")
+    return 0
+
+
+SUBCOMMANDS = (_add_analyse, _add_pores, _add_batch, _add_compare, _add_patches,
+               _add_periodicity)
 
 
 def build_parser() -> argparse.ArgumentParser:

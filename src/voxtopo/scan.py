@@ -99,3 +99,80 @@ def as_scan(scan_or_array, spacing=None, unit=None) -> Scan:
         return replace(scan, **changes) if changes else scan
     return Scan(np.asarray(scan_or_array), spacing=tuple(spacing or ()), unit=unit or "px",
                 source="array")
+
+
+#: Time unit of a TimeLapse whose file gives no frame interval: periods are then in frames.
+FRAME = "frame"
+
+
+@dataclass(frozen=True)
+class TimeLapse:
+    """A time series of 2D images (t, y, x) or 3D volumes (t, z, y, x).
+
+    Parameters
+    ----------
+    data : ndarray
+        Gray values, indexed (t, y, x) or (t, z, y, x).
+    frame_interval : float
+        Time between two frames, in ``time_unit``.
+    time_unit : str
+        "s" when the interval is known, ``FRAME`` ("frame") when neither the file nor the
+        caller gave it (then every time is counted in frames).
+    spacing : float or tuple of float
+        Size of one pixel or voxel along each spatial axis, (y, x) or (z, y, x) order.
+    unit : str
+        Unit of ``spacing``; "px" when unknown.
+    source : str
+        Where the data came from.
+    metadata : dict
+        Anything else the reader found (JSON-serialisable).
+    """
+
+    data: np.ndarray
+    frame_interval: float = 1.0
+    time_unit: str = FRAME
+    spacing: tuple[float, ...] = ()
+    unit: str = "px"
+    source: str = ""
+    metadata: dict = field(default_factory=dict)
+
+    def __post_init__(self):
+        data = np.asarray(self.data)
+        where = f" from {self.source}" if self.source else ""
+        if data.ndim not in (3, 4):
+            raise InputError(f"A time-lapse must be (t, y, x) or (t, z, y, x), got an array of "
+                             f"shape {data.shape}{where}.")
+        object.__setattr__(self, "data", data)
+        interval = float(self.frame_interval)
+        if not (np.isfinite(interval) and interval > 0):
+            raise InputError(f"The frame interval must be a positive number of seconds, got "
+                             f"{self.frame_interval!r}{where}.")
+        object.__setattr__(self, "frame_interval", interval)
+        spatial = Scan(np.empty((1,) * (data.ndim - 1)), spacing=self.spacing)
+        object.__setattr__(self, "spacing", spatial.spacing)
+
+    @property
+    def frames(self) -> int:
+        return self.data.shape[0]
+
+    @property
+    def spatial_shape(self) -> tuple[int, ...]:
+        return self.data.shape[1:]
+
+    @property
+    def duration(self) -> float:
+        """Time covered by the frames, ``frames * frame_interval`` in ``time_unit``."""
+        return self.frames * self.frame_interval
+
+    def describe(self) -> dict:
+        """Shape, dtype, spacing, frame interval and source as plain JSON values."""
+        return {
+            "shape": list(self.data.shape),
+            "axes": "TYX" if self.data.ndim == 3 else "TZYX",
+            "dtype": str(self.data.dtype),
+            "spacing": list(self.spacing),
+            "unit": self.unit,
+            "frame_interval": self.frame_interval,
+            "time_unit": self.time_unit,
+            "source": self.source,
+        }

@@ -38,6 +38,29 @@ _UNIT_NAMES = {
 }
 
 
+#: Seconds per time unit, for the frame intervals of ImageJ, OME-TIFF and OME-Zarr.
+_SECONDS = {"s": 1.0, "sec": 1.0, "second": 1.0, "seconds": 1.0,
+            "ms": 1e-3, "msec": 1e-3, "millisecond": 1e-3, "milliseconds": 1e-3,
+            "us": 1e-6, "µs": 1e-6, "μs": 1e-6, "microsecond": 1e-6, "microseconds": 1e-6,
+            "ns": 1e-9, "nanosecond": 1e-9, "nanoseconds": 1e-9,
+            "min": 60.0, "minute": 60.0, "minutes": 60.0,
+            "h": 3600.0, "hr": 3600.0, "hour": 3600.0, "hours": 3600.0,
+            "d": 86400.0, "day": 86400.0, "days": 86400.0}
+
+
+def seconds(value, unit) -> float | None:
+    """A time ``value`` in ``unit`` (default seconds) as seconds; None when either is not
+    usable (unknown unit, not a positive number)."""
+    try:
+        value = float(value)
+    except (TypeError, ValueError):
+        return None
+    factor = _SECONDS.get(str(unit if unit is not None else "s").strip().lower())
+    if factor is None or not math.isfinite(value) or value <= 0:
+        return None
+    return value * factor
+
+
 def normalise_unit(unit) -> str:
     """'µm', 'micron', 'micrometer', '\\u00B5m' -> 'um'; unknown words are kept, lower case."""
     if unit is None:
@@ -64,7 +87,8 @@ class Layout:
     that part of the array. ``spacing`` maps the spatial axes found in the metadata to their
     voxel size in ``unit``. ``peak_bytes(index)``, when given, is the memory the read needs
     at its peak (e.g. all samples of an RGB page before one is kept). ``close`` releases
-    the open file. ``labelled`` is False for formats that name no axes (.npy, raw, plain
+    the open file. ``frame_interval`` is the time between frames in seconds when the
+    metadata gives it. ``labelled`` is False for formats that name no axes (.npy, raw, plain
     zarr); their ``axes`` are then chosen by ``unlabelled_axes`` from the options given.
     """
 
@@ -79,6 +103,7 @@ class Layout:
     peak_bytes: Callable[[tuple], int] | None = None
     close: Callable[[], None] = lambda: None
     labelled: bool = True
+    frame_interval: float | None = None
 
 
 def unlabelled_axes(shape, source: str, channel, timepoint) -> str:

@@ -9,8 +9,8 @@ import numpy as np
 
 from ..errors import InputError
 from ..memory import ensure_fits
-from ..scan import Scan
-from ._layout import Layout, convert, is_length, nbytes, normalise_unit, unlabelled_axes
+from ..scan import FRAME, Scan, TimeLapse
+from ._layout import AXES, Layout, convert, is_length, nbytes, normalise_unit, unlabelled_axes
 from ._npy import open_npy
 from ._raw import RAW_SUFFIXES, open_raw
 from ._slices import open_png, open_slices, slice_files_in_folder, slice_files_matching
@@ -86,6 +86,142 @@ def load(path, *, spacing=None, unit=None, channel=None, timepoint=None, shape=N
                      timepoint=timepoint)
     finally:
         layout.close()
+
+
+def load_timelapse(path, *, axes=None, frame_interval=None, spacing=None, unit=None,
+                   channel=None, shape=None, dtype=None, byte_order="little", offset=0,
+                   level=0) -> TimeLapse:
+    """Read a time series of 2D images or 3D volumes with its frame interval.
+
+    Parameters
+    ----------
+    path : str or Path
+        Anything :func:`load` reads: an ImageJ hyperstack (T axis, ``finterval``), an
+        OME-TIFF (T, ``TimeIncrement``), an OME-Zarr image with a time axis, a folder or
+        glob pattern of frames (one 2D image per file, in natural order), .npy, raw.
+    axes : str, optional
+        The stored axes, one letter per axis from T, C, Z, Y, X (e.g. "TYX", "TZYX"), for
+        files that name none or name them wrongly (a plain multi-page TIFF, a folder of
+        frames, .npy); wins over the file's.
+    frame_interval : float, optional
+        Seconds between frames; wins over the file's. Without either, times are counted in
+        frames (``time_unit`` "frame").
+    spacing, unit, channel, shape, dtype, byte_order, offset, level
+        As for :func:`load` (spacing in (y, x) or (z, y, x) order).
+
+    Returns
+    -------
+    TimeLapse
+        ``data`` (t, y, x) or (t, z, y, x).
+
+    Raises
+    ------
+    InputError
+        No time axis (and no ``axes`` saying which it is), an ``axes`` string that does
+        not fit the file, several channels without ``channel``, and what :func:`load`
+        refuses; one sentence each.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib, tifffile
+    >>> path = pathlib.Path(tempfile.mkdtemp()) / "beats.tif"
+    >>> tifffile.imwrite(path, np.zeros((5, 4, 4), np.uint8), imagej=True,
+    ...                  metadata={"axes": "TYX", "finterval": 0.2})
+    >>> lapse = load_timelapse(path)
+    >>> lapse.data.shape, lapse.frame_interval, lapse.time_unit
+    ((5, 4, 4), 0.2, 's')
+    """
+    if channel is not None and (isinstance(channel, bool) or not isinstance(
+            channel, (int, np.integer)) or channel < 0):
+        raise InputError(f"channel={channel!r} must be a whole number, 0 or more.")
+    source = str(path)
+    layout = _open(path, shape=shape, dtype=dtype, byte_order=byte_order, offset=offset,
+                   level=int(level))
+    try:
+        stored = _time_axes(layout, source, axes)
+        index = []
+        for letter, size in zip(stored, layout.shape):
+            if letter != "C":
+                index.append(slice(None))
+            elif channel is None and size > 1:
+                raise InputError(_pick_message(source, layout, [("C", size)]))
+            elif channel is not None and channel >= size:
+                raise InputError(f"channel={channel} is out of range: {source} has {size} "
+                                 f"channels, numbered 0 to {size - 1}.")
+            else:
+                index.append(int(channel or 0))
+        index = tuple(index)
+        kept = "".join(a for a, i in zip(stored, index) if not isinstance(i, int))
+        if kept not in ("TYX", "TZYX"):
+            raise InputError(f"{source} has axes {stored} (shape {layout.shape}); a "
+                             f"time-lapse needs T, Y, X and maybe Z, once a channel is "
+                             f"picked.")
+        expected = tuple(n for n, i in zip(layout.shape, index) if not isinstance(i, int))
+        peak = layout.peak_bytes(index) if layout.peak_bytes else nbytes(expected, layout.dtype)
+        ensure_fits(peak, f"Reading {source} ({'x'.join(map(str, expected))} of "
+                          f"{layout.dtype})", "crop it, bin it or pick fewer frames first")
+        data = layout.read(index)
+        if data.shape != expected:
+            raise InputError(f"{source} decoded to shape {data.shape} instead of {expected}; "
+                             f"the file is probably damaged.")
+        data = np.moveaxis(data, kept.index("T"), 0)
+        spatial = kept.replace("T", "")
+        notes: list[str] = []
+        found_spacing, found_unit = _found_spacing(layout, spatial, notes)
+        final_spacing, final_unit = _caller_wins(found_spacing, found_unit, spacing, unit,
+                                                 spatial, source)
+        interval, time_unit, interval_from = _interval(layout, frame_interval, source)
+    finally:
+        layout.close()
+    if data.dtype == np.float16:
+        data = data.astype(np.float32)
+    metadata = dict(layout.metadata)
+    metadata.update({"stored_axes": stored, "stored_shape": list(layout.shape),
+                     "frame_interval_from": interval_from})
+    if notes and spacing is None:
+        metadata["notes"] = notes
+    return TimeLapse(data, frame_interval=interval, time_unit=time_unit, spacing=final_spacing,
+                     unit=final_unit, source=source, metadata=_jsonable(metadata))
+
+
+def _time_axes(layout: Layout, source: str, axes) -> str:
+    """The stored axes of a time-lapse: the caller's, else the file's, which must hold T."""
+    if axes is not None:
+        letters = str(axes).upper()
+        if (len(letters) != len(layout.shape) or set(letters) - set(AXES)
+                or len(set(letters)) != len(letters) or "T" not in letters):
+            raise InputError(f"axes={axes!r} does not fit {source}, which holds "
+                             f"{len(layout.shape)} axes of shape {layout.shape}; give one "
+                             f"letter per axis from T, C, Z, Y, X with one T, e.g. "
+                             f"{'TYX' if len(layout.shape) == 3 else 'TZYX'}.")
+        return letters
+    if layout.labelled and "T" in layout.axes:
+        return layout.axes
+    if layout.labelled and layout.axes.replace("C", "") == "YX":
+        raise InputError(f"{source} is a single image (one frame, shape {layout.shape}); a "
+                         f"rhythm needs a time series of frames covering at least two "
+                         f"periods.")
+    found = layout.axes if layout.labelled else "no named axes"
+    raise InputError(f"{source} has no time axis (its axes read as {found}, shape "
+                     f"{layout.shape}); if one of "
+                     f"its axes is time, say which with axes= (--axes), e.g. "
+                     f"{'TYX' if len(layout.shape) == 3 else 'TZYX'}.")
+
+
+def _interval(layout: Layout, frame_interval, source: str):
+    """(interval, time unit, where it came from): the caller's, the file's, or 1 frame."""
+    if frame_interval is not None:
+        try:
+            value = float(frame_interval)
+        except (TypeError, ValueError):
+            value = float("nan")
+        if not (math.isfinite(value) and value > 0):
+            raise InputError(f"frame_interval={frame_interval!r} must be a positive number of "
+                             f"seconds.")
+        return value, "s", "caller"
+    if layout.frame_interval is not None:
+        return float(layout.frame_interval), "s", layout.metadata.get("format", "file")
+    return 1.0, FRAME, "none (times counted in frames; give --frame-interval SECONDS)"
 
 
 def read_header(path, *, shape=None, dtype=None, byte_order="little", offset=0,
@@ -228,6 +364,10 @@ def _pick_message(source: str, layout: Layout, unpicked) -> str:
                 f"command line).")
     letter, size = unpicked[0]
     name, word = _WHAT[letter]
+    if letter == "T":
+        return (f"{source} is a time-lapse of {size} time points; analyse one with "
+                f"timepoint=N (--timepoint N on the command line), N from 0 to {size - 1}, "
+                f"or measure its rhythms with `voxtopo periodicity`.")
     what = (f"is an RGB{'A' if size == 4 else ''} image with {size} channels"
             if letter == "C" and layout.rgb else f"has {size} {word}s")
     return (f"{source} {what}; pick one with {name}=N (--{name} N on the command line), "

@@ -26,7 +26,7 @@ import numpy as np
 import tifffile
 
 from ..errors import InputError
-from ._layout import Layout, convert, is_length, nbytes, normalise_unit
+from ._layout import Layout, convert, is_length, nbytes, normalise_unit, seconds
 
 TIFF_SUFFIXES = (".tif", ".tiff", ".btf", ".tf2", ".tf8")
 
@@ -170,7 +170,7 @@ def _layout(tif: tifffile.TiffFile, path: Path, level: int, messages: list[str])
 
     return Layout(axes=axes, shape=shape, dtype=np.dtype(bool) if restore_bool else dtype,
                   read=read, spacing=spacing, unit=unit, metadata=metadata, rgb=rgb,
-                  peak_bytes=peak_bytes, close=tif.close)
+                  peak_bytes=peak_bytes, close=tif.close, frame_interval=_frame_interval(tif))
 
 
 def _axes(series, path: Path) -> tuple[str, tuple[int, ...]]:
@@ -238,6 +238,24 @@ def _spacing(tif: tifffile.TiffFile, page, axes: str) -> tuple[dict, str, str]:
         return ({a: float(s) for a, s in zip(spatial, shaped["spacing"])},
                 normalise_unit(shaped.get("unit")), "tifffile description")
     return _resolution_um(page)
+
+
+def _frame_interval(tif: tifffile.TiffFile) -> float | None:
+    """Seconds between frames: ImageJ ``finterval`` (in ``tunit``, seconds when left out)
+    or OME ``TimeIncrement`` (in ``TimeIncrementUnit``, seconds when left out)."""
+    if tif.is_imagej:
+        meta = tif.imagej_metadata or {}
+        if "finterval" in meta:
+            return seconds(meta["finterval"], meta.get("tunit", "s"))
+    if tif.is_ome and tif.ome_metadata:
+        try:
+            root = ElementTree.fromstring(tif.ome_metadata)
+        except ElementTree.ParseError:
+            return None
+        pixels = next((e for e in root.iter() if e.tag.rsplit("}", 1)[-1] == "Pixels"), None)
+        if pixels is not None and pixels.get("TimeIncrement") is not None:
+            return seconds(pixels.get("TimeIncrement"), pixels.get("TimeIncrementUnit", "s"))
+    return None
 
 
 def _resolution(page) -> dict:

@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError
-from ._layout import Layout, check_dtype, convert, is_length, normalise_unit
+from ._layout import Layout, check_dtype, convert, is_length, normalise_unit, seconds
 
 _MARKERS = (".zgroup", ".zarray", ".zattrs", "zarr.json")
 
@@ -80,12 +80,18 @@ def open_zarr(path: Path, level: int = 0) -> Layout:
             if axis_unit != unit and is_length(axis_unit) and is_length(unit):
                 size = convert(size, axis_unit, unit)
             spacing[axis] = float(size)
+    frame_interval = None
+    if "T" in letters:
+        at = letters.index("T")
+        frame_interval = seconds(scale[at] * outer[at], units[at] or "s")
     metadata = {"format": "ome-zarr", "ngff_version": str(scales.get("version",
                                                                     ome.get("version", ""))),
                 "level": level, "levels": len(datasets), "dataset": str(dataset["path"]),
                 "axes": letters or None, "spacing_from": "ome-zarr" if spacing else "none"}
-    return _layout(array, path, axes=letters, spacing=spacing, unit=unit, metadata=metadata,
-                   labelled=bool(letters))
+    layout = _layout(array, path, axes=letters, spacing=spacing, unit=unit,
+                     metadata=metadata, labelled=bool(letters))
+    layout.frame_interval = frame_interval
+    return layout
 
 
 def _axes(axes_meta, path: Path, ndim: int):
