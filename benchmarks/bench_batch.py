@@ -2,7 +2,7 @@
 
 Generates COUNT scans of SIZE^3 voxels (smoothed noise, seeded), then times
 
-* ``direct``: :func:`voxtopo.pipeline.analyse` called on each scan in turn, in this process,
+* ``direct``: :func:`voxtopo.jobs.analyse.analyse` called on each scan in turn, in this process,
   once before and once after the batch runs (the mean is the reference);
 * ``batch-1`` and ``batch-2``: ``voxtopo.batch.run_batch`` on a new LocalCluster with one
   and two worker processes (cluster start-up, kernel warm-up and shut-down included "in
@@ -46,7 +46,7 @@ def make_scans(folder: Path, count: int, size: int) -> list[Path]:
 
 
 def time_direct(paths: list[Path], out: Path) -> float:
-    from voxtopo.pipeline import analyse
+    from voxtopo.jobs.analyse import analyse
 
     out.mkdir()
     start = time.perf_counter()
@@ -60,7 +60,7 @@ def _warm_up(size: int = 24) -> None:
     worker and in this process before the direct calls alike, so that the steady figures
     compare like with like."""
     from voxtopo import Scan
-    from voxtopo.pipeline import analyse
+    from voxtopo.jobs.analyse import analyse
 
     folder = Path(tempfile.mkdtemp(prefix="voxtopo-warm-"))
     try:

@@ -13,7 +13,7 @@ from scipy import ndimage
 
 from voxtopo import batch, cli
 from voxtopo.errors import InputError
-from voxtopo.pipeline import AnalysisOptions, analyse
+from voxtopo.jobs.analyse import AnalysisOptions, analyse
 
 
 def _textures(folder, count=4, shape=(28, 28)):

@@ -179,12 +179,12 @@ def test_unwritable_output_is_refused_before_any_computation(tmp_path, monkeypat
         monkeypatch.setattr(results.tempfile, "mkdtemp", refuse)
     else:
         locked.chmod(0o555)
-    import voxtopo.pipeline
+    import voxtopo.jobs.analyse
 
     def must_not_run(*args, **kwargs):
         raise AssertionError("persistence ran before the output was checked")
 
-    monkeypatch.setattr(voxtopo.pipeline, "persistence", must_not_run)
+    monkeypatch.setattr(voxtopo.jobs.analyse, "persistence", must_not_run)
     code = cli.main(["analyse", str(tmp_path / "a.npy"), "--out", str(locked / "r")])
     err = capsys.readouterr().err
     assert code == 2 and "Cannot write into" in err and err.count("\n") == 1
@@ -230,12 +230,12 @@ def test_a_full_disk_leaves_the_previous_table_readable(tmp_path):
 
 def test_a_system_failure_is_one_sentence(tmp_path, monkeypatch, capsys):
     np.save(tmp_path / "a.npy", np.eye(5))
-    import voxtopo.pipeline
+    import voxtopo.jobs.analyse
 
     def no_space(*args, **kwargs):
         raise OSError(errno.ENOSPC, "No space left on device", str(tmp_path / "r"))
 
-    monkeypatch.setattr(voxtopo.pipeline, "write_result", no_space)
+    monkeypatch.setattr(voxtopo.jobs.analyse, "write_result", no_space)
     code = cli.main(["analyse", str(tmp_path / "a.npy"), "--out", str(tmp_path / "r")])
     err = capsys.readouterr().err
     errors = [line for line in err.splitlines() if "error" in line]

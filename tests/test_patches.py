@@ -23,7 +23,8 @@ from skimage import color, data
 
 from voxtopo.cli import main
 from voxtopo.errors import InputError
-from voxtopo.patches import PatchOptions, core, dct_basis, persistence, sample
+from voxtopo.jobs.patches import PatchOptions
+from voxtopo.patches import core, dct_basis, persistence, sample
 from voxtopo.patches._basis import basis_orders, grid_laplacian
 from voxtopo.patches._contrast import _d_norm_twin, d_norm, normalise
 from voxtopo.patches._density import _kth_neighbour_distance_twin, kth_neighbour_distance

@@ -384,7 +384,7 @@ def test_per_pixel_maps_find_the_beating_disc(tmp_path):
     1989): the disc's pixels are significant; of the noise pixels, about alpha are (a valid
     test; tolerance three binomial standard deviations)."""
     from voxtopo.io import load_timelapse
-    from voxtopo.periodicity import PeriodicityOptions, run, write
+    from voxtopo.jobs.periodicity import PeriodicityOptions, run, write
 
     stack, disc = _beating_stack(seed=3)
     np.save(tmp_path / "beats.npy", stack)

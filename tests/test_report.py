@@ -15,7 +15,7 @@ from matplotlib import image as mpimg
 import voxtopo
 from voxtopo import compare
 from voxtopo.errors import InputError
-from voxtopo.pipeline import analyse
+from voxtopo.jobs.analyse import analyse
 from voxtopo.report.html import write_comparison, write_report
 
 DOCS_SCREENSHOT = Path(__file__).resolve().parents[1] / "docs" / "images" / "report.png"
@@ -42,7 +42,7 @@ def _ring_result(tmp_path) -> Path:
     ring = (np.abs(np.hypot(yy - 24, xx - 24) - 14) < 3).astype(float)
     out = tmp_path / "ring"
     analyse(voxtopo.Scan(ring, spacing=(0.5, 0.5), unit="um", source="ring.npy"),
-            out, voxtopo.pipeline.AnalysisOptions(superlevel=True, engine="gudhi"))
+            out, voxtopo.jobs.analyse.AnalysisOptions(superlevel=True, engine="gudhi"))
     return out
 
 

@@ -37,6 +37,8 @@ name (optional)
     "_", leading dots go, and rows that would share a folder get -2, -3, ...
 channel, timepoint, level (optional)
     Which channel, time point or resolution level of this scan to read; win over [load].
+mask (optional, pores job)
+    A binary pore mask of this scan (1 = pore); the scan is then drawn under the plots.
 Any other column is kept as it is and copied into summary.csv.
 
 Instead of a CSV file, MANIFEST may be a glob such as "scans/*.tif" (quote it).
@@ -45,8 +47,9 @@ The settings file (TOML, or YAML with the same keys)
 ----------------------------------------------------
 ::
 
-    job = "analyse"            # "analyse" (persistence diagram), "pores" (porosity)
-                               # or "patches" (high-contrast patch space of each scan)
+    job = "analyse"            # "analyse" (persistence diagram), "pores" (porosity),
+                               # "patches" (high-contrast patch space of each scan) or
+                               # "periodicity" (rhythms of each time-lapse)
 
     [load]                     # how every scan is read (manifest columns win)
     spacing = [2.5, 2.5, 2.5]  # voxel size z, y, x (or one number)
@@ -58,6 +61,8 @@ The settings file (TOML, or YAML with the same keys)
     dtype = "uint16"
     byte_order = "little"
     offset = 0
+    axes = "TYX"               # periodicity only: axes of files that name none
+    frame_interval = 0.5       # periodicity only: seconds between frames
 
     [analyse]                  # the options of `voxtopo analyse`: superlevel,
     superlevel = false         # neighbourhood, sigma (= --smooth), crop, downsample,
@@ -72,6 +77,10 @@ The settings file (TOML, or YAML with the same keys)
     k = 3                      # positions, seed, log, axis, slices, k_neighbour,
     landmarks = 150            # density_percent, landmarks, fields, max_edge,
                                # method, max_dimension
+
+    [periodicity]              # the options of `voxtopo periodicity`: periods,
+    periods = [2.0, 20.0]      # bin, tiles, regions, surrogates, significance,
+    surrogates = 99            # points, whole_field, top, seed, workers
 
     [batch]
     workers = 2                # local cluster size (default: the number of cores)
@@ -105,26 +114,23 @@ import pandas as pd
 from .errors import InputError, VoxtopoError
 from .io.results import (check_output, is_complete, is_voxtopo_folder, safe_folder_name,
                          unique_folder_names, write_atomically, write_marker)
-from .options import (AXIS, BOOLEAN, COUNT, ENGINE, NEIGHBOURHOOD, NON_NEGATIVE, POSITIVE, SHAPE,
-                      SPACING, TEXT, THRESHOLD, WHOLE, Rule, check, one_of, optional)
+from .options import (COUNT, POSITIVE, SHAPE,
+                      SPACING, TEXT, WHOLE, Rule, check, one_of)
 from .engine.own import THREADS_VARIABLE
 
 __all__ = ["run_batch", "read_manifest", "read_settings", "Settings", "ScanEntry",
-           "analyse_out_of_core", "summary_table", "plan_workers"]
+           "job_options", "summary_table", "plan_workers"]
 
-JOBS = ("analyse", "pores", "patches")
+JOBS = ("analyse", "pores", "patches", "periodicity")
 
 #: How every scan is read ([load]); the manifest's columns of the same names win.
 LOAD_RULES = {
     "spacing": SPACING, "unit": TEXT, "channel": WHOLE, "timepoint": WHOLE, "level": WHOLE,
     "shape": SHAPE, "dtype": TEXT, "byte_order": one_of("little", "big"), "offset": WHOLE,
+    "axes": TEXT, "frame_interval": POSITIVE,
 }
-#: Keywords of voxtopo.porosity.analyse that a settings file may set ([pores]).
-PORES_RULES = {
-    "threshold": optional(THRESHOLD), "pores_bright": BOOLEAN, "label": optional(WHOLE),
-    "axis": optional(AXIS), "neighbourhood": optional(NEIGHBOURHOOD),
-    "min_lifetime": optional(NON_NEGATIVE), "engine": ENGINE,
-}
+#: [load] keys that only a time-lapse job reads.
+_TIME_KEYS = ("axes", "frame_interval")
 #: How the batch itself runs ([batch]).
 BATCH_RULES = {
     "workers": COUNT,
@@ -186,11 +192,12 @@ class Settings:
     analyse: dict = field(default_factory=dict)
     pores: dict = field(default_factory=dict)
     patches: dict = field(default_factory=dict)
+    periodicity: dict = field(default_factory=dict)
     batch: dict = field(default_factory=dict)
 
     def as_dict(self) -> dict:
-        return {"job": self.job, "load": dict(self.load), "analyse": dict(self.analyse),
-                "pores": dict(self.pores), "patches": dict(self.patches),
+        return {"job": self.job, "load": dict(self.load),
+                **{name: dict(getattr(self, name)) for name in JOBS},
                 "batch": dict(self.batch)}
 
 
@@ -236,7 +243,7 @@ def read_settings(path=None) -> tuple[Settings, str, str]:
 
 
 def _check_settings(raw: dict, path) -> Settings:
-    allowed = {"job", "load", "analyse", "pores", "patches", "batch"}
+    allowed = {"job", "load", *JOBS, "batch"}
     unknown = set(raw) - allowed
     if unknown:
         raise InputError(f"{path} has the unknown key(s) {sorted(unknown)}; the settings "
@@ -246,28 +253,37 @@ def _check_settings(raw: dict, path) -> Settings:
         raise InputError(f"job = {job!r} in {path} is not a job voxtopo batch runs; choose "
                          f"one of {list(JOBS)}.")
     checked = {}
-    for table in ("load", "analyse", "pores", "patches", "batch"):
+    for table in ("load", *JOBS, "batch"):
         value = raw.get(table, {}) or {}
         if not isinstance(value, dict):
             raise InputError(f"[{table}] in {path} should be a table of keys, got {value!r}.")
         checked[table] = dict(value)
     where = {table: f"[{table}] in {Path(path).name}" for table in checked}
-    from .patches import PATCH_RULES
-    from .pipeline import ANALYSE_RULES
-
-    for table, rules in (("load", LOAD_RULES), ("analyse", ANALYSE_RULES),
-                         ("pores", PORES_RULES), ("patches", PATCH_RULES),
-                         ("batch", BATCH_RULES)):
-        check(checked[table], rules, where[table])
-    # the jobs' own options also check how their fields go together
-    _job_options(_analysis_options, checked["analyse"], where["analyse"])
-    _job_options(_patch_options, checked["patches"], where["patches"])
+    check(checked["load"], LOAD_RULES, where["load"])
+    check(checked["batch"], BATCH_RULES, where["batch"])
+    time_keys = sorted(set(_TIME_KEYS) & set(checked["load"]))
+    if time_keys and job != "periodicity":
+        raise InputError(f"{', '.join(time_keys)} in {where['load']} only matter to the "
+                         f"periodicity job, not to {job}; leave them out.")
+    for name in JOBS:
+        job_options(name, checked[name], where[name])
     return Settings(job=job, **checked)
 
 
-def _job_options(make, values: dict, where: str):
+def job_options(name: str, values: dict, where: str = "the settings"):
+    """The Options of job ``name`` from a settings table, checked key by key (TOML lists
+    become the tuples the options hold)."""
+    from dataclasses import fields
+
+    from . import jobs
+
+    options = jobs.get(name).Options
+    known = {f.name for f in fields(options)}
+    unknown = sorted(set(values) - known)
+    if unknown:
+        raise InputError(f"{where} has the unknown key(s) {unknown}; it knows {sorted(known)}.")
     try:
-        return make(values)
+        return options(**{k: tuple(v) if isinstance(v, list) else v for k, v in values.items()})
     except InputError as error:
         raise InputError(f"{where}: {error}") from None
 
@@ -324,6 +340,7 @@ class ScanEntry:
     group: str
     columns: dict
     load: dict = field(default_factory=dict)
+    mask: str | None = None
 
 
 def _spacing_text(text, where) -> tuple | None:
@@ -424,12 +441,15 @@ def read_manifest(manifest) -> list[ScanEntry]:
         if not raw_path:
             raise InputError(f"The path in {where} is empty; give the scan's file or folder.")
         full = raw_path if Path(raw_path).is_absolute() else str(base / raw_path)
+        mask = str(row.get("mask", "") or "").strip()
+        if mask and not Path(mask).is_absolute():
+            mask = str(base / mask)
         entries.append(ScanEntry(name=name, path=full,
                                  spacing=_spacing_text(row.get("spacing"), where),
                                  unit=(str(row.get("unit") or "").strip() or None),
                                  group=str(row.get("group", "") or ""),
                                  columns={k: v for k, v in row.items() if k != "name"},
-                                 load=_load_columns(row, where)))
+                                 load=_load_columns(row, where), mask=mask or None))
     return entries
 
 
@@ -447,119 +467,40 @@ def _load_options(entry: ScanEntry, settings: Settings) -> dict:
     return options
 
 
-def _analysis_options(values: dict):
-    """AnalysisOptions from an [analyse] table (checked when the settings are read)."""
-    from .pipeline import AnalysisOptions
+def _read_input(job: str, path: str, load_options: dict):
+    """What the job reads: a time-lapse for periodicity, a scan for the others."""
+    from .io import load, load_timelapse
 
-    return AnalysisOptions(**values)
-
-
-def _patch_options(values: dict):
-    """PatchOptions from a [patches] table; TOML lists become the tuples it holds."""
-    from .patches import PatchOptions
-
-    return PatchOptions(**{k: tuple(v) if isinstance(v, list) else v
-                           for k, v in values.items()})
+    if job == "periodicity":
+        options = {k: v for k, v in load_options.items() if k != "timepoint"}
+        return load_timelapse(path, **options)
+    return load(path, **load_options)
 
 
-def analyse_out_of_core(source, out, options=None, *, load_options=None, chunks=None,
-                        force: bool = False, scheduler=None):
-    """The analyse job for a zarr / OME-Zarr scan too big for memory.
+def _run_one(job: str, path: str, out: str, load_options: dict, settings: dict,
+             overrides: dict) -> dict:
+    """Run one scan's job into ``out`` on a dask worker.
 
-    Dimension 0 and dimension d-1 are computed chunk by chunk
-    (:func:`voxtopo.engine.chunked.chunked_persistence`); the result folder is the one
-    ``voxtopo analyse`` writes, and its notes say that dimension 1 of a volume is absent.
-    Options that need the whole volume at once (smoothing, cropping, downsampling, the
-    distance transform, periodic boundaries, other fields than Z/2) are refused.
-    """
-    from .engine.chunked import chunked_persistence, open_chunked
-    from .io.results import check_target
-    from .pipeline import AnalysisOptions, write_result
-    from .scan import Scan
-
-    options = options or AnalysisOptions()
-    whole = {"sigma": options.sigma, "crop": options.crop,
-             "downsample": options.downsample not in (None, 1), "distance": options.distance,
-             "periodic": options.periodic, "fill_invalid": options.fill_invalid,
-             "field": options.field != 2}
-    asked = [k for k, v in whole.items() if v]
-    if asked:
-        raise InputError(f"The out-of-core path cannot apply {', '.join(asked)} (they need the "
-                         f"whole volume in memory); leave them out or drop --out-of-core.")
-    check_target(out, force)
-    load_options = dict(load_options or {})
-    unknown = set(load_options) - {"spacing", "unit", "channel", "timepoint", "level"}
-    if unknown:
-        raise InputError(f"The out-of-core path reads zarr stores and takes no {sorted(unknown)} "
-                         f"option; leave it out.")
-    opened = open_chunked(source, level=load_options.get("level", 0),
-                          channel=load_options.get("channel"),
-                          timepoint=load_options.get("timepoint"), chunks=chunks,
-                          unit=load_options.get("unit"))
-    if load_options.get("spacing") is not None:
-        spacing = tuple(float(v) for v in np.atleast_1d(load_options["spacing"]))
-        spacing = spacing * opened.ndim if len(spacing) == 1 else spacing
-        if len(spacing) != opened.ndim:
-            raise InputError(f"Spacing {spacing} has {len(spacing)} values but {source} is "
-                             f"{opened.ndim}D; give one value per axis in (z, y, x) order.")
-        opened.spacing = spacing
-    start = time.perf_counter()
-    diagram = chunked_persistence(opened, superlevel=options.superlevel,
-                                  neighbourhood=options.neighbourhood,
-                                  min_persistence=options.min_persistence, scheduler=scheduler)
-    seconds = time.perf_counter() - start
-    placeholder = np.broadcast_to(np.zeros((), opened.dtype), opened.shape)
-    scan = Scan(placeholder, spacing=opened.spacing, unit=opened.unit, source=opened.source)
-    missing = [d for d in range(1, opened.ndim - 1)]
-    write_result(out, scan, diagram, options, timings={"persistence": seconds},
-                 notes={"out_of_core": {"chunks": list(opened.chunks),
-                                        "dimensions_not_computed": missing}}, force=force)
-    return diagram
-
-
-def _run_one(job: str, path: str, out: str, load_options: dict, settings: dict) -> dict:
-    """Run one scan's job ("analyse" or "pores") into ``out`` on a dask worker.
-
+    ``overrides`` are this scan's own job options from the manifest (a pore ``mask``).
     Bad input and unexpected errors alike come back as a failed record with a message,
     so that one broken scan never stops the others."""
+    from . import jobs
+
     start = time.perf_counter()
     # dask gives each task one thread: the engine's second thread would only compete
     # with the worker's other tasks (and with other workers on the same machine)
     os.environ[THREADS_VARIABLE] = "1"
     try:
-        settings = Settings(**settings)
-        if job == "analyse":
-            from .pipeline import analyse
-
-            analyse(path, out, _analysis_options(settings.analyse), force=True,
-                    load_options=load_options)
-        elif job == "pores":
-            _run_pores(path, out, load_options, settings)
-        else:
-            _run_patches(path, out, load_options, settings)
+        module = jobs.get(job)
+        options = job_options(job, {**settings[job], **overrides})
+        result = module.run(_read_input(job, path, load_options), options)
+        module.write(result, out, force=True)
         return {"status": "done", "message": "", "seconds": time.perf_counter() - start}
     except (VoxtopoError, MemoryError) as error:
         message = str(error) or type(error).__name__
     except Exception as error:  # an unexpected failure still must not stop the others
         message = f"unexpected {type(error).__name__}: {' '.join(str(error).split())[:300]}"
     return {"status": "failed", "message": message, "seconds": time.perf_counter() - start}
-
-
-def _run_pores(path, out, load_options, settings: Settings) -> None:
-    from . import porosity
-    from .io import load
-
-    scan = load(path, **load_options)
-    analysis = porosity.analyse(scan, **settings.pores)
-    porosity.write_pores(out, analysis, scan, force=True)
-
-
-def _run_patches(path, out, load_options, settings: Settings) -> None:
-    from . import patches
-    from .io import load
-
-    scan = load(path, **load_options)
-    patches.analyse([scan], out, _patch_options(settings.patches), force=True)
 
 
 # --- planning -------------------------------------------------------------------------------
@@ -579,7 +520,7 @@ def _peek(path: str, load_options: dict):
 
 def scan_bytes(shape, dtype, job: str = "analyse") -> int:
     """Planned peak memory of one scan's job: the engine's estimate plus the copies the
-    pipeline makes (loaded, float, prepared); the pores job twice that."""
+    analyse job makes (loaded, float, prepared); the pores job twice that."""
     from .engine import estimate
 
     voxels = int(np.prod(shape, dtype=np.int64))
@@ -870,8 +811,14 @@ def run_batch(manifest, out, *, settings_path=None, scheduler=None, workers=None
     stream = stream or sys.stderr
     settings, text, kind = read_settings(settings_path)
     entries = read_manifest(manifest)
+    masked = [entry.name for entry in entries if entry.mask]
+    if masked and settings.job != "pores":
+        raise InputError(f"The manifest gives a mask for {masked[0]}, but only the pores job "
+                         f"reads masks and this batch runs {settings.job}; set job = \"pores\" "
+                         f"or leave the mask column out.")
     manifest_file = Path(manifest) if Path(manifest).is_file() else None
-    inputs = [manifest_file, settings_path, *(entry.path for entry in entries)]
+    inputs = [manifest_file, settings_path, *(entry.path for entry in entries),
+              *(entry.mask for entry in entries if entry.mask)]
     out = _check_out(out, [i for i in inputs if i is not None], settings, force)
     loads = {e.name: _load_options(e, settings) for e in entries}
     needs = [scan_bytes(*peek, settings.job) for e in entries
@@ -939,10 +886,11 @@ def _submit_all(client, todo, jobs, loads, settings, scans_dir, skipped, stream,
     for entry in todo:
         if jobs[entry.name] == "analyse-out-of-core":
             continue
+        overrides = {"mask": entry.mask} if entry.mask else {}
         future = client.submit(_run_one, jobs[entry.name], entry.path,
                                str(scans_dir / entry.name), loads[entry.name],
-                               settings.as_dict(), key=f"voxtopo-scan-{entry.name}",
-                               pure=False, retries=0)
+                               settings.as_dict(), overrides,
+                               key=f"voxtopo-scan-{entry.name}", pure=False, retries=0)
         futures[future] = entry
     # the tables' and report's libraries load while the first scans run, not after the last
     import jinja2  # noqa: F401
@@ -995,9 +943,11 @@ def _record_of(future) -> dict:
 
 
 def _run_out_of_core(client, entry, load_options, settings, out) -> dict:
+    from .jobs.analyse import analyse_out_of_core
+
     start = time.perf_counter()
     try:
-        analyse_out_of_core(entry.path, out, _analysis_options(settings.analyse),
+        analyse_out_of_core(entry.path, out, job_options("analyse", settings.analyse),
                             load_options=load_options, chunks=settings.batch.get("chunks"),
                             force=True, scheduler=client)
         return {"status": "done", "message": "", "seconds": time.perf_counter() - start}

@@ -146,33 +146,41 @@ def _add_analyse(subparsers) -> None:
     p.set_defaults(handler=_run_analyse)
 
 
+def _run_job(name: str, args, options, load_input, inputs) -> int:
+    """The one way every subcommand runs its job: check the output, read the input, run
+    with a progress bar, write the result folder, say what was found."""
+    from . import jobs
+    from .io.results import check_target
+
+    job = jobs.get(name)
+    check_target(args.out, args.force, inputs=inputs)
+    data = load_input()
+    bar = ProgressBar()
+    try:
+        result = job.run(data, options, progress=bar)
+        job.write(result, args.out, force=args.force)
+    finally:
+        bar.close()
+    print(f"voxtopo: {job.describe(result)}")
+    print(f"voxtopo: results written to {args.out} (research use only)")
+    return 0
+
+
 def _run_analyse(args) -> int:
     from .io import load
-    from .io.results import check_target
-    from .pipeline import AnalysisOptions, analyse
-    threshold = _threshold_value(args.threshold)
-    min_persistence = _min_persistence(args.min_persistence)
+    from .jobs.analyse import AnalysisOptions
     options = AnalysisOptions(
         superlevel=args.superlevel, neighbourhood=args.neighbourhood, sigma=args.smooth,
         crop=args.crop, downsample=args.downsample, distance=args.distance,
-        threshold=threshold, pores_bright=args.pores_bright,
-        fill_invalid=_fill_value(args.fill_invalid), min_persistence=min_persistence,
+        threshold=_threshold_value(args.threshold), pores_bright=args.pores_bright,
+        fill_invalid=_fill_value(args.fill_invalid),
+        min_persistence=_min_persistence(args.min_persistence),
         periodic=args.periodic, field=args.field, engine=args.engine)
-    check_target(args.out, args.force, inputs=[args.scan])
     load_options = load_options_from(args)
     if args.out_of_core:
         return _run_out_of_core(args, options, load_options)
-    scan = load(args.scan, **load_options)
-    bar = ProgressBar()
-    try:
-        diagram = analyse(scan, args.out, options, force=args.force, progress=bar)
-    finally:
-        bar.close()
-    counts = ", ".join(f"dim {d}: {n}" for d, n in diagram.counts(min_persistence).items())
-    print(f"voxtopo: {len(diagram)} pairs ({counts}) in {diagram.seconds:.2f} s "
-          f"with the {diagram.engine} engine")
-    print(f"voxtopo: results written to {args.out}")
-    return 0
+    return _run_job("analyse", args, options, lambda: load(args.scan, **load_options),
+                    [args.scan])
 
 
 def _threshold_value(text):
@@ -247,51 +255,26 @@ def _add_pores(subparsers) -> None:
 
 def _run_pores(args) -> int:
     from .io import load
-    from .io.results import check_target
-    from .porosity import analyse, write_pores
-    threshold = _threshold_value(args.threshold)
-    if args.mask and (threshold is not None or args.label is not None):
-        raise VoxtopoError("--mask already says which voxels are pores; leave out "
-                           "--threshold and --label.")
-    check_target(args.out, args.force, inputs=[args.scan, args.mask])
+    from .jobs.pores import PoresOptions
+    options = PoresOptions(
+        mask=args.mask, threshold=_threshold_value(args.threshold),
+        pores_bright=args.pores_bright, label=args.label,
+        axis=tuple(args.axis) if args.axis else None, neighbourhood=args.neighbourhood,
+        min_lifetime=args.min_lifetime, engine=args.engine)
     load_options = load_options_from(args)
-    scan = load(args.scan, **load_options)
-    target = scan
-    if args.mask:
-        target = load(args.mask, **load_options)
-        if target.shape != scan.shape:
-            raise VoxtopoError(f"The mask {args.mask} has shape {target.shape} but the scan "
-                               f"{args.scan} has shape {scan.shape}; give a mask of the same "
-                               f"scan.")
-        target = target.with_data(target.data, spacing=scan.spacing, unit=scan.unit)
-    bar = ProgressBar()
-    try:
-        analysis = analyse(target, threshold=threshold, pores_bright=args.pores_bright,
-                           label=args.label, axis=args.axis, neighbourhood=args.neighbourhood,
-                           min_lifetime=args.min_lifetime, engine=args.engine, progress=bar)
-        write_pores(args.out, analysis, scan, force=args.force)
-    finally:
-        bar.close()
-    summary = analysis.summary
-    unit = summary["unit"]
-    flow = ", ".join(f"{a}: {'yes' if summary['percolates'][a] else 'no'} "
-                     f"(r = {summary['percolation_radius'][a]:.4g} {unit})"
-                     for a in summary["percolates"])
-    print(f"voxtopo: porosity {summary['porosity']:.4f}, {summary['counts']['pores']} pores "
-          f"({summary['counts']['pores_at_border']} at the border); percolates {flow}")
-    print(f"voxtopo: results written to {args.out} (research use only)")
-    return 0
+    return _run_job("pores", args, options, lambda: load(args.scan, **load_options),
+                    [args.scan, args.mask])
 
 
 def _run_out_of_core(args, options, load_options) -> int:
-    from .batch import analyse_out_of_core
-    diagram = analyse_out_of_core(args.scan, args.out, options, load_options=load_options,
-                                  chunks=args.chunks, force=args.force)
-    counts = ", ".join(f"dim {d}: {n}"
-                       for d, n in diagram.counts(options.min_persistence).items()
-                       if d in (0, diagram.ndim - 1))
-    print(f"voxtopo: {len(diagram)} pairs ({counts}) out of core; {'; '.join(diagram.notes)}")
-    print(f"voxtopo: results written to {args.out}")
+    from .io.results import check_target
+    from .jobs import analyse
+    check_target(args.out, args.force, inputs=[args.scan])
+    result = analyse.run_out_of_core(args.scan, options, load_options=load_options,
+                                     chunks=args.chunks)
+    analyse.write(result, args.out, force=args.force)
+    print(f"voxtopo: {analyse.describe(result)}; {'; '.join(result.diagram.notes)}")
+    print(f"voxtopo: results written to {args.out} (research use only)")
     return 0
 
 
@@ -399,7 +382,7 @@ def _positions(text: str):
 
 
 def _add_patches(subparsers) -> None:
-    from .patches import PatchOptions
+    from .jobs.patches import PatchOptions
     defaults = PatchOptions()
     p = subparsers.add_parser(
         "patches",
@@ -455,30 +438,16 @@ def _add_patches(subparsers) -> None:
 
 def _run_patches(args) -> int:
     from .io import load
-    from .io.results import check_target
-    from .patches import PatchOptions, analyse
+    from .jobs.patches import PatchOptions
     options = PatchOptions(
         k=args.patch_size, contrast_percent=args.contrast_percent, positions=args.positions,
         seed=args.seed, log=args.log, axis=args.axis, slices=args.slices,
         k_neighbour=args.k_neighbour, density_percent=args.density_percent,
         landmarks=args.landmarks, fields=args.field, max_edge=args.max_edge,
         method=args.method, max_dimension=args.max_dimension)
-    check_target(args.out, args.force, inputs=args.images)
     load_options = load_options_from(args)
-    scans = [load(path, **load_options) for path in args.images]
-    bar = ProgressBar()
-    try:
-        dense, result = analyse(scans, args.out, options, force=args.force, progress=bar)
-    finally:
-        bar.close()
-    for f in result.fields:
-        margin = result.margin(f)
-        print(f"voxtopo: Z/{f}: Betti numbers {result.betti[f]} at scale "
-              f"{result.middle_scale:.3g}; longest loop {margin['longest']:.3g}, "
-              f"{margin['ratio']:.2f} times the second")
-    print(f"voxtopo: {len(dense)} core patches, {len(result.landmarks)} landmarks; results "
-          f"written to {args.out} (research use only)")
-    return 0
+    return _run_job("patches", args, options,
+                    lambda: [load(path, **load_options) for path in args.images], args.images)
 
 
 def _period_range(text: str):
@@ -491,7 +460,7 @@ def _period_range(text: str):
 
 
 def _add_periodicity(subparsers) -> None:
-    from .periodicity import PeriodicityOptions
+    from .jobs.periodicity import PeriodicityOptions
     defaults = PeriodicityOptions()
     p = subparsers.add_parser(
         "periodicity",
@@ -547,28 +516,18 @@ def _add_periodicity(subparsers) -> None:
 
 def _run_periodicity(args) -> int:
     from .io import load_timelapse
-    from .io.results import check_target
-    from .periodicity import PeriodicityOptions, run, write
+    from .jobs.periodicity import PeriodicityOptions
     options = PeriodicityOptions(
         periods=args.periods, bin=args.bin, tiles=args.tiles, regions=args.regions,
         surrogates=args.surrogates, significance=args.significance, points=args.points,
         whole_field=args.whole_field, seed=args.seed)
-    check_target(args.out, args.force)
-    lapse = load_timelapse(args.stack, axes=args.axes, frame_interval=args.frame_interval,
-                           spacing=args.spacing, unit=args.unit, channel=args.channel,
-                           level=args.level)
-    bar = ProgressBar()
-    try:
-        result = run(lapse, options, progress=bar)
-        write(result, args.out, force=args.force)
-    finally:
-        bar.close()
-    print(f"voxtopo: {result.counts['statement']}")
-    if result.whole_field is not None:
-        print(f"voxtopo: whole field: score {result.whole_field.score:.3f}, period "
-              f"{result.whole_field.period:.4g} {result.time_unit}")
-    print(f"voxtopo: results written to {args.out} (research use only)")
-    return 0
+
+    def load_input():
+        return load_timelapse(args.stack, axes=args.axes, frame_interval=args.frame_interval,
+                              spacing=args.spacing, unit=args.unit, channel=args.channel,
+                              level=args.level)
+
+    return _run_job("periodicity", args, options, load_input, [args.stack, args.regions])
 
 
 SUBCOMMANDS = (_add_analyse, _add_pores, _add_batch, _add_compare, _add_patches,

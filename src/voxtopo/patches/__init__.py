@@ -21,7 +21,6 @@ from ._basis import dct_basis
 from ._core import core
 from ._rips import PatchPersistence, persistence
 from ._sample import ORIGIN_COLUMNS, Patches, sample
-from ._write import PATCH_RULES, PatchOptions, analyse
 
-__all__ = ["sample", "core", "persistence", "analyse", "dct_basis", "Patches",
-           "PatchPersistence", "PatchOptions", "PATCH_RULES", "ORIGIN_COLUMNS"]
+__all__ = ["sample", "core", "persistence", "dct_basis", "Patches",
+           "PatchPersistence", "ORIGIN_COLUMNS"]

@@ -18,12 +18,11 @@
 
 from ._analysis import COLUMNS, Method, band_in_frames, measure
 from ._field import FieldRhythm, field_rhythm
-from ._job import PeriodicityOptions, PeriodicityResult, run, write
 from ._embedding import DIMENSION, rips_bars, sliding_windows, window_length
 from ._signals import Signals, pixel_signals, region_signals, tile_signals
 from ._spectrum import amplitude, damping, detrend, normalise, spectral_period, surrogates
 
-__all__ = ["run", "write", "PeriodicityOptions", "PeriodicityResult", "field_rhythm",
+__all__ = ["field_rhythm",
            "FieldRhythm", "measure", "Method", "COLUMNS", "band_in_frames", "sliding_windows",
            "window_length", "rips_bars", "DIMENSION", "Signals", "pixel_signals",
            "tile_signals", "region_signals", "detrend", "normalise", "spectral_period",

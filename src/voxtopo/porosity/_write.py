@@ -36,7 +36,7 @@ def _json_ready(value):
     return value
 
 
-def write_pores(out, analysis, scan=None, force: bool = False) -> Path:
+def write_pores(out, analysis, scan=None, force: bool = False, inputs=()) -> Path:
     """Write the result folder of a pore analysis, atomically.
 
     Parameters
@@ -52,7 +52,9 @@ def write_pores(out, analysis, scan=None, force: bool = False) -> Path:
     scan : Scan or ndarray, optional
         The grayscale scan to draw under the marks of the slice plot (default: the mask).
     force : bool
-        Replace ``out`` if it exists.
+        Replace ``out`` if it is a result folder voxtopo wrote.
+    inputs : sequence of paths
+        Other files the result was made from (a mask): ``out`` may not be nor hold them.
 
     Returns
     -------
@@ -62,7 +64,8 @@ def write_pores(out, analysis, scan=None, force: bool = False) -> Path:
     background = analysis.mask if scan is None else as_scan(scan).data
     from ..report.html import write_report
 
-    with result_folder(out, force=force, inputs=[getattr(scan, "source", None)]) as tmp:
+    with result_folder(out, force=force,
+                       inputs=[getattr(scan, "source", None), *inputs]) as tmp:
         pores = analysis.pores
         extra = [c for c in pores.columns if c not in PORE_COLUMNS]
         ordered = [c for c in PORE_COLUMNS if c in pores.columns] + extra

@@ -173,7 +173,7 @@ def _sections(summary: dict) -> list[dict]:
 
 
 def _final_name(folder: Path) -> str:
-    """The name a result folder will have: the pipeline writes the report inside the
+    """The name a result folder will have: the analyse job writes the report inside the
     temporary ``.NAME.partial-XXXX`` folder that is renamed to NAME at the end."""
     name = folder.name
     if name.startswith(".") and ".partial-" in name:
@@ -187,7 +187,7 @@ def write_report(folder) -> Path:
     Parameters
     ----------
     folder : path
-        A result folder (or the temporary folder the pipeline is filling).
+        A result folder (or the temporary folder a job is filling).
 
     Returns
     -------
@@ -196,7 +196,7 @@ def write_report(folder) -> Path:
     Examples
     --------
     >>> import numpy as np, voxtopo, tempfile, pathlib
-    >>> from voxtopo.pipeline import analyse
+    >>> from voxtopo.jobs.analyse import analyse
     >>> out = pathlib.Path(tempfile.mkdtemp()) / "ring"
     >>> _ = analyse(voxtopo.Scan(np.eye(6)), out)
     >>> write_report(out).name

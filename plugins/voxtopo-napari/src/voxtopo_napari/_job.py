@@ -1,7 +1,7 @@
 """One analysis, start to finish, as plain library calls (it runs in a worker thread).
 
 The widget turns its controls into an :class:`AnalysisOptions` and a Scan, then calls
-:func:`run_analysis`; everything here is ordinary voxtopo: ``pipeline.prepare`` (smoothing,
+:func:`run_analysis`; everything here is ordinary voxtopo: ``jobs.analyse.run`` (smoothing,
 threshold, distance transform), ``voxtopo.persistence`` and, for a distance transform, the
 pore regions. Nothing touches a viewer, so nothing is half-made when the work is cancelled.
 """
@@ -15,7 +15,8 @@ import numpy as np
 
 import voxtopo
 from voxtopo.errors import InputError
-from voxtopo.pipeline import AnalysisOptions, prepare, write_result
+from voxtopo.jobs import analyse
+from voxtopo.jobs.analyse import AnalysisOptions, write_result
 from voxtopo.scan import Scan
 
 from ._layers import Placement, placement_of, result_layers
@@ -127,20 +128,10 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
         if progress is not None:
             progress(phase, fraction)
 
-    timings = {}
-    start = time.perf_counter()
     report("preparing the filtration", 0.0)
-    prepared, notes = prepare(scan, options)
-    timings["prepare"] = time.perf_counter() - start
-    report("preparing the filtration", 1.0)
-
-    start = time.perf_counter()
-    diagram = voxtopo.persistence(prepared, superlevel=options.superlevel,
-                                  neighbourhood=options.neighbourhood,
-                                  periodic=options.periodic, field=options.field,
-                                  engine=options.engine,
-                                  min_persistence=options.min_persistence, progress=progress)
-    timings["persistence"] = time.perf_counter() - start
+    computed = analyse.run(scan, options, progress)
+    prepared, diagram = computed.prepared, computed.diagram
+    notes, timings = computed.notes, dict(computed.timings)
 
     regions = None
     if with_regions and prepared.values == "distance":

@@ -17,7 +17,7 @@ import numpy as np
 import voxtopo
 from voxtopo.diagram import Diagram
 from voxtopo.errors import InputError
-from voxtopo.pipeline import AnalysisOptions, prepare
+from voxtopo.jobs.analyse import AnalysisOptions, prepare
 
 from ._layers import METADATA_KEY, placement_of, result_layers
 from ._pore_regions import pore_regions

@@ -22,7 +22,7 @@ from qtpy.QtWidgets import (QCheckBox, QComboBox, QDoubleSpinBox, QFileDialog, Q
                             QWidget)
 
 from voxtopo.errors import Cancelled, InputError, VoxtopoError
-from voxtopo.pipeline import AnalysisOptions
+from voxtopo.jobs.analyse import AnalysisOptions
 
 from ._diagram_panel import DiagramPanel
 from ._job import run_analysis, scan_from_layer_data

@@ -17,14 +17,13 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
+from ..options import BOOLEAN, COUNT, NUMBER, POSITIVE, TEXT, WHOLE, Rule, check, optional
 from ..io import result_folder, save_tiff
 from ..memory import ensure_fits
 from ..scan import FRAME, Scan, TimeLapse
-from ._analysis import COLUMNS, Method, band_in_frames, measure
-from ._embedding import rips_bars, sliding_windows
-from ._field import FieldRhythm, field_rhythm
-from ._signals import Signals, pixel_signals, region_signals, tile_signals
-from ._spectrum import detrend, normalise
+from ..periodicity import (COLUMNS, FieldRhythm, Method, Signals, band_in_frames, detrend,
+                           field_rhythm, measure, normalise, pixel_signals, region_signals,
+                           rips_bars, sliding_windows, tile_signals)
 
 #: Said in every summary and report of this job.
 RESEARCH_CAUTION = ("Results support research on rhythms in time-lapse images; they are not a "
@@ -83,6 +82,11 @@ class PeriodicityOptions:
     top: int = 3
     seed: int = 0
     workers: int | None = None
+
+    def __post_init__(self):
+        check(asdict(self) | {"regions": self.regions}, PERIODICITY_RULES,
+              "the periodicity options")
+        _check_options(self)
 
     def described(self) -> dict:
         """The options as JSON values (a regions array by its shape)."""
@@ -175,6 +179,28 @@ def _signals(lapse: TimeLapse, options: PeriodicityOptions) -> Signals:
     if options.tiles is not None:
         return tile_signals(lapse.data, options.tiles)
     return pixel_signals(lapse.data, options.bin)
+
+
+def _period_range(value) -> bool:
+    return (isinstance(value, (list, tuple)) and len(value) == 2
+            and all(POSITIVE.accepts(v) for v in value) and value[0] < value[1])
+
+
+#: What each field of PeriodicityOptions accepts (settings files are checked against it).
+PERIODICITY_RULES = {
+    "periods": optional(Rule(_period_range, "two positive numbers, the shorter first")),
+    "bin": COUNT, "tiles": optional(COUNT),
+    "regions": Rule(lambda v: v is None or TEXT.accepts(v) or isinstance(v, (Path, np.ndarray)),
+                    "a label image file"),
+    "surrogates": WHOLE,
+    "significance": Rule(lambda v: NUMBER.accepts(v) and 0 < v < 1,
+                         "a level between 0 and 1, such as 0.05"),
+    "points": optional(COUNT), "whole_field": BOOLEAN, "top": WHOLE, "seed": WHOLE,
+    "workers": optional(COUNT),
+}
+
+#: The settings class of this job, under the name every job uses.
+Options = PeriodicityOptions
 
 
 def run(lapse: TimeLapse, options: PeriodicityOptions | None = None,
@@ -281,11 +307,20 @@ def _top(signals: Signals, table: pd.DataFrame, method: Method, count: int,
     return out
 
 
+def describe(result: PeriodicityResult) -> str:
+    """What was found, in the words of the CLI line and the plugin's status."""
+    line = result.counts["statement"]
+    if result.whole_field is not None:
+        line += (f"; whole field: score {result.whole_field.score:.3f}, period "
+                 f"{result.whole_field.period:.4g} {result.time_unit}")
+    return line
+
+
 def write(result: PeriodicityResult, out, force: bool = False) -> Path:
     """Fill the result folder ``out``: score.tif, period.tif, regions.csv, summary.json,
     plots and report.html. The folder appears whole or not at all."""
-    from ._plots import save_plots
-    from ._report import write_report
+    from ..periodicity._plots import save_plots
+    from ..periodicity._report import write_report
 
     with result_folder(out, force=force) as folder:
         signals, table = result.signals, result.table

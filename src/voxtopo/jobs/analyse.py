@@ -1,8 +1,10 @@
-"""The main job as one function: scan -> filtration -> persistence -> result folder.
+"""The analyse job: scan -> filtration -> persistence diagram -> result folder.
 
-The CLI (`voxtopo analyse`), the napari plugin's export and the batch runner all call
-:func:`analyse` or :func:`write_result`, so a result folder means the same thing whichever
-shell made it.
+``AnalysisOptions`` holds the settings in the user's words, :func:`run` computes an
+``AnalysisResult``, :func:`write` fills a result folder through the result-folder contract
+(io/results.py), and :func:`describe` says in one line what was found. The CLI
+(`voxtopo analyse`), the napari plugin and the batch runner only build the options and call
+these, so a result folder means the same thing whichever shell made it.
 """
 
 from __future__ import annotations
@@ -11,23 +13,24 @@ import json
 import platform
 import time
 from dataclasses import asdict, dataclass
+from dataclasses import field as dataclass_field
 from datetime import datetime, timezone
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from . import __version__
-from . import filtration as filt
-from .diagram import Diagram
-from .engine import estimate, persistence
-from .errors import InputError
-from .options import (BOOLEAN, COUNT, ENGINE, FILL, NEIGHBOURHOOD, NON_NEGATIVE, POSITIVE,
+from .. import __version__
+from .. import filtration as filt
+from ..diagram import Diagram
+from ..engine import estimate, persistence
+from ..errors import InputError
+from ..options import (BOOLEAN, COUNT, ENGINE, FILL, NEIGHBOURHOOD, NON_NEGATIVE, POSITIVE,
                       PRIME, TEXT, THRESHOLD, check, optional)
-from .io import load, result_folder
-from .io.results import check_target
-from .memory import ensure_fits, reported_as_too_big
-from .scan import Scan
+from ..io import load, result_folder
+from ..io.results import check_target
+from ..memory import ensure_fits, reported_as_too_big
+from ..scan import Scan
 
 CAUTIONS = (
     "These results support research. They are not a medical diagnosis, nor a certification "
@@ -172,35 +175,26 @@ def prepare(scan: Scan, options: AnalysisOptions) -> tuple[Scan, dict]:
     return scan, notes
 
 
-def analyse(source, out, options: AnalysisOptions | None = None, *, force: bool = False,
-            progress=None, load_options: dict | None = None) -> Diagram:
-    """Run the main job and write its result folder.
+#: The settings class of this job, under the name every job uses.
+Options = AnalysisOptions
 
-    Parameters
-    ----------
-    source : path or Scan
-        A file/folder/glob for :func:`voxtopo.load`, or a Scan already in memory.
-    out : path
-        The result folder to create (``pairs.csv``, ``summary.json``, PNG plots).
-    options : AnalysisOptions
-    force : bool
-        Replace ``out`` if it exists.
-    progress : callable(phase, fraction), optional
-    load_options : dict, optional
-        Keyword arguments for :func:`voxtopo.load` (spacing, unit, channel, ...).
 
-    Returns
-    -------
-    Diagram
-    """
+@dataclass
+class AnalysisResult:
+    """What :func:`run` computed: the diagram and how the scan was prepared for it."""
+
+    scan: Scan
+    prepared: Scan
+    diagram: Diagram
+    options: AnalysisOptions
+    timings: dict = dataclass_field(default_factory=dict)
+    notes: dict = dataclass_field(default_factory=dict)
+
+
+def run(scan: Scan, options: AnalysisOptions | None = None, progress=None) -> AnalysisResult:
+    """Prepare the scan and compute its persistence diagram (nothing is written)."""
     options = options or AnalysisOptions()
-    check_target(out, force, inputs=[source.source if isinstance(source, Scan) else source])
     timings = {}
-    start = time.perf_counter()
-    scan = source if isinstance(source, Scan) else load(source, **(load_options or {}))
-    timings["load"] = time.perf_counter() - start
-    if progress is not None:
-        progress("load", 1.0)
     planned = max(needed for _, needed in preparation_plan(scan, options))
     with reported_as_too_big(f"Analysing {scan.source or 'the scan'}", planned,
                              filt.PREPARATION_REMEDY):
@@ -213,9 +207,122 @@ def analyse(source, out, options: AnalysisOptions | None = None, *, force: bool 
                               field=options.field, engine=options.engine,
                               min_persistence=options.min_persistence, progress=progress)
         timings["persistence"] = time.perf_counter() - start
-    write_result(out, scan, diagram, options, prepared=prepared, timings=timings, notes=notes,
-                 force=force)
-    return diagram
+    return AnalysisResult(scan, prepared, diagram, options, timings, notes)
+
+
+def write(result: AnalysisResult, out, force: bool = False) -> Path:
+    """Fill the result folder ``out`` (see :func:`write_result`)."""
+    return write_result(out, result.scan, result.diagram, result.options,
+                        prepared=result.prepared, timings=result.timings, notes=result.notes,
+                        force=force)
+
+
+def describe(result: AnalysisResult) -> str:
+    """What was found, in the words of the CLI line and the plugin's status."""
+    diagram = result.diagram
+    out_of_core = result.notes.get("out_of_core")
+    skipped = set(out_of_core["dimensions_not_computed"]) if out_of_core else set()
+    counts = ", ".join(f"dim {d}: {n}" for d, n in diagram.counts().items()
+                       if d not in skipped)
+    where = "out of core" if out_of_core else f"with the {diagram.engine} engine"
+    return f"{len(diagram)} pairs ({counts}) in {diagram.seconds:.2f} s {where}"
+
+
+def analyse(source, out, options: AnalysisOptions | None = None, *, force: bool = False,
+            progress=None, load_options: dict | None = None) -> Diagram:
+    """Load, :func:`run` and :func:`write` in one call.
+
+    Parameters
+    ----------
+    source : path or Scan
+        A file/folder/glob for :func:`voxtopo.load`, or a Scan already in memory.
+    out : path
+        The result folder to create (``pairs.csv``, ``summary.json``, PNG plots).
+    options : AnalysisOptions
+    force : bool
+        Replace ``out`` if it is a result folder voxtopo wrote.
+    progress : callable(phase, fraction), optional
+    load_options : dict, optional
+        Keyword arguments for :func:`voxtopo.load` (spacing, unit, channel, ...).
+
+    Returns
+    -------
+    Diagram
+    """
+    check_target(out, force, inputs=[source.source if isinstance(source, Scan) else source])
+    start = time.perf_counter()
+    scan = source if isinstance(source, Scan) else load(source, **(load_options or {}))
+    seconds = time.perf_counter() - start
+    if progress is not None:
+        progress("load", 1.0)
+    result = run(scan, options, progress)
+    result.timings = {"load": seconds, **result.timings}
+    write(result, out, force)
+    return result.diagram
+
+
+#: Options that need the whole volume in memory at once.
+_WHOLE_VOLUME = ("sigma", "crop", "downsample", "distance", "periodic", "fill_invalid",
+                 "field")
+
+
+def run_out_of_core(source, options: AnalysisOptions | None = None, *, load_options=None,
+                    chunks=None, scheduler=None) -> AnalysisResult:
+    """The analyse job for a zarr / OME-Zarr scan too big for memory.
+
+    Dimension 0 and dimension d-1 are computed chunk by chunk
+    (:func:`voxtopo.engine.chunked.chunked_persistence`); the result's notes say that
+    dimension 1 of a volume is absent. Options that need the whole volume at once
+    (smoothing, cropping, downsampling, the distance transform, periodic boundaries,
+    filling invalid voxels, other fields than Z/2) are refused.
+    """
+    from ..engine.chunked import chunked_persistence, open_chunked
+
+    options = options or AnalysisOptions()
+    defaults = AnalysisOptions()
+    asked = [name for name in _WHOLE_VOLUME
+             if getattr(options, name) != getattr(defaults, name)]
+    if asked:
+        raise InputError(f"The out-of-core path cannot apply {', '.join(asked)} (they need the "
+                         f"whole volume in memory); leave them out or drop --out-of-core.")
+    load_options = dict(load_options or {})
+    unknown = set(load_options) - {"spacing", "unit", "channel", "timepoint", "level"}
+    if unknown:
+        raise InputError(f"The out-of-core path reads zarr stores and takes no {sorted(unknown)} "
+                         f"option; leave it out.")
+    opened = open_chunked(source, level=load_options.get("level", 0),
+                          channel=load_options.get("channel"),
+                          timepoint=load_options.get("timepoint"), chunks=chunks,
+                          unit=load_options.get("unit"))
+    if load_options.get("spacing") is not None:
+        spacing = tuple(float(v) for v in np.atleast_1d(load_options["spacing"]))
+        spacing = spacing * opened.ndim if len(spacing) == 1 else spacing
+        if len(spacing) != opened.ndim:
+            raise InputError(f"Spacing {spacing} has {len(spacing)} values but {source} is "
+                             f"{opened.ndim}D; give one value per axis in (z, y, x) order.")
+        opened.spacing = spacing
+    start = time.perf_counter()
+    diagram = chunked_persistence(opened, superlevel=options.superlevel,
+                                  neighbourhood=options.neighbourhood,
+                                  min_persistence=options.min_persistence, scheduler=scheduler)
+    seconds = time.perf_counter() - start
+    placeholder = np.broadcast_to(np.zeros((), opened.dtype), opened.shape)
+    scan = Scan(placeholder, spacing=opened.spacing, unit=opened.unit, source=opened.source)
+    missing = list(range(1, opened.ndim - 1))
+    return AnalysisResult(scan, scan, diagram, options, {"persistence": seconds},
+                          {"out_of_core": {"chunks": list(opened.chunks),
+                                           "dimensions_not_computed": missing}})
+
+
+def analyse_out_of_core(source, out, options: AnalysisOptions | None = None, *,
+                        load_options=None, chunks=None, force: bool = False,
+                        scheduler=None) -> Diagram:
+    """:func:`run_out_of_core` then :func:`write`; returns the diagram."""
+    check_target(out, force, inputs=[source])
+    result = run_out_of_core(source, options, load_options=load_options, chunks=chunks,
+                             scheduler=scheduler)
+    write(result, out, force)
+    return result.diagram
 
 
 def _records(frame) -> list[dict]:
@@ -276,8 +383,8 @@ def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepare
 def write_result(out, scan: Scan, diagram: Diagram, options: AnalysisOptions | None = None, *,
                  prepared=None, timings=None, notes=None, force: bool = False) -> Path:
     """Write pairs.csv, summary.json and the standard plots into ``out``, atomically."""
-    from .report.html import write_report
-    from .report.plots import save_standard_plots
+    from ..report.html import write_report
+    from ..report.plots import save_standard_plots
 
     options = options or AnalysisOptions()
     timings = dict(timings or {})

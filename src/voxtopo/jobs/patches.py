@@ -1,12 +1,14 @@
-"""The whole patch-space workflow into one result folder (what `voxtopo patches` runs)."""
+"""The patches job: the whole patch-space workflow into one result folder (what
+`voxtopo patches`, the plugin and the batch runner run)."""
 
 from __future__ import annotations
 
 import json
 import platform
 import time
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, field
 from datetime import datetime, timezone
+from pathlib import Path
 
 import numpy as np
 
@@ -14,9 +16,8 @@ from ..io import result_folder
 from ..io.results import check_target
 from ..options import (BOOLEAN, COUNT, PERCENT, POSITIVE, PRIME, WHOLE, Rule, check, one_of,
                        optional)
-from ._core import core
-from ._rips import RESEARCH_CAUTION, persistence
-from ._sample import sample
+from ..patches import core, persistence, sample
+from ..patches._rips import RESEARCH_CAUTION
 
 
 @dataclass(frozen=True)
@@ -76,34 +77,41 @@ PATCH_RULES = {
 }
 
 
-def analyse(images_or_scans, out, options: PatchOptions | None = None, force: bool = False,
-            progress=None, mask=None):
-    """Sample, filter and measure a patch cloud and write everything into ``out``.
+#: The settings class of this job, under the name every job uses.
+Options = PatchOptions
 
-    Writes ``cloud.npy`` (DCT coordinates of every high-contrast patch), ``cloud.json``
-    (parameters and source images), ``cloud_patches.npy``, ``cloud_origin.npy``,
-    ``core.npy`` and ``landmarks.npy`` (indices into the cloud), ``pairs.csv`` (``dim,
-    birth, death, persistence, field``), ``summary.json``, ``barcode.png``,
-    ``diagram.png``, ``projection.png`` and ``loop_gallery.png``. The folder appears only
-    when complete.
 
-    Returns the core Patches and the PatchPersistence.
+@dataclass
+class PatchesResult:
+    """What :func:`run` computed: the cloud, its core and the landmark persistence."""
 
-    Examples
-    --------
-    >>> from skimage import data                                       # doctest: +SKIP
-    >>> analyse([data.gravel()], "results/gravel")                     # doctest: +SKIP
-    """
+    cloud: object
+    dense: object
+    core_index: np.ndarray
+    persistence: object
+    options: PatchOptions
+    k_neighbour: int
+    seconds: float
+    sources: list = field(default_factory=list)
+
+
+def _items(images_or_scans) -> list:
+    return (list(images_or_scans) if isinstance(images_or_scans, (list, tuple))
+            else [images_or_scans])
+
+
+def run(images_or_scans, options: PatchOptions | None = None, progress=None,
+        mask=None) -> PatchesResult:
+    """Sample the high-contrast patches of one or more images, keep the dense core and
+    compute the persistence of its landmarks."""
     options = options or PatchOptions()
-    items = images_or_scans if isinstance(images_or_scans, (list, tuple)) else [images_or_scans]
-    sources = [getattr(item, "source", None) for item in items]
-    check_target(out, force, inputs=sources)
+    items = _items(images_or_scans)
     report = progress or (lambda phase, fraction: None)
     started = time.perf_counter()
     report("sampling patches", 0.0)
-    cloud = sample(images_or_scans, options.k, axis=options.axis, slices=options.slices,
-                   positions=options.positions, seed=options.seed, log=options.log,
-                   mask=mask, contrast_percent=options.contrast_percent)
+    cloud = sample(images_or_scans, options.k, axis=options.axis,
+                   slices=options.slices, positions=options.positions, seed=options.seed,
+                   log=options.log, mask=mask, contrast_percent=options.contrast_percent)
     report("sampling patches", 1.0)
     report("density core", 0.0)
     keep_n = min(options.k_neighbour, len(cloud) - 1)
@@ -111,25 +119,68 @@ def analyse(images_or_scans, out, options: PatchOptions | None = None, force: bo
     core_index = _core_indices(cloud, dense)
     report("density core", 1.0)
     report("landmark persistence", 0.0)
-    result = persistence(dense, landmarks=options.landmarks,
-                         max_dimension=options.max_dimension, field=options.fields,
-                         max_edge=options.max_edge, method=options.method, seed=options.seed)
+    bars = persistence(dense, landmarks=options.landmarks,
+                       max_dimension=options.max_dimension, field=options.fields,
+                       max_edge=options.max_edge, method=options.method, seed=options.seed)
     report("landmark persistence", 1.0)
-    report("writing results", 0.0)
+    return PatchesResult(cloud, dense, core_index, bars, options, keep_n,
+                         time.perf_counter() - started,
+                         [getattr(item, "source", None) for item in items])
+
+
+def write(result: PatchesResult, out, force: bool = False) -> Path:
+    """Write ``cloud.npy`` (DCT coordinates of every high-contrast patch), ``cloud.json``
+    (parameters and source images), ``cloud_patches.npy``, ``cloud_origin.npy``,
+    ``core.npy`` and ``landmarks.npy`` (indices into the cloud), ``pairs.csv`` (``dim,
+    birth, death, persistence, field``), ``summary.json``, ``barcode.png``,
+    ``diagram.png``, ``projection.png``, ``loop_gallery.png`` and ``report.html``. The
+    folder appears only when complete."""
     from ..report.html import write_report
 
-    with result_folder(out, force=force, inputs=sources) as folder:
-        cloud.save(folder)
-        np.save(folder / "core.npy", core_index)
-        np.save(folder / "landmarks.npy", core_index[result.landmarks])
-        result.pairs.to_csv(folder / "pairs.csv", index=False, float_format="%.10g")
-        _figures(folder, cloud, dense, result)
-        summary = _summary(cloud, dense, result, options, keep_n,
-                           time.perf_counter() - started)
+    bars = result.persistence
+    with result_folder(out, force=force, inputs=result.sources) as folder:
+        result.cloud.save(folder)
+        np.save(folder / "core.npy", result.core_index)
+        np.save(folder / "landmarks.npy", result.core_index[bars.landmarks])
+        bars.pairs.to_csv(folder / "pairs.csv", index=False, float_format="%.10g")
+        _figures(folder, result.cloud, result.dense, bars)
+        summary = _summary(result.cloud, result.dense, bars, result.options,
+                           result.k_neighbour, result.seconds)
         (folder / "summary.json").write_text(json.dumps(summary, indent=2))
         write_report(folder)
+    return Path(out)
+
+
+def describe(result: PatchesResult) -> str:
+    """What was found, in the words of the CLI line and the plugin's status."""
+    bars = result.persistence
+    lines = []
+    for f in bars.fields:
+        margin = bars.margin(f)
+        lines.append(f"Z/{f}: Betti numbers {bars.betti[f]} at scale "
+                     f"{bars.middle_scale:.3g}; longest loop {margin['longest']:.3g}, "
+                     f"{margin['ratio']:.2f} times the second")
+    lines.append(f"{len(result.dense)} core patches, {len(bars.landmarks)} landmarks")
+    return "; ".join(lines)
+
+
+def analyse(images_or_scans, out, options: PatchOptions | None = None, force: bool = False,
+            progress=None, mask=None):
+    """:func:`run` then :func:`write`; returns the core Patches and the PatchPersistence.
+
+    Examples
+    --------
+    >>> from skimage import data                                       # doctest: +SKIP
+    >>> analyse([data.gravel()], "results/gravel")                     # doctest: +SKIP
+    """
+    check_target(out, force, inputs=[getattr(i, "source", None) for i in
+                                     _items(images_or_scans)])
+    result = run(images_or_scans, options, progress, mask)
+    report = progress or (lambda phase, fraction: None)
+    report("writing results", 0.0)
+    write(result, out, force)
     report("writing results", 1.0)
-    return dense, result
+    return result.dense, result.persistence
 
 
 def _core_indices(cloud, dense) -> np.ndarray:
@@ -142,7 +193,7 @@ def _figures(folder, cloud, dense, result) -> None:
     import matplotlib.pyplot as plt
 
     from ..report.plots import plot_barcode, plot_diagram
-    from ._plots import gallery_indices, plot_gallery, plot_projection
+    from ..patches._plots import gallery_indices, plot_gallery, plot_projection
 
     for name, draw, width in (("barcode", plot_barcode, 6.4), ("diagram", plot_diagram, 5.2)):
         fig, axes = plt.subplots(1, len(result.fields), squeeze=False,

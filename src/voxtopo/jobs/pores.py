@@ -1,0 +1,114 @@
+"""The pores job: a two-phase scan in, pore bodies, throats and percolation out.
+
+``PoresOptions`` holds the settings in the user's words, :func:`run` measures a
+``PoresResult`` with :func:`voxtopo.porosity.analyse`, :func:`write` fills the result folder
+(:func:`voxtopo.porosity.write_pores`) and :func:`describe` says in one line what was found.
+The CLI (`voxtopo pores`), the batch runner and the plugin only build the options.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+from pathlib import Path
+
+from .. import porosity
+from ..errors import InputError
+from ..io import load
+from ..options import (AXIS, BOOLEAN, ENGINE, NEIGHBOURHOOD, NON_NEGATIVE, TEXT, THRESHOLD,
+                       WHOLE, check, optional)
+from ..scan import Scan
+
+
+@dataclass(frozen=True)
+class PoresOptions:
+    """Settings of a pores run; every field has the `voxtopo pores` option of that name.
+
+    mask            a binary pore mask file (1 = pore) for a gray scan, which then only
+                    shows under the marks of the slice plot
+    threshold       segment a gray scan: a value or "otsu"; pores at or below it
+    pores_bright    with threshold: the pores are the voxels above it
+    label           the pore label of a label image
+    axis            axes of percolation and connected porosity ("z", "y", "x" or a list)
+    neighbourhood   connectivity of the pore phase: 26 / 8 (default) or 6 / 4
+    min_lifetime    merge pores whose body exceeds their throat by no more than this
+    engine          persistence engine: "auto", "voxtopo" or "gudhi"
+    """
+
+    mask: str | None = None
+    threshold: str | float | None = None
+    pores_bright: bool = False
+    label: int | None = None
+    axis: str | tuple | None = None
+    neighbourhood: int | None = None
+    min_lifetime: float | None = None
+    engine: str = "auto"
+
+    def __post_init__(self):
+        check(asdict(self), PORES_RULES, "the pores options")
+        if self.mask is not None and (self.threshold is not None or self.label is not None):
+            raise InputError("--mask already says which voxels are pores; leave out "
+                             "--threshold and --label.")
+        if self.pores_bright and self.threshold is None:
+            raise InputError("--pores-bright says which side of --threshold the pores are; "
+                             "give --threshold with it, or leave it out.")
+
+
+#: What each field of PoresOptions accepts (settings files are checked against it).
+PORES_RULES = {
+    "mask": optional(TEXT), "threshold": optional(THRESHOLD), "pores_bright": BOOLEAN,
+    "label": optional(WHOLE), "axis": optional(AXIS), "neighbourhood": optional(NEIGHBOURHOOD),
+    "min_lifetime": optional(NON_NEGATIVE), "engine": ENGINE,
+}
+
+#: The settings class of this job, under the name every job uses.
+Options = PoresOptions
+
+
+@dataclass
+class PoresResult:
+    """What :func:`run` measured, and the gray scan drawn under the slice plot."""
+
+    analysis: object
+    scan: Scan
+    mask_source: str | None = None
+
+
+def _mask_for(scan: Scan, path: str) -> Scan:
+    """The pore mask of ``scan`` read from ``path``, on the scan's voxel size."""
+    mask = load(path)
+    if mask.shape != scan.shape:
+        raise InputError(f"The mask {path} has shape {mask.shape} but the scan "
+                         f"{scan.source or ''} has shape {scan.shape}; give a mask of the "
+                         f"same scan.")
+    return mask.with_data(mask.data, spacing=scan.spacing, unit=scan.unit)
+
+
+def run(scan: Scan, options: PoresOptions | None = None, progress=None) -> PoresResult:
+    """Measure the pore space of ``scan`` (or of ``options.mask`` over it)."""
+    options = options or PoresOptions()
+    target = _mask_for(scan, options.mask) if options.mask else scan
+    axis = list(options.axis) if isinstance(options.axis, tuple) else options.axis
+    analysis = porosity.analyse(target, threshold=options.threshold,
+                                pores_bright=options.pores_bright, label=options.label,
+                                axis=axis, neighbourhood=options.neighbourhood,
+                                min_lifetime=options.min_lifetime, engine=options.engine,
+                                progress=progress)
+    return PoresResult(analysis, scan, options.mask)
+
+
+def write(result: PoresResult, out, force: bool = False) -> Path:
+    """Fill the result folder ``out`` (pores.csv, grains.csv, loops.csv, voids.csv,
+    pairs.csv, summary.json, plots, report.html)."""
+    return porosity.write_pores(out, result.analysis, result.scan, force=force,
+                                inputs=[result.mask_source])
+
+
+def describe(result: PoresResult) -> str:
+    """What was found, in the words of the CLI line and the plugin's status."""
+    summary = result.analysis.summary
+    unit = summary["unit"]
+    flow = ", ".join(f"{a}: {'yes' if summary['percolates'][a] else 'no'} "
+                     f"(r = {summary['percolation_radius'][a]:.4g} {unit})"
+                     for a in summary["percolates"])
+    return (f"porosity {summary['porosity']:.4f}, {summary['counts']['pores']} pores "
+            f"({summary['counts']['pores_at_border']} at the border); percolates {flow}")
