@@ -162,6 +162,7 @@ def _run_analyse(args) -> int:
     if args.out_of_core:
         return _run_out_of_core(args, options, load_options)
     scan = load(args.scan, **load_options)
+    _say_notes(scan)
     bar = ProgressBar()
     try:
         diagram = analyse(scan, args.out, options, force=args.force, progress=bar)
@@ -172,6 +173,13 @@ def _run_analyse(args) -> int:
           f"with the {diagram.engine} engine")
     print(f"voxtopo: results written to {args.out}")
     return 0
+
+
+def _say_notes(scan) -> None:
+    """What the reader noticed about a scan (chunks a store did not hold, a z spacing taken
+    from x), said before the work starts; summary.json keeps the same notes."""
+    for note in scan.metadata.get("notes", []):
+        print(f"voxtopo: note: {note}")
 
 
 def _threshold_value(text):
@@ -263,6 +271,9 @@ def _run_pores(args) -> int:
                                f"{args.scan} has shape {scan.shape}; give a mask of the same "
                                f"scan.")
         target = target.with_data(target.data, spacing=scan.spacing, unit=scan.unit)
+    _say_notes(scan)
+    if target is not scan:
+        _say_notes(target)
     bar = ProgressBar()
     try:
         analysis = analyse(target, threshold=threshold, pores_bright=args.pores_bright,
@@ -455,6 +466,8 @@ def _run_patches(args) -> int:
     check_target(args.out, args.force)
     load_options = load_options_from(args)
     scans = [load(path, **load_options) for path in args.images]
+    for scan in scans:
+        _say_notes(scan)
     bar = ProgressBar()
     try:
         dense, result = analyse(scans, args.out, options, force=args.force, progress=bar)

@@ -220,7 +220,8 @@ def write_report(folder) -> Path:
         if rows:
             most[_DIM_WORDS.get(str(dim), f"dimension {dim}")] = Table.of(pd.DataFrame(rows))
     diagram = summary.get("diagram") or {}
-    notes = list(diagram.get("notes", [])) + list(summary.get("notes", []))
+    notes = (list((summary.get("scan") or {}).get("notes", []))
+             + list(diagram.get("notes", [])) + list(summary.get("notes", [])))
     for key, value in (summary.get("preparation") or {}).items():
         notes.append(f"{key}: {_show(value)}")
     sections = _sections(summary)
