@@ -102,7 +102,7 @@ def preparation_plan(scan: Scan, options: AnalysisOptions) -> list[tuple[str, in
     steps.append((named("Persistence of"),
                   estimate(shape, dtype, engine=options.engine,
                            neighbourhood=options.neighbourhood, field=options.field,
-                           periodic=bool(options.periodic))))
+                           periodic=bool(np.any(options.periodic)))))
     return steps
 
 
