@@ -155,6 +155,8 @@ def _run_job(name: str, args, options, load_input, inputs) -> int:
     job = jobs.get(name)
     check_target(args.out, args.force, inputs=inputs)
     data = load_input()
+    for scan in data if isinstance(data, list) else [data]:
+        _say_notes(scan)
     bar = ProgressBar()
     try:
         result = job.run(data, options, progress=bar)
@@ -181,6 +183,13 @@ def _run_analyse(args) -> int:
         return _run_out_of_core(args, options, load_options)
     return _run_job("analyse", args, options, lambda: load(args.scan, **load_options),
                     [args.scan])
+
+
+def _say_notes(scan) -> None:
+    """What the reader noticed about a scan (chunks a store did not hold, a z spacing taken
+    from x), said before the work starts; summary.json keeps the same notes."""
+    for note in scan.metadata.get("notes", []):
+        print(f"voxtopo: note: {note}")
 
 
 def _threshold_value(text):

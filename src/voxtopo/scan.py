@@ -73,8 +73,9 @@ class Scan:
         return replace(self, data=data, **changes)
 
     def describe(self) -> dict:
-        """Shape, dtype, spacing, unit and source as plain JSON values."""
-        return {
+        """Shape, dtype, spacing, unit and source as plain JSON values, and the reader's
+        notes (such as chunks a store did not hold) when there are any."""
+        described = {
             "shape": list(self.shape),
             "dtype": str(self.data.dtype),
             "spacing": list(self.spacing),
@@ -82,6 +83,9 @@ class Scan:
             "source": self.source,
             "values": self.values,
         }
+        if self.metadata.get("notes"):
+            described["notes"] = list(self.metadata["notes"])
+        return described
 
 
 def as_scan(scan_or_array, spacing=None, unit=None) -> Scan:

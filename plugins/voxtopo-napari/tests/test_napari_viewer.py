@@ -295,3 +295,24 @@ def test_colour_layer_is_refused_with_one_sentence(make_napari_viewer):
     assert widget.status.text() == ("The layer 'photo' holds colour (RGB) pixels; convert "
                                     "it to gray values or pick a gray image layer.")
     assert [layer.name for layer in viewer.layers] == ["photo"]
+
+
+def test_diagram_panel_shows_a_unit_with_dollar_signs_as_typed(make_napari_viewer, tmp_path):
+    """A unit such as "$\\foo$" is the user's words: matplotlib draws an escaped dollar as a
+    dollar and parses no math in it (matplotlib documentation, "Writing mathematical
+    expressions"); unescaped, drawing the panel raises on the unknown command \\foo."""
+    from voxtopo_napari._diagram_panel import DiagramPanel
+
+    mask = np.zeros((14, 14), np.uint8)
+    mask[3:7, 3:7] = 1
+    mask[8:12, 7:12] = 1
+    np.save(tmp_path / "mask.npy", mask)
+    out = tmp_path / "$\\pores$"
+    assert cli.main(["analyse", str(tmp_path / "mask.npy"), "--distance", "--unit", "$\\foo$",
+                     "--out", str(out)]) == 0
+    viewer = make_napari_viewer()
+    viewer.open(str(out), plugin="voxtopo-napari")
+    panel = DiagramPanel(viewer)
+    panel.figure.canvas.draw()
+    assert "\\$\\foo\\$" in panel.axes.get_xlabel()
+    assert "\\$\\foo\\$" in panel.legend_axes.get_xlabel()

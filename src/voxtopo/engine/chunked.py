@@ -81,12 +81,14 @@ class ChunkedSource:
 
     ``array`` is anything with ``shape``, ``dtype`` and slicing (zarr.Array, numpy, dask);
     ``fixed`` maps stored axis positions to the index taken there (a channel or time
-    point), so only the spatial axes remain.
+    point), so only the spatial axes remain. ``notes`` are what the reader noticed (such as
+    chunks the store does not hold); the diagram carries them.
     """
 
     def __init__(self, array, *, fixed=None, spacing=(), unit="px", source="",
-                 chunks=None):
+                 chunks=None, notes=()):
         self.array = array
+        self.notes = tuple(notes)
         self.fixed = dict(fixed or {})
         stored = tuple(int(n) for n in array.shape)
         self.axes = [i for i in range(len(stored)) if i not in self.fixed]
@@ -170,7 +172,8 @@ def open_chunked(path, *, level: int = 0, channel=None, timepoint=None, chunks=N
                          f"spatial axes.")
     own_spacing = tuple(layout.spacing.get(a, 1.0) for a in spatial)
     return ChunkedSource(array, fixed=fixed, spacing=tuple(spacing) if spacing else own_spacing,
-                         unit=unit or layout.unit, source=str(path), chunks=chunks)
+                         unit=unit or layout.unit, source=str(path), chunks=chunks,
+                         notes=layout.metadata.get("notes", ()))
 
 
 # --- geometry helpers (everything is handled in 3D; a 2D image is one z-slice) ---------------
@@ -469,7 +472,8 @@ def chunked_persistence(source, *, superlevel: bool = False, neighbourhood=None,
                                    unit=unit or "px", source="array")
     elif chunks is not None:
         source = ChunkedSource(source.array, fixed=source.fixed, spacing=source.spacing,
-                               unit=source.unit, source=source.source, chunks=chunks)
+                               unit=source.unit, source=source.source, chunks=chunks,
+                               notes=source.notes)
     _check_source(source)
     neighbourhood, construction = construction_of(source.ndim, neighbourhood)
     ascending = not superlevel
@@ -485,7 +489,8 @@ def chunked_persistence(source, *, superlevel: bool = False, neighbourhood=None,
     deaths = [low.voxel_value, [forever]]
     birth_index = [low.young_id, [eldest]]
     death_index = [low.voxel_id, [-1]]
-    notes = [f"computed out of core in {'x'.join(map(str, source.chunks))} chunks"]
+    notes = [f"computed out of core in {'x'.join(map(str, source.chunks))} chunks",
+             *source.notes]
     if dual:
         high, _ = _run_sweep(source, _Sweep(not ascending, construction == "vertex", True),
                              scheduler)

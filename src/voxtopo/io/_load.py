@@ -319,7 +319,9 @@ def _scan(layout: Layout, source: str, *, spacing, unit, channel, timepoint) -> 
         metadata["spacing_from"] = "caller"
     elif unit is not None:
         metadata["unit_from"] = "caller"
-    if notes and spacing is None:
+    # what the reader noticed stays; notes on the metadata's spacing only when it is used
+    notes = list(layout.metadata.get("notes", [])) + (notes if spacing is None else [])
+    if notes:
         metadata["notes"] = notes
     return Scan(data, spacing=final_spacing, unit=final_unit, source=source,
                 metadata=_jsonable(metadata))

@@ -125,9 +125,33 @@ def _scale(transforms, ndim: int) -> list[float]:
     return [1.0] * ndim
 
 
+def missing_chunks_note(array, path) -> str | None:
+    """A sentence saying how many chunks of ``array`` are not stored, or None.
+
+    zarr reads a chunk that is not stored as the array's fill value. It leaves out, by
+    design, chunks that hold only that value (zarr-python 3 does so by default), so a
+    missing chunk is not in itself damage, and a store is not refused for it; but a chunk
+    lost in a copy looks exactly the same, so the user is told, with the count.
+    """
+    try:
+        stored, total = int(array.nchunks_initialized), int(array.nchunks)
+    except Exception as exc:
+        raise InputError(f"{path} could not be listed to check its chunks "
+                         f"({_short(exc)}).") from None
+    if stored >= total:
+        return None
+    return (f"{total - stored} of {total} chunks of {path} are not stored and were read as "
+            f"the fill value {array.fill_value}: zarr leaves out chunks that hold only that "
+            f"value, but a lost chunk looks the same, so check the store if that region "
+            f"should hold data")
+
+
 def _layout(array, path: Path, *, axes, spacing, unit, metadata, labelled) -> Layout:
     dtype = check_dtype(array.dtype, str(path))
     metadata = dict(metadata, chunks=[int(c) for c in array.chunks])
+    missing = missing_chunks_note(array, path)
+    if missing:
+        metadata["notes"] = [missing]
 
     def read(index: tuple) -> np.ndarray:
         try:

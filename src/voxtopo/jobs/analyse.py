@@ -115,13 +115,14 @@ def preparation_plan(scan: Scan, options: AnalysisOptions) -> list[tuple[str, in
         return f"{step} the {'x'.join(map(str, shape))} scan"
 
     if options.crop:
-        box = filt.parse_box(options.crop, scan.ndim)
+        box = (filt.parse_box(options.crop, scan.ndim) if isinstance(options.crop, str)
+               else options.crop)
         shape = tuple(len(range(*b.indices(n))) for b, n in zip(box, shape))
     if options.fill_invalid is not None:
         steps.append((named("Filling the invalid voxels of"),
                       int(np.prod(shape, dtype=np.int64)) * dtype.itemsize))
     if options.downsample and options.downsample != 1:
-        factors = (max(int(options.downsample), 1),) * scan.ndim
+        factors = tuple(max(int(f), 1) for f in np.broadcast_to(options.downsample, scan.ndim))
         steps.append((named("Downsampling"), filt.downsampling_bytes(shape, factors)))
         shape = tuple(n // f for n, f in zip(shape, factors))
     if options.sigma:
@@ -133,7 +134,7 @@ def preparation_plan(scan: Scan, options: AnalysisOptions) -> list[tuple[str, in
     steps.append((named("Persistence of"),
                   estimate(shape, dtype, engine=options.engine,
                            neighbourhood=options.neighbourhood, field=options.field,
-                           periodic=bool(options.periodic))))
+                           periodic=bool(np.any(options.periodic)))))
     return steps
 
 

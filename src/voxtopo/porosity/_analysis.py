@@ -613,6 +613,8 @@ def _measure(scan, mask, segmentation, axes, n_pore, n_solid, min_lifetime, engi
         "timings_seconds": {k: round(v, 4) for k, v in timings.items()},
         "cautions": cautions(spacing, unit),
     }
+    if scan.metadata.get("notes"):
+        summary["notes"] = list(scan.metadata["notes"])
     return PoreAnalysis(pores=pores, grains=grains, loops=loops, voids=voids, summary=summary,
                         diagram=diagram, solid_diagram=solid_diagram, mask=mask,
                         distance=distance, critical_throats=critical)

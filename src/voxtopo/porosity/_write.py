@@ -10,6 +10,7 @@ import numpy as np
 from .. import __version__
 from ..diagram import AXES_3D
 from ..io import result_folder
+from ..report import literal
 from ..scan import as_scan
 
 #: first columns of pores.csv, in this order; more columns may follow
@@ -90,8 +91,6 @@ def _plots(folder: Path, analysis, background, ndim) -> list[str]:
     import matplotlib
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
-
-    from ..report.plots import literal
 
     unit = literal(analysis.summary["unit"])
     names = []

@@ -1,1 +1,5 @@
 """Plots and reports of results."""
+
+from ._text import literal
+
+__all__ = ["literal"]

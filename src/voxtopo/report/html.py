@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
+from ._text import literal
 
 __all__ = ["write_report", "write_batch_report", "write_comparison", "render",
            "plot_distance_heatmap", "plot_embedding", "CAUTIONS", "software_versions"]
@@ -220,7 +221,8 @@ def write_report(folder) -> Path:
         if rows:
             most[_DIM_WORDS.get(str(dim), f"dimension {dim}")] = Table.of(pd.DataFrame(rows))
     diagram = summary.get("diagram") or {}
-    notes = list(diagram.get("notes", [])) + list(summary.get("notes", []))
+    notes = (list((summary.get("scan") or {}).get("notes", []))
+             + list(diagram.get("notes", [])) + list(summary.get("notes", [])))
     for key, value in (summary.get("preparation") or {}).items():
         notes.append(f"{key}: {_show(value)}")
     sections = _sections(summary)
@@ -250,7 +252,6 @@ def _plot_numeric_columns(summary: pd.DataFrame):
     """A bar chart of the pair counts of every scan, when the summary has them."""
     import matplotlib.pyplot as plt
 
-    from .plots import literal
 
     count_columns = [c for c in summary.columns if c.startswith("pairs_dim")]
     if summary.empty or not count_columns:
@@ -336,7 +337,6 @@ def plot_distance_heatmap(matrix, names, groups, title: str = "distance"):
     drawn as lines. Returns the matplotlib Figure."""
     import matplotlib.pyplot as plt
 
-    from .plots import literal
 
     order = _group_order(names, groups)
     ordered = np.asarray(matrix)[np.ix_(order, order)]
@@ -359,7 +359,6 @@ def plot_embedding(embedding, names, groups):
     """Scatter plot of a 2D embedding, one colour per group. Returns the Figure."""
     import matplotlib.pyplot as plt
 
-    from .plots import literal
 
     figure, ax = plt.subplots(figsize=(5.6, 4.8), constrained_layout=True)
     colours = _colours(groups)

@@ -17,6 +17,8 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 
+from ._text import literal  # noqa: E402
+
 #: Our colours for homological dimensions 0, 1, 2 (teal, rose, amber) and their names.
 DIM_COLOURS = ("#1f7a8c", "#c8553d", "#e0a458")
 DIM_NAMES = {0: "components", 1: "loops", 2: "cavities"}
@@ -31,16 +33,6 @@ def _unpack(diagram):
     if isinstance(diagram, pd.DataFrame):
         return diagram, None
     return diagram.pairs, diagram
-
-
-def literal(text: str) -> str:
-    """``text`` as matplotlib should show it, character for character.
-
-    A user's words (a unit such as ``$\\mu$m``) must not be read as mathtext: with two
-    dollar signs matplotlib would parse them, and fail on a command it does not know.
-    An escaped dollar sign is drawn as a dollar sign.
-    """
-    return str(text).replace("$", r"\$")
 
 
 def value_label(diagram) -> str:

@@ -20,6 +20,8 @@ from qtpy.QtCore import Qt
 from qtpy.QtWidgets import (QComboBox, QDoubleSpinBox, QHBoxLayout, QLabel, QSlider,
                             QVBoxLayout, QWidget)
 
+from voxtopo.report import literal
+
 from ._layers import METADATA_KEY, feature_name
 from ._lifetime_colours import lifetime_colormap, lifetime_colours, lifetime_fraction
 
@@ -202,7 +204,7 @@ class DiagramPanel(QWidget):
             self.canvas.draw_idle()
             return
         superlevel = bool(meta.get("superlevel", False))
-        unit = meta.get("unit", "px")
+        unit = literal(meta.get("unit", "px"))
         values = meta.get("values", "intensity")
         lo, hi = self._value_range()
         margin = 0.08 * (hi - lo)
@@ -228,7 +230,7 @@ class DiagramPanel(QWidget):
         what = "distance" if values == "distance" else "value"
         ax.set_xlabel(f"birth ({what}{', ' + unit if values == 'distance' else ''})")
         ax.set_ylabel(f"death ({what}{', ' + unit if values == 'distance' else ''})")
-        ax.set_title(f"{self.result_name}: "
+        ax.set_title(f"{literal(self.result_name)}: "
                      f"{'bright to dark' if superlevel else 'dark to bright'} sweep",
                      fontsize=9)
         legend = ax.legend(loc="lower right" if not superlevel else "upper right",
