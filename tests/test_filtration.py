@@ -90,3 +90,10 @@ def test_nan_is_refused_unless_filled():
     filled = filtration.fill_invalid(Scan(data), "max")
     assert np.isfinite(filled.data).all() and filled.data[2, 2] == 1.0
     assert np.isnan(data[2, 2]), "the input array must not be modified"
+
+
+def test_an_empty_crop_is_told_in_the_users_words():
+    with pytest.raises(voxtopo.InputError) as refused:
+        filtration.crop(np.zeros((100, 100)), "50:10,:")
+    message = str(refused.value)
+    assert "50:10,:" in message and "slice(" not in message and "100x100" in message

@@ -132,7 +132,11 @@ def crop(scan, box) -> Scan:
         raise InputError(f"The crop box has {len(box)} ranges but the scan is {scan.ndim}D.")
     out = scan.data[tuple(box)]
     if out.size == 0 or min(out.shape) == 0:
-        raise InputError(f"The crop box {box} leaves nothing of the scan of shape {scan.shape}.")
+        shown = ",".join(f"{'' if b.start is None else b.start}:{'' if b.stop is None else b.stop}"
+                         for b in box)
+        raise InputError(f"The crop box {shown} leaves nothing of the scan of shape "
+                         f"{'x'.join(map(str, scan.shape))}; each range should run from a "
+                         f"smaller start to a larger stop inside the scan.")
     origin = [b.indices(n)[0] for b, n in zip(box, scan.shape)]
     return scan.with_data(np.ascontiguousarray(out),
                           metadata={**scan.metadata, "crop_origin": origin})

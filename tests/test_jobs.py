@@ -1,0 +1,74 @@
+"""The job layer: every shell runs the same job and gets the same numbers."""
+
+import io
+
+import numpy as np
+import pandas as pd
+import pytest
+import tifffile
+
+from voxtopo import batch, cli, jobs
+from voxtopo.errors import InputError
+
+
+def test_the_registry_refuses_an_unknown_job_in_one_sentence():
+    with pytest.raises(InputError, match="not a voxtopo job"):
+        jobs.get("everything")
+
+
+def test_a_mask_column_pairs_each_scan_with_its_mask_as_the_cli_does(tmp_path, capsys,
+                                                                      cluster_address):
+    """The same scan and mask through `voxtopo pores --mask` and a batch manifest's mask
+    column give the same porosity, the pore volume fraction of the mask (common practice,
+    no source)."""
+    rng = np.random.default_rng(3)
+    gray = rng.random((24, 24)).astype(np.float32)
+    yy, xx = np.indices((24, 24))
+    mask = (np.hypot(yy - 12, xx - 12) < 7) | (yy == 12)
+    np.save(tmp_path / "gray.npy", gray)
+    np.save(tmp_path / "mask.npy", mask)
+    assert cli.main(["pores", str(tmp_path / "gray.npy"), "--mask", str(tmp_path / "mask.npy"),
+                     "--out", str(tmp_path / "alone")]) == 0
+    alone = pd.read_json(tmp_path / "alone" / "summary.json", typ="series")
+    (tmp_path / "m.csv").write_text("path,mask\ngray.npy,mask.npy\n")
+    (tmp_path / "s.toml").write_text('job = "pores"\n')
+    table = batch.run_batch(tmp_path / "m.csv", tmp_path / "study",
+                            settings_path=tmp_path / "s.toml", scheduler=cluster_address,
+                            stream=io.StringIO())
+    assert table.loc[0, "status"] == "done"
+    assert table.loc[0, "porosity"] == pytest.approx(mask.mean(), abs=1e-12)
+    assert alone["porosity"] == pytest.approx(mask.mean(), abs=1e-12)
+
+
+def test_a_mask_column_for_a_job_that_reads_no_mask_is_refused(tmp_path):
+    np.save(tmp_path / "a.npy", np.eye(6))
+    (tmp_path / "m.csv").write_text("path,mask\na.npy,a.npy\n")
+    with pytest.raises(InputError, match="only the pores job reads masks"):
+        batch.run_batch(tmp_path / "m.csv", tmp_path / "out", stream=io.StringIO())
+    assert not (tmp_path / "out").exists()
+
+
+def test_batch_runs_the_periodicity_job_with_the_frame_interval_of_the_settings(
+        tmp_path, cluster_address):
+    """A cosine of period 12 frames at 0.5 s per frame has a period of 6 s (by
+    construction); the spectral period of a pure cosine lies within a few percent of it
+    (Perea & Harer 2015 for the sliding-window view of periodic signals)."""
+    t = np.arange(120)
+    stack = (100 + 50 * np.cos(2 * np.pi * t / 12.0))[:, None, None] * np.ones((1, 8, 8))
+    tifffile.imwrite(tmp_path / "beat.tif", stack.astype(np.float32))
+    settings = tmp_path / "s.toml"
+    settings.write_text('job = "periodicity"\n[load]\naxes = "TYX"\nframe_interval = 0.5\n'
+                        '[periodicity]\ntiles = 2\nsurrogates = 19\n')
+    table = batch.run_batch(str(tmp_path / "beat.tif"), tmp_path / "out",
+                            settings_path=settings, scheduler=cluster_address,
+                            stream=io.StringIO())
+    assert table.loc[0, "status"] == "done", table.loc[0].to_dict()
+    regions = pd.read_csv(tmp_path / "out" / "scans" / "beat" / "regions.csv")
+    assert np.allclose(regions["period"], 6.0, rtol=0.05)
+
+
+def test_time_keys_for_another_job_are_refused(tmp_path):
+    settings = tmp_path / "s.toml"
+    settings.write_text('[load]\nframe_interval = 0.5\n')
+    with pytest.raises(InputError, match="only matter to the periodicity job"):
+        batch.read_settings(settings)
