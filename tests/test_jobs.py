@@ -72,3 +72,26 @@ def test_time_keys_for_another_job_are_refused(tmp_path):
     settings.write_text('[load]\nframe_interval = 0.5\n')
     with pytest.raises(InputError, match="only matter to the periodicity job"):
         batch.read_settings(settings)
+
+
+def test_infinity_is_written_one_way_in_every_summary(tmp_path):
+    """JSON has no infinity (RFC 8259, section 6: Infinity and NaN are not permitted); every
+    summary writes a class that never dies as "inf" and reads it back as a number."""
+    import json
+
+    from voxtopo.io.results import read_summary
+
+    yy, xx = np.indices((20, 20))
+    ring = (np.abs(np.hypot(yy - 10, xx - 10) - 6) < 1.5).astype(np.float32)
+    np.save(tmp_path / "ring.npy", 1 - ring)
+    np.save(tmp_path / "mask.npy", ring.astype(bool))
+    assert cli.main(["analyse", str(tmp_path / "ring.npy"), "--out", str(tmp_path / "a")]) == 0
+    assert cli.main(["pores", str(tmp_path / "mask.npy"), "--out", str(tmp_path / "p")]) == 0
+    for folder in ("a", "p"):
+        text = (tmp_path / folder / "summary.json").read_text()
+        json.loads(text, parse_constant=lambda token: pytest.fail(f"{token} in {folder}"))
+    text = (tmp_path / "a" / "summary.json").read_text()
+    assert '"death": "inf"' in text
+    essential = [row for row in read_summary(tmp_path / "a")["most_persistent"]["0"]
+                 if row["death"] == float("inf")]
+    assert len(essential) == 1

@@ -112,7 +112,8 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputError, VoxtopoError
-from .io.results import (check_output, is_complete, is_voxtopo_folder, safe_folder_name,
+from .io.results import (check_output, is_complete, is_voxtopo_folder, read_summary,
+                         safe_folder_name,
                          unique_folder_names, write_atomically, write_marker)
 from .options import (COUNT, POSITIVE, SHAPE,
                       SPACING, TEXT, WHOLE, Rule, check, one_of)
@@ -617,11 +618,10 @@ def summary_table(out, entries: list[ScanEntry], records: dict | None = None) ->
         row = dict(entry.columns)
         row["name"] = entry.name
         folder = out / "scans" / entry.name
-        summary_path = folder / "summary.json"
         if is_complete(folder):
             row["status"] = "done"
             row["result"] = f"scans/{entry.name}"
-            for key, value in _key_numbers(json.loads(summary_path.read_text())).items():
+            for key, value in _key_numbers(read_summary(folder)).items():
                 # the manifest's own columns are kept as the user wrote them
                 row[f"result_{key}" if key in entry.columns else key] = value
         else:

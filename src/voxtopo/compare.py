@@ -540,8 +540,9 @@ class Comparison:
     def save(self, folder) -> None:
         """Write distances.csv, distance_matrix.csv, betti_curves.csv,
         persistence_images.npz, embedding.csv and summary.json into ``folder``."""
-        import json
         from pathlib import Path
+
+        from .io.results import write_summary
 
         folder = Path(folder)
         self.distance_table().to_csv(folder / "distances.csv", index=False,
@@ -556,8 +557,7 @@ class Comparison:
             pd.DataFrame({"name": self.names, "group": self.groups,
                           "mds_1": self.embedding[:, 0], "mds_2": self.embedding[:, 1]}
                          ).to_csv(folder / "embedding.csv", index=False, float_format="%.10g")
-        (folder / "summary.json").write_text(json.dumps(self.summary(), indent=2,
-                                                        allow_nan=True))
+        write_summary(folder, self.summary())
 
 
 def compare_diagrams(diagrams, names=None, groups=None, *, dims=(0, 1),

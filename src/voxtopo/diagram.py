@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass, replace
 from dataclasses import field as dataclass_field
 from pathlib import Path
@@ -212,11 +211,12 @@ class Diagram:
         """Write ``pairs.csv`` and the diagram's description into ``summary.json``
         (merged under the key ``"diagram"`` when summary.json exists)."""
         folder = Path(folder)
+        from .io.results import read_summary, write_summary
+
         self.pairs.to_csv(folder / name, index=False)
-        summary_path = folder / "summary.json"
-        summary = json.loads(summary_path.read_text()) if summary_path.exists() else {}
+        summary = read_summary(folder) if (folder / "summary.json").exists() else {}
         summary["diagram"] = self.description()
-        summary_path.write_text(json.dumps(summary, indent=2, allow_nan=False))
+        write_summary(folder, summary)
 
     @classmethod
     def load(cls, folder, name: str = "pairs.csv") -> "Diagram":
@@ -226,7 +226,9 @@ class Diagram:
         if not pairs_path.is_file() or not summary_path.is_file():
             raise InputError(f"{folder} is not a voxtopo result folder: it needs {name} "
                              f"and summary.json.")
-        meta = json.loads(summary_path.read_text()).get("diagram")
+        from .io.results import read_summary
+
+        meta = read_summary(folder).get("diagram")
         if meta is None:
             raise InputError(f"{summary_path} has no 'diagram' entry; it was not written "
                              f"by voxtopo analyse.")

@@ -224,6 +224,105 @@ def is_complete(out) -> bool:
     return is_voxtopo_folder(out) and (out / "summary.json").is_file()
 
 
+# --- summary.json ----------------------------------------------------------------------------
+#: How a number that is not finite is written in summary.json (JSON has no infinity): a
+#: class that never dies has death "inf" (superlevel "-inf"); an unknown number is null.
+INFINITY = "inf"
+
+
+def json_ready(value):
+    """``value`` as plain JSON values, written one way everywhere: numpy scalars and
+    arrays become numbers and lists, tuples become lists, paths become text, +-infinity
+    becomes "inf" / "-inf" and NaN becomes null.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> json_ready({"death": np.inf, "birth": np.float32(2.5), "at": (1, 2), "p": np.nan})
+    {'death': 'inf', 'birth': 2.5, 'at': [1, 2], 'p': None}
+    """
+    import numpy as np
+
+    if isinstance(value, dict):
+        return {str(k): json_ready(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple, np.ndarray)):
+        return [json_ready(v) for v in value]
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        value = float(value)
+        if value != value:
+            return None
+        if value in (float("inf"), float("-inf")):
+            return INFINITY if value > 0 else f"-{INFINITY}"
+        return value
+    if isinstance(value, os.PathLike):
+        return os.fspath(value)
+    return value
+
+
+def _numbers_back(value):
+    if isinstance(value, dict):
+        return {k: _numbers_back(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_numbers_back(v) for v in value]
+    if value in (INFINITY, f"-{INFINITY}"):
+        return float(value)
+    return value
+
+
+def software_versions() -> dict:
+    """Versions of voxtopo, Python and the libraries behind the numbers and the pages."""
+    import importlib.metadata as md
+    import platform
+
+    from .. import __version__
+
+    versions = {"voxtopo": __version__, "python": platform.python_version()}
+    for name in ("numpy", "scipy", "scikit-image", "gudhi", "numba", "tifffile", "pandas",
+                 "dask", "distributed", "zarr", "scikit-learn", "pot", "matplotlib",
+                 "jinja2"):
+        try:
+            versions[name] = md.version(name)
+        except md.PackageNotFoundError:
+            versions[name] = None
+    return versions
+
+
+def write_summary(folder, summary: dict) -> Path:
+    """Write ``summary.json`` into ``folder``: plain JSON (see :func:`json_ready`), with the
+    software versions the numbers came from."""
+    from .. import __version__
+
+    summary = {"voxtopo_version": __version__, **summary}
+    summary.setdefault("software", software_versions())
+    text = json.dumps(json_ready(summary), indent=2, allow_nan=False)
+    return write_atomically(Path(folder) / "summary.json",
+                            lambda path: path.write_text(text, encoding="utf-8"))
+
+
+def read_summary(folder) -> dict:
+    """Read ``summary.json`` of a result folder; "inf" and "-inf" come back as numbers.
+
+    Raises InputError in one sentence when it is missing or not valid JSON.
+    """
+    path = Path(folder) / "summary.json"
+    if not path.is_file():
+        raise InputError(f"{folder} has no summary.json; give a result folder written by "
+                         f"voxtopo.")
+    try:
+        summary = json.loads(path.read_text(encoding="utf-8"))
+    except (ValueError, UnicodeDecodeError) as exc:
+        raise InputError(f"{path} is not valid JSON ({' '.join(str(exc).split())[:80]}; "
+                         f"truncated or edited?); write the folder again with voxtopo.") from None
+    if not isinstance(summary, dict):
+        raise InputError(f"{path} should hold an object of keys, not a "
+                         f"{type(summary).__name__}; write the folder again with voxtopo.")
+    return _numbers_back(summary)
+
+
 # --- single files ----------------------------------------------------------------------------
 def write_atomically(path, write) -> Path:
     """Call ``write(temporary_path)`` and rename the file to ``path`` when it succeeded.

@@ -9,8 +9,6 @@ these, so a result folder means the same thing whichever shell made it.
 
 from __future__ import annotations
 
-import json
-import platform
 import time
 from dataclasses import asdict, dataclass
 from dataclasses import field as dataclass_field
@@ -18,7 +16,6 @@ from datetime import datetime, timezone
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 
 from .. import __version__
 from .. import filtration as filt
@@ -28,7 +25,7 @@ from ..errors import InputError
 from ..options import (BOOLEAN, COUNT, ENGINE, FILL, NEIGHBOURHOOD, NON_NEGATIVE, POSITIVE,
                       PRIME, TEXT, THRESHOLD, check, optional)
 from ..io import load, result_folder
-from ..io.results import check_target
+from ..io.results import check_target, json_ready, software_versions, write_summary
 from ..memory import ensure_fits, reported_as_too_big
 from ..scan import Scan
 
@@ -326,43 +323,14 @@ def analyse_out_of_core(source, out, options: AnalysisOptions | None = None, *,
     return result.diagram
 
 
-def _records(frame) -> list[dict]:
-    """Rows as JSON values: missing and infinite numbers become null."""
-    out = []
-    for row in frame.to_dict(orient="records"):
-        clean = {}
-        for key, value in row.items():
-            if pd.isna(value):
-                clean[key] = None
-            elif isinstance(value, (np.integer, int)):
-                clean[key] = int(value)
-            elif isinstance(value, (np.floating, float)):
-                clean[key] = float(value) if np.isfinite(value) else None
-            else:
-                clean[key] = value
-        out.append(clean)
-    return out
-
-
-def software_versions() -> dict:
-    """Versions of voxtopo, Python and the libraries the numbers depend on."""
-    import importlib.metadata as md
-    versions = {"voxtopo": __version__, "python": platform.python_version()}
-    for name in ("numpy", "scipy", "scikit-image", "gudhi", "numba", "tifffile", "pandas"):
-        try:
-            versions[name] = md.version(name)
-        except md.PackageNotFoundError:
-            versions[name] = None
-    return versions
-
-
 def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepared=None,
               timings=None, notes=None) -> dict:
     """The content of summary.json (the diagram's own description is added on save)."""
     prepared = prepared or scan
     threshold = options.min_persistence
     most = diagram.most_persistent(10)
-    top = {str(d): _records(most[most["dim"] == d]) for d in range(diagram.ndim)}
+    top = {str(d): json_ready(most[most["dim"] == d].to_dict(orient="records"))
+           for d in range(diagram.ndim)}
     return {
         "voxtopo_version": __version__,
         "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
@@ -393,11 +361,11 @@ def write_result(out, scan: Scan, diagram: Diagram, options: AnalysisOptions | N
     with result_folder(out, force=force, inputs=[scan.source]) as tmp:
         summary = summarise(scan, diagram, options, prepared=prepared, timings=timings,
                             notes=notes)
-        (tmp / "summary.json").write_text(json.dumps(summary, indent=2, allow_nan=False))
+        write_summary(tmp, summary)
         diagram.save(tmp)
         summary["plots"] = save_standard_plots(diagram, tmp)
         summary["timings_seconds"]["write"] = round(time.perf_counter() - start, 4)
         summary["diagram"] = diagram.description()
-        (tmp / "summary.json").write_text(json.dumps(summary, indent=2, allow_nan=False))
+        write_summary(tmp, summary)
         write_report(tmp)
     return Path(out)

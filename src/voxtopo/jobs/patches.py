@@ -3,7 +3,6 @@
 
 from __future__ import annotations
 
-import json
 import platform
 import time
 from dataclasses import asdict, dataclass, field
@@ -13,7 +12,7 @@ from pathlib import Path
 import numpy as np
 
 from ..io import result_folder
-from ..io.results import check_target
+from ..io.results import check_target, write_summary
 from ..options import (BOOLEAN, COUNT, PERCENT, POSITIVE, PRIME, WHOLE, Rule, check, one_of,
                        optional)
 from ..patches import core, persistence, sample
@@ -146,7 +145,7 @@ def write(result: PatchesResult, out, force: bool = False) -> Path:
         _figures(folder, result.cloud, result.dense, bars)
         summary = _summary(result.cloud, result.dense, bars, result.options,
                            result.k_neighbour, result.seconds)
-        (folder / "summary.json").write_text(json.dumps(summary, indent=2))
+        write_summary(folder, summary)
         write_report(folder)
     return Path(out)
 

@@ -7,7 +7,6 @@ runs, and what the plugin and the batch runner call).
 
 from __future__ import annotations
 
-import json
 import time
 from dataclasses import asdict, dataclass, field
 from datetime import datetime, timezone
@@ -19,6 +18,7 @@ import pandas as pd
 from ..errors import InputError
 from ..options import BOOLEAN, COUNT, NUMBER, POSITIVE, TEXT, WHOLE, Rule, check, optional
 from ..io import result_folder, save_tiff
+from ..io.results import write_summary
 from ..memory import ensure_fits
 from ..scan import FRAME, Scan, TimeLapse
 from ..periodicity import (COLUMNS, FieldRhythm, Method, Signals, band_in_frames, detrend,
@@ -331,22 +331,14 @@ def write(result: PeriodicityResult, out, force: bool = False) -> Path:
         table.to_csv(folder / "regions.csv", index=False, float_format="%.8g")
         plots = save_plots(result, folder)
         summary = _summary(result, plots)
-        (folder / "summary.json").write_text(json.dumps(summary, indent=2, default=_plain))
+        write_summary(folder, summary)
         write_report(folder, summary)
     return Path(out)
 
 
-def _plain(value):
-    if isinstance(value, np.generic):
-        return value.item()
-    if isinstance(value, np.ndarray):
-        return value.tolist()
-    return str(value)
-
-
 def _summary(result: PeriodicityResult, plots: list[str]) -> dict:
     from .. import __version__
-    from ..report.html import software_versions
+    from ..io.results import software_versions
 
     time_unit, unit = result.time_unit, result.unit
     value_unit = "gray value (mean intensity)"

@@ -2,14 +2,13 @@
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 
 import numpy as np
 
-from .. import __version__
 from ..diagram import AXES_3D
 from ..io import result_folder
+from ..io.results import write_summary
 from ..report import literal
 from ..scan import as_scan
 
@@ -21,20 +20,6 @@ _PORE_COLOUR = "#2b6f8f"
 _GRAIN_COLOUR = "#b5652a"
 _LOOP_COLOUR = "#5e8c3a"
 _VOID_COLOUR = "#7a4f9a"
-
-
-def _json_ready(value):
-    if isinstance(value, dict):
-        return {str(k): _json_ready(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_json_ready(v) for v in value]
-    if isinstance(value, (np.bool_, bool)):
-        return bool(value)
-    if isinstance(value, (np.integer,)):
-        return int(value)
-    if isinstance(value, (np.floating, float)):
-        return float(value) if np.isfinite(value) else None
-    return value
 
 
 def write_pores(out, analysis, scan=None, force: bool = False, inputs=()) -> Path:
@@ -75,12 +60,10 @@ def write_pores(out, analysis, scan=None, force: bool = False, inputs=()) -> Pat
         analysis.loops.to_csv(tmp / "loops.csv", index=False, float_format="%.6g")
         analysis.voids.to_csv(tmp / "voids.csv", index=False, float_format="%.6g")
         summary = dict(analysis.summary)
-        summary["voxtopo_version"] = __version__
         summary["files"] = {"pores": "pores.csv", "grains": "grains.csv", "loops": "loops.csv",
                             "voids": "voids.csv", "diagram": "pairs.csv"}
         summary["plots"] = _plots(tmp, analysis, background, ndim)
-        (tmp / "summary.json").write_text(json.dumps(_json_ready(summary), indent=2,
-                                                     allow_nan=False))
+        write_summary(tmp, summary)
         analysis.diagram.save(tmp)
         write_report(tmp)
     return Path(out)

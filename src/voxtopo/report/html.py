@@ -9,9 +9,7 @@ research; they are not a medical diagnosis nor a certification of a part or stru
 from __future__ import annotations
 
 import base64
-import json
 import math
-import platform
 from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
@@ -19,7 +17,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..errors import InputError
+from ..io.results import read_summary, software_versions, write_summary
 from ._text import literal
 
 __all__ = ["write_report", "write_batch_report", "write_comparison", "render",
@@ -101,21 +99,6 @@ def render(template: str, **context) -> str:
     return _environment().get_template(template).render(**context)
 
 
-def software_versions() -> dict:
-    """Versions of voxtopo, Python and the libraries behind the numbers and the pages."""
-    import importlib.metadata as md
-
-    versions = {"python": platform.python_version()}
-    for name in ("voxtopo", "numpy", "scipy", "scikit-image", "gudhi", "numba", "pandas",
-                 "dask", "distributed", "zarr", "scikit-learn", "pot", "matplotlib",
-                 "jinja2"):
-        try:
-            versions[name] = md.version(name)
-        except md.PackageNotFoundError:
-            versions[name] = None
-    return versions
-
-
 def _png(path: Path) -> str:
     return base64.b64encode(path.read_bytes()).decode("ascii")
 
@@ -138,16 +121,6 @@ _CAPTIONS = {"diagram.png": "Persistence diagram: each point is one feature, bor
              "euler_curve.png": "Euler characteristic of the swept set at every level."}
 
 
-def _read_summary(folder: Path) -> dict:
-    path = folder / "summary.json"
-    if not path.is_file():
-        raise InputError(f"{folder} has no summary.json; a report needs a result folder "
-                         f"written by voxtopo.")
-    try:
-        return json.loads(path.read_text())
-    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-        raise InputError(f"{path} is not valid JSON ({exc.msg if hasattr(exc, 'msg') else exc}); "
-                         f"rerun the analysis to rewrite it.") from None
 
 
 def _sections(summary: dict) -> list[dict]:
@@ -204,7 +177,7 @@ def write_report(folder) -> Path:
     'report.html'
     """
     folder = Path(folder)
-    summary = _read_summary(folder)
+    summary = read_summary(folder)
     counts = summary.get("counts", {})
     essential = summary.get("essential", {})
     skipped = ((summary.get("preparation") or {}).get("out_of_core") or {}).get(
@@ -405,8 +378,7 @@ def write_comparison(comparison, out, *, force: bool = False, inputs=()) -> Path
                            "caption": "Metric MDS of the distance matrix, coloured by group."})
         summary = comparison.summary()
         summary["cautions"] = list(CAUTIONS)
-        summary["software"] = software_versions()
-        (tmp / "summary.json").write_text(json.dumps(summary, indent=2, allow_nan=True))
+        write_summary(tmp, summary)
         test = comparison.test.description() if comparison.test else None
         reason = "; ".join(comparison.notes) or "no groups were given"
         members = pd.DataFrame({"name": comparison.names, "group": comparison.groups})

@@ -9,7 +9,6 @@ recomputed from it; otherwise the features come alone, placed by the stored voxe
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 
 import numpy as np
@@ -17,6 +16,7 @@ import numpy as np
 import voxtopo
 from voxtopo.diagram import Diagram
 from voxtopo.errors import InputError
+from voxtopo.io.results import read_summary
 from voxtopo.jobs.analyse import AnalysisOptions, prepare
 
 from ._layers import METADATA_KEY, placement_of, result_layers
@@ -36,14 +36,6 @@ def napari_get_reader(path):
             return None
         path = path[0]
     return read_result_folder if _is_result_folder(Path(path)) else None
-
-
-def _summary(folder: Path) -> dict:
-    try:
-        return json.loads((folder / "summary.json").read_text())
-    except (json.JSONDecodeError, UnicodeDecodeError):
-        raise InputError(f"{folder / 'summary.json'} is not valid JSON (truncated or "
-                         f"edited?); write the folder again with voxtopo analyse.") from None
 
 
 def _check_counts(folder: Path, summary: dict, diagram: Diagram) -> None:
@@ -69,7 +61,7 @@ def read_result_folder(path) -> list[tuple]:
     if isinstance(path, (list, tuple)):
         path = path[0]
     folder = Path(path)
-    summary = _summary(folder)
+    summary = read_summary(folder)
     try:
         diagram = Diagram.load(folder)
     except (ValueError, KeyError) as error:
