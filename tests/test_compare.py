@@ -459,3 +459,18 @@ def test_summary_names_its_settings_in_plain_words():
     assert "matched among themselves" in summary["classes_that_never_die"]
     for old in ("dimensions", "metric", "wasserstein_order", "essential_classes"):
         assert old not in summary
+
+
+def test_cli_refuses_compare_options_that_would_be_ignored(tmp_path, capsys):
+    # house rule (common practice, no source): an option that would change nothing is
+    # refused in one sentence with exit code 2 and nothing written
+    from voxtopo.cli import main
+
+    a, b = _two_flagged_folders(tmp_path)
+    for extra, word in ((["--order", "2"], "--order"), (["--group-column", "site"],
+                                                        "--group-column")):
+        out = tmp_path / f"c{word}"
+        assert main(["compare", str(a), str(b), "--out", str(out)] + extra) == 2
+        error = [line for line in capsys.readouterr().err.splitlines() if "error" in line]
+        assert len(error) == 1 and word in error[0]
+        assert not out.exists()

@@ -335,7 +335,8 @@ def _add_compare(subparsers) -> None:
     p.add_argument("--metric", choices=["bottleneck", "wasserstein"], default="bottleneck",
                    help="the distance computed, used for the embedding and the test "
                         "(default bottleneck)")
-    p.add_argument("--order", type=float, default=1.0, help="Wasserstein order q (default 1)")
+    p.add_argument("--order", type=float, default=None,
+                   help="order q of the Wasserstein distance (default 1)")
     p.add_argument("--essential", choices=["separate", "ignore"], default="separate",
                    help="classes that never die: matched among themselves (default) or "
                         "left out")
@@ -346,8 +347,9 @@ def _add_compare(subparsers) -> None:
     p.add_argument("--permutations", type=int, default=999,
                    help="relabellings in the permutation test (default 999)")
     p.add_argument("--seed", type=int, default=0, help="seed of the permutations and MDS")
-    p.add_argument("--group-column", default="group",
-                   help="summary.csv column holding the groups of a batch folder")
+    p.add_argument("--group-column", default=None,
+                   help="summary.csv column holding the groups of a batch folder "
+                        "(default group)")
     p.set_defaults(handler=_run_compare)
 
 
@@ -359,11 +361,15 @@ def _run_compare(args) -> int:
         dims = tuple(int(d) for d in args.dims.split(","))
     except ValueError:
         raise VoxtopoError(f"--dims should be dimensions like 0,1; got {args.dims!r}.")
+    if args.order is not None and args.metric != "wasserstein":
+        raise VoxtopoError(f"--order {args.order:g} applies only to the Wasserstein distance; "
+                           f"add --metric wasserstein or leave --order out.")
     check_target(args.out, args.force, inputs=args.results)
     diagrams, names, groups = load_results(args.results, args.group_column)
     use_groups = groups if len(set(groups)) > 1 else None
     comparison = compare_diagrams(diagrams, names, use_groups, dims=dims, metric=args.metric,
-                                  order=args.order, essential=args.essential,
+                                  order=1.0 if args.order is None else args.order,
+                                  essential=args.essential,
                                   all_pairs=args.all_pairs,
                                   min_persistence=args.min_persistence,
                                   n_permutations=args.permutations, seed=args.seed)

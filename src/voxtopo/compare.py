@@ -940,27 +940,37 @@ def _load_result(folder: Path) -> Diagram:
                    extra={**diagram.extra, VERDICT_SECTIONS[flag]: section})
 
 
-def load_results(paths, group_column: str = "group"):
+def load_results(paths, group_column: str | None = None):
     """Diagrams, names and groups from result folders and batch folders.
 
     A result folder (pairs.csv + summary.json) gives one diagram named after the folder and
     grouped by the name of the folder that holds it (``results/treated/s1`` is in group
     "treated"). A batch folder (summary.csv + scans/) gives every complete scan in it,
-    named and grouped by its summary.csv (``name`` and ``group_column`` columns). The
-    ``significant`` or ``robust`` column of pairs.csv, when there, comes along, so that
-    :func:`compare_diagrams` can keep the features it flags.
+    named and grouped by its summary.csv (``name`` and ``group_column`` columns, "group"
+    when not given; a ``group_column`` without a batch folder is refused, as it would
+    change nothing). The ``significant`` or ``robust`` column of pairs.csv, when there,
+    comes along, so that :func:`compare_diagrams` can keep the features it flags.
 
     Returns
     -------
     (list of Diagram, list of str, list of str)
     """
-    diagrams, names, groups = [], [], []
+    paths = [Path(path) for path in paths]
     for path in paths:
-        path = Path(path)
         if not path.is_dir():
             raise InputError(f"{path} is not a folder; give result folders written by "
                              f"voxtopo analyse or a batch folder written by voxtopo batch.")
-        if (path / "summary.csv").is_file() and (path / "scans").is_dir():
+    batches = [(path / "summary.csv").is_file() and (path / "scans").is_dir()
+               for path in paths]
+    if group_column is not None and not any(batches):
+        raise InputError(f"--group-column {group_column} names a column of a batch folder's "
+                         f"summary.csv, but none of the folders given is a batch folder; "
+                         f"leave it out (result folders are grouped by the folder holding "
+                         f"them).")
+    group_column = group_column or "group"
+    diagrams, names, groups = [], [], []
+    for path, is_batch in zip(paths, batches):
+        if is_batch:
             table = pd.read_csv(path / "summary.csv", dtype=str, keep_default_na=False)
             if group_column not in table.columns and group_column != "group":
                 raise InputError(f"{path / 'summary.csv'} has no column {group_column!r}; "
