@@ -299,6 +299,24 @@ def test_a_folder_without_flags_is_compared_with_all_its_pairs_and_a_note(tmp_pa
     comparison = compare.compare_diagrams(*compare.load_results([older, a])[:2], dims=(0,))
     assert comparison.matrix[0, 1] == pytest.approx(2.5)
     assert any("older" in note and "all its pairs" in note for note in comparison.notes)
+    assert comparison.features == ("significant features (family-wise alpha 0.05, as computed "
+                                   "per scan), and all pairs of 1 older result(s) without flags")
+
+
+def test_flags_carried_in_memory_select_pairs_without_a_result_folder():
+    # bottleneck definition (Cohen-Steiner, Edelsbrunner & Harer 2007): (1, 9) against
+    # (1.5, 9) once the pairs flagged False are left out, as voxtopo.significance flags them
+    import dataclasses
+
+    diagrams = []
+    for row, keep in (([0.0, 9.0, 4.0, 9.0, 1.0], [1.0]), ([0.0, 9.0, 1.5], [1.5])):
+        d = _diagram(np.array([row]))
+        diagrams.append(dataclasses.replace(
+            d, pairs=d.pairs.assign(significant=_flags_for(d, keep))))
+    comparison = compare.compare_diagrams(diagrams, dims=(0,))
+    assert comparison.matrix[0, 1] == pytest.approx(0.5)
+    assert comparison.features == "significant features (as flagged in each scan)"
+    assert comparison.pairs_compared == [{0: 2}, {0: 2}]   # one finite, one never dies
 
 
 def test_cli_compare_says_which_pairs_it_compared(tmp_path, capsys):

@@ -206,16 +206,20 @@ def _features_compared(diagrams, names, all_pairs: bool,
         return "all pairs" + above, []
     flags = [_flag_of(d) for d in diagrams]
     unflagged = [name for name, flag in zip(names, flags) if flag is None]
-    notes = [f"{name} has no significance or robustness flags (an older result): compared "
-             f"with all its pairs" for name in unflagged]
+    notes = []
+    if unflagged:
+        one = len(unflagged) == 1
+        notes.append(f"{', '.join(unflagged)} {'has' if one else 'have'} no significance or "
+                     f"robustness flags ({'an older result' if one else 'older results'}): "
+                     f"compared with all {'its' if one else 'their'} pairs")
     flagged = [(d, flag) for d, flag in zip(diagrams, flags) if flag is not None]
     if not flagged:
         return "all pairs" + above + " (no result carries significance or robustness flags)", \
             notes
     flag = flagged[0][1]
     levels = {_level_of(d, flag) for d, _ in flagged}
-    known = sorted(level for level in levels if level is not None)
-    how = ("; ".join(known) if None not in levels else "flags") + ", as computed per scan"
+    how = (f"{'; '.join(sorted(levels))}, as computed per scan" if None not in levels
+           else "as flagged in each scan")
     phrase = f"{flag} features ({how}){above}"
     if unflagged:
         phrase += f", and all pairs of {len(unflagged)} older result(s) without flags"
