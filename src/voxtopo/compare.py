@@ -182,7 +182,7 @@ def select_features(diagram: Diagram, *, all_pairs: bool = False,
     flag = _flag_of(diagram)
     if flag is not None and not all_pairs:
         keep &= never_dies | pairs[flag].to_numpy(dtype=bool)
-    return diagram._with_pairs(pairs[keep])
+    return replace(diagram, pairs=pairs[keep].reset_index(drop=True))
 
 
 def _level_of(diagram: Diagram, flag: str) -> str | None:
@@ -210,8 +210,8 @@ def _features_compared(diagrams, names, all_pairs: bool,
     if unflagged:
         one = len(unflagged) == 1
         notes.append(f"{', '.join(unflagged)} {'has' if one else 'have'} no significance or "
-                     f"robustness flags ({'an older result' if one else 'older results'}): "
-                     f"compared with all {'its' if one else 'their'} pairs")
+                     f"robustness flags (written by an older version, or computed without "
+                     f"them): compared with all {'its' if one else 'their'} pairs")
     flagged = [(d, flag) for d, flag in zip(diagrams, flags) if flag is not None]
     if not flagged:
         return "all pairs" + above + " (no result carries significance or robustness flags)", \
@@ -222,7 +222,7 @@ def _features_compared(diagrams, names, all_pairs: bool,
            else "as flagged in each scan")
     phrase = f"{flag} features ({how}){above}"
     if unflagged:
-        phrase += f", and all pairs of {len(unflagged)} older result(s) without flags"
+        phrase += f", and all pairs of {len(unflagged)} diagram(s) without flags"
     return phrase, notes
 
 

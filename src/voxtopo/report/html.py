@@ -14,6 +14,7 @@ import math
 import platform
 from dataclasses import dataclass
 from datetime import datetime, timezone
+from functools import partial
 from pathlib import Path
 
 import numpy as np
@@ -450,25 +451,27 @@ def write_comparison(comparison, out, *, force: bool = False, inputs=()) -> Path
     from ..io import result_folder
 
     dims = ", ".join(map(str, comparison.dims))
-    plots = [("heatmap.png", plot_distance_heatmap(comparison.matrix, comparison.names,
-                                                   comparison.groups,
-                                                   title=f"{comparison.distance} distance"),
-              f"{comparison.distance.capitalize()} distances over dimensions {dims}, ordered "
-              f"by group ({comparison.features}).")]
+    heatmap_caption = (f"{comparison.distance.capitalize()} distances over dimensions {dims}, "
+                       f"ordered by group ({comparison.features}).")
+    curves_caption = (f"Betti curves of every diagram on one common grid of levels, coloured "
+                      f"by group ({comparison.features}).")
+    images_caption = ("Mean persistence image of each group, per dimension: where the "
+                      "features are born (across) and how long they live (up).")
+    plots = [("heatmap.png", partial(plot_distance_heatmap, comparison.matrix, comparison.names,
+                                     comparison.groups, title=f"{comparison.distance} distance"),
+              heatmap_caption)]
     if comparison.embedding is not None:
-        plots.append(("mds.png", plot_embedding(comparison.embedding, comparison.names,
-                                                comparison.groups),
+        plots.append(("mds.png", partial(plot_embedding, comparison.embedding, comparison.names,
+                                         comparison.groups),
                       "Metric MDS of the distance matrix, coloured by group."))
-    plots.append(("betti_curves.png", plot_betti_curves(comparison),
-                  f"Betti curves of every diagram on one common grid of levels, coloured by "
-                  f"group ({comparison.features})."))
-    plots.append(("persistence_images.png", plot_persistence_images(comparison),
-                  "Mean persistence image of each group, per dimension: where the features "
-                  "are born (across) and how long they live (up)."))
+    plots.append(("betti_curves.png", partial(plot_betti_curves, comparison), curves_caption))
+    plots.append(("persistence_images.png", partial(plot_persistence_images, comparison),
+                  images_caption))
     with result_folder(out, force=force, inputs=inputs) as tmp:
         comparison.save(tmp)
         images = []
-        for name, figure, caption in plots:
+        for name, draw, caption in plots:
+            figure = draw()
             figure.savefig(tmp / name, dpi=110)
             plt.close(figure)
             images.append({"data": _png(tmp / name), "caption": caption})
