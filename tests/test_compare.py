@@ -494,3 +494,22 @@ def test_cli_refuses_compare_options_that_would_be_ignored(tmp_path, capsys):
         error = [line for line in capsys.readouterr().err.splitlines() if "error" in line]
         assert len(error) == 1 and word in error[0]
         assert not out.exists()
+
+
+def test_all_pairs_of_folders_that_hold_only_flagged_pairs_says_so(tmp_path):
+    # A folder written with only its significant pairs (every finite flag True): asking for
+    # all pairs cannot bring the others back, and the note says so (common practice, no
+    # source: a count says what it counts).
+    d = _diagram(np.array([[0.0, 9.0, 4.0, 9.0, 1.0]]))
+    kept = _result_folder(tmp_path / "kept", d, np.ones(len(d), bool),
+                          section={"alpha": 0.05})
+    other = _result_folder(tmp_path / "other", d, _flags_for(d, [1.0]),
+                           section={"alpha": 0.05})
+    comparison = compare.compare_diagrams(*compare.load_results([kept, other])[:2], dims=(0,),
+                                          all_pairs=True)
+    assert comparison.features == "all pairs"
+    assert [note for note in comparison.notes if "kept" in note] == [
+        "every finite pair of kept is flagged significant (a result folder keeps only those "
+        "when its analysis kept only significant features), so all its pairs are its "
+        "significant features"]
+    assert not any("other" in note for note in comparison.notes)

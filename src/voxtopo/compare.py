@@ -202,9 +202,11 @@ def _features_compared(diagrams, names, all_pairs: bool,
     """The phrase that says which pairs were compared, and notes on older results."""
     above = (f" with persistence above {min_persistence:g} {_value_unit(diagrams[0])}"
              if min_persistence > 0 else "")
-    if all_pairs:
-        return "all pairs" + above, []
     flags = [_flag_of(d) for d in diagrams]
+    if all_pairs:
+        return "all pairs" + above, [_only_flagged_note(d, name, flag) for d, name, flag
+                                     in zip(diagrams, names, flags)
+                                     if flag is not None and _holds_only_flagged(d, flag)]
     unflagged = [name for name, flag in zip(names, flags) if flag is None]
     notes = []
     if unflagged:
@@ -224,6 +226,17 @@ def _features_compared(diagrams, names, all_pairs: bool,
     if unflagged:
         phrase += f", and all pairs of {len(unflagged)} diagram(s) without flags"
     return phrase, notes
+
+
+def _holds_only_flagged(diagram: Diagram, flag: str) -> bool:
+    finite = np.isfinite(diagram.pairs["death"].to_numpy(dtype=np.float64))
+    return bool(finite.any() and diagram.pairs[flag].to_numpy(dtype=bool)[finite].all())
+
+
+def _only_flagged_note(diagram: Diagram, name: str, flag: str) -> str:
+    return (f"every finite pair of {name} is flagged {flag} (a result folder keeps only those "
+            f"when its analysis kept only {flag} features), so all its pairs are its {flag} "
+            f"features")
 
 
 def _value_unit(diagram: Diagram) -> str:
