@@ -208,6 +208,8 @@ def test_bad_inputs_are_refused_in_one_sentence():
         compare.embed_mds(np.array([[0, np.inf, 1], [np.inf, 0, 1], [1, 1, 0.0]]))
     with pytest.raises(InputError, match="at least two diagrams"):
         compare.compare_diagrams([a])
+    with pytest.raises(InputError, match="min-persistence"):
+        compare.compare_diagrams([a, a], min_persistence=-1)
 
 
 # --- which pairs are compared ------------------------------------------------------------

@@ -342,8 +342,9 @@ def _add_compare(subparsers) -> None:
                         "left out")
     p.add_argument("--all-pairs", action="store_true",
                    help="compare every pair, not only the significant (or robust) features")
-    p.add_argument("--min-persistence", type=float, default=0.0,
-                   help="leave out pairs that live no longer than this (default 0)")
+    p.add_argument("--min-persistence", type=float, default=0.0, metavar="VALUE",
+                   help="leave out pairs that live no longer than this, in the diagrams' "
+                        "values (gray values, or the scan's unit for distances; default 0)")
     p.add_argument("--permutations", type=int, default=999,
                    help="relabellings in the permutation test (default 999)")
     p.add_argument("--seed", type=int, default=0, help="seed of the permutations and MDS")

@@ -154,8 +154,8 @@ def _check_min_persistence(min_persistence) -> float:
     except (TypeError, ValueError):
         value = math.nan
     if not (math.isfinite(value) and value >= 0):
-        raise InputError(f"The shortest lifetime kept (min_persistence) must be a number of "
-                         f"at least 0, got {min_persistence!r}.")
+        raise InputError(f"--min-persistence (the shortest lifetime kept) must be a number "
+                         f"of at least 0, got {min_persistence!r}.")
     return value
 
 
