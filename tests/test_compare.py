@@ -515,3 +515,13 @@ def test_all_pairs_of_folders_that_hold_only_flagged_pairs_says_so(tmp_path):
         "when its analysis kept only significant features), so all its pairs are its "
         "significant features"]
     assert not any("other" in note for note in comparison.notes)
+
+
+def test_min_persistence_leaves_out_short_pairs_before_comparing():
+    # bottleneck definition (Cohen-Steiner, Edelsbrunner & Harer 2007): above persistence 6
+    # only (1, 9) and (1.5, 9) remain, 0.5 apart; (4, 9), 2.5 from the diagonal, is gone.
+    first = _diagram(np.array([[0.0, 9.0, 4.0, 9.0, 1.0]]))
+    second = _diagram(np.array([[0.0, 9.0, 1.5]]))
+    comparison = compare.compare_diagrams([first, second], dims=(0,), min_persistence=6)
+    assert comparison.matrix[0, 1] == pytest.approx(0.5)
+    assert comparison.features.startswith("all pairs with persistence above 6 gray value")
