@@ -379,6 +379,8 @@ def test_wasserstein_too_big_is_refused_before_it_runs(monkeypatch):
     assert "leave out --all-pairs" in message
     with pytest.raises(TooBigError, match="min-persistence"):
         compare.wasserstein(a, b, dims=(0,))
+    with pytest.raises(TooBigError, match="would need about"):
+        compare.distance_matrix([a, b, a], dims=(1, 0), metric="wasserstein")
     # the bottleneck distance alone is computed: no Wasserstein call, and it fits
     bottleneck_only = compare.compare_diagrams([a, b], dims=(0,), all_pairs=True)
     assert {metric for metric, _ in bottleneck_only.matrices} == {"bottleneck"}

@@ -396,6 +396,8 @@ def distance_matrix(diagrams, dims=(0,), *, metric: str = "bottleneck", order: f
         raise InputError(f"metric should be one of {list(METRICS)}, got {metric!r}.")
     diagrams = list(diagrams)
     check_comparable(diagrams)
+    if metric == "wasserstein":
+        _check_wasserstein_memory(diagrams, _check_dims(dims))
     n = len(diagrams)
     matrix = np.zeros((n, n))
     for i in range(n):
@@ -815,7 +817,7 @@ def _combined(per_dimension: list, metric: str, order: float) -> np.ndarray:
     return np.sum(stacked ** order, axis=0) ** (1.0 / order)
 
 
-def _check_wasserstein_memory(diagrams, dims, fewer_features: str) -> None:
+def _check_wasserstein_memory(diagrams, dims, fewer_features: str = "") -> None:
     """Refuse before the first call when the two largest diagrams of a dimension would
     not fit (every other pair of diagrams needs less)."""
     for dim in dims:
