@@ -527,3 +527,20 @@ def test_min_persistence_leaves_out_short_pairs_before_comparing():
     comparison = compare.compare_diagrams([first, second], dims=(0,), min_persistence=6)
     assert comparison.matrix[0, 1] == pytest.approx(0.5)
     assert comparison.features.startswith("all pairs with persistence above 6 gray value")
+
+
+def test_cli_line_states_the_permutation_tests_resolution(tmp_path, capsys):
+    # Two groups of two: 4! / (2! 2! 2!) = 3 groupings (itertools enumeration above), so the
+    # line must say that no p below about 1/3 can occur, whatever the 999 permutations allow.
+    import json
+
+    from voxtopo.cli import main
+
+    folders = [_result_folder(tmp_path / group / f"s{i}", _diagram(_texture(600 + i, 1.0 + 2 * i,
+                                                                            (16, 16))))
+               for i, group in enumerate(["first", "first", "second", "second"])]
+    assert main(["compare", *map(str, folders), "--out", str(tmp_path / "c")]) == 0
+    line = capsys.readouterr().out
+    assert "3 distinct groupings" in line and "no p-value below about 0.333" in line
+    summary = json.loads((tmp_path / "c" / "summary.json").read_text())
+    assert summary["permutation_test"]["smallest_p_value_reachable"] == pytest.approx(1 / 3)
