@@ -98,18 +98,71 @@ def test_comparison_report_renders_and_holds_the_test(tmp_path):
                                           groups=["fine", "coarse"] * 3, n_permutations=99)
     out = write_comparison(comparison, tmp_path / "cmp")
     for name in ("distances.csv", "distance_matrix.csv", "heatmap.png", "mds.png",
-                 "summary.json", "report.html", "persistence_images.npz", "betti_curves.csv"):
+                 "betti_curves.png", "persistence_images.png", "summary.json", "report.html",
+                 "persistence_images.npz", "betti_curves.csv"):
         assert (out / name).is_file(), name
     summary = json.loads((out / "summary.json").read_text())
-    assert summary["permutation_test"]["n_permutations"] == 99
+    assert summary["permutation_test"]["permutations"] == 99
     assert 1 / 100 <= summary["permutation_test"]["p_value"] <= 1
+    # two groups of three: 6! / (3! 3! 2!) = 10 groupings (itertools enumeration in
+    # tests/test_compare.py), so p cannot go much below 1/10
+    assert summary["permutation_test"]["distinct_groupings"] == 10
     html = (out / "report.html").read_text()
     assert _external_urls(html) == []
     assert "not a medical diagnosis" in html
+    shown = re.findall(r'src="data:image/png;base64,([^"]+)"', html)
+    assert len(shown) == 4            # distances, embedding, Betti curves, persistence images
+    assert all(base64.b64decode(data)[:8] == b"\x89PNG\r\n\x1a\n" for data in shown)
     run = _chromium(out / "report.html", tmp_path, dump_dom=True)
     assert run.returncode == 0, run.stderr[-2000:]
     assert "Do the groups differ?" in run.stdout
     assert "mean between-group distance minus mean within-group distance" in run.stdout
+    assert "10 distinct groupings" in run.stdout
+    assert "all pairs" in run.stdout and "dimensions compared" in run.stdout
+
+
+def test_betti_curve_plot_draws_every_diagram_coloured_by_group():
+    # scipy.ndimage.label with generate_binary_structure(2, 2) counts the components of the
+    # sublevel set (Betti 0, 8-neighbourhood) at every level the plot draws.
+    from scipy import ndimage
+
+    from voxtopo.report.html import plot_betti_curves
+
+    rng = np.random.default_rng(8)
+    images = [ndimage.gaussian_filter(rng.standard_normal((20, 20)), 1 + i) for i in range(3)]
+    diagrams = [voxtopo.persistence(im, engine="gudhi") for im in images]
+    comparison = compare.compare_diagrams(diagrams, names=list("pqr"), groups=list("aab"),
+                                          dims=(0, 1), levels=16)
+    figure = plot_betti_curves(comparison)
+    panels = [ax for ax in figure.axes if ax.lines]
+    assert len(panels) == 2
+    structure = ndimage.generate_binary_structure(2, 2)
+    for image, line in zip(images, panels[0].lines):
+        counts = [ndimage.label(image <= level, structure)[1] for level in line.get_xdata()]
+        np.testing.assert_array_equal(line.get_ydata(), counts)
+    colours = [line.get_color() for line in panels[0].lines]
+    assert colours[0] == colours[1] != colours[2]
+
+
+def test_persistence_image_plot_shows_each_group_mean_on_the_real_births():
+    # Mean of the members' images per group and dimension (common practice, no source);
+    # a superlevel run of positive values has positive births (Adams et al. 2017 place each
+    # pair at its birth).
+    from voxtopo.report.html import plot_persistence_images
+
+    rows = [np.array([[9.0, 0.0, 5.0, 0.0, 8.0]]), np.array([[9.0, 1.0, 6.0, 0.0, 7.0]]),
+            np.array([[9.0, 0.0, 3.0, 2.0, 8.0]])]
+    diagrams = [voxtopo.persistence(r, superlevel=True, engine="gudhi") for r in rows]
+    comparison = compare.compare_diagrams(diagrams, names=list("pqr"), groups=list("aab"),
+                                          dims=(0,), resolution=8, sigma=0.5)
+    figure = plot_persistence_images(comparison)
+    shown = [ax for ax in figure.axes if ax.images]
+    assert len(shown) == 2            # groups a and b, one dimension
+    np.testing.assert_allclose(shown[0].images[0].get_array(),
+                               comparison.images[0][:2].mean(axis=0))
+    np.testing.assert_allclose(shown[1].images[0].get_array(), comparison.images[0][2])
+    left, right, _, _ = shown[0].images[0].get_extent()
+    assert left > 0 and right > left
 
 
 def test_report_of_a_folder_without_results_is_refused(tmp_path):

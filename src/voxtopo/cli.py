@@ -330,23 +330,34 @@ def _add_compare(subparsers) -> None:
     p = subparsers.add_parser(
         "compare", help="distances, embedding and a group test between result folders",
         description="Compare the persistence diagrams of result folders (or of every scan of "
-                    "a batch folder): bottleneck and Wasserstein distances, persistence "
-                    "images, Betti curves, an MDS plot and a permutation test by group.")
+                    "a batch folder): the bottleneck or Wasserstein distance, persistence "
+                    "images, Betti curves, an MDS plot and a permutation test by group. By "
+                    "default only the significant (or robust) features of each scan and the "
+                    "classes that never die are compared.")
     p.add_argument("results", nargs="+", help="result folders, or batch folders")
     p.add_argument("--out", required=True, help="comparison folder to create")
     p.add_argument("--force", action="store_true", help="replace the folder if it exists")
     p.add_argument("--dims", default="0,1", metavar="D,D",
                    help="homological dimensions to compare (default 0,1)")
     p.add_argument("--metric", choices=["bottleneck", "wasserstein"], default="bottleneck",
-                   help="distance used for the embedding and the test (default bottleneck)")
-    p.add_argument("--order", type=float, default=1.0, help="Wasserstein order q (default 1)")
+                   help="the distance computed, used for the embedding and the test "
+                        "(default bottleneck)")
+    p.add_argument("--order", type=float, default=None,
+                   help="order q of the Wasserstein distance (default 1)")
     p.add_argument("--essential", choices=["separate", "ignore"], default="separate",
-                   help="essential classes: matched among themselves (default) or left out")
+                   help="classes that never die: matched among themselves (default) or "
+                        "left out")
+    p.add_argument("--all-pairs", action="store_true",
+                   help="compare every pair, not only the significant (or robust) features")
+    p.add_argument("--min-persistence", type=float, default=0.0, metavar="VALUE",
+                   help="leave out pairs that live no longer than this, in the diagrams' "
+                        "values (gray values, or the scan's unit for distances; default 0)")
     p.add_argument("--permutations", type=int, default=999,
                    help="relabellings in the permutation test (default 999)")
     p.add_argument("--seed", type=int, default=0, help="seed of the permutations and MDS")
-    p.add_argument("--group-column", default="group",
-                   help="summary.csv column holding the groups of a batch folder")
+    p.add_argument("--group-column", default=None,
+                   help="summary.csv column holding the groups of a batch folder "
+                        "(default group)")
     p.set_defaults(handler=_run_compare)
 
 
@@ -358,17 +369,24 @@ def _run_compare(args) -> int:
         dims = tuple(int(d) for d in args.dims.split(","))
     except ValueError:
         raise VoxtopoError(f"--dims should be dimensions like 0,1; got {args.dims!r}.")
+    if args.order is not None and args.metric != "wasserstein":
+        raise VoxtopoError(f"--order {args.order:g} applies only to the Wasserstein distance; "
+                           f"add --metric wasserstein or leave --order out.")
     check_target(args.out, args.force, inputs=args.results)
     diagrams, names, groups = load_results(args.results, args.group_column)
     use_groups = groups if len(set(groups)) > 1 else None
     comparison = compare_diagrams(diagrams, names, use_groups, dims=dims, metric=args.metric,
-                                  order=args.order, essential=args.essential,
+                                  order=1.0 if args.order is None else args.order,
+                                  essential=args.essential,
+                                  all_pairs=args.all_pairs,
+                                  min_persistence=args.min_persistence,
                                   n_permutations=args.permutations, seed=args.seed)
     write_comparison(comparison, args.out, force=args.force, inputs=args.results)
     if comparison.test is not None:
-        print(f"voxtopo: permutation test p = {comparison.test.p_value:.4g} "
-              f"({comparison.test.n_permutations} permutations)")
-    print(f"voxtopo: comparison of {len(names)} diagrams written to {args.out}")
+        print(f"voxtopo: permutation test p = {comparison.test.p_value:.4g}; "
+              f"{comparison.test.resolution()}")
+    print(f"voxtopo: {comparison.distance} distances of {len(names)} diagrams, "
+          f"{comparison.features}, written to {args.out}")
     return 0
 
 

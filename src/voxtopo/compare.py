@@ -17,7 +17,18 @@ clipped at an invented level:
   q-norm of the per-dimension distances.
 
 Superlevel diagrams (birth above death) are compared as they are: a distance only needs
-both diagrams to run the same way, which :func:`check_comparable` enforces.
+both diagrams to run the same way, which :func:`check_comparable` enforces before anything
+is computed (the same number of image dimensions, the same sweep, the same kind of values).
+
+Which pairs are compared: by default the significant features (gray-value sweeps) or the
+robust ones (distance sweeps) that voxtopo.significance flagged in each scan, with every
+class that never dies kept; ``all_pairs=True`` compares every pair. A diagram without
+those flags (an older result) is compared with all its pairs, and a note says so.
+
+Memory: the bottleneck distance needs memory in proportion to the number of pairs; one
+Wasserstein call builds a dense (n + 1) x (m + 1) cost matrix and a transport plan of the
+same size, so it is estimated (:func:`wasserstein_bytes`) and refused through
+voxtopo.memory.ensure_fits before it runs. Only the chosen distance is computed.
 
 Vectorisations are persistence images (Adams et al. 2017) and Betti curves, both on a grid
 shared by every diagram in the comparison, so that vectors of different scans line up.
@@ -27,7 +38,9 @@ from __future__ import annotations
 
 import inspect
 import math
-from dataclasses import dataclass, field
+from collections import Counter
+from dataclasses import dataclass, field, replace
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -35,22 +48,48 @@ from scipy.special import erf
 
 from .diagram import Diagram
 from .errors import InputError
+from .io.results import read_summary, write_summary
+from .memory import ensure_fits
 
-__all__ = ["bottleneck", "wasserstein", "distance_matrix", "check_comparable",
-           "PersistenceImageGrid", "image_grid", "persistence_image", "betti_curves",
-           "embed_mds", "permutation_test", "PermutationResult", "Comparison",
-           "compare_diagrams", "load_results"]
+__all__ = ["bottleneck", "wasserstein", "wasserstein_bytes", "distance_matrix",
+           "check_comparable", "select_features", "PersistenceImageGrid", "image_grid",
+           "persistence_image", "betti_curves", "embed_mds", "distinct_groupings",
+           "permutation_test", "PermutationResult", "Comparison", "compare_diagrams",
+           "load_results"]
 
 METRICS = ("bottleneck", "wasserstein")
 ESSENTIAL_CHOICES = ("separate", "ignore")
 
+#: Per-pair flags written by voxtopo.significance, in the order they are looked for:
+#: ``significant`` (gray-value sweeps) and ``robust`` (distance sweeps).
+FLAG_COLUMNS = ("significant", "robust")
+
+#: summary.json section that states how each flag was computed.
+VERDICT_SECTIONS = {"significant": "significance", "robust": "robustness"}
+
+#: Peak memory of one gudhi Wasserstein call per cell of its (n + 1) x (m + 1) cost
+#: matrix. Measured as the rise of the peak resident memory of a fresh process (gudhi
+#: 3.13, POT 0.9.7, 250 thousand to 16 million cells, square and 60:1 diagrams): 39 to
+#: 42.5 bytes (the cost matrix, the differences it is built from, POT's transport plan);
+#: rounded up for what was not measured.
+WASSERSTEIN_BYTES_PER_CELL = 48
+
+WASSERSTEIN_REMEDY = ("keep fewer pairs with a larger --min-persistence, or use the "
+                      "bottleneck distance (--metric bottleneck), whose memory grows only "
+                      "with the number of pairs")
+
 
 # --- the two parts of one dimension of a diagram ------------------------------------------
-def _parts(diagram: Diagram, dim: int) -> tuple[np.ndarray, np.ndarray]:
-    """(finite (n, 2) birth/death array, sorted essential births) of dimension ``dim``."""
+def _check_dim(diagram: Diagram, dim: int) -> None:
     if not 0 <= dim < diagram.ndim:
         raise InputError(f"Dimension {dim} does not exist in a {diagram.ndim}D diagram "
                          f"of {diagram.source or 'a scan'}; choose from 0 to {diagram.ndim - 1}.")
+
+
+def _parts(diagram: Diagram, dim: int) -> tuple[np.ndarray, np.ndarray]:
+    """(finite (n, 2) birth/death array, sorted essential births) of dimension ``dim``,
+    mirrored for a superlevel diagram (for gudhi's distances only)."""
+    _check_dim(diagram, dim)
     intervals = diagram.intervals(dim)
     if diagram.superlevel:
         # gudhi measures the distance to the diagonal as (death - birth) / 2, so a
@@ -76,12 +115,20 @@ def _check_dims(dims) -> tuple[int, ...]:
 def check_comparable(diagrams) -> None:
     """Refuse diagrams that a distance cannot meaningfully relate.
 
-    All of them must sweep the same way (sublevel or superlevel) and hold the same kind
-    of values in the same unit (gray values, or distances in one physical unit).
+    All of them must come from scans of the same number of dimensions (2D or 3D), sweep
+    the same way (sublevel or superlevel) and hold the same kind of values in the same
+    unit (gray values, or distances in one physical unit). It reads only the diagrams'
+    descriptions, so callers run it before computing anything.
     """
     diagrams = list(diagrams)
     first = diagrams[0]
     for other in diagrams[1:]:
+        if other.ndim != first.ndim:
+            raise InputError(
+                f"{other.source or 'A diagram'} comes from a {other.ndim}D scan but "
+                f"{first.source or 'the first'} from a {first.ndim}D one, and their features "
+                f"(cavities exist only in 3D) cannot be matched; compare 2D scans with 2D "
+                f"scans and 3D with 3D.")
         if other.superlevel != first.superlevel:
             raise InputError(
                 f"{other.source or 'A diagram'} is a "
@@ -95,6 +142,107 @@ def check_comparable(diagrams) -> None:
                 f"{first.unit}; compare diagrams of the same kind of filtration.")
 
 
+# --- which pairs are compared --------------------------------------------------------------
+def _flag_of(diagram: Diagram) -> str | None:
+    """The flag column the diagram carries (``significant`` or ``robust``), if any."""
+    return next((flag for flag in FLAG_COLUMNS if flag in diagram.pairs.columns), None)
+
+
+def _check_min_persistence(min_persistence) -> float:
+    try:
+        value = float(min_persistence)
+    except (TypeError, ValueError):
+        value = math.nan
+    if not (math.isfinite(value) and value >= 0):
+        raise InputError(f"--min-persistence (the shortest lifetime kept) must be a number "
+                         f"of at least 0, got {min_persistence!r}.")
+    return value
+
+
+def select_features(diagram: Diagram, *, all_pairs: bool = False,
+                    min_persistence: float = 0.0) -> Diagram:
+    """The pairs of ``diagram`` that a comparison uses.
+
+    By default the finite pairs flagged ``significant`` (or ``robust``) and every class
+    that never dies, whatever its flag; a diagram without either column keeps all its
+    pairs. ``all_pairs=True`` keeps every pair. In both cases only finite pairs whose
+    persistence is above ``min_persistence`` stay.
+
+    Examples
+    --------
+    >>> import numpy as np, voxtopo
+    >>> d = voxtopo.persistence(np.array([[0., 9., 4., 9., 1.]]))
+    >>> len(d), len(select_features(d, min_persistence=6))
+    (3, 2)
+    """
+    min_persistence = _check_min_persistence(min_persistence)
+    pairs = diagram.pairs
+    never_dies = ~np.isfinite(pairs["death"].to_numpy(dtype=np.float64))
+    keep = never_dies | (pairs["persistence"].to_numpy(dtype=np.float64) > min_persistence)
+    flag = _flag_of(diagram)
+    if flag is not None and not all_pairs:
+        keep &= never_dies | pairs[flag].to_numpy(dtype=bool)
+    return replace(diagram, pairs=pairs[keep].reset_index(drop=True))
+
+
+def _level_of(diagram: Diagram, flag: str) -> str | None:
+    """How the flag was computed, from the verdict section load_results keeps in
+    ``diagram.extra`` ("family-wise alpha 0.05", "boundary tolerance 1 um")."""
+    section = diagram.extra.get(VERDICT_SECTIONS[flag]) or {}
+    if flag == "significant" and section.get("alpha") is not None:
+        return f"family-wise alpha {float(section['alpha']):g}"
+    if flag == "robust" and section.get("boundary_tolerance") is not None:
+        return (f"boundary tolerance {float(section['boundary_tolerance']):g} "
+                f"{section.get('unit', diagram.unit)}, stability theorem")
+    return None
+
+
+def _features_compared(diagrams, names, all_pairs: bool,
+                       min_persistence: float) -> tuple[str, list[str]]:
+    """The phrase that says which pairs were compared, and notes on older results."""
+    above = (f" with persistence above {min_persistence:g} {_value_unit(diagrams[0])}"
+             if min_persistence > 0 else "")
+    flags = [_flag_of(d) for d in diagrams]
+    if all_pairs:
+        return "all pairs" + above, [_only_flagged_note(d, name, flag) for d, name, flag
+                                     in zip(diagrams, names, flags)
+                                     if flag is not None and _holds_only_flagged(d, flag)]
+    unflagged = [name for name, flag in zip(names, flags) if flag is None]
+    notes = []
+    if unflagged:
+        one = len(unflagged) == 1
+        notes.append(f"{', '.join(unflagged)} {'has' if one else 'have'} no significance or "
+                     f"robustness flags (written by an older version, or computed without "
+                     f"them): compared with all {'its' if one else 'their'} pairs")
+    flagged = [(d, flag) for d, flag in zip(diagrams, flags) if flag is not None]
+    if not flagged:
+        return "all pairs" + above + " (no result carries significance or robustness flags)", \
+            notes
+    flag = flagged[0][1]
+    levels = {_level_of(d, flag) for d, _ in flagged}
+    how = (f"{'; '.join(sorted(levels))}, as computed per scan" if None not in levels
+           else "as flagged in each scan")
+    phrase = f"{flag} features ({how}){above}"
+    if unflagged:
+        phrase += f", and all pairs of {len(unflagged)} diagram(s) without flags"
+    return phrase, notes
+
+
+def _holds_only_flagged(diagram: Diagram, flag: str) -> bool:
+    finite = np.isfinite(diagram.pairs["death"].to_numpy(dtype=np.float64))
+    return bool(finite.any() and diagram.pairs[flag].to_numpy(dtype=bool)[finite].all())
+
+
+def _only_flagged_note(diagram: Diagram, name: str, flag: str) -> str:
+    return (f"every finite pair of {name} is flagged {flag} (a result folder keeps only those "
+            f"when its analysis kept only {flag} features), so all its pairs are its {flag} "
+            f"features")
+
+
+def _value_unit(diagram: Diagram) -> str:
+    return diagram.unit if diagram.values == "distance" else "gray value"
+
+
 def _finite_bottleneck(a: np.ndarray, b: np.ndarray) -> float:
     import gudhi
 
@@ -103,11 +251,35 @@ def _finite_bottleneck(a: np.ndarray, b: np.ndarray) -> float:
     return float(gudhi.bottleneck_distance(a.reshape(-1, 2), b.reshape(-1, 2)))
 
 
-def _finite_wasserstein(a: np.ndarray, b: np.ndarray, order: float) -> float:
+def wasserstein_bytes(n_first: int, n_second: int) -> int:
+    """Estimated peak memory, in bytes, of one Wasserstein call between ``n_first`` and
+    ``n_second`` finite pairs (see WASSERSTEIN_BYTES_PER_CELL).
+
+    Examples
+    --------
+    >>> wasserstein_bytes(999, 1999)
+    96000000
+    """
+    if n_first == 0 and n_second == 0:
+        return 0
+    return WASSERSTEIN_BYTES_PER_CELL * (int(n_first) + 1) * (int(n_second) + 1)
+
+
+def _ensure_wasserstein_fits(n_first: int, n_second: int, dim: int,
+                             fewer_features: str = "") -> None:
+    """Refuse one Wasserstein call that would not fit; ``fewer_features`` is the first
+    remedy when the comparison could keep fewer features ("compare ..., ")."""
+    ensure_fits(wasserstein_bytes(n_first, n_second),
+                f"The Wasserstein distance between {n_first:,} and {n_second:,} finite pairs "
+                f"of dimension {dim}", fewer_features + WASSERSTEIN_REMEDY)
+
+
+def _finite_wasserstein(a: np.ndarray, b: np.ndarray, order: float, dim: int) -> float:
     from gudhi.wasserstein import wasserstein_distance
 
     if len(a) == 0 and len(b) == 0:
         return 0.0
+    _ensure_wasserstein_fits(len(a), len(b), dim)
     return float(wasserstein_distance(a.reshape(-1, 2), b.reshape(-1, 2), order=order,
                                       internal_p=np.inf, keep_essential_parts=False))
 
@@ -183,7 +355,8 @@ def wasserstein(first: Diagram, second: Diagram, dims=(0,), *, order: float = 1.
     Notes
     -----
     The finite pairs go to ``gudhi.wasserstein.wasserstein_distance`` (optimal transport
-    through POT, L-infinity ground distance).
+    through POT, L-infinity ground distance). Each call is estimated first
+    (:func:`wasserstein_bytes`) and refused with a TooBigError when it would not fit.
 
     Examples
     --------
@@ -200,7 +373,7 @@ def wasserstein(first: Diagram, second: Diagram, dims=(0,), *, order: float = 1.
     for dim in _check_dims(dims):
         fin_a, ess_a = _parts(first, dim)
         fin_b, ess_b = _parts(second, dim)
-        total += _finite_wasserstein(fin_a, fin_b, order) ** order
+        total += _finite_wasserstein(fin_a, fin_b, order, dim) ** order
         if essential == "separate":
             if len(ess_a) != len(ess_b):
                 return math.inf
@@ -223,6 +396,8 @@ def distance_matrix(diagrams, dims=(0,), *, metric: str = "bottleneck", order: f
         raise InputError(f"metric should be one of {list(METRICS)}, got {metric!r}.")
     diagrams = list(diagrams)
     check_comparable(diagrams)
+    if metric == "wasserstein":
+        _check_wasserstein_memory(diagrams, _check_dims(dims))
     n = len(diagrams)
     matrix = np.zeros((n, n))
     for i in range(n):
@@ -255,13 +430,18 @@ class PersistenceImageGrid:
         return {"birth_range": [float(self.birth_edges[0]), float(self.birth_edges[-1])],
                 "persistence_range": [float(self.persistence_edges[0]),
                                       float(self.persistence_edges[-1])],
-                "resolution": [len(self.persistence_edges) - 1, len(self.birth_edges) - 1],
-                "sigma": self.sigma, "weight": "linear ramp min(persistence / "
-                f"{self.weight_ramp:.6g}, 1)", "weight_ramp": self.weight_ramp}
+                "pixels_persistence_by_birth": [len(self.persistence_edges) - 1,
+                                                len(self.birth_edges) - 1],
+                "spread_of_each_pair": f"Gaussian, standard deviation {self.sigma:.6g}",
+                "weight": f"min(persistence / {self.weight_ramp:.6g}, 1)"}
 
 
 def _birth_persistence(diagram: Diagram, dim: int) -> np.ndarray:
-    finite, _ = _parts(diagram, dim)
+    """(n, 2) real birth values and persistences of the finite pairs of ``dim`` (a
+    superlevel diagram keeps its own births here, unlike the mirrored :func:`_parts`)."""
+    _check_dim(diagram, dim)
+    intervals = diagram.intervals(dim)
+    finite = intervals[np.isfinite(intervals[:, 1])]
     return np.column_stack([finite[:, 0], np.abs(finite[:, 1] - finite[:, 0])])
 
 
@@ -419,6 +599,29 @@ def embed_mds(matrix, *, seed: int = 0) -> np.ndarray:
     return MDS(**options).fit_transform(matrix)
 
 
+def distinct_groupings(group_sizes) -> int:
+    """How many different ways there are to split the diagrams into groups of these sizes.
+
+    The test statistic ignores the names of the groups, so relabellings that only swap
+    two groups of equal size give the same grouping: with n diagrams in groups of sizes
+    n_g, and m_k groups of size k, there are n! / (prod_g n_g! * prod_k m_k!).
+
+    Examples
+    --------
+    >>> distinct_groupings([3, 3]), distinct_groupings([2, 2, 2]), distinct_groupings([5, 1])
+    (10, 15, 6)
+    """
+    sizes = [int(size) for size in group_sizes]
+    if not sizes or min(sizes) < 1:
+        raise InputError(f"Group sizes must be positive whole numbers, got {list(group_sizes)}.")
+    count = math.factorial(sum(sizes))
+    for size in sizes:
+        count //= math.factorial(size)
+    for groups_of_that_size in Counter(sizes).values():
+        count //= math.factorial(groups_of_that_size)
+    return count
+
+
 @dataclass(frozen=True)
 class PermutationResult:
     """Outcome of :func:`permutation_test`."""
@@ -427,14 +630,32 @@ class PermutationResult:
     p_value: float
     n_permutations: int
     seed: int
+    distinct_groupings: int
     groups: dict = field(default_factory=dict)
+
+    @property
+    def smallest_p_value(self) -> float:
+        """About the smallest p-value this test can give: no fewer than one in
+        ``distinct_groupings`` relabellings is as extreme as the observed one (it is
+        among them), and the Monte Carlo estimate cannot go below 1 / (1 + permutations)."""
+        return max(1.0 / self.distinct_groupings, 1.0 / (1 + self.n_permutations))
+
+    def resolution(self) -> str:
+        """The limit of the test in words."""
+        sizes = " and ".join(str(n) for n in self.groups.values())
+        return (f"group sizes {sizes} allow {self.distinct_groupings:,} distinct groupings "
+                f"and {self.n_permutations:,} permutations were drawn, so no p-value below "
+                f"about {self.smallest_p_value:.3g} can occur")
 
     def description(self) -> dict:
         return {"statistic": "mean between-group distance minus mean within-group distance",
                 "observed": self.statistic, "p_value": self.p_value,
-                "n_permutations": self.n_permutations, "seed": self.seed,
+                "permutations": self.n_permutations, "seed": self.seed,
                 "p_value_formula": "(1 + #{permuted >= observed}) / (1 + permutations)",
-                "groups": self.groups}
+                "group_sizes": self.groups,
+                "distinct_groupings": self.distinct_groupings,
+                "smallest_p_value_reachable": self.smallest_p_value,
+                "resolution": self.resolution()}
 
 
 def _between_minus_within(matrix: np.ndarray, codes: np.ndarray) -> float:
@@ -452,7 +673,13 @@ def permutation_test(matrix, groups, *, n_permutations: int = 999,
     distance between members of the same group; the group labels are shuffled
     ``n_permutations`` times with a seeded generator and the p-value is
     (1 + number of shuffles with a statistic >= the observed one) / (1 + n_permutations),
-    which never reports an impossible p = 0.
+    which never reports an impossible p = 0. With few diagrams the test is coarse: only
+    :func:`distinct_groupings` different groupings exist, so p cannot fall much below one
+    over their number (the result's ``smallest_p_value``).
+
+    References
+    ----------
+    Besag & Clifford (1989), "Generalized Monte Carlo significance tests", Biometrika 76.
 
     Examples
     --------
@@ -480,7 +707,7 @@ def permutation_test(matrix, groups, *, n_permutations: int = 999,
     exceed = sum(_between_minus_within(matrix, rng.permutation(codes)) >= observed - 1e-12
                  for _ in range(n_permutations))
     return PermutationResult(observed, (1 + exceed) / (1 + n_permutations),
-                             int(n_permutations), int(seed),
+                             int(n_permutations), int(seed), distinct_groupings(counts),
                              dict(zip(labels.tolist(), counts.tolist())))
 
 
@@ -495,7 +722,11 @@ class Comparison:
     metric: str
     order: float
     essential: str
-    matrices: dict          # (metric, dim or "all") -> (n, n) array
+    features: str           # which pairs were compared, in words
+    min_persistence: float
+    unit: str               # of births, deaths and persistences
+    pairs_compared: list    # per diagram: {dim: number of pairs compared}
+    matrices: dict          # (metric, dim or "all") -> (n, n) array, chosen metric only
     images: dict            # dim -> (n, rows, cols) array
     grids: dict             # dim -> PersistenceImageGrid
     curves: pd.DataFrame
@@ -508,8 +739,14 @@ class Comparison:
         """The distance matrix used for the embedding and the test."""
         return self.matrices[(self.metric, "all")]
 
+    @property
+    def distance(self) -> str:
+        """The distance in words: "bottleneck" or "Wasserstein, order q"."""
+        return "bottleneck" if self.metric == "bottleneck" else \
+            f"Wasserstein, order {self.order:g}"
+
     def distance_table(self) -> pd.DataFrame:
-        """One row per pair of diagrams, one column per metric and dimension."""
+        """One row per pair of diagrams, one column per dimension (and all together)."""
         rows = []
         n = len(self.names)
         for i in range(n):
@@ -522,16 +759,30 @@ class Comparison:
                 rows.append(row)
         return pd.DataFrame(rows)
 
+    def settings(self) -> dict:
+        """The settings of the comparison in plain words (keys of summary.json)."""
+        return {
+            "features_compared": self.features,
+            "min_persistence": self.min_persistence,
+            "dimensions_compared": list(self.dims),
+            "distance": self.distance,
+            "other_distance": "not computed: only the chosen distance is (run again with "
+                              "the other --metric for it)",
+            "classes_that_never_die": ("matched among themselves by sorted birth; a "
+                                       "different number of them gives an infinite distance")
+            if self.essential == "separate" else "left out of the distances",
+            "over_several_dimensions": "the largest distance of any one dimension"
+            if self.metric == "bottleneck" else
+            f"the {self.order:g}-norm of the distances of each dimension",
+            "unit_of_values": self.unit,
+        }
+
     def summary(self) -> dict:
         return {
-            "diagrams": [{"name": n, "group": g} for n, g in zip(self.names, self.groups)],
-            "dimensions": list(self.dims), "metric": self.metric,
-            "wasserstein_order": self.order,
-            "essential_classes": ("matched among themselves by sorted birth; a different "
-                                  "count gives an infinite distance") if self.essential
-            == "separate" else "left out",
-            "combining_dimensions": "bottleneck: largest per-dimension distance; "
-                                    "Wasserstein: q-norm of per-dimension distances",
+            "diagrams": [{"name": n, "group": g, "pairs_compared": {str(d): c for d, c in
+                                                                     pairs.items()}}
+                         for n, g, pairs in zip(self.names, self.groups, self.pairs_compared)],
+            **self.settings(),
             "persistence_images": {str(d): g.description() for d, g in self.grids.items()},
             "permutation_test": self.test.description() if self.test else None,
             "notes": list(self.notes),
@@ -540,10 +791,6 @@ class Comparison:
     def save(self, folder) -> None:
         """Write distances.csv, distance_matrix.csv, betti_curves.csv,
         persistence_images.npz, embedding.csv and summary.json into ``folder``."""
-        from pathlib import Path
-
-        from .io.results import write_summary
-
         folder = Path(folder)
         self.distance_table().to_csv(folder / "distances.csv", index=False,
                                      float_format="%.10g")
@@ -560,9 +807,27 @@ class Comparison:
         write_summary(folder, self.summary())
 
 
+def _combined(per_dimension: list, metric: str, order: float) -> np.ndarray:
+    """Distances over several dimensions from those of each (a matching never mixes
+    dimensions): the largest for bottleneck, the q-norm for Wasserstein."""
+    stacked = np.stack(per_dimension)
+    if metric == "bottleneck":
+        return stacked.max(axis=0)
+    return np.sum(stacked ** order, axis=0) ** (1.0 / order)
+
+
+def _check_wasserstein_memory(diagrams, dims, fewer_features: str = "") -> None:
+    """Refuse before the first call when the two largest diagrams of a dimension would
+    not fit (every other pair of diagrams needs less)."""
+    for dim in dims:
+        largest = sorted(len(_parts(d, dim)[0]) for d in diagrams)[-2:]
+        _ensure_wasserstein_fits(largest[0], largest[1], dim, fewer_features)
+
+
 def compare_diagrams(diagrams, names=None, groups=None, *, dims=(0, 1),
                      metric: str = "bottleneck", order: float = 1.0,
-                     essential: str = "separate", resolution: int = 20,
+                     essential: str = "separate", all_pairs: bool = False,
+                     min_persistence: float = 0.0, resolution: int = 20,
                      sigma: float | None = None, levels: int = 128,
                      n_permutations: int = 999, seed: int = 0) -> Comparison:
     """Distances, vectorisations, embedding and group test for a set of diagrams.
@@ -575,12 +840,28 @@ def compare_diagrams(diagrams, names=None, groups=None, *, dims=(0, 1),
     dims : sequence of int
         Homological dimensions to compare.
     metric : {"bottleneck", "wasserstein"}
-        The distance that feeds the embedding and the test (both are always computed).
+        The distance computed; it feeds the embedding and the test. The other one is not
+        computed (a Wasserstein run would need memory in the product of the numbers of
+        pairs even when the bottleneck distance was asked for).
     order, essential : see :func:`wasserstein` and :func:`bottleneck`.
+    all_pairs : bool
+        False (default): the significant (or robust) features of each diagram and every
+        class that never dies (see :func:`select_features`); True: every pair.
+    min_persistence : float
+        Leave out finite pairs that live no longer than this (values' unit).
     resolution, sigma : persistence image grid (see :func:`image_grid`).
     levels : int
         Number of levels of the common Betti-curve grid.
     n_permutations, seed : see :func:`permutation_test`.
+
+    Raises
+    ------
+    InputError
+        Diagrams that cannot be compared (2D against 3D, other sweeps or values), before
+        anything is computed.
+    TooBigError
+        A Wasserstein distance whose estimated memory exceeds the budget, before any is
+        computed.
 
     Examples
     --------
@@ -588,8 +869,8 @@ def compare_diagrams(diagrams, names=None, groups=None, *, dims=(0, 1),
     >>> rng = np.random.default_rng(1)
     >>> ds = [voxtopo.persistence(rng.random((12, 12))) for _ in range(4)]
     >>> c = compare_diagrams(ds, groups=["a", "a", "b", "b"], n_permutations=19)
-    >>> c.matrix.shape, 0 < c.test.p_value <= 1
-    ((4, 4), True)
+    >>> c.matrix.shape, 0 < c.test.p_value <= 1, c.features
+    ((4, 4), True, 'all pairs (no result carries significance or robustness flags)')
     """
     diagrams = list(diagrams)
     if len(diagrams) < 2:
@@ -601,31 +882,42 @@ def compare_diagrams(diagrams, names=None, groups=None, *, dims=(0, 1),
     if groups is not None and len(groups) != len(diagrams):
         raise InputError(f"There are {len(groups)} group labels for {len(diagrams)} "
                          f"diagrams; give one label per diagram.")
+    if metric not in METRICS:
+        raise InputError(f"metric should be one of {list(METRICS)}, got {metric!r}.")
+    _check_essential(essential)
     dims = _check_dims(dims)
     check_comparable(diagrams)
     for d in diagrams:
         for dim in dims:
-            _parts(d, dim)
-    matrices = {}
-    for name in METRICS:
-        for dim in dims:
-            matrices[(name, dim)] = distance_matrix(diagrams, (dim,), metric=name, order=order,
-                                                    essential=essential)
-        matrices[(name, "all")] = distance_matrix(diagrams, dims, metric=name, order=order,
-                                                  essential=essential)
-    if metric not in METRICS:
-        raise InputError(f"metric should be one of {list(METRICS)}, got {metric!r}.")
+            _check_dim(d, dim)
+    min_persistence = _check_min_persistence(min_persistence)
+    features, notes = _features_compared(diagrams, names, all_pairs, min_persistence)
+    if all_pairs:
+        fewer_features = "compare the significant (or robust) features only (leave out " \
+                         "--all-pairs), "
+    elif any(_flag_of(d) is None for d in diagrams):
+        fewer_features = "analyse the scans again so that their significant features are " \
+                         "flagged and only those are compared, "
+    else:
+        fewer_features = ""
+    diagrams = [select_features(d, all_pairs=all_pairs, min_persistence=min_persistence)
+                for d in diagrams]
+    if metric == "wasserstein":
+        _check_wasserstein_memory(diagrams, dims, fewer_features)
+    matrices = {(metric, dim): distance_matrix(diagrams, (dim,), metric=metric, order=order,
+                                               essential=essential) for dim in dims}
+    matrices[(metric, "all")] = _combined([matrices[(metric, dim)] for dim in dims],
+                                          metric, order)
     grids = {dim: image_grid(diagrams, dim, resolution=resolution, sigma=sigma)
              for dim in dims}
     images = {dim: np.stack([persistence_image(d, dim, grids[dim]) for d in diagrams])
               for dim in dims}
     curves = betti_curves(diagrams, names, levels)
     chosen = matrices[(metric, "all")]
-    notes = []
     embedding = test = None
     if not np.isfinite(chosen).all():
-        notes.append("some distances are infinite (different numbers of essential classes): "
-                     "no embedding and no permutation test; use essential='ignore'")
+        notes.append("some distances are infinite (different numbers of classes that never "
+                     "die): no embedding and no permutation test; use essential='ignore'")
     else:
         if len(diagrams) >= 3:
             embedding = embed_mds(chosen, seed=seed)
@@ -641,31 +933,61 @@ def compare_diagrams(diagrams, names=None, groups=None, *, dims=(0, 1),
                              "groups and one with two or more members)")
     return Comparison(names, [str(g) for g in groups] if groups is not None
                       else [""] * len(diagrams), dims, metric, float(order), essential,
-                      matrices, images, grids, curves, embedding, test, notes)
+                      features, min_persistence, _value_unit(diagrams[0]),
+                      [{dim: int((d.pairs["dim"] == dim).sum()) for dim in dims}
+                       for d in diagrams], matrices, images, grids, curves, embedding, test,
+                      notes)
 
 
 # --- reading result folders -------------------------------------------------------------
-def load_results(paths, group_column: str = "group"):
+def _load_result(folder: Path) -> Diagram:
+    """The diagram of one result folder with its flag column and, in ``extra``, the
+    summary.json section that says how the flag was computed."""
+    diagram = Diagram.load(folder)
+    header = pd.read_csv(folder / "pairs.csv", nrows=0).columns
+    flag = next((c for c in FLAG_COLUMNS if c in header), None)
+    if flag is None:
+        return diagram
+    pairs = diagram.pairs
+    if flag not in pairs.columns:   # Diagram.load keeps only the columns it knows
+        pairs = pairs.assign(**{flag: pd.read_csv(folder / "pairs.csv", usecols=[flag])[flag]
+                                .astype(bool).to_numpy()})
+    section = read_summary(folder).get(VERDICT_SECTIONS[flag]) or {}
+    return replace(diagram, pairs=pairs,
+                   extra={**diagram.extra, VERDICT_SECTIONS[flag]: section})
+
+
+def load_results(paths, group_column: str | None = None):
     """Diagrams, names and groups from result folders and batch folders.
 
     A result folder (pairs.csv + summary.json) gives one diagram named after the folder and
     grouped by the name of the folder that holds it (``results/treated/s1`` is in group
     "treated"). A batch folder (summary.csv + scans/) gives every complete scan in it,
-    named and grouped by its summary.csv (``name`` and ``group_column`` columns).
+    named and grouped by its summary.csv (``name`` and ``group_column`` columns, "group"
+    when not given; a ``group_column`` without a batch folder is refused, as it would
+    change nothing). The ``significant`` or ``robust`` column of pairs.csv, when there,
+    comes along, so that :func:`compare_diagrams` can keep the features it flags.
 
     Returns
     -------
     (list of Diagram, list of str, list of str)
     """
-    from pathlib import Path
-
-    diagrams, names, groups = [], [], []
+    paths = [Path(path) for path in paths]
     for path in paths:
-        path = Path(path)
         if not path.is_dir():
             raise InputError(f"{path} is not a folder; give result folders written by "
                              f"voxtopo analyse or a batch folder written by voxtopo batch.")
-        if (path / "summary.csv").is_file() and (path / "scans").is_dir():
+    batches = [(path / "summary.csv").is_file() and (path / "scans").is_dir()
+               for path in paths]
+    if group_column is not None and not any(batches):
+        raise InputError(f"--group-column {group_column} names a column of a batch folder's "
+                         f"summary.csv, but none of the folders given is a batch folder; "
+                         f"leave it out (result folders are grouped by the folder holding "
+                         f"them).")
+    group_column = group_column or "group"
+    diagrams, names, groups = [], [], []
+    for path, is_batch in zip(paths, batches):
+        if is_batch:
             table = pd.read_csv(path / "summary.csv", dtype=str, keep_default_na=False)
             if group_column not in table.columns and group_column != "group":
                 raise InputError(f"{path / 'summary.csv'} has no column {group_column!r}; "
@@ -673,11 +995,11 @@ def load_results(paths, group_column: str = "group"):
             for _, row in table.iterrows():
                 folder = path / "scans" / row["name"]
                 if (folder / "pairs.csv").is_file():
-                    diagrams.append(Diagram.load(folder))
+                    diagrams.append(_load_result(folder))
                     names.append(row["name"])
                     groups.append(row.get(group_column, ""))
         else:
-            diagrams.append(Diagram.load(path))
+            diagrams.append(_load_result(path))
             names.append(path.name)
             groups.append(path.resolve().parent.name)
     return diagrams, names, groups

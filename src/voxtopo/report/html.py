@@ -12,6 +12,7 @@ import base64
 import math
 from dataclasses import dataclass
 from datetime import datetime, timezone
+from functools import partial
 from pathlib import Path
 
 import numpy as np
@@ -21,7 +22,8 @@ from ..io.results import read_summary, software_versions, write_summary
 from ._text import literal
 
 __all__ = ["write_report", "write_batch_report", "write_comparison", "render",
-           "plot_distance_heatmap", "plot_embedding", "CAUTIONS", "software_versions"]
+           "plot_distance_heatmap", "plot_embedding", "plot_betti_curves",
+           "plot_persistence_images", "CAUTIONS", "software_versions"]
 
 TEMPLATES = Path(__file__).parent / "templates"
 
@@ -352,46 +354,124 @@ def plot_embedding(embedding, names, groups):
     return figure
 
 
+def _group_legend(ax, colours: dict) -> None:
+    from matplotlib.lines import Line2D
+
+    handles = [Line2D([], [], color=colour, linewidth=2) for colour in colours.values()]
+    ax.legend(handles, [group or "no group" for group in colours], frameon=False, fontsize=8)
+
+
+def plot_betti_curves(comparison):
+    """Betti curves of a comparison: one panel per dimension compared, one line per
+    diagram coloured by its group. Returns the Figure."""
+    import matplotlib.pyplot as plt
+
+    dims = comparison.dims
+    figure, axes = plt.subplots(1, len(dims), figsize=(4.2 * len(dims) + 0.8, 3.6),
+                                constrained_layout=True, squeeze=False)
+    colours = _colours(comparison.groups)
+    curves = comparison.curves
+    for ax, dim in zip(axes[0], dims):
+        for name, group in zip(comparison.names, comparison.groups):
+            rows = curves[curves["name"] == name]
+            ax.plot(rows["level"].to_numpy(), rows[f"betti_{dim}"].to_numpy(),
+                    color=colours[str(group)], linewidth=1.1, alpha=0.85)
+        levels = curves["level"].to_numpy()
+        if len(levels) > 1 and levels[1] < levels[0]:
+            ax.invert_xaxis()      # a superlevel sweep reads from high to low values
+        ax.set_title(_DIM_WORDS.get(str(dim), f"dimension {dim}"), fontsize=10)
+        ax.set_xlabel(f"level ({comparison.unit})")
+        ax.set_ylabel("Betti number")
+        for side in ("top", "right"):
+            ax.spines[side].set_visible(False)
+    _group_legend(axes[0][-1], colours)
+    return figure
+
+
+def plot_persistence_images(comparison):
+    """Mean persistence image of each group (rows) in each dimension compared (columns),
+    on the comparison's common grid with real birth values. Returns the Figure."""
+    import matplotlib.pyplot as plt
+
+    groups = sorted(set(map(str, comparison.groups)))
+    dims = comparison.dims
+    figure, axes = plt.subplots(len(groups), len(dims),
+                                figsize=(3.8 * len(dims) + 0.8, 3.0 * len(groups) + 0.4),
+                                constrained_layout=True, squeeze=False)
+    for row, group in enumerate(groups):
+        members = [i for i, g in enumerate(comparison.groups) if str(g) == group]
+        for col, dim in enumerate(dims):
+            ax, grid = axes[row][col], comparison.grids[dim]
+            mean = comparison.images[dim][members].mean(axis=0)
+            shown = ax.imshow(mean, origin="lower", aspect="auto", cmap="cividis",
+                              extent=(grid.birth_edges[0], grid.birth_edges[-1],
+                                      grid.persistence_edges[0], grid.persistence_edges[-1]))
+            figure.colorbar(shown, ax=ax, shrink=0.85)
+            ax.set_title(f"{group or 'all diagrams'} ({len(members)}) · "
+                         f"{_DIM_WORDS.get(str(dim), f'dimension {dim}')}", fontsize=9)
+            ax.set_xlabel(f"birth ({comparison.unit})")
+            ax.set_ylabel(f"persistence ({comparison.unit})")
+    return figure
+
+
+def _words(mapping: dict) -> dict:
+    """summary.json keys as the report shows them: "dimensions_compared" ->
+    "dimensions compared"."""
+    return {str(key).replace("_", " "): value for key, value in mapping.items()}
+
+
 def write_comparison(comparison, out, *, force: bool = False, inputs=()) -> Path:
-    """Write a comparison folder: tables (see ``Comparison.save``), heatmap.png, mds.png
-    and report.html, atomically (nothing is left behind on an error). ``inputs`` are the
-    result folders compared, which the output may not be nor contain."""
+    """Write a comparison folder: tables (see ``Comparison.save``), heatmap.png, mds.png,
+    betti_curves.png, persistence_images.png and report.html, atomically (nothing is left
+    behind on an error). ``inputs`` are the result folders compared, which the output may
+    not be nor contain."""
+    import matplotlib.pyplot as plt
+
     from ..io import result_folder
 
+    dims = ", ".join(map(str, comparison.dims))
+    heatmap_caption = (f"{comparison.distance.capitalize()} distances over dimensions {dims}, "
+                       f"ordered by group ({comparison.features}).")
+    curves_caption = (f"Betti curves of every diagram on one common grid of levels, coloured "
+                      f"by group ({comparison.features}).")
+    images_caption = ("Mean persistence image of each group, per dimension: where the "
+                      "features are born (across) and how long they live (up).")
+    plots = [("heatmap.png", partial(plot_distance_heatmap, comparison.matrix, comparison.names,
+                                     comparison.groups, title=f"{comparison.distance} distance"),
+              heatmap_caption)]
+    if comparison.embedding is not None:
+        plots.append(("mds.png", partial(plot_embedding, comparison.embedding, comparison.names,
+                                         comparison.groups),
+                      "Metric MDS of the distance matrix, coloured by group."))
+    plots.append(("betti_curves.png", partial(plot_betti_curves, comparison), curves_caption))
+    plots.append(("persistence_images.png", partial(plot_persistence_images, comparison),
+                  images_caption))
     with result_folder(out, force=force, inputs=inputs) as tmp:
         comparison.save(tmp)
         images = []
-        heat = plot_distance_heatmap(comparison.matrix, comparison.names, comparison.groups,
-                                     title=f"{comparison.metric} distance")
-        heat.savefig(tmp / "heatmap.png", dpi=110)
-        images.append({"data": _png(tmp / "heatmap.png"),
-                       "caption": f"{comparison.metric.capitalize()} distances over dimensions "
-                                  f"{', '.join(map(str, comparison.dims))}, ordered by group."})
-        import matplotlib.pyplot as plt
-
-        plt.close(heat)
-        if comparison.embedding is not None:
-            embed = plot_embedding(comparison.embedding, comparison.names, comparison.groups)
-            embed.savefig(tmp / "mds.png", dpi=110)
-            plt.close(embed)
-            images.append({"data": _png(tmp / "mds.png"),
-                           "caption": "Metric MDS of the distance matrix, coloured by group."})
+        for name, draw, caption in plots:
+            figure = draw()
+            figure.savefig(tmp / name, dpi=110)
+            plt.close(figure)
+            images.append({"data": _png(tmp / name), "caption": caption})
         summary = comparison.summary()
         summary["cautions"] = list(CAUTIONS)
         write_summary(tmp, summary)
-        test = comparison.test.description() if comparison.test else None
+        test = _words(comparison.test.description()) if comparison.test else None
         reason = "; ".join(comparison.notes) or "no groups were given"
-        members = pd.DataFrame({"name": comparison.names, "group": comparison.groups})
-        settings = {"dimensions": list(comparison.dims), "metric": comparison.metric,
-                    "Wasserstein order": comparison.order,
-                    "essential classes": summary["essential_classes"],
-                    "combining dimensions": summary["combining_dimensions"]}
+        members = pd.DataFrame({"name": comparison.names, "group": comparison.groups,
+                                **{f"pairs compared, dimension {dim}":
+                                   [pairs[dim] for pairs in comparison.pairs_compared]
+                                   for dim in comparison.dims}})
+        settings = _words(comparison.settings())
         for dim, grid in comparison.grids.items():
-            settings[f"persistence image, dimension {dim}"] = grid.description()
+            settings[f"persistence image, dimension {dim}"] = _words(grid.description())
         html = render("compare.html", title="Comparison of persistence diagrams",
-                      subtitle=f"{len(comparison.names)} diagrams · {comparison.metric} distance",
-                      members=Table.of(members), images=images, test=test,
-                      no_test_reason=reason, distances=Table.of(comparison.distance_table()),
-                      settings=settings, notes=comparison.notes)
+                      subtitle=f"{len(comparison.names)} diagrams · {comparison.distance} "
+                               f"distance · {comparison.features}",
+                      features=comparison.features, members=Table.of(members), images=images,
+                      test=test, no_test_reason=reason,
+                      distances=Table.of(comparison.distance_table()), settings=settings,
+                      notes=comparison.notes)
         (tmp / "report.html").write_text(html, encoding="utf-8")
     return Path(out)
