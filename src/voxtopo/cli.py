@@ -214,6 +214,9 @@ def _add_pores(subparsers) -> None:
                    help="segment a gray scan: pores at or below VALUE, or Otsu's threshold")
     s.add_argument("--pores-bright", action="store_true",
                    help="with --threshold: pores are the voxels above it")
+    s.add_argument("--roi", metavar="MASKFILE",
+                   help="region of interest: a binary mask on the scan's grid, 1 = sample; "
+                        "voxels outside it are neither pore nor solid")
     m = p.add_argument_group("measurement")
     m.add_argument("--axis", choices=["z", "y", "x"], action="append",
                    help="axis for percolation and connected porosity (repeat for several; "
@@ -221,9 +224,9 @@ def _add_pores(subparsers) -> None:
     m.add_argument("--neighbourhood", "--neighborhood", type=int, choices=[26, 6, 8, 4],
                    help="connectivity of the pore phase: 26 or 6 in 3D, 8 or 4 in 2D "
                         "(default 26/8); the solid takes the complementary 6/4")
-    m.add_argument("--min-lifetime", type=float, metavar="LENGTH",
-                   help="merge pores whose body exceeds their throat by no more than this "
-                        "(default half a voxel)")
+    m.add_argument("--min-persistence", type=float, metavar="LENGTH",
+                   help="the shortest lifetime kept: merge pores whose body exceeds their "
+                        "throat by no more than this (default half a voxel)")
     m.add_argument("--engine", choices=["auto", "voxtopo", "gudhi"], default="auto",
                    help="persistence engine (the diagram is the same)")
     add_load_options(p)
@@ -233,7 +236,7 @@ def _add_pores(subparsers) -> None:
 def _run_pores(args) -> int:
     from .io import load
     from .io.results import check_target
-    from .porosity import analyse, write_pores
+    from .porosity import analyse, summary_lines, write_pores
     threshold = _threshold_value(args.threshold)
     if args.mask and (threshold is not None or args.label is not None):
         raise VoxtopoError("--mask already says which voxels are pores; leave out "
@@ -241,29 +244,29 @@ def _run_pores(args) -> int:
     check_target(args.out, args.force)
     load_options = load_options_from(args)
     scan = load(args.scan, **load_options)
-    target = scan
-    if args.mask:
-        target = load(args.mask, **load_options)
-        if target.shape != scan.shape:
-            raise VoxtopoError(f"The mask {args.mask} has shape {target.shape} but the scan "
-                               f"{args.scan} has shape {scan.shape}; give a mask of the same "
-                               f"scan.")
-        target = target.with_data(target.data, spacing=scan.spacing, unit=scan.unit)
+
+    def same_grid(path, what):
+        other = load(path, **load_options)
+        if other.shape != scan.shape:
+            raise VoxtopoError(f"The {what} {path} has shape {other.shape} but the scan "
+                               f"{args.scan} has shape {scan.shape}; give a {what} of the "
+                               f"same scan.")
+        return other.with_data(other.data, spacing=scan.spacing, unit=scan.unit)
+
+    target = same_grid(args.mask, "mask") if args.mask else scan
+    roi = same_grid(args.roi, "region of interest") if args.roi else None
     bar = ProgressBar()
     try:
         analysis = analyse(target, threshold=threshold, pores_bright=args.pores_bright,
-                           label=args.label, axis=args.axis, neighbourhood=args.neighbourhood,
-                           min_lifetime=args.min_lifetime, engine=args.engine, progress=bar)
+                           label=args.label, roi=roi, axis=args.axis,
+                           neighbourhood=args.neighbourhood,
+                           min_persistence=args.min_persistence, engine=args.engine,
+                           progress=bar)
         write_pores(args.out, analysis, scan, force=args.force)
     finally:
         bar.close()
-    summary = analysis.summary
-    unit = summary["unit"]
-    flow = ", ".join(f"{a}: {'yes' if summary['percolates'][a] else 'no'} "
-                     f"(r = {summary['percolation_radius'][a]:.4g} {unit})"
-                     for a in summary["percolates"])
-    print(f"voxtopo: porosity {summary['porosity']:.4f}, {summary['counts']['pores']} pores "
-          f"({summary['counts']['pores_at_border']} at the border); percolates {flow}")
+    for line in summary_lines(analysis.summary):
+        print(f"voxtopo: {line}")
     print(f"voxtopo: results written to {args.out} (research use only)")
     return 0
 

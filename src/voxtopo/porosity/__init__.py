@@ -12,10 +12,11 @@ result folder.
 >>> cavity[5:11, 5:11, 5:11] = True                   # one closed pore in solid
 >>> result = analyse(cavity, spacing=(2.0, 2.0, 2.0), unit="um")
 >>> result.summary["counts"]["pores"], result.summary["percolates"]["x"]
-(1, False)
+(1, 'no')
 """
 
-from ._analysis import COMPLEMENT, PoreAnalysis, analyse, cautions
-from ._write import write_pores
+from ._analysis import COMPLEMENT, PoreAnalysis, analyse, cautions, size_column
+from ._write import summary_lines, write_pores
 
-__all__ = ["analyse", "write_pores", "PoreAnalysis", "cautions", "COMPLEMENT"]
+__all__ = ["analyse", "write_pores", "PoreAnalysis", "cautions", "COMPLEMENT", "size_column",
+           "summary_lines"]

@@ -247,12 +247,16 @@ def percolation_step(order, shape, axis, neighbourhood, python=False) -> int:
                                    np.array(shape3, dtype=np.int64), axis3, offsets))
 
 
-def basins(order, values, shape, neighbourhood, query_voxel, query_level, python=False):
-    """(size, own, border) of each query's basin; queries must be sorted by level."""
+def basins(order, values, shape, neighbourhood, query_voxel, query_level, python=False,
+           edge=None):
+    """(size, own, border) of each query's basin; queries must be sorted by level.
+
+    ``edge``: flat bool array of the voxels that count as border (default: the scan's outer
+    layer, :func:`border_voxels`); a region of interest adds its own rim."""
     shape3 = as_3d_shape(shape)
     offsets = neighbour_offsets(neighbourhood)
     flat_values = np.ascontiguousarray(values.ravel(), dtype=np.float64)
-    on_border = border_voxels(shape)
+    on_border = border_voxels(shape) if edge is None else np.ascontiguousarray(edge.ravel())
     query_voxel = np.ascontiguousarray(query_voxel, dtype=np.int64)
     query_level = np.ascontiguousarray(query_level, dtype=np.float64)
     if python:
