@@ -73,6 +73,8 @@ class PoreAnalysis:
         (None when the axis does not percolate).
     sample : ndarray of bool or None
         The region of interest (None: the whole scan).
+    pore_rows : ndarray of int
+        For each row of ``pores`` (same order), its row in ``diagram.pairs``.
     """
 
     pores: pd.DataFrame
@@ -86,6 +88,7 @@ class PoreAnalysis:
     distance: Scan
     critical_throats: dict = field(default_factory=dict)
     sample: np.ndarray | None = None
+    pore_rows: np.ndarray | None = None
 
 
 # ------------------------------------------------------------------------------- input
@@ -111,6 +114,18 @@ def _binary_foreground(data: np.ndarray):
     # 8-bit masks from image editors mark the foreground 255
     foreground = 255 if data.dtype == np.uint8 and not (data == 1).any() else 1
     return foreground if np.logical_or(data == 0, data == foreground).all() else None
+
+
+def is_binary_mask(data: np.ndarray) -> bool:
+    """True for a binary mask as :func:`analyse` reads one: bool, 0/1, or 0/255 in 8 bits.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> is_binary_mask(np.array([0, 255], np.uint8)), is_binary_mask(np.array([0, 2]))
+    (True, False)
+    """
+    return _binary_foreground(np.asarray(data)) is not None
 
 
 def pore_mask(scan: Scan, *, threshold=None, pores_bright=False, label=None):
@@ -353,10 +368,20 @@ def _phase_table(pairs: pd.DataFrame, depth: np.ndarray, phase: np.ndarray, neig
     table["lifetime"] = deaths - births
     table[size_column(ndim, body)] = feats["own_size"]
     table["isolated"] = isolated
+    # the birth voxel's indices beside its physical position: the key to the regions
+    birth_index = np.unravel_index(np.maximum(birth_voxel, 0), phase.shape)
+    for k, a in enumerate(axes):
+        table[f"{body}_voxel_{a}"] = birth_index[k].astype(np.int64)
+    table["pair_row"] = pairs.index.to_numpy(dtype=np.int64)
     frame = pd.DataFrame(table)
     frame = frame.sort_values(f"{body}_radius", ascending=False, kind="stable")
     frame["id"] = np.arange(1, len(frame) + 1)
     return frame.reset_index(drop=True)
+
+
+def _rows_of_dimension(diagram, dim: int) -> pd.DataFrame:
+    """The pairs of one dimension, keeping their row numbers in ``diagram.pairs``."""
+    return diagram.pairs[diagram.pairs["dim"] == dim]
 
 
 def _kind(birth: np.ndarray, death: np.ndarray, superlevel: bool) -> np.ndarray:
@@ -592,7 +617,8 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
         body_x, throat_radius, throat_z, throat_y, throat_x, border, lifetime`` then
         ``body_volume`` (``body_area`` in 2D: the voxels the pore drains before it joins a
         larger one) and ``isolated`` (a closed pore: its connected piece of the pore
-        phase holds no other pore and reaches no border of the scan or sample).
+        phase holds no other pore and reaches no border of the scan or sample), then
+        ``body_voxel_z, body_voxel_y, body_voxel_x``: the voxel indices of the body centre.
         ``grains``: the same for the solid with ``neck`` for ``throat``. ``loops`` and
         ``voids``: see Notes. ``summary``: porosity, percolation and integral geometry.
 
@@ -718,10 +744,13 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
         edge |= rim.ravel()
         room_in_sample = ndimage.distance_transform_edt(sample, sampling=spacing)
     pore_order = _sweep.sweep_order(field, pore)
-    pores = _phase_table(diagram.dimension(0).pairs, field, pore, n_pore, spacing, False,
+    pores = _phase_table(_rows_of_dimension(diagram, 0), field, pore, n_pore, spacing, False,
                          min_persistence, ("body", "throat"), pore_order, edge, room_in_sample)
-    grains = _phase_table(solid_diagram.dimension(0).pairs, -field, solid, n_solid, spacing,
-                          True, min_persistence, ("body", "neck"), None, edge, room_in_sample)
+    grains = _phase_table(_rows_of_dimension(solid_diagram, 0), -field, solid, n_solid,
+                          spacing, True, min_persistence, ("body", "neck"), None, edge,
+                          room_in_sample)
+    pore_rows = pores.pop("pair_row").to_numpy()
+    grains.pop("pair_row")
     loops = _loop_table(diagram, spacing, min_persistence)
     voids = _void_table(solid_diagram, spacing, min_persistence)
     del room_in_sample
@@ -820,4 +849,5 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
     }
     return PoreAnalysis(pores=pores, grains=grains, loops=loops, voids=voids, summary=summary,
                         diagram=diagram, solid_diagram=solid_diagram, mask=mask,
-                        distance=distance, critical_throats=critical, sample=sample)
+                        distance=distance, critical_throats=critical, sample=sample,
+                        pore_rows=pore_rows)

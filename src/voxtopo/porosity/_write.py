@@ -71,7 +71,9 @@ def column_units(table, unit: str, ndim: int) -> dict:
     """Column -> unit of a pore, grain, loop or void table ("" for flags, ids and kinds)."""
     units = {}
     for column in table.columns:
-        if column.endswith("_volume"):
+        if "_voxel_" in column:
+            units[column] = "voxel index"
+        elif column.endswith("_volume"):
             units[column] = f"{unit}^3"
         elif column.endswith("_area"):
             units[column] = f"{unit}^2"

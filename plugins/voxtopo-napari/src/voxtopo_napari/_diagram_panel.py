@@ -89,7 +89,7 @@ class DiagramPanel(QWidget):
         self.count_label = QLabel("")
 
         row = QHBoxLayout()
-        row.addWidget(QLabel("shortest lifetime shown"))
+        row.addWidget(QLabel("min persistence shown"))
         row.addWidget(self.slider, 1)
         row.addWidget(self.lifetime_box)
         layout = QVBoxLayout(self)
@@ -179,7 +179,7 @@ class DiagramPanel(QWidget):
         return (lo, hi) if hi > lo else (lo - 0.5, hi + 0.5)
 
     def _plotted_death(self, death, superlevel):
-        """Where a death is drawn: classes that never end sit on a band past the others."""
+        """Where a death is drawn: classes that never die sit on a band past the others."""
         lo, hi = self._value_range()
         margin = 0.08 * (hi - lo)
         never = lo - margin if superlevel else hi + margin
@@ -210,7 +210,7 @@ class DiagramPanel(QWidget):
         ax.plot([lo - margin, hi + margin], [lo - margin, hi + margin], color="#8a969e",
                 lw=0.8, zorder=1)
         ax.axhline(never, color="#8a969e", lw=0.8, ls="--", zorder=1)
-        ax.text(lo - margin, never, " never ends", va="bottom", ha="left", fontsize=7,
+        ax.text(lo - margin, never, " never dies", va="bottom", ha="left", fontsize=7,
                 color="#5b6770")
         shown_total = 0
         for dim, points in sorted(self._points.items()):
@@ -249,7 +249,7 @@ class DiagramPanel(QWidget):
                                 extent=(0, self._longest, 0, 1))
         self.legend_axes.set_yticks([])
         self.legend_axes.set_xlabel(f"lifetime (persistence{', ' + unit if unit else ''}); "
-                                    f"the top colour also marks features that never end",
+                                    f"the top colour also marks features that never die",
                                     fontsize=7)
         self.legend_axes.tick_params(labelsize=7)
 
