@@ -33,7 +33,7 @@ from scipy import ndimage
 
 from ..diagram import AXES_3D
 from ..errors import InputError
-from ._sweep import _find, as_3d_shape, neighbour_offsets
+from ._sweep import _find, _neighbour, as_3d_shape, neighbour_offsets
 
 __all__ = ["pore_regions", "pore_regions_by_levels", "regions_of"]
 
@@ -143,11 +143,8 @@ def _flood(values, order, shape3, offsets, seed_of_voxel, levels):
         x = v % nx
         count = 0
         for k in range(offsets.shape[0]):
-            zz, yy, xx = z + offsets[k, 0], y + offsets[k, 1], x + offsets[k, 2]
-            if zz < 0 or zz >= nz or yy < 0 or yy >= ny or xx < 0 or xx >= nx:
-                continue
-            w = (zz * ny + yy) * nx + xx
-            if parent[w] < 0:
+            w = _neighbour(offsets, k, z, y, x, nz, ny, nx)
+            if w < 0 or parent[w] < 0:
                 continue
             r = _find(parent, w)
             seen = False

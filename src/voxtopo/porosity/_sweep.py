@@ -62,6 +62,15 @@ def _find(parent, i):
     return root
 
 
+@njit(cache=True, inline="always")
+def _neighbour(offsets, k, z, y, x, nz, ny, nx):
+    """Flat index of the ``k``-th neighbour of voxel (z, y, x), -1 when off the grid."""
+    zz, yy, xx = z + offsets[k, 0], y + offsets[k, 1], x + offsets[k, 2]
+    if zz < 0 or zz >= nz or yy < 0 or yy >= ny or xx < 0 or xx >= nx:
+        return -1
+    return (zz * ny + yy) * nx + xx
+
+
 @njit(cache=True, nogil=True)
 def _percolation_kernel(order, shape, axis, offsets):
     nz, ny, nx = shape[0], shape[1], shape[2]
@@ -87,11 +96,8 @@ def _percolation_kernel(order, shape, axis, offsets):
             if a != b:
                 parent[a] = b
         for k in range(offsets.shape[0]):
-            zz, yy, xx = z + offsets[k, 0], y + offsets[k, 1], x + offsets[k, 2]
-            if zz < 0 or zz >= nz or yy < 0 or yy >= ny or xx < 0 or xx >= nx:
-                continue
-            w = (zz * ny + yy) * nx + xx
-            if parent[w] < 0:
+            w = _neighbour(offsets, k, z, y, x, nz, ny, nx)
+            if w < 0 or parent[w] < 0:
                 continue
             a, b = _find(parent, v), _find(parent, w)
             if a != b:
@@ -136,11 +142,8 @@ def _basin_kernel(order, values, shape, offsets, query_voxel, query_level, on_bo
         y = (v // nx) % ny
         x = v % nx
         for k in range(offsets.shape[0]):
-            zz, yy, xx = z + offsets[k, 0], y + offsets[k, 1], x + offsets[k, 2]
-            if zz < 0 or zz >= nz or yy < 0 or yy >= ny or xx < 0 or xx >= nx:
-                continue
-            w = (zz * ny + yy) * nx + xx
-            if parent[w] < 0:
+            w = _neighbour(offsets, k, z, y, x, nz, ny, nx)
+            if w < 0 or parent[w] < 0:
                 continue
             a, b = _find(parent, v), _find(parent, w)
             if a != b:
