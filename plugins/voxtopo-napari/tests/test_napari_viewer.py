@@ -107,6 +107,23 @@ def test_spherical_shell_shows_one_component_and_one_cavity(make_napari_viewer, 
     assert 6 - 1 <= np.linalg.norm(cavity_birth - 10.5) <= 9 + 1  # born on the shell
 
 
+def test_panels_use_the_words_of_the_command_and_the_plots(make_napari_viewer, qtbot):
+    """One name for one idea (common practice, no source): the shortest lifetime kept is
+    "min persistence" as the command's --min-persistence, and a class that never dies is
+    "never dies" as in the plots of voxtopo.report and voxtopo.porosity."""
+    from qtpy.QtWidgets import QLabel
+    z, y, x = np.indices((12, 12, 12)) - 5.5
+    data = np.sqrt(z ** 2 + y ** 2 + x ** 2)
+    viewer, widget = _widget(make_napari_viewer, data)
+    _run(qtbot, widget)
+    labels = {label.text() for label in widget.findChildren(QLabel)}
+    labels |= {label.text() for label in widget.diagram_panel.findChildren(QLabel)}
+    assert "min persistence" in labels and "min persistence shown" in labels
+    assert not any("lifetime" in text for text in labels)
+    texts = [t.get_text().strip() for t in widget.diagram_panel.axes.texts]
+    assert "never dies" in texts and "never ends" not in texts
+
+
 def test_slider_hides_exactly_the_features_below_the_threshold(make_napari_viewer, qtbot):
     """Common practice, no source: a persistence threshold separates features from noise;
     here 'hidden' must mean exactly persistence < threshold, in layers and diagram."""

@@ -63,7 +63,7 @@ def summary_lines(summary: dict) -> list[str]:
     lines = [f"porosity {summary['porosity']:.4f} {where} ({size}); {counts['pores']} pores "
              f"living longer than {summary['min_persistence']:.4g} {unit} "
              f"({counts['pores_at_border']} at the border, {counts['isolated_pores']} "
-             f"closed); percolates {_percolation_words(summary)}"]
+             f"isolated); percolates {_percolation_words(summary)}"]
     return lines + list(summary.get("notes", []))
 
 
