@@ -134,7 +134,7 @@ def test_slider_hides_exactly_the_features_below_the_threshold(make_napari_viewe
     panel = widget.diagram_panel
     all_persistence = widget.result.diagram.pairs["persistence"].to_numpy()
     threshold = float(np.median(all_persistence[np.isfinite(all_persistence)]))
-    panel.set_min_lifetime(threshold)
+    panel.set_min_persistence(threshold)
     expected_visible = set()
     for which in ("birth", "death"):
         for layer in _result_layers(viewer, which).values():

@@ -224,11 +224,11 @@ def _diagram_plot(plt, analysis, unit, background, ndim):
         rows = finite[finite["dim"] == dim]
         marker, colour = markers[dim]
         ax.scatter(rows["birth"], rows["death"], s=12, marker=marker, color=colour,
-                   alpha=0.7, label=f"dimension {dim} ({len(rows)})")
+                   alpha=0.7, label=f"dimension {dim}: {len(rows)} pairs (all pairs)")
     essential = pairs[~np.isfinite(pairs["death"])]
     if len(essential):
         ax.scatter(essential["birth"], np.full(len(essential), hi - pad / 2), marker="*",
-                   s=60, color="black", label=f"never dies ({len(essential)})")
+                   s=60, color="black", label=f"never dies: {len(essential)}")
     ax.plot([lo, hi], [lo, hi], color="0.4", lw=0.8)
     # three zones of the signed-distance diagram, each a plain rectangle or triangle named
     # in the legend: a feature that lives in one phase only, or one that spans the wall
@@ -239,7 +239,7 @@ def _diagram_plot(plt, analysis, unit, background, ndim):
          "features across the wall (birth < 0 < death)"),
     )
     for (xs, ys), colour, label in zones:
-        ax.fill(xs, ys, facecolor=colour, edgecolor="none", alpha=0.35, zorder=0, label=label)
+        ax.fill(xs, ys, facecolor=colour, edgecolor="none", alpha=0.6, zorder=0, label=label)
     ax.set(xlim=(lo, hi), ylim=(lo, hi), xlabel=f"birth: signed distance ({unit})",
            ylabel=f"death: signed distance ({unit})",
            title="Persistence diagram of the signed distance (pores negative)")
