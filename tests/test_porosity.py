@@ -747,3 +747,19 @@ def test_cli_region_of_interest_and_the_shortest_lifetime_option(tmp_path, capsy
         main(["pores", str(tmp_path / "mask.npy"), "--out", str(tmp_path / "res2"),
               "--min-lifetime", "0.5"])
     assert stop.value.code == 2
+
+
+def test_otsu_threshold_is_chosen_from_the_sample_alone():
+    # skimage.filters.threshold_otsu (Otsu 1979, through scikit-image) on the sample's own
+    # gray values is the reference: dark air around the sample must not move it
+    from skimage.filters import threshold_otsu
+    gray = np.zeros((20, 40, 40), np.uint8)                  # air, darker than the pores
+    inside = np.full((20, 20, 20), 200, np.uint8)            # solid
+    inside[:, 5:15, 5:15] = 100                              # a square channel of pore
+    gray[:, 10:30, 10:30] = inside
+    roi = np.zeros(gray.shape, bool)
+    roi[:, 10:30, 10:30] = True
+    result = analyse(gray, threshold="otsu", roi=roi, engine=ENGINE)
+    expected = threshold_otsu(gray[roi])
+    assert result.summary["threshold"] == pytest.approx(expected)
+    assert result.summary["porosity"] == pytest.approx(100 / 400)

@@ -128,10 +128,12 @@ def is_binary_mask(data: np.ndarray) -> bool:
     return _binary_foreground(np.asarray(data)) is not None
 
 
-def pore_mask(scan: Scan, *, threshold=None, pores_bright=False, label=None):
+def pore_mask(scan: Scan, *, threshold=None, pores_bright=False, label=None, sample=None):
     """(mask, segmentation) from a binary mask, a label image or a gray scan.
 
-    ``segmentation`` says how the pores were chosen, for the summary.
+    ``segmentation`` says how the pores were chosen, for the summary. With ``sample`` (a
+    region of interest) Otsu's threshold is chosen from the sample's gray values alone, so
+    that air or mounting around it does not move the threshold.
     """
     data = scan.data
     where = _name(scan)
@@ -161,8 +163,13 @@ def pore_mask(scan: Scan, *, threshold=None, pores_bright=False, label=None):
                              f"where a threshold could only swap or keep its phases; leave "
                              f"out the threshold: its True (1) voxels are the pores.")
         filtration.check_finite(scan)
+        method = "otsu" if threshold == "otsu" else "given"
+        if threshold == "otsu" and sample is not None:
+            values = data[sample].reshape((1,) * (data.ndim - 1) + (-1,))
+            _, threshold = filtration.threshold(scan.with_data(values), "otsu")
+            method = "otsu within the region of interest"
         mask, used = filtration.threshold(scan, threshold, below=not pores_bright)
-        return mask, {"method": "otsu" if threshold == "otsu" else "given", "threshold": used,
+        return mask, {"method": method, "threshold": used,
                       "pores": "above the threshold" if pores_bright
                       else "at or below the threshold"}
     if data.dtype != bool:
@@ -209,8 +216,8 @@ def _selected_by(segmentation: dict) -> str:
     method = segmentation["method"]
     if method == "label":
         return f"the pore label {segmentation['label']}"
-    if method in ("otsu", "given"):
-        how = "Otsu's threshold" if method == "otsu" else "the threshold"
+    if method != "mask":
+        how = "Otsu's threshold" if method.startswith("otsu") else "the threshold"
         return f"{how} {segmentation['threshold']:.6g} (pores {segmentation['pores']})"
     return "the mask"
 
@@ -695,9 +702,9 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
     elif not (np.isfinite(min_persistence) and min_persistence >= 0):
         raise InputError(f"min_persistence must be a length >= 0 in {scan.unit}, got "
                          f"{min_persistence}.")
+    sample = region_of_interest(roi, scan.shape, where)
     mask, segmentation = pore_mask(scan, threshold=threshold, pores_bright=pores_bright,
-                                   label=label)
-    sample = region_of_interest(roi, mask.shape, where)
+                                   label=label, sample=sample)
     in_sample = np.ones(mask.shape, bool) if sample is None else sample
     pore, solid = mask & in_sample, ~mask & in_sample
     sample_voxels = int(np.count_nonzero(in_sample))
