@@ -131,3 +131,6 @@ def test_plugin_and_cli_report_the_same_pores(tmp_path, capsys):
     table = pd.read_csv(tmp_path / "res" / "pores.csv")
     assert sorted(pores_layer[1]["features"]["pore_id"]) == sorted(table["id"])
     assert set(np.unique(result.regions)) - {0} == set(table["id"])
+    # the panel's export writes the same pore table as the command
+    result.export(tmp_path / "panel")
+    pd.testing.assert_frame_equal(pd.read_csv(tmp_path / "panel" / "pores.csv"), table)

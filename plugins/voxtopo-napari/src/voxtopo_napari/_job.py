@@ -43,9 +43,13 @@ class AnalysisResult:
     porosity: dict | None = None
     notes: dict = field(default_factory=dict)
     timings: dict = field(default_factory=dict)
+    pore_analysis: object | None = None
 
     def export(self, out, force: bool = False):
-        """Write this result as a voxtopo result folder (the files of ``voxtopo analyse``)."""
+        """Write this result as a voxtopo result folder: the files of ``voxtopo pores`` for
+        a pore analysis, of ``voxtopo analyse`` otherwise."""
+        if self.pore_analysis is not None:
+            return porosity.write_pores(out, self.pore_analysis, self.scan, force=force)
         return write_result(out, self.scan, self.diagram, self.options,
                             prepared=self.prepared, timings=self.timings, notes=self.notes,
                             force=force)
@@ -131,7 +135,7 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
             progress(phase, fraction)
 
     timings = {}
-    porosity_summary, pore_details, regions, shown_rows = None, None, None, None
+    analysis, porosity_summary, pore_details, regions, shown_rows = None, None, None, None, None
     if with_porosity and options.distance:
         start = time.perf_counter()
         analysis = _pore_analysis(scan, options, progress)
@@ -178,4 +182,4 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
     return AnalysisResult(name=name, scan=scan, prepared=prepared, options=options,
                           diagram=diagram, placement=placement, layers=layers,
                           regions=regions, porosity=porosity_summary, notes=notes,
-                          timings=timings)
+                          timings=timings, pore_analysis=analysis)

@@ -128,8 +128,9 @@ class AnalysisWidget(QWidget):
         self.status = QLabel("Pick a layer and press Find features.")
         self.status.setWordWrap(True)
         self.export_button = QPushButton("Save result folder…")
-        self.export_button.setToolTip("Write pairs.csv, summary.json and the plots, as "
-                                      "`voxtopo analyse` does.")
+        self.export_button.setToolTip("Write the result folder as the command does: "
+                                      "`voxtopo pores` for a porosity run, `voxtopo "
+                                      "analyse` otherwise.")
         self.export_button.setEnabled(False)
         self.export_button.clicked.connect(self._ask_export)
 
