@@ -545,9 +545,10 @@ def _outside_as_never(diagram, outside_level: float):
 
 
 def _sample_distance(scan: Scan, pore: np.ndarray, solid: np.ndarray) -> Scan:
-    """Signed distance inside a region of interest: -d in the pores, +d in the solid, d to
-    the nearest voxel centre of the other phase in the sample (the outside is neither, as
-    the space beyond the scan's faces is)."""
+    """Signed distance in the sample: -d in the pores, +d in the solid, d to the nearest
+    voxel centre of the other phase in the sample (outside a region of interest a voxel is
+    neither, as the space beyond the scan's faces is). Without a region of interest this is
+    :func:`voxtopo.filtration.signed_distance` of the pore mask."""
     inside = ndimage.distance_transform_edt(~solid, sampling=scan.spacing)
     outside = ndimage.distance_transform_edt(~pore, sampling=scan.spacing)
     return scan.with_data(np.where(pore, -inside, outside), values="distance")
@@ -720,11 +721,10 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
 
     step("distance transform", 0.0)
     clock = time.perf_counter()
+    distance = _sample_distance(scan, pore, solid)
     if sample is None:
-        distance = filtration.signed_distance(scan.with_data(mask))
         pore_field = solid_field = distance
     else:
-        distance = _sample_distance(scan, pore, solid)
         # the outside enters each sweep last, so no feature of the sample passes through it
         outside_level = float(np.abs(distance.data).max()) + 2 * max(spacing)
         pore_field = distance.with_data(np.where(sample, distance.data, outside_level))
