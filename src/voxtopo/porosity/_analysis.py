@@ -329,11 +329,12 @@ def _basin_features(depth: np.ndarray, phase: np.ndarray, neighbourhood: int, bi
 
 def _phase_table(pairs: pd.DataFrame, depth: np.ndarray, phase: np.ndarray, neighbourhood,
                  spacing, flip: bool, min_persistence: float, names: tuple[str, str],
-                 order=None, edge=None, room_in_sample=None):
+                 order=None, edge=None, room_in_sample=None, pieces=None):
     """Table of the dimension-0 features of one phase (pores, or grains with ``flip``).
 
     ``order``: the phase's voxels by increasing ``depth`` (computed when not given).
     ``edge``: flat bool array of the voxels at the border of the scan or of the sample.
+    ``pieces``: labels of the phase's connected pieces (computed when not given).
     ``isolated``: the feature's connected piece of the phase (at level 0) holds no other
     feature of the table and touches no border: a closed pore (or a loose grain)."""
     ndim = phase.ndim
@@ -358,7 +359,8 @@ def _phase_table(pairs: pd.DataFrame, depth: np.ndarray, phase: np.ndarray, neig
     joined = deaths < 0
     neck_radius = np.where(joined, -deaths, np.nan)
     neck_at = _coordinates(np.where(joined, death_voxel, -1), phase.shape, spacing)
-    pieces = pore_components(phase, neighbourhood)
+    if pieces is None:
+        pieces = pore_components(phase, neighbourhood)
     piece = pieces.ravel()[birth_voxel]
     features_in_piece = np.bincount(piece, minlength=pieces.max() + 1)
     at_edge = np.zeros(pieces.max() + 1, dtype=bool)
@@ -474,7 +476,8 @@ def percolation(distance: np.ndarray, mask: np.ndarray, axis: int, neighbourhood
 
 
 def pore_components(mask: np.ndarray, neighbourhood: int) -> np.ndarray:
-    """Labels of the connected pieces of the pore phase (scipy.ndimage.label)."""
+    """Labels of the connected pieces of a phase (scipy.ndimage.label), the pore phase's or
+    the solid's, with that phase's neighbourhood."""
     full = neighbourhood in (26, 8)
     structure = ndimage.generate_binary_structure(mask.ndim, mask.ndim if full else 1)
     return ndimage.label(mask, structure=structure)[0]
@@ -751,11 +754,16 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
         edge |= rim.ravel()
         room_in_sample = ndimage.distance_transform_edt(sample, sampling=spacing)
     pore_order = _sweep.sweep_order(field, pore)
+    labels = pore_components(pore, n_pore)
+    solid_labels = pore_components(solid, n_solid)
+    solid_pieces = int(solid_labels.max())
     pores = _phase_table(_rows_of_dimension(diagram, 0), field, pore, n_pore, spacing, False,
-                         min_persistence, ("body", "throat"), pore_order, edge, room_in_sample)
+                         min_persistence, ("body", "throat"), pore_order, edge, room_in_sample,
+                         labels)
     grains = _phase_table(_rows_of_dimension(solid_diagram, 0), -field, solid, n_solid,
                           spacing, True, min_persistence, ("body", "neck"), None, edge,
-                          room_in_sample)
+                          room_in_sample, solid_labels)
+    del solid_labels
     pore_rows = pores.pop("pair_row").to_numpy()
     grains.pop("pair_row")
     loops = _loop_table(diagram, spacing, min_persistence)
@@ -767,7 +775,6 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
     clock = time.perf_counter()
     names = AXES_3D[3 - scan.ndim:]
     radius, critical, connected = {}, {}, {}
-    labels = pore_components(pore, n_pore)
     for k, a in enumerate(axes):
         faces_in_sample = (np.take(in_sample, 0, axis=a).any()
                            and np.take(in_sample, -1, axis=a).any())
@@ -785,7 +792,6 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
     clock = time.perf_counter()
     chi_pore = _euler.euler_characteristic(pore, n_pore)
     chi_solid = _euler.euler_characteristic(solid, n_solid)
-    solid_pieces = int(pore_components(solid, n_solid).max())
     volume = sample_voxels * float(np.prod(spacing))
     functionals = minkowski(mask, spacing, chi_pore, sample)
     timings["integral_geometry"] = time.perf_counter() - clock
