@@ -84,8 +84,10 @@ def run(mask: np.ndarray, engine: str) -> dict:
     print(f"  peak resident memory so far:        {human(peak_rss_bytes())}")
     counts = result.summary["counts"]
     print(f"  porosity {result.summary['porosity']:.3f}, {counts['pores']} pores, "
-          f"{counts['grains']} grains, percolation radius "
-          + ", ".join(f"{a} {r:.3g} um" for a, r in result.summary["percolation_radius"].items()))
+          f"{counts['grains']} grains, percolates "
+          + ", ".join(f"{a} {state}" + (f" (r = {radius:.3g} um)" if radius else "")
+                      for (a, state), radius in zip(result.summary["percolates"].items(),
+                                                    result.summary["percolation_radius"].values())))
     return {"total": total, **stages}
 
 

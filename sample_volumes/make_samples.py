@@ -5,7 +5,7 @@ Run with the project's Python from anywhere::
     .venv/bin/python sample_volumes/make_samples.py
 
 It writes only into the folder that holds this script: ``beads.tif``, ``beads_mask.npy``,
-``foam.tif``, ``foam_mask.npy`` and ``film.tif``. Every value comes from
+``beads_roi.npy``, ``foam.tif``, ``foam_mask.npy`` and ``film.tif``. Every value comes from
 ``numpy.random.default_rng`` with fixed seeds, so two runs give identical arrays.
 The scenario is invented (see README.md); the data are for the demo, never the expected
 value of a check.
@@ -29,6 +29,8 @@ FOAM_VOXEL_UM = 4.0
 FILM_PIXEL_UM = 0.05          # 50 nm
 
 BEADS_SHAPE = (96, 96, 96)
+#: Radius of the filter disc (voxels); its axis runs along z through the middle of the view.
+DISC_RADIUS = 44.0
 #: Closest approach of two beads as a fraction of the sum of their radii (a sintering neck).
 NECK = 0.9
 FOAM_SHAPE = (80, 80, 80)
@@ -72,7 +74,7 @@ def beads_mask(seed: int = 2026) -> tuple[np.ndarray, list[tuple[np.ndarray, flo
     """
     rng = np.random.default_rng(seed)
     nz, ny, nx = BEADS_SHAPE
-    disc_radius = 44.0
+    disc_radius = DISC_RADIUS
     axis = np.array([(ny - 1) / 2, (nx - 1) / 2])
     count = 150
     radii = rng.uniform(7.0, 10.0, size=count)
@@ -113,6 +115,16 @@ def beads_mask(seed: int = 2026) -> tuple[np.ndarray, list[tuple[np.ndarray, flo
         offset *= rng.uniform(0, radius - pore_radius - 3.0) / np.linalg.norm(offset)
         _stamp(solid, centre + offset, pore_radius, False)
     return ~solid, beads
+
+
+def beads_roi() -> np.ndarray:
+    """The region of interest of the bead disc: True inside the disc's cylinder (the sample),
+    False in the air around it. The cylinder is one voxel wider than the disc because the
+    last push of :func:`beads_mask` may leave a bead's rim up to a voxel past the wall."""
+    nz, ny, nx = BEADS_SHAPE
+    y, x = np.ogrid[:ny, :nx]
+    disc = (y - (ny - 1) / 2) ** 2 + (x - (nx - 1) / 2) ** 2 <= (DISC_RADIUS + 1.0) ** 2
+    return np.broadcast_to(disc, BEADS_SHAPE).copy()
 
 
 def beads_volume(seed: int = 2026) -> tuple[np.ndarray, np.ndarray]:
@@ -176,7 +188,8 @@ def make_all() -> dict[str, np.ndarray]:
     """Every sample array by file name, computed in memory (nothing is written)."""
     beads, beads_pore = beads_volume()
     foam, foam_pore = foam_volume()
-    return {"beads.tif": beads, "beads_mask.npy": beads_pore, "foam.tif": foam,
+    return {"beads.tif": beads, "beads_mask.npy": beads_pore, "beads_roi.npy": beads_roi(),
+            "foam.tif": foam,
             "foam_mask.npy": foam_pore, "film.tif": film_image()}
 
 
@@ -210,7 +223,7 @@ def write_all(folder: Path = HERE) -> list[Path]:
                      **compression)
     paths.append(path)
 
-    for name in ("beads_mask.npy", "foam_mask.npy"):
+    for name in ("beads_mask.npy", "beads_roi.npy", "foam_mask.npy"):
         np.save(folder / name, arrays[name].astype(bool), allow_pickle=False)
         paths.append(folder / name)
     return paths

@@ -30,10 +30,10 @@ def test_straight_channel_percolates_along_its_axis_with_its_radius():
     # see tests/test_porosity.py for the derivation).
     result = analyse(channel(radius=5.0), engine=ENGINE)
     summary = result.summary
-    assert summary["percolates"] == {"z": True, "y": False, "x": False}
+    assert summary["percolates"] == {"z": "yes", "y": "no", "x": "no"}
     assert summary["percolation_radius"]["z"] == pytest.approx(5.0, abs=1.0)
-    assert summary["percolation_radius"]["y"] == 0.0
-    assert summary["percolation_radius"]["x"] == 0.0
+    assert summary["percolation_radius"]["y"] is None
+    assert summary["percolation_radius"]["x"] is None
     assert summary["critical_throat"]["y"] is None
 
 
@@ -64,8 +64,8 @@ def test_closed_cavity_never_percolates():
     n = 24
     z, y, x = np.meshgrid(*[np.arange(n) - 11.5] * 3, indexing="ij")
     result = analyse(np.sqrt(z * z + y * y + x * x) <= 7, engine=ENGINE)
-    assert result.summary["percolates"] == {"z": False, "y": False, "x": False}
-    assert set(result.summary["percolation_radius"].values()) == {0.0}
+    assert result.summary["percolates"] == {"z": "no", "y": "no", "x": "no"}
+    assert set(result.summary["percolation_radius"].values()) == {None}
     assert set(result.summary["connected_porosity"].values()) == {0.0}
 
 
@@ -73,7 +73,7 @@ def test_channel_touching_only_one_face_does_not_percolate():
     mask = channel(radius=4.0)
     mask[12:] = False
     result = analyse(mask, axis="z", engine=ENGINE)
-    assert result.summary["percolates"]["z"] is False
+    assert result.summary["percolates"]["z"] == "no"
 
 
 def _brute_force_radius(mask, axis, neighbourhood):
@@ -147,3 +147,33 @@ def test_basin_sizes_match_scipy_labels():
             edge[[0, -1]] = edge[:, [0, -1]] = edge[:, :, [0, -1]] = True
             assert touches == bool((component & edge).any())
     assert own.sum() <= mask.sum()
+
+
+def test_a_channel_one_or_two_voxels_wide_is_not_resolved():
+    # common practice, no source: a passage one or two voxels wide has no voxel deeper
+    # than about one voxel from the solid, so the scan cannot say it is open; a channel
+    # five voxels across (radius 2 voxels) is resolved.
+    thin = np.zeros((20, 9, 9), bool)
+    thin[:, 4, 4:6] = True                                  # two voxels wide
+    result = analyse(thin, axis="z", engine=ENGINE)
+    assert result.summary["percolates"] == {"z": "not resolved"}
+    assert result.summary["percolation_radius"]["z"] == pytest.approx(1.0)
+    assert any("not resolved" in note for note in result.summary["notes"])
+    wide = analyse(channel(shape=(20, 15, 15), radius=2.0), axis="z", engine=ENGINE)
+    assert wide.summary["percolates"] == {"z": "yes"}
+
+
+def test_cli_line_says_no_and_not_resolved_in_words(tmp_path, capsys):
+    # common practice, no source: a sample that does not percolate says "no" (no radius of
+    # 0 px), a sub-two-voxel passage says "not resolved", never a plain "yes"
+    from voxtopo.cli import main
+    thin = np.zeros((20, 9, 9), bool)
+    thin[:, 4, 4:6] = True
+    np.save(tmp_path / "thin.npy", thin)
+    code = main(["pores", str(tmp_path / "thin.npy"), "--out", str(tmp_path / "res"),
+                 "--engine", ENGINE])
+    out = capsys.readouterr().out
+    assert code == 0
+    assert "z: not resolved" in out and "y: no" in out and "x: no" in out
+    assert "r = 0" not in out and "z: yes" not in out
+    assert "voxel size unknown" in out

@@ -98,7 +98,7 @@ def test_simple_cubic_percolates_through_its_windows(simple_cubic):
     # the square window (sqrt(2)-1)R.
     mask, radius, result = simple_cubic
     for axis in "zyx":
-        assert result.summary["percolates"][axis]
+        assert result.summary["percolates"][axis] == "yes"
         assert result.summary["percolation_radius"][axis] == pytest.approx(
             (np.sqrt(2) - 1) * radius, abs=ONE_VOXEL)
 
@@ -354,13 +354,13 @@ def _one_sentence(error):
 def test_empty_mask_is_refused():
     with pytest.raises(InputError) as error:
         analyse(np.zeros((8, 8, 8), bool))
-    assert "no pore voxels" in _one_sentence(error)
+    assert "selects no pore voxel" in _one_sentence(error)
 
 
 def test_all_pore_mask_is_refused():
     with pytest.raises(InputError) as error:
         analyse(np.ones((8, 8, 8), bool))
-    assert "pore in every voxel" in _one_sentence(error)
+    assert "makes every voxel of the scan array pore" in _one_sentence(error)
 
 
 def test_gray_scan_without_threshold_is_refused():
@@ -377,7 +377,7 @@ def test_gray_scan_without_threshold_is_refused():
     ({"axis": "w"}, "percolation axis"),
     ({"neighbourhood": 8}, "Neighbourhood"),
     ({"threshold": "median"}, "number or 'otsu'"),
-    ({"min_lifetime": -1.0}, "min_lifetime"),
+    ({"min_persistence": -1.0}, "min_persistence"),
 ])
 def test_bad_options_are_refused_with_one_sentence(kwargs, words):
     labels = np.zeros((8, 8, 8), np.int32)
@@ -460,7 +460,7 @@ def test_cli_writes_the_result_folder(tmp_path, capsys):
                  "--unit", "um", "--engine", "gudhi", "--axis", "z"])
     assert code == 0
     summary = json.loads((tmp_path / "res" / "summary.json").read_text())
-    assert summary["unit"] == "um" and summary["percolates"] == {"z": False}
+    assert summary["unit"] == "um" and summary["percolates"] == {"z": "no"}
     assert summary["counts"]["pores"] == 1
     assert "research use only" in capsys.readouterr().out
 
@@ -490,3 +490,276 @@ def test_progress_is_reported_and_cancel_stops_the_work():
 
     with pytest.raises(Cancelled):
         analyse(mask, engine=ENGINE, progress=stop)
+
+
+# ------------------------------------------------------------------- segmentation traps
+def test_threshold_on_a_binary_mask_is_refused_not_inverted():
+    # common practice, no source: a threshold splits gray values; on a mask it could only
+    # keep or swap the two phases, so it is refused rather than guessed.
+    mask, radius = packing("simple cubic", 10, 1)
+    with pytest.raises(InputError) as error:
+        analyse(mask, threshold="otsu", engine=ENGINE)
+    assert "already a binary mask" in _one_sentence(error)
+    with pytest.raises(InputError) as error:
+        analyse(mask.astype(np.uint8), threshold=0.5, engine=ENGINE)
+    assert "already a binary mask" in _one_sentence(error)
+
+
+def test_pores_bright_without_a_threshold_is_refused():
+    # RULES: an option that would be ignored is refused (common practice, no source)
+    mask, radius = packing("simple cubic", 10, 1)
+    with pytest.raises(InputError) as error:
+        analyse(mask, pores_bright=True, engine=ENGINE)
+    assert "no threshold" in _one_sentence(error)
+
+
+def test_a_label_that_selects_almost_nothing_says_so():
+    # the count of the selected voxels is numpy's count of the label (common practice, no
+    # source): five voxels of 8000 are under the 0.1 % floor, and the note says so
+    labels = np.full((20, 20, 20), 7, np.int32)
+    labels[10, 10, 8:13] = 3
+    result = analyse(labels, label=3, engine=ENGINE)
+    assert np.count_nonzero(labels == 3) == 5
+    notes = result.summary["notes"]
+    assert any("only 5 pore voxels" in note and "label 3" in note for note in notes)
+    assert all("\n" not in note and note.endswith(".") for note in notes)
+    halves = np.where(np.arange(20)[:, None, None] < 10, 3, 7) * np.ones((20, 20, 20), np.int32)
+    roomy = analyse(halves, label=3, engine=ENGINE)
+    assert not any("only" in note for note in roomy.summary["notes"])
+
+
+def test_a_threshold_that_selects_nothing_is_refused_with_the_value():
+    gray = np.full((12, 12, 12), 200, np.uint8)
+    gray[4:8, 4:8, 4:8] = 100
+    with pytest.raises(InputError) as error:
+        analyse(gray, threshold=50, engine=ENGINE)
+    assert "threshold 50" in _one_sentence(error) and "no pore voxel" in str(error.value)
+
+
+# --------------------------------------------------------------------- region of interest
+def _packing_in_air(margin=8):
+    """The simple cubic packing of 2 x 2 x 2 cells of 20 voxels, with air (pore) around it
+    across y and x; returns (mask, roi, R) where the roi is the packing's box."""
+    packed, radius = packing("simple cubic", 20, 2)
+    n = packed.shape[0]
+    mask = np.ones((n, n + 2 * margin, n + 2 * margin), bool)
+    mask[:, margin:margin + n, margin:margin + n] = packed
+    roi = np.zeros_like(mask)
+    roi[:, margin:margin + n, margin:margin + n] = True
+    return mask, roi, radius
+
+
+@pytest.fixture(scope="module")
+def packing_in_air():
+    mask, roi, radius = _packing_in_air()
+    return mask, roi, radius, analyse(mask, roi=roi, engine=ENGINE), analyse(mask,
+                                                                             engine=ENGINE)
+
+
+def test_region_of_interest_porosity_counts_only_the_sample(packing_in_air):
+    # Callister & Rethwisch, interstitial sites: simple cubic porosity 1 - pi/6 inside the
+    # sample, whatever air lies around it (tolerance as in the test above)
+    mask, roi, radius, inside, whole = packing_in_air
+    assert inside.summary["porosity"] == pytest.approx(1 - np.pi / 6,
+                                                       abs=0.1 * np.pi / (2 * radius))
+    assert whole.summary["porosity"] > 0.6      # the air counted as pore without the roi
+
+
+def test_region_of_interest_percolation_ignores_the_air_around_the_sample(packing_in_air):
+    # Callister & Rethwisch: along z the narrowest passage of the packing is the square
+    # window (sqrt(2)-1)R, within one voxel; the air gap of 8 voxels would give about 8.
+    # Across y and x the sample does not reach the scan's faces: not measured.
+    mask, roi, radius, inside, whole = packing_in_air
+    assert whole.summary["percolation_radius"]["z"] > 6.0
+    assert inside.summary["percolates"]["z"] == "yes"
+    assert inside.summary["percolation_radius"]["z"] == pytest.approx(
+        (np.sqrt(2) - 1) * radius, abs=ONE_VOXEL)
+    throat = inside.critical_throats["z"]
+    assert roi[tuple(np.rint(throat).astype(int))]
+    assert inside.summary["percolates"]["y"] == inside.summary["percolates"]["x"] == \
+        "not measured"
+    assert any("not measured" in note for note in inside.summary["notes"])
+
+
+def test_region_of_interest_pore_sizes_are_those_of_the_packing(packing_in_air):
+    # Callister & Rethwisch: the largest empty sphere (sqrt(3)-1)R sits at the 8 cube
+    # centres; with the sample's edge as a border, the pores clear of it are the 7 inner
+    # ones of the test above (the eldest drains the rest), each within one voxel
+    mask, roi, radius, inside, whole = packing_in_air
+    clear = inside.pores[~inside.pores["border"]]
+    assert len(clear) == 7
+    assert np.allclose(clear["body_radius"], (np.sqrt(3) - 1) * radius, atol=ONE_VOXEL)
+    assert np.all(roi[tuple(np.rint(inside.pores[["body_z", "body_y", "body_x"]]
+                                    .to_numpy()).astype(int).T)])
+
+
+def test_region_of_interest_connectivity_density_of_a_rod_lattice():
+    # Odgaard & Gundersen 1993: the 28 hand-counted loops of the rod lattice, per unit
+    # volume of the sample (a 32^3 box), with a solid frame outside the sample that would
+    # otherwise add a component; chi of the sample's solid against skimage.measure.
+    # euler_number (Ohser, Nagel & Schladitz 2002) with the solid's 6-neighbourhood.
+    mask = rod_lattice()
+    roi = np.zeros_like(mask)
+    roi[2:34, 2:34, 2:34] = True
+    framed = mask & roi
+    result = analyse(framed, roi=roi, engine=ENGINE)
+    solid = ~framed & roi
+    assert result.summary["euler_characteristic"]["solid"] == euler_number(solid,
+                                                                          connectivity=1)
+    assert result.summary["euler_characteristic"]["solid"] == 1 - 28
+    assert result.summary["connectivity_density"]["value"] == pytest.approx(28 / 32 ** 3)
+    assert result.summary["counts"]["loops"] == 28
+
+
+def test_region_of_interest_must_match_the_scan():
+    mask = rod_lattice()
+    with pytest.raises(InputError) as error:
+        analyse(mask, roi=np.ones((4, 4, 4), bool), engine=ENGINE)
+    assert "shape" in _one_sentence(error)
+    with pytest.raises(InputError) as error:
+        analyse(mask, roi=np.zeros(mask.shape, bool), engine=ENGINE)
+    assert "no voxel of the sample" in _one_sentence(error)
+
+
+# ---------------------------------------------------------------------- flags and units
+def test_isolated_marks_closed_pores_not_the_percolating_one():
+    # scipy.ndimage.label (CHECKS.md) gives the pieces of the pore phase: the channel
+    # through z is one piece reaching the faces, the cavity another reaching nothing. Only
+    # the cavity is a closed (isolated) pore; the channel's largest pore is not.
+    from scipy import ndimage
+    mask = np.zeros((30, 30, 30), bool)
+    z, y, x = np.meshgrid(*[np.arange(30)] * 3, indexing="ij")
+    mask |= np.hypot(y - 8, x - 8) <= 3
+    mask |= np.sqrt((z - 15) ** 2 + (y - 8) ** 2 + (x - 8) ** 2) <= 6   # a bulge
+    cavity = np.sqrt((z - 15) ** 2 + (y - 22) ** 2 + (x - 22) ** 2) <= 4
+    mask |= cavity
+    pieces, count = ndimage.label(mask, structure=np.ones((3, 3, 3)))
+    assert count == 2
+    result = analyse(mask, engine=ENGINE)
+    pores = result.pores
+    largest = pores.iloc[0]
+    assert largest["body_radius"] == pytest.approx(6.0, abs=ONE_VOXEL)
+    assert not largest["isolated"]
+    in_cavity = cavity[tuple(np.rint(pores[["body_z", "body_y", "body_x"]].to_numpy())
+                             .astype(int).T)]
+    assert pores["isolated"].to_numpy().tolist() == in_cavity.tolist()
+    assert in_cavity.sum() == 1 == result.summary["counts"]["isolated_pores"]
+
+
+def test_every_column_has_its_unit_and_2d_sizes_are_areas(tmp_path):
+    # common practice, no source: a person reads positions and sizes in the scan's unit,
+    # and an area in 2D is an area (unit squared)
+    cell = 25
+    c = np.arange(2 * cell)
+    y, x = np.meshgrid(c, c, indexing="ij")
+    wrap = lambda u: np.minimum(np.mod(u, cell), cell - np.mod(u, cell))  # noqa: E731
+    mask = np.hypot(wrap(y), wrap(x)) > cell / 2
+    result = analyse(mask, spacing=(0.5, 0.5), unit="um", engine=ENGINE)
+    assert "body_area" in result.pores.columns and "body_volume" not in result.pores.columns
+    out = write_pores(tmp_path / "discs", result)
+    summary = json.loads((out / "summary.json").read_text())
+    for name in ("pores.csv", "grains.csv", "loops.csv", "voids.csv", "pairs.csv"):
+        table = pd.read_csv(out / name)
+        assert set(summary["columns"][name]) == set(table.columns), name
+    assert summary["columns"]["pores.csv"]["body_area"] == "um^2"
+    assert summary["columns"]["pores.csv"]["body_x"] == "um"
+    assert summary["columns"]["pairs.csv"]["birth_x"] == "voxel index"
+    # positions are physical: every body centre is a pixel centre times the spacing
+    pores = pd.read_csv(out / "pores.csv")
+    assert np.allclose(np.mod(pores["body_x"] / 0.5, 1.0), 0.0)
+    assert pores["body_x"].max() <= (2 * cell - 1) * 0.5
+
+
+def test_missing_voxel_size_and_negative_connectivity_density_are_explained():
+    # Odgaard & Gundersen 1993: (1 - chi) / V assumes one component; two separate solid
+    # balls (two pieces by scipy.ndimage.label, chi = 2 by skimage.measure.euler_number)
+    # give a negative value, which the notes explain; no voxel size means per voxel.
+    from scipy import ndimage
+    z, y, x = np.meshgrid(*[np.arange(24)] * 3, indexing="ij")
+    solid = (np.sqrt((z - 12) ** 2 + (y - 6) ** 2 + (x - 6) ** 2) <= 4) | \
+        (np.sqrt((z - 12) ** 2 + (y - 17) ** 2 + (x - 17) ** 2) <= 4)
+    assert ndimage.label(solid)[1] == 2 and euler_number(solid, connectivity=1) == 2
+    result = analyse(~solid, engine=ENGINE)
+    density = result.summary["connectivity_density"]
+    assert density["value"] == pytest.approx(-1 / 24 ** 3)
+    assert density["unit"].startswith("1/voxel^3")
+    assert result.summary["voxel_size_known"] is False
+    notes = " ".join(result.summary["notes"])
+    assert "No voxel size" in notes and "2 separate pieces" in notes
+    physical = analyse(~solid, spacing=(1.0, 1.0, 1.0), unit="um", engine=ENGINE)
+    assert not any("No voxel size" in n for n in physical.summary["notes"])
+
+
+def test_diagram_plot_names_the_zones_in_our_words(simple_cubic):
+    # common practice, no source: the three zones of a signed-distance diagram are named
+    # by where the feature lives, in the legend
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    from voxtopo.porosity._write import _diagram_plot
+    mask, radius, result = simple_cubic
+    fig = _diagram_plot(plt, result, "px", mask, 3)
+    labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
+    plt.close(fig)
+    assert any(label.startswith("pore-phase features") for label in labels)
+    assert any(label.startswith("solid-phase features") for label in labels)
+    assert any(label.startswith("features across the wall") for label in labels)
+
+
+def test_cli_refuses_a_threshold_on_a_mask_with_one_sentence_and_no_warning(tmp_path,
+                                                                            capsys):
+    # common practice, no source: the bool mask would be thresholded into its complement;
+    # the CLI refuses with one sentence, exit 2, and numpy's warnings never reach the user
+    import warnings
+    from voxtopo.cli import main
+    mask, radius = packing("simple cubic", 10, 1)
+    np.save(tmp_path / "mask.npy", mask)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        code = main(["pores", str(tmp_path / "mask.npy"), "--threshold", "otsu", "--out",
+                     str(tmp_path / "res")])
+    err = capsys.readouterr().err.strip()
+    assert code == 2
+    assert "already a binary mask" in err and len(err.splitlines()) == 1
+    assert "Warning" not in err and not [w for w in caught
+                                         if issubclass(w.category, RuntimeWarning)]
+    assert not (tmp_path / "res").exists()
+
+
+def test_cli_region_of_interest_and_the_shortest_lifetime_option(tmp_path, capsys):
+    # Callister & Rethwisch as in the region-of-interest tests above: porosity 1 - pi/6
+    # of the sample; the option for the shortest lifetime kept is --min-persistence and
+    # the old name is gone (argparse refuses it, exit 2)
+    from voxtopo.cli import main
+    mask, roi, radius = _packing_in_air()
+    np.save(tmp_path / "mask.npy", mask)
+    np.save(tmp_path / "roi.npy", roi)
+    code = main(["pores", str(tmp_path / "mask.npy"), "--roi", str(tmp_path / "roi.npy"),
+                 "--out", str(tmp_path / "res"), "--engine", ENGINE, "--axis", "z",
+                 "--min-persistence", "0.5", "--spacing", "2", "--unit", "um"])
+    out = capsys.readouterr().out
+    assert code == 0
+    summary = json.loads((tmp_path / "res" / "summary.json").read_text())
+    assert summary["porosity"] == pytest.approx(1 - np.pi / 6, abs=0.1 * np.pi / (2 * radius))
+    assert summary["min_persistence"] == 0.5 and "min_lifetime" not in summary
+    assert "of the sample" in out and "z: yes" in out
+    with pytest.raises(SystemExit) as stop:
+        main(["pores", str(tmp_path / "mask.npy"), "--out", str(tmp_path / "res2"),
+              "--min-lifetime", "0.5"])
+    assert stop.value.code == 2
+
+
+def test_otsu_threshold_is_chosen_from_the_sample_alone():
+    # skimage.filters.threshold_otsu (Otsu 1979, through scikit-image) on the sample's own
+    # gray values is the reference: dark air around the sample must not move it
+    from skimage.filters import threshold_otsu
+    gray = np.zeros((20, 40, 40), np.uint8)                  # air, darker than the pores
+    inside = np.full((20, 20, 20), 200, np.uint8)            # solid
+    inside[:, 5:15, 5:15] = 100                              # a square channel of pore
+    gray[:, 10:30, 10:30] = inside
+    roi = np.zeros(gray.shape, bool)
+    roi[:, 10:30, 10:30] = True
+    result = analyse(gray, threshold="otsu", roi=roi, engine=ENGINE)
+    expected = threshold_otsu(gray[roi])
+    assert result.summary["threshold"] == pytest.approx(expected)
+    assert result.summary["porosity"] == pytest.approx(100 / 400)

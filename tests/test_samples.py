@@ -95,3 +95,12 @@ def test_masks_match_their_volumes(volume, mask):
 def test_sample_folder_stays_small():
     total = sum(p.stat().st_size for p in SAMPLES.iterdir() if p.is_file())
     assert total < 5e6
+
+
+def test_beads_region_of_interest_holds_every_glass_voxel():
+    # the disc's region of interest is the sample: no glass outside it, air around it
+    # (common practice, no source)
+    pore = np.load(SAMPLES / "beads_mask.npy", allow_pickle=False)
+    roi = np.load(SAMPLES / "beads_roi.npy", allow_pickle=False)
+    assert roi.dtype == np.bool_ and roi.shape == pore.shape
+    assert pore[~roi].all() and (~roi).any()

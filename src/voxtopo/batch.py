@@ -37,8 +37,9 @@ name (optional)
     "_", leading dots go, and rows that would share a folder get -2, -3, ...
 channel, timepoint, level (optional)
     Which channel, time point or resolution level of this scan to read; win over [load].
-mask (optional, pores job)
-    A binary pore mask of this scan (1 = pore); the scan is then drawn under the plots.
+mask, roi (optional, pores job)
+    A binary pore mask of this scan (1 = pore; the scan is then drawn under the plots), and
+    a mask of the sample (1 = sample; outside it voxels are neither pore nor solid).
 Any other column is kept as it is and copied into summary.csv.
 
 Instead of a CSV file, MANIFEST may be a glob such as "scans/*.tif" (quote it).
@@ -71,7 +72,7 @@ The settings file (TOML, or YAML with the same keys)
 
     [pores]                    # the options of `voxtopo pores`: threshold,
     threshold = "otsu"         # pores_bright, label, axis, neighbourhood,
-    pores_bright = false       # min_lifetime, engine
+    pores_bright = false       # roi, min_persistence, engine
 
     [patches]                  # the options of `voxtopo patches`: k, contrast_percent,
     k = 3                      # positions, seed, log, axis, slices, k_neighbour,
@@ -143,6 +144,9 @@ BATCH_RULES = {
 }
 #: Manifest columns that choose how one scan is read.
 _LOAD_COLUMNS = ("channel", "timepoint", "level")
+#: Manifest columns naming files of one scan that its job reads (the pores job's options
+#: of the same names).
+_FILE_COLUMNS = ("mask", "roi")
 
 #: Seconds a batch waits with no dask worker connected before it stops (keeping what
 #: finished); ``[batch] worker_timeout`` changes it.
@@ -341,7 +345,7 @@ class ScanEntry:
     group: str
     columns: dict
     load: dict = field(default_factory=dict)
-    mask: str | None = None
+    files: dict = field(default_factory=dict)
 
 
 def _spacing_text(text, where) -> tuple | None:
@@ -442,15 +446,17 @@ def read_manifest(manifest) -> list[ScanEntry]:
         if not raw_path:
             raise InputError(f"The path in {where} is empty; give the scan's file or folder.")
         full = raw_path if Path(raw_path).is_absolute() else str(base / raw_path)
-        mask = str(row.get("mask", "") or "").strip()
-        if mask and not Path(mask).is_absolute():
-            mask = str(base / mask)
+        files = {}
+        for column in _FILE_COLUMNS:
+            given = str(row.get(column, "") or "").strip()
+            if given:
+                files[column] = given if Path(given).is_absolute() else str(base / given)
         entries.append(ScanEntry(name=name, path=full,
                                  spacing=_spacing_text(row.get("spacing"), where),
                                  unit=(str(row.get("unit") or "").strip() or None),
                                  group=str(row.get("group", "") or ""),
                                  columns={k: v for k, v in row.items() if k != "name"},
-                                 load=_load_columns(row, where), mask=mask or None))
+                                 load=_load_columns(row, where), files=files))
     return entries
 
 
@@ -811,14 +817,15 @@ def run_batch(manifest, out, *, settings_path=None, scheduler=None, workers=None
     stream = stream or sys.stderr
     settings, text, kind = read_settings(settings_path)
     entries = read_manifest(manifest)
-    masked = [entry.name for entry in entries if entry.mask]
-    if masked and settings.job != "pores":
-        raise InputError(f"The manifest gives a mask for {masked[0]}, but only the pores job "
-                         f"reads masks and this batch runs {settings.job}; set job = \"pores\" "
-                         f"or leave the mask column out.")
+    with_files = [entry for entry in entries if entry.files]
+    if with_files and settings.job != "pores":
+        column = next(iter(with_files[0].files))
+        raise InputError(f"The manifest gives a {column} for {with_files[0].name}, but only "
+                         f"the pores job reads masks and this batch runs {settings.job}; set "
+                         f"job = \"pores\" or leave the {column} column out.")
     manifest_file = Path(manifest) if Path(manifest).is_file() else None
     inputs = [manifest_file, settings_path, *(entry.path for entry in entries),
-              *(entry.mask for entry in entries if entry.mask)]
+              *(path for entry in entries for path in entry.files.values())]
     out = _check_out(out, [i for i in inputs if i is not None], settings, force)
     loads = {e.name: _load_options(e, settings) for e in entries}
     needs = [scan_bytes(*peek, settings.job) for e in entries
@@ -886,7 +893,7 @@ def _submit_all(client, todo, jobs, loads, settings, scans_dir, skipped, stream,
     for entry in todo:
         if jobs[entry.name] == "analyse-out-of-core":
             continue
-        overrides = {"mask": entry.mask} if entry.mask else {}
+        overrides = dict(entry.files)
         future = client.submit(_run_one, jobs[entry.name], entry.path,
                                str(scans_dir / entry.name), loads[entry.name],
                                settings.as_dict(), overrides,

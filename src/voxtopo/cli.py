@@ -163,7 +163,8 @@ def _run_job(name: str, args, options, load_input, inputs) -> int:
         job.write(result, args.out, force=args.force)
     finally:
         bar.close()
-    print(f"voxtopo: {job.describe(result)}")
+    for line in job.describe(result).splitlines():
+        print(f"voxtopo: {line}")
     print(f"voxtopo: results written to {args.out} (research use only)")
     return 0
 
@@ -246,6 +247,9 @@ def _add_pores(subparsers) -> None:
                    help="segment a gray scan: pores at or below VALUE, or Otsu's threshold")
     s.add_argument("--pores-bright", action="store_true",
                    help="with --threshold: pores are the voxels above it")
+    s.add_argument("--roi", metavar="MASKFILE",
+                   help="region of interest: a binary mask on the scan's grid, 1 = sample; "
+                        "voxels outside it are neither pore nor solid")
     m = p.add_argument_group("measurement")
     m.add_argument("--axis", choices=["z", "y", "x"], action="append",
                    help="axis for percolation and connected porosity (repeat for several; "
@@ -253,9 +257,9 @@ def _add_pores(subparsers) -> None:
     m.add_argument("--neighbourhood", "--neighborhood", type=int, choices=[26, 6, 8, 4],
                    help="connectivity of the pore phase: 26 or 6 in 3D, 8 or 4 in 2D "
                         "(default 26/8); the solid takes the complementary 6/4")
-    m.add_argument("--min-lifetime", type=float, metavar="LENGTH",
-                   help="merge pores whose body exceeds their throat by no more than this "
-                        "(default half a voxel)")
+    m.add_argument("--min-persistence", type=float, metavar="LENGTH",
+                   help="the shortest lifetime kept: merge pores whose body exceeds their "
+                        "throat by no more than this (default half a voxel)")
     m.add_argument("--engine", choices=["auto", "voxtopo", "gudhi"], default="auto",
                    help="persistence engine (the diagram is the same)")
     add_load_options(p)
@@ -268,11 +272,12 @@ def _run_pores(args) -> int:
     options = PoresOptions(
         mask=args.mask, threshold=_threshold_value(args.threshold),
         pores_bright=args.pores_bright, label=args.label,
-        axis=tuple(args.axis) if args.axis else None, neighbourhood=args.neighbourhood,
-        min_lifetime=args.min_lifetime, engine=args.engine)
+        roi=args.roi, axis=tuple(args.axis) if args.axis else None,
+        neighbourhood=args.neighbourhood, min_persistence=args.min_persistence,
+        engine=args.engine)
     load_options = load_options_from(args)
     return _run_job("pores", args, options, lambda: load(args.scan, **load_options),
-                    [args.scan, args.mask])
+                    [args.scan, args.mask, args.roi])
 
 
 def _run_out_of_core(args, options, load_options) -> int:

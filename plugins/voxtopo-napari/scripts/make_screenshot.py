@@ -46,7 +46,7 @@ def main(out: str) -> None:
     if widget.result is None:
         sys.exit(f"The analysis did not finish: {widget.status.text()}")
     panel = widget.diagram_panel
-    panel.set_min_lifetime(2 * widget.result.diagram.spacing[0])
+    panel.set_min_persistence(2 * widget.result.diagram.spacing[0])
     pores = panel.birth_layers[0]
     table = pores.features
     inside = (np.isfinite(table["death"].to_numpy())

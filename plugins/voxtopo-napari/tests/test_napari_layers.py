@@ -37,8 +37,8 @@ def test_features_table_positions_are_voxels_times_spacing():
     assert (table["feature"].to_numpy() == rows.index.to_numpy()).all()
 
 
-def test_pore_radius_and_throat_radius_are_minus_birth_and_death():
-    """Pore radius = -birth, throat radius = -death of the signed distance (filtration
+def test_body_radius_and_throat_radius_are_minus_birth_and_death():
+    """Body radius (pores.csv's name) = -birth, throat radius = -death of the signed distance (filtration
     convention of voxtopo.filtration.signed_distance; common practice, no source)."""
     pairs = pd.DataFrame({"dim": [0, 0, 0], "birth": [-5.0, -3.0, -2.0],
                           "death": [np.inf, -1.0, 1.0], "persistence": [np.inf, 2.0, 3.0]})
@@ -48,13 +48,14 @@ def test_pore_radius_and_throat_radius_are_minus_birth_and_death():
     diagram = voxtopo.Diagram(pairs=pairs, ndim=2, shape=(8, 8), neighbourhood=8,
                               spacing=(1.0, 1.0), values="distance")
     table = features_table(diagram, 0, placement_of((8, 8), (1.0, 1.0)))
-    np.testing.assert_allclose(table["pore_radius"], [5.0, 3.0, 2.0])
+    np.testing.assert_allclose(table["body_radius"], [5.0, 3.0, 2.0])
+    assert "pore_radius" not in table.columns
     np.testing.assert_allclose(table["throat_radius"], [np.nan, 1.0, np.nan])
     layers = result_layers(diagram, placement_of((8, 8), (1.0, 1.0)), "t", mark_deaths=True)
     names = [kwargs["name"] for _, kwargs, _ in layers]
     assert names[0] == "pores · t"
     deaths = layers[2][0]
-    assert deaths.shape == (2, 2)  # the pore that never ends has no death voxel
+    assert deaths.shape == (2, 2)  # the pore that never dies has no death voxel
 
 
 def test_ramp_ends_at_its_first_and_last_colours():
@@ -89,3 +90,47 @@ def test_labels_become_a_mask_of_the_chosen_phase():
     assert pores_labelled.data.tolist() == [[0, 1], [1, 0]]
     assert pores_unlabelled.data.tolist() == [[1, 0], [0, 1]]
     assert labels.tolist() == [[0, 1], [2, 0]]  # the layer's data is not modified
+
+
+def test_plugin_and_cli_report_the_same_pores(tmp_path, capsys):
+    """For the same scan and settings (Otsu's threshold, the same min persistence) the
+    panel and `voxtopo pores` run the same pore job: the same counts, the same lines, one
+    pore point and one region id per row of pores.csv (consistency of the two shells;
+    common practice, no source)."""
+    import json
+
+    from voxtopo import cli
+    from voxtopo.jobs.analyse import AnalysisOptions
+    from voxtopo_napari._job import run_analysis, scan_from_layer_data
+
+    rng = np.random.default_rng(5)
+    z, y, x = np.indices((28, 28, 28))
+    solid = np.zeros((28, 28, 28), bool)
+    for centre in rng.uniform(0, 28, size=(30, 3)):
+        solid |= ((z - centre[0]) ** 2 + (y - centre[1]) ** 2 + (x - centre[2]) ** 2) <= 25
+    gray = np.where(solid, 180, 50) + rng.normal(0, 6, solid.shape)
+    gray = np.clip(gray, 0, 255).astype(np.uint8)
+    np.save(tmp_path / "gray.npy", gray)
+    assert cli.main(["pores", str(tmp_path / "gray.npy"), "--threshold", "otsu", "--out",
+                     str(tmp_path / "res"), "--spacing", "2", "--unit", "um",
+                     "--min-persistence", "1", "--engine", "gudhi"]) == 0
+    printed = [line.removeprefix("voxtopo: ") for line in capsys.readouterr().out.splitlines()
+               if "results written" not in line and not line.endswith("...")]
+    summary = json.loads((tmp_path / "res" / "summary.json").read_text())
+
+    scan = scan_from_layer_data(gray, name="gray", spacing=(2.0, 2.0, 2.0), unit="um")
+    options = AnalysisOptions(distance=True, threshold="otsu", min_persistence=1.0,
+                              engine="gudhi")
+    result = run_analysis(scan, options, name="gray", with_porosity=True)
+    assert result.porosity["counts"] == summary["counts"]
+    assert result.porosity["porosity"] == summary["porosity"]
+    from voxtopo.porosity import summary_lines
+    assert [line for line in summary_lines(result.porosity)] == printed
+    pores_layer = result.layers[0]
+    assert len(pores_layer[0]) == summary["counts"]["pores"]
+    table = pd.read_csv(tmp_path / "res" / "pores.csv")
+    assert sorted(pores_layer[1]["features"]["pore_id"]) == sorted(table["id"])
+    assert set(np.unique(result.regions)) - {0} == set(table["id"])
+    # the panel's export writes the same pore table as the command
+    result.export(tmp_path / "panel")
+    pd.testing.assert_frame_equal(pd.read_csv(tmp_path / "panel" / "pores.csv"), table)

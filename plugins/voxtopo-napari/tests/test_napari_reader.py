@@ -56,3 +56,28 @@ def test_a_folder_without_results_is_left_to_other_readers(tmp_path):
     (tmp_path / "notes.txt").write_text("not a result")
     assert napari_get_reader(str(tmp_path)) is None
     assert napari_get_reader(str(tmp_path / "notes.txt")) is None
+
+
+def test_a_pores_folder_opens_with_its_pores_where_the_table_puts_them(tmp_path):
+    """A folder of `voxtopo pores` opens (it crashed on its counts): one Points layer per
+    table, as many pores as pores.csv has rows (read with pandas alone), each at its
+    body position in the scan's unit (common practice, no source)."""
+    import json
+
+    import pandas as pd
+
+    z, y, x = np.meshgrid(*[np.arange(24) - 11.5] * 3, indexing="ij")
+    np.save(tmp_path / "cavity.npy", np.sqrt(z * z + y * y + x * x) <= 7)
+    out = tmp_path / "pores-result"
+    assert cli.main(["pores", str(tmp_path / "cavity.npy"), "--out", str(out), "--spacing",
+                     "1.5", "--unit", "um", "--engine", "gudhi"]) == 0
+    assert napari_get_reader(str(out)) is read_result_folder
+    layers = {kwargs["name"].split(" · ")[0]: (data, kwargs)
+              for data, kwargs, kind in read_result_folder(str(out))}
+    table = pd.read_csv(out / "pores.csv")
+    summary = json.loads((out / "summary.json").read_text())
+    data, kwargs = layers["pores"]
+    assert len(data) == len(table) == summary["counts"]["pores"]
+    np.testing.assert_allclose(data * np.asarray(kwargs["scale"]),
+                               table[["body_z", "body_y", "body_x"]].to_numpy())
+    assert list(kwargs["features"]["id"]) == list(table["id"])

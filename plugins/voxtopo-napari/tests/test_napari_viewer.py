@@ -14,7 +14,7 @@ import voxtopo
 from voxtopo import cli
 from voxtopo.diagram import AXES_3D
 from voxtopo_napari._layers import METADATA_KEY
-from voxtopo_napari._pore_regions import pore_regions_by_levels
+from voxtopo.porosity._regions import pore_regions_by_levels
 from voxtopo_napari._reader import napari_get_reader
 from voxtopo_napari._widget import AnalysisWidget
 
@@ -107,6 +107,23 @@ def test_spherical_shell_shows_one_component_and_one_cavity(make_napari_viewer, 
     assert 6 - 1 <= np.linalg.norm(cavity_birth - 10.5) <= 9 + 1  # born on the shell
 
 
+def test_panels_use_the_words_of_the_command_and_the_plots(make_napari_viewer, qtbot):
+    """One name for one idea (common practice, no source): the shortest lifetime kept is
+    "min persistence" as the command's --min-persistence, and a class that never dies is
+    "never dies" as in the plots of voxtopo.report and voxtopo.porosity."""
+    from qtpy.QtWidgets import QLabel
+    z, y, x = np.indices((12, 12, 12)) - 5.5
+    data = np.sqrt(z ** 2 + y ** 2 + x ** 2)
+    viewer, widget = _widget(make_napari_viewer, data)
+    _run(qtbot, widget)
+    labels = {label.text() for label in widget.findChildren(QLabel)}
+    labels |= {label.text() for label in widget.diagram_panel.findChildren(QLabel)}
+    assert "min persistence" in labels and "min persistence shown" in labels
+    assert not any("lifetime" in text for text in labels)
+    texts = [t.get_text().strip() for t in widget.diagram_panel.axes.texts]
+    assert "never dies" in texts and "never ends" not in texts
+
+
 def test_slider_hides_exactly_the_features_below_the_threshold(make_napari_viewer, qtbot):
     """Common practice, no source: a persistence threshold separates features from noise;
     here 'hidden' must mean exactly persistence < threshold, in layers and diagram."""
@@ -117,7 +134,7 @@ def test_slider_hides_exactly_the_features_below_the_threshold(make_napari_viewe
     panel = widget.diagram_panel
     all_persistence = widget.result.diagram.pairs["persistence"].to_numpy()
     threshold = float(np.median(all_persistence[np.isfinite(all_persistence)]))
-    panel.set_min_lifetime(threshold)
+    panel.set_min_persistence(threshold)
     expected_visible = set()
     for which in ("birth", "death"):
         for layer in _result_layers(viewer, which).values():
@@ -201,21 +218,24 @@ def test_distance_mode_labels_each_pore_region(make_napari_viewer, qtbot):
     pores = _result_layers(viewer)[0]
     assert pores.name.startswith("pores")
     assert len(pores.data) == 2
-    np.testing.assert_allclose(pores.features["pore_radius"], 5.0, atol=1.0)
+    np.testing.assert_allclose(pores.features["body_radius"], 5.0, atol=1.0)
     regions = [layer for layer in viewer.layers
                if (layer.metadata.get(METADATA_KEY) or {}).get("which") == "regions"]
     assert len(regions) == 1
     distance = widget.result.prepared.data
     births = pores.data.astype(np.int64)
-    expected = pore_regions_by_levels(distance, births, pores.features["death"].to_numpy(), 26)
-    np.testing.assert_array_equal(regions[0].data, expected)
+    by_order = pore_regions_by_levels(distance, births, pores.features["death"].to_numpy(), 26)
+    # the regions carry the pore's id of the pore table, as the pore layer does
+    ids = np.concatenate([[0], pores.features["pore_id"].to_numpy()])
+    np.testing.assert_array_equal(regions[0].data, ids[by_order])
     assert set(np.unique(regions[0].data)) == {0, 1, 2}
     # voxtopo.porosity sweeps its own basins: the pore that ends at the throat drains
     # exactly the voxels of its region (voxel volume 1)
     table = pores.features
     ending = int(np.flatnonzero(np.isfinite(table["death"].to_numpy()))[0])
-    assert table["body_volume"][ending] == np.count_nonzero(regions[0].data == ending + 1)
-    assert "Porosity" in widget.status.text()
+    assert table["body_volume"][ending] == np.count_nonzero(
+        regions[0].data == table["pore_id"][ending])
+    assert widget.status.text().startswith("Porosity")
 
 
 def test_reader_opens_a_folder_written_by_the_cli(make_napari_viewer, tmp_path):

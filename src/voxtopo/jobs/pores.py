@@ -28,9 +28,12 @@ class PoresOptions:
     threshold       segment a gray scan: a value or "otsu"; pores at or below it
     pores_bright    with threshold: the pores are the voxels above it
     label           the pore label of a label image
+    roi             a mask file of the sample (1 = sample): outside it voxels are neither
+                    pore nor solid, and every number counts only the sample
     axis            axes of percolation and connected porosity ("z", "y", "x" or a list)
     neighbourhood   connectivity of the pore phase: 26 / 8 (default) or 6 / 4
-    min_lifetime    merge pores whose body exceeds their throat by no more than this
+    min_persistence merge pores whose body exceeds their throat by no more than this
+                    (default half the finest voxel size)
     engine          persistence engine: "auto", "voxtopo" or "gudhi"
     """
 
@@ -38,9 +41,10 @@ class PoresOptions:
     threshold: str | float | None = None
     pores_bright: bool = False
     label: int | None = None
+    roi: str | None = None
     axis: str | tuple | None = None
     neighbourhood: int | None = None
-    min_lifetime: float | None = None
+    min_persistence: float | None = None
     engine: str = "auto"
 
     def __post_init__(self):
@@ -56,8 +60,9 @@ class PoresOptions:
 #: What each field of PoresOptions accepts (settings files are checked against it).
 PORES_RULES = {
     "mask": optional(TEXT), "threshold": optional(THRESHOLD), "pores_bright": BOOLEAN,
-    "label": optional(WHOLE), "axis": optional(AXIS), "neighbourhood": optional(NEIGHBOURHOOD),
-    "min_lifetime": optional(NON_NEGATIVE), "engine": ENGINE,
+    "label": optional(WHOLE), "roi": optional(TEXT), "axis": optional(AXIS),
+    "neighbourhood": optional(NEIGHBOURHOOD), "min_persistence": optional(NON_NEGATIVE),
+    "engine": ENGINE,
 }
 
 #: The settings class of this job, under the name every job uses.
@@ -70,45 +75,45 @@ class PoresResult:
 
     analysis: object
     scan: Scan
-    mask_source: str | None = None
+    inputs: tuple = ()
 
 
-def _mask_for(scan: Scan, path: str) -> Scan:
-    """The pore mask of ``scan`` read from ``path``, on the scan's voxel size."""
-    mask = load(path)
-    if mask.shape != scan.shape:
-        raise InputError(f"The mask {path} has shape {mask.shape} but the scan "
-                         f"{scan.source or ''} has shape {scan.shape}; give a mask of the "
+def _on_grid_of(scan: Scan, path: str, what: str) -> Scan:
+    """A mask of ``scan`` (pores, or the sample) read from ``path``, on the scan's voxel
+    size."""
+    other = load(path)
+    if other.shape != scan.shape:
+        raise InputError(f"The {what} {path} has shape {other.shape} but the scan "
+                         f"{scan.source or ''} has shape {scan.shape}; give a {what} of the "
                          f"same scan.")
-    return mask.with_data(mask.data, spacing=scan.spacing, unit=scan.unit)
+    return other.with_data(other.data, spacing=scan.spacing, unit=scan.unit)
 
 
 def run(scan: Scan, options: PoresOptions | None = None, progress=None) -> PoresResult:
     """Measure the pore space of ``scan`` (or of ``options.mask`` over it)."""
     options = options or PoresOptions()
-    target = _mask_for(scan, options.mask) if options.mask else scan
+    target = _on_grid_of(scan, options.mask, "mask") if options.mask else scan
+    roi = _on_grid_of(scan, options.roi, "region of interest") if options.roi else None
     axis = list(options.axis) if isinstance(options.axis, tuple) else options.axis
     analysis = porosity.analyse(target, threshold=options.threshold,
                                 pores_bright=options.pores_bright, label=options.label,
-                                axis=axis, neighbourhood=options.neighbourhood,
-                                min_lifetime=options.min_lifetime, engine=options.engine,
+                                roi=roi, axis=axis, neighbourhood=options.neighbourhood,
+                                min_persistence=options.min_persistence, engine=options.engine,
                                 progress=progress)
-    return PoresResult(analysis, scan, options.mask)
+    return PoresResult(analysis, scan, (options.mask, options.roi))
 
 
 def write(result: PoresResult, out, force: bool = False) -> Path:
     """Fill the result folder ``out`` (pores.csv, grains.csv, loops.csv, voids.csv,
     pairs.csv, summary.json, plots, report.html)."""
     return porosity.write_pores(out, result.analysis, result.scan, force=force,
-                                inputs=[result.mask_source])
+                                inputs=result.inputs)
 
 
 def describe(result: PoresResult) -> str:
-    """What was found, in the words of the CLI line and the plugin's status."""
-    summary = result.analysis.summary
-    unit = summary["unit"]
-    flow = ", ".join(f"{a}: {'yes' if summary['percolates'][a] else 'no'} "
-                     f"(r = {summary['percolation_radius'][a]:.4g} {unit})"
-                     for a in summary["percolates"])
-    return (f"porosity {summary['porosity']:.4f}, {summary['counts']['pores']} pores "
-            f"({summary['counts']['pores_at_border']} at the border); percolates {flow}")
+    """What was found, in the words of the CLI lines and the plugin's status (one line
+    each: porosity and counts with percolation, then every note the reader did not
+    already give before the work started)."""
+    said = set(result.scan.metadata.get("notes", []))
+    return "\n".join(line for line in porosity.summary_lines(result.analysis.summary)
+                     if line not in said)

@@ -4,7 +4,7 @@ Pore bodies and throats from the persistence of the signed distance transform, s
 grains likewise, loops and enclosed voids, percolation radius and connected porosity per
 axis, Euler characteristic and connectivity density of each phase, and the Minkowski
 functionals of the pore phase. :func:`analyse` measures, :func:`write_pores` writes the
-result folder.
+result folder, :func:`regions_of` labels each pore's region by its id.
 
 >>> import numpy as np
 >>> from voxtopo.porosity import analyse
@@ -12,10 +12,13 @@ result folder.
 >>> cavity[5:11, 5:11, 5:11] = True                   # one closed pore in solid
 >>> result = analyse(cavity, spacing=(2.0, 2.0, 2.0), unit="um")
 >>> result.summary["counts"]["pores"], result.summary["percolates"]["x"]
-(1, False)
+(1, 'no')
 """
 
-from ._analysis import COMPLEMENT, PoreAnalysis, analyse, cautions
-from ._write import write_pores
+from ._analysis import (COMPLEMENT, PoreAnalysis, analyse, cautions, is_binary_mask,
+                        size_column)
+from ._regions import pore_regions, regions_of
+from ._write import summary_lines, write_pores
 
-__all__ = ["analyse", "write_pores", "PoreAnalysis", "cautions", "COMPLEMENT"]
+__all__ = ["analyse", "write_pores", "PoreAnalysis", "cautions", "COMPLEMENT", "size_column",
+           "summary_lines", "pore_regions", "regions_of", "is_binary_mask"]

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import time
 from dataclasses import dataclass, field
 
@@ -40,8 +41,9 @@ def cautions(spacing, unit) -> list[str]:
     return [
         "The numbers depend on the segmentation (threshold, label, smoothing) and on the "
         "resolution of the scan.",
-        f"A throat narrower than about two voxels ({2 * finest:.4g} {unit}) is not resolved: "
-        f"it may appear closed, or wider than it is.",
+        f"A throat one or two voxels wide (radius below {RESOLVED_RADIUS_VOXELS} voxels, "
+        f"{RESOLVED_RADIUS_VOXELS * finest:.4g} {unit}) is not resolved: it may appear "
+        f"closed, or wider than it is.",
         "These results support research; they are not a medical diagnosis nor a "
         "certification of a material, part or structure. Defer to local codes and licensed "
         "practice.",
@@ -69,6 +71,10 @@ class PoreAnalysis:
     critical_throats : dict
         Axis name -> physical coordinates of the voxel that first connects the two faces
         (None when the axis does not percolate).
+    sample : ndarray of bool or None
+        The region of interest (None: the whole scan).
+    pore_rows : ndarray of int
+        For each row of ``pores`` (same order), its row in ``diagram.pairs``.
     """
 
     pores: pd.DataFrame
@@ -81,19 +87,63 @@ class PoreAnalysis:
     mask: np.ndarray
     distance: Scan
     critical_throats: dict = field(default_factory=dict)
+    sample: np.ndarray | None = None
+    pore_rows: np.ndarray | None = None
 
 
 # ------------------------------------------------------------------------------- input
-def pore_mask(scan: Scan, *, threshold=None, pores_bright=False, label=None):
+#: a phase with fewer voxels than this, or a smaller share of the sample than
+#: SPARSE_PHASE_FRACTION, is named in the summary's notes: its numbers rest on a handful of
+#: voxels (a 3x3x3 block is the smallest ball with an interior voxel)
+SPARSE_PHASE_VOXELS = 27
+SPARSE_PHASE_FRACTION = 0.001
+
+#: a channel whose radius is below this many voxels (distance between voxel centres) is one
+#: or two voxels wide: no voxel lies deeper than one voxel from the solid, so the scan does
+#: not resolve its width
+RESOLVED_RADIUS_VOXELS = 1.5
+
+
+def _binary_foreground(data: np.ndarray):
+    """The value marking the foreground when ``data`` is a binary mask (True, 1, or 255 in
+    an 8-bit image without any 1), else None."""
+    if data.dtype == bool:
+        return True
+    if not (np.issubdtype(data.dtype, np.integer) or np.issubdtype(data.dtype, np.floating)):
+        return None
+    # 8-bit masks from image editors mark the foreground 255
+    foreground = 255 if data.dtype == np.uint8 and not (data == 1).any() else 1
+    return foreground if np.logical_or(data == 0, data == foreground).all() else None
+
+
+def is_binary_mask(data: np.ndarray) -> bool:
+    """True for a binary mask as :func:`analyse` reads one: bool, 0/1, or 0/255 in 8 bits.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> is_binary_mask(np.array([0, 255], np.uint8)), is_binary_mask(np.array([0, 2]))
+    (True, False)
+    """
+    return _binary_foreground(np.asarray(data)) is not None
+
+
+def pore_mask(scan: Scan, *, threshold=None, pores_bright=False, label=None, sample=None):
     """(mask, segmentation) from a binary mask, a label image or a gray scan.
 
-    ``segmentation`` says how the pores were chosen, for the summary.
+    ``segmentation`` says how the pores were chosen, for the summary. With ``sample`` (a
+    region of interest) Otsu's threshold is chosen from the sample's gray values alone, so
+    that air or mounting around it does not move the threshold.
     """
     data = scan.data
     where = _name(scan)
     if threshold is not None and label is not None:
         raise InputError(f"Give either a threshold or a pore label for {where}, not both "
                          f"(got threshold={threshold!r}, label={label!r}).")
+    if pores_bright and threshold is None:
+        raise InputError(f"pores_bright (CLI --pores-bright) only says which side of a "
+                         f"threshold the pores are on, and no threshold was given for "
+                         f"{where}; add a threshold or leave it out.")
     if label is not None:
         if not np.issubdtype(data.dtype, np.integer) and data.dtype != bool:
             raise InputError(f"A pore label picks voxels of a label image, but the input "
@@ -108,24 +158,53 @@ def pore_mask(scan: Scan, *, threshold=None, pores_bright=False, label=None):
     if threshold is not None:
         if isinstance(threshold, str) and threshold != "otsu":
             raise InputError(f"The threshold should be a number or 'otsu', got {threshold!r}.")
+        if _binary_foreground(data) is not None:
+            raise InputError(f"The input {where} is already a binary mask (two values only), "
+                             f"where a threshold could only swap or keep its phases; leave "
+                             f"out the threshold: its True (1) voxels are the pores.")
+        filtration.check_finite(scan)
+        method = "otsu" if threshold == "otsu" else "given"
+        if threshold == "otsu" and sample is not None:
+            values = data[sample].reshape((1,) * (data.ndim - 1) + (-1,))
+            _, threshold = filtration.threshold(scan.with_data(values), "otsu")
+            method = "otsu within the region of interest"
         mask, used = filtration.threshold(scan, threshold, below=not pores_bright)
-        return mask, {"method": "otsu" if threshold == "otsu" else "given", "threshold": used,
+        return mask, {"method": method, "threshold": used,
                       "pores": "above the threshold" if pores_bright
                       else "at or below the threshold"}
-    if data.dtype == bool:
-        return data, {"method": "mask", "threshold": None}
-    filtration.check_finite(scan)
-    # 8-bit masks from image editors mark the foreground 255
-    foreground = 255 if data.dtype == np.uint8 and not (data == 1).any() else 1
-    binary = np.logical_or(data == 0, data == foreground)
-    if not binary.all():
-        examples = np.unique(data[~binary])[:3].tolist()
+    if data.dtype != bool:
+        filtration.check_finite(scan)
+    foreground = _binary_foreground(data)
+    if foreground is None:
+        examples = np.unique(data[(data != 0) & (data != 1)])[:3].tolist()
         raise InputError(
             f"The input {where} is not a binary mask (it holds values such as {examples}); "
-            f"give a "
-            f"threshold (a value or 'otsu', CLI --threshold) or the pore label of a label "
-            f"image (CLI --label).")
+            f"give a threshold (a value or 'otsu', CLI --threshold) or the pore label of a "
+            f"label image (CLI --label).")
     return data == foreground, {"method": "mask", "threshold": None}
+
+
+def region_of_interest(roi, shape, where: str) -> np.ndarray | None:
+    """The sample as a bool array of ``shape`` (True = sample), or None for the whole scan.
+
+    ``roi`` is a binary array or Scan (True, 1 or 255 = sample)."""
+    if roi is None:
+        return None
+    data = roi.data if isinstance(roi, Scan) else np.asarray(roi)
+    named = roi.source if isinstance(roi, Scan) and roi.source else "the region of interest"
+    if data.shape != tuple(shape):
+        raise InputError(f"The region of interest {named} has shape {data.shape} but the "
+                         f"scan {where} has shape {tuple(shape)}; give a mask of the same "
+                         f"grid.")
+    foreground = _binary_foreground(data)
+    if foreground is None:
+        raise InputError(f"The region of interest {named} is not a binary mask (True or 1 "
+                         f"marks the sample); threshold it first.")
+    sample = data == foreground
+    if not sample.any():
+        raise InputError(f"The region of interest {named} holds no voxel of the sample "
+                         f"(it is all 0); True or 1 marks the sample.")
+    return sample
 
 
 def _name(scan: Scan) -> str:
@@ -142,15 +221,39 @@ def _check_extent(shape, where: str) -> None:
                          f"needs at least 2 voxels along every axis{hint}.")
 
 
-def _check_phases(mask: np.ndarray, where: str) -> None:
-    if not mask.any():
-        raise InputError(f"The input {where} has no pore voxels, so there is no pore space "
-                         f"to measure; check the threshold or label, or whether pores are "
-                         f"bright.")
-    if mask.all():
-        raise InputError(f"The input {where} is pore in every voxel, so there is no solid to "
-                         f"bound the pores; check the threshold or label, or whether pores "
-                         f"are bright.")
+def _selected_by(segmentation: dict) -> str:
+    method = segmentation["method"]
+    if method == "label":
+        return f"the pore label {segmentation['label']}"
+    if method != "mask":
+        how = "Otsu's threshold" if method.startswith("otsu") else "the threshold"
+        return f"{how} {segmentation['threshold']:.6g} (pores {segmentation['pores']})"
+    return "the mask"
+
+
+def _check_phases(pore: np.ndarray, solid: np.ndarray, sample_voxels: int, where: str,
+                  segmentation: dict) -> list[str]:
+    """Refuse a phase that is empty; return a note for a phase of almost no voxels."""
+    chosen = _selected_by(segmentation)
+    pore_voxels = int(np.count_nonzero(pore))
+    solid_voxels = int(np.count_nonzero(solid))
+    sample = "sample" if sample_voxels < pore.size else "scan"
+    if pore_voxels == 0:
+        raise InputError(f"{chosen[0].upper() + chosen[1:]} selects no pore voxel in the "
+                         f"{sample} {where}, so there is no pore space to measure; check the "
+                         f"threshold or label, or whether pores are bright.")
+    if solid_voxels == 0:
+        raise InputError(f"{chosen[0].upper() + chosen[1:]} makes every voxel of the "
+                         f"{sample} {where} pore, so there is no solid to bound the pores; "
+                         f"check the threshold or label, or whether pores are bright.")
+    notes = []
+    for phase, count in (("pore", pore_voxels), ("solid", solid_voxels)):
+        if count < SPARSE_PHASE_VOXELS or count < SPARSE_PHASE_FRACTION * sample_voxels:
+            notes.append(f"{chosen[0].upper() + chosen[1:]} leaves only {count} {phase} "
+                         f"voxels ({100 * count / sample_voxels:.3g} % of the {sample}), so "
+                         f"the {phase} numbers rest on a handful of voxels; check the "
+                         f"segmentation.")
+    return notes
 
 
 def _axes(axis, ndim: int) -> list[int]:
@@ -189,20 +292,28 @@ def _flat(pairs: pd.DataFrame, which: str, shape) -> np.ndarray:
     return np.where(missing, -1, flat)
 
 
+def size_column(ndim: int, body: str = "body") -> str:
+    """Name of the own-size column of a pore or grain table: a volume in 3D, an area in 2D."""
+    return f"{body}_volume" if ndim == 3 else f"{body}_area"
+
+
 def _basin_features(depth: np.ndarray, phase: np.ndarray, neighbourhood: int, births,
-                    deaths, birth_voxel, spacing, order):
-    """Body radius, constriction radius, border flag and own volume of dimension-0 features.
+                    deaths, birth_voxel, spacing, order, edge, room_in_sample):
+    """Body radius, constriction radius, border flag and own size of dimension-0 features.
 
     ``depth`` is the signed distance oriented so that the phase is negative; ``births`` and
     ``deaths`` are levels of that field. The basin of a feature is the component of
     ``{depth < min(death, 0)}`` holding its birth voxel: the region it drains before it
     joins an older feature, or its whole connected piece of the phase when it never does.
+    ``edge`` (flat bool) marks the voxels at the border of the scan or of the sample;
+    ``room_in_sample`` (or None) is each voxel's distance to the nearest voxel outside the
+    region of interest.
     """
     shape = phase.shape
     level = np.minimum(deaths, 0.0)
     order_q = np.argsort(level, kind="stable")
     size, own, touches = _sweep.basins(order, depth, shape, neighbourhood,
-                                       birth_voxel[order_q], level[order_q])
+                                       birth_voxel[order_q], level[order_q], edge=edge)
     back = np.empty_like(order_q)
     back[order_q] = np.arange(len(order_q))
     voxel_volume = float(np.prod(spacing))
@@ -213,42 +324,58 @@ def _basin_features(depth: np.ndarray, phase: np.ndarray, neighbourhood: int, bi
     # the inscribed ball must fit in the scan's box (outer voxel faces) to be trusted
     room = np.minimum(centre + half, extent + half - centre).min(axis=1) if len(centre) \
         else np.zeros(0)
+    if room_in_sample is not None and len(centre):
+        room = np.minimum(room, room_in_sample.ravel()[birth_voxel])
     ball_out = room < body_radius
     return {
         "body_radius": body_radius,
         "centre": centre,
         "border": touches[back] | ball_out,
-        "body_volume": own[back] * voxel_volume,
+        "own_size": own[back] * voxel_volume,
         "basin_voxels": size[back],
     }
 
 
 def _phase_table(pairs: pd.DataFrame, depth: np.ndarray, phase: np.ndarray, neighbourhood,
-                 spacing, flip: bool, min_lifetime: float, names: tuple[str, str],
-                 order=None):
+                 spacing, flip: bool, min_persistence: float, names: tuple[str, str],
+                 order=None, edge=None, room_in_sample=None, pieces=None):
     """Table of the dimension-0 features of one phase (pores, or grains with ``flip``).
 
-    ``order``: the phase's voxels by increasing ``depth`` (computed when not given)."""
+    ``order``: the phase's voxels by increasing ``depth`` (computed when not given).
+    ``edge``: flat bool array of the voxels at the border of the scan or of the sample.
+    ``pieces``: labels of the phase's connected pieces (computed when not given).
+    ``isolated``: the feature's connected piece of the phase (at level 0) holds no other
+    feature of the table and touches no border: a closed pore (or a loose grain)."""
     ndim = phase.ndim
     axes = AXES_3D[3 - ndim:]
     body, neck = names
+    if edge is None:
+        edge = _sweep.border_voxels(phase.shape)
     births = pairs["birth"].to_numpy(dtype=np.float64)
     deaths = pairs["death"].to_numpy(dtype=np.float64)
     if flip:  # superlevel values of the solid: turn them into sublevel depths
         births, deaths = -births, -deaths
     inside = births < 0
     depth_below = np.minimum(deaths, 0.0) - births
-    keep = inside & (depth_below > min_lifetime)
+    keep = inside & (depth_below > min_persistence)
     pairs, births, deaths = pairs[keep], births[keep], deaths[keep]
     birth_voxel = _flat(pairs, "birth", phase.shape)
     death_voxel = _flat(pairs, "death", phase.shape)
     if order is None:
         order = _sweep.sweep_order(depth, phase)
     feats = _basin_features(depth, phase, neighbourhood, births, deaths, birth_voxel, spacing,
-                            order)
+                            order, edge, room_in_sample)
     joined = deaths < 0
     neck_radius = np.where(joined, -deaths, np.nan)
     neck_at = _coordinates(np.where(joined, death_voxel, -1), phase.shape, spacing)
+    if pieces is None:
+        pieces = pore_components(phase, neighbourhood)
+    piece = pieces.ravel()[birth_voxel]
+    features_in_piece = np.bincount(piece, minlength=pieces.max() + 1)
+    at_edge = np.zeros(pieces.max() + 1, dtype=bool)
+    at_edge[np.unique(pieces.ravel()[edge.ravel()])] = True
+    at_edge[0] = False
+    isolated = (features_in_piece[piece] == 1) & ~at_edge[piece]
     table = {"id": np.arange(1, len(births) + 1), f"{body}_radius": feats["body_radius"]}
     for k, a in enumerate(axes):
         table[f"{body}_{a}"] = feats["centre"][:, k]
@@ -257,12 +384,22 @@ def _phase_table(pairs: pd.DataFrame, depth: np.ndarray, phase: np.ndarray, neig
         table[f"{neck}_{a}"] = neck_at[:, k]
     table["border"] = feats["border"].astype(bool)
     table["lifetime"] = deaths - births
-    table[f"{body}_volume"] = feats["body_volume"]
-    table["isolated"] = ~joined
+    table[size_column(ndim, body)] = feats["own_size"]
+    table["isolated"] = isolated
+    # the birth voxel's indices beside its physical position: the key to the regions
+    birth_index = np.unravel_index(np.maximum(birth_voxel, 0), phase.shape)
+    for k, a in enumerate(axes):
+        table[f"{body}_voxel_{a}"] = birth_index[k].astype(np.int64)
+    table["pair_row"] = pairs.index.to_numpy(dtype=np.int64)
     frame = pd.DataFrame(table)
     frame = frame.sort_values(f"{body}_radius", ascending=False, kind="stable")
     frame["id"] = np.arange(1, len(frame) + 1)
     return frame.reset_index(drop=True)
+
+
+def _rows_of_dimension(diagram, dim: int) -> pd.DataFrame:
+    """The pairs of one dimension, keeping their row numbers in ``diagram.pairs``."""
+    return diagram.pairs[diagram.pairs["dim"] == dim]
 
 
 def _kind(birth: np.ndarray, death: np.ndarray, superlevel: bool) -> np.ndarray:
@@ -272,7 +409,7 @@ def _kind(birth: np.ndarray, death: np.ndarray, superlevel: bool) -> np.ndarray:
     return np.where(high <= 0, "pore", np.where(low >= 0, "solid", "crossing"))
 
 
-def _loop_table(diagram, spacing, min_lifetime) -> pd.DataFrame:
+def _loop_table(diagram, spacing, min_persistence) -> pd.DataFrame:
     """Dimension-1 pairs of the pore-phase diagram: loops of the eroded pore space.
 
     A loop is born at -channel_radius when balls of that radius can first travel round it,
@@ -280,7 +417,7 @@ def _loop_table(diagram, spacing, min_lifetime) -> pd.DataFrame:
     radius, or at a negative level when it closes within the pore space.
     """
     pairs = diagram.dimension(1).pairs
-    pairs = pairs[pairs["persistence"] > min_lifetime]
+    pairs = pairs[pairs["persistence"] > min_persistence]
     ndim = diagram.ndim
     axes = AXES_3D[3 - ndim:]
     birth = pairs["birth"].to_numpy(dtype=np.float64)
@@ -299,7 +436,7 @@ def _loop_table(diagram, spacing, min_lifetime) -> pd.DataFrame:
     return pd.DataFrame(table)
 
 
-def _void_table(solid_diagram, spacing, min_lifetime) -> pd.DataFrame:
+def _void_table(solid_diagram, spacing, min_persistence) -> pd.DataFrame:
     """Dimension-2 pairs of the solid-phase (superlevel) diagram: cavities of the solid.
 
     A cavity closes at +wall_radius, the half-thickness of the thinnest part of the solid
@@ -313,7 +450,7 @@ def _void_table(solid_diagram, spacing, min_lifetime) -> pd.DataFrame:
     if ndim < 3:
         return pd.DataFrame({c: [] for c in columns})
     pairs = solid_diagram.dimension(2).pairs
-    pairs = pairs[pairs["persistence"] > min_lifetime]
+    pairs = pairs[pairs["persistence"] > min_persistence]
     birth = pairs["birth"].to_numpy(dtype=np.float64)
     death = pairs["death"].to_numpy(dtype=np.float64)
     shape = solid_diagram.shape
@@ -348,42 +485,99 @@ def percolation(distance: np.ndarray, mask: np.ndarray, axis: int, neighbourhood
 
 
 def pore_components(mask: np.ndarray, neighbourhood: int) -> np.ndarray:
-    """Labels of the connected pieces of the pore phase (scipy.ndimage.label)."""
+    """Labels of the connected pieces of a phase (scipy.ndimage.label), the pore phase's or
+    the solid's, with that phase's neighbourhood."""
     full = neighbourhood in (26, 8)
     structure = ndimage.generate_binary_structure(mask.ndim, mask.ndim if full else 1)
     return ndimage.label(mask, structure=structure)[0]
 
 
-def connected_fraction(labels: np.ndarray, axis: int) -> float:
-    """Fraction of the scan's volume in pore components touching both faces of ``axis``."""
+def connected_fraction(labels: np.ndarray, axis: int, sample_voxels: int | None = None) -> float:
+    """Fraction of the sample's volume (default: the scan's) in pore components touching
+    both faces of ``axis``."""
     inlet = np.unique(np.take(labels, 0, axis=axis))
     outlet = np.unique(np.take(labels, -1, axis=axis))
     through = np.intersect1d(inlet[inlet > 0], outlet[outlet > 0])
     if len(through) == 0:
         return 0.0
-    return float(np.isin(labels, through).sum() / labels.size)
+    return float(np.isin(labels, through).sum() / (sample_voxels or labels.size))
 
 
-def minkowski(mask: np.ndarray, spacing, chi_pore: int) -> dict:
-    """Minkowski functionals of the pore phase per unit volume of the scan."""
-    volume = mask.size * float(np.prod(spacing))
+def minkowski(mask: np.ndarray, spacing, chi_pore: int, sample=None) -> dict:
+    """Minkowski functionals of the pore phase per unit volume of the sample (default: the
+    scan); with ``sample`` only the interface inside it counts."""
+    sample_voxels = mask.size if sample is None else int(np.count_nonzero(sample))
+    volume = sample_voxels * float(np.prod(spacing))
     sigma = [SURFACE_SMOOTHING_VOXELS] * mask.ndim
     soft = ndimage.gaussian_filter(mask.astype(np.float32), sigma=sigma, mode="nearest")
     if mask.ndim == 3:
         vertices, faces = _minkowski.interface_mesh(soft, spacing)
+        if sample is not None:
+            faces = _minkowski.faces_in_sample(vertices, faces, sample, spacing)
         area = _minkowski.surface_area(vertices, faces)
         curvature = _minkowski.integral_mean_curvature(vertices, faces)
         mean_curvature_density = curvature / volume
     else:
-        area = _minkowski.boundary_length_2d(soft, spacing)
+        area = _minkowski.boundary_length_2d(soft, spacing, sample)
         mean_curvature_density = None
+    pore_voxels = np.count_nonzero(mask if sample is None else mask & sample)
     return {
         "phase": "pore",
-        "volume_fraction": float(mask.mean()),
+        "volume_fraction": float(pore_voxels / sample_voxels),
         "surface_area_density": area / volume,
         "mean_curvature_density": mean_curvature_density,
         "euler_density": chi_pore / volume,
     }
+
+
+def percolation_state(radius: float | None, finest: float) -> str:
+    """'yes', 'not resolved' (narrowest passage one or two voxels wide), 'no', or 'not
+    measured' (``radius`` None: the sample does not reach both faces)."""
+    if radius is None:
+        return "not measured"
+    if radius <= 0:
+        return "no"
+    return "yes" if radius >= RESOLVED_RADIUS_VOXELS * finest else "not resolved"
+
+
+def _outside_as_never(diagram, outside_level: float):
+    """The diagram of the sample alone: pairs born in the outside (at ``outside_level``)
+    are dropped, deaths there become 'never dies' (no death voxel)."""
+    pairs = diagram.pairs
+    sign = -1.0 if diagram.superlevel else 1.0
+    born_outside = sign * pairs["birth"].to_numpy(dtype=np.float64) >= sign * outside_level
+    pairs = pairs[~born_outside].copy()
+    dies_outside = sign * pairs["death"].to_numpy(dtype=np.float64) >= sign * outside_level
+    pairs.loc[dies_outside, "death"] = sign * np.inf
+    pairs.loc[dies_outside, "persistence"] = np.inf
+    for column in pairs.columns:
+        if column.startswith("death_"):
+            pairs.loc[dies_outside, column] = np.nan
+    return dataclasses.replace(diagram, pairs=pairs.reset_index(drop=True))
+
+
+def _sample_distance(scan: Scan, pore: np.ndarray, solid: np.ndarray) -> Scan:
+    """Signed distance in the sample: -d in the pores, +d in the solid, d to the nearest
+    voxel centre of the other phase in the sample (outside a region of interest a voxel is
+    neither, as the space beyond the scan's faces is). Without a region of interest this is
+    :func:`voxtopo.filtration.signed_distance` of the pore mask."""
+    inside = ndimage.distance_transform_edt(~solid, sampling=scan.spacing)
+    outside = ndimage.distance_transform_edt(~pore, sampling=scan.spacing)
+    return scan.with_data(np.where(pore, -inside, outside), values="distance")
+
+
+def _voxel_size_notes(unit: str, chi_solid: int, solid_pieces: int, ndim: int) -> list[str]:
+    notes = []
+    if unit == "px":
+        notes.append("No voxel size was given or found in the file: every length is in "
+                     "voxels (px) and every density per voxel, not a physical quantity; "
+                     "give the voxel size (CLI --spacing, --unit) for physical numbers.")
+    if chi_solid > 1:
+        notes.append(f"The connectivity density is negative because the solid is "
+                     f"{solid_pieces} separate pieces (Euler characteristic {chi_solid} > 1): "
+                     f"(1 - chi) / V assumes one connected structure and then counts its "
+                     f"loops per unit {'volume' if ndim == 3 else 'area'}.")
+    return notes
 
 
 def _estimate_bytes(shape, neighbourhood, engine) -> int:
@@ -394,8 +588,8 @@ def _estimate_bytes(shape, neighbourhood, engine) -> int:
 
 # ------------------------------------------------------------------------------ analyse
 def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=None,
-            spacing=None, unit=None, axis=None, neighbourhood: int | None = None,
-            min_lifetime: float | None = None, engine: str = "auto",
+            roi=None, spacing=None, unit=None, axis=None, neighbourhood: int | None = None,
+            min_persistence: float | None = None, engine: str = "auto",
             progress=None) -> PoreAnalysis:
     """Pore bodies, throats, grains, percolation and integral geometry of a two-phase scan.
 
@@ -403,7 +597,8 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
     ----------
     mask_or_scan : ndarray or Scan
         A binary mask (True, or 1, marks pore), a label image (with ``label``) or a
-        grayscale scan (with ``threshold``); 2D (y, x) or 3D (z, y, x).
+        grayscale scan (with ``threshold``); 2D (y, x) or 3D (z, y, x). A threshold on a
+        binary mask is refused: it could only keep or swap the two phases.
     threshold : float or "otsu", optional
         Segment a grayscale scan: pores are the voxels at or below it (above it with
         ``pores_bright``). "otsu" picks the value by Otsu's method; the value used is in
@@ -412,6 +607,11 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
         With ``threshold``: the pores are the bright phase.
     label : int, optional
         The pore label of a label image.
+    roi : ndarray or Scan, optional
+        Region of interest on the same grid: True (or 1) marks the sample. Outside it a
+        voxel is neither pore nor solid: porosity, percolation, sizes, Euler
+        characteristics and connectivity density count only the sample, and a pore or
+        grain reaching its edge is flagged ``border`` as at the scan's faces.
     spacing, unit : optional
         Voxel size in (z, y, x) order and its unit; they win over the Scan's own.
     axis : "z", "y", "x", int or a list of them, optional
@@ -420,10 +620,11 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
         Connectivity of the pore phase; default 26 / 8 (voxels touching at a corner are
         connected). The solid takes the complementary 6 / 4, so that the two phases'
         Euler characteristics and diagrams agree with each other.
-    min_lifetime : float, optional
-        A pore (grain) whose body radius exceeds its throat (neck) radius by no more than
-        this is a ripple of the distance map and stays part of the feature it drains into;
-        default half the finest spacing. Loops and voids use it as a persistence cut.
+    min_persistence : float, optional
+        The shortest lifetime kept: a pore (grain) whose body radius exceeds its throat
+        (neck) radius by no more than this is a ripple of the distance map and stays part
+        of the feature it drains into; default half the finest spacing. Loops and voids use
+        it as a persistence cut.
     engine : {"auto", "voxtopo", "gudhi"}
         Persistence engine, as in :func:`voxtopo.persistence`; the diagram is the same.
     progress : callable(phase, fraction), optional
@@ -434,8 +635,10 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
     PoreAnalysis
         ``pores``: one row per pore, the largest first: ``id, body_radius, body_z, body_y,
         body_x, throat_radius, throat_z, throat_y, throat_x, border, lifetime`` then
-        ``body_volume`` (the voxels the pore drains before it joins a larger one) and
-        ``isolated`` (it never joins another pore through the pore space; no throat).
+        ``body_volume`` (``body_area`` in 2D: the voxels the pore drains before it joins a
+        larger one) and ``isolated`` (a closed pore: its connected piece of the pore
+        phase holds no other pore and reaches no border of the scan or sample), then
+        ``body_voxel_z, body_voxel_y, body_voxel_x``: the voxel indices of the body centre.
         ``grains``: the same for the solid with ``neck`` for ``throat``. ``loops`` and
         ``voids``: see Notes. ``summary``: porosity, percolation and integral geometry.
 
@@ -462,7 +665,7 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
 
     ``counts`` in the summary: ``loops`` and ``voids`` count the crossing pairs, i.e. the
     tunnels of the pore phase and the enclosed pores of the segmented mask itself; the
-    tables hold every pair of the filtration above ``min_lifetime`` with its ``kind``.
+    tables hold every pair of the filtration above ``min_persistence`` with its ``kind``.
 
     ``border`` is True when the pore's basin holds a voxel of the scan's outer layer, or
     its inscribed ball is not inside the scan's box (the outer voxel faces): the pore is cut
@@ -470,12 +673,15 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
 
     Percolation along an axis: the largest radius r such that the pore voxels with
     ``-f >= r`` connect the first slice to the last, found by one union-find sweep in order
-    of decreasing distance with the two faces as virtual nodes. Connected porosity: the
-    volume fraction of pore components (at level 0) touching both faces.
+    of decreasing distance with the two faces as virtual nodes. ``percolates`` says "yes",
+    "no", "not resolved" when r is below 1.5 voxels (the narrowest passage is one or two
+    voxels wide) or "not measured" when the sample does not reach both faces. Connected
+    porosity: the volume fraction of pore components (at level 0) touching both faces.
 
     Euler characteristics are counted on the cubical complex of each phase with its
     neighbourhood; connectivity density ``(1 - chi_solid) / V`` is that of the solid
-    (for bone: the trabecular structure), taken as one component.
+    (for bone: the trabecular structure), taken as one component; it is negative when the
+    solid is several pieces, and the summary's notes say so.
 
     References
     ----------
@@ -492,7 +698,7 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
     >>> mask[:, 7:13, 7:13] = True                      # a square channel along z
     >>> result = analyse(mask, axis="z")
     >>> result.summary["percolates"]
-    {'z': True}
+    {'z': 'yes'}
     >>> round(result.summary["porosity"], 2)
     0.09
     """
@@ -504,117 +710,171 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
     n_pore, _ = construction_of(scan.ndim, neighbourhood)
     n_solid = COMPLEMENT[n_pore]
     axes = _axes(axis, scan.ndim)
-    mask, segmentation = pore_mask(scan, threshold=threshold, pores_bright=pores_bright,
-                                   label=label)
-    _check_phases(mask, where)
     spacing = scan.spacing
-    if min_lifetime is None:
-        min_lifetime = 0.5 * min(spacing)
-    elif not (np.isfinite(min_lifetime) and min_lifetime >= 0):
-        raise InputError(f"min_lifetime must be a length >= 0 in {scan.unit}, got {min_lifetime}.")
+    if min_persistence is None:
+        min_persistence = 0.5 * min(spacing)
+    elif not (np.isfinite(min_persistence) and min_persistence >= 0):
+        raise InputError(f"min_persistence must be a length >= 0 in {scan.unit}, got "
+                         f"{min_persistence}.")
+    sample = region_of_interest(roi, scan.shape, where)
+    mask, segmentation = pore_mask(scan, threshold=threshold, pores_bright=pores_bright,
+                                   label=label, sample=sample)
+    in_sample = np.ones(mask.shape, bool) if sample is None else sample
+    pore, solid = mask & in_sample, ~mask & in_sample
+    sample_voxels = int(np.count_nonzero(in_sample))
+    notes = list(scan.metadata.get("notes", [])) + _check_phases(pore, solid, sample_voxels,
+                                                                 where, segmentation)
     planned = _estimate_bytes(mask.shape, n_pore, engine)
     what = f"Pore analysis of the {'x'.join(map(str, mask.shape))} scan"
     remedy = "crop it (--crop) or downsample it (--downsample) first"
     ensure_fits(planned, what, remedy)
     timings["segmentation"] = time.perf_counter() - clock
+    # an allocation that fails after the plan said it fits is still one sentence
     with reported_as_too_big(what, planned, remedy):
-        return _measure(scan, mask, segmentation, axes, n_pore, n_solid, min_lifetime, engine,
-                        progress, timings)
 
+        def step(name, fraction):
+            if progress is not None:
+                progress(name, fraction)
 
-def _measure(scan, mask, segmentation, axes, n_pore, n_solid, min_lifetime, engine,
-             progress, timings) -> PoreAnalysis:
-    """The work of :func:`analyse` once its input is checked and its memory planned."""
-    spacing = scan.spacing
+        step("distance transform", 0.0)
+        clock = time.perf_counter()
+        distance = _sample_distance(scan, pore, solid)
+        if sample is None:
+            pore_field = solid_field = distance
+        else:
+            # the outside enters each sweep last, so no feature of the sample passes through it
+            outside_level = float(np.abs(distance.data).max()) + 2 * max(spacing)
+            pore_field = distance.with_data(np.where(sample, distance.data, outside_level))
+            solid_field = distance.with_data(np.where(sample, distance.data, -outside_level))
+        field = distance.data
+        timings["distance_transform"] = time.perf_counter() - clock
 
-    def step(name, fraction):
-        if progress is not None:
-            progress(name, fraction)
+        clock = time.perf_counter()
+        diagram = persistence(pore_field, neighbourhood=n_pore, engine=engine, progress=progress)
+        solid_diagram = persistence(solid_field, superlevel=True, neighbourhood=n_solid,
+                                    engine=engine, progress=progress)
+        if sample is not None:
+            diagram = _outside_as_never(diagram, outside_level)
+            solid_diagram = _outside_as_never(solid_diagram, -outside_level)
+            del pore_field, solid_field
+        timings["persistence"] = time.perf_counter() - clock
 
-    step("distance transform", 0.0)
-    clock = time.perf_counter()
-    distance = filtration.signed_distance(scan.with_data(mask))
-    field = distance.data
-    timings["distance_transform"] = time.perf_counter() - clock
+        step("pores and grains", 0.0)
+        clock = time.perf_counter()
+        edge = _sweep.border_voxels(mask.shape)
+        room_in_sample = None
+        if sample is not None:
+            rim = sample & ~ndimage.binary_erosion(sample, border_value=1)
+            edge |= rim.ravel()
+            room_in_sample = ndimage.distance_transform_edt(sample, sampling=spacing)
+        pore_order = _sweep.sweep_order(field, pore)
+        labels = pore_components(pore, n_pore)
+        solid_labels = pore_components(solid, n_solid)
+        solid_pieces = int(solid_labels.max())
+        pores = _phase_table(_rows_of_dimension(diagram, 0), field, pore, n_pore, spacing, False,
+                             min_persistence, ("body", "throat"), pore_order, edge, room_in_sample,
+                             labels)
+        grains = _phase_table(_rows_of_dimension(solid_diagram, 0), -field, solid, n_solid,
+                              spacing, True, min_persistence, ("body", "neck"), None, edge,
+                              room_in_sample, solid_labels)
+        del solid_labels
+        pore_rows = pores.pop("pair_row").to_numpy()
+        grains.pop("pair_row")
+        loops = _loop_table(diagram, spacing, min_persistence)
+        voids = _void_table(solid_diagram, spacing, min_persistence)
+        del room_in_sample
+        timings["features"] = time.perf_counter() - clock
 
-    clock = time.perf_counter()
-    diagram = persistence(distance, neighbourhood=n_pore, engine=engine, progress=progress)
-    solid_diagram = persistence(distance, superlevel=True, neighbourhood=n_solid,
-                                engine=engine, progress=progress)
-    timings["persistence"] = time.perf_counter() - clock
+        step("percolation", 0.0)
+        clock = time.perf_counter()
+        names = AXES_3D[3 - scan.ndim:]
+        radius, critical, connected = {}, {}, {}
+        for k, a in enumerate(axes):
+            faces_in_sample = (np.take(in_sample, 0, axis=a).any()
+                               and np.take(in_sample, -1, axis=a).any())
+            if faces_in_sample:
+                radius[names[a]], critical[names[a]] = percolation(field, pore, a, n_pore,
+                                                                   spacing, pore_order)
+                connected[names[a]] = connected_fraction(labels, a, sample_voxels)
+            else:
+                radius[names[a]], critical[names[a]], connected[names[a]] = None, None, None
+            step("percolation", (k + 1) / len(axes))
+        del labels, pore_order
+        timings["percolation"] = time.perf_counter() - clock
 
-    step("pores and grains", 0.0)
-    clock = time.perf_counter()
-    pore_order = _sweep.sweep_order(field, mask)
-    pores = _phase_table(diagram.dimension(0).pairs, field, mask, n_pore, spacing, False,
-                         min_lifetime, ("body", "throat"), pore_order)
-    grains = _phase_table(solid_diagram.dimension(0).pairs, -field, ~mask, n_solid, spacing,
-                          True, min_lifetime, ("body", "neck"))
-    loops = _loop_table(diagram, spacing, min_lifetime)
-    voids = _void_table(solid_diagram, spacing, min_lifetime)
-    timings["features"] = time.perf_counter() - clock
+        step("integral geometry", 0.0)
+        clock = time.perf_counter()
+        chi_pore = _euler.euler_characteristic(pore, n_pore)
+        chi_solid = _euler.euler_characteristic(solid, n_solid)
+        volume = sample_voxels * float(np.prod(spacing))
+        functionals = minkowski(mask, spacing, chi_pore, sample)
+        timings["integral_geometry"] = time.perf_counter() - clock
+        step("integral geometry", 1.0)
 
-    step("percolation", 0.0)
-    clock = time.perf_counter()
-    names = AXES_3D[3 - scan.ndim:]
-    radius, critical, connected = {}, {}, {}
-    labels = pore_components(mask, n_pore)
-    for k, a in enumerate(axes):
-        radius[names[a]], critical[names[a]] = percolation(field, mask, a, n_pore, spacing,
-                                                           pore_order)
-        connected[names[a]] = connected_fraction(labels, a)
-        step("percolation", (k + 1) / len(axes))
-    del labels, pore_order
-    timings["percolation"] = time.perf_counter() - clock
-
-    step("integral geometry", 0.0)
-    clock = time.perf_counter()
-    chi_pore = _euler.euler_characteristic(mask, n_pore)
-    chi_solid = _euler.euler_characteristic(~mask, n_solid)
-    volume = mask.size * float(np.prod(spacing))
-    functionals = minkowski(mask, spacing, chi_pore)
-    timings["integral_geometry"] = time.perf_counter() - clock
-    step("integral geometry", 1.0)
-
-    unit = scan.unit
-    summary = {
-        "porosity": float(mask.mean()),
-        "connected_porosity": connected,
-        "percolates": {a: r > 0 for a, r in radius.items()},
-        "percolation_radius": radius,
-        "critical_throat": {a: (None if c is None else [float(v) for v in c])
-                            for a, c in critical.items()},
-        "euler_characteristic": {"pore": chi_pore, "solid": chi_solid,
-                                 "neighbourhood": {"pore": n_pore, "solid": n_solid}},
-        "connectivity_density": {"value": (1 - chi_solid) / volume, "phase": "solid",
-                                 "neighbourhood": n_solid, "unit": f"1/{unit}^{scan.ndim}",
-                                 "formula": "(1 - euler_characteristic of the solid) / "
-                                            "scan volume (Odgaard & Gundersen 1993)"},
-        "minkowski": functionals,
-        "counts": {
-            "pores": int(len(pores)), "pores_at_border": int(pores["border"].sum()),
-            "isolated_pores": int(pores["isolated"].sum()),
-            "grains": int(len(grains)), "grains_at_border": int(grains["border"].sum()),
-            "loops": int((loops["kind"] == "crossing").sum()),
-            "voids": int((voids["kind"] == "crossing").sum()),
-            "loops_in_filtration": int(len(loops)), "voids_in_filtration": int(len(voids)),
-        },
-        "segmentation": segmentation,
-        "threshold": segmentation.get("threshold"),
-        "threshold_method": segmentation["method"],
-        "unit": unit,
-        "spacing": list(spacing),
-        "shape": list(mask.shape),
-        "scan_volume": volume,
-        "min_lifetime": float(min_lifetime),
-        "radius_convention": "distances between voxel centres (pore voxel to nearest solid "
-                             "voxel centre); no half-voxel correction; good to about one "
-                             "voxel",
-        "timings_seconds": {k: round(v, 4) for k, v in timings.items()},
-        "cautions": cautions(spacing, unit),
-    }
-    if scan.metadata.get("notes"):
-        summary["notes"] = list(scan.metadata["notes"])
-    return PoreAnalysis(pores=pores, grains=grains, loops=loops, voids=voids, summary=summary,
-                        diagram=diagram, solid_diagram=solid_diagram, mask=mask,
-                        distance=distance, critical_throats=critical)
+        unit = scan.unit
+        finest = min(spacing)
+        unresolved = [a for a, r in radius.items()
+                      if percolation_state(r, finest) == "not resolved"]
+        if unresolved:
+            notes.append(f"Percolation along {', '.join(unresolved)} is not resolved: the "
+                         f"narrowest passage has a radius below {RESOLVED_RADIUS_VOXELS} voxels "
+                         f"({RESOLVED_RADIUS_VOXELS * finest:.4g} {unit}), one or two voxels "
+                         f"wide, so the scan cannot tell whether it is open.")
+        unmeasured = [a for a, r in radius.items() if r is None]
+        if unmeasured:
+            notes.append(f"Percolation along {', '.join(unmeasured)} is not measured: the "
+                         f"sample (region of interest) does not reach both faces of the scan "
+                         f"along that axis.")
+        notes += _voxel_size_notes(unit, chi_solid, solid_pieces, scan.ndim)
+        density_unit = (f"1/voxel^{scan.ndim} (no voxel size)" if unit == "px"
+                        else f"1/{unit}^{scan.ndim}")
+        summary = {
+            "porosity": float(np.count_nonzero(pore) / sample_voxels),
+            "connected_porosity": connected,
+            "percolates": {a: percolation_state(r, finest) for a, r in radius.items()},
+            "percolation_radius": {a: (r if r else None) for a, r in radius.items()},
+            "critical_throat": {a: (None if c is None else [float(v) for v in c])
+                                for a, c in critical.items()},
+            "euler_characteristic": {"pore": chi_pore, "solid": chi_solid,
+                                     "neighbourhood": {"pore": n_pore, "solid": n_solid}},
+            "connectivity_density": {"value": (1 - chi_solid) / volume, "phase": "solid",
+                                     "neighbourhood": n_solid, "unit": density_unit,
+                                     "solid_pieces": solid_pieces,
+                                     "formula": "(1 - euler_characteristic of the solid) / "
+                                                "sample volume (Odgaard & Gundersen 1993)"},
+            "minkowski": functionals,
+            "counts": {
+                "what": f"dimension-0 features (pores, grains) and pairs (loops, voids) of the "
+                        f"signed distance living longer than min_persistence = "
+                        f"{min_persistence:.4g} {unit}; loops and voids count the crossing "
+                        f"pairs (features of the segmented mask itself)",
+                "pores": int(len(pores)), "pores_at_border": int(pores["border"].sum()),
+                "isolated_pores": int(pores["isolated"].sum()),
+                "grains": int(len(grains)), "grains_at_border": int(grains["border"].sum()),
+                "loops": int((loops["kind"] == "crossing").sum()),
+                "voids": int((voids["kind"] == "crossing").sum()),
+                "loops_in_filtration": int(len(loops)), "voids_in_filtration": int(len(voids)),
+            },
+            "segmentation": segmentation,
+            "threshold": segmentation.get("threshold"),
+            "threshold_method": segmentation["method"],
+            "region_of_interest": (None if sample is None else
+                                   {"voxels": sample_voxels, "fraction_of_scan":
+                                    sample_voxels / mask.size}),
+            "unit": unit,
+            "voxel_size_known": unit != "px",
+            "spacing": list(spacing),
+            "shape": list(mask.shape),
+            "sample_volume": volume,
+            "min_persistence": float(min_persistence),
+            "radius_convention": "distances between voxel centres (pore voxel to nearest solid "
+                                 "voxel centre); no half-voxel correction; good to about one "
+                                 "voxel",
+            "timings_seconds": {k: round(v, 4) for k, v in timings.items()},
+            "notes": notes,
+            "cautions": cautions(spacing, unit),
+        }
+        return PoreAnalysis(pores=pores, grains=grains, loops=loops, voids=voids, summary=summary,
+                            diagram=diagram, solid_diagram=solid_diagram, mask=mask,
+                            distance=distance, critical_throats=critical, sample=sample,
+                            pore_rows=pore_rows)

@@ -77,13 +77,30 @@ def integral_mean_curvature(vertices: np.ndarray, faces: np.ndarray) -> float:
     return float(0.5 * np.sum(edge_length * angle))
 
 
-def boundary_length_2d(mask: np.ndarray, spacing) -> float:
-    """Length of the level-0.5 contours of a 2D mask, in physical units (open at the border)."""
+def faces_in_sample(vertices: np.ndarray, faces: np.ndarray, sample: np.ndarray,
+                    spacing) -> np.ndarray:
+    """The faces whose centroid lies in a voxel of ``sample`` (a region of interest)."""
+    if len(faces) == 0:
+        return faces
+    voxel = np.rint(vertices[faces].mean(axis=1) / np.asarray(spacing, dtype=np.float64))
+    voxel = np.clip(voxel.astype(np.int64), 0, np.array(sample.shape) - 1)
+    return faces[sample[tuple(voxel.T)]]
+
+
+def boundary_length_2d(mask: np.ndarray, spacing, sample=None) -> float:
+    """Length of the level-0.5 contours of a 2D mask, in physical units (open at the border).
+
+    With ``sample`` (a region of interest) only the contour steps whose midpoint lies in a
+    sample pixel count."""
     from skimage.measure import find_contours
 
     total = 0.0
     scale = np.asarray(spacing, dtype=np.float64)
     for contour in find_contours(mask.astype(np.float32), 0.5):
-        steps = np.diff(contour * scale, axis=0)
-        total += float(np.sum(np.linalg.norm(steps, axis=1)))
+        steps = np.linalg.norm(np.diff(contour * scale, axis=0), axis=1)
+        if sample is not None:
+            middle = np.rint(0.5 * (contour[1:] + contour[:-1])).astype(np.int64)
+            middle = np.clip(middle, 0, np.array(sample.shape) - 1)
+            steps = steps[sample[tuple(middle.T)]]
+        total += float(np.sum(steps))
     return total

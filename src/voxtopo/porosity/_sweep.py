@@ -62,6 +62,15 @@ def _find(parent, i):
     return root
 
 
+@njit(cache=True, inline="always")
+def _neighbour(offsets, k, z, y, x, nz, ny, nx):
+    """Flat index of the ``k``-th neighbour of voxel (z, y, x), -1 when off the grid."""
+    zz, yy, xx = z + offsets[k, 0], y + offsets[k, 1], x + offsets[k, 2]
+    if zz < 0 or zz >= nz or yy < 0 or yy >= ny or xx < 0 or xx >= nx:
+        return -1
+    return (zz * ny + yy) * nx + xx
+
+
 @njit(cache=True, nogil=True)
 def _percolation_kernel(order, shape, axis, offsets):
     nz, ny, nx = shape[0], shape[1], shape[2]
@@ -87,11 +96,8 @@ def _percolation_kernel(order, shape, axis, offsets):
             if a != b:
                 parent[a] = b
         for k in range(offsets.shape[0]):
-            zz, yy, xx = z + offsets[k, 0], y + offsets[k, 1], x + offsets[k, 2]
-            if zz < 0 or zz >= nz or yy < 0 or yy >= ny or xx < 0 or xx >= nx:
-                continue
-            w = (zz * ny + yy) * nx + xx
-            if parent[w] < 0:
+            w = _neighbour(offsets, k, z, y, x, nz, ny, nx)
+            if w < 0 or parent[w] < 0:
                 continue
             a, b = _find(parent, v), _find(parent, w)
             if a != b:
@@ -136,11 +142,8 @@ def _basin_kernel(order, values, shape, offsets, query_voxel, query_level, on_bo
         y = (v // nx) % ny
         x = v % nx
         for k in range(offsets.shape[0]):
-            zz, yy, xx = z + offsets[k, 0], y + offsets[k, 1], x + offsets[k, 2]
-            if zz < 0 or zz >= nz or yy < 0 or yy >= ny or xx < 0 or xx >= nx:
-                continue
-            w = (zz * ny + yy) * nx + xx
-            if parent[w] < 0:
+            w = _neighbour(offsets, k, z, y, x, nz, ny, nx)
+            if w < 0 or parent[w] < 0:
                 continue
             a, b = _find(parent, v), _find(parent, w)
             if a != b:
@@ -247,12 +250,16 @@ def percolation_step(order, shape, axis, neighbourhood, python=False) -> int:
                                    np.array(shape3, dtype=np.int64), axis3, offsets))
 
 
-def basins(order, values, shape, neighbourhood, query_voxel, query_level, python=False):
-    """(size, own, border) of each query's basin; queries must be sorted by level."""
+def basins(order, values, shape, neighbourhood, query_voxel, query_level, python=False,
+           edge=None):
+    """(size, own, border) of each query's basin; queries must be sorted by level.
+
+    ``edge``: flat bool array of the voxels that count as border (default: the scan's outer
+    layer, :func:`border_voxels`); a region of interest adds its own rim."""
     shape3 = as_3d_shape(shape)
     offsets = neighbour_offsets(neighbourhood)
     flat_values = np.ascontiguousarray(values.ravel(), dtype=np.float64)
-    on_border = border_voxels(shape)
+    on_border = border_voxels(shape) if edge is None else np.ascontiguousarray(edge.ravel())
     query_voxel = np.ascontiguousarray(query_voxel, dtype=np.int64)
     query_level = np.ascontiguousarray(query_level, dtype=np.float64)
     if python:

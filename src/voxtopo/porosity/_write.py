@@ -11,6 +11,7 @@ from ..io import result_folder
 from ..io.results import write_summary
 from ..report import literal
 from ..scan import as_scan
+from ._analysis import size_column
 
 #: first columns of pores.csv, in this order; more columns may follow
 PORE_COLUMNS = ["id", "body_radius", "body_z", "body_y", "body_x", "throat_radius",
@@ -20,6 +21,62 @@ _PORE_COLOUR = "#2b6f8f"
 _GRAIN_COLOUR = "#b5652a"
 _LOOP_COLOUR = "#5e8c3a"
 _VOID_COLOUR = "#7a4f9a"
+_PORE_ZONE = "#cfe3d4"
+_SOLID_ZONE = "#eadbc0"
+_WALL_ZONE = "#dcd6ea"
+
+
+def _percolation_words(summary: dict) -> str:
+    unit = summary["unit"]
+    words = []
+    for axis, state in summary["percolates"].items():
+        radius = summary["percolation_radius"][axis]
+        if state in ("yes", "not resolved"):
+            words.append(f"{axis}: {state} (r = {radius:.4g} {unit})")
+        else:
+            words.append(f"{axis}: {state}")
+    return ", ".join(words)
+
+
+def summary_lines(summary: dict) -> list[str]:
+    """The lines a person reads first (CLI, plugin status): porosity, counts, percolation,
+    then every note of the summary, one sentence each."""
+    unit = summary["unit"]
+    where = "of the sample" if summary.get("region_of_interest") else "of the scan"
+    size = ("voxel size unknown, lengths in px" if unit == "px"
+            else f"lengths in {unit}")
+    counts = summary["counts"]
+    lines = [f"porosity {summary['porosity']:.4f} {where} ({size}); {counts['pores']} pores "
+             f"living longer than {summary['min_persistence']:.4g} {unit} "
+             f"({counts['pores_at_border']} at the border, {counts['isolated_pores']} "
+             f"isolated); percolates {_percolation_words(summary)}"]
+    return lines + list(summary.get("notes", []))
+
+
+def column_units(table, unit: str, ndim: int) -> dict:
+    """Column -> unit of a pore, grain, loop or void table ("" for flags, ids and kinds)."""
+    units = {}
+    for column in table.columns:
+        if "_voxel_" in column:
+            units[column] = "voxel index"
+        elif column.endswith("_volume"):
+            units[column] = f"{unit}^3"
+        elif column.endswith("_area"):
+            units[column] = f"{unit}^2"
+        elif column.endswith(("_radius", "_z", "_y", "_x")) or column == "lifetime":
+            units[column] = unit
+        else:
+            units[column] = ""
+    return units
+
+
+def pairs_units(ndim: int, unit: str) -> dict:
+    """Column -> unit of pairs.csv: values in the scan's unit, locations as voxel indices."""
+    units = {"dim": "", "birth": unit, "death": unit, "persistence": unit}
+    for which in ("birth", "death"):
+        for axis in AXES_3D[3 - ndim:]:
+            units[f"{which}_{axis}"] = "voxel index"
+    return units
 
 
 def write_pores(out, analysis, scan=None, force: bool = False, inputs=()) -> Path:
@@ -30,8 +87,10 @@ def write_pores(out, analysis, scan=None, force: bool = False, inputs=()) -> Pat
     out : path
         Folder to create: ``pores.csv`` (columns ``id, body_radius, body_z, body_y, body_x,
         throat_radius, throat_z, throat_y, throat_x, border, lifetime, body_volume,
-        isolated``; 2D drops the z columns), ``grains.csv``, ``loops.csv``, ``voids.csv``,
-        ``pairs.csv`` (the diagram of the signed distance), ``summary.json`` and the plots
+        isolated``; 2D drops the z columns and has ``body_area``), ``grains.csv``,
+        ``loops.csv``, ``voids.csv`` (positions and sizes in the scan's unit),
+        ``pairs.csv`` (the diagram of the signed distance, locations as voxel indices),
+        ``summary.json`` (with ``columns``: file -> column -> unit) and the plots
         ``pore_sizes.png``, ``distance_diagram.png``, ``pore_slices.png``.
     analysis : PoreAnalysis
         What :func:`voxtopo.porosity.analyse` returned.
@@ -62,6 +121,11 @@ def write_pores(out, analysis, scan=None, force: bool = False, inputs=()) -> Pat
         summary = dict(analysis.summary)
         summary["files"] = {"pores": "pores.csv", "grains": "grains.csv", "loops": "loops.csv",
                             "voids": "voids.csv", "diagram": "pairs.csv"}
+        unit = summary["unit"]
+        summary["columns"] = {
+            f"{name}.csv": column_units(getattr(analysis, name), unit, ndim)
+            for name in ("pores", "grains", "loops", "voids")}
+        summary["columns"]["pairs.csv"] = pairs_units(ndim, unit)
         summary["plots"] = _plots(tmp, analysis, background, ndim)
         write_summary(tmp, summary)
         analysis.diagram.save(tmp)
@@ -100,7 +164,7 @@ def _size_plot(plt, analysis, unit, background, ndim):
         pores, which = analysis.pores, "all pores (every pore touches the border)"
     body = pores["body_radius"].to_numpy(dtype=float)
     throat = pores["throat_radius"].to_numpy(dtype=float)
-    volume = pores["body_volume"].to_numpy(dtype=float)
+    volume = pores[size_column(ndim)].to_numpy(dtype=float)
     has_throat = np.isfinite(throat)
     fig, ax = plt.subplots(2, 2, figsize=(10, 7.5))
     finite = np.concatenate([body, throat[has_throat]])
@@ -113,10 +177,11 @@ def _size_plot(plt, analysis, unit, background, ndim):
                   label="pore bodies")
     ax[0, 1].hist(throat[has_throat], bins=bins, weights=volume[has_throat],
                   color=_GRAIN_COLOUR, alpha=0.6, label="throats")
-    ax[0, 1].set(xlabel=f"radius ({unit})", ylabel=f"pore volume ({unit}^{ndim})",
-                 title="Sizes weighted by the pore's body volume")
+    size_word = "volume" if ndim == 3 else "area"
+    ax[0, 1].set(xlabel=f"radius ({unit})", ylabel=f"pore {size_word} ({unit}^{ndim})",
+                 title=f"Sizes weighted by the pore's body {size_word}")
     for axis, weights, title in ((ax[1, 0], None, "Cumulative, by count"),
-                                 (ax[1, 1], volume, "Cumulative, by body volume")):
+                                 (ax[1, 1], volume, f"Cumulative, by body {size_word}")):
         for values, w, colour, label in ((body, weights, _PORE_COLOUR, "pore bodies"),
                                          (throat[has_throat],
                                           None if weights is None else weights[has_throat],
@@ -149,26 +214,26 @@ def _diagram_plot(plt, analysis, unit, background, ndim):
         rows = finite[finite["dim"] == dim]
         marker, colour = markers[dim]
         ax.scatter(rows["birth"], rows["death"], s=12, marker=marker, color=colour,
-                   alpha=0.7, label=f"dimension {dim} ({len(rows)})")
+                   alpha=0.7, label=f"dimension {dim}: {len(rows)} pairs (all pairs)")
     essential = pairs[~np.isfinite(pairs["death"])]
     if len(essential):
         ax.scatter(essential["birth"], np.full(len(essential), hi - pad / 2), marker="*",
-                   s=60, color="black", label=f"never dies ({len(essential)})")
+                   s=60, color="black", label=f"never dies: {len(essential)}")
     ax.plot([lo, hi], [lo, hi], color="0.4", lw=0.8)
-    ax.axvline(0, color="0.6", lw=0.8, ls="--")
-    ax.axhline(0, color="0.6", lw=0.8, ls="--")
-    ax.fill_between([lo, 0], [0, 0], [lo, lo], color=_PORE_COLOUR, alpha=0.06)
-    ax.fill_between([0, hi], [hi, hi], [0, 0], color=_GRAIN_COLOUR, alpha=0.06)
-    ax.text(lo + pad, lo + 2 * pad + 0.05 * (hi - lo), "pores\n(born and joined\nin the pore space)",
-            color=_PORE_COLOUR, fontsize=9, va="bottom")
-    ax.text(0.5 * hi, 0.15 * hi, "grains\n(solid phase)", color=_GRAIN_COLOUR, fontsize=9,
-            ha="center")
-    ax.text(lo + pad, hi - 4 * pad, "crossing pairs: features of\nthe segmented mask itself",
-            color="0.2", fontsize=9, va="top")
+    # three zones of the signed-distance diagram, each a plain rectangle or triangle named
+    # in the legend: a feature that lives in one phase only, or one that spans the wall
+    zones = (
+        (([lo, 0, lo], [lo, 0, 0]), _PORE_ZONE, "pore-phase features (birth and death < 0)"),
+        (([0, hi, 0], [0, hi, hi]), _SOLID_ZONE, "solid-phase features (birth and death > 0)"),
+        (([lo, 0, 0, lo], [0, 0, hi, hi]), _WALL_ZONE,
+         "features across the wall (birth < 0 < death)"),
+    )
+    for (xs, ys), colour, label in zones:
+        ax.fill(xs, ys, facecolor=colour, edgecolor="none", alpha=0.6, zorder=0, label=label)
     ax.set(xlim=(lo, hi), ylim=(lo, hi), xlabel=f"birth: signed distance ({unit})",
            ylabel=f"death: signed distance ({unit})",
            title="Persistence diagram of the signed distance (pores negative)")
-    ax.legend(frameon=False, fontsize=8, loc="lower right")
+    ax.legend(frameon=True, framealpha=0.9, fontsize=7.5, loc="lower right")
     fig.tight_layout()
     return fig
 

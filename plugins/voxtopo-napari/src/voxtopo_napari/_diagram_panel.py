@@ -53,7 +53,7 @@ class DiagramPanel(QWidget):
         self.result_name = None
         self.birth_layers = {}   # dim -> Points layer
         self.death_layers = {}   # dim -> Points layer
-        self.min_lifetime = 0.0
+        self.min_persistence = 0.0
         self.highlighted = set()  # feature ids ringed in the diagram
         self._longest = 1.0
         self._points = {}        # dim -> dict of arrays (feature, birth, death_y, persistence)
@@ -87,11 +87,11 @@ class DiagramPanel(QWidget):
         self.lifetime_box.setDecimals(4)
         self.lifetime_box.setRange(0.0, 1e12)
         self.lifetime_box.setToolTip("Shortest lifetime (persistence) still shown.")
-        self.lifetime_box.valueChanged.connect(self.set_min_lifetime)
+        self.lifetime_box.valueChanged.connect(self.set_min_persistence)
         self.count_label = QLabel("")
 
         row = QHBoxLayout()
-        row.addWidget(QLabel("shortest lifetime shown"))
+        row.addWidget(QLabel("min persistence shown"))
         row.addWidget(self.slider, 1)
         row.addWidget(self.lifetime_box)
         layout = QVBoxLayout(self)
@@ -163,7 +163,7 @@ class DiagramPanel(QWidget):
         self.lifetime_box.blockSignals(True)
         self.lifetime_box.setValue(0.0)
         self.lifetime_box.blockSignals(False)
-        self.set_min_lifetime(0.0)
+        self.set_min_persistence(0.0)
 
     # drawing ----------------------------------------------------------------------------
     def _meta(self):
@@ -181,7 +181,7 @@ class DiagramPanel(QWidget):
         return (lo, hi) if hi > lo else (lo - 0.5, hi + 0.5)
 
     def _plotted_death(self, death, superlevel):
-        """Where a death is drawn: classes that never end sit on a band past the others."""
+        """Where a death is drawn: classes that never die sit on a band past the others."""
         lo, hi = self._value_range()
         margin = 0.08 * (hi - lo)
         never = lo - margin if superlevel else hi + margin
@@ -212,11 +212,11 @@ class DiagramPanel(QWidget):
         ax.plot([lo - margin, hi + margin], [lo - margin, hi + margin], color="#8a969e",
                 lw=0.8, zorder=1)
         ax.axhline(never, color="#8a969e", lw=0.8, ls="--", zorder=1)
-        ax.text(lo - margin, never, " never ends", va="bottom", ha="left", fontsize=7,
+        ax.text(lo - margin, never, " never dies", va="bottom", ha="left", fontsize=7,
                 color="#5b6770")
         shown_total = 0
         for dim, points in sorted(self._points.items()):
-            visible = points["persistence"] >= self.min_lifetime
+            visible = points["persistence"] >= self.min_persistence
             shown_total += int(visible.sum())
             death_y, _ = self._plotted_death(points["death"], superlevel)
             colours = lifetime_colours(lifetime_fraction(points["persistence"][visible],
@@ -251,7 +251,7 @@ class DiagramPanel(QWidget):
                                 extent=(0, self._longest, 0, 1))
         self.legend_axes.set_yticks([])
         self.legend_axes.set_xlabel(f"lifetime (persistence{', ' + unit if unit else ''}); "
-                                    f"the top colour also marks features that never end",
+                                    f"the top colour also marks features that never die",
                                     fontsize=7)
         self.legend_axes.tick_params(labelsize=7)
 
@@ -260,7 +260,7 @@ class DiagramPanel(QWidget):
             self._rings.remove()
             self._rings = None
         xy = [p["xy"][np.isin(p["feature"], list(self.highlighted))
-                      & (p["persistence"] >= self.min_lifetime)]
+                      & (p["persistence"] >= self.min_persistence)]
               for p in self._points.values() if "xy" in p]
         xy = np.concatenate(xy) if xy else np.zeros((0, 2))
         if len(xy):
@@ -272,20 +272,20 @@ class DiagramPanel(QWidget):
     def _on_slider(self, step: int):
         self.lifetime_box.setValue(self._longest * (step / SLIDER_STEPS) ** 2)
 
-    def set_min_lifetime(self, value: float) -> None:
+    def set_min_persistence(self, value: float) -> None:
         """Hide every feature whose persistence is below ``value``, here and in the viewer."""
-        self.min_lifetime = float(value)
-        if abs(self.lifetime_box.value() - self.min_lifetime) > 1e-12:
+        self.min_persistence = float(value)
+        if abs(self.lifetime_box.value() - self.min_persistence) > 1e-12:
             self.lifetime_box.blockSignals(True)
-            self.lifetime_box.setValue(self.min_lifetime)
+            self.lifetime_box.setValue(self.min_persistence)
             self.lifetime_box.blockSignals(False)
-        step = int(round(SLIDER_STEPS * np.sqrt(min(self.min_lifetime / self._longest, 1.0))))
+        step = int(round(SLIDER_STEPS * np.sqrt(min(self.min_persistence / self._longest, 1.0))))
         self.slider.blockSignals(True)
         self.slider.setValue(step)
         self.slider.blockSignals(False)
         for layer in list(self.birth_layers.values()) + list(self.death_layers.values()):
             persistence = layer.features["persistence"].to_numpy(dtype=np.float64)
-            shown = persistence >= self.min_lifetime
+            shown = persistence >= self.min_persistence
             layer.shown = shown
             hidden_selected = {i for i in layer.selected_data if not shown[i]}
             if hidden_selected:

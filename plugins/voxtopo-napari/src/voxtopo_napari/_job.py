@@ -3,24 +3,28 @@
 The widget turns its controls into an :class:`AnalysisOptions` and a Scan, then calls
 :func:`run_analysis`; everything here is ordinary voxtopo: ``jobs.analyse.run`` (smoothing,
 threshold, distance transform), ``voxtopo.persistence`` and, for a distance transform, the
-pore regions. Nothing touches a viewer, so nothing is half-made when the work is cancelled.
+pore regions. With porosity, the pore job of the library (:func:`voxtopo.porosity.analyse`)
+does the segmentation, the diagram, the pore table and the regions, exactly as
+``voxtopo pores`` does, and its pores are tied to the diagram by their ids. Nothing touches
+a viewer, so nothing is half-made when the work is cancelled.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import time
 from dataclasses import dataclass, field
 
 import numpy as np
 
 import voxtopo
+from voxtopo import porosity
 from voxtopo.errors import InputError
 from voxtopo.jobs import analyse
-from voxtopo.jobs.analyse import AnalysisOptions, write_result
+from voxtopo.jobs.analyse import AnalysisOptions, prepare, write_result
 from voxtopo.scan import Scan
 
 from ._layers import Placement, placement_of, result_layers
-from ._pore_regions import pore_regions
 
 __all__ = ["AnalysisResult", "run_analysis", "scan_from_layer_data"]
 
@@ -40,9 +44,13 @@ class AnalysisResult:
     porosity: dict | None = None
     notes: dict = field(default_factory=dict)
     timings: dict = field(default_factory=dict)
+    pore_analysis: object | None = None
 
     def export(self, out, force: bool = False):
-        """Write this result as a voxtopo result folder (the files of ``voxtopo analyse``)."""
+        """Write this result as a voxtopo result folder: the files of ``voxtopo pores`` for
+        a pore analysis, of ``voxtopo analyse`` otherwise."""
+        if self.pore_analysis is not None:
+            return porosity.write_pores(out, self.pore_analysis, self.scan, force=force)
         return write_result(out, self.scan, self.diagram, self.options,
                             prepared=self.prepared, timings=self.timings, notes=self.notes,
                             force=force)
@@ -70,29 +78,27 @@ def scan_from_layer_data(data, *, name: str, spacing, unit: str, source: str = "
     return Scan(array, spacing=spacing, unit=unit, source=source or f"napari layer {name}")
 
 
-def _pore_details(prepared: Scan, diagram, options: AnalysisOptions, progress):
-    """voxtopo.porosity's measures of the same pore phase: (summary, per-pore table).
+def _pore_analysis(scan: Scan, options: AnalysisOptions, progress):
+    """voxtopo.porosity's analysis of the layer, with the panel's crop, downsampling and
+    smoothing first; a binary image keeps its own phases (True, 1 = pore), as in the CLI."""
+    gray, _ = prepare(scan, dataclasses.replace(options, distance=False, threshold=None,
+                                                pores_bright=False))
+    threshold, pores_bright = options.threshold, options.pores_bright
+    if porosity.is_binary_mask(gray.data):
+        threshold, pores_bright = None, False
+    return porosity.analyse(gray, threshold=threshold, pores_bright=pores_bright,
+                            neighbourhood=options.neighbourhood,
+                            min_persistence=options.min_persistence, engine=options.engine,
+                            progress=progress)
 
-    The table has the diagram row of each pore (``feature``, matched by the pore's
-    deepest voxel) and the porosity columns ``body_volume``, ``border``, ``isolated``.
-    """
-    from voxtopo import porosity
 
-    analysis = porosity.analyse(prepared.data < 0, spacing=prepared.spacing,
-                                unit=prepared.unit, neighbourhood=diagram.neighbourhood,
-                                engine=options.engine, progress=progress)
-    axes = ("z", "y", "x")[3 - diagram.ndim:]
-    spacing = np.asarray(prepared.spacing)
-    body_voxels = np.rint(analysis.pores[[f"body_{a}" for a in axes]].to_numpy(
-        dtype=np.float64) / spacing).astype(np.int64)
-    pores = diagram.dimension(0).pairs
-    rows = diagram.pairs.index[diagram.pairs["dim"] == 0]
-    birth_voxels = pores[[f"birth_{a}" for a in axes]].to_numpy(dtype=np.int64)
-    row_of_voxel = {tuple(v): int(r) for v, r in zip(birth_voxels, rows)}
-    features = [row_of_voxel.get(tuple(v), -1) for v in body_voxels]
-    table = analysis.pores[["body_volume", "border", "isolated"]].copy()
-    table.insert(0, "feature", features)
-    return analysis.summary, table[table["feature"] >= 0].reset_index(drop=True)
+def _pore_details(analysis):
+    """The pore table keyed by the diagram row of each pore (``feature``)."""
+    details = analysis.pores.drop(columns=[c for c in analysis.pores.columns
+                                           if c.startswith("body_voxel_")])
+    details = details.rename(columns={"id": "pore_id"})
+    details.insert(0, "feature", analysis.pore_rows)
+    return details
 
 
 def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=None,
@@ -115,8 +121,9 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
     with_regions : bool
         For a distance transform, label the region of every pore.
     with_porosity : bool
-        For a distance transform, also run :func:`voxtopo.porosity.analyse` on the pore
-        phase: its summary (porosity, percolation) and per-pore volumes join the result.
+        For a distance transform, run the library's pore job (:func:`voxtopo.porosity.
+        analyse`) instead: its diagram, its pores (the pore layer then holds exactly the
+        pores of the pore table, with their ids), its regions and its summary.
     progress : callable(phase, fraction), optional
         Raise voxtopo.Cancelled in it to stop; the run then leaves nothing behind.
 
@@ -128,34 +135,42 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
         if progress is not None:
             progress(phase, fraction)
 
-    report("preparing the filtration", 0.0)
-    computed = analyse.run(scan, options, progress)
-    prepared, diagram = computed.prepared, computed.diagram
-    notes, timings = computed.notes, dict(computed.timings)
-
-    regions = None
-    if with_regions and prepared.values == "distance":
+    timings = {}
+    analysis, porosity_summary, pore_details, regions, shown_rows = None, None, None, None, None
+    if with_porosity and options.distance:
         start = time.perf_counter()
-        pores = diagram.dimension(0).pairs
-        axes = ("birth_z", "birth_y", "birth_x")[3 - diagram.ndim:]
-        regions = pore_regions(prepared.data, pores[list(axes)].to_numpy(dtype=np.int64),
-                               pores["death"].to_numpy(), diagram.neighbourhood,
-                               progress=progress)
-        timings["pore_regions"] = time.perf_counter() - start
-
-    porosity_summary, pore_details = None, None
-    if with_porosity and prepared.values == "distance":
-        start = time.perf_counter()
-        porosity_summary, pore_details = _pore_details(prepared, diagram, options, progress)
+        analysis = _pore_analysis(scan, options, progress)
+        prepared, diagram, notes = analysis.distance, analysis.diagram, {}
+        porosity_summary = analysis.summary
+        pore_details = _pore_details(analysis)
+        shown_rows = {0: analysis.pore_rows}
         timings["porosity"] = time.perf_counter() - start
+        if with_regions:
+            start = time.perf_counter()
+            regions = porosity.regions_of(analysis, progress=progress)
+            timings["pore_regions"] = time.perf_counter() - start
+    else:
+        report("preparing the filtration", 0.0)
+        computed = analyse.run(scan, options, progress)
+        prepared, diagram, notes = computed.prepared, computed.diagram, computed.notes
+        timings.update(computed.timings)
+
+        if with_regions and prepared.values == "distance":
+            start = time.perf_counter()
+            pores = diagram.dimension(0).pairs
+            axes = ("birth_z", "birth_y", "birth_x")[3 - diagram.ndim:]
+            regions = porosity.pore_regions(
+                prepared.data, pores[list(axes)].to_numpy(dtype=np.int64),
+                pores["death"].to_numpy(), diagram.neighbourhood, progress=progress)
+            timings["pore_regions"] = time.perf_counter() - start
 
     report("building the layers", 0.0)
     placement = placement_of(scan.shape, scan.spacing, scan.unit, crop=options.crop,
                              downsample=options.downsample, translate=translate)
     layers = result_layers(diagram, placement, name, mark_deaths=mark_deaths, regions=regions,
-                           pore_details=pore_details)
+                           pore_details=pore_details, shown_rows=shown_rows)
     report("building the layers", 1.0)
     return AnalysisResult(name=name, scan=scan, prepared=prepared, options=options,
                           diagram=diagram, placement=placement, layers=layers,
                           regions=regions, porosity=porosity_summary, notes=notes,
-                          timings=timings)
+                          timings=timings, pore_analysis=analysis)

@@ -75,8 +75,8 @@ def features_table(diagram, dim: int, placement: Placement) -> pd.DataFrame:
     voxel locations ``birth_z .. death_x`` of the diagram, the physical positions
     ``birth_z_position ..`` (in ``placement.unit``, world coordinates), ``span`` (the
     physical distance from the birth voxel to the death voxel, a rough size of the
-    feature), and for pores of a distance transform ``pore_radius`` (minus the birth: the
-    radius of the largest ball inside the pore) and ``throat_radius`` (minus the death:
+    feature), and for pores of a distance transform ``body_radius`` (minus the birth: the
+    radius of the largest ball inside the pore, as in pores.csv) and ``throat_radius`` (minus the death:
     the radius of the narrowest passage to an older pore; empty when the pore only meets
     others through the solid or never does).
     """
@@ -95,17 +95,22 @@ def features_table(diagram, dim: int, placement: Placement) -> pd.DataFrame:
         table[f"death_{a}_position"] = deaths[:, k] * scale[k] + corner[k]
     table["span"] = np.sqrt((((deaths - births) * scale) ** 2).sum(axis=1))
     if diagram.values == "distance" and dim == 0:
-        table["pore_radius"] = -rows["birth"].to_numpy()
+        table["body_radius"] = -rows["birth"].to_numpy()
         death = rows["death"].to_numpy()
         table["throat_radius"] = np.where(np.isfinite(death) & (death < 0), -death, np.nan)
     return table
 
 
-def _points(diagram, dim, which, placement, longest, result_name, pore_details=None):
+def _points(diagram, dim, which, placement, longest, result_name, pore_details=None,
+            rows=None):
     axes = AXES_3D[3 - diagram.ndim:]
     table = features_table(diagram, dim, placement)
+    if rows is not None:
+        table = table[table["feature"].isin(rows)].reset_index(drop=True)
     if pore_details is not None and dim == 0:
-        table = table.merge(pore_details, on="feature", how="left")
+        extra = pore_details.drop(columns=[c for c in pore_details.columns
+                                           if c in table.columns and c != "feature"])
+        table = table.merge(extra, on="feature", how="left")
     coords = table[[f"{which}_{a}" for a in axes]].to_numpy(dtype=np.float64, na_value=np.nan)
     if which == "death":
         has_death = ~np.isnan(coords).any(axis=1)
@@ -137,16 +142,22 @@ def _points(diagram, dim, which, placement, longest, result_name, pore_details=N
 
 
 def result_layers(diagram, placement: Placement, result_name: str, *,
-                  mark_deaths: bool = False, regions=None, pore_details=None) -> list[tuple]:
+                  mark_deaths: bool = False, regions=None, pore_details=None,
+                  shown_rows=None) -> list[tuple]:
     """Layer-data tuples for one result: births per dimension, deaths on request, and
-    the pore regions when given (an int array on the analysed grid, k + 1 = pore k).
+    the pore regions when given (an int array on the analysed grid: k + 1 = pore k of the
+    diagram, or the pore's id for a pore analysis).
 
     ``pore_details`` (a table with a ``feature`` column, e.g. voxtopo.porosity's pore
-    volumes) is joined to the features of dimension 0.
+    table keyed by diagram row) is joined to the features of dimension 0.
+    ``shown_rows`` (dim -> diagram rows) keeps only those features of a dimension, e.g.
+    the pores of the pore table.
     """
     longest = longest_finite(diagram.pairs["persistence"])
     which = ["birth", "death"] if mark_deaths else ["birth"]
-    layers = [_points(diagram, dim, end, placement, longest, result_name, pore_details)
+    shown_rows = shown_rows or {}
+    layers = [_points(diagram, dim, end, placement, longest, result_name, pore_details,
+                      shown_rows.get(dim))
               for end in which for dim in range(diagram.ndim)]
     if regions is not None:
         layers.append((regions, {

@@ -5,6 +5,9 @@ panel's export) becomes one Points layer per dimension at the birth voxels and o
 death voxels. When the scan named in ``summary.json`` is still where it was, it is opened
 below them with its voxel size, and for a distance transform the pore regions are
 recomputed from it; otherwise the features come alone, placed by the stored voxel size.
+
+A folder of ``voxtopo pores`` (it holds ``pores.csv``) becomes Points layers of its pores,
+grains, loops and voids at their positions, each with its table as ``features``.
 """
 
 from __future__ import annotations
@@ -12,15 +15,16 @@ from __future__ import annotations
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 
 import voxtopo
+from voxtopo import porosity
 from voxtopo.diagram import Diagram
 from voxtopo.errors import InputError
 from voxtopo.io.results import read_summary
 from voxtopo.jobs.analyse import AnalysisOptions, prepare
 
 from ._layers import METADATA_KEY, placement_of, result_layers
-from ._pore_regions import pore_regions
 
 __all__ = ["napari_get_reader", "read_result_folder"]
 
@@ -56,12 +60,53 @@ def _options(summary: dict) -> AnalysisOptions:
     return AnalysisOptions(**{k: v for k, v in summary.get("options", {}).items() if k in known})
 
 
+#: tables of a pores folder: file stem -> the column prefix of the position shown
+_PORE_TABLES = {"pores": "body", "grains": "body", "loops": "channel", "voids": "void"}
+
+
+def _read_pore_folder(folder: Path, summary: dict) -> list[tuple]:
+    """Points layers of a ``voxtopo pores`` folder, placed by its stored voxel size."""
+    spacing = np.asarray(summary.get("spacing", []), dtype=np.float64)
+    ndim = len(spacing)
+    if ndim not in (2, 3):
+        raise InputError(f"{folder / 'summary.json'} has no voxel size for its {ndim} axes; "
+                         f"write the folder again with voxtopo pores.")
+    axes = ("z", "y", "x")[3 - ndim:]
+    unit = summary.get("unit", "px")
+    layers = []
+    for stem, prefix in _PORE_TABLES.items():
+        path = folder / f"{stem}.csv"
+        if not path.is_file():
+            continue
+        try:
+            table = pd.read_csv(path)
+            positions = table[[f"{prefix}_{a}" for a in axes]].to_numpy(dtype=np.float64)
+        except (ValueError, KeyError, pd.errors.ParserError) as error:
+            raise InputError(f"{path} cannot be read as a table of {stem} ({error}); write "
+                             f"the folder again with voxtopo pores.") from None
+        placed = ~np.isnan(positions).any(axis=1)
+        table = table[placed].reset_index(drop=True)
+        layers.append((positions[placed] / spacing, {
+            "name": f"{stem} · {folder.name}",
+            "ndim": ndim,
+            "scale": tuple(float(s) for s in spacing),
+            "features": table,
+            "size": 3.0,
+            "symbol": "disc",
+            "metadata": {METADATA_KEY: {"result": folder.name, "which": stem,
+                                        "unit": unit}},
+        }, "points"))
+    return layers
+
+
 def read_result_folder(path) -> list[tuple]:
     """Layer-data tuples for a result folder: the scan (when found), then the features."""
     if isinstance(path, (list, tuple)):
         path = path[0]
     folder = Path(path)
     summary = read_summary(folder)
+    if (folder / "pores.csv").is_file():
+        return _read_pore_folder(folder, summary)
     try:
         diagram = Diagram.load(folder)
     except (ValueError, KeyError) as error:
@@ -88,7 +133,7 @@ def read_result_folder(path) -> list[tuple]:
             prepared, _ = prepare(scan, options)
             pores = diagram.dimension(0).pairs
             axes = ("birth_z", "birth_y", "birth_x")[3 - diagram.ndim:]
-            regions = pore_regions(prepared.data, pores[list(axes)].to_numpy(dtype=np.int64),
+            regions = porosity.pore_regions(prepared.data, pores[list(axes)].to_numpy(dtype=np.int64),
                                    pores["death"].to_numpy(), diagram.neighbourhood)
     return layers + result_layers(diagram, placement, folder.name, mark_deaths=True,
                                   regions=regions)

@@ -21,6 +21,7 @@ from qtpy.QtWidgets import (QCheckBox, QComboBox, QDoubleSpinBox, QFileDialog, Q
                             QHBoxLayout, QLabel, QProgressBar, QPushButton, QVBoxLayout,
                             QWidget)
 
+from voxtopo import porosity
 from voxtopo.errors import Cancelled, InputError, VoxtopoError
 from voxtopo.jobs.analyse import AnalysisOptions
 
@@ -102,7 +103,9 @@ class AnalysisWidget(QWidget):
         self.min_persistence_box = QDoubleSpinBox()
         self.min_persistence_box.setDecimals(4)
         self.min_persistence_box.setRange(0.0, 1e12)
-        self.min_persistence_box.setToolTip("Keep only features that live longer than this.")
+        self.min_persistence_box.setToolTip("The shortest lifetime kept (as --min-persistence "
+                                            "of the voxtopo command): only features that "
+                                            "live longer than this.")
         self.deaths_check = QCheckBox("also mark where features end")
         self.deaths_check.setToolTip("Adds a second layer per dimension at the voxels where "
                                      "the features die.")
@@ -125,8 +128,9 @@ class AnalysisWidget(QWidget):
         self.status = QLabel("Pick a layer and press Find features.")
         self.status.setWordWrap(True)
         self.export_button = QPushButton("Save result folder…")
-        self.export_button.setToolTip("Write pairs.csv, summary.json and the plots, as "
-                                      "`voxtopo analyse` does.")
+        self.export_button.setToolTip("Write the result folder as the command does: "
+                                      "`voxtopo pores` for a porosity run, `voxtopo "
+                                      "analyse` otherwise.")
         self.export_button.setEnabled(False)
         self.export_button.clicked.connect(self._ask_export)
 
@@ -136,7 +140,7 @@ class AnalysisWidget(QWidget):
         form.addRow("pore phase", self.pore_choice)
         form.addRow("neighbourhood", self.neighbourhood_choice)
         form.addRow("smoothing σ", self.sigma_box)
-        form.addRow("minimum lifetime", self.min_persistence_box)
+        form.addRow("min persistence", self.min_persistence_box)
         form.addRow(self.deaths_check)
         form.addRow(self.porosity_check)
         buttons = QHBoxLayout()
@@ -297,16 +301,18 @@ class AnalysisWidget(QWidget):
             self.viewer.add_layer(layer)
         self.result = result
         self.export_button.setEnabled(True)
-        counts = result.diagram.counts()
-        names = [kwargs["name"].split(" · ")[0] for _, kwargs, t in result.layers
-                 if t == "points" and kwargs["metadata"][METADATA_KEY]["which"] == "birth"]
-        found = "Found " + ", ".join(f"{counts[d]} {names[d]}"
-                                     for d in range(result.diagram.ndim)) + "."
         if result.porosity is not None:
-            through = [a for a, yes in result.porosity["percolates"].items() if yes]
-            found += (f" Porosity {100 * result.porosity['porosity']:.1f} %; the pores "
-                      + (f"connect across {', '.join(through)}." if through
-                         else "connect across no axis."))
+            # the pore job's own lines: the same counts and words as `voxtopo pores`
+            found = " ".join(line[0].upper() + line[1:] + ("" if line.endswith(".") else ".")
+                             for line in porosity.summary_lines(result.porosity))
+        else:
+            counts = result.diagram.counts()
+            names = [kwargs["name"].split(" · ")[0] for _, kwargs, t in result.layers
+                     if t == "points" and kwargs["metadata"][METADATA_KEY]["which"] == "birth"]
+            found = ("Found " + ", ".join(f"{counts[d]} {names[d]}"
+                                          for d in range(result.diagram.ndim))
+                     + f" (all pairs with persistence above "
+                       f"{result.options.min_persistence:g}).")
         self.status.setText(found)
         self._show_diagram(result.name)
 

@@ -20,8 +20,9 @@ straight from the definition (one connected-component labelling per pore), slow 
 read, and is the kernel's twin in the tests.
 
 The kernels release the GIL (``nogil=True``) so that the viewer stays responsive while a
-worker thread floods a large volume. This lives in the plugin for now; it belongs with the pore analysis of the library and can
-move there unchanged.
+worker thread floods a large volume. Neighbour offsets and the union-find ``find`` are the
+basin sweeps' own (:mod:`._sweep`). :func:`regions_of` labels the pores of a
+:class:`PoreAnalysis` by their ``id``.
 """
 
 from __future__ import annotations
@@ -30,27 +31,11 @@ import numpy as np
 from numba import njit
 from scipy import ndimage
 
-from voxtopo.errors import InputError
+from ..diagram import AXES_3D
+from ..errors import InputError
+from ._sweep import _find, _neighbour, as_3d_shape, neighbour_offsets
 
-__all__ = ["pore_regions", "pore_regions_by_levels"]
-
-
-def _offsets(ndim: int, neighbourhood: int) -> np.ndarray:
-    """Neighbour offsets as (n, 3) (2D padded with a zero z step).
-
-    The voxel construction (8 / 26) joins voxels that share a corner; the vertex
-    construction (4 / 6) only those that share a face: the same rule as the diagram's.
-    """
-    full = neighbourhood in (8, 26)
-    steps = []
-    for dz in ((-1, 0, 1) if ndim == 3 else (0,)):
-        for dy in (-1, 0, 1):
-            for dx in (-1, 0, 1):
-                manhattan = abs(dz) + abs(dy) + abs(dx)
-                if manhattan == 0 or (not full and manhattan > 1):
-                    continue
-                steps.append((dz, dy, dx))
-    return np.array(steps, dtype=np.int64)
+__all__ = ["pore_regions", "pore_regions_by_levels", "regions_of"]
 
 
 def _check(distance, birth_voxels, levels, neighbourhood):
@@ -106,7 +91,7 @@ def pore_regions(distance, birth_voxels, death_levels, neighbourhood: int = 26,
     """
     distance, birth_voxels, levels = _check(distance, birth_voxels, death_levels, neighbourhood)
     flat = distance.ravel()
-    shape3 = (1,) * (3 - distance.ndim) + distance.shape
+    shape3 = as_3d_shape(distance.shape)
     seed_of_voxel = np.full(flat.size, -1, dtype=np.int32)
     if len(birth_voxels):
         seed_flat = np.ravel_multi_index(tuple(birth_voxels.T), distance.shape)
@@ -118,7 +103,7 @@ def pore_regions(distance, birth_voxels, death_levels, neighbourhood: int = 26,
     if progress is not None:
         progress("pore regions", 0.3)
     entry_pore, parent_pore, merge_level, tag = _flood(
-        flat, order, np.array(shape3, dtype=np.int64), _offsets(distance.ndim, neighbourhood),
+        flat, order, np.array(shape3, dtype=np.int64), neighbour_offsets(neighbourhood),
         seed_of_voxel, levels)
     if progress is not None:
         progress("pore regions", 0.8)
@@ -126,16 +111,6 @@ def pore_regions(distance, birth_voxels, death_levels, neighbourhood: int = 26,
     if progress is not None:
         progress("pore regions", 1.0)
     return labels.reshape(distance.shape)
-
-
-@njit(cache=True, nogil=True)
-def _find(parent, v):
-    root = v
-    while parent[root] != root:
-        root = parent[root]
-    while parent[v] != root:
-        parent[v], v = root, parent[v]
-    return root
 
 
 @njit(cache=True, nogil=True)
@@ -168,11 +143,8 @@ def _flood(values, order, shape3, offsets, seed_of_voxel, levels):
         x = v % nx
         count = 0
         for k in range(offsets.shape[0]):
-            zz, yy, xx = z + offsets[k, 0], y + offsets[k, 1], x + offsets[k, 2]
-            if zz < 0 or zz >= nz or yy < 0 or yy >= ny or xx < 0 or xx >= nx:
-                continue
-            w = (zz * ny + yy) * nx + xx
-            if parent[w] < 0:
+            w = _neighbour(offsets, k, z, y, x, nz, ny, nx)
+            if w < 0 or parent[w] < 0:
                 continue
             r = _find(parent, w)
             seen = False
@@ -277,3 +249,25 @@ def pore_regions_by_levels(distance, birth_voxels, death_levels, neighbourhood: 
         if component:
             labels[below == component] = k + 1
     return labels
+
+
+def regions_of(analysis, progress=None) -> np.ndarray:
+    """The region of every pore of a :func:`voxtopo.porosity.analyse` result, labelled by
+    the pore's ``id`` (0: solid, outside the region of interest, or no pore).
+
+    The same partition as the pores' ``body_volume`` (``body_area`` in 2D): the count of
+    voxels labelled ``id`` times the voxel volume is that pore's own size.
+    """
+    pores = analysis.pores
+    distance = analysis.distance
+    axes = AXES_3D[3 - distance.ndim:]
+    birth_voxels = pores[[f"body_voxel_{a}" for a in axes]].to_numpy(dtype=np.int64)
+    throat = pores["throat_radius"].to_numpy(dtype=np.float64)
+    levels = np.where(np.isnan(throat), np.inf, -throat)
+    field = distance.data
+    if analysis.sample is not None:
+        field = np.where(analysis.sample, field, np.inf)
+    labels = pore_regions(field, birth_voxels, levels,
+                          analysis.diagram.neighbourhood, progress=progress)
+    ids = np.concatenate([[0], pores["id"].to_numpy(dtype=np.int32)])
+    return ids[labels]

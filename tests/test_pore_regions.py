@@ -7,7 +7,7 @@ from scipy import ndimage
 import voxtopo
 from voxtopo.errors import InputError
 from voxtopo.filtration import signed_distance
-from voxtopo_napari._pore_regions import pore_regions, pore_regions_by_levels
+from voxtopo.porosity._regions import pore_regions, pore_regions_by_levels
 
 
 def _pores(distance, neighbourhood, min_persistence=0.0):
@@ -95,3 +95,33 @@ def test_birth_outside_the_volume_is_refused():
 def test_wrong_neighbourhood_is_refused_with_the_value():
     with pytest.raises(InputError, match=r"got 26\.$"):
         pore_regions(np.full((3, 3), -1.0), [[0, 0]], [np.inf], 26)
+
+
+def test_regions_of_a_pore_analysis_are_labelled_by_pore_id():
+    # Two closed cavities of known voxel counts (numpy's count of each ball, common
+    # practice, no source) in solid: each is one pore, its region is its ball, and the
+    # label is the pore's id in the table; the region's voxels make its body_volume.
+    from voxtopo.porosity import analyse, regions_of
+    z, y, x = np.meshgrid(*[np.arange(30)] * 3, indexing="ij")
+    big = np.sqrt((z - 15) ** 2 + (y - 9) ** 2 + (x - 9) ** 2) <= 6
+    small = np.sqrt((z - 15) ** 2 + (y - 21) ** 2 + (x - 21) ** 2) <= 3
+    result = analyse(big | small, spacing=(2.0, 2.0, 2.0), unit="um", engine="gudhi")
+    labels = regions_of(result)
+    pores = result.pores
+    assert pores["id"].tolist() == [1, 2]
+    assert np.array_equal(labels == 1, big) and np.array_equal(labels == 2, small)
+    assert pores["body_volume"].tolist() == [8.0 * big.sum(), 8.0 * small.sum()]
+
+
+def test_regions_stop_at_the_region_of_interest():
+    # common practice, no source: outside the sample no voxel belongs to a pore
+    from voxtopo.porosity import analyse, regions_of
+    mask = np.ones((20, 20, 20), bool)
+    mask[:, 5:15, 5:15] = False
+    mask[:, 8:12, 8:12] = True                       # a channel through a solid block
+    roi = np.zeros_like(mask)
+    roi[:, 5:15, 5:15] = True
+    result = analyse(mask, roi=roi, engine="gudhi")
+    labels = regions_of(result)
+    assert not labels[~roi].any()
+    assert np.array_equal(labels > 0, mask & roi)
