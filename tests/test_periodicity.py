@@ -130,7 +130,7 @@ def test_amplitude_of_a_sinusoid_in_the_signals_own_units():
 # --- Rips bars against gudhi ------------------------------------------------------------
 def test_rips_bars_equal_gudhi_rips_complex():
     """gudhi's RipsComplex (Maria et al. 2014) on the same sliding-window clouds: the H1
-    bars over Z/2 and Z/3 must be the same multiset."""
+    bars of our kernel over Z/2 and Z/3 must be the same multiset."""
     rng = np.random.default_rng(5)
     traces = np.stack([_cosine(150, 13.0) + 0.3 * rng.standard_normal(150),
                        rng.standard_normal(150),
@@ -146,6 +146,50 @@ def test_rips_bars_equal_gudhi_rips_complex():
             key = np.lexsort
             np.testing.assert_allclose(ours[(p, 1)][key(ours[(p, 1)].T[::-1])],
                                        theirs[key(theirs.T[::-1])], rtol=1e-12)
+
+
+def test_the_plain_python_twin_of_the_kernel_gives_the_same_bars():
+    """The kernel's pure-Python twin (numba's py_func) on tiny clouds, tied distances
+    included, against gudhi's RipsComplex (Maria et al. 2014)."""
+    from voxtopo.periodicity._rips_kernel import h1_bars
+
+    rng = np.random.default_rng(8)
+    for n in (4, 7, 11):
+        cloud = np.round(rng.standard_normal((n, 3)), 1)
+        for p in (2, 3):
+            twin = h1_bars.py_func(cloud, p)
+            np.testing.assert_allclose(np.sort(twin, axis=0), np.sort(h1_bars(cloud, p), axis=0))
+            tree = gudhi.RipsComplex(points=cloud).create_simplex_tree(max_dimension=2)
+            tree.compute_persistence(homology_coeff_field=p)
+            theirs = np.array([b for b in tree.persistence_intervals_in_dimension(1)
+                               if b[1] > b[0]]).reshape(-1, 2)
+            np.testing.assert_allclose(np.sort(twin, axis=0), np.sort(theirs, axis=0))
+
+
+def test_projective_plane_has_a_loop_over_z2_and_none_over_z3():
+    """Hatcher 2002: the real projective plane has H1 = Z/2 over Z/2 and 0 over Z/3. A
+    sample of the Veronese embedding of the sphere (antipodal points identified) must give
+    the Rips complex a long H1 bar over Z/2 only, as in gudhi (Maria et al. 2014). 120
+    points: the kernel itself, beyond the size at which rips_bars hands over to gudhi."""
+    rng = np.random.default_rng(2)
+    sphere = rng.standard_normal((2000, 3))
+    sphere /= np.linalg.norm(sphere, axis=1, keepdims=True)
+    x, y, z = sphere.T
+    veronese = np.column_stack([x * x, y * y, z * z, np.sqrt(2) * x * y, np.sqrt(2) * x * z,
+                                np.sqrt(2) * y * z])
+    from voxtopo.periodicity._embedding import maxmin_batch
+    from voxtopo.periodicity._rips_kernel import h1_bars
+    cloud = veronese[maxmin_batch(veronese[None], 120)[0]]
+    bars = {(p, 1): h1_bars(cloud, p) for p in (2, 3)}     # the kernel, at any size
+    longest = {p: float(np.max(bars[(p, 1)][:, 1] - bars[(p, 1)][:, 0])) for p in (2, 3)}
+    assert longest[2] > 3 * longest[3], longest
+    for p in (2, 3):
+        tree = gudhi.RipsComplex(points=cloud).create_simplex_tree(max_dimension=2)
+        tree.compute_persistence(homology_coeff_field=p)
+        theirs = np.array([b for b in tree.persistence_intervals_in_dimension(1)
+                           if b[1] > b[0]]).reshape(-1, 2)
+        np.testing.assert_allclose(np.sort(bars[(p, 1)], axis=0), np.sort(theirs, axis=0),
+                                   rtol=1e-12)
 
 
 # --- whole-field rhythm: loop and torus -------------------------------------------------

@@ -68,8 +68,6 @@ class PeriodicityOptions:
         Regions (tiles, pixels) with the highest score shown with trace, cloud, barcode.
     seed : int
         Seed of the surrogates.
-    workers : int or None
-        Threads computing persistence (None: up to 2).
     """
 
     periods: tuple[float, float] | None = None
@@ -82,7 +80,6 @@ class PeriodicityOptions:
     whole_field: bool = True
     top: int = 3
     seed: int = 0
-    workers: int | None = None
 
     def described(self) -> dict:
         """The options as JSON values (a regions array by its shape)."""
@@ -218,7 +215,7 @@ def run(lapse: TimeLapse, options: PeriodicityOptions | None = None,
     method = Method(periods=options.periods,
                     points=options.points or (PIXEL_POINTS if pixels else REGION_POINTS),
                     surrogates=options.surrogates, alpha=options.significance,
-                    pooled=pixels, seed=options.seed, workers=options.workers)
+                    pooled=pixels, seed=options.seed)
     timings = {"signals": time.perf_counter() - started}
     table = measure(signals.traces, lapse.frame_interval, method, lapse.time_unit, report)
     timings["scores and p-values"] = time.perf_counter() - started - timings["signals"]
