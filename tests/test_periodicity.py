@@ -449,7 +449,7 @@ def test_per_pixel_maps_find_the_beating_disc(tmp_path):
 def test_periodicity_refuses_bad_input_with_one_sentence(tmp_path, case):
     """House rules (no source): one sentence, exit code 2, no traceback, nothing written,
     the input untouched."""
-    stack, disc = _beating_stack(frames=40)
+    stack, _ = _beating_stack(frames=40)
     path = tmp_path / "beats.tif"
     extra = []
     if case == "one frame":

@@ -112,7 +112,7 @@ def _catmull_rom(traces, times) -> np.ndarray:
 def maxmin_batch(clouds, count: int) -> np.ndarray:
     """Indices of ``count`` max-min landmarks of each cloud (first: point 0), shape
     (n, count); every cloud point ends up close to a landmark (de Silva & Carlsson 2004)."""
-    rows, size, _ = clouds.shape
+    rows = clouds.shape[0]
     chosen = np.zeros((rows, count), dtype=np.int64)
     nearest = np.sum((clouds - clouds[:, :1]) ** 2, axis=2)
     every = np.arange(rows)

@@ -26,7 +26,7 @@ from voxtopo.periodicity import PeriodicityOptions, detrend, normalise, rips_bar
     sliding_windows
 from voxtopo.scan import FRAME, TimeLapse
 
-__all__ = ["RhythmWidget", "SIGNALS", "TABLE_COLUMNS"]
+__all__ = ["SIGNALS", "TABLE_COLUMNS", "RhythmWidget"]
 
 #: Signal choices: label shown -> what a signal averages over.
 SIGNALS = {"every pixel (or bin of pixels)": "pixel", "tiles of the frame": "tile",
@@ -218,7 +218,7 @@ class RhythmWidget(QWidget):
 
     def _show_progress(self, phase: str, fraction: float) -> None:
         if self.running:
-            self.progress_bar.setValue(int(round(1000 * min(max(fraction, 0.0), 1.0))))
+            self.progress_bar.setValue(round(1000 * min(max(fraction, 0.0), 1.0)))
             self.status.setText(f"{phase} …")
 
     def cancel(self) -> None:
