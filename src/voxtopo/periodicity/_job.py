@@ -117,8 +117,10 @@ class PeriodicityResult:
         what the count counts."""
         measured = int((~self.table["flat"]).sum())
         significant = int(self.table["significant"].sum())
-        word = {"pixel": "pixels" if self.signals.bin == 1 else
-                f"{self.signals.bin} x {self.signals.bin} pixel bins",
+        ndim = self.signals.owner.ndim
+        cell = "pixel" if ndim == 2 else "voxel"
+        word = {"pixel": f"{cell}s" if self.signals.bin == 1 else
+                " x ".join([str(self.signals.bin)] * ndim) + f" {cell} bins",
                 "tile": "tiles", "region": "regions"}[self.signals.kind]
         if self.method.surrogates > 0:
             null = ("surrogates pooled over the signals, each made from a randomly chosen "
