@@ -232,9 +232,14 @@ def _p_values(z, observed, band, method: Method, report) -> np.ndarray:
         ranked = np.sort(null)
         exceed = count - np.searchsorted(ranked, observed - 1e-12, side="left")
         return (1.0 + exceed) / (1.0 + count)
-    fake = surrogates(z, count, rng).reshape(len(z) * count, -1)
-    fake, _ = normalise(fake)
-    null = _cloud_scores(fake, spectral_period(fake, band), method, method.fields[:1],
-                         report, "surrogates")[:, 0].reshape(len(z), count)
-    exceed = (null >= observed[:, None] - 1e-12).sum(axis=1)
+    exceed = np.zeros(len(z))
+    step = max(1, CHUNK // count)     # signals whose surrogates fill about one chunk
+    for start in range(0, len(z), step):
+        block = slice(start, min(start + step, len(z)))
+        fake = surrogates(z[block], count, rng).reshape(-1, z.shape[1])
+        fake, _ = normalise(fake)
+        null = _cloud_scores(fake, spectral_period(fake, band), method, method.fields[:1],
+                             None)[:, 0].reshape(-1, count)
+        exceed[block] = (null >= observed[block, None] - 1e-12).sum(axis=1)
+        report("surrogates", block.stop / len(z))
     return (1.0 + exceed) / (1.0 + count)
