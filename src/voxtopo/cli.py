@@ -517,7 +517,8 @@ def _add_periodicity(subparsers) -> None:
                         "frames to half the duration)")
     s = p.add_argument_group("signals (pixels by default; one of these at most)")
     s.add_argument("--bin", type=int, default=defaults.bin, metavar="N",
-                   help="average N x N pixel blocks before measuring (default 1)")
+                   help="average N x N pixel blocks (N x N x N voxels in a volume) before "
+                        "measuring (default 1)")
     s.add_argument("--tiles", type=int, metavar="N",
                    help="one signal per tile, the frame cut into N parts along each axis")
     s.add_argument("--regions", metavar="LABELS",

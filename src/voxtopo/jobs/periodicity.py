@@ -67,8 +67,6 @@ class PeriodicityOptions:
         Regions (tiles, pixels) with the highest score shown with trace, cloud, barcode.
     seed : int
         Seed of the surrogates.
-    workers : int or None
-        Threads computing persistence (None: up to 2).
     """
 
     periods: tuple[float, float] | None = None
@@ -81,7 +79,6 @@ class PeriodicityOptions:
     whole_field: bool = True
     top: int = 3
     seed: int = 0
-    workers: int | None = None
 
     def __post_init__(self):
         check(asdict(self) | {"regions": self.regions}, PERIODICITY_RULES,
@@ -124,8 +121,10 @@ class PeriodicityResult:
         what the count counts."""
         measured = int((~self.table["flat"]).sum())
         significant = int(self.table["significant"].sum())
-        word = {"pixel": "pixels" if self.signals.bin == 1 else
-                f"{self.signals.bin} x {self.signals.bin} pixel bins",
+        ndim = self.signals.owner.ndim
+        cell = "pixel" if ndim == 2 else "voxel"
+        word = {"pixel": f"{cell}s" if self.signals.bin == 1 else
+                " x ".join([str(self.signals.bin)] * ndim) + f" {cell} bins",
                 "tile": "tiles", "region": "regions"}[self.signals.kind]
         if self.method.surrogates > 0:
             null = ("surrogates pooled over the signals, each made from a randomly chosen "
@@ -244,7 +243,7 @@ def run(lapse: TimeLapse, options: PeriodicityOptions | None = None,
     method = Method(periods=options.periods,
                     points=options.points or (PIXEL_POINTS if pixels else REGION_POINTS),
                     surrogates=options.surrogates, alpha=options.significance,
-                    pooled=pixels, seed=options.seed, workers=options.workers)
+                    pooled=pixels, seed=options.seed)
     timings = {"signals": time.perf_counter() - started}
     table = measure(signals.traces, lapse.frame_interval, method, lapse.time_unit, report)
     timings["scores and p-values"] = time.perf_counter() - started - timings["signals"]

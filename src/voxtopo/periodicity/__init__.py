@@ -22,8 +22,7 @@ from ._embedding import DIMENSION, rips_bars, sliding_windows, window_length
 from ._signals import Signals, pixel_signals, region_signals, tile_signals
 from ._spectrum import amplitude, damping, detrend, normalise, spectral_period, surrogates
 
-__all__ = ["field_rhythm",
-           "FieldRhythm", "measure", "Method", "COLUMNS", "band_in_frames", "sliding_windows",
-           "window_length", "rips_bars", "DIMENSION", "Signals", "pixel_signals",
-           "tile_signals", "region_signals", "detrend", "normalise", "spectral_period",
-           "amplitude", "damping", "surrogates"]
+__all__ = ["COLUMNS", "DIMENSION", "FieldRhythm", "Method", "Signals", "amplitude",
+           "band_in_frames", "damping", "detrend", "field_rhythm", "measure", "normalise",
+           "pixel_signals", "region_signals", "rips_bars", "sliding_windows",
+           "spectral_period", "surrogates", "tile_signals", "window_length"]

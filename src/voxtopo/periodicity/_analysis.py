@@ -10,8 +10,6 @@
 
 from __future__ import annotations
 
-import os
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -66,8 +64,6 @@ class Method:
         Degree of the polynomial trend removed from each trace.
     seed : int
         Seed of the surrogates.
-    workers : int or None
-        Threads computing Rips persistence (None: the machine's cores).
     """
 
     periods: tuple[float, float] | None = None
@@ -79,7 +75,6 @@ class Method:
     fields: tuple[int, ...] = (2, 3)
     detrend_degree: int = 1
     seed: int = 0
-    workers: int | None = None
 
 
 def band_in_frames(periods, frames: int, frame_interval: float, time_unit: str = "s"):
@@ -135,16 +130,14 @@ def _cloud_scores(z, period_frames, method: Method, fields, progress=None,
     """Longest H1 bar / sqrt(3) of the cloud of every row, shape (rows, len(fields))."""
     rows = len(z)
     out = np.zeros((rows, len(fields)))
-    workers = method.workers or min(2, os.cpu_count() or 1)
-    with ThreadPoolExecutor(max_workers=workers) as pool:
-        for start in range(0, rows, CHUNK):
-            stop = min(start + CHUNK, rows)
-            clouds = sliding_windows(z[start:stop], period_frames[start:stop], method.points,
-                                     method.dimension)
-            for i, found in enumerate(pool.map(lambda c: longest_h1(c, fields), clouds)):
-                out[start + i] = [found[p] / SQRT3 for p in fields]
-            if progress is not None:
-                progress(phase, stop / rows)
+    for start in range(0, rows, CHUNK):
+        stop = min(start + CHUNK, rows)
+        clouds = sliding_windows(z[start:stop], period_frames[start:stop], method.points,
+                                 method.dimension)
+        for k, p in enumerate(fields):
+            out[start:stop, k] = longest_h1(clouds, p) / SQRT3
+        if progress is not None:
+            progress(phase, stop / rows)
     return out
 
 
@@ -239,9 +232,14 @@ def _p_values(z, observed, band, method: Method, report) -> np.ndarray:
         ranked = np.sort(null)
         exceed = count - np.searchsorted(ranked, observed - 1e-12, side="left")
         return (1.0 + exceed) / (1.0 + count)
-    fake = surrogates(z, count, rng).reshape(len(z) * count, -1)
-    fake, _ = normalise(fake)
-    null = _cloud_scores(fake, spectral_period(fake, band), method, method.fields[:1],
-                         report, "surrogates")[:, 0].reshape(len(z), count)
-    exceed = (null >= observed[:, None] - 1e-12).sum(axis=1)
+    exceed = np.zeros(len(z))
+    step = max(1, CHUNK // count)     # signals whose surrogates fill about one chunk
+    for start in range(0, len(z), step):
+        block = slice(start, min(start + step, len(z)))
+        fake = surrogates(z[block], count, rng).reshape(-1, z.shape[1])
+        fake, _ = normalise(fake)
+        null = _cloud_scores(fake, spectral_period(fake, band), method, method.fields[:1],
+                             None)[:, 0].reshape(-1, count)
+        exceed[block] = (null >= observed[block, None] - 1e-12).sum(axis=1)
+        report("surrogates", block.stop / len(z))
     return (1.0 + exceed) / (1.0 + count)

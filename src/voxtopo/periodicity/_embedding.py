@@ -25,6 +25,8 @@ from __future__ import annotations
 import gudhi
 import numpy as np
 
+from ._rips_kernel import MAX_POINTS, h1_bars, longest_h1_many
+
 #: Embedding dimension M (a window holds M + 1 samples): enough for the first five
 #: harmonics (M >= 2N, Perea & Harer 2015), so square and sawtooth waves keep their shape.
 DIMENSION = 10
@@ -110,7 +112,7 @@ def _catmull_rom(traces, times) -> np.ndarray:
 def maxmin_batch(clouds, count: int) -> np.ndarray:
     """Indices of ``count`` max-min landmarks of each cloud (first: point 0), shape
     (n, count); every cloud point ends up close to a landmark (de Silva & Carlsson 2004)."""
-    rows, size, _ = clouds.shape
+    rows = clouds.shape[0]
     chosen = np.zeros((rows, count), dtype=np.int64)
     nearest = np.sum((clouds - clouds[:, :1]) ** 2, axis=2)
     every = np.arange(rows)
@@ -131,7 +133,7 @@ def rips_bars(cloud, fields=(2,), max_dimension: int = 1) -> dict:
     fields : tuple of int
         Primes p of the coefficients Z/p.
     max_dimension : int
-        Highest homology dimension (the complex holds simplices one dimension higher).
+        Highest homology dimension (1 or 2).
 
     Returns
     -------
@@ -141,12 +143,25 @@ def rips_bars(cloud, fields=(2,), max_dimension: int = 1) -> dict:
 
     Notes
     -----
-    gudhi's RipsComplex (Maria, Boissonnat, Glisse & Yvinec 2014) with no threshold: the
-    clouds of one signal are small (tens of points), so the full complex is cheap.
+    Dimension 1 of clouds up to ``MAX_POINTS`` points comes from our own kernel
+    (``_rips_kernel.h1_bars``); dimension 2, and larger clouds, from gudhi's RipsComplex
+    (Maria, Boissonnat, Glisse & Yvinec 2014), with no threshold.
+
+    Examples
+    --------
+    >>> angle = np.linspace(0, 2 * np.pi, 12, endpoint=False)
+    >>> bars = rips_bars(np.column_stack([np.cos(angle), np.sin(angle)]))[(2, 1)]
+    >>> bars.round(4).tolist()
+    [[0.5176, 1.7321]]
     """
-    tree = gudhi.RipsComplex(points=np.asarray(cloud, dtype=np.float64)) \
-        .create_simplex_tree(max_dimension=max_dimension + 1)
+    cloud = np.ascontiguousarray(cloud, dtype=np.float64)
     bars = {}
+    if max_dimension == 1 and len(cloud) <= MAX_POINTS:
+        for p in fields:
+            found = h1_bars(cloud, int(p)) if len(cloud) >= 3 else np.zeros((0, 2))
+            bars[(int(p), 1)] = found[np.argsort(found[:, 0] - found[:, 1], kind="stable")]
+        return bars
+    tree = gudhi.RipsComplex(points=cloud).create_simplex_tree(max_dimension=max_dimension + 1)
     for p in fields:
         tree.compute_persistence(homology_coeff_field=int(p), persistence_dim_max=True)
         for dim in range(1, max_dimension + 1):
@@ -158,8 +173,14 @@ def rips_bars(cloud, fields=(2,), max_dimension: int = 1) -> dict:
     return bars
 
 
-def longest_h1(cloud, fields=(2,)) -> dict:
-    """Persistence of the longest H1 bar of the Rips complex of ``cloud``, per field."""
-    bars = rips_bars(cloud, fields, max_dimension=1)
-    return {p: float(bars[(p, 1)][0, 1] - bars[(p, 1)][0, 0]) if len(bars[(p, 1)]) else 0.0
-            for p in fields}
+def longest_h1(clouds, field: int = 2) -> np.ndarray:
+    """Persistence of the longest H1 bar over Z/``field`` of each cloud (rows, n, d), the
+    clouds shared among numba's threads."""
+    clouds = np.ascontiguousarray(clouds, dtype=np.float64)
+    if clouds.shape[1] > MAX_POINTS:
+        longest = []
+        for cloud in clouds:
+            bars = rips_bars(cloud, (field,))[(field, 1)]
+            longest.append(float(bars[0, 1] - bars[0, 0]) if len(bars) else 0.0)
+        return np.array(longest)
+    return longest_h1_many(clouds, int(field))

@@ -154,7 +154,7 @@ def surrogates(traces, count: int, rng: np.random.Generator) -> np.ndarray:
     spectrum = np.fft.rfft(traces, axis=1)
     power = np.abs(spectrum) ** 2
     bins = power.shape[1]
-    width = max(MIN_SMOOTHING, int(round(SMOOTHING_FRACTION * bins)) | 1)
+    width = max(MIN_SMOOTHING, round(SMOOTHING_FRACTION * bins) | 1)
     smooth = median_filter(power[:, 1:], size=(1, width), mode="reflect")
     scale = np.sqrt(smooth / 2.0)
     out = np.empty((rows, count, frames))
