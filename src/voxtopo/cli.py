@@ -128,12 +128,28 @@ def _add_analyse(subparsers) -> None:
     f.add_argument("--fill-invalid", metavar="max|min|VALUE",
                    help="put this value into NaN voxels instead of refusing the scan")
     e = p.add_argument_group("persistence")
-    e.add_argument("--min-persistence", type=float, default=0.0,
-                   help="keep only pairs that live longer than this")
+    e.add_argument("--min-persistence", type=_min_persistence, default="auto",
+                   metavar="auto|VALUE",
+                   help="auto (default): keep the significant pairs (with --distance the "
+                        "robust ones); a number: keep every pair that lives longer than it, "
+                        "with p_value and significant filled in (0 = every pair)")
     e.add_argument("--periodic", action="store_true", help="glue opposite faces of the scan")
     e.add_argument("--field", type=int, default=2, help="prime p of the coefficients Z/p")
     e.add_argument("--engine", choices=["auto", "voxtopo", "gudhi"], default="auto",
                    help="persistence engine (auto: our own where it applies)")
+    t = p.add_argument_group("which features are real")
+    t.add_argument("--significance", type=float, metavar="ALPHA",
+                   help="family-wise level of the significance test of gray-value sweeps "
+                        "(default 0.05)")
+    t.add_argument("--noise", type=float, metavar="SIGMA",
+                   help="noise level (standard deviation) in the scan's gray units "
+                        "(default: estimated from the scan)")
+    t.add_argument("--noise-model", choices=["gaussian", "poisson"], default="gaussian",
+                   help="gaussian (default), or poisson for photon counts (Anscombe "
+                        "transform before the sweep)")
+    t.add_argument("--boundary-tolerance", type=float, metavar="LENGTH",
+                   help="with --distance: how far the mask's boundary may be off, in the "
+                        "scan's unit (default one voxel)")
     o = p.add_argument_group("volumes larger than memory")
     o.add_argument("--out-of-core", action="store_true",
                    help="read a zarr / OME-Zarr store chunk by chunk and compute dimension 0 "
@@ -144,30 +160,55 @@ def _add_analyse(subparsers) -> None:
     p.set_defaults(handler=_run_analyse)
 
 
+def _min_persistence(text: str):
+    """--min-persistence: "auto" or a number of at least 0."""
+    if text == "auto":
+        return text
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"should be 'auto' or a number, got {text!r}")
+    if not value >= 0:
+        raise argparse.ArgumentTypeError(f"should be 'auto' or a number of at least 0, "
+                                         f"got {text!r}")
+    return value
+
+
 def _run_analyse(args) -> int:
     from .io import load
     from .io.results import check_target
-    from .pipeline import AnalysisOptions, analyse
+    from .pipeline import AnalysisOptions, check_options, run, write_result
     threshold = _threshold_value(args.threshold)
+    if args.distance and args.significance is not None:
+        raise VoxtopoError("--significance tests gray-value sweeps and would be ignored with "
+                           "--distance (robust features are kept there); leave it out or "
+                           "set --boundary-tolerance.")
     options = AnalysisOptions(
         superlevel=args.superlevel, neighbourhood=args.neighbourhood, sigma=args.smooth,
         crop=args.crop, downsample=args.downsample, distance=args.distance,
         threshold=threshold, pores_bright=args.pores_bright,
         fill_invalid=_fill_value(args.fill_invalid), min_persistence=args.min_persistence,
-        periodic=args.periodic, field=args.field, engine=args.engine)
+        periodic=args.periodic, field=args.field, engine=args.engine,
+        significance=0.05 if args.significance is None else args.significance,
+        noise=args.noise, noise_model=args.noise_model,
+        boundary_tolerance=args.boundary_tolerance)
+    check_options(options)
     check_target(args.out, args.force)
     load_options = load_options_from(args)
     if args.out_of_core:
         return _run_out_of_core(args, options, load_options)
     scan = load(args.scan, **load_options)
     bar = ProgressBar()
+    start = time.perf_counter()
     try:
-        diagram = analyse(scan, args.out, options, force=args.force, progress=bar)
+        result = run(scan, options, progress=bar)
+        write_result(args.out, scan, result.diagram, options, prepared=result.prepared,
+                     timings=result.timings, notes=result.notes, force=args.force,
+                     verdict=result.verdict)
     finally:
         bar.close()
-    counts = ", ".join(f"dim {d}: {n}" for d, n in diagram.counts(args.min_persistence).items())
-    print(f"voxtopo: {len(diagram)} pairs ({counts}) in {diagram.seconds:.2f} s "
-          f"with the {diagram.engine} engine")
+    print(f"voxtopo: {result.headline()} in {time.perf_counter() - start:.2f} s with the "
+          f"{result.diagram.engine} engine")
     print(f"voxtopo: results written to {args.out}")
     return 0
 
@@ -269,12 +310,22 @@ def _run_pores(args) -> int:
 
 
 def _run_out_of_core(args, options, load_options) -> int:
+    from dataclasses import replace
+
     from .batch import analyse_out_of_core
+    if not options.keeps_all_tested:
+        # the significance test simulates noise through the whole scan's preparation,
+        # which the out-of-core path does not hold in memory: every pair is listed
+        options = replace(options, min_persistence=0.0)
     diagram = analyse_out_of_core(args.scan, args.out, options, load_options=load_options,
                                   chunks=args.chunks, force=args.force)
-    counts = ", ".join(f"dim {d}: {n}" for d, n in diagram.counts(args.min_persistence).items()
+    floor = options.persistence_floor
+    counts = ", ".join(f"dim {d}: {n}" for d, n in diagram.counts(floor).items()
                        if d in (0, diagram.ndim - 1))
-    print(f"voxtopo: {len(diagram)} pairs ({counts}) out of core; {'; '.join(diagram.notes)}")
+    which = ("all pairs, not tested for significance out of core" if args.min_persistence ==
+             "auto" else "all pairs" if floor == 0 else f"pairs with persistence above {floor:g}")
+    print(f"voxtopo: {len(diagram)} pairs ({which}; {counts}) out of core; "
+          f"{'; '.join(diagram.notes)}")
     print(f"voxtopo: results written to {args.out}")
     return 0
 

@@ -48,9 +48,11 @@ LEAST_FULL_SHAPE_SIMULATIONS = 39
 #: Block simulations to which the Gumbel law is fitted.
 BLOCK_SIMULATIONS = 64
 
-#: Edge of a simulated block (voxels) by number of dimensions, before widening for long
+#: Edge of a simulated block (voxels) by number of dimensions: the simulations together
+#: cover about the scan's own volume, within these bounds, and widened for long
 #: correlations and smoothing (at least BLOCK_WIDTHS kernel widths per edge).
 BLOCK_EDGE = {2: 160, 3: 40}
+LEAST_BLOCK_EDGE = {2: 64, 3: 24}
 BLOCK_WIDTHS = 10
 
 
@@ -150,7 +152,9 @@ def _json_number(value: float):
 def _block_shape(shape, noise: NoiseModel, smoothing_voxels) -> tuple[int, ...]:
     ndim = len(shape)
     width = noise.correlation_voxels + max(smoothing_voxels, default=0.0)
-    edge = max(BLOCK_EDGE[ndim], int(math.ceil(BLOCK_WIDTHS * width)))
+    covering = int((math.prod(shape) / BLOCK_SIMULATIONS) ** (1 / ndim))
+    edge = min(BLOCK_EDGE[ndim], max(LEAST_BLOCK_EDGE[ndim], covering))
+    edge = max(edge, int(math.ceil(BLOCK_WIDTHS * width)))
     return tuple(min(n, edge) for n in shape)
 
 
