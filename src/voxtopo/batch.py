@@ -441,7 +441,7 @@ def analyse_out_of_core(source, out, options=None, *, load_options=None, chunks=
     start = time.perf_counter()
     diagram = chunked_persistence(opened, superlevel=options.superlevel,
                                   neighbourhood=options.neighbourhood,
-                                  min_persistence=options.min_persistence, scheduler=scheduler)
+                                  min_persistence=options.persistence_floor, scheduler=scheduler)
     seconds = time.perf_counter() - start
     placeholder = np.broadcast_to(np.zeros((), opened.dtype), opened.shape)
     scan = Scan(placeholder, spacing=opened.spacing, unit=opened.unit, source=opened.source)

@@ -191,25 +191,24 @@ class Verdict:
     flag         "significant" or "robust"
     thresholds   persistence above which a pair passes, per dimension (scan's values)
     description  the summary.json entry
-    phrase       how the count is said: method and level
+    level        method and level in brackets, said beside every count
     """
 
     tested: Diagram
     flag: str
     thresholds: dict
     description: dict
-    phrase: str
+    level: str
+
+    @property
+    def phrase(self) -> str:
+        """"significant (family-wise, alpha 0.05, ...)" or "robust (...)"."""
+        return f"{self.flag} {self.level}" if self.tested_any else self.level
 
     @property
     def tested_any(self) -> bool:
         """False when the pairs could not be tested (no noise to test against)."""
         return bool(self.thresholds)
-
-    def counts(self) -> dict[int, int]:
-        """Features per dimension that pass (essential classes included)."""
-        if not self.tested_any:
-            return {d: 0 for d in range(self.tested.ndim)}
-        return sig.significant_counts(self.tested, self.flag)
 
 
 def judge(diagram: Diagram, unsmoothed: Scan, options: AnalysisOptions,
@@ -226,10 +225,10 @@ def judge(diagram: Diagram, unsmoothed: Scan, options: AnalysisOptions,
                        "threshold": {str(d): threshold for d in range(diagram.ndim)},
                        "robust": {str(d): n for d, n in counts.items()},
                        "essential_classes": "never die; always counted as features"}
-        phrase = (f"robust (persistence above {threshold:.4g} {diagram.unit}: boundary "
-                  f"tolerance {delta:.4g} {diagram.unit}, stability theorem)")
+        level = (f"(persistence above {threshold:.4g} {diagram.unit}: boundary "
+                 f"tolerance {delta:.4g} {diagram.unit}, stability theorem)")
         return Verdict(tested, "robust", {d: threshold for d in range(diagram.ndim)},
-                       description, phrase)
+                       description, level)
     try:
         tested, significance = sig.assess(diagram, unsmoothed, alpha=options.significance,
                                           noise=options.noise,
@@ -243,11 +242,11 @@ def judge(diagram: Diagram, unsmoothed: Scan, options: AnalysisOptions,
     noise = significance.noise
     unit = "Anscombe units" if noise.model == "poisson" else "gray values"
     correlation = ", ".join(f"{v:.3g}" for v in sorted(set(noise.correlation_length)))
-    phrase = (f"significant (family-wise, alpha {significance.alpha:g}, {noise.model} noise "
-              f"{noise.sigma:.3g} {unit} {noise.method}, correlation {correlation} "
-              f"{noise.unit}, {significance.null.simulations} simulations)")
+    level = (f"(family-wise, alpha {significance.alpha:g}, {noise.model} noise "
+             f"{noise.sigma:.3g} {unit} {noise.method}, correlation {correlation} "
+             f"{noise.unit}, {significance.null.simulations} simulations)")
     return Verdict(tested, "significant", significance.thresholds(),
-                   significance.describe(tested), phrase)
+                   significance.describe(tested), level)
 
 
 def _untested(diagram: Diagram, reason: str) -> Verdict:
@@ -256,9 +255,9 @@ def _untested(diagram: Diagram, reason: str) -> Verdict:
     pairs = diagram.pairs.copy()
     pairs["p_value"] = np.nan
     pairs["significant"] = pd.array([pd.NA] * len(pairs), dtype="boolean")
-    phrase = f"not tested for significance ({reason.rstrip('.')})"
+    level = f"not tested for significance ({reason.rstrip('.')})"
     return Verdict(replace(diagram, pairs=pairs), "significant", {},
-                   {"method": "not tested", "reason": reason}, phrase)
+                   {"method": "not tested", "reason": reason}, level)
 
 
 @dataclass(frozen=True)
@@ -279,7 +278,8 @@ class AnalysisResult:
         total = len(self.verdict.tested)
         by_dim = ", ".join(f"dim {d}: {n}" for d, n in self.diagram.counts().items())
         if not self.options.keeps_all_tested:
-            return f"{kept} {self.verdict.flag} of {total} pairs ({by_dim}); {self.verdict.phrase}"
+            return (f"{kept} {self.verdict.flag} of {total} pairs {self.verdict.level}; "
+                    f"{by_dim}")
         floor = self.options.persistence_floor
         which = "all pairs" if floor == 0 else f"pairs with persistence above {floor:g}"
         if not self.verdict.tested_any:
@@ -404,7 +404,7 @@ def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepare
     if verdict is not None:
         judged = {"significance" if verdict.flag == "significant" else "robustness":
                   verdict.description,
-                  "counted": (f"{verdict.flag} features, {verdict.phrase}"
+                  "counted": (f"{verdict.flag} features {verdict.level}"
                               if not options.keeps_all_tested else
                               "all pairs" if threshold == 0 else
                               f"pairs with persistence above {threshold:g}"),

@@ -228,9 +228,9 @@ def write_report(folder) -> Path:
     Examples
     --------
     >>> import numpy as np, voxtopo, tempfile, pathlib
-    >>> from voxtopo.pipeline import analyse
+    >>> from voxtopo.pipeline import AnalysisOptions, analyse
     >>> out = pathlib.Path(tempfile.mkdtemp()) / "ring"
-    >>> _ = analyse(voxtopo.Scan(np.eye(6)), out)
+    >>> _ = analyse(voxtopo.Scan(np.eye(6)), out, AnalysisOptions(min_persistence=0))
     >>> write_report(out).name
     'report.html'
     """
