@@ -320,7 +320,8 @@ def run(scan: Scan, options: AnalysisOptions | None = None, progress=None) -> An
     kept = verdict.tested
     if not options.keeps_all_tested:
         kept = replace(kept, pairs=kept.pairs[kept.pairs[verdict.flag].to_numpy(dtype=bool)]
-                       .reset_index(drop=True))
+                       .reset_index(drop=True),
+                       notes=kept.notes + (f"pairs kept: {verdict.phrase}",))
     return AnalysisResult(scan, prepared, kept, verdict, options, notes, timings)
 
 
