@@ -70,9 +70,12 @@ def test_existing_result_folder_is_not_overwritten_without_force(tmp_path):
     assert result.returncode == 2 and "voxtopo wrote" in result.stderr
     assert (out / "keep.txt").read_text() == "mine" and not (out / "pairs.csv").exists()
     ours = tmp_path / "ours"
-    assert _run("analyse", tmp_path / "a.npy", "--out", ours).returncode == 0
+    # a constant image has no noise to test against: every pair is listed instead
+    assert _run("analyse", tmp_path / "a.npy", "--out", ours,
+                "--min-persistence", "0").returncode == 0
     (ours / "pairs.csv").write_text("stale")
-    result = _run("analyse", tmp_path / "a.npy", "--out", ours, "--force")
+    result = _run("analyse", tmp_path / "a.npy", "--out", ours, "--force",
+                  "--min-persistence", "0")
     assert result.returncode == 0, result.stderr
     assert (ours / "pairs.csv").read_text() != "stale"
 
@@ -132,6 +135,110 @@ def test_one_spacing_number_applies_to_every_axis(tmp_path):
     np.save(tmp_path / "v.npy", np.zeros((4, 5, 6), np.uint8))
     out = tmp_path / "r"
     assert main(["analyse", str(tmp_path / "v.npy"), "--out", str(out), "--spacing", "3",
-                 "--unit", "um"]) == 0
+                 "--unit", "um", "--min-persistence", "0"]) == 0
     summary = json.loads((out / "summary.json").read_text())
     assert summary["scan"]["spacing"] == [3.0, 3.0, 3.0] and summary["scan"]["unit"] == "um"
+
+
+# --- which features are real ------------------------------------------------------------
+def _disks_in_noise(folder):
+    """Two dark disks 10 sigma deep in white noise: about twice the largest persistence
+    white noise reaches on 64 x 64 pixels (see tests/test_significance.py)."""
+    from skimage.draw import disk
+    image = np.random.default_rng(2).normal(100, 3.0, (64, 64))
+    for centre in ((20, 20), (44, 40)):
+        image[disk(centre, 6)] -= 30.0
+    np.save(folder / "disks.npy", image.astype(np.float32))
+    return folder / "disks.npy"
+
+
+def test_default_keeps_the_significant_pairs_and_says_so(tmp_path):
+    # Besag & Clifford 1989 Monte Carlo test; the disks are far above the noise maxima.
+    out = tmp_path / "r"
+    result = _run("analyse", _disks_in_noise(tmp_path), "--out", out)
+    assert result.returncode == 0, result.stderr
+    line = result.stdout.splitlines()[0]
+    summary = json.loads((out / "summary.json").read_text())
+    pairs = pd.read_csv(out / "pairs.csv")
+    total = sum(summary["pairs_computed"].values())
+    assert f"{len(pairs)} significant of {total} pairs" in line
+    assert "family-wise, alpha 0.05" in line and "simulations" in line
+    assert pairs["significant"].all()
+    assert summary["counts"]["0"] >= 2                  # the component and a disk at least
+    assert summary["significance"]["alpha"] == 0.05
+    assert summary["significance"]["noise"]["level"] == pytest.approx(3.0, rel=0.1)
+    assert set(summary["significance"]["threshold"]) == {"0", "1"}
+    assert "lifetimes.png" in summary["plots"]
+    assert "Which features are significant" in (out / "report.html").read_text()
+
+
+def test_min_persistence_zero_lists_every_pair_with_p_values(tmp_path):
+    out = tmp_path / "all"
+    path = _disks_in_noise(tmp_path)
+    assert main(["analyse", str(path), "--out", str(out), "--min-persistence", "0"]) == 0
+    pairs = pd.read_csv(out / "pairs.csv")
+    # gudhi's cubical complex (Maria et al. 2014) gives the number of all pairs
+    import gudhi
+    complex_ = gudhi.CubicalComplex(top_dimensional_cells=np.load(path))
+    assert len(pairs) == len(complex_.persistence(homology_coeff_field=2, min_persistence=0))
+    finite = np.isfinite(pairs["death"])
+    assert pairs.loc[finite, "p_value"].between(0, 1).all()
+    assert pairs.loc[~finite, "p_value"].isna().all() and pairs.loc[~finite, "significant"].all()
+    assert (pairs["p_value"] <= 0.05).sum() == (pairs["significant"] & finite).sum()
+
+
+def test_distance_sweep_keeps_robust_pairs(tmp_path):
+    # Stability theorem (Cohen-Steiner, Edelsbrunner & Harer 2007): robust = persistence
+    # above 2 (delta + voxel diagonal); "auto" keeps exactly the pairs of the full list
+    # that pass, and the full list marks them.
+    from skimage.draw import disk
+    rng = np.random.default_rng(4)
+    mask = np.zeros((80, 80), np.uint8)
+    for _ in range(12):
+        mask[disk(tuple(rng.integers(5, 75, 2)), rng.uniform(1.0, 8.0), shape=mask.shape)] = 1
+    np.save(tmp_path / "mask.npy", mask)
+    kept, every = tmp_path / "kept", tmp_path / "every"
+    result = _run("analyse", tmp_path / "mask.npy", "--out", kept, "--distance",
+                  "--boundary-tolerance", "1")
+    assert result.returncode == 0, result.stderr
+    assert "robust of" in result.stdout
+    assert main(["analyse", str(tmp_path / "mask.npy"), "--out", str(every), "--distance",
+                 "--boundary-tolerance", "1", "--min-persistence", "0"]) == 0
+    robust = pd.read_csv(kept / "pairs.csv")
+    listed = pd.read_csv(every / "pairs.csv")
+    bound = 2 * (1 + np.sqrt(2))
+    assert robust["robust"].all()
+    assert len(robust) == int((listed["persistence"] > bound).sum()) < len(listed)
+    assert (listed["robust"] == (listed["persistence"] > bound)).all()
+    summary = json.loads((kept / "summary.json").read_text())
+    assert summary["robustness"]["boundary_tolerance"] == 1.0
+
+
+@pytest.mark.parametrize("options, words", [
+    (["--significance", "1.5"], "between 0 and 1"),
+    (["--significance", "0"], "between 0 and 1"),
+    (["--noise", "-2"], "positive number"),
+    (["--noise-model", "poisson"], "counts of at least 0"),
+    (["--boundary-tolerance", "1"], "only applies to distance sweeps"),
+    (["--distance", "--noise", "2"], "would be ignored"),
+])
+def test_bad_significance_options_give_one_sentence(tmp_path, options, words):
+    image = np.random.default_rng(0).normal(0, 1, (16, 16)).astype(np.float32)
+    image[0, 0] = -5
+    np.save(tmp_path / "a.npy", image)
+    out = tmp_path / "out"
+    result = _run("analyse", tmp_path / "a.npy", "--out", out, *options)
+    assert result.returncode == 2
+    errors = [line for line in result.stderr.splitlines() if "error" in line]
+    assert len(errors) == 1 and words in errors[0], result.stderr
+    assert "Traceback" not in result.stderr
+    assert not out.exists() and not [p for p in tmp_path.iterdir() if p.name.startswith(".out")]
+
+
+def test_constant_image_is_refused_with_what_to_do(tmp_path):
+    np.save(tmp_path / "flat.npy", np.full((16, 16), 3.0))
+    out = tmp_path / "out"
+    result = _run("analyse", tmp_path / "flat.npy", "--out", out)
+    assert result.returncode == 2
+    assert "no noise to estimate" in result.stderr and "--min-persistence 0" in result.stderr
+    assert not out.exists()

@@ -236,7 +236,8 @@ def test_a_system_failure_is_one_sentence(tmp_path, monkeypatch, capsys):
         raise OSError(errno.ENOSPC, "No space left on device", str(tmp_path / "r"))
 
     monkeypatch.setattr(voxtopo.jobs.analyse, "write_result", no_space)
-    code = cli.main(["analyse", str(tmp_path / "a.npy"), "--out", str(tmp_path / "r")])
+    code = cli.main(["analyse", str(tmp_path / "a.npy"), "--out", str(tmp_path / "r"),
+                     "--min-persistence", "0"])
     err = capsys.readouterr().err
     errors = [line for line in err.splitlines() if "error" in line]
     assert code == 1 and len(errors) == 1 and "No space left" in errors[0]
@@ -314,7 +315,7 @@ def test_a_batch_without_workers_stops_with_one_sentence_and_resumes(tmp_path):
     for i in range(2):
         np.save(tmp_path / f"s{i}.npy", np.eye(6) * (i + 1))
     settings_file = tmp_path / "settings.toml"
-    settings_file.write_text("[batch]\nworker_timeout = 2\n")
+    settings_file.write_text("[batch]\nworker_timeout = 2\n[analyse]\nmin_persistence = 0\n")
     out = tmp_path / "out"
     with dask.config.set(batch._WORKER_CONFIG):
         cluster = LocalCluster(n_workers=0, processes=True, host="127.0.0.1",
@@ -342,7 +343,7 @@ def test_local_cluster_scratch_stays_inside_the_batch_folder(tmp_path, monkeypat
     system_temp.mkdir()
     monkeypatch.setenv("TMPDIR", str(system_temp))
     monkeypatch.setattr(tempfile, "tempdir", None)
-    np.save(tmp_path / "a.npy", np.eye(6))
+    np.save(tmp_path / "a.npy", np.random.default_rng(2).random((24, 24)))
     out = tmp_path / "out"
     table = batch.run_batch(str(tmp_path / "a.npy"), out, workers=1, stream=io.StringIO())
     assert (table["status"] == "done").all()

@@ -37,12 +37,14 @@ def _chromium(page: Path, tmp_path: Path, *, screenshot: Path | None = None,
 
 
 def _ring_result(tmp_path) -> Path:
-    # An annulus: Betti numbers (1, 1) (Hatcher 2002, "Algebraic Topology").
+    # An annulus: Betti numbers (1, 1) (Hatcher 2002, "Algebraic Topology"). It has no
+    # noise to test against, so every pair is listed (min_persistence 0).
     yy, xx = np.indices((48, 48))
     ring = (np.abs(np.hypot(yy - 24, xx - 24) - 14) < 3).astype(float)
     out = tmp_path / "ring"
     analyse(voxtopo.Scan(ring, spacing=(0.5, 0.5), unit="um", source="ring.npy"),
-            out, voxtopo.jobs.analyse.AnalysisOptions(superlevel=True, engine="gudhi"))
+            out, voxtopo.jobs.analyse.AnalysisOptions(superlevel=True, engine="gudhi",
+                                                      min_persistence=0))
     return out
 
 

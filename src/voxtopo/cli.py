@@ -130,12 +130,27 @@ def _add_analyse(subparsers) -> None:
     f.add_argument("--fill-invalid", metavar="max|min|VALUE",
                    help="put this value into NaN voxels instead of refusing the scan")
     e = p.add_argument_group("persistence")
-    e.add_argument("--min-persistence", default="0", metavar="LENGTH",
-                   help="keep only pairs that live longer than this")
+    e.add_argument("--min-persistence", default="auto", metavar="auto|VALUE",
+                   help="auto (default): keep the significant pairs (with --distance the "
+                        "robust ones); a number: keep every pair that lives longer than it, "
+                        "with p_value and significant filled in (0 = every pair)")
     e.add_argument("--periodic", action="store_true", help="glue opposite faces of the scan")
     e.add_argument("--field", type=int, default=2, help="prime p of the coefficients Z/p")
     e.add_argument("--engine", choices=["auto", "voxtopo", "gudhi"], default="auto",
                    help="persistence engine (auto: our own where it applies)")
+    t = p.add_argument_group("which features are real")
+    t.add_argument("--significance", type=float, metavar="ALPHA",
+                   help="family-wise level of the significance test of gray-value sweeps "
+                        "(default 0.05)")
+    t.add_argument("--noise", type=float, metavar="SIGMA",
+                   help="noise level (standard deviation) in the scan's gray units "
+                        "(default: estimated from the scan)")
+    t.add_argument("--noise-model", choices=["gaussian", "poisson"], default="gaussian",
+                   help="gaussian (default), or poisson for photon counts (Anscombe "
+                        "transform before the sweep)")
+    t.add_argument("--boundary-tolerance", type=float, metavar="LENGTH",
+                   help="with --distance: how far the mask's boundary may be off, in the "
+                        "scan's unit (default one voxel)")
     o = p.add_argument_group("volumes larger than memory")
     o.add_argument("--out-of-core", action="store_true",
                    help="read a zarr / OME-Zarr store chunk by chunk and compute dimension 0 "
@@ -172,13 +187,20 @@ def _run_job(name: str, args, options, load_input, inputs) -> int:
 def _run_analyse(args) -> int:
     from .io import load
     from .jobs.analyse import AnalysisOptions
+    if args.distance and args.significance is not None:
+        raise VoxtopoError("--significance tests gray-value sweeps and would be ignored with "
+                           "--distance (robust features are kept there); leave it out or "
+                           "set --boundary-tolerance.")
     options = AnalysisOptions(
         superlevel=args.superlevel, neighbourhood=args.neighbourhood, sigma=args.smooth,
         crop=args.crop, downsample=args.downsample, distance=args.distance,
         threshold=_threshold_value(args.threshold), pores_bright=args.pores_bright,
         fill_invalid=_fill_value(args.fill_invalid),
         min_persistence=_min_persistence(args.min_persistence),
-        periodic=args.periodic, field=args.field, engine=args.engine)
+        periodic=args.periodic, field=args.field, engine=args.engine,
+        significance=0.05 if args.significance is None else args.significance,
+        noise=args.noise, noise_model=args.noise_model,
+        boundary_tolerance=args.boundary_tolerance)
     load_options = load_options_from(args)
     if args.out_of_core:
         return _run_out_of_core(args, options, load_options)
@@ -203,15 +225,18 @@ def _threshold_value(text):
         raise VoxtopoError(f"--threshold should be a number or 'otsu', got {text!r}.") from None
 
 
-def _min_persistence(text: str) -> float:
-    """--min-persistence: the shortest lifetime kept, a finite number >= 0."""
+def _min_persistence(text: str):
+    """--min-persistence: "auto" (the significant or robust pairs) or the shortest lifetime
+    kept, a finite number >= 0."""
+    if text == "auto":
+        return text
     try:
         value = float(text)
     except ValueError:
         value = float("nan")
     if not (math.isfinite(value) and value >= 0):
-        raise VoxtopoError(f"--min-persistence should be a finite number >= 0 (the shortest "
-                           f"lifetime kept), got {text!r}.")
+        raise VoxtopoError(f"--min-persistence should be 'auto' or a finite number >= 0 (the "
+                           f"shortest lifetime kept), got {text!r}.")
     return value
 
 

@@ -13,6 +13,10 @@ from .errors import InputError
 
 AXES_3D = ("z", "y", "x")
 
+#: Optional columns written by voxtopo.significance: family-wise p-value and flag of a
+#: gray-value sweep, robust flag of a distance sweep.
+VERDICT_COLUMNS = ("p_value", "significant", "robust")
+
 
 def location_columns(ndim: int) -> list[str]:
     """birth_z, birth_y, birth_x, death_z, ... (2D drops the z columns)."""
@@ -237,8 +241,11 @@ class Diagram:
         missing = set(columns(ndim)) - set(pairs.columns)
         if missing:
             raise InputError(f"{pairs_path} lacks the columns {sorted(missing)}.")
-        pairs = pairs[columns(ndim)].copy()
+        verdicts = [c for c in VERDICT_COLUMNS if c in pairs.columns]
+        pairs = pairs[columns(ndim) + verdicts].copy()
         pairs["dim"] = pairs["dim"].astype(np.int64)
+        for c in verdicts:
+            pairs[c] = pairs[c].astype(np.float64 if c == "p_value" else bool)
         for c in ("birth", "death", "persistence"):
             pairs[c] = pairs[c].astype(np.float64)
         for c in location_columns(ndim):

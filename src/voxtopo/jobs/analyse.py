@@ -1,29 +1,41 @@
-"""The analyse job: scan -> filtration -> persistence diagram -> result folder.
+"""The analyse job: scan -> filtration -> persistence diagram -> significance -> result
+folder.
 
 ``AnalysisOptions`` holds the settings in the user's words, :func:`run` computes an
 ``AnalysisResult``, :func:`write` fills a result folder through the result-folder contract
 (io/results.py), and :func:`describe` says in one line what was found. The CLI
 (`voxtopo analyse`), the napari plugin and the batch runner only build the options and call
 these, so a result folder means the same thing whichever shell made it.
+
+Which pairs are kept (``min_persistence``)::
+
+    "auto" (default)   gray-value sweep: the significant pairs (family-wise Monte Carlo
+                       test against the scan's own noise, voxtopo.significance);
+                       distance sweep: the robust pairs (stability under a boundary moved
+                       by the boundary tolerance)
+    a number           every pair living longer than it, with p_value / significant
+                       (or robust) filled in; 0 lists every pair
 """
 
 from __future__ import annotations
 
 import time
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 from dataclasses import field as dataclass_field
 from datetime import datetime, timezone
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 
 from .. import __version__
 from .. import filtration as filt
+from .. import significance as sig
 from ..diagram import Diagram
 from ..engine import estimate, persistence
 from ..errors import InputError
-from ..options import (BOOLEAN, COUNT, ENGINE, FILL, NEIGHBOURHOOD, NON_NEGATIVE, POSITIVE,
-                      PRIME, TEXT, THRESHOLD, check, optional)
+from ..options import (BOOLEAN, COUNT, ENGINE, FILL, NEIGHBOURHOOD, NON_NEGATIVE, NUMBER,
+                       POSITIVE, PRIME, TEXT, THRESHOLD, Rule, check, one_of, optional)
 from ..io import load, result_folder
 from ..io.results import check_target, json_ready, software_versions, write_summary
 from ..memory import ensure_fits, reported_as_too_big
@@ -50,10 +62,16 @@ class AnalysisOptions:
     threshold       for distance on a gray scan: a value or "otsu"; pores at or below it
     pores_bright    with threshold: pores are the voxels above it
     fill_invalid    None (NaN is an error), "max", "min" or a number to put in NaN voxels
-    min_persistence keep pairs with persistence above this
+    min_persistence "auto": keep the significant pairs (distance: the robust ones); a
+                    number: keep pairs with persistence above it (0 = every pair)
     periodic        glue opposite faces
     field           prime p of the coefficients Z/p
     engine          "auto", "voxtopo" or "gudhi"
+    significance    family-wise level alpha of the significance test, in (0, 1)
+    noise           noise level (standard deviation, gray units); None = estimated
+    noise_model     "gaussian" or "poisson" (photon counts, Anscombe transform first)
+    boundary_tolerance  distance sweeps: how far the boundary may be off, in the scan's
+                    unit (None = one voxel)
     """
 
     superlevel: bool = False
@@ -65,13 +83,35 @@ class AnalysisOptions:
     threshold: str | float | None = None
     pores_bright: bool = False
     fill_invalid: str | float | None = None
-    min_persistence: float = 0.0
+    min_persistence: float | str = "auto"
     periodic: bool = False
     field: int = 2
     engine: str = "auto"
+    significance: float = 0.05
+    noise: float | None = None
+    noise_model: str = "gaussian"
+    boundary_tolerance: float | None = None
+
+    @property
+    def keeps_all_tested(self) -> bool:
+        """False for "auto" (keep only significant / robust pairs)."""
+        return self.min_persistence != AUTO
+
+    @property
+    def persistence_floor(self) -> float:
+        """The numeric lower bound on persistence handed to the engine."""
+        return 0.0 if self.min_persistence == AUTO else float(self.min_persistence)
 
     def __post_init__(self):
         check(asdict(self), ANALYSE_RULES, "the analyse options")
+        if self.distance:
+            if self.noise is not None or self.noise_model != "gaussian":
+                raise InputError("A noise level or noise model would be ignored by a distance "
+                                 "sweep (its uncertainty is the segmentation); leave them out "
+                                 "or give --boundary-tolerance.")
+        elif self.boundary_tolerance is not None:
+            raise InputError("The boundary tolerance only applies to distance sweeps "
+                             "(--distance); leave it out or add --distance.")
         if self.threshold is not None and not self.distance:
             raise InputError("A threshold segments a gray scan for the distance sweep; give "
                              "--distance with it, or leave --threshold out.")
@@ -91,11 +131,21 @@ ANALYSE_RULES = {
     "threshold": optional(THRESHOLD),
     "pores_bright": BOOLEAN,
     "fill_invalid": optional(FILL),
-    "min_persistence": NON_NEGATIVE,
+    "min_persistence": Rule(lambda v: v == "auto" or NON_NEGATIVE.accepts(v),
+                            "\"auto\" or a number, 0 or more"),
     "periodic": BOOLEAN,
     "field": PRIME,
     "engine": ENGINE,
+    "significance": Rule(lambda v: NUMBER.accepts(v) and 0 < v < 1,
+                         "a level between 0 and 1, such as 0.05"),
+    "noise": optional(POSITIVE),
+    "noise_model": one_of(*sig.NOISE_MODELS),
+    "boundary_tolerance": optional(POSITIVE),
 }
+
+#: The value of ``min_persistence`` (CLI ``--min-persistence auto``) that keeps the
+#: significant pairs of a gray-value sweep and the robust pairs of a distance sweep.
+AUTO = "auto"
 
 
 def preparation_plan(scan: Scan, options: AnalysisOptions) -> list[tuple[str, int]]:
@@ -136,11 +186,18 @@ def preparation_plan(scan: Scan, options: AnalysisOptions) -> list[tuple[str, in
 
 
 def prepare(scan: Scan, options: AnalysisOptions) -> tuple[Scan, dict]:
-    """Apply crop, invalid-voxel filling, downsampling, smoothing and (optionally) the
-    signed distance transform, in that order. Returns the scan to analyse and notes.
+    """Apply crop, invalid-voxel filling, downsampling, the Anscombe transform (Poisson
+    noise model), smoothing and (optionally) the signed distance transform, in that
+    order. Returns the scan to analyse and notes.
 
     Every step's memory is checked before the first one runs (:func:`preparation_plan`).
     """
+    unsmoothed, notes = prepare_unsmoothed(scan, options)
+    return finish_preparation(unsmoothed, options, notes), notes
+
+
+def prepare_unsmoothed(scan: Scan, options: AnalysisOptions) -> tuple[Scan, dict]:
+    """The preparation up to (not including) smoothing: the scan whose noise is measured."""
     # persistence, the last step, is checked by the engine with its own remedies
     for step, needed in preparation_plan(scan, options)[:-1]:
         ensure_fits(needed, step, filt.PREPARATION_REMEDY)
@@ -152,6 +209,16 @@ def prepare(scan: Scan, options: AnalysisOptions) -> tuple[Scan, dict]:
     filt.check_finite(scan)
     if options.downsample and options.downsample != 1:
         scan = filt.downsample(scan, options.downsample)
+    if options.noise_model == "poisson" and not options.distance:
+        scan = sig.anscombe(scan)
+        notes["anscombe"] = ("gray values are photon counts after the Anscombe transform "
+                             "2 sqrt(x + 3/8): births, deaths and persistence are in "
+                             "Anscombe units")
+    return scan, notes
+
+
+def finish_preparation(scan: Scan, options: AnalysisOptions, notes: dict) -> Scan:
+    """Smoothing and (optionally) the signed distance transform; adds to ``notes``."""
     if options.sigma:
         scan = filt.smooth(scan, options.sigma)
     if options.distance:
@@ -170,7 +237,85 @@ def prepare(scan: Scan, options: AnalysisOptions) -> tuple[Scan, dict]:
         else:
             mask = data.astype(bool)
         scan = filt.signed_distance(scan.with_data(mask))
-    return scan, notes
+    return scan
+
+
+@dataclass(frozen=True)
+class Verdict:
+    """Which pairs are features: the test, its level and its outcome.
+
+    tested       every computed pair, with ``p_value`` and ``significant`` (gray-value
+                 sweeps) or ``robust`` (distance sweeps)
+    flag         "significant" or "robust"
+    thresholds   persistence above which a pair passes, per dimension (scan's values)
+    description  the summary.json entry
+    level        method and level in brackets, said beside every count
+    """
+
+    tested: Diagram
+    flag: str
+    thresholds: dict
+    description: dict
+    level: str
+
+    @property
+    def phrase(self) -> str:
+        """"significant (family-wise, alpha 0.05, ...)" or "robust (...)"."""
+        return f"{self.flag} {self.level}" if self.tested_any else self.level
+
+    @property
+    def tested_any(self) -> bool:
+        """False when the pairs could not be tested (no noise to test against)."""
+        return bool(self.thresholds)
+
+
+def judge(diagram: Diagram, unsmoothed: Scan, options: AnalysisOptions,
+          progress=None) -> Verdict:
+    """p-values and ``significant`` flags (gray-value sweeps) or ``robust`` flags
+    (distance sweeps) for every pair of ``diagram``."""
+    if options.distance:
+        tested = sig.robust_flags(diagram, options.boundary_tolerance)
+        delta = sig.boundary_tolerance_of(diagram, options.boundary_tolerance)
+        threshold = sig.robust_threshold(diagram, options.boundary_tolerance)
+        counts = sig.significant_counts(tested, "robust")
+        description = {"method": sig.ROBUST_METHOD, "boundary_tolerance": delta,
+                       "unit": diagram.unit,
+                       "threshold": {str(d): threshold for d in range(diagram.ndim)},
+                       "robust": {str(d): n for d, n in counts.items()},
+                       "essential_classes": "never die; always counted as features"}
+        level = (f"(persistence above {threshold:.4g} {diagram.unit}: boundary "
+                 f"tolerance {delta:.4g} {diagram.unit}, stability theorem)")
+        return Verdict(tested, "robust", {d: threshold for d in range(diagram.ndim)},
+                       description, level)
+    try:
+        tested, significance = sig.assess(diagram, unsmoothed, alpha=options.significance,
+                                          noise=options.noise,
+                                          noise_model=options.noise_model,
+                                          smoothing=options.sigma, engine=options.engine,
+                                          progress=progress)
+    except InputError as reason:
+        if not options.keeps_all_tested:
+            raise
+        return untested(diagram, str(reason))
+    noise = significance.noise
+    unit = "Anscombe units" if noise.model == "poisson" else "gray values"
+    correlation = ", ".join(f"{v:.3g}" for v in sorted(set(noise.correlation_length)))
+    level = (f"(family-wise, alpha {significance.alpha:g}, {noise.model} noise "
+             f"{noise.sigma:.3g} {unit} {noise.method}, correlation {correlation} "
+             f"{noise.unit}, {significance.null.simulations} simulations)")
+    return Verdict(tested, "significant", significance.thresholds(),
+                   significance.describe(tested), level)
+
+
+def untested(diagram: Diagram, reason: str) -> Verdict:
+    """Every pair listed without a test (``p_value`` and ``significant`` left empty), with
+    the reason: no noise to test against, or a path that does not test yet."""
+    pairs = diagram.pairs.copy()
+    pairs["p_value"] = np.nan
+    pairs["significant"] = pd.array([pd.NA] * len(pairs), dtype="boolean")
+    level = f"not tested for significance ({reason.rstrip('.')})"
+    return Verdict(replace(diagram, pairs=pairs), "significant", {},
+                   {"method": "not tested", "reason": reason}, level)
 
 
 #: The settings class of this job, under the name every job uses.
@@ -179,51 +324,85 @@ Options = AnalysisOptions
 
 @dataclass
 class AnalysisResult:
-    """What :func:`run` computed: the diagram and how the scan was prepared for it."""
+    """What :func:`run` computed: the pairs kept, the verdict on every pair, the scans."""
 
     scan: Scan
     prepared: Scan
     diagram: Diagram
+    verdict: Verdict
     options: AnalysisOptions
-    timings: dict = dataclass_field(default_factory=dict)
     notes: dict = dataclass_field(default_factory=dict)
+    timings: dict = dataclass_field(default_factory=dict)
+
+    def headline(self) -> str:
+        """The result in one line: what was counted, by which method, at which level."""
+        kept = len(self.diagram)
+        total = len(self.verdict.tested)
+        skipped = set((self.notes.get("out_of_core") or {}).get("dimensions_not_computed", []))
+        by_dim = ", ".join(f"dim {d}: {n}" for d, n in self.diagram.counts().items()
+                           if d not in skipped)
+        if not self.options.keeps_all_tested and self.verdict.tested_any:
+            return (f"{kept} {self.verdict.flag} of {total} pairs {self.verdict.level}; "
+                    f"{by_dim}")
+        floor = self.options.persistence_floor
+        which = "all pairs" if floor == 0 else f"pairs with persistence above {floor:g}"
+        if not self.verdict.tested_any:
+            return f"{kept} pairs ({which}; {by_dim}); {self.verdict.phrase}"
+        passing = sum(sig.significant_counts(self.diagram, self.verdict.flag).values())
+        return f"{kept} pairs ({which}; {by_dim}), of which {passing} {self.verdict.phrase}"
 
 
 def run(scan: Scan, options: AnalysisOptions | None = None, progress=None) -> AnalysisResult:
-    """Prepare the scan and compute its persistence diagram (nothing is written)."""
+    """Prepare, sweep and judge one scan in memory (nothing is written).
+
+    Parameters
+    ----------
+    scan : Scan
+    options : AnalysisOptions
+    progress : callable(phase, fraction), optional
+
+    Returns
+    -------
+    AnalysisResult
+    """
     options = options or AnalysisOptions()
     timings = {}
     planned = max(needed for _, needed in preparation_plan(scan, options))
     with reported_as_too_big(f"Analysing {scan.source or 'the scan'}", planned,
                              filt.PREPARATION_REMEDY):
         start = time.perf_counter()
-        prepared, notes = prepare(scan, options)
+        unsmoothed, notes = prepare_unsmoothed(scan, options)
+        prepared = finish_preparation(unsmoothed, options, notes)
         timings["prepare"] = time.perf_counter() - start
         start = time.perf_counter()
         diagram = persistence(prepared, superlevel=options.superlevel,
                               neighbourhood=options.neighbourhood, periodic=options.periodic,
                               field=options.field, engine=options.engine,
-                              min_persistence=options.min_persistence, progress=progress)
+                              min_persistence=options.persistence_floor, progress=progress)
         timings["persistence"] = time.perf_counter() - start
-    return AnalysisResult(scan, prepared, diagram, options, timings, notes)
+        start = time.perf_counter()
+        verdict = judge(diagram, unsmoothed, options, progress)
+        timings["significance"] = time.perf_counter() - start
+    kept = verdict.tested
+    if not options.keeps_all_tested:
+        kept = replace(kept, pairs=kept.pairs[kept.pairs[verdict.flag].to_numpy(dtype=bool)]
+                       .reset_index(drop=True),
+                       notes=kept.notes + (f"pairs kept: {verdict.phrase}",))
+    return AnalysisResult(scan, prepared, kept, verdict, options, notes, timings)
 
 
 def write(result: AnalysisResult, out, force: bool = False) -> Path:
     """Fill the result folder ``out`` (see :func:`write_result`)."""
     return write_result(out, result.scan, result.diagram, result.options,
                         prepared=result.prepared, timings=result.timings, notes=result.notes,
-                        force=force)
+                        force=force, verdict=result.verdict)
 
 
 def describe(result: AnalysisResult) -> str:
     """What was found, in the words of the CLI line and the plugin's status."""
-    diagram = result.diagram
-    out_of_core = result.notes.get("out_of_core")
-    skipped = set(out_of_core["dimensions_not_computed"]) if out_of_core else set()
-    counts = ", ".join(f"dim {d}: {n}" for d, n in diagram.counts().items()
-                       if d not in skipped)
-    where = "out of core" if out_of_core else f"with the {diagram.engine} engine"
-    return f"{len(diagram)} pairs ({counts}) in {diagram.seconds:.2f} s {where}"
+    where = ("out of core" if "out_of_core" in result.notes
+             else f"with the {result.diagram.engine} engine")
+    return f"{result.headline()}; {result.diagram.seconds:.2f} s {where}"
 
 
 def analyse(source, out, options: AnalysisOptions | None = None, *, force: bool = False,
@@ -302,14 +481,18 @@ def run_out_of_core(source, options: AnalysisOptions | None = None, *, load_opti
     start = time.perf_counter()
     diagram = chunked_persistence(opened, superlevel=options.superlevel,
                                   neighbourhood=options.neighbourhood,
-                                  min_persistence=options.min_persistence, scheduler=scheduler)
+                                  min_persistence=options.persistence_floor,
+                                  scheduler=scheduler)
     seconds = time.perf_counter() - start
     placeholder = np.broadcast_to(np.zeros((), opened.dtype), opened.shape)
     scan = Scan(placeholder, spacing=opened.spacing, unit=opened.unit, source=opened.source)
     missing = list(range(1, opened.ndim - 1))
-    return AnalysisResult(scan, scan, diagram, options, {"persistence": seconds},
+    verdict = untested(diagram, "the out-of-core path does not test significance yet, so "
+                                "every pair is listed")
+    return AnalysisResult(scan, scan, verdict.tested, verdict, options,
                           {"out_of_core": {"chunks": list(opened.chunks),
-                                           "dimensions_not_computed": missing}})
+                                           "dimensions_not_computed": missing}},
+                          {"persistence": seconds})
 
 
 def analyse_out_of_core(source, out, options: AnalysisOptions | None = None, *,
@@ -324,13 +507,22 @@ def analyse_out_of_core(source, out, options: AnalysisOptions | None = None, *,
 
 
 def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepared=None,
-              timings=None, notes=None) -> dict:
+              timings=None, notes=None, verdict: Verdict | None = None) -> dict:
     """The content of summary.json (the diagram's own description is added on save)."""
     prepared = prepared or scan
-    threshold = options.min_persistence
+    threshold = options.persistence_floor
     most = diagram.most_persistent(10)
     top = {str(d): json_ready(most[most["dim"] == d].to_dict(orient="records"))
            for d in range(diagram.ndim)}
+    judged = {}
+    if verdict is not None:
+        judged = {"significance" if verdict.flag == "significant" else "robustness":
+                  verdict.description,
+                  "counted": (f"{verdict.flag} features {verdict.level}"
+                              if not options.keeps_all_tested and verdict.tested_any else
+                              "all pairs" if threshold == 0 else
+                              f"pairs with persistence above {threshold:g}"),
+                  "pairs_computed": {str(d): n for d, n in verdict.tested.counts().items()}}
     return {
         "voxtopo_version": __version__,
         "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
@@ -338,6 +530,7 @@ def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepare
         "analysed": prepared.describe(),
         "options": asdict(options),
         "counts": {str(d): n for d, n in diagram.counts(threshold).items()},
+        **judged,
         "essential": {str(d): int(((diagram.pairs["dim"] == d)
                                    & ~np.isfinite(diagram.pairs["death"])).sum())
                       for d in range(diagram.ndim)},
@@ -350,8 +543,12 @@ def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepare
 
 
 def write_result(out, scan: Scan, diagram: Diagram, options: AnalysisOptions | None = None, *,
-                 prepared=None, timings=None, notes=None, force: bool = False) -> Path:
-    """Write pairs.csv, summary.json and the standard plots into ``out``, atomically."""
+                 prepared=None, timings=None, notes=None, force: bool = False,
+                 verdict: Verdict | None = None) -> Path:
+    """Write pairs.csv, summary.json and the standard plots into ``out``, atomically.
+
+    With a ``verdict`` the plots show every tested pair and the threshold (a band along
+    the diagonal, a line on the lifetime histograms); pairs.csv holds ``diagram``."""
     from ..report.html import write_report
     from ..report.plots import save_standard_plots
 
@@ -360,10 +557,15 @@ def write_result(out, scan: Scan, diagram: Diagram, options: AnalysisOptions | N
     start = time.perf_counter()
     with result_folder(out, force=force, inputs=[scan.source]) as tmp:
         summary = summarise(scan, diagram, options, prepared=prepared, timings=timings,
-                            notes=notes)
+                            notes=notes, verdict=verdict)
         write_summary(tmp, summary)
         diagram.save(tmp)
-        summary["plots"] = save_standard_plots(diagram, tmp)
+        if verdict is None or not verdict.tested_any:
+            summary["plots"] = save_standard_plots(diagram, tmp)
+        else:
+            summary["plots"] = save_standard_plots(verdict.tested, tmp,
+                                                   thresholds=verdict.thresholds,
+                                                   flag=verdict.flag)
         summary["timings_seconds"]["write"] = round(time.perf_counter() - start, 4)
         summary["diagram"] = diagram.description()
         write_summary(tmp, summary)

@@ -41,7 +41,8 @@ GROUP_COLOURS = ("#1f7a8c", "#c8553d", "#e0a458", "#5b8e7d", "#7b5ea7", "#3d5a80
 #: in a section of its own, so the numbers of other jobs (pores, patches) appear too.
 _KNOWN_KEYS = {"voxtopo_version", "created", "scan", "analysed", "options", "counts",
                "essential", "most_persistent", "timings_seconds", "preparation", "software",
-               "cautions", "plots", "diagram", "notes"}
+               "cautions", "plots", "diagram", "notes", "significance", "robustness",
+               "counted", "pairs_computed"}
 
 _DIM_WORDS = {"0": "components (dimension 0)", "1": "loops (dimension 1)",
               "2": "cavities (dimension 2)"}
@@ -120,7 +121,10 @@ _CAPTIONS = {"diagram.png": "Persistence diagram: each point is one feature, bor
                             "x and dead at its y value.",
              "barcode.png": "Barcode: one bar per feature, from birth to death.",
              "betti_curves.png": "Betti numbers of the swept set at every level.",
-             "euler_curve.png": "Euler characteristic of the swept set at every level."}
+             "euler_curve.png": "Euler characteristic of the swept set at every level.",
+             "lifetimes.png": "Persistence of every finite pair, per dimension, with the "
+                              "threshold of the test (dashed): only pairs to its right "
+                              "pass."}
 
 
 
@@ -157,6 +161,34 @@ def _final_name(folder: Path) -> str:
     return name
 
 
+def _verdict_section(summary: dict) -> dict | None:
+    """The test behind the counts, as key-value pairs for the page (None without one)."""
+    if summary.get("significance"):
+        entry = summary["significance"]
+        noise = entry.get("noise", {})
+        unit = noise.get("correlation_length_unit", "")
+        return {"title": "Which features are significant", "mapping": {
+            "method": entry.get("method"), "alpha (family-wise)": entry.get("alpha"),
+            "noise model": noise.get("model"), "noise level": noise.get("level"),
+            "noise level unit": noise.get("level_unit"), "level found by": noise.get("method"),
+            f"correlation length ({unit})": noise.get("correlation_length"),
+            "simulations": entry.get("simulations"),
+            "p-value": (entry.get("null") or {}).get("p_value"),
+            f"threshold per dimension ({entry.get('threshold_unit')})": entry.get("threshold"),
+            "significant per dimension": entry.get("significant"),
+            "classes that never die": entry.get("essential_classes"),
+            "notes": noise.get("notes")}}
+    if summary.get("robustness"):
+        entry = summary["robustness"]
+        unit = entry.get("unit", "")
+        return {"title": "Which features are robust", "mapping": {
+            "method": entry.get("method"), f"boundary tolerance ({unit})":
+            entry.get("boundary_tolerance"), f"threshold per dimension ({unit})":
+            entry.get("threshold"), "robust per dimension": entry.get("robust"),
+            "classes that never die": entry.get("essential_classes")}}
+    return None
+
+
 def write_report(folder) -> Path:
     """Write ``report.html`` into a result folder from its summary.json and PNG plots.
 
@@ -174,7 +206,7 @@ def write_report(folder) -> Path:
     >>> import numpy as np, voxtopo, tempfile, pathlib
     >>> from voxtopo.jobs.analyse import analyse
     >>> out = pathlib.Path(tempfile.mkdtemp()) / "ring"
-    >>> _ = analyse(voxtopo.Scan(np.eye(6)), out)
+    >>> _ = analyse(voxtopo.Scan(np.eye(6)), out, AnalysisOptions(min_persistence=0))
     >>> write_report(out).name
     'report.html'
     """
@@ -184,10 +216,16 @@ def write_report(folder) -> Path:
     essential = summary.get("essential", {})
     skipped = ((summary.get("preparation") or {}).get("out_of_core") or {}).get(
         "dimensions_not_computed", [])
+    computed = summary.get("pairs_computed") or {}
     count_rows = [[_DIM_WORDS.get(str(d), f"dimension {d}"),
                    "not computed" if int(d) in skipped else n,
                    "not computed" if int(d) in skipped else essential.get(str(d), 0)]
+                  + ([computed.get(str(d), "–")] if computed else [])
                   for d, n in counts.items() if str(d).isdigit()]
+    counted = summary.get("counted") or "pairs"
+    count_columns = ["feature", counted, "of which never die"] + (
+        ["pairs computed (all)"] if computed else [])
+    verdict = _verdict_section(summary)
     images = [{"data": _png(folder / name), "caption": _CAPTIONS.get(name, name)}
               for name in summary.get("plots", sorted(p.name for p in folder.glob("*.png")))
               if (folder / name).is_file()]
@@ -211,7 +249,7 @@ def write_report(folder) -> Path:
                   subtitle=f"Result folder {name} · cubical persistent homology",
                   scan=scan, analysed=summary.get("analysed") if summary.get("analysed")
                   != scan else None,
-                  counts=Table(["feature", "pairs", "of which never die"], count_rows),
+                  counts=Table(count_columns, count_rows), verdict=verdict,
                   images=images, most_persistent=most, extra_sections=sections,
                   settings=summary.get("options") or {}, diagram=diagram,
                   timings=summary.get("timings_seconds") or {}, notes=notes,

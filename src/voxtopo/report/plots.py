@@ -79,9 +79,45 @@ def _style(ax):
     ax.set_axisbelow(True)
 
 
-def plot_diagram(diagram, ax=None, title: str | None = None, dims=None):
+#: At most this many pairs that fail the test are drawn (a seeded random choice); the
+#: features that pass are always all drawn.
+MOST_FAILING_DRAWN = 100_000
+
+
+def _drawn(pairs: pd.DataFrame, flag: str | None) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """(pairs that pass, pairs that fail but are drawn) under ``flag``."""
+    if flag is None or flag not in pairs:
+        return pairs, pairs.iloc[:0]
+    passing = pairs[flag].to_numpy(dtype=bool)
+    failing = pairs[~passing]
+    if len(failing) > MOST_FAILING_DRAWN:
+        failing = failing.sample(MOST_FAILING_DRAWN, random_state=0)
+    return pairs[passing], failing
+
+
+def _threshold_band(ax, thresholds: dict, dims, lo, hi, superlevel: bool):
+    """Shade, per dimension, the strip along the diagonal where persistence is at most
+    the threshold: points inside it fail the test."""
+    xs = np.array([lo, hi])
+    for d in dims:
+        width = thresholds.get(int(d))
+        if width is None or not np.isfinite(width):
+            continue
+        edge = xs - width if superlevel else xs + width
+        ax.fill_between(xs, xs, edge, color=DIM_COLOURS[int(d) % 3], alpha=0.12, linewidth=0,
+                        zorder=0.5)
+        ax.plot(xs, edge, color=DIM_COLOURS[int(d) % 3], linewidth=0.8, linestyle="--",
+                zorder=0.6, label=f"dim {d} threshold {width:.3g}")
+
+
+def plot_diagram(diagram, ax=None, title: str | None = None, dims=None, *,
+                 thresholds: dict | None = None, flag: str | None = None):
     """Persistence diagram: death against birth, the diagonal, essential classes on a band
-    marked "never dies"."""
+    marked "never dies".
+
+    With ``thresholds`` (persistence per dimension) the strip along the diagonal where
+    pairs fail the test is shaded; with ``flag`` ("significant" or "robust") the pairs
+    that fail it are drawn small and grey, those that pass in their dimension's colour."""
     pairs, diag = _unpack(diagram)
     pairs, scale = _scaled_pairs(pairs)
     ax = _new_axes(ax)
@@ -94,14 +130,21 @@ def plot_diagram(diagram, ax=None, title: str | None = None, dims=None):
     band = (lo - 0.08 * span) if superlevel else (hi + 0.08 * span)
     ax.plot([lo - 0.1 * span, hi + 0.1 * span], [lo - 0.1 * span, hi + 0.1 * span],
             color="#8d99ae", linewidth=1, zorder=1)
+    if thresholds:
+        _threshold_band(ax, thresholds, dims, lo - 0.1 * span, hi + 0.1 * span, superlevel)
+    passing, failing = _drawn(pairs, flag)
+    if len(failing):
+        ax.scatter(failing["birth"], failing["death"], s=4, color="#b8bcc8", alpha=0.5,
+                   edgecolors="none", zorder=2, label=f"not {flag}")
     for d in dims:
-        rows = pairs[pairs["dim"] == d]
+        rows = passing[passing["dim"] == d]
         death = rows["death"].to_numpy(dtype=float)
         essential = ~np.isfinite(death)
         colour = DIM_COLOURS[int(d) % 3]
         ax.scatter(rows["birth"][~essential], death[~essential], s=14, color=colour,
-                   alpha=0.75, edgecolors="none", label=f"dim {d} ({DIM_NAMES.get(int(d), '')})",
-                   zorder=3)
+                   alpha=0.75, edgecolors="none",
+                   label=f"dim {d} ({DIM_NAMES.get(int(d), '')}"
+                         f"{', ' + flag if flag else ''})", zorder=3)
         if essential.any():
             ax.scatter(rows["birth"][essential], np.full(essential.sum(), band), s=36,
                        marker="D", color=colour, edgecolors=_INK, linewidths=0.6, zorder=4)
@@ -186,6 +229,36 @@ def plot_euler_curve(diagram, ax=None, levels=None, title: str | None = None):
     return ax
 
 
+def plot_lifetimes(diagram, thresholds: dict, flag: str = "significant", title=None):
+    """Histogram of the persistence of finite pairs, one panel per dimension, with the
+    threshold of the test marked. Returns the Figure."""
+    pairs, diag = _unpack(diagram)
+    ndim = diag.ndim if diag is not None else int(pairs["dim"].max()) + 1
+    figure, axes = plt.subplots(1, ndim, figsize=(3.4 * ndim, 3.4), constrained_layout=True,
+                                squeeze=False)
+    unit = value_label(diag)
+    for d, ax in enumerate(axes[0]):
+        lifetimes = pairs.loc[pairs["dim"] == d, "persistence"].to_numpy(dtype=float)
+        lifetimes = lifetimes[np.isfinite(lifetimes)]
+        limit = thresholds.get(d)
+        if len(lifetimes):
+            top = max(lifetimes.max(), limit if limit is not None and np.isfinite(limit)
+                      else 0.0)
+            ax.hist(lifetimes, bins=np.linspace(0, top * 1.02 or 1.0, 60),
+                    color=DIM_COLOURS[d % 3], alpha=0.85, log=True)
+        if limit is not None and np.isfinite(limit):
+            ax.axvline(limit, color=_INK, linestyle="--", linewidth=1.1)
+            ax.annotate(f"{flag} above {limit:.3g}", (limit, 0.96), xycoords=("data",
+                        "axes fraction"), xytext=(3, 0), textcoords="offset points",
+                        fontsize=7, color=_INK, va="top")
+        ax.set_title(f"dim {d} ({DIM_NAMES.get(d, '')})", color=_INK, fontsize=9)
+        ax.set_xlabel(f"persistence ({unit})")
+        ax.set_ylabel("pairs (log scale)")
+        _style(ax)
+    figure.suptitle(title or "Lifetimes of the finite pairs", color=_INK)
+    return figure
+
+
 STANDARD_PLOTS = {
     "diagram.png": plot_diagram,
     "barcode.png": plot_barcode,
@@ -194,13 +267,22 @@ STANDARD_PLOTS = {
 }
 
 
-def save_standard_plots(diagram, folder) -> list[str]:
-    """Write diagram.png, barcode.png, betti_curves.png and euler_curve.png into ``folder``."""
+def save_standard_plots(diagram, folder, *, thresholds: dict | None = None,
+                        flag: str | None = None) -> list[str]:
+    """Write diagram.png, barcode.png, betti_curves.png and euler_curve.png into
+    ``folder``; with ``thresholds`` also lifetimes.png, and the diagram shows the
+    threshold band and greys the pairs that fail ``flag``."""
     folder = Path(folder)
     written = []
     for name, plot in STANDARD_PLOTS.items():
-        ax = plot(diagram)
+        ax = plot(diagram, thresholds=thresholds, flag=flag) if plot is plot_diagram \
+            else plot(diagram)
         ax.figure.savefig(folder / name, dpi=110)
         plt.close(ax.figure)
         written.append(name)
+    if thresholds is not None:
+        figure = plot_lifetimes(diagram, thresholds, flag or "significant")
+        figure.savefig(folder / "lifetimes.png", dpi=110)
+        plt.close(figure)
+        written.append("lifetimes.png")
     return written

@@ -47,7 +47,9 @@ def _check_counts(folder: Path, summary: dict, diagram: Diagram) -> None:
     counts = summary.get("counts")
     if not counts:
         return
-    found = diagram.counts(float(summary.get("options", {}).get("min_persistence", 0.0)))
+    kept = summary.get("options", {}).get("min_persistence", 0.0)
+    # "auto" folders list only the significant (or robust) pairs: count them all
+    found = diagram.counts(None if kept == "auto" else float(kept))
     listed = {int(d): int(n) for d, n in counts.items()}
     if found != listed:
         raise InputError(f"{folder / 'pairs.csv'} holds {sum(found.values())} pairs but "

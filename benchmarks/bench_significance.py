@@ -1,0 +1,127 @@
+"""The cost of the significance test beside one plain persistence run of the same data.
+
+Run from the repository root::
+
+    .venv/bin/python benchmarks/bench_significance.py                 # 2048^2 and 256^3
+    .venv/bin/python benchmarks/bench_significance.py --with-512      # and 512^3
+
+For each case two new child processes make the same seeded data and load the compiled
+kernels on a tiny array first. The first runs one plain ``voxtopo.persistence``; the
+second runs the same and then ``voxtopo.significance.assess`` (noise estimate and the
+simulated null). Each reports its wall time and its peak resident size (ru_maxrss, which
+includes the data). Printed per case: plain time, significance time, their ratio, the
+whole analysis (plain + significance) over plain, the number of simulations and the
+simulated shape, and both peaks.
+
+Targets (issue 12, on the 2-core machine): significance of a 2048^2 image and of a 256^3
+uint8 scan at most 2x the plain run, of a 512^3 scan at most 3x. Numbers are only
+comparable on an otherwise idle machine: the load average is printed.
+"""
+
+from __future__ import annotations
+
+import argparse
+import multiprocessing
+import os
+import resource
+import time
+
+import numpy as np
+from scipy import ndimage
+
+SEED = 20261202
+
+
+def beads(shape, radius=(7.0, 11.0), solid_fraction=0.55):
+    """A uint8 micro-CT-like image or volume: overlapping bright beads in a dark matrix,
+    noise (sigma 25 gray levels) blurred over about a voxel as in a reconstruction."""
+    rng = np.random.default_rng(SEED)
+    ndim = len(shape)
+    solid = np.zeros(shape, dtype=bool)
+    mean_size = (np.pi * np.mean(radius) ** 2 if ndim == 2
+                 else 4 / 3 * np.pi * np.mean(radius) ** 3)
+    for _ in range(int(solid_fraction * np.prod(shape) / mean_size)):
+        r = rng.uniform(*radius)
+        centre = rng.uniform(0, shape[0], ndim)
+        low = np.maximum(np.floor(centre - r).astype(int), 0)
+        high = np.minimum(np.ceil(centre + r).astype(int) + 1, shape[0])
+        grid = np.ogrid[tuple(slice(a, b) for a, b in zip(low, high))]
+        inside = sum((g - c) ** 2 for g, c in zip(grid, centre)) <= r * r
+        solid[tuple(slice(a, b) for a, b in zip(low, high))] |= inside
+    image = np.where(solid, np.float32(170), np.float32(60))
+    del solid
+    image += rng.normal(0, 25, image.shape).astype(np.float32)
+    image = ndimage.gaussian_filter(image, 1.0, output=np.float32)
+    return np.clip(image, 0, 255).astype(np.uint8)
+
+
+CASES = {
+    "2048x2048": lambda: beads((2048, 2048)),
+    "256x256x256": lambda: beads((256, 256, 256)),
+    "512x512x512": lambda: beads((512, 512, 512)),
+}
+
+
+def _child(case, with_significance, connection):
+    import voxtopo
+    from voxtopo.significance import assess
+
+    values = CASES[case]()
+    voxtopo.persistence(np.arange(3 ** values.ndim, dtype=values.dtype)
+                        .reshape((3,) * values.ndim))     # load the compiled kernels
+    start = time.perf_counter()
+    diagram = voxtopo.persistence(values)
+    plain = time.perf_counter() - start
+    extra = {}
+    if with_significance:
+        start = time.perf_counter()
+        tested, how = assess(diagram, values)
+        extra = {"seconds": time.perf_counter() - start,
+                 "simulations": how.null.simulations,
+                 "simulated_shape": how.null.block_shape, "method": how.null.method,
+                 "noise": how.noise.sigma, "correlation": how.noise.correlation_voxels,
+                 "significant": int(tested.pairs["significant"].sum()),
+                 "pairs": len(tested)}
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+    connection.send((plain, peak, extra))
+    connection.close()
+
+
+def run_in_child(case, with_significance):
+    context = multiprocessing.get_context("spawn")
+    receiver, sender = context.Pipe(duplex=False)
+    child = context.Process(target=_child, args=(case, with_significance, sender))
+    child.start()
+    sender.close()
+    result = receiver.recv()
+    child.join()
+    return result
+
+
+def main(argv=None):
+    from voxtopo.memory import human
+
+    parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    parser.add_argument("--with-512", action="store_true", help="also run the 512^3 case")
+    args = parser.parse_args(argv)
+    cases = ["2048x2048", "256x256x256"] + (["512x512x512"] if args.with_512 else [])
+    print(f"load average at start: {os.getloadavg()}  (2 cores; other work may be running)")
+    for case in cases:
+        plain, plain_peak, _ = run_in_child(case, False)
+        again, peak, extra = run_in_child(case, True)
+        seconds = extra["seconds"]
+        print(f"\n== {case} uint8 beads ==")
+        print(f"plain persistence:  {plain:8.2f} s  peak {human(plain_peak)}")
+        print(f"significance:       {seconds:8.2f} s  peak {human(peak)} (with the plain run "
+              f"of {again:.2f} s before it)")
+        print(f"ratio significance / plain: {seconds / plain:.2f}x;  whole analysis / plain: "
+              f"{(plain + seconds) / plain:.2f}x")
+        print(f"simulations: {extra['simulations']} ({extra['method']}, shape "
+              f"{'x'.join(map(str, extra['simulated_shape']))}); noise {extra['noise']:.3g} "
+              f"gray values, correlation {extra['correlation']:.3g} voxels; "
+              f"{extra['significant']} significant of {extra['pairs']} pairs")
+    print(f"\nload average at end: {os.getloadavg()}")
+
+
+if __name__ == "__main__":
+    main()
