@@ -103,7 +103,7 @@ def test_force_with_out_set_to_the_input_is_refused(tmp_path, kind):
 
 
 def test_force_replaces_only_a_folder_voxtopo_wrote(tmp_path):
-    np.save(tmp_path / "a.npy", np.eye(5))
+    np.save(tmp_path / "a.npy", np.random.default_rng(4).random((24, 24)))
     mine = tmp_path / "mine"
     mine.mkdir()
     (mine / "thesis.tex").write_text("years of work")

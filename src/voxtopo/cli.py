@@ -92,6 +92,15 @@ def add_load_options(parser: argparse.ArgumentParser) -> None:
                        help="resolution level of an OME-Zarr image (0 = full resolution)")
 
 
+def add_output_options(parser: argparse.ArgumentParser) -> None:
+    """--out and --force, the same for every subcommand that writes a result folder."""
+    parser.add_argument("--out", required=True,
+                        help="result folder to create (missing parent folders are made); it "
+                             "may not be an input, hold one, or lie inside an input folder")
+    parser.add_argument("--force", action="store_true",
+                        help="replace the result folder if it exists and voxtopo wrote it")
+
+
 def load_options_from(args) -> dict:
     """The keyword arguments of voxtopo.load from parsed options."""
     options = {"spacing": args.spacing, "unit": args.unit, "channel": args.channel,
@@ -109,8 +118,7 @@ def _add_analyse(subparsers) -> None:
                     "and write pairs.csv, summary.json and plots into a new folder.")
     p.add_argument("scan", help="TIFF/OME-TIFF file, folder or glob of slices, .npy, raw, "
                                 "or OME-Zarr")
-    p.add_argument("--out", required=True, help="result folder to create")
-    p.add_argument("--force", action="store_true", help="replace the result folder if it exists")
+    add_output_options(p)
     f = p.add_argument_group("filtration")
     f.add_argument("--superlevel", action="store_true",
                    help="sweep from bright to dark (bright features first)")
@@ -261,8 +269,7 @@ def _add_pores(subparsers) -> None:
                     "use only: not a diagnosis nor a certification.")
     p.add_argument("scan", help="binary mask, label image or gray scan (any format voxtopo "
                                 "reads)")
-    p.add_argument("--out", required=True, help="result folder to create")
-    p.add_argument("--force", action="store_true", help="replace the result folder if it exists")
+    add_output_options(p)
     s = p.add_argument_group("which voxels are pores")
     s.add_argument("--mask", metavar="MASKFILE",
                    help="a binary pore mask (1 = pore) for the gray SCAN, which is then only "
@@ -365,8 +372,7 @@ def _add_compare(subparsers) -> None:
                     "default only the significant (or robust) features of each scan and the "
                     "classes that never die are compared.")
     p.add_argument("results", nargs="+", help="result folders, or batch folders")
-    p.add_argument("--out", required=True, help="comparison folder to create")
-    p.add_argument("--force", action="store_true", help="replace the folder if it exists")
+    add_output_options(p)
     p.add_argument("--dims", default="0,1", metavar="D,D",
                    help="homological dimensions to compare (default 0,1)")
     p.add_argument("--metric", choices=["bottleneck", "wasserstein"], default="bottleneck",
@@ -452,8 +458,7 @@ def _add_patches(subparsers) -> None:
                     "photographs of texture; research use only.")
     p.add_argument("images", nargs="+", metavar="IMAGE",
                    help="gray 2D images or 3D volumes in any format voxtopo reads")
-    p.add_argument("--out", required=True, help="result folder to create")
-    p.add_argument("--force", action="store_true", help="replace the result folder if it exists")
+    add_output_options(p)
     s = p.add_argument_group("sampling")
     s.add_argument("-k", "--patch-size", type=int, default=defaults.k, choices=[3, 5, 7],
                    help=f"patch size k (default {defaults.k})")
@@ -530,8 +535,7 @@ def _add_periodicity(subparsers) -> None:
                     "plots and report.html into a new folder; research use only.")
     p.add_argument("stack", help="time-lapse: ImageJ hyperstack, OME-TIFF, OME-Zarr, folder "
                                  "of frames, .npy, ...")
-    p.add_argument("--out", required=True, help="result folder to create")
-    p.add_argument("--force", action="store_true", help="replace the result folder if it exists")
+    add_output_options(p)
     t = p.add_argument_group("time")
     t.add_argument("--axes", help="the stored axes when the file names none or wrongly, e.g. "
                                   "TYX or TZYX (a folder of frames: TYX)")
