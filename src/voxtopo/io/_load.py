@@ -70,8 +70,9 @@ def load(path, *, spacing=None, unit=None, channel=None, timepoint=None, shape=N
 
     Examples
     --------
-    >>> scan = voxtopo.load("sample_volumes/beads.tif")          # doctest: +SKIP
-    >>> scan.shape, scan.spacing, scan.unit                        # doctest: +SKIP
+    >>> import voxtopo
+    >>> scan = voxtopo.load("sample_volumes/beads.tif")   # from the repository's root
+    >>> scan.shape, scan.spacing, scan.unit
     ((96, 96, 96), (2.5, 2.5, 2.5), 'um')
     """
     for name, value in (("channel", channel), ("timepoint", timepoint), ("level", level)):

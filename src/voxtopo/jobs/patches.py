@@ -169,8 +169,13 @@ def analyse(images_or_scans, out, options: PatchOptions | None = None, force: bo
 
     Examples
     --------
-    >>> from skimage import data                                       # doctest: +SKIP
-    >>> analyse([data.gravel()], "results/gravel")                     # doctest: +SKIP
+    >>> import tempfile, pathlib
+    >>> from skimage import data
+    >>> out = pathlib.Path(tempfile.mkdtemp()) / "gravel"
+    >>> options = PatchOptions(positions=4000, landmarks=40, max_dimension=1)
+    >>> dense, bars = analyse([data.gravel()], out, options)
+    >>> sorted(bars.pairs["dim"].unique().tolist())
+    [0, 1]
     """
     check_target(out, force, inputs=[getattr(i, "source", None) for i in
                                      _items(images_or_scans)])

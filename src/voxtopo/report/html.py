@@ -204,7 +204,7 @@ def write_report(folder) -> Path:
     Examples
     --------
     >>> import numpy as np, voxtopo, tempfile, pathlib
-    >>> from voxtopo.jobs.analyse import analyse
+    >>> from voxtopo.jobs.analyse import AnalysisOptions, analyse
     >>> out = pathlib.Path(tempfile.mkdtemp()) / "ring"
     >>> _ = analyse(voxtopo.Scan(np.eye(6)), out, AnalysisOptions(min_persistence=0))
     >>> write_report(out).name
