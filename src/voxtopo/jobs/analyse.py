@@ -402,7 +402,7 @@ def describe(result: AnalysisResult) -> str:
     """What was found, in the words of the CLI line and the plugin's status."""
     where = ("out of core" if "out_of_core" in result.notes
              else f"with the {result.diagram.engine} engine")
-    return f"{result.headline()}; {result.diagram.seconds:.2f} s {where}"
+    return f"{result.headline()}; persistence in {result.diagram.seconds:.2f} s {where}"
 
 
 def analyse(source, out, options: AnalysisOptions | None = None, *, force: bool = False,
