@@ -130,6 +130,7 @@ def test_slider_hides_exactly_the_features_below_the_threshold(make_napari_viewe
     data = np.random.default_rng(11).random((10, 10, 10))
     viewer, widget = _widget(make_napari_viewer, data)
     widget.deaths_check.setChecked(True)
+    widget.min_persistence_box.setValue(0.0)  # every pair listed: the slider alone decides
     _run(qtbot, widget)
     panel = widget.diagram_panel
     all_persistence = widget.result.diagram.pairs["persistence"].to_numpy()
@@ -151,6 +152,7 @@ def test_slider_hides_exactly_the_features_below_the_threshold(make_napari_viewe
 def test_selection_links_diagram_and_viewer_both_ways(make_napari_viewer, qtbot):
     data = np.random.default_rng(5).random((8, 9, 10))
     viewer, widget = _widget(make_napari_viewer, data, scale=(1.0, 2.0, 2.0))
+    widget.min_persistence_box.setValue(0.0)  # every pair listed, so every loop is drawn
     _run(qtbot, widget)
     panel = widget.diagram_panel
     loops = _result_layers(viewer)[1]
@@ -292,18 +294,20 @@ def test_export_writes_the_same_folder_as_the_cli(make_napari_viewer, qtbot, tmp
     """Export and `voxtopo analyse` on the same data give the same pairs.csv."""
     data = np.random.default_rng(8).random((7, 8, 9))
     viewer, widget = _widget(make_napari_viewer, data)
+    widget.min_persistence_box.setValue(0.0)
     _run(qtbot, widget)
     exported = widget.export(tmp_path / "from-viewer")
     np.save(tmp_path / "same.npy", data)
-    # the widget keeps every pair (its lifetime box starts at 0); the export does not yet
-    # carry the significance columns the CLI adds, so the pairs' own columns are compared
+    # every pair with its p_value and significant flag, as the command writes them
     assert cli.main(["analyse", str(tmp_path / "same.npy"), "--out",
                      str(tmp_path / "from-cli"), "--min-persistence", "0"]) == 0
     ours = pd.read_csv(exported / "pairs.csv")
     theirs = pd.read_csv(tmp_path / "from-cli" / "pairs.csv")
-    pd.testing.assert_frame_equal(ours, theirs[ours.columns])
+    assert {"p_value", "significant"} <= set(ours.columns)
+    pd.testing.assert_frame_equal(ours, theirs)
     summary = json.loads((exported / "summary.json").read_text())
     assert summary["diagram"]["neighbourhood"] == 26
+    assert summary["significance"]["alpha"] == 0.05
     assert widget.export(tmp_path / "from-viewer") is None  # never overwritten silently
     assert "already exists" in widget.status.text()
 
@@ -339,3 +343,44 @@ def test_diagram_panel_shows_a_unit_with_dollar_signs_as_typed(make_napari_viewe
     panel.figure.canvas.draw()
     assert "\\$\\foo\\$" in panel.axes.get_xlabel()
     assert "\\$\\foo\\$" in panel.legend_axes.get_xlabel()
+
+
+def _bright_disks_in_noise():
+    """Three bright disks 2.0 above white noise of 0.1: twenty noise levels, far above the
+    largest persistence noise of this size reaches (a few sigma), so each disk must be
+    significant; nothing else is."""
+    y, x = np.indices((48, 48))
+    data = np.random.default_rng(5).normal(0.0, 0.1, (48, 48))
+    for cy, cx in ((12, 12), (12, 34), (34, 22)):
+        data[(y - cy) ** 2 + (x - cx) ** 2 <= 16] += 2.0
+    return data
+
+
+def test_significant_features_are_shown_by_default_and_the_switch_shows_all(
+        make_napari_viewer, qtbot):
+    """Monte Carlo test (Besag & Clifford 1989): with min persistence at "auto" the panel
+    shows only the significant pairs, here the three planted disks (one component that
+    never dies and two that merge into it), draws the threshold as a band, and "show all
+    pairs" shows every tested pair. The status line is the command's own line."""
+    from matplotlib.collections import PolyCollection
+
+    from voxtopo.jobs import analyse
+    viewer, widget = _widget(make_napari_viewer, _bright_disks_in_noise())
+    widget.mode_choice.setCurrentText("gray values, bright to dark (superlevel)")
+    assert widget.min_persistence_box.text() == "auto"
+    _run(qtbot, widget)
+    panel = widget.diagram_panel
+    layers = _result_layers(viewer)
+    assert [int(layers[d].shown.sum()) for d in (0, 1)] == [3, 0]
+    assert len(layers[0].data) > 3 and "p_value" in layers[0].features
+    assert len(panel.visible_features()) == 3
+    assert widget.status.text() == analyse.describe(widget.result.job)
+    assert widget.status.text().startswith("3 significant of ")
+    assert "alpha 0.05" in widget.status.text()
+    bands = [c for c in panel.axes.collections if isinstance(c, PolyCollection)]
+    assert bands and all(c.get_label().startswith("not significant") for c in bands)
+    assert "significant features" in panel.count_label.text()
+    panel.show_all_check.setChecked(True)
+    assert all(layer.shown.all() for layer in layers.values())
+    assert len(panel.visible_features()) == sum(len(layer.data) for layer in layers.values())
+    assert "all pairs" in panel.count_label.text()
