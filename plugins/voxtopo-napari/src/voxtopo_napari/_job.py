@@ -157,6 +157,9 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
         porosity_summary = analysis.summary
         pore_details = _pore_details(analysis)
         shown_rows = {0: analysis.pore_rows}
+        flag = "robust"
+        thresholds = {d: porosity_summary["robustness"]["threshold"]
+                      for d in range(diagram.ndim)}
         timings["porosity"] = time.perf_counter() - start
         if with_regions:
             start = time.perf_counter()
