@@ -384,3 +384,56 @@ def test_significant_features_are_shown_by_default_and_the_switch_shows_all(
     assert all(layer.shown.all() for layer in layers.values())
     assert len(panel.visible_features()) == sum(len(layer.data) for layer in layers.values())
     assert "all pairs" in panel.count_label.text()
+
+
+@pytest.mark.parametrize("with_porosity", [False, True])
+def test_distance_mode_shows_the_robust_pores_by_default(make_napari_viewer, qtbot,
+                                                         with_porosity):
+    """Stability (Cohen-Steiner, Edelsbrunner & Harer 2007): with a boundary tolerance of
+    one voxel a pore is robust when it lives longer than 2 (1 + sqrt(3)) voxels (the
+    voxel-centre offset of a 3D grid added). Two balls of radius 9 joined by a thin tube:
+    the second pore lives about 9 - 1.4 voxels, so both pores are robust and shown, and
+    nothing else of dimension 0; the band is drawn at that threshold."""
+    from matplotlib.collections import PolyCollection
+    z, y, x = np.indices((24, 24, 50))
+    ball = lambda cx: (z - 12) ** 2 + (y - 12) ** 2 + (x - cx) ** 2 <= 81  # noqa: E731
+    tube = ((z - 12) ** 2 + (y - 12) ** 2 <= 2) & (x >= 12) & (x <= 37)
+    mask = (ball(12) | ball(37) | tube).astype(np.uint8)
+    viewer, widget = _widget(make_napari_viewer, mask, name="pores", labels=True)
+    widget.porosity_check.setChecked(with_porosity)
+    _run(qtbot, widget)
+    threshold = 2 * (1 + np.sqrt(3))
+    pores = _result_layers(viewer)[0]
+    lifetimes = pores.features["persistence"].to_numpy()
+    np.testing.assert_array_equal(pores.shown, lifetimes > threshold)
+    assert int(pores.shown.sum()) == 2
+    bands = [c for c in widget.diagram_panel.axes.collections
+             if isinstance(c, PolyCollection)]
+    assert bands and all(c.get_label().startswith("not robust") for c in bands)
+    status = widget.status.text()
+    assert ("2 robust of" in status) and f"{threshold:.4g}" in status
+
+
+def test_reader_carries_the_threshold_band_of_a_tested_folder(make_napari_viewer, tmp_path):
+    """A folder of `voxtopo analyse` with its defaults lists the significant pairs (Monte
+    Carlo test, Besag & Clifford 1989): the three planted disks; opened in the viewer,
+    the diagram panel draws the thresholds of summary.json as the band."""
+    from matplotlib.collections import PolyCollection
+
+    from voxtopo_napari._diagram_panel import DiagramPanel
+    np.save(tmp_path / "disks.npy", _bright_disks_in_noise())
+    out = tmp_path / "disks"
+    assert cli.main(["analyse", str(tmp_path / "disks.npy"), "--out", str(out),
+                     "--superlevel"]) == 0
+    summary = json.loads((out / "summary.json").read_text())
+    viewer = make_napari_viewer()
+    viewer.open(str(out), plugin="voxtopo-napari")
+    panel = DiagramPanel(viewer)
+    viewer.window.add_dock_widget(panel, name="voxtopo diagram")
+    layers = _result_layers(viewer)
+    assert sum(len(layer.data) for layer in layers.values()) == 3
+    meta = layers[0].metadata[METADATA_KEY]
+    assert meta["flag"] == "significant"
+    assert meta["thresholds"][0] == pytest.approx(summary["significance"]["threshold"]["0"])
+    assert any(isinstance(c, PolyCollection) for c in panel.axes.collections)
+    assert len(panel.visible_features()) == 3
