@@ -419,7 +419,6 @@ def test_reader_carries_the_threshold_band_of_a_tested_folder(make_napari_viewer
     Carlo test, Besag & Clifford 1989): the three planted disks; opened in the viewer,
     the diagram panel draws the thresholds of summary.json as the band."""
     from matplotlib.collections import PolyCollection
-
     from voxtopo_napari._diagram_panel import DiagramPanel
     np.save(tmp_path / "disks.npy", _bright_disks_in_noise())
     out = tmp_path / "disks"
