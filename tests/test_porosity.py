@@ -858,3 +858,17 @@ def test_cli_flags_robust_features_in_every_table_and_counts_them(tmp_path, caps
     printed = capsys.readouterr().out
     assert f"2 robust of {len(pores)} pores" in printed
     assert "boundary tolerance 2 px" in printed
+
+
+def test_cli_refuses_a_negative_boundary_tolerance_in_one_sentence(tmp_path, capsys):
+    # common practice, no source: a tolerance is a length of 0 or more; one sentence
+    # naming the wrong value, exit 2, nothing written
+    from voxtopo.cli import main
+    np.save(tmp_path / "mask.npy", np.eye(12, dtype=np.uint8))
+    out = tmp_path / "out"
+    assert main(["pores", str(tmp_path / "mask.npy"), "--out", str(out),
+                 "--boundary-tolerance", "-1"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert "-1" in err and "boundary_tolerance" in err.replace(" ", "_").lower()
+    assert len(err.splitlines()) == 1 and "Traceback" not in err
+    assert not out.exists()
