@@ -223,12 +223,18 @@ def _diagram_plot(plt, analysis, unit, background, ndim):
         rows = finite[finite["dim"] == dim]
         marker, colour = markers[dim]
         ax.scatter(rows["birth"], rows["death"], s=12, marker=marker, color=colour,
-                   alpha=0.7, label=f"dimension {dim}: {len(rows)} pairs (all pairs)")
+                   alpha=0.7, label=f"dimension {dim}: {len(rows)} pairs (all pairs), "
+                                    f"{int(rows['robust'].sum())} robust")
     essential = pairs[~np.isfinite(pairs["death"])]
     if len(essential):
         ax.scatter(essential["birth"], np.full(len(essential), hi - pad / 2), marker="*",
                    s=60, color="black", label=f"never dies: {len(essential)}")
     ax.plot([lo, hi], [lo, hi], color="0.4", lw=0.8)
+    robust = analysis.summary["robustness"]
+    ax.fill_between([lo, hi], [lo, hi], [lo + robust["threshold"], hi + robust["threshold"]],
+                    color="0.55", alpha=0.25, lw=0, zorder=1,
+                    label=f"not robust: persistence at most {robust['threshold']:.3g} {unit} "
+                          f"(boundary tolerance {robust['boundary_tolerance']:.3g} {unit})")
     # three zones of the signed-distance diagram, each a plain rectangle or triangle named
     # in the legend: a feature that lives in one phase only, or one that spans the wall
     zones = (
