@@ -664,10 +664,11 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
         larger one) and ``isolated`` (a closed pore: its connected piece of the pore
         phase holds no other pore and reaches no border of the scan or sample), then
         ``body_voxel_z, body_voxel_y, body_voxel_x``: the voxel indices of the body centre.
-        Every table has ``robust`` after ``lifetime``, and ``diagram`` / ``solid_diagram``
-        a ``robust`` column (see ``boundary_tolerance``).
         ``grains``: the same for the solid with ``neck`` for ``throat``. ``loops`` and
-        ``voids``: see Notes. ``summary``: porosity, percolation and integral geometry.
+        ``voids``: see Notes. Every table has ``robust`` after ``lifetime``, and
+        ``diagram`` / ``solid_diagram`` a ``robust`` column (see ``boundary_tolerance``).
+        ``summary``: porosity, percolation, integral geometry and ``robustness`` (method,
+        boundary tolerance, threshold, robust counts).
 
     Notes
     -----
