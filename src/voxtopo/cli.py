@@ -265,6 +265,8 @@ def _add_pores(subparsers) -> None:
                     "from the persistence of the signed distance transform, grains, loops, "
                     "enclosed voids, percolation radius and connected porosity per axis, "
                     "Euler characteristic, connectivity density and Minkowski functionals. "
+                    "Features that survive every segmentation whose boundary is off by at "
+                    "most --boundary-tolerance are flagged robust and counted. "
                     "Writes pores.csv, summary.json and plots into a new folder. Research "
                     "use only: not a diagnosis nor a certification.")
     p.add_argument("scan", help="binary mask, label image or gray scan (any format voxtopo "
