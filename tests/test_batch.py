@@ -13,7 +13,9 @@ from scipy import ndimage
 
 from voxtopo import batch, cli
 from voxtopo.errors import InputError
+from voxtopo.io.results import read_summary
 from voxtopo.jobs.analyse import AnalysisOptions, analyse
+from voxtopo.scan import Scan
 
 
 def _textures(folder, count=4, shape=(28, 28)):
@@ -77,11 +79,16 @@ def test_summary_table_equals_analysing_each_scan_alone(finished_batch, tmp_path
         diagram = analyse(path, alone, AnalysisOptions(), load_options=load)
         mine = json.loads((alone / "summary.json").read_text())
         for d in (0, 1):
-            assert done.loc[name, f"pairs_dim{d}"] == mine["counts"][str(d)]
+            # the default counts significant features, and its column says so
+            assert done.loc[name, f"significant_dim{d}"] == mine["counts"][str(d)]
             assert done.loc[name, f"essential_dim{d}"] == mine["essential"][str(d)]
             # and all pairs computed equal gudhi's own count on the same array (external
-            # reference); the counts themselves are of significant features
-            assert mine["pairs_computed"][str(d)] == _gudhi_pair_count(np.load(path), d)
+            # reference, Maria et al. 2014)
+            assert (done.loc[name, f"pairs_computed_dim{d}"] == mine["pairs_computed"][str(d)]
+                    == _gudhi_pair_count(np.load(path), d))
+        assert done.loc[name, "counted"] == mine["counted"]
+        assert done.loc[name, "counted"].startswith("significant features (family-wise, "
+                                                    "alpha 0.05")
         assert done.loc[name, "scan_spacing"] == ("0.5,0.5" if i == 0 else "1.0,1.0")
         pd.testing.assert_frame_equal(pd.read_csv(root / "out" / "scans" / name / "pairs.csv"),
                                       pd.read_csv(alone / "pairs.csv"))
@@ -90,7 +97,32 @@ def test_summary_table_equals_analysing_each_scan_alone(finished_batch, tmp_path
     assert summary["operator"].tolist() == ["op0", "op1", "op9", "op2", "op3", "op8"]
     parquet = pd.read_parquet(root / "out" / "summary.parquet")
     assert parquet["name"].tolist() == summary["name"].tolist()
-    assert parquet["pairs_dim0"].tolist()[:2] == summary["pairs_dim0"].tolist()[:2]
+    assert parquet["significant_dim0"].tolist()[:2] == summary["significant_dim0"].tolist()[:2]
+    assert not any(c.startswith("pairs_dim") for c in summary.columns)
+    # the batch report says what the counts count: the method and the level
+    report = (root / "out" / "report.html").read_text()
+    assert "significant features (family-wise, alpha 0.05" in report
+
+
+def test_summary_columns_say_all_pairs_only_when_all_pairs_were_listed(tmp_path):
+    """Every count says what it counts (common practice, no source): a scan analysed with
+    --min-persistence 0 lists every pair, so its counts are pairs_dimN and equal the pairs
+    gudhi (Maria et al. 2014) finds; the default counts significant_dimN; a distance sweep
+    robust_dimN."""
+    image = np.random.default_rng(3).random((12, 14))
+    analyse(Scan(image), tmp_path / "all", AnalysisOptions(min_persistence=0))
+    analyse(Scan(image), tmp_path / "auto", AnalysisOptions())
+    analyse(Scan((image > 0.5).astype(np.uint8)), tmp_path / "distance",
+            AnalysisOptions(distance=True))
+    listed = batch._key_numbers(read_summary(tmp_path / "all"))
+    assert [listed[f"pairs_dim{d}"] for d in (0, 1)] == [
+        _gudhi_pair_count(image, d) for d in (0, 1)]
+    assert listed["pairs_computed_dim1"] == listed["pairs_dim1"]
+    tested = batch._key_numbers(read_summary(tmp_path / "auto"))
+    assert "pairs_dim0" not in tested and tested["significant_dim0"] >= 1
+    robust = batch._key_numbers(read_summary(tmp_path / "distance"))
+    assert "pairs_dim0" not in robust and "robust_dim0" in robust
+    assert robust["robust_dim0"] <= robust["pairs_computed_dim0"]
 
 
 def test_failing_scans_are_recorded_and_the_rest_complete(finished_batch):

@@ -763,3 +763,112 @@ def test_otsu_threshold_is_chosen_from_the_sample_alone():
     expected = threshold_otsu(gray[roi])
     assert result.summary["threshold"] == pytest.approx(expected)
     assert result.summary["porosity"] == pytest.approx(100 / 400)
+
+
+# --- robust features: stable under a boundary moved by the tolerance -------------------
+def _disk_pores(seed=43, size=96, count=9, wall=4.0):
+    """Pairs of overlapping disks (one pore drains into the other through the neck where
+    they overlap), each pair apart from the others by a solid wall at least ``wall`` voxels
+    thick: the stability guarantee is for a boundary that moves, not for a wall that a
+    dilation closes."""
+    from skimage.draw import disk
+    rng = np.random.default_rng(seed)
+    mask = np.zeros((size, size), bool)
+    placed = []
+    while len(placed) < count:
+        big, small = rng.uniform(4.0, 8.0), rng.uniform(2.0, 6.0)
+        angle = rng.uniform(0, 2 * np.pi)
+        offset = (big + small - rng.uniform(1.0, 1.6 * small)) * np.array(
+            [np.cos(angle), np.sin(angle)])
+        reach = np.hypot(*offset) + small
+        centre = rng.uniform(reach + 2, size - reach - 2, 2)
+        if all(np.hypot(*(centre - c)) >= reach + r + wall for c, r in placed):
+            placed.append((centre, max(reach, big)))
+            mask[disk(tuple(centre), big, shape=mask.shape)] = True
+            mask[disk(tuple(centre + offset), small, shape=mask.shape)] = True
+    return mask
+
+
+def _as_intervals(pores):
+    """(birth, death) of each pore in the signed distance: born at -body_radius, dying a
+    lifetime later (inf: never)."""
+    birth = -pores["body_radius"].to_numpy(dtype=float)
+    return np.column_stack([birth, birth + pores["lifetime"].to_numpy(dtype=float)])
+
+
+@pytest.mark.parametrize("change", ["dilate", "erode"])
+def test_robust_pores_keep_a_partner_when_the_boundary_moves_one_voxel(change):
+    """Stability (Cohen-Steiner, Edelsbrunner & Harer 2007): moving the boundary by one
+    voxel changes the signed distance by at most 1 + sqrt(2) on the grid, so the bottleneck
+    distance (gudhi.bottleneck_distance, Maria et al. 2014) between the pore diagrams is at
+    most that, and every pore flagged robust (lifetime above twice it) keeps a partner pore
+    within that distance in the pores table of the moved mask."""
+    import gudhi
+    from scipy import ndimage
+    mask = _disk_pores()
+    move = ndimage.binary_dilation if change == "dilate" else ndimage.binary_erosion
+    before = analyse(mask, engine=ENGINE)
+    after = analyse(move(mask), engine=ENGINE)
+    bound = 1.0 + np.sqrt(2.0)
+    assert before.summary["robustness"]["threshold"] == pytest.approx(2 * bound)
+    assert np.abs(before.distance.data - after.distance.data).max() <= bound + 1e-9
+    for dim in (0, 1):
+        ours, theirs = (d.intervals(dim) for d in (before.diagram, after.diagram))
+        finite = [i[np.isfinite(i[:, 1])] for i in (ours, theirs)]
+        assert gudhi.bottleneck_distance(*finite) <= bound + 1e-9
+    robust = before.pores[before.pores["robust"]]
+    assert 3 <= len(robust) < len(before.pores)
+    partners = _as_intervals(after.pores)
+    for birth, death in _as_intervals(robust):
+        gap = np.maximum(np.abs(partners[:, 0] - birth),
+                         np.where(np.isinf(death) & np.isinf(partners[:, 1]), 0.0,
+                                  np.abs(partners[:, 1] - death)))
+        assert gap.min() <= bound + 1e-9
+
+
+def test_cli_flags_robust_features_in_every_table_and_counts_them(tmp_path, capsys):
+    """The robust flag is lifetime above 2 (delta + h sqrt(d)) (stability theorem,
+    Cohen-Steiner, Edelsbrunner & Harer 2007, with the voxel-centre offset): checked column
+    by column in pores, grains, loops, voids and pairs, with delta = 2 voxels given on the
+    command line; the summary and the printed line count them with the level."""
+    from voxtopo.cli import main
+    z, y, x = np.indices((30, 30, 30))
+    mask = np.zeros((30, 30, 30), bool)
+    for centre, radius in (((10, 10, 10), 6), ((20, 19, 20), 5), ((8, 22, 21), 2.5)):
+        mask |= ((z - centre[0]) ** 2 + (y - centre[1]) ** 2 + (x - centre[2]) ** 2
+                 <= radius ** 2)
+    np.save(tmp_path / "mask.npy", mask.astype(np.uint8))
+    out = tmp_path / "out"
+    assert main(["pores", str(tmp_path / "mask.npy"), "--out", str(out),
+                 "--boundary-tolerance", "2", "--engine", ENGINE]) == 0
+    threshold = 2 * (2 + np.sqrt(3))
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["robustness"]["threshold"] == pytest.approx(threshold)
+    assert summary["robustness"]["boundary_tolerance"] == 2
+    for name, lifetime in (("pores", "lifetime"), ("grains", "lifetime"),
+                           ("loops", "lifetime"), ("voids", "lifetime"),
+                           ("pairs", "persistence")):
+        table = pd.read_csv(out / f"{name}.csv")
+        expected = table[lifetime].to_numpy(dtype=float) > threshold
+        np.testing.assert_array_equal(table["robust"].to_numpy(dtype=bool), expected,
+                                      err_msg=name)
+    pores = pd.read_csv(out / "pores.csv")
+    # the two large balls (radius 6 and 5) are robust; the small one (2.5) is not
+    assert summary["counts"]["robust"]["pores"] == int(pores["robust"].sum()) == 2
+    printed = capsys.readouterr().out
+    assert f"2 robust of {len(pores)} pores" in printed
+    assert "boundary tolerance 2 px" in printed
+
+
+def test_cli_refuses_a_negative_boundary_tolerance_in_one_sentence(tmp_path, capsys):
+    # common practice, no source: a tolerance is a length of 0 or more; one sentence
+    # naming the wrong value, exit 2, nothing written
+    from voxtopo.cli import main
+    np.save(tmp_path / "mask.npy", np.eye(12, dtype=np.uint8))
+    out = tmp_path / "out"
+    assert main(["pores", str(tmp_path / "mask.npy"), "--out", str(out),
+                 "--boundary-tolerance", "-1"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert "-1" in err and "boundary_tolerance" in err.replace(" ", "_").lower()
+    assert len(err.splitlines()) == 1 and "Traceback" not in err
+    assert not out.exists()

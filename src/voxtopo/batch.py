@@ -184,8 +184,7 @@ _WORKER_CONFIG = {
 #: Keys of a scan's summary.json that are not key numbers for the table.
 _NOT_KEY_NUMBERS = {"most_persistent", "software", "cautions", "plots", "files", "options",
                     "diagram", "created", "voxtopo_version", "preparation", "counts",
-                    "essential", "notes"}
-
+                    "essential", "notes", "pairs_computed"}
 
 # --- settings -----------------------------------------------------------------------------
 @dataclass
@@ -586,13 +585,35 @@ def _clear_half_made(scans_dir: Path, name: str) -> bool:
     return removed
 
 
+def _count_prefix(summary: dict) -> str:
+    """What the per-dimension counts of an analyse summary count, as a column prefix
+    (:data:`voxtopo.report.html.COUNT_PREFIXES`): ``significant_dim`` / ``robust_dim``
+    when only the features that passed were kept, ``pairs_dim`` when the scan listed
+    pairs (all, those above a number, or untested ones)."""
+    from .report.html import COUNT_PREFIXES
+
+    significant, robust, listed = COUNT_PREFIXES
+    verdict = summary.get("significance") or summary.get("robustness") or {}
+    kept_passing = (summary.get("options") or {}).get("min_persistence") == "auto"
+    if not kept_passing or verdict.get("method", "not tested") == "not tested":
+        return listed
+    return significant if "significance" in summary else robust
+
+
 def _key_numbers(summary: dict) -> dict:
-    """The scalar numbers of a scan's summary.json, flattened to table columns."""
+    """The scalar numbers of a scan's summary.json, flattened to table columns.
+
+    An analyse scan's counts per dimension are named for what they count
+    (``significant_dim``, ``robust_dim`` or ``pairs_dim``, with the method and level in
+    the ``counted`` column) beside
+    ``pairs_computed_dimN``, every pair the sweep found."""
     row = {}
-    for key, prefix in (("counts", "pairs_dim"), ("essential", "essential_dim")):
+    prefix = _count_prefix(summary)
+    for key, dim_prefix in (("counts", prefix), ("essential", "essential_dim"),
+                            ("pairs_computed", "pairs_computed_dim")):
         for d, n in (summary.get(key) or {}).items():
-            # the analyse job counts pairs per dimension; other jobs count their features
-            row[f"{prefix}{d}" if str(d).isdigit() else f"{key}_{d}"] = n
+            # the analyse job counts per dimension; other jobs count their features
+            row[f"{dim_prefix}{d}" if str(d).isdigit() else f"{key}_{d}"] = n
 
     def add(prefix, value, depth):
         if isinstance(value, dict):
@@ -611,7 +632,8 @@ def _key_numbers(summary: dict) -> dict:
     out_of_core = (summary.get("preparation") or {}).get("out_of_core") or {}
     for d in out_of_core.get("dimensions_not_computed", []):
         # an out-of-core run has no pairs of these dimensions: unknown, not zero
-        row[f"pairs_dim{d}"] = row[f"essential_dim{d}"] = None
+        row[f"{prefix}{d}"] = row[f"essential_dim{d}"] = None
+        row[f"pairs_computed_dim{d}"] = None
     return row
 
 

@@ -265,6 +265,8 @@ def _add_pores(subparsers) -> None:
                     "from the persistence of the signed distance transform, grains, loops, "
                     "enclosed voids, percolation radius and connected porosity per axis, "
                     "Euler characteristic, connectivity density and Minkowski functionals. "
+                    "Features that survive every segmentation whose boundary is off by at "
+                    "most --boundary-tolerance are flagged robust and counted. "
                     "Writes pores.csv, summary.json and plots into a new folder. Research "
                     "use only: not a diagnosis nor a certification.")
     p.add_argument("scan", help="binary mask, label image or gray scan (any format voxtopo "
@@ -292,6 +294,10 @@ def _add_pores(subparsers) -> None:
     m.add_argument("--min-persistence", type=float, metavar="LENGTH",
                    help="the shortest lifetime kept: merge pores whose body exceeds their "
                         "throat by no more than this (default half a voxel)")
+    m.add_argument("--boundary-tolerance", type=float, metavar="LENGTH",
+                   help="how far the segmented boundary may be off, in the scan's unit "
+                        "(default one voxel): features living longer than twice it plus a "
+                        "voxel diagonal are flagged robust (stability theorem)")
     m.add_argument("--engine", choices=["auto", "voxtopo", "gudhi"], default="auto",
                    help="persistence engine (the diagram is the same)")
     add_load_options(p)
@@ -306,7 +312,7 @@ def _run_pores(args) -> int:
         pores_bright=args.pores_bright, label=args.label,
         roi=args.roi, axis=tuple(args.axis) if args.axis else None,
         neighbourhood=args.neighbourhood, min_persistence=args.min_persistence,
-        engine=args.engine)
+        engine=args.engine, boundary_tolerance=args.boundary_tolerance)
     load_options = load_options_from(args)
     return _run_job("pores", args, options, lambda: load(args.scan, **load_options),
                     [args.scan, args.mask, args.roi])

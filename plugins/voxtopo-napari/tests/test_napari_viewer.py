@@ -130,6 +130,7 @@ def test_slider_hides_exactly_the_features_below_the_threshold(make_napari_viewe
     data = np.random.default_rng(11).random((10, 10, 10))
     viewer, widget = _widget(make_napari_viewer, data)
     widget.deaths_check.setChecked(True)
+    widget.min_persistence_box.setValue(0.0)  # every pair listed: the slider alone decides
     _run(qtbot, widget)
     panel = widget.diagram_panel
     all_persistence = widget.result.diagram.pairs["persistence"].to_numpy()
@@ -151,6 +152,7 @@ def test_slider_hides_exactly_the_features_below_the_threshold(make_napari_viewe
 def test_selection_links_diagram_and_viewer_both_ways(make_napari_viewer, qtbot):
     data = np.random.default_rng(5).random((8, 9, 10))
     viewer, widget = _widget(make_napari_viewer, data, scale=(1.0, 2.0, 2.0))
+    widget.min_persistence_box.setValue(0.0)  # every pair listed, so every loop is drawn
     _run(qtbot, widget)
     panel = widget.diagram_panel
     loops = _result_layers(viewer)[1]
@@ -292,18 +294,20 @@ def test_export_writes_the_same_folder_as_the_cli(make_napari_viewer, qtbot, tmp
     """Export and `voxtopo analyse` on the same data give the same pairs.csv."""
     data = np.random.default_rng(8).random((7, 8, 9))
     viewer, widget = _widget(make_napari_viewer, data)
+    widget.min_persistence_box.setValue(0.0)
     _run(qtbot, widget)
     exported = widget.export(tmp_path / "from-viewer")
     np.save(tmp_path / "same.npy", data)
-    # the widget keeps every pair (its lifetime box starts at 0); the export does not yet
-    # carry the significance columns the CLI adds, so the pairs' own columns are compared
+    # every pair with its p_value and significant flag, as the command writes them
     assert cli.main(["analyse", str(tmp_path / "same.npy"), "--out",
                      str(tmp_path / "from-cli"), "--min-persistence", "0"]) == 0
     ours = pd.read_csv(exported / "pairs.csv")
     theirs = pd.read_csv(tmp_path / "from-cli" / "pairs.csv")
-    pd.testing.assert_frame_equal(ours, theirs[ours.columns])
+    assert {"p_value", "significant"} <= set(ours.columns)
+    pd.testing.assert_frame_equal(ours, theirs)
     summary = json.loads((exported / "summary.json").read_text())
     assert summary["diagram"]["neighbourhood"] == 26
+    assert summary["significance"]["alpha"] == 0.05
     assert widget.export(tmp_path / "from-viewer") is None  # never overwritten silently
     assert "already exists" in widget.status.text()
 
@@ -339,3 +343,96 @@ def test_diagram_panel_shows_a_unit_with_dollar_signs_as_typed(make_napari_viewe
     panel.figure.canvas.draw()
     assert "\\$\\foo\\$" in panel.axes.get_xlabel()
     assert "\\$\\foo\\$" in panel.legend_axes.get_xlabel()
+
+
+def _bright_disks_in_noise():
+    """Three bright disks 2.0 above white noise of 0.1: twenty noise levels, far above the
+    largest persistence noise of this size reaches (a few sigma), so each disk must be
+    significant; nothing else is."""
+    y, x = np.indices((48, 48))
+    data = np.random.default_rng(5).normal(0.0, 0.1, (48, 48))
+    for cy, cx in ((12, 12), (12, 34), (34, 22)):
+        data[(y - cy) ** 2 + (x - cx) ** 2 <= 16] += 2.0
+    return data
+
+
+def test_significant_features_are_shown_by_default_and_the_switch_shows_all(
+        make_napari_viewer, qtbot):
+    """Monte Carlo test (Besag & Clifford 1989): with min persistence at "auto" the panel
+    shows only the significant pairs, here the three planted disks (one component that
+    never dies and two that merge into it), draws the threshold as a band, and "show all
+    pairs" shows every tested pair. The status line is the command's own line."""
+    from matplotlib.collections import PolyCollection
+
+    from voxtopo.jobs import analyse
+    viewer, widget = _widget(make_napari_viewer, _bright_disks_in_noise())
+    widget.mode_choice.setCurrentText("gray values, bright to dark (superlevel)")
+    assert widget.min_persistence_box.text() == "auto"
+    _run(qtbot, widget)
+    panel = widget.diagram_panel
+    layers = _result_layers(viewer)
+    assert [int(layers[d].shown.sum()) for d in (0, 1)] == [3, 0]
+    assert len(layers[0].data) > 3 and "p_value" in layers[0].features
+    assert len(panel.visible_features()) == 3
+    assert widget.status.text() == analyse.describe(widget.result.job)
+    assert widget.status.text().startswith("3 significant of ")
+    assert "alpha 0.05" in widget.status.text()
+    bands = [c for c in panel.axes.collections if isinstance(c, PolyCollection)]
+    assert bands and all(c.get_label().startswith("not significant") for c in bands)
+    assert "significant features" in panel.count_label.text()
+    panel.show_all_check.setChecked(True)
+    assert all(layer.shown.all() for layer in layers.values())
+    assert len(panel.visible_features()) == sum(len(layer.data) for layer in layers.values())
+    assert "all pairs" in panel.count_label.text()
+
+
+@pytest.mark.parametrize("with_porosity", [False, True])
+def test_distance_mode_shows_the_robust_pores_by_default(make_napari_viewer, qtbot,
+                                                         with_porosity):
+    """Stability (Cohen-Steiner, Edelsbrunner & Harer 2007): with a boundary tolerance of
+    one voxel a pore is robust when it lives longer than 2 (1 + sqrt(3)) voxels (the
+    voxel-centre offset of a 3D grid added). Two balls of radius 9 joined by a thin tube:
+    the second pore lives about 9 - 1.4 voxels, so both pores are robust and shown, and
+    nothing else of dimension 0; the band is drawn at that threshold."""
+    from matplotlib.collections import PolyCollection
+    z, y, x = np.indices((24, 24, 50))
+    ball = lambda cx: (z - 12) ** 2 + (y - 12) ** 2 + (x - cx) ** 2 <= 81  # noqa: E731
+    tube = ((z - 12) ** 2 + (y - 12) ** 2 <= 2) & (x >= 12) & (x <= 37)
+    mask = (ball(12) | ball(37) | tube).astype(np.uint8)
+    viewer, widget = _widget(make_napari_viewer, mask, name="pores", labels=True)
+    widget.porosity_check.setChecked(with_porosity)
+    _run(qtbot, widget)
+    threshold = 2 * (1 + np.sqrt(3))
+    pores = _result_layers(viewer)[0]
+    lifetimes = pores.features["persistence"].to_numpy()
+    np.testing.assert_array_equal(pores.shown, lifetimes > threshold)
+    assert int(pores.shown.sum()) == 2
+    bands = [c for c in widget.diagram_panel.axes.collections
+             if isinstance(c, PolyCollection)]
+    assert bands and all(c.get_label().startswith("not robust") for c in bands)
+    status = widget.status.text()
+    assert ("2 robust of" in status) and f"{threshold:.4g}" in status
+
+
+def test_reader_carries_the_threshold_band_of_a_tested_folder(make_napari_viewer, tmp_path):
+    """A folder of `voxtopo analyse` with its defaults lists the significant pairs (Monte
+    Carlo test, Besag & Clifford 1989): the three planted disks; opened in the viewer,
+    the diagram panel draws the thresholds of summary.json as the band."""
+    from matplotlib.collections import PolyCollection
+    from voxtopo_napari._diagram_panel import DiagramPanel
+    np.save(tmp_path / "disks.npy", _bright_disks_in_noise())
+    out = tmp_path / "disks"
+    assert cli.main(["analyse", str(tmp_path / "disks.npy"), "--out", str(out),
+                     "--superlevel"]) == 0
+    summary = json.loads((out / "summary.json").read_text())
+    viewer = make_napari_viewer()
+    viewer.open(str(out), plugin="voxtopo-napari")
+    panel = DiagramPanel(viewer)
+    viewer.window.add_dock_widget(panel, name="voxtopo diagram")
+    layers = _result_layers(viewer)
+    assert sum(len(layer.data) for layer in layers.values()) == 3
+    meta = layers[0].metadata[METADATA_KEY]
+    assert meta["flag"] == "significant"
+    assert meta["thresholds"][0] == pytest.approx(summary["significance"]["threshold"]["0"])
+    assert any(isinstance(c, PolyCollection) for c in panel.axes.collections)
+    assert len(panel.visible_features()) == 3

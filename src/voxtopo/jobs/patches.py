@@ -1,18 +1,28 @@
 """The patches job: the whole patch-space workflow into one result folder (what
-`voxtopo patches`, the plugin and the batch runner run)."""
+`voxtopo patches`, the plugin and the batch runner run).
+
+Which loops are real: every bar of dimension 1 and up of a Rips diagram gets a p-value
+under the universal null distribution of Bobrowski & Skraba 2023
+(:func:`voxtopo.significance.rips_significance`, Bonferroni over the bars of its dimension
+and field), and the dominant loop is rerun on ``resamples`` other samplings of the patch
+positions (:func:`voxtopo.significance.dominant_loop_stability`): in how many of them the
+loop of largest death / birth is again significant.
+"""
 
 from __future__ import annotations
 
 import platform
 import time
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from datetime import datetime, timezone
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 
+from .. import significance as sig
 from ..io import result_folder
-from ..io.results import check_target, write_summary
+from ..io.results import check_target, json_ready, write_summary
 from ..options import (BOOLEAN, COUNT, PERCENT, POSITIVE, PRIME, WHOLE, Rule, check, one_of,
                        optional)
 from ..patches import core, persistence, sample
@@ -28,6 +38,10 @@ class PatchOptions:
     tests/test_patches.py for the margin): 30 000 random positions, log intensities, the
     top 20 percent by contrast, the densest 10 percent by the distance to the 30th
     neighbour, 150 max-min landmarks, Rips up to dimension 2 over Z/2.
+
+    significance    family-wise level alpha of the universal-null test of each bar
+    resamples       reruns with the sampling seeds seed + 1, ..., seed + resamples that
+                    say how stable the dominant loop is (0 = none)
     """
 
     k: int = 3
@@ -44,6 +58,8 @@ class PatchOptions:
     max_edge: float | None = None
     method: str = "rips"
     max_dimension: int = 2
+    significance: float = 0.05
+    resamples: int = 3
 
     def __post_init__(self):
         check(asdict(self), PATCH_RULES, "the patches options")
@@ -73,6 +89,9 @@ PATCH_RULES = {
     "max_edge": optional(POSITIVE),
     "method": one_of("rips", "witness"),
     "max_dimension": one_of(0, 1, 2),
+    "significance": Rule(lambda v: isinstance(v, (int, float)) and not isinstance(v, bool)
+                         and 0 < v < 1, "a level between 0 and 1, such as 0.05"),
+    "resamples": WHOLE,
 }
 
 
@@ -82,7 +101,9 @@ Options = PatchOptions
 
 @dataclass
 class PatchesResult:
-    """What :func:`run` computed: the cloud, its core and the landmark persistence."""
+    """What :func:`run` computed: the cloud, its core, the landmark persistence, its bars
+    with ``p_value`` and ``significant`` (``tested``) and the dominant loop's stability
+    over resamples (None when none were asked for or the complex is not Rips)."""
 
     cloud: object
     dense: object
@@ -92,6 +113,8 @@ class PatchesResult:
     k_neighbour: int
     seconds: float
     sources: list = field(default_factory=list)
+    tested: pd.DataFrame | None = None
+    stability: dict | None = None
 
 
 def _items(images_or_scans) -> list:
@@ -107,6 +130,18 @@ def run(images_or_scans, options: PatchOptions | None = None, progress=None,
     items = _items(images_or_scans)
     report = progress or (lambda phase, fraction: None)
     started = time.perf_counter()
+    cloud, dense, core_index, bars, keep_n = _sample_and_sweep(images_or_scans, options,
+                                                               report, mask)
+    tested = _tested_bars(bars.pairs, options)
+    stability = _loop_stability(images_or_scans, options, report, mask)
+    return PatchesResult(cloud, dense, core_index, bars, options, keep_n,
+                         time.perf_counter() - started,
+                         [getattr(item, "source", None) for item in items], tested, stability)
+
+
+def _sample_and_sweep(images_or_scans, options: PatchOptions, report, mask):
+    """The cloud, its dense core (and where it sits in the cloud), the landmark
+    persistence and the neighbour count used."""
     report("sampling patches", 0.0)
     cloud = sample(images_or_scans, options.k, axis=options.axis,
                    slices=options.slices, positions=options.positions, seed=options.seed,
@@ -122,16 +157,48 @@ def run(images_or_scans, options: PatchOptions | None = None, progress=None,
                        max_dimension=options.max_dimension, field=options.fields,
                        max_edge=options.max_edge, method=options.method, seed=options.seed)
     report("landmark persistence", 1.0)
-    return PatchesResult(cloud, dense, core_index, bars, options, keep_n,
-                         time.perf_counter() - started,
-                         [getattr(item, "source", None) for item in items])
+    return cloud, dense, core_index, bars, keep_n
+
+
+def _tested_bars(pairs: pd.DataFrame, options: PatchOptions) -> pd.DataFrame:
+    """The bars with ``p_value`` and ``significant``, each field tested on its own. The
+    universal null is that of Rips complexes: witness bars are listed untested (empty)."""
+    if options.method != "rips":
+        out = pairs.copy()
+        out["p_value"] = np.nan
+        out["significant"] = pd.array([pd.NA] * len(out), dtype="boolean")
+        return out
+    tested = [sig.rips_significance(pairs[pairs["field"] == f], options.significance)
+              for f in options.fields]
+    return pd.concat(tested).loc[pairs.index]
+
+
+def _loop_stability(images_or_scans, options: PatchOptions, report, mask) -> dict | None:
+    """:func:`voxtopo.significance.dominant_loop_stability` over ``options.resamples``
+    samplings with other seeds, over the first field."""
+    if options.resamples == 0 or options.method != "rips":
+        return None
+    first_field = options.fields[0]
+
+    def loops_of(seed):
+        report(f"resample with seed {seed}", 0.0)
+        rerun = _sample_and_sweep(images_or_scans, replace(options, seed=seed),
+                                  lambda phase, fraction: None, mask)[3].pairs
+        return rerun[rerun["field"] == first_field]
+
+    seeds = range(options.seed + 1, options.seed + 1 + options.resamples)
+    stability = sig.dominant_loop_stability(loops_of, seeds, options.significance)
+    return {**stability, "field": first_field,
+            "what": "resamples of the patch positions (sampling seeds) in which the loop "
+                    "of largest death / birth is significant"}
 
 
 def write(result: PatchesResult, out, force: bool = False) -> Path:
     """Write ``cloud.npy`` (DCT coordinates of every high-contrast patch), ``cloud.json``
     (parameters and source images), ``cloud_patches.npy``, ``cloud_origin.npy``,
     ``core.npy`` and ``landmarks.npy`` (indices into the cloud), ``pairs.csv`` (``dim,
-    birth, death, persistence, field``), ``summary.json``, ``barcode.png``,
+    birth, death, persistence, field, p_value, significant``), ``summary.json`` (with
+    ``significance`` and ``dominant_loop_stability``), ``barcode.png``,
     ``diagram.png``, ``projection.png``, ``loop_gallery.png`` and ``report.html``. The
     folder appears only when complete."""
     from ..report.html import write_report
@@ -141,10 +208,11 @@ def write(result: PatchesResult, out, force: bool = False) -> Path:
         result.cloud.save(folder)
         np.save(folder / "core.npy", result.core_index)
         np.save(folder / "landmarks.npy", result.core_index[bars.landmarks])
-        bars.pairs.to_csv(folder / "pairs.csv", index=False, float_format="%.10g")
+        result.tested.to_csv(folder / "pairs.csv", index=False, float_format="%.10g")
         _figures(folder, result.cloud, result.dense, bars)
         summary = _summary(result.cloud, result.dense, bars, result.options,
                            result.k_neighbour, result.seconds)
+        summary.update(_verdict(result))
         write_summary(folder, summary)
         write_report(folder)
     return Path(out)
@@ -160,7 +228,36 @@ def describe(result: PatchesResult) -> str:
                      f"{bars.middle_scale:.3g}; longest loop {margin['longest']:.3g}, "
                      f"{margin['ratio']:.2f} times the second")
     lines.append(f"{len(result.dense)} core patches, {len(bars.landmarks)} landmarks")
+    if result.options.method == "rips":
+        tested = result.tested
+        for f in bars.fields:
+            loops = tested[(tested["field"] == f) & (tested["dim"] == 1)]
+            lines.append(f"{int(loops['significant'].sum())} significant loop of "
+                         f"{len(loops)} over Z/{f} (universal null, Bonferroni, alpha "
+                         f"{result.options.significance:g})")
+    if result.stability is not None:
+        lines.append(f"the dominant loop is significant in {result.stability['dominant']} of "
+                     f"{result.stability['reruns']} resamples")
     return "; ".join(lines)
+
+
+def _verdict(result: PatchesResult) -> dict:
+    """summary.json entries: the test of the bars and the dominant loop's stability."""
+    tested = result.tested
+    verdict = {"significance": {
+        "method": sig.UNIVERSAL_NULL if result.options.method == "rips" else
+        "not tested (the universal null is that of Rips complexes)",
+        "alpha": result.options.significance,
+        "tested": "bars of dimension 1 and up that are born after 0 and die; each field "
+                  "and dimension on its own",
+        "significant": {str(f): {str(d): int(tested[(tested["field"] == f)
+                                                    & (tested["dim"] == d)]
+                                             ["significant"].sum())
+                                 for d in range(1, result.options.max_dimension + 1)}
+                        for f in result.persistence.fields}}}
+    if result.stability is not None:
+        verdict["dominant_loop_stability"] = json_ready(result.stability)
+    return verdict
 
 
 def analyse(images_or_scans, out, options: PatchOptions | None = None, force: bool = False,
@@ -251,7 +348,8 @@ def _summary(cloud, dense, result, options, k_neighbour, seconds) -> dict:
                   "cloud_origin.npy": "source, slice, row, column of each patch",
                   "core.npy": "indices of the dense core in cloud.npy",
                   "landmarks.npy": "indices of the landmarks in cloud.npy",
-                  "pairs.csv": "dim, birth, death, persistence, field"},
+                  "pairs.csv": "dim, birth, death, persistence, field, p_value, "
+                               "significant"},
         "seconds": round(seconds, 3),
         "software": {"voxtopo": __version__, "python": platform.python_version()},
         "cautions": cautions if RESEARCH_CAUTION in cautions else [RESEARCH_CAUTION] + cautions,

@@ -35,6 +35,9 @@ class PoresOptions:
     min_persistence merge pores whose body exceeds their throat by no more than this
                     (default half the finest voxel size)
     engine          persistence engine: "auto", "voxtopo" or "gudhi"
+    boundary_tolerance  how far the segmented boundary may be off, in the scan's unit
+                    (None = one voxel); features living longer than twice it plus a
+                    voxel diagonal are robust
     """
 
     mask: str | None = None
@@ -46,6 +49,7 @@ class PoresOptions:
     neighbourhood: int | None = None
     min_persistence: float | None = None
     engine: str = "auto"
+    boundary_tolerance: float | None = None
 
     def __post_init__(self):
         check(asdict(self), PORES_RULES, "the pores options")
@@ -62,7 +66,7 @@ PORES_RULES = {
     "mask": optional(TEXT), "threshold": optional(THRESHOLD), "pores_bright": BOOLEAN,
     "label": optional(WHOLE), "roi": optional(TEXT), "axis": optional(AXIS),
     "neighbourhood": optional(NEIGHBOURHOOD), "min_persistence": optional(NON_NEGATIVE),
-    "engine": ENGINE,
+    "engine": ENGINE, "boundary_tolerance": optional(NON_NEGATIVE),
 }
 
 #: The settings class of this job, under the name every job uses.
@@ -99,6 +103,7 @@ def run(scan: Scan, options: PoresOptions | None = None, progress=None) -> Pores
                                 pores_bright=options.pores_bright, label=options.label,
                                 roi=roi, axis=axis, neighbourhood=options.neighbourhood,
                                 min_persistence=options.min_persistence, engine=options.engine,
+                                boundary_tolerance=options.boundary_tolerance,
                                 progress=progress)
     return PoresResult(analysis, scan, (options.mask, options.roi))
 

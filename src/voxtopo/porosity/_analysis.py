@@ -11,6 +11,7 @@ import pandas as pd
 from scipy import ndimage
 
 from .. import filtration
+from .. import significance as sig
 from ..diagram import AXES_3D
 from ..engine import construction_of, estimate, persistence
 from ..errors import InputError
@@ -397,6 +398,25 @@ def _phase_table(pairs: pd.DataFrame, depth: np.ndarray, phase: np.ndarray, neig
     return frame.reset_index(drop=True)
 
 
+def _with_robust(table: pd.DataFrame, robust_above: float) -> pd.DataFrame:
+    """``table`` with a column ``robust`` right after ``lifetime``: the feature lives
+    longer than ``robust_above`` (or never dies), so it survives every segmentation whose
+    boundary is off by at most the boundary tolerance (:func:`voxtopo.significance.
+    robust_flags`)."""
+    table = table.copy()
+    lifetime = table["lifetime"].to_numpy(dtype=np.float64)
+    table.insert(table.columns.get_loc("lifetime") + 1, "robust", lifetime > robust_above)
+    return table
+
+
+def _robust_counts(pores, grains, loops, voids) -> dict:
+    """Robust pores and grains, and robust crossing loops and voids (those of the segmented
+    mask itself, as ``counts`` counts them)."""
+    return {"pores": int(pores["robust"].sum()), "grains": int(grains["robust"].sum()),
+            "loops": int((loops["robust"] & (loops["kind"] == "crossing")).sum()),
+            "voids": int((voids["robust"] & (voids["kind"] == "crossing")).sum())}
+
+
 def _rows_of_dimension(diagram, dim: int) -> pd.DataFrame:
     """The pairs of one dimension, keeping their row numbers in ``diagram.pairs``."""
     return diagram.pairs[diagram.pairs["dim"] == dim]
@@ -590,7 +610,7 @@ def _estimate_bytes(shape, neighbourhood, engine) -> int:
 def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=None,
             roi=None, spacing=None, unit=None, axis=None, neighbourhood: int | None = None,
             min_persistence: float | None = None, engine: str = "auto",
-            progress=None) -> PoreAnalysis:
+            boundary_tolerance: float | None = None, progress=None) -> PoreAnalysis:
     """Pore bodies, throats, grains, percolation and integral geometry of a two-phase scan.
 
     Parameters
@@ -627,6 +647,11 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
         it as a persistence cut.
     engine : {"auto", "voxtopo", "gudhi"}
         Persistence engine, as in :func:`voxtopo.persistence`; the diagram is the same.
+    boundary_tolerance : float, optional
+        How far the segmented boundary may be off, in the scan's unit (default one voxel,
+        the largest spacing). A feature living longer than
+        ``2 (boundary_tolerance + h sqrt(d))`` is ``robust``: it survives every such
+        segmentation (:func:`voxtopo.significance.robust_flags`).
     progress : callable(phase, fraction), optional
         Called as work advances; raise voxtopo.Cancelled inside it to stop.
 
@@ -640,7 +665,10 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
         phase holds no other pore and reaches no border of the scan or sample), then
         ``body_voxel_z, body_voxel_y, body_voxel_x``: the voxel indices of the body centre.
         ``grains``: the same for the solid with ``neck`` for ``throat``. ``loops`` and
-        ``voids``: see Notes. ``summary``: porosity, percolation and integral geometry.
+        ``voids``: see Notes. Every table has ``robust`` after ``lifetime``, and
+        ``diagram`` / ``solid_diagram`` a ``robust`` column (see ``boundary_tolerance``).
+        ``summary``: porosity, percolation, integral geometry and ``robustness`` (method,
+        boundary tolerance, threshold, robust counts).
 
     Notes
     -----
@@ -716,6 +744,8 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
     elif not (np.isfinite(min_persistence) and min_persistence >= 0):
         raise InputError(f"min_persistence must be a length >= 0 in {scan.unit}, got "
                          f"{min_persistence}.")
+    delta = sig.boundary_tolerance_of(scan, boundary_tolerance)
+    robust_above = sig.robust_threshold(scan, delta)
     sample = region_of_interest(roi, scan.shape, where)
     mask, segmentation = pore_mask(scan, threshold=threshold, pores_bright=pores_bright,
                                    label=label, sample=sample)
@@ -757,6 +787,8 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
             diagram = _outside_as_never(diagram, outside_level)
             solid_diagram = _outside_as_never(solid_diagram, -outside_level)
             del pore_field, solid_field
+        diagram = sig.robust_flags(diagram, delta)
+        solid_diagram = sig.robust_flags(solid_diagram, delta)
         timings["persistence"] = time.perf_counter() - clock
 
         step("pores and grains", 0.0)
@@ -782,6 +814,8 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
         grains.pop("pair_row")
         loops = _loop_table(diagram, spacing, min_persistence)
         voids = _void_table(solid_diagram, spacing, min_persistence)
+        pores, grains, loops, voids = (_with_robust(table, robust_above)
+                                       for table in (pores, grains, loops, voids))
         del room_in_sample
         timings["features"] = time.perf_counter() - clock
 
@@ -854,7 +888,12 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
                 "loops": int((loops["kind"] == "crossing").sum()),
                 "voids": int((voids["kind"] == "crossing").sum()),
                 "loops_in_filtration": int(len(loops)), "voids_in_filtration": int(len(voids)),
+                "robust": _robust_counts(pores, grains, loops, voids),
             },
+            "robustness": {"method": sig.ROBUST_METHOD, "boundary_tolerance": delta,
+                           "unit": scan.unit, "threshold": robust_above,
+                           "robust": _robust_counts(pores, grains, loops, voids),
+                           "essential_classes": "never die; always robust"},
             "segmentation": segmentation,
             "threshold": segmentation.get("threshold"),
             "threshold_method": segmentation["method"],

@@ -15,7 +15,7 @@ from ._analysis import size_column
 
 #: first columns of pores.csv, in this order; more columns may follow
 PORE_COLUMNS = ["id", "body_radius", "body_z", "body_y", "body_x", "throat_radius",
-                "throat_z", "throat_y", "throat_x", "border", "lifetime"]
+                "throat_z", "throat_y", "throat_x", "border", "lifetime", "robust"]
 
 _PORE_COLOUR = "#2b6f8f"
 _GRAIN_COLOUR = "#b5652a"
@@ -46,10 +46,17 @@ def summary_lines(summary: dict) -> list[str]:
     size = ("voxel size unknown, lengths in px" if unit == "px"
             else f"lengths in {unit}")
     counts = summary["counts"]
-    lines = [f"porosity {summary['porosity']:.4f} {where} ({size}); {counts['pores']} pores "
-             f"living longer than {summary['min_persistence']:.4g} {unit} "
-             f"({counts['pores_at_border']} at the border, {counts['isolated_pores']} "
-             f"isolated); percolates {_percolation_words(summary)}"]
+    robust = summary["robustness"]
+    n = robust["robust"]
+    found = (f"{n['pores']} robust of {counts['pores']} pores, {n['grains']} robust of "
+             f"{counts['grains']} grains, {n['loops']} robust of {counts['loops']} loops, "
+             f"{n['voids']} robust of {counts['voids']} voids (robust: persistence above "
+             f"{robust['threshold']:.4g} {unit}, boundary tolerance "
+             f"{robust['boundary_tolerance']:.4g} {unit}, stability theorem; listed: living "
+             f"longer than {summary['min_persistence']:.4g} {unit})")
+    lines = [f"porosity {summary['porosity']:.4f} {where} ({size}); {found}; of the listed "
+             f"pores {counts['pores_at_border']} at the border, {counts['isolated_pores']} "
+             f"isolated; percolates {_percolation_words(summary)}"]
     return lines + list(summary.get("notes", []))
 
 
@@ -71,11 +78,13 @@ def column_units(table, unit: str, ndim: int) -> dict:
 
 
 def pairs_units(ndim: int, unit: str) -> dict:
-    """Column -> unit of pairs.csv: values in the scan's unit, locations as voxel indices."""
+    """Column -> unit of pairs.csv: values in the scan's unit, locations as voxel indices,
+    ``robust`` a flag."""
     units = {"dim": "", "birth": unit, "death": unit, "persistence": unit}
     for which in ("birth", "death"):
         for axis in AXES_3D[3 - ndim:]:
             units[f"{which}_{axis}"] = "voxel index"
+    units["robust"] = ""
     return units
 
 
@@ -214,12 +223,18 @@ def _diagram_plot(plt, analysis, unit, background, ndim):
         rows = finite[finite["dim"] == dim]
         marker, colour = markers[dim]
         ax.scatter(rows["birth"], rows["death"], s=12, marker=marker, color=colour,
-                   alpha=0.7, label=f"dimension {dim}: {len(rows)} pairs (all pairs)")
+                   alpha=0.7, label=f"dimension {dim}: {len(rows)} pairs (all pairs), "
+                                    f"{int(rows['robust'].sum())} robust")
     essential = pairs[~np.isfinite(pairs["death"])]
     if len(essential):
         ax.scatter(essential["birth"], np.full(len(essential), hi - pad / 2), marker="*",
                    s=60, color="black", label=f"never dies: {len(essential)}")
     ax.plot([lo, hi], [lo, hi], color="0.4", lw=0.8)
+    robust = analysis.summary["robustness"]
+    ax.fill_between([lo, hi], [lo, hi], [lo + robust["threshold"], hi + robust["threshold"]],
+                    color="0.55", alpha=0.25, lw=0, zorder=1,
+                    label=f"not robust: persistence at most {robust['threshold']:.3g} {unit} "
+                          f"(boundary tolerance {robust['boundary_tolerance']:.3g} {unit})")
     # three zones of the signed-distance diagram, each a plain rectangle or triangle named
     # in the legend: a feature that lives in one phase only, or one that spans the wall
     zones = (

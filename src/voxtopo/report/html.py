@@ -261,12 +261,19 @@ def write_report(folder) -> Path:
     return target
 
 
+#: Prefixes of the per-dimension count columns of an analyse scan in a batch's summary.csv,
+#: by what they count: significant or robust features (--min-persistence auto), or the
+#: pairs listed (every pair, those above a number, or untested ones).
+COUNT_PREFIXES = ("significant_dim", "robust_dim", "pairs_dim")
+
+
 def _plot_numeric_columns(summary: pd.DataFrame):
-    """A bar chart of the pair counts of every scan, when the summary has them."""
+    """A bar chart of the per-dimension counts of every scan (significant / robust
+    features, or pairs), when the summary has them."""
     import matplotlib.pyplot as plt
 
 
-    count_columns = [c for c in summary.columns if c.startswith("pairs_dim")]
+    count_columns = [c for c in summary.columns if c.startswith(COUNT_PREFIXES)]
     if summary.empty or not count_columns:
         return None
     figure, ax = plt.subplots(figsize=(max(5.0, 0.35 * len(summary) + 2), 3.6),
@@ -278,7 +285,7 @@ def _plot_numeric_columns(summary: pd.DataFrame):
                color=GROUP_COLOURS[k % len(GROUP_COLOURS)], label=column.replace("_", " "))
     ax.set_xticks(x + 0.4 - width / 2, summary["name"].astype(str).map(literal), rotation=60,
                   ha="right", fontsize=8)
-    ax.set_ylabel("pairs")
+    ax.set_ylabel("count (see what each column counts)")
     ax.legend(frameon=False, fontsize=8)
     for side in ("top", "right"):
         ax.spines[side].set_visible(False)
@@ -307,11 +314,18 @@ def write_batch_report(folder, settings: dict | None = None) -> Path:
     complete = int((summary["status"] == "done").sum()) if "status" in summary else 0
     overview = {"scans in the batch": len(summary), "complete": complete,
                 "failed": len(failures), "folder": folder.name}
+    if "counted" in summary:
+        # the method and level of each scan's counts (the noise level is the scan's own)
+        overview["what the counts per dimension count"] = "; ".join(
+            summary["counted"].dropna().astype(str).unique())
     # The page shows what tells scans apart; summary.csv keeps every column.
     shown = [c for c in summary.columns
              if not c.startswith(("scan_", "analysed_", "timings_")) and c != "message"]
     figure = _plot_numeric_columns(summary)
-    images = ([{"data": _figure_png(figure), "caption": "Pairs per dimension in each scan."}]
+    images = ([{"data": _figure_png(figure),
+                "caption": "Counts per dimension in each scan: significant_dim / robust_dim "
+                           "count the features that passed the test, pairs_dim every pair "
+                           "listed (see what the counts count above)."}]
               if figure is not None else [])
     html = render("batch.html", title=f"Batch {folder.name}",
                   subtitle="Many scans, one set of settings", overview=overview,

@@ -5,6 +5,10 @@ centres the view on them; selecting points in the viewer rings them in the diagr
 lifetime slider hides every feature that lives less than the chosen persistence, in the
 layers (``Points.shown``) and in the diagram at once.
 
+A result whose pairs were tested (a ``significant`` or ``robust`` column) shows only the
+pairs that passed, with the threshold drawn as a band along the diagonal (pairs inside
+the band live too briefly to pass); the "show all pairs" switch shows the others too.
+
 The panel reads everything from the layers' ``features`` tables and metadata, so it works
 the same for a fresh run and for a result folder opened with the reader.
 """
@@ -14,10 +18,11 @@ from __future__ import annotations
 import numpy as np
 from matplotlib.backends.backend_qtagg import FigureCanvasQTAgg
 from matplotlib.figure import Figure
+from matplotlib.patches import Rectangle
 from matplotlib.path import Path as PolygonPath
 from matplotlib.widgets import LassoSelector
 from qtpy.QtCore import Qt
-from qtpy.QtWidgets import (QComboBox, QDoubleSpinBox, QHBoxLayout, QLabel, QSlider,
+from qtpy.QtWidgets import (QCheckBox, QComboBox, QDoubleSpinBox, QHBoxLayout, QLabel, QSlider,
                             QVBoxLayout, QWidget)
 
 from voxtopo.report import literal
@@ -32,6 +37,19 @@ DIM_MARKERS = ("o", "^", "s")
 SLIDER_STEPS = 1000
 #: A click selects the nearest point within this many screen pixels.
 CLICK_RADIUS_PX = 8.0
+#: Columns of a tested result that say which pairs are features.
+FLAG_COLUMNS = ("significant", "robust")
+BAND_COLOUR = "#c9a227"
+
+
+def passing(table) -> np.ndarray:
+    """Which rows of a features table passed the test; all of them when the table has no
+    flag column or a row was not tested (empty flag)."""
+    for flag in FLAG_COLUMNS:
+        if flag in table.columns:
+            column = table[flag]
+            return np.asarray(column.astype("boolean").fillna(True), dtype=bool)
+    return np.ones(len(table), dtype=bool)
 
 
 def results_in_viewer(viewer) -> list[str]:
@@ -54,6 +72,7 @@ class DiagramPanel(QWidget):
         self.birth_layers = {}   # dim -> Points layer
         self.death_layers = {}   # dim -> Points layer
         self.min_persistence = 0.0
+        self.show_all = False
         self.highlighted = set()  # feature ids ringed in the diagram
         self._longest = 1.0
         self._points = {}        # dim -> dict of arrays (feature, birth, death_y, persistence)
@@ -88,6 +107,10 @@ class DiagramPanel(QWidget):
         self.lifetime_box.setRange(0.0, 1e12)
         self.lifetime_box.setToolTip("Shortest lifetime (persistence) still shown.")
         self.lifetime_box.valueChanged.connect(self.set_min_persistence)
+        self.show_all_check = QCheckBox("show all pairs")
+        self.show_all_check.setToolTip("Also show the pairs that are not significant (gray "
+                                       "values) or not robust (distance transform).")
+        self.show_all_check.toggled.connect(self.set_show_all)
         self.count_label = QLabel("")
 
         row = QHBoxLayout()
@@ -98,6 +121,7 @@ class DiagramPanel(QWidget):
         layout.addWidget(self.result_choice)
         layout.addWidget(self.canvas, 1)
         layout.addLayout(row)
+        layout.addWidget(self.show_all_check)
         layout.addWidget(self.count_label)
 
         self.viewer.layers.events.inserted.connect(self._refresh_choices)
@@ -156,6 +180,7 @@ class DiagramPanel(QWidget):
                 "birth": table["birth"].to_numpy(dtype=np.float64),
                 "death": table["death"].to_numpy(dtype=np.float64),
                 "persistence": table["persistence"].to_numpy(dtype=np.float64),
+                "passes": passing(table),
             }
         self.slider.blockSignals(True)
         self.slider.setValue(0)
@@ -163,7 +188,9 @@ class DiagramPanel(QWidget):
         self.lifetime_box.blockSignals(True)
         self.lifetime_box.setValue(0.0)
         self.lifetime_box.blockSignals(False)
-        self.set_min_persistence(0.0)
+        self.min_persistence = 0.0
+        # a run that listed every pair above a number starts with all of them shown
+        self.set_show_all(bool(self._meta().get("show_all", False)))
 
     # drawing ----------------------------------------------------------------------------
     def _meta(self):
@@ -211,12 +238,13 @@ class DiagramPanel(QWidget):
         _, never = self._plotted_death(np.zeros(0), superlevel)
         ax.plot([lo - margin, hi + margin], [lo - margin, hi + margin], color="#8a969e",
                 lw=0.8, zorder=1)
+        self._draw_band(lo - margin, hi + margin, superlevel)
         ax.axhline(never, color="#8a969e", lw=0.8, ls="--", zorder=1)
         ax.text(lo - margin, never, " never dies", va="bottom", ha="left", fontsize=7,
                 color="#5b6770")
         shown_total = 0
         for dim, points in sorted(self._points.items()):
-            visible = points["persistence"] >= self.min_persistence
+            visible = self._shown(points["persistence"], points["passes"])
             shown_total += int(visible.sum())
             death_y, _ = self._plotted_death(points["death"], superlevel)
             colours = lifetime_colours(lifetime_fraction(points["persistence"][visible],
@@ -236,14 +264,57 @@ class DiagramPanel(QWidget):
         legend = ax.legend(loc="lower right" if not superlevel else "upper right",
                            fontsize=7, framealpha=0.8)
         for handle in legend.legend_handles:
-            handle.set_facecolor("#8a969e")
+            if not isinstance(handle, Rectangle):  # the band keeps its own colour
+                handle.set_facecolor("#8a969e")
         ax.set_xlim(lo - margin, hi + margin)
         ax.set_ylim(lo - 2 * margin, hi + 2 * margin)
         self._draw_legend(unit if values == "distance" else "")
         self._draw_rings()
         total = sum(len(p["feature"]) for p in self._points.values())
-        self.count_label.setText(f"{shown_total} of {total} features shown")
+        self.count_label.setText(f"{shown_total} of {total} pairs shown: {self._shown_what()}")
         self.canvas.draw_idle()
+
+    def _flag(self) -> str | None:
+        """"significant" or "robust" when the result's pairs were tested."""
+        meta = self._meta()
+        if meta.get("flag"):
+            return meta["flag"]
+        for layer in self.birth_layers.values():
+            return next((f for f in FLAG_COLUMNS if f in layer.features.columns), None)
+        return None
+
+    def _shown_what(self) -> str:
+        """What the shown pairs are, in the words of the count beside them."""
+        flag = None if self.show_all else self._flag()
+        which = f"{flag} features" if flag else "all pairs"
+        return which + (f" with persistence at least {self.min_persistence:g}"
+                        if self.min_persistence > 0 else "")
+
+    def _draw_band(self, low, high, superlevel):
+        """The threshold of each dimension as a band along the diagonal: a pair inside it
+        lives too briefly to pass."""
+        thresholds = {int(d): float(t) for d, t in (self._meta().get("thresholds") or {}).items()
+                      if np.isfinite(t)}
+        flag = self._flag() or "significant"
+        x = np.array([low, high])
+        for value in sorted(set(thresholds.values())):
+            dims = ", ".join(str(d) for d, t in sorted(thresholds.items()) if t == value)
+            edge = x - value if superlevel else x + value
+            self.axes.fill_between(x, x, edge, color=BAND_COLOUR, alpha=0.18, lw=0,
+                                   zorder=2, label=f"not {flag} (dim {dims})")
+
+    def _shown(self, persistence, passes) -> np.ndarray:
+        """Pairs drawn: long enough for the slider, and passing unless all are asked for."""
+        return (persistence >= self.min_persistence) & (passes | self.show_all)
+
+    def set_show_all(self, show_all: bool) -> None:
+        """Show every pair (True) or only the significant / robust ones (False)."""
+        self.show_all = bool(show_all)
+        if self.show_all_check.isChecked() != self.show_all:
+            self.show_all_check.blockSignals(True)
+            self.show_all_check.setChecked(self.show_all)
+            self.show_all_check.blockSignals(False)
+        self.set_min_persistence(self.min_persistence)
 
     def _draw_legend(self, unit):
         ramp = np.linspace(0, 1, 256)[None, :]
@@ -259,8 +330,8 @@ class DiagramPanel(QWidget):
         if self._rings is not None:
             self._rings.remove()
             self._rings = None
-        xy = [p["xy"][np.isin(p["feature"], list(self.highlighted))
-                      & (p["persistence"] >= self.min_persistence)]
+        xy = [p["xy"][self._shown(p["persistence"], p["passes"])
+                      & np.isin(p["feature"], list(self.highlighted))]
               for p in self._points.values() if "xy" in p]
         xy = np.concatenate(xy) if xy else np.zeros((0, 2))
         if len(xy):
@@ -285,7 +356,7 @@ class DiagramPanel(QWidget):
         self.slider.blockSignals(False)
         for layer in list(self.birth_layers.values()) + list(self.death_layers.values()):
             persistence = layer.features["persistence"].to_numpy(dtype=np.float64)
-            shown = persistence >= self.min_persistence
+            shown = self._shown(persistence, passing(layer.features))
             layer.shown = shown
             hidden_selected = {i for i in layer.selected_data if not shown[i]}
             if hidden_selected:

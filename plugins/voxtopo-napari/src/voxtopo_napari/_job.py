@@ -2,8 +2,10 @@
 
 The widget turns its controls into an :class:`AnalysisOptions` and a Scan, then calls
 :func:`run_analysis`; everything here is ordinary voxtopo: ``jobs.analyse.run`` (smoothing,
-threshold, distance transform), ``voxtopo.persistence`` and, for a distance transform, the
-pore regions. With porosity, the pore job of the library (:func:`voxtopo.porosity.analyse`)
+threshold, distance transform, persistence and the verdict on every pair: significant for a
+gray-value sweep, robust for a distance sweep) and, for a distance transform, the pore
+regions. The layers hold every tested pair with its flag, so the diagram panel can show the
+features by default and all pairs on request. With porosity, the pore job of the library (:func:`voxtopo.porosity.analyse`)
 does the segmentation, the diagram, the pore table and the regions, exactly as
 ``voxtopo pores`` does, and its pores are tied to the diagram by their ids. Nothing touches
 a viewer, so nothing is half-made when the work is cancelled.
@@ -21,7 +23,7 @@ import voxtopo
 from voxtopo import porosity
 from voxtopo.errors import InputError
 from voxtopo.jobs import analyse
-from voxtopo.jobs.analyse import AnalysisOptions, prepare, write_result
+from voxtopo.jobs.analyse import AUTO, AnalysisOptions, prepare
 from voxtopo.scan import Scan
 
 from ._layers import Placement, placement_of, result_layers
@@ -45,15 +47,23 @@ class AnalysisResult:
     notes: dict = field(default_factory=dict)
     timings: dict = field(default_factory=dict)
     pore_analysis: object | None = None
+    job: analyse.AnalysisResult | None = None
+
+    def describe(self) -> str:
+        """What was found, in the words of the command: ``jobs.analyse.describe`` (N
+        significant / robust of M pairs, method and level) or the pore job's lines."""
+        if self.pore_analysis is not None:
+            return " ".join(line[0].upper() + line[1:] + ("" if line.endswith(".") else ".")
+                            for line in porosity.summary_lines(self.porosity))
+        return analyse.describe(self.job)
 
     def export(self, out, force: bool = False):
         """Write this result as a voxtopo result folder: the files of ``voxtopo pores`` for
-        a pore analysis, of ``voxtopo analyse`` otherwise."""
+        a pore analysis, of ``voxtopo analyse`` otherwise (``jobs.analyse.write``: p_value
+        and significant, or robust, in pairs.csv)."""
         if self.pore_analysis is not None:
             return porosity.write_pores(out, self.pore_analysis, self.scan, force=force)
-        return write_result(out, self.scan, self.diagram, self.options,
-                            prepared=self.prepared, timings=self.timings, notes=self.notes,
-                            force=force)
+        return analyse.write(self.job, out, force)
 
 
 def scan_from_layer_data(data, *, name: str, spacing, unit: str, source: str = "",
@@ -88,7 +98,9 @@ def _pore_analysis(scan: Scan, options: AnalysisOptions, progress):
         threshold, pores_bright = None, False
     return porosity.analyse(gray, threshold=threshold, pores_bright=pores_bright,
                             neighbourhood=options.neighbourhood,
-                            min_persistence=options.min_persistence, engine=options.engine,
+                            min_persistence=(None if options.min_persistence == AUTO
+                                             else options.min_persistence),
+                            engine=options.engine,
                             progress=progress)
 
 
@@ -137,6 +149,7 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
 
     timings = {}
     analysis, porosity_summary, pore_details, regions, shown_rows = None, None, None, None, None
+    computed, flag, thresholds = None, None, None
     if with_porosity and options.distance:
         start = time.perf_counter()
         analysis = _pore_analysis(scan, options, progress)
@@ -144,6 +157,9 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
         porosity_summary = analysis.summary
         pore_details = _pore_details(analysis)
         shown_rows = {0: analysis.pore_rows}
+        flag = "robust"
+        thresholds = {d: porosity_summary["robustness"]["threshold"]
+                      for d in range(diagram.ndim)}
         timings["porosity"] = time.perf_counter() - start
         if with_regions:
             start = time.perf_counter()
@@ -154,6 +170,8 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
         computed = analyse.run(scan, options, progress)
         prepared, diagram, notes = computed.prepared, computed.diagram, computed.notes
         timings.update(computed.timings)
+        if computed.verdict.tested_any:
+            flag, thresholds = computed.verdict.flag, computed.verdict.thresholds
 
         if with_regions and prepared.values == "distance":
             start = time.perf_counter()
@@ -167,10 +185,14 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
     report("building the layers", 0.0)
     placement = placement_of(scan.shape, scan.spacing, scan.unit, crop=options.crop,
                              downsample=options.downsample, translate=translate)
-    layers = result_layers(diagram, placement, name, mark_deaths=mark_deaths, regions=regions,
-                           pore_details=pore_details, shown_rows=shown_rows)
+    # every tested pair becomes a point, so the panel's switch can show all of them
+    shown = computed.verdict.tested if computed is not None else diagram
+    layers = result_layers(shown, placement, name, mark_deaths=mark_deaths, regions=regions,
+                           pore_details=pore_details, shown_rows=shown_rows, flag=flag,
+                           thresholds=thresholds,
+                           show_all=options.min_persistence != AUTO)
     report("building the layers", 1.0)
     return AnalysisResult(name=name, scan=scan, prepared=prepared, options=options,
                           diagram=diagram, placement=placement, layers=layers,
                           regions=regions, porosity=porosity_summary, notes=notes,
-                          timings=timings, pore_analysis=analysis)
+                          timings=timings, pore_analysis=analysis, job=computed)

@@ -102,7 +102,7 @@ def features_table(diagram, dim: int, placement: Placement) -> pd.DataFrame:
 
 
 def _points(diagram, dim, which, placement, longest, result_name, pore_details=None,
-            rows=None):
+            rows=None, flag=None, thresholds=None, show_all=False):
     axes = AXES_3D[3 - diagram.ndim:]
     table = features_table(diagram, dim, placement)
     if rows is not None:
@@ -136,14 +136,17 @@ def _points(diagram, dim, which, placement, longest, result_name, pore_details=N
         "metadata": {METADATA_KEY: {"result": result_name, "dim": dim, "which": which,
                                     "unit": placement.unit, "values": diagram.values,
                                     "superlevel": diagram.superlevel,
-                                    "longest": longest}},
+                                    "longest": longest, "flag": flag,
+                                    "thresholds": dict(thresholds or {}),
+                                    "show_all": show_all}},
     }
     return coords.reshape(-1, diagram.ndim), kwargs, "points"
 
 
 def result_layers(diagram, placement: Placement, result_name: str, *,
                   mark_deaths: bool = False, regions=None, pore_details=None,
-                  shown_rows=None) -> list[tuple]:
+                  shown_rows=None, flag: str | None = None,
+                  thresholds: dict | None = None, show_all: bool = False) -> list[tuple]:
     """Layer-data tuples for one result: births per dimension, deaths on request, and
     the pore regions when given (an int array on the analysed grid: k + 1 = pore k of the
     diagram, or the pore's id for a pore analysis).
@@ -152,12 +155,16 @@ def result_layers(diagram, placement: Placement, result_name: str, *,
     table keyed by diagram row) is joined to the features of dimension 0.
     ``shown_rows`` (dim -> diagram rows) keeps only those features of a dimension, e.g.
     the pores of the pore table.
+    ``flag`` names the column ("significant" or "robust") that says which pairs are
+    features, and ``thresholds`` (dim -> persistence) the level it was decided at; the
+    diagram panel shows the flagged pairs and draws the thresholds as a band; with
+    ``show_all`` (the user listed every pair above a number) it starts showing all.
     """
     longest = longest_finite(diagram.pairs["persistence"])
     which = ["birth", "death"] if mark_deaths else ["birth"]
     shown_rows = shown_rows or {}
     layers = [_points(diagram, dim, end, placement, longest, result_name, pore_details,
-                      shown_rows.get(dim))
+                      shown_rows.get(dim), flag, thresholds, show_all)
               for end in which for dim in range(diagram.ndim)]
     if regions is not None:
         layers.append((regions, {

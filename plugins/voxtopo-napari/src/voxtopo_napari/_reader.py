@@ -5,6 +5,8 @@ panel's export) becomes one Points layer per dimension at the birth voxels and o
 death voxels. When the scan named in ``summary.json`` is still where it was, it is opened
 below them with its voxel size, and for a distance transform the pore regions are
 recomputed from it; otherwise the features come alone, placed by the stored voxel size.
+The layers carry the folder's test (significant or robust, and its thresholds) so that
+the diagram panel draws the band as it does for a fresh run.
 
 A folder of ``voxtopo pores`` (it holds ``pores.csv``) becomes Points layers of its pores,
 grains, loops and voids at their positions, each with its table as ``features``.
@@ -22,7 +24,7 @@ from voxtopo import porosity
 from voxtopo.diagram import Diagram
 from voxtopo.errors import InputError
 from voxtopo.io.results import read_summary
-from voxtopo.jobs.analyse import AnalysisOptions, prepare
+from voxtopo.jobs.analyse import AUTO, AnalysisOptions, prepare
 
 from ._layers import METADATA_KEY, placement_of, result_layers
 
@@ -137,5 +139,18 @@ def read_result_folder(path) -> list[tuple]:
             axes = ("birth_z", "birth_y", "birth_x")[3 - diagram.ndim:]
             regions = porosity.pore_regions(prepared.data, pores[list(axes)].to_numpy(dtype=np.int64),
                                    pores["death"].to_numpy(), diagram.neighbourhood)
+    flag, thresholds = _verdict(summary)
     return layers + result_layers(diagram, placement, folder.name, mark_deaths=True,
-                                  regions=regions)
+                                  regions=regions, flag=flag, thresholds=thresholds,
+                                  show_all=options.min_persistence != AUTO)
+
+
+def _verdict(summary: dict) -> tuple[str | None, dict]:
+    """The flag column ("significant" / "robust") and the threshold per dimension of an
+    analyse folder whose pairs were tested; (None, {}) otherwise."""
+    for key, flag in (("significance", "significant"), ("robustness", "robust")):
+        thresholds = (summary.get(key) or {}).get("threshold") or {}
+        found = {int(d): float(t) for d, t in thresholds.items() if t is not None}
+        if found:
+            return flag, found
+    return None, {}

@@ -21,9 +21,8 @@ from qtpy.QtWidgets import (QCheckBox, QComboBox, QDoubleSpinBox, QFileDialog, Q
                             QHBoxLayout, QLabel, QProgressBar, QPushButton, QVBoxLayout,
                             QWidget)
 
-from voxtopo import porosity
 from voxtopo.errors import Cancelled, InputError, VoxtopoError
-from voxtopo.jobs.analyse import AnalysisOptions
+from voxtopo.jobs.analyse import AUTO, AnalysisOptions
 
 from ._diagram_panel import DiagramPanel
 from ._job import run_analysis, scan_from_layer_data
@@ -42,6 +41,9 @@ NEIGHBOURHOODS = {
     3: {"26: voxels touching at a corner join": 26, "6: only voxels sharing a face join": 6},
 }
 PORE_PHASES = {"dark voxels / label 0": False, "bright voxels / labelled voxels": True}
+#: The min persistence box's lowest value, shown as "auto" (--min-persistence auto): keep
+#: the significant pairs of a gray-value sweep, the robust ones of a distance sweep.
+AUTO_BOX_VALUE = -1.0
 
 
 def layer_unit(layer) -> str:
@@ -102,10 +104,15 @@ class AnalysisWidget(QWidget):
                                   "physical unit (0 = none).")
         self.min_persistence_box = QDoubleSpinBox()
         self.min_persistence_box.setDecimals(4)
-        self.min_persistence_box.setRange(0.0, 1e12)
-        self.min_persistence_box.setToolTip("The shortest lifetime kept (as --min-persistence "
-                                            "of the voxtopo command): only features that "
-                                            "live longer than this.")
+        self.min_persistence_box.setRange(AUTO_BOX_VALUE, 1e12)
+        self.min_persistence_box.setSpecialValueText(AUTO)
+        self.min_persistence_box.setValue(AUTO_BOX_VALUE)
+        self.min_persistence_box.setToolTip(
+            "The shortest lifetime kept (as --min-persistence of the voxtopo command). "
+            "auto: the significant features (gray values: family-wise test against the "
+            "scan's own noise) or the robust ones (distance transform: stable under a "
+            "boundary moved by one voxel); a number: every pair living longer than it "
+            "(0 = all pairs).")
         self.deaths_check = QCheckBox("also mark where features end")
         self.deaths_check.setToolTip("Adds a second layer per dimension at the voxels where "
                                      "the features die.")
@@ -226,8 +233,13 @@ class AnalysisWidget(QWidget):
             distance=distance,
             threshold="otsu" if distance and not is_labels else None,
             pores_bright=pores_bright and distance and not is_labels,
-            min_persistence=self.min_persistence_box.value(),
+            min_persistence=self.min_persistence(),
         )
+
+    def min_persistence(self) -> float | str:
+        """The min persistence box as --min-persistence: "auto" or a number."""
+        value = self.min_persistence_box.value()
+        return AUTO if value <= AUTO_BOX_VALUE else max(value, 0.0)
 
     # running ----------------------------------------------------------------------------
     @property
@@ -301,19 +313,8 @@ class AnalysisWidget(QWidget):
             self.viewer.add_layer(layer)
         self.result = result
         self.export_button.setEnabled(True)
-        if result.porosity is not None:
-            # the pore job's own lines: the same counts and words as `voxtopo pores`
-            found = " ".join(line[0].upper() + line[1:] + ("" if line.endswith(".") else ".")
-                             for line in porosity.summary_lines(result.porosity))
-        else:
-            counts = result.diagram.counts()
-            names = [kwargs["name"].split(" · ")[0] for _, kwargs, t in result.layers
-                     if t == "points" and kwargs["metadata"][METADATA_KEY]["which"] == "birth"]
-            found = ("Found " + ", ".join(f"{counts[d]} {names[d]}"
-                                          for d in range(result.diagram.ndim))
-                     + f" (all pairs with persistence above "
-                       f"{result.options.min_persistence:g}).")
-        self.status.setText(found)
+        # the job's own line: the same counts and words as `voxtopo analyse` / `pores`
+        self.status.setText(result.describe())
         self._show_diagram(result.name)
 
     def _on_error(self, error) -> None:
