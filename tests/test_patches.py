@@ -274,13 +274,22 @@ def test_natural_photographs_show_the_primary_circle(name, min_ratio):
 
 # --- result folder and command line -------------------------------------------------------
 
+@pytest.mark.parametrize("option", [["--significance", "1.5"], ["--resamples", "-1"]])
+def test_patch_test_settings_out_of_range_are_one_sentence(tmp_path, capsys, option):
+    image = tmp_path / "gravel.npy"
+    np.save(image, data.gravel()[:64, :64])
+    assert main(["patches", str(image), "--out", str(tmp_path / "x"), *option]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and option[0][2:] in err and not (tmp_path / "x").exists()
+
+
 def test_voxtopo_patches_writes_a_complete_folder(tmp_path):
     image = tmp_path / "gravel.npy"
     np.save(image, data.gravel())
     before = image.read_bytes()
     out = tmp_path / "gravel"
     assert main(["patches", str(image), "--out", str(out), "--field", "2,3",
-                 "--positions", "12000"]) == 0
+                 "--positions", "12000", "--resamples", "0"]) == 0
     assert image.read_bytes() == before
     names = {p.name for p in out.iterdir()}
     assert {"cloud.npy", "cloud.json", "pairs.csv", "summary.json", "barcode.png",

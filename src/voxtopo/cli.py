@@ -500,6 +500,16 @@ def _add_patches(subparsers) -> None:
                    help="Rips complex of the landmarks or the witness complex")
     t.add_argument("--max-dimension", type=int, choices=[0, 1, 2],
                    default=defaults.max_dimension, help="highest homology dimension")
+    v = p.add_argument_group("which bars are real")
+    v.add_argument("--significance", type=float, default=defaults.significance,
+                   metavar="ALPHA",
+                   help=f"level of the test of every Rips bar under the universal null "
+                        f"distribution (Bonferroni over the bars of a dimension; default "
+                        f"{defaults.significance:g})")
+    v.add_argument("--resamples", type=int, default=defaults.resamples, metavar="N",
+                   help=f"rerun the sampling with N other seeds and count in how many the "
+                        f"longest loop is again the dominant one (default {defaults.resamples}; "
+                        f"0 = none)")
     add_load_options(p)
     p.set_defaults(handler=_run_patches)
 
@@ -512,7 +522,8 @@ def _run_patches(args) -> int:
         seed=args.seed, log=args.log, axis=args.axis, slices=args.slices,
         k_neighbour=args.k_neighbour, density_percent=args.density_percent,
         landmarks=args.landmarks, fields=args.field, max_edge=args.max_edge,
-        method=args.method, max_dimension=args.max_dimension)
+        method=args.method, max_dimension=args.max_dimension,
+        significance=args.significance, resamples=args.resamples)
     load_options = load_options_from(args)
     return _run_job("patches", args, options,
                     lambda: [load(path, **load_options) for path in args.images], args.images)
