@@ -10,21 +10,18 @@ the score layer, shows that signal's trace and its H1 barcode below the table.
 
 from __future__ import annotations
 
-import threading
-
 import numpy as np
 from napari.layers import Image, Labels
-from napari.qt.threading import create_worker
-from napari.utils.notifications import show_error
-from qtpy.QtCore import QObject, Signal
 from qtpy.QtWidgets import (QAbstractItemView, QComboBox, QDoubleSpinBox, QFormLayout,
                             QHBoxLayout, QLabel, QProgressBar, QPushButton, QSpinBox,
                             QTableWidget, QTableWidgetItem, QVBoxLayout, QWidget)
 
-from voxtopo.errors import Cancelled, InputError, VoxtopoError
+from voxtopo.errors import InputError, VoxtopoError
 from voxtopo.jobs.periodicity import PeriodicityOptions, run
 from voxtopo.periodicity import detrend, normalise, rips_bars, sliding_windows
 from voxtopo.scan import FRAME, TimeLapse
+
+from ._background import BackgroundRun
 
 __all__ = ["SIGNALS", "TABLE_COLUMNS", "RhythmWidget"]
 
@@ -36,25 +33,17 @@ SIGNALS = {"every pixel (or bin of pixels)": "pixel", "tiles of the frame": "til
 TABLE_COLUMNS = ("region", "y", "x", "score", "period", "p_value", "significant")
 
 
-class _ProgressRelay(QObject):
-    """Carries progress from the worker thread to the panel (queued across threads)."""
-
-    changed = Signal(str, float)
-
-
-class RhythmWidget(QWidget):
+class RhythmWidget(BackgroundRun, QWidget):
     """Dock panel measuring rhythms in a time-lapse image layer (t, y, x) or (t, z, y, x)."""
+
+    WORK = "The rhythm search"
 
     def __init__(self, napari_viewer, parent=None):
         super().__init__(parent)
         self.viewer = napari_viewer
         self.result = None
-        self.worker = None
-        self.last_error = None
         self.shown_row = None
-        self._cancel = threading.Event()
-        self._relay = _ProgressRelay()
-        self._relay.changed.connect(self._show_progress)
+        self._init_background()
 
         self.layer_choice = QComboBox()
         self.layer_choice.setToolTip("The time-lapse: an image layer whose first axis is time.")
@@ -185,10 +174,6 @@ class RhythmWidget(QWidget):
                          source=f"napari layer {name}")
 
     # running ------------------------------------------------------------------------------
-    @property
-    def running(self) -> bool:
-        return self.worker is not None
-
     def run(self) -> None:
         """Measure the rhythms of the chosen layer in a worker thread."""
         if self.running:
@@ -198,34 +183,8 @@ class RhythmWidget(QWidget):
         except VoxtopoError as error:
             self._fail(str(error))
             return
-        self._cancel.clear()
-        self.last_error = None
         self._source = self.layer_choice.currentText()
-        self.worker = create_worker(
-            run, lapse, options, progress=self._progress, _start_thread=False,
-            _connect={"returned": self._on_done, "errored": self._on_error,
-                      "finished": self._on_finished})
-        self.run_button.setEnabled(False)
-        self.cancel_button.setEnabled(True)
-        self.progress_bar.setValue(0)
-        self.status.setText(f"Measuring rhythms in {self._source} …")
-        self.worker.start()
-
-    def _progress(self, phase: str, fraction: float) -> None:
-        if self._cancel.is_set():
-            raise Cancelled(f"The rhythm search was cancelled during {phase}.")
-        self._relay.changed.emit(phase, float(fraction))
-
-    def _show_progress(self, phase: str, fraction: float) -> None:
-        if self.running:
-            self.progress_bar.setValue(round(1000 * min(max(fraction, 0.0), 1.0)))
-            self.status.setText(f"{phase} …")
-
-    def cancel(self) -> None:
-        """Stop the running search at its next progress report; nothing is added."""
-        if self.running:
-            self._cancel.set()
-            self.status.setText("Cancelling …")
+        self._start(run, lapse, options, working=f"Measuring rhythms in {self._source} …")
 
     def _on_done(self, result) -> None:
         if self._cancel.is_set():
@@ -248,27 +207,6 @@ class RhythmWidget(QWidget):
         self.score_layer, self.period_layer = score, period
         self._fill_table(table)
         self.status.setText(result.counts["statement"] + ".")
-
-    def _on_error(self, error) -> None:
-        self.last_error = error
-        if isinstance(error, Cancelled):
-            self.status.setText("Cancelled; nothing was added.")
-        elif isinstance(error, VoxtopoError):
-            self._fail(str(error))
-        else:
-            self._fail(f"The rhythm search failed: {error}")
-
-    def _on_finished(self) -> None:
-        if self._cancel.is_set() and self.last_error is None:
-            self.status.setText("Cancelled; nothing was added.")
-        self.worker = None
-        self.run_button.setEnabled(True)
-        self.cancel_button.setEnabled(False)
-        self.progress_bar.setValue(0 if self._cancel.is_set() else 1000)
-
-    def _fail(self, message: str) -> None:
-        self.status.setText(message)
-        show_error(message)
 
     # table and the signal view ------------------------------------------------------------
     def _fill_table(self, table) -> None:

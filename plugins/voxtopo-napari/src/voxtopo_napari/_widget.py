@@ -10,20 +10,18 @@ during its computation takes effect when that step returns.)
 
 from __future__ import annotations
 
-import threading
 from pathlib import Path
 
 from napari.layers import Image, Labels, Layer
-from napari.qt.threading import create_worker
-from napari.utils.notifications import show_error, show_info
-from qtpy.QtCore import QObject, Signal
+from napari.utils.notifications import show_info
 from qtpy.QtWidgets import (QCheckBox, QComboBox, QDoubleSpinBox, QFileDialog, QFormLayout,
                             QHBoxLayout, QLabel, QProgressBar, QPushButton, QVBoxLayout,
                             QWidget)
 
-from voxtopo.errors import Cancelled, InputError, VoxtopoError
+from voxtopo.errors import InputError, VoxtopoError
 from voxtopo.jobs.analyse import AUTO, AnalysisOptions
 
+from ._background import BackgroundRun
 from ._diagram_panel import DiagramPanel
 from ._job import run_analysis, scan_from_layer_data
 from ._layers import METADATA_KEY
@@ -57,26 +55,18 @@ def layer_unit(layer) -> str:
     return "px" if text in ("pixel", "px", "") else text
 
 
-class _ProgressRelay(QObject):
-    """Carries progress from the worker thread to the panel (queued across threads)."""
-
-    changed = Signal(str, float)
-
-
-class AnalysisWidget(QWidget):
+class AnalysisWidget(BackgroundRun, QWidget):
     """Dock panel running voxtopo on an image or labels layer."""
+
+    WORK = "The analysis"
 
     def __init__(self, napari_viewer, parent=None):
         super().__init__(parent)
         self.viewer = napari_viewer
         self.result = None
-        self.worker = None
         self.diagram_panel = None
-        self.last_error = None
-        self._cancel = threading.Event()
         self._runs = 0
-        self._relay = _ProgressRelay()
-        self._relay.changed.connect(self._show_progress)
+        self._init_background()
 
         self.layer_choice = QComboBox()
         self.layer_choice.setToolTip("The image (gray values) or labels (mask) layer to "
@@ -242,10 +232,6 @@ class AnalysisWidget(QWidget):
         return AUTO if value <= AUTO_BOX_VALUE else max(value, 0.0)
 
     # running ----------------------------------------------------------------------------
-    @property
-    def running(self) -> bool:
-        return self.worker is not None
-
     def run(self) -> None:
         """Start the analysis of the chosen layer in a worker thread."""
         if self.running:
@@ -270,38 +256,10 @@ class AnalysisWidget(QWidget):
         self._runs += 1
         name = f"{layer.name} #{self._runs}"
         translate = tuple(float(t) for t in layer.translate)[-scan.ndim:]
-        self._cancel.clear()
-        self.last_error = None
-        self.worker = create_worker(
-            run_analysis, scan, options, name=name, translate=translate,
-            mark_deaths=self.deaths_check.isChecked(),
-            with_porosity=self.porosity_check.isChecked(), progress=self._progress,
-            _start_thread=False,
-            _connect={"returned": self._on_done, "errored": self._on_error,
-                      "finished": self._on_finished})
-        self.run_button.setEnabled(False)
-        self.cancel_button.setEnabled(True)
-        self.progress_bar.setValue(0)
-        self.status.setText(f"Analysing {layer.name} …")
-        self.worker.start()
-
-    def _progress(self, phase: str, fraction: float) -> None:
-        # runs in the worker thread: only the signal and the flag are touched here
-        if self._cancel.is_set():
-            raise Cancelled(f"The analysis was cancelled during {phase}.")
-        self._relay.changed.emit(phase, float(fraction))
-
-    def _show_progress(self, phase: str, fraction: float) -> None:
-        if self.running:
-            self.progress_bar.setValue(int(round(1000 * min(max(fraction, 0.0), 1.0))))
-            self.status.setText(f"{phase} …")
-
-    def cancel(self) -> None:
-        """Ask the running analysis to stop; it stops at its next progress report."""
-        if self.running:
-            self._cancel.set()
-            self.worker.quit()
-            self.status.setText("Cancelling …")
+        self._start(run_analysis, scan, options, name=name, translate=translate,
+                    mark_deaths=self.deaths_check.isChecked(),
+                    with_porosity=self.porosity_check.isChecked(),
+                    working=f"Analysing {layer.name} …")
 
     def _on_done(self, result) -> None:
         if self._cancel.is_set():
@@ -316,27 +274,6 @@ class AnalysisWidget(QWidget):
         # the job's own line: the same counts and words as `voxtopo analyse` / `pores`
         self.status.setText(result.describe())
         self._show_diagram(result.name)
-
-    def _on_error(self, error) -> None:
-        self.last_error = error
-        if isinstance(error, Cancelled):
-            self.status.setText("Cancelled; nothing was added.")
-        elif isinstance(error, VoxtopoError):
-            self._fail(str(error))
-        else:
-            self._fail(f"The analysis failed: {error}")
-
-    def _on_finished(self) -> None:
-        if self._cancel.is_set() and self.last_error is None:
-            self.status.setText("Cancelled; nothing was added.")
-        self.worker = None
-        self.run_button.setEnabled(True)
-        self.cancel_button.setEnabled(False)
-        self.progress_bar.setValue(0 if self._cancel.is_set() else 1000)
-
-    def _fail(self, message: str) -> None:
-        self.status.setText(message)
-        show_error(message)
 
     # diagram and export -----------------------------------------------------------------
     def _show_diagram(self, name: str) -> None:
