@@ -242,3 +242,19 @@ def test_constant_image_is_refused_with_what_to_do(tmp_path):
     assert result.returncode == 2
     assert "no noise to estimate" in result.stderr and "--min-persistence 0" in result.stderr
     assert not out.exists()
+
+
+def test_a_missing_voxel_size_is_said_on_the_line_and_in_the_summary(tmp_path, capsys):
+    """Without a voxel size every length is in voxels; the user must be told where they
+    read the numbers (common practice, no source)."""
+    np.save(tmp_path / "noise.npy", np.random.default_rng(8).random((32, 32)))
+    assert main(["analyse", str(tmp_path / "noise.npy"), "--out", str(tmp_path / "r")]) == 0
+    assert "No voxel size was given" in capsys.readouterr().out
+    summary = json.loads((tmp_path / "r" / "summary.json").read_text())
+    assert summary["voxel_size_known"] is False
+    assert any("No voxel size" in caution for caution in summary["cautions"])
+    np.save(tmp_path / "film.npy", np.random.default_rng(8).random((32, 32)))
+    assert main(["analyse", str(tmp_path / "film.npy"), "--out", str(tmp_path / "s"),
+                 "--spacing", "0.5", "--unit", "um"]) == 0
+    assert "No voxel size" not in capsys.readouterr().out
+    assert json.loads((tmp_path / "s" / "summary.json").read_text())["voxel_size_known"]

@@ -402,7 +402,17 @@ def describe(result: AnalysisResult) -> str:
     """What was found, in the words of the CLI line and the plugin's status."""
     where = ("out of core" if "out_of_core" in result.notes
              else f"with the {result.diagram.engine} engine")
-    return f"{result.headline()}; persistence in {result.diagram.seconds:.2f} s {where}"
+    line = f"{result.headline()}; persistence in {result.diagram.seconds:.2f} s {where}"
+    if result.scan.unit == UNKNOWN_UNIT:
+        line += f"\n{VOXEL_SIZE_UNKNOWN}"
+    return line
+
+
+#: The unit of a scan whose voxel size nobody gave.
+UNKNOWN_UNIT = "px"
+VOXEL_SIZE_UNKNOWN = ("No voxel size was given or found in the file: positions, sizes and "
+                      "smoothing are in voxels (px); give --spacing and --unit for physical "
+                      "units.")
 
 
 def analyse(source, out, options: AnalysisOptions | None = None, *, force: bool = False,
@@ -527,6 +537,7 @@ def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepare
         "voxtopo_version": __version__,
         "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
         "scan": scan.describe(),
+        "voxel_size_known": scan.unit != UNKNOWN_UNIT,
         "analysed": prepared.describe(),
         "options": asdict(options),
         "counts": {str(d): n for d, n in diagram.counts(threshold).items()},
@@ -538,7 +549,7 @@ def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepare
         "timings_seconds": {k: round(v, 4) for k, v in (timings or {}).items()},
         "preparation": notes or {},
         "software": software_versions(),
-        "cautions": list(CAUTIONS),
+        "cautions": list(CAUTIONS) + ([] if scan.unit != UNKNOWN_UNIT else [VOXEL_SIZE_UNKNOWN]),
     }
 
 
