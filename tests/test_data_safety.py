@@ -379,7 +379,12 @@ def test_ctrl_c_during_start_up_is_one_line(tmp_path):
     process = subprocess.Popen([sys.executable, "-m", "voxtopo.cli", "analyse",
                                 str(tmp_path / "a.npy"), "--out", str(tmp_path / "r")],
                                stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    time.sleep(0.4)           # inside main(), while the libraries load
+    # the command's module imports no numpy: once numpy is mapped, main() is loading the
+    # libraries of its subcommands, which is the start-up a user would interrupt
+    maps = Path(f"/proc/{process.pid}/maps")
+    deadline = time.monotonic() + 60
+    while "numpy" not in maps.read_text() and time.monotonic() < deadline:
+        time.sleep(0.01)
     process.send_signal(signal.SIGINT)
     _, err = process.communicate(timeout=60)
     assert process.returncode == 130 and err.count("\n") == 1 and "Traceback" not in err
