@@ -78,7 +78,7 @@ def test_damped_cosine_is_still_significant():
     """Perea et al. 2015 (SW1PerS): centring and normalising each window removes a slowly
     changing amplitude, so a damped oscillation still traces a loop. A cosine with an
     e-folding time of two periods over 5 periods, plus 1 % noise, is significant at 0.05
-    against 99 phase-randomised surrogates (Theiler et al. 1992)."""
+    against 99 random-phase surrogates of its smoothed spectrum (Theiler et al. 1992)."""
     rng = np.random.default_rng(1)
     period, frames = 24.0, 120
     time = np.arange(frames)

@@ -547,9 +547,10 @@ def _add_periodicity(subparsers) -> None:
         description="Measure rhythms in a time-lapse: the mean intensity of every pixel "
                     "(or bin, tile, region) over time is embedded in sliding windows and "
                     "scored by the longest H1 bar of its Rips complex (SW1PerS); the period "
-                    "comes from the spectrum and the p-value from phase-randomised "
-                    "surrogates. Writes score.tif, period.tif, regions.csv, summary.json, "
-                    "plots and report.html into a new folder; research use only.")
+                    "comes from the spectrum and the p-value from surrogates with random "
+                    "phases and the signal's smoothed spectrum. Writes score.tif, period.tif, "
+                    "regions.csv, summary.json, plots and report.html into a new folder; "
+                    "research use only.")
     p.add_argument("stack", help="time-lapse: ImageJ hyperstack, OME-TIFF, OME-Zarr, folder "
                                  "of frames, .npy, ...")
     add_output_options(p)
@@ -571,7 +572,7 @@ def _add_periodicity(subparsers) -> None:
                    help="one signal per region of this label image (0 = background)")
     m = p.add_argument_group("significance")
     m.add_argument("--surrogates", type=int, default=defaults.surrogates, metavar="N",
-                   help=f"phase-randomised surrogates per p-value (default "
+                   help=f"surrogates per p-value (random phases, smoothed spectrum; default "
                         f"{defaults.surrogates}; per-pixel maps share one pooled null)")
     m.add_argument("--significance", type=float, default=defaults.significance,
                    metavar="ALPHA", help=f"level of significance (default "

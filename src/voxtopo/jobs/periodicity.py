@@ -56,7 +56,7 @@ class PeriodicityOptions:
     regions : path, ndarray or None
         Instead of pixels: a label image of the frame's shape (0 background).
     surrogates : int
-        Phase-randomised surrogates per p-value (0: no p-values).
+        Surrogates per p-value (random phases, smoothed spectrum) (0: no p-values).
     significance : float
         Level alpha at which a p-value is significant.
     points : int or None
@@ -130,9 +130,9 @@ class PeriodicityResult:
             null = ("surrogates pooled over the signals, each made from a randomly chosen "
                     "one" if self.method.pooled else "surrogates of each signal")
             statement = (f"{significant} significant of {len(self.table)} {word} at alpha "
-                         f"{self.method.alpha:g} (phase-randomised surrogate test, "
-                         f"{self.method.surrogates} {null}, per signal, not corrected for "
-                         f"multiple testing)")
+                         f"{self.method.alpha:g} (surrogate test: random phases, smoothed "
+                         f"spectrum, {self.method.surrogates} {null}, per signal, not "
+                         f"corrected for multiple testing)")
         else:
             statement = (f"{len(self.table)} {word} scored; no p-values (0 surrogates), so "
                          f"none is called significant")

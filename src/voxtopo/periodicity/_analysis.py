@@ -5,7 +5,7 @@
     trace --detrend, normalise--> z --periodogram--> period (frames)
           --sliding windows (window from the period)--> cloud on the unit sphere
           --Rips H1 over Z/2 and Z/3--> longest bar / sqrt(3) = score
-          --phase-randomised surrogates, same steps--> p-value
+          --random-phase surrogates (smoothed spectrum), same steps--> p-value
 """
 
 from __future__ import annotations
@@ -26,8 +26,8 @@ COLUMNS = {
              "0 (no loop) to 1 (a round circle)",
     "score_z3": "the same over Z/3",
     "period": "{time}",
-    "p_value": "Monte Carlo p-value of score against phase-randomised surrogates, "
-               "(1 + #{{surrogate >= observed}}) / (1 + N)",
+    "p_value": "Monte Carlo p-value of score against surrogates with random phases and "
+               "the smoothed spectrum, (1 + #{{surrogate >= observed}}) / (1 + N)",
     "significant": "p_value <= alpha",
     "amplitude": "{value} (sqrt(2) x standard deviation of the detrended trace)",
     "damping": "1/{time} (decay rate of the envelope; e-folding time = 1 / damping)",
@@ -52,7 +52,7 @@ class Method:
     dimension : int
         Embedding dimension M (M + 1 samples per window).
     surrogates : int
-        Phase-randomised surrogates N behind each p-value (0: no p-values).
+        Surrogates (random phases, smoothed spectrum) N behind each p-value (0: no p-values).
     alpha : float
         Level at which a p-value counts as significant.
     pooled : bool
@@ -220,7 +220,8 @@ def measure(traces, frame_interval: float = 1.0, method: Method | None = None,
 
 
 def _p_values(z, observed, band, method: Method, report) -> np.ndarray:
-    """Monte Carlo p-values (Besag & Clifford 1989) against phase-randomised surrogates."""
+    """Monte Carlo p-values (Besag & Clifford 1989) against surrogates with random phases
+    and the signal's smoothed spectrum."""
     rng = np.random.default_rng(method.seed)
     count = method.surrogates
     if method.pooled:

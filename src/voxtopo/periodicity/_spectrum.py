@@ -134,7 +134,7 @@ def damping(detrended, frame_interval: float = 1.0) -> np.ndarray:
 
 
 def surrogates(traces, count: int, rng: np.random.Generator) -> np.ndarray:
-    """Phase-randomised surrogates of each row: shape (rows, count, frames).
+    """Random-phase surrogates of each row's smoothed spectrum: shape (rows, count, frames).
 
     Each surrogate has random phases and Gaussian (Rayleigh-modulus) Fourier coefficients
     whose power follows the row's periodogram smoothed by a running median across

@@ -70,7 +70,7 @@ class RhythmWidget(BackgroundRun, QWidget):
         self.surrogates_box = QSpinBox()
         self.surrogates_box.setRange(0, 9999)
         self.surrogates_box.setValue(PeriodicityOptions().surrogates)
-        self.surrogates_box.setToolTip("Phase-randomised surrogates per p-value.")
+        self.surrogates_box.setToolTip("Surrogates per p-value (random phases, smoothed spectrum).")
         self.alpha_box = QDoubleSpinBox()
         self.alpha_box.setDecimals(3)
         self.alpha_box.setRange(0.001, 0.5)
