@@ -42,18 +42,20 @@ def smooth_noise(shape, sigma):
     return ndimage.gaussian_filter(noise, sigma).astype(np.float32)
 
 
-def sintered_beads(side, radius=(7.0, 11.0), solid_fraction=0.55):
-    """A uint8 micro-CT-like volume: overlapping bright beads (partly sintered beads of a
-    filter disc) in a dark matrix, with noise blurred over about a voxel as in a
-    reconstruction."""
-    rng = np.random.default_rng(SEED)
-    solid = np.zeros((side,) * 3, dtype=bool)
-    mean_volume = 4 / 3 * np.pi * np.mean(radius) ** 3
-    for _ in range(int(solid_fraction * side ** 3 / mean_volume)):
+def sintered_beads(shape, radius=(7.0, 11.0), solid_fraction=0.55, seed=SEED):
+    """A uint8 micro-CT-like image or volume: overlapping bright beads (partly sintered
+    beads of a filter disc) in a dark matrix, with noise (sigma 25 gray levels) blurred over
+    about a voxel as in a reconstruction. bench_significance draws its data here too."""
+    rng = np.random.default_rng(seed)
+    ndim = len(shape)
+    solid = np.zeros(shape, dtype=bool)
+    mean_size = (np.pi * np.mean(radius) ** 2 if ndim == 2
+                 else 4 / 3 * np.pi * np.mean(radius) ** 3)
+    for _ in range(int(solid_fraction * np.prod(shape) / mean_size)):
         r = rng.uniform(*radius)
-        centre = rng.uniform(0, side, 3)
+        centre = rng.uniform(0, shape[0], ndim)
         low = np.maximum(np.floor(centre - r).astype(int), 0)
-        high = np.minimum(np.ceil(centre + r).astype(int) + 1, side)
+        high = np.minimum(np.ceil(centre + r).astype(int) + 1, shape[0])
         grid = np.ogrid[tuple(slice(a, b) for a, b in zip(low, high))]
         inside = sum((g - c) ** 2 for g, c in zip(grid, centre)) <= r * r
         solid[tuple(slice(a, b) for a, b in zip(low, high))] |= inside
@@ -67,8 +69,8 @@ def sintered_beads(side, radius=(7.0, 11.0), solid_fraction=0.55):
 CASES = {
     "2048x2048": ("float32 smooth noise", lambda: smooth_noise((2048, 2048), 4.0)),
     "128x128x128": ("float32 smooth noise", lambda: smooth_noise((128, 128, 128), 2.0)),
-    "256x256x256": ("uint8 sintered beads", lambda: sintered_beads(256)),
-    "512x512x512": ("uint8 sintered beads", lambda: sintered_beads(512)),
+    "256x256x256": ("uint8 sintered beads", lambda: sintered_beads((256,) * 3)),
+    "512x512x512": ("uint8 sintered beads", lambda: sintered_beads((512,) * 3)),
 }
 
 

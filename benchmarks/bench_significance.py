@@ -27,32 +27,15 @@ import resource
 import time
 
 import numpy as np
-from scipy import ndimage
+
+from bench_engine import sintered_beads
 
 SEED = 20261202
 
 
-def beads(shape, radius=(7.0, 11.0), solid_fraction=0.55):
-    """A uint8 micro-CT-like image or volume: overlapping bright beads in a dark matrix,
-    noise (sigma 25 gray levels) blurred over about a voxel as in a reconstruction."""
-    rng = np.random.default_rng(SEED)
-    ndim = len(shape)
-    solid = np.zeros(shape, dtype=bool)
-    mean_size = (np.pi * np.mean(radius) ** 2 if ndim == 2
-                 else 4 / 3 * np.pi * np.mean(radius) ** 3)
-    for _ in range(int(solid_fraction * np.prod(shape) / mean_size)):
-        r = rng.uniform(*radius)
-        centre = rng.uniform(0, shape[0], ndim)
-        low = np.maximum(np.floor(centre - r).astype(int), 0)
-        high = np.minimum(np.ceil(centre + r).astype(int) + 1, shape[0])
-        grid = np.ogrid[tuple(slice(a, b) for a, b in zip(low, high))]
-        inside = sum((g - c) ** 2 for g, c in zip(grid, centre)) <= r * r
-        solid[tuple(slice(a, b) for a, b in zip(low, high))] |= inside
-    image = np.where(solid, np.float32(170), np.float32(60))
-    del solid
-    image += rng.normal(0, 25, image.shape).astype(np.float32)
-    image = ndimage.gaussian_filter(image, 1.0, output=np.float32)
-    return np.clip(image, 0, 255).astype(np.uint8)
+def beads(shape):
+    """The bead image or volume of bench_engine, with this benchmark's own seed."""
+    return sintered_beads(shape, seed=SEED)
 
 
 CASES = {
