@@ -1,8 +1,8 @@
 """Many scans with one set of settings, as dask.distributed tasks.
 
-`voxtopo batch MANIFEST --out DIR` runs one job (analyse, pores, patches or periodicity) on every
-scan of a manifest, one dask task per scan, on a local cluster or on any dask scheduler,
-and writes:
+`voxtopo batch MANIFEST --out DIR` runs one job (analyse, pores, patches or periodicity)
+on every scan of a manifest, one dask task per scan, on a local cluster or on any dask
+scheduler, and writes:
 
     DIR/settings.toml (or .yaml)   the settings every scan was run with
     DIR/manifest.csv               the manifest as read, with the result folder names
