@@ -319,7 +319,7 @@ def write(result: PeriodicityResult, out, force: bool = False) -> Path:
     """Fill the result folder ``out``: score.tif, period.tif, regions.csv, summary.json,
     plots and report.html. The folder appears whole or not at all."""
     from ..periodicity._plots import save_plots
-    from ..periodicity._report import write_report
+    from ..report.periodicity import write_periodicity_report
 
     with result_folder(out, force=force) as folder:
         signals, table = result.signals, result.table
@@ -331,7 +331,7 @@ def write(result: PeriodicityResult, out, force: bool = False) -> Path:
         plots = save_plots(result, folder)
         summary = _summary(result, plots)
         write_summary(folder, summary)
-        write_report(folder, summary)
+        write_periodicity_report(folder, summary)
     return Path(out)
 
 
