@@ -358,12 +358,25 @@ def run(scan: Scan, options: AnalysisOptions | None = None, progress=None) -> An
     Parameters
     ----------
     scan : Scan
-    options : AnalysisOptions
+        The scan as read (:func:`voxtopo.load`).
+    options : AnalysisOptions, optional
+        The settings; the defaults of ``voxtopo analyse`` without one.
     progress : callable(phase, fraction), optional
+        Called as the work goes on; may raise :class:`~voxtopo.Cancelled`.
 
     Returns
     -------
     AnalysisResult
+        The scan, the prepared filtration, the diagram kept (every pair, or those that
+        passed the test), the verdict of the test, the options, notes and timings.
+
+    Raises
+    ------
+    InputError
+        For options the scan cannot take (a threshold without a distance sweep, a crop
+        outside the scan, NaN values without fill_invalid, ...).
+    TooBigError
+        When the preparation or the sweep would not fit in memory (with the estimate).
     """
     options = options or AnalysisOptions()
     timings = {}
@@ -392,14 +405,42 @@ def run(scan: Scan, options: AnalysisOptions | None = None, progress=None) -> An
 
 
 def write(result: AnalysisResult, out, force: bool = False) -> Path:
-    """Fill the result folder ``out`` (see :func:`write_result`)."""
+    """Fill the result folder ``out`` (see :func:`write_result`).
+
+    Parameters
+    ----------
+    result : AnalysisResult
+        What :func:`run` returned.
+    out : str or Path
+        The result folder to create: pairs.csv, summary.json, the plots and report.html,
+        written whole or not at all.
+    force : bool
+        Replace ``out`` when it is a result folder voxtopo wrote.
+
+    Returns
+    -------
+    Path
+        ``out``.
+    """
     return write_result(out, result.scan, result.diagram, result.options,
                         prepared=result.prepared, timings=result.timings, notes=result.notes,
                         force=force, verdict=result.verdict)
 
 
 def describe(result: AnalysisResult) -> str:
-    """What was found, in the words of the CLI line and the plugin's status."""
+    """What was found, in the words of the CLI line and the plugin's status.
+
+    Parameters
+    ----------
+    result : AnalysisResult
+        What :func:`run` (or :func:`run_out_of_core`) returned.
+
+    Returns
+    -------
+    str
+        The counts with what they count (method and level), the engine and its time, and,
+        on a second line, that the voxel size is unknown when it is.
+    """
     where = ("out of core" if "out_of_core" in result.notes
              else f"with the {result.diagram.engine} engine")
     line = f"{result.headline()}; persistence in {result.diagram.seconds:.2f} s {where}"

@@ -98,7 +98,30 @@ def _on_grid_of(scan: Scan, path: str, what: str) -> Scan:
 
 
 def run(scan: Scan, options: PoresOptions | None = None, progress=None) -> PoresResult:
-    """Measure the pore space of ``scan`` (or of ``options.mask`` over it)."""
+    """Measure the pore space of ``scan`` (or of ``options.mask`` over it).
+
+    Parameters
+    ----------
+    scan : Scan
+        A binary pore mask, a label image or a gray scan (segmented by
+        ``options.threshold``); with ``options.mask``, the gray scan drawn under the plots.
+    options : PoresOptions, optional
+        The settings; the defaults of ``voxtopo pores`` without one.
+    progress : callable(phase, fraction), optional
+        Called as the work goes on; may raise :class:`~voxtopo.Cancelled`.
+
+    Returns
+    -------
+    PoresResult
+        The :class:`voxtopo.porosity.PoreAnalysis`, the scan, and the mask and region of
+        interest files it was made from.
+
+    Raises
+    ------
+    InputError
+        A mask or region of interest of another shape, or what
+        :func:`voxtopo.porosity.analyse` refuses.
+    """
     options = options or PoresOptions()
     target = _on_grid_of(scan, options.mask, "mask") if options.mask else scan
     roi = _on_grid_of(scan, options.roi, "region of interest") if options.roi else None
@@ -114,14 +137,41 @@ def run(scan: Scan, options: PoresOptions | None = None, progress=None) -> Pores
 
 def write(result: PoresResult, out, force: bool = False) -> Path:
     """Fill the result folder ``out`` (pores.csv, grains.csv, loops.csv, voids.csv,
-    pairs.csv, summary.json, plots, report.html); see :func:`write_pores`."""
+    pairs.csv, summary.json, plots, report.html); see :func:`write_pores`.
+
+    Parameters
+    ----------
+    result : PoresResult
+        What :func:`run` returned.
+    out : str or Path
+        The result folder to create, whole or not at all; it may not be nor hold the scan,
+        the mask or the region of interest.
+    force : bool
+        Replace ``out`` when it is a result folder voxtopo wrote.
+
+    Returns
+    -------
+    Path
+        ``out``.
+    """
     return write_pores(out, result.analysis, result.scan, force=force, inputs=result.inputs)
 
 
 def describe(result: PoresResult) -> str:
     """What was found, in the words of the CLI lines and the plugin's status (one line
     each: porosity and counts with percolation, then every note the reader did not
-    already give before the work started)."""
+    already give before the work started).
+
+    Parameters
+    ----------
+    result : PoresResult
+        What :func:`run` returned.
+
+    Returns
+    -------
+    str
+        The lines of :func:`summary_lines`, without the notes the scan's reader gave.
+    """
     said = set(result.scan.metadata.get("notes", []))
     return "\n".join(line for line in summary_lines(result.analysis.summary)
                      if line not in said)
@@ -146,7 +196,20 @@ def _percolation_words(summary: dict) -> str:
 
 def summary_lines(summary: dict) -> list[str]:
     """The lines a person reads first (CLI, plugin status): porosity, counts, percolation,
-    then every note of the summary, one sentence each."""
+    then every note of the summary, one sentence each.
+
+    Parameters
+    ----------
+    summary : dict
+        ``PoreAnalysis.summary`` (or a pores folder's summary.json).
+
+    Returns
+    -------
+    list of str
+        Porosity (of the sample or of the scan, with the unit), the robust and listed
+        counts with the robustness threshold, pores at the border and isolated, and
+        percolation per axis with its radius; then the notes.
+    """
     unit = summary["unit"]
     where = "of the sample" if summary.get("region_of_interest") else "of the scan"
     size = ("voxel size unknown, lengths in px" if unit == "px"
@@ -166,8 +229,21 @@ def summary_lines(summary: dict) -> list[str]:
     return lines + list(summary.get("notes", []))
 
 
-def column_units(table, unit: str, ndim: int) -> dict:
-    """Column -> unit of a pore, grain, loop or void table ("" for flags, ids and kinds)."""
+def column_units(table, unit: str) -> dict:
+    """Column -> unit of a pore, grain, loop or void table ("" for flags, ids and kinds).
+
+    Parameters
+    ----------
+    table : DataFrame
+        The table whose columns are named.
+    unit : str
+        The scan's unit of length.
+
+    Returns
+    -------
+    dict
+        Column -> "voxel index", ``unit``, ``unit^2``, ``unit^3`` or "".
+    """
     units = {}
     for column in table.columns:
         if "_voxel_" in column:
@@ -185,7 +261,25 @@ def column_units(table, unit: str, ndim: int) -> dict:
 
 def pairs_units(ndim: int, unit: str) -> dict:
     """Column -> unit of pairs.csv: values in the scan's unit, locations as voxel indices,
-    ``robust`` a flag."""
+    ``robust`` a flag.
+
+    Parameters
+    ----------
+    ndim : int
+        2 or 3: 2D has no z columns.
+    unit : str
+        The scan's unit of length (a signed distance is a length).
+
+    Returns
+    -------
+    dict
+        Column -> unit.
+
+    Examples
+    --------
+    >>> pairs_units(2, "um")["birth_x"], pairs_units(2, "um")["death"]
+    ('voxel index', 'um')
+    """
     units = {"dim": "", "birth": unit, "death": unit, "persistence": unit}
     for which in ("birth", "death"):
         for axis in AXES_3D[3 - ndim:]:
@@ -236,7 +330,7 @@ def write_pores(out, analysis, scan=None, force: bool = False, inputs=()) -> Pat
                             "voids": "voids.csv", "diagram": "pairs.csv"}
         unit = summary["unit"]
         summary["columns"] = {
-            f"{name}.csv": column_units(getattr(analysis, name), unit, ndim)
+            f"{name}.csv": column_units(getattr(analysis, name), unit)
             for name in ("pores", "grains", "loops", "voids")}
         summary["columns"]["pairs.csv"] = pairs_units(ndim, unit)
         summary["plots"] = save_pore_plots(tmp, analysis, background)
