@@ -503,6 +503,30 @@ def run_out_of_core(source, options: AnalysisOptions | None = None, *, load_opti
     dimension 1 of a volume is absent. Options that need the whole volume at once
     (smoothing, cropping, downsampling, the distance transform, periodic boundaries,
     filling invalid voxels, other fields than Z/2) are refused.
+
+    Parameters
+    ----------
+    source : str or Path
+        A zarr array or OME-Zarr image (:func:`voxtopo.io.open_chunked`).
+    options : AnalysisOptions, optional
+        The settings; only superlevel, neighbourhood and min_persistence apply here.
+    load_options : dict, optional
+        ``spacing``, ``unit``, ``channel``, ``timepoint`` and ``level`` of the store.
+    chunks : tuple of int, optional
+        The block shape of the work; default the store's chunks.
+    scheduler : optional
+        A dask scheduler or Client for the chunk tasks (default dask's own).
+
+    Returns
+    -------
+    AnalysisResult
+        Every pair listed (untested), the dimensions not computed named in its notes.
+
+    Raises
+    ------
+    InputError
+        For options or load options the out-of-core path cannot apply, or a store it
+        cannot open.
     """
     from ..engine.chunked import chunked_persistence
     from ..io import open_chunked
@@ -550,7 +574,23 @@ def run_out_of_core(source, options: AnalysisOptions | None = None, *, load_opti
 def analyse_out_of_core(source, out, options: AnalysisOptions | None = None, *,
                         load_options=None, chunks=None, force: bool = False,
                         scheduler=None) -> Diagram:
-    """:func:`run_out_of_core` then :func:`write`; returns the diagram."""
+    """:func:`run_out_of_core` then :func:`write`; returns the diagram.
+
+    Parameters
+    ----------
+    source : str or Path
+        A zarr array or OME-Zarr image.
+    out : str or Path
+        The result folder to create (checked before any chunk is read).
+    options, load_options, chunks, scheduler
+        As for :func:`run_out_of_core`.
+    force : bool
+        Replace ``out`` when it is a result folder voxtopo wrote.
+
+    Returns
+    -------
+    Diagram
+    """
     check_target(out, force, inputs=[source])
     result = run_out_of_core(source, options, load_options=load_options, chunks=chunks,
                              scheduler=scheduler)
@@ -601,7 +641,32 @@ def write_result(out, scan: Scan, diagram: Diagram, options: AnalysisOptions | N
     """Write pairs.csv, summary.json and the standard plots into ``out``, atomically.
 
     With a ``verdict`` the plots show every tested pair and the threshold (a band along
-    the diagonal, a line on the lifetime histograms); pairs.csv holds ``diagram``."""
+    the diagonal, a line on the lifetime histograms); pairs.csv holds ``diagram``.
+
+    Parameters
+    ----------
+    out : str or Path
+        The result folder to create, with report.html.
+    scan : Scan
+        The scan as read (its source may not be inside ``out``).
+    diagram : Diagram
+        The pairs to write.
+    options : AnalysisOptions, optional
+        The settings the diagram was made with, recorded in summary.json.
+    prepared : Scan, optional
+        The prepared filtration, described in summary.json when it differs from the scan.
+    timings, notes : dict, optional
+        Seconds per stage, and what the preparation did.
+    force : bool
+        Replace ``out`` when it is a result folder voxtopo wrote.
+    verdict : Verdict, optional
+        The significance or robustness test, for the counts and the plots.
+
+    Returns
+    -------
+    Path
+        ``out``.
+    """
     from ..report.html import write_report
     from ..report.plots import save_standard_plots
 
