@@ -349,8 +349,7 @@ def write(result: PeriodicityResult, out, force: bool = False) -> Path:
     Path
         ``out``.
     """
-    from ..periodicity._plots import save_plots
-    from ..report.periodicity import write_periodicity_report
+    from ..report.periodicity import save_periodicity_plots, write_periodicity_report
 
     with result_folder(out, force=force) as folder:
         signals, table = result.signals, result.table
@@ -359,7 +358,7 @@ def write(result: PeriodicityResult, out, force: bool = False) -> Path:
             save_tiff(Scan(painted, spacing=result.spacing, unit=result.unit,
                            source=f"{name} map"), folder / f"{name}.tif")
         table.to_csv(folder / "regions.csv", index=False, float_format="%.8g")
-        plots = save_plots(result, folder)
+        plots = save_periodicity_plots(folder, result)
         summary = _summary(result, plots)
         write_summary(folder, summary)
         write_periodicity_report(folder, summary)
