@@ -11,7 +11,8 @@ import pandas as pd
 
 from .html import Table, render
 
-__all__ = ["CAPTIONS", "plot_bars", "save_periodicity_plots", "write_periodicity_report"]
+__all__ = ["CAPTIONS", "RHYTHM", "plot_bars", "plot_trace", "save_periodicity_plots",
+           "write_periodicity_report"]
 
 #: What each plot of a periodicity folder shows, under it in the report.
 CAPTIONS = {
@@ -89,6 +90,15 @@ def plot_bars(bars, ax, title: str, colour=INK):
     ax.set_title(title, fontsize=9)
 
 
+def plot_trace(trace, frame_interval: float, time_unit: str, ax, title: str):
+    """One signal's mean intensity over time."""
+    time = np.arange(len(trace)) * frame_interval
+    ax.plot(time, trace, color=INK, lw=1)
+    ax.set_xlabel(f"time ({time_unit})")
+    ax.set_ylabel("mean intensity")
+    ax.set_title(title, fontsize=9)
+
+
 def save_periodicity_plots(folder, result) -> list[str]:
     """Draw the plots of a periodicity result into ``folder``.
 
@@ -131,12 +141,9 @@ def save_periodicity_plots(folder, result) -> list[str]:
         fig, axes = plt.subplots(len(result.top), 3, figsize=(12, 3.0 * len(result.top)),
                                  squeeze=False, constrained_layout=True)
         for row, item in zip(axes, result.top):
-            time = np.arange(len(item["trace"])) * result.frame_interval
-            row[0].plot(time, item["trace"], color=INK, lw=1)
-            row[0].set_xlabel(f"time ({result.time_unit})")
-            row[0].set_ylabel("mean intensity")
-            row[0].set_title(f"{result.signals.kind} {item['region']}: period "
-                             f"{item['period']:.3g} {result.time_unit}", fontsize=9)
+            plot_trace(item["trace"], result.frame_interval, result.time_unit, row[0],
+                       f"{result.signals.kind} {item['region']}: period "
+                       f"{item['period']:.3g} {result.time_unit}")
             cloud = item["cloud"] - item["cloud"].mean(axis=0)
             axes_2d = np.linalg.svd(cloud, full_matrices=False)[2][:2]
             flat = cloud @ axes_2d.T

@@ -17,8 +17,8 @@ from qtpy.QtWidgets import (QAbstractItemView, QComboBox, QDoubleSpinBox, QFormL
                             QTableWidget, QTableWidgetItem, QVBoxLayout, QWidget)
 
 from voxtopo.errors import InputError, VoxtopoError
-from voxtopo.jobs.periodicity import PeriodicityOptions, run
-from voxtopo.periodicity import detrend, normalise, rips_bars, sliding_windows
+from voxtopo.jobs.periodicity import PeriodicityOptions, describe, run, signal_bars
+from voxtopo.report.periodicity import RHYTHM, plot_bars, plot_trace
 from voxtopo.scan import FRAME, TimeLapse
 
 from ._background import BackgroundRun
@@ -206,7 +206,8 @@ class RhythmWidget(BackgroundRun, QWidget):
         self.result = result
         self.score_layer, self.period_layer = score, period
         self._fill_table(table)
-        self.status.setText(result.counts["statement"] + ".")
+        # the job's own line: the same counts and words as `voxtopo periodicity`
+        self.status.setText(describe(result))
 
     # table and the signal view ------------------------------------------------------------
     def _fill_table(self, table) -> None:
@@ -241,30 +242,15 @@ class RhythmWidget(BackgroundRun, QWidget):
     def show_signal(self, row: int) -> None:
         """Draw the trace and the H1 barcode (Z/2) of signal ``row`` of the result table."""
         result = self.result
-        trace = result.signals.traces[row]
         table = result.table
-        time = np.arange(len(trace)) * result.frame_interval
         self.trace_axes.clear()
-        self.trace_axes.plot(time, trace, color="#2b2d42", lw=1)
-        self.trace_axes.set_xlabel(f"time ({result.time_unit})")
-        self.trace_axes.set_ylabel("mean intensity")
-        self.trace_axes.set_title(f"{result.signals.kind} {table['region'].iloc[row]}: score "
-                                  f"{table['score'].iloc[row]:.3f}, period "
-                                  f"{table['period'].iloc[row]:.3g} {result.time_unit}",
-                                  fontsize=8)
+        plot_trace(result.signals.traces[row], result.frame_interval, result.time_unit,
+                   self.trace_axes, f"{result.signals.kind} {table['region'].iloc[row]}: "
+                                    f"score {table['score'].iloc[row]:.3f}, period "
+                                    f"{table['period'].iloc[row]:.3g} {result.time_unit}")
         self.barcode_axes.clear()
-        bars = np.zeros((0, 2))
-        if not table["flat"].iloc[row]:
-            z, _ = normalise(detrend(trace[None], result.method.detrend_degree))
-            period = np.array([table["period"].iloc[row] / result.frame_interval])
-            cloud = sliding_windows(z, period, result.method.points, result.method.dimension)
-            bars = rips_bars(cloud[0], fields=(2,))[(2, 1)]
-        for k, (birth, death) in enumerate(bars[:30]):
-            self.barcode_axes.plot([birth, death], [k, k], color="#c8553d", lw=2)
-        self.barcode_axes.set_yticks([])
-        self.barcode_axes.invert_yaxis()
-        self.barcode_axes.set_xlabel("scale (distance on the unit sphere)")
-        self.barcode_axes.set_title("H1 barcode over Z/2", fontsize=8)
+        bars = signal_bars(result, row)
+        plot_bars(bars, self.barcode_axes, "H1 barcode over Z/2", colour=RHYTHM)
         self.canvas.draw_idle()
         self.shown_row = row
         self.shown_bars = bars
