@@ -96,3 +96,15 @@ def test_infinity_is_written_one_way_in_every_summary(tmp_path):
     essential = [row for row in read_summary(tmp_path / "a")["most_persistent"]["0"]
                  if row["death"] == float("inf")]
     assert len(essential) == 1
+
+
+def test_a_significance_level_for_a_distance_sweep_is_refused_in_every_shell(tmp_path):
+    """RULES: an option that would be ignored is refused in one sentence (common practice,
+    no source); the job's options refuse it, so a batch settings file is refused as the
+    command line is."""
+    with pytest.raises(InputError, match="would be ignored with --distance"):
+        jobs.get("analyse").Options(distance=True, significance=0.01)
+    settings = tmp_path / "settings.toml"
+    settings.write_text('job = "analyse"\n[analyse]\ndistance = true\nsignificance = 0.01\n')
+    with pytest.raises(InputError, match="would be ignored with --distance"):
+        batch.read_settings(settings)

@@ -194,11 +194,7 @@ def _run_job(name: str, args, options, load_input, inputs) -> int:
 
 def _run_analyse(args) -> int:
     from .io import load
-    from .jobs.analyse import AnalysisOptions
-    if args.distance and args.significance is not None:
-        raise VoxtopoError("--significance tests gray-value sweeps and would be ignored with "
-                           "--distance (robust features are kept there); leave it out or "
-                           "set --boundary-tolerance.")
+    from .jobs.analyse import DEFAULT_SIGNIFICANCE, AnalysisOptions
     options = AnalysisOptions(
         superlevel=args.superlevel, neighbourhood=args.neighbourhood, sigma=args.smooth,
         crop=args.crop, downsample=args.downsample, distance=args.distance,
@@ -206,7 +202,8 @@ def _run_analyse(args) -> int:
         fill_invalid=_fill_value(args.fill_invalid),
         min_persistence=_min_persistence(args.min_persistence),
         periodic=args.periodic, field=args.field, engine=args.engine,
-        significance=0.05 if args.significance is None else args.significance,
+        significance=(DEFAULT_SIGNIFICANCE if args.significance is None
+                      else args.significance),
         noise=args.noise, noise_model=args.noise_model,
         boundary_tolerance=args.boundary_tolerance)
     load_options = load_options_from(args)

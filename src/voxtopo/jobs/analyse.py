@@ -48,6 +48,9 @@ CAUTIONS = (
     "features a few voxels across are at the limit of what the scan resolves.",
 )
 
+#: Family-wise level of the significance test of gray-value sweeps when none is given.
+DEFAULT_SIGNIFICANCE = 0.05
+
 
 @dataclass
 class AnalysisOptions:
@@ -87,7 +90,7 @@ class AnalysisOptions:
     periodic: bool = False
     field: int = 2
     engine: str = "auto"
-    significance: float = 0.05
+    significance: float = DEFAULT_SIGNIFICANCE
     noise: float | None = None
     noise_model: str = "gaussian"
     boundary_tolerance: float | None = None
@@ -109,6 +112,11 @@ class AnalysisOptions:
                 raise InputError("A noise level or noise model would be ignored by a distance "
                                  "sweep (its uncertainty is the segmentation); leave them out "
                                  "or give --boundary-tolerance.")
+            if self.significance != DEFAULT_SIGNIFICANCE:
+                raise InputError(f"--significance {self.significance:g} tests gray-value "
+                                 f"sweeps and would be ignored with --distance (robust "
+                                 f"features are kept there); leave it out or set "
+                                 f"--boundary-tolerance.")
         elif self.boundary_tolerance is not None:
             raise InputError("The boundary tolerance only applies to distance sweeps "
                              "(--distance); leave it out or add --distance.")
