@@ -316,12 +316,10 @@ def _run_pores(args) -> int:
 
 
 def _run_out_of_core(args, options, load_options) -> int:
-    from .io.results import check_target
     from .jobs import analyse
-    check_target(args.out, args.force, inputs=[args.scan])
-    result = analyse.run_out_of_core(args.scan, options, load_options=load_options,
-                                     chunks=args.chunks)
-    analyse.write(result, args.out, force=args.force)
+    result = analyse.analyse_out_of_core(args.scan, args.out, options,
+                                         load_options=load_options, chunks=args.chunks,
+                                         force=args.force)
     print(f"voxtopo: {analyse.describe(result)}; {'; '.join(result.diagram.notes)}")
     print(f"voxtopo: results written to {args.out} (research use only)")
     return 0

@@ -581,8 +581,8 @@ def run_out_of_core(source, options: AnalysisOptions | None = None, *, load_opti
 
 def analyse_out_of_core(source, out, options: AnalysisOptions | None = None, *,
                         load_options=None, chunks=None, force: bool = False,
-                        scheduler=None) -> Diagram:
-    """:func:`run_out_of_core` then :func:`write`; returns the diagram.
+                        scheduler=None) -> AnalysisResult:
+    """:func:`run_out_of_core` then :func:`write`; returns the result.
 
     Parameters
     ----------
@@ -597,13 +597,14 @@ def analyse_out_of_core(source, out, options: AnalysisOptions | None = None, *,
 
     Returns
     -------
-    Diagram
+    AnalysisResult
+        What :func:`run_out_of_core` returned (:func:`describe` says it in one line).
     """
     check_target(out, force, inputs=[source])
     result = run_out_of_core(source, options, load_options=load_options, chunks=chunks,
                              scheduler=scheduler)
     write(result, out, force)
-    return result.diagram
+    return result
 
 
 def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepared=None,
