@@ -13,8 +13,8 @@ from __future__ import annotations
 import numpy as np
 from napari.layers import Image, Labels
 from qtpy.QtWidgets import (QAbstractItemView, QComboBox, QDoubleSpinBox, QFormLayout,
-                            QHBoxLayout, QLabel, QProgressBar, QPushButton, QSpinBox,
-                            QTableWidget, QTableWidgetItem, QVBoxLayout, QWidget)
+                            QHBoxLayout, QLabel, QSpinBox, QTableWidget, QTableWidgetItem,
+                            QVBoxLayout, QWidget)
 
 from voxtopo.errors import InputError, VoxtopoError
 from voxtopo.jobs.periodicity import PeriodicityOptions, describe, run, signal_bars
@@ -43,7 +43,8 @@ class RhythmWidget(BackgroundRun, QWidget):
         self.viewer = napari_viewer
         self.result = None
         self.shown_row = None
-        self._init_background()
+        self._init_background("Find rhythms", "Measure the rhythms of the chosen time-lapse "
+                              "in the background.", "Pick a time-lapse layer.")
 
         self.layer_choice = QComboBox()
         self.layer_choice.setToolTip("The time-lapse: an image layer whose first axis is time.")
@@ -77,16 +78,6 @@ class RhythmWidget(BackgroundRun, QWidget):
         self.alpha_box.setValue(PeriodicityOptions().significance)
         self.alpha_box.setToolTip("Level of significance.")
 
-        self.run_button = QPushButton("Find rhythms")
-        self.run_button.clicked.connect(self.run)
-        self.cancel_button = QPushButton("Cancel")
-        self.cancel_button.setEnabled(False)
-        self.cancel_button.clicked.connect(self.cancel)
-        self.progress_bar = QProgressBar()
-        self.progress_bar.setRange(0, 1000)
-        self.status = QLabel("Pick a time-lapse layer.")
-        self.status.setWordWrap(True)
-
         self.table = QTableWidget(0, len(TABLE_COLUMNS))
         self.table.setHorizontalHeaderLabels(list(TABLE_COLUMNS))
         self.table.setSelectionBehavior(QAbstractItemView.SelectRows)
@@ -114,14 +105,9 @@ class RhythmWidget(BackgroundRun, QWidget):
         form.addRow("regions", self.regions_choice)
         form.addRow("surrogates", self.surrogates_box)
         form.addRow("significance", self.alpha_box)
-        buttons = QHBoxLayout()
-        buttons.addWidget(self.run_button)
-        buttons.addWidget(self.cancel_button)
         layout = QVBoxLayout(self)
         layout.addLayout(form)
-        layout.addLayout(buttons)
-        layout.addWidget(self.progress_bar)
-        layout.addWidget(self.status)
+        self._add_run_controls(layout)
         layout.addWidget(self.table)
         layout.addWidget(self.canvas)
 

@@ -15,8 +15,7 @@ from pathlib import Path
 from napari.layers import Image, Labels, Layer
 from napari.utils.notifications import show_info
 from qtpy.QtWidgets import (QCheckBox, QComboBox, QDoubleSpinBox, QFileDialog, QFormLayout,
-                            QHBoxLayout, QLabel, QProgressBar, QPushButton, QVBoxLayout,
-                            QWidget)
+                            QLabel, QPushButton, QVBoxLayout, QWidget)
 
 from voxtopo.errors import InputError, VoxtopoError
 from voxtopo.jobs.analyse import AUTO, AnalysisOptions
@@ -66,7 +65,8 @@ class AnalysisWidget(BackgroundRun, QWidget):
         self.result = None
         self.diagram_panel = None
         self._runs = 0
-        self._init_background()
+        self._init_background("Find features", "Compute the persistence of the chosen layer "
+                              "in the background.", "Pick a layer and press Find features.")
 
         self.layer_choice = QComboBox()
         self.layer_choice.setToolTip("The image (gray values) or labels (mask) layer to "
@@ -112,18 +112,6 @@ class AnalysisWidget(BackgroundRun, QWidget):
                                        "analysis too (pore volumes, percolation); it takes "
                                        "about twice as long.")
 
-        self.run_button = QPushButton("Find features")
-        self.run_button.setToolTip("Compute the persistence of the chosen layer in the "
-                                   "background.")
-        self.run_button.clicked.connect(self.run)
-        self.cancel_button = QPushButton("Cancel")
-        self.cancel_button.setToolTip("Stop the running analysis; nothing is added.")
-        self.cancel_button.setEnabled(False)
-        self.cancel_button.clicked.connect(self.cancel)
-        self.progress_bar = QProgressBar()
-        self.progress_bar.setRange(0, 1000)
-        self.status = QLabel("Pick a layer and press Find features.")
-        self.status.setWordWrap(True)
         self.export_button = QPushButton("Save result folder…")
         self.export_button.setToolTip("Write the result folder as the command does: "
                                       "`voxtopo pores` for a porosity run, `voxtopo "
@@ -140,14 +128,9 @@ class AnalysisWidget(BackgroundRun, QWidget):
         form.addRow("min persistence", self.min_persistence_box)
         form.addRow(self.deaths_check)
         form.addRow(self.porosity_check)
-        buttons = QHBoxLayout()
-        buttons.addWidget(self.run_button)
-        buttons.addWidget(self.cancel_button)
         layout = QVBoxLayout(self)
         layout.addLayout(form)
-        layout.addLayout(buttons)
-        layout.addWidget(self.progress_bar)
-        layout.addWidget(self.status)
+        self._add_run_controls(layout)
         layout.addWidget(self.export_button)
         layout.addWidget(QLabel("Results support research; they are not a diagnosis nor a "
                                 "certification of a part or structure."))
