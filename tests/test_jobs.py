@@ -108,3 +108,20 @@ def test_a_significance_level_for_a_distance_sweep_is_refused_in_every_shell(tmp
     settings.write_text('job = "analyse"\n[analyse]\ndistance = true\nsignificance = 0.01\n')
     with pytest.raises(InputError, match="would be ignored with --distance"):
         batch.read_settings(settings)
+
+
+def test_analysis_packages_load_no_matplotlib():
+    """DESIGN.md layering (project rule, no source): figures live in report/; every module
+    of the analysis packages imports without matplotlib."""
+    import subprocess
+    import sys
+
+    code = ("import importlib, pkgutil, sys\n"
+            "import voxtopo.patches, voxtopo.periodicity, voxtopo.porosity\n"
+            "for package in (voxtopo.patches, voxtopo.periodicity, voxtopo.porosity):\n"
+            "    for module in pkgutil.iter_modules(package.__path__):\n"
+            "        importlib.import_module(f'{package.__name__}.{module.name}')\n"
+            "print(sorted(m for m in sys.modules if m.split('.')[0] == 'matplotlib'))")
+    found = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                           check=True)
+    assert found.stdout.strip() == "[]"
