@@ -125,3 +125,17 @@ def test_analysis_packages_load_no_matplotlib():
     found = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                            check=True)
     assert found.stdout.strip() == "[]"
+
+
+def test_a_time_point_for_the_periodicity_job_is_refused_not_dropped(tmp_path):
+    """RULES: an option that would be ignored is refused in one sentence (common practice,
+    no source): the periodicity job reads every frame, so a batch's timepoint cannot apply;
+    the other jobs read the frame it names."""
+    stack = np.arange(3 * 4 * 5, dtype=np.float32).reshape(3, 4, 5)
+    path = tmp_path / "lapse.tif"
+    tifffile.imwrite(path, stack, imagej=True, metadata={"axes": "TYX"})
+    with pytest.raises(InputError, match="leave the timepoint out"):
+        jobs.read_input("periodicity", path, {"timepoint": 1})
+    assert jobs.read_input("periodicity", path).frames == 3
+    np.testing.assert_array_equal(jobs.read_input("analyse", path, {"timepoint": 1}).data,
+                                  stack[1])
