@@ -305,6 +305,10 @@ def test_export_writes_the_same_folder_as_the_cli(make_napari_viewer, qtbot, tmp
     theirs = pd.read_csv(tmp_path / "from-cli" / "pairs.csv")
     assert {"p_value", "significant"} <= set(ours.columns)
     pd.testing.assert_frame_equal(ours, theirs)
+    # the same files, report.html and the plots included
+    assert sorted(p.name for p in exported.iterdir()) == \
+        sorted(p.name for p in (tmp_path / "from-cli").iterdir())
+    assert "report.html" in {p.name for p in exported.iterdir()}
     summary = json.loads((exported / "summary.json").read_text())
     assert summary["diagram"]["neighbourhood"] == 26
     assert summary["significance"]["alpha"] == 0.05
