@@ -5,7 +5,8 @@ The panel turns its controls into :class:`voxtopo.periodicity.PeriodicityOptions
 worker (progress through voxtopo's callback; Cancel makes the next callback raise
 ``voxtopo.Cancelled``), then adds the score and period maps as image layers and fills a
 table with one row per region (tile, pixel bin). Selecting a row, or clicking a pixel of
-the score layer, shows that signal's trace and its H1 barcode below the table.
+the score layer, shows that signal's trace and its H1 barcode below the table. "Save
+result folder" writes the folder of `voxtopo periodicity` through the job's ``write``.
 """
 
 from __future__ import annotations
@@ -16,12 +17,14 @@ from qtpy.QtWidgets import (QAbstractItemView, QComboBox, QDoubleSpinBox, QFormL
                             QHBoxLayout, QLabel, QSpinBox, QTableWidget, QTableWidgetItem,
                             QVBoxLayout, QWidget)
 
+from voxtopo import jobs
 from voxtopo.errors import InputError, VoxtopoError
 from voxtopo.jobs.periodicity import PeriodicityOptions, describe, run, signal_bars
 from voxtopo.report.periodicity import RHYTHM, plot_bars, plot_trace
 from voxtopo.scan import FRAME, TimeLapse
 
 from ._background import BackgroundRun
+from ._saving import SavesResultFolder
 
 __all__ = ["SIGNALS", "TABLE_COLUMNS", "RhythmWidget"]
 
@@ -33,7 +36,7 @@ SIGNALS = {"every pixel (or bin of pixels)": "pixel", "tiles of the frame": "til
 TABLE_COLUMNS = ("region", "y", "x", "score", "period", "p_value", "significant")
 
 
-class RhythmWidget(BackgroundRun, QWidget):
+class RhythmWidget(BackgroundRun, SavesResultFolder, QWidget):
     """Dock panel measuring rhythms in a time-lapse image layer (t, y, x) or (t, z, y, x)."""
 
     WORK = "The rhythm search"
@@ -45,6 +48,7 @@ class RhythmWidget(BackgroundRun, QWidget):
         self.shown_row = None
         self._init_background("Find rhythms", "Measure the rhythms of the chosen time-lapse "
                               "in the background.", "Pick a time-lapse layer.")
+        self._init_saving("`voxtopo periodicity`")
 
         self.layer_choice = QComboBox()
         self.layer_choice.setToolTip("The time-lapse: an image layer whose first axis is time.")
@@ -108,6 +112,7 @@ class RhythmWidget(BackgroundRun, QWidget):
         layout = QVBoxLayout(self)
         layout.addLayout(form)
         self._add_run_controls(layout)
+        layout.addWidget(self.export_button)
         layout.addWidget(self.table)
         layout.addWidget(self.canvas)
 
@@ -190,6 +195,7 @@ class RhythmWidget(BackgroundRun, QWidget):
                                               "unit": result.time_unit}})
         score.mouse_drag_callbacks.append(self._on_map_click)
         self.result = result
+        self.export_button.setEnabled(True)
         self.score_layer, self.period_layer = score, period
         self._fill_table(table)
         # the job's own line: the same counts and words as `voxtopo periodicity`
@@ -240,3 +246,6 @@ class RhythmWidget(BackgroundRun, QWidget):
         self.canvas.draw_idle()
         self.shown_row = row
         self.shown_bars = bars
+
+    def _write_result(self, folder, force: bool):
+        return jobs.get("periodicity").write(self.result, folder, force)

@@ -10,12 +10,9 @@ during its computation takes effect when that step returns.)
 
 from __future__ import annotations
 
-from pathlib import Path
-
 from napari.layers import Image, Labels, Layer
-from napari.utils.notifications import show_info
-from qtpy.QtWidgets import (QCheckBox, QComboBox, QDoubleSpinBox, QFileDialog, QFormLayout,
-                            QLabel, QPushButton, QVBoxLayout, QWidget)
+from qtpy.QtWidgets import (QCheckBox, QComboBox, QDoubleSpinBox, QFormLayout,
+                            QLabel, QVBoxLayout, QWidget)
 
 from voxtopo.errors import InputError, VoxtopoError
 from voxtopo.jobs.analyse import AUTO, AnalysisOptions
@@ -24,6 +21,7 @@ from ._background import BackgroundRun
 from ._diagram_panel import DiagramPanel
 from ._job import run_analysis, scan_from_layer_data
 from ._layers import METADATA_KEY
+from ._saving import SavesResultFolder
 
 __all__ = ["AnalysisWidget", "MODES", "layer_unit"]
 
@@ -54,7 +52,7 @@ def layer_unit(layer) -> str:
     return "px" if text in ("pixel", "px", "") else text
 
 
-class AnalysisWidget(BackgroundRun, QWidget):
+class AnalysisWidget(BackgroundRun, SavesResultFolder, QWidget):
     """Dock panel running voxtopo on an image or labels layer."""
 
     WORK = "The analysis"
@@ -112,12 +110,7 @@ class AnalysisWidget(BackgroundRun, QWidget):
                                        "analysis too (pore volumes, percolation); it takes "
                                        "about twice as long.")
 
-        self.export_button = QPushButton("Save result folder…")
-        self.export_button.setToolTip("Write the result folder as the command does: "
-                                      "`voxtopo pores` for a porosity run, `voxtopo "
-                                      "analyse` otherwise.")
-        self.export_button.setEnabled(False)
-        self.export_button.clicked.connect(self._ask_export)
+        self._init_saving("`voxtopo pores` for a porosity run, `voxtopo analyse` otherwise")
 
         form = QFormLayout()
         form.addRow("layer", self.layer_choice)
@@ -272,22 +265,5 @@ class AnalysisWidget(BackgroundRun, QWidget):
             window.add_dock_widget(self.diagram_panel, name="voxtopo diagram", area="right")
         self.diagram_panel.show_result(name)
 
-    def _ask_export(self) -> None:
-        folder, _ = QFileDialog.getSaveFileName(self, "Name a new result folder",
-                                                str(Path.home() / "voxtopo-result"))
-        if folder:
-            self.export(folder)
-
-    def export(self, folder, force: bool = False):
-        """Write the current result as a voxtopo result folder; returns its path."""
-        if self.result is None:
-            self._fail("There is no result to save yet; press Find features first.")
-            return None
-        try:
-            out = self.result.export(folder, force=force)
-        except VoxtopoError as error:
-            self._fail(str(error))
-            return None
-        show_info(f"Saved the result in {out}.")
-        self.status.setText(f"Saved the result in {out}.")
-        return out
+    def _write_result(self, folder, force: bool):
+        return self.result.export(folder, force=force)
