@@ -152,7 +152,7 @@ def test_planted_disks_are_significant_where_they_are():
     diagram = voxtopo.persistence(image)
     tested, significance = assess(diagram, image)
     found = tested.pairs[(tested.pairs["dim"] == 0) & tested.pairs["significant"]]
-    births = found[["birth_y", "birth_x"]].to_numpy(dtype=float)
+    births = found[["birth_voxel_y", "birth_voxel_x"]].to_numpy(dtype=float)
     near = np.array([np.min(np.hypot(*(births - centre).T)) for centre in centres])
     assert np.all(near <= 5)
     at_disks = sum(np.min(np.hypot(*(np.array(centres) - b).T)) <= 5 for b in births)
@@ -172,7 +172,7 @@ def test_planted_ring_is_a_significant_loop():
     tested, _ = assess(voxtopo.persistence(image, superlevel=True), image)
     loops = tested.pairs[(tested.pairs["dim"] == 1) & tested.pairs["significant"]]
     assert len(loops) == 1
-    death = loops[["death_y", "death_x"]].to_numpy(dtype=float)[0]
+    death = loops[["death_voxel_y", "death_voxel_x"]].to_numpy(dtype=float)[0]
     assert np.hypot(*(death - 32)) < 12      # the loop is filled inside the ring
 
 

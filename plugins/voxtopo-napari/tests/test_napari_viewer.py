@@ -61,7 +61,7 @@ def test_points_layers_equal_gudhi_persistence(make_napari_viewer, qtbot):
     assert sorted(layers) == [0, 1, 2]
     for dim, layer in layers.items():
         rows = expected.pairs[expected.pairs["dim"] == dim]
-        births = rows[[f"birth_{a}" for a in AXES_3D]].to_numpy(dtype=np.float64)
+        births = rows[[f"birth_voxel_{a}" for a in AXES_3D]].to_numpy(dtype=np.float64)
         np.testing.assert_array_equal(_sorted_rows(layer.data), _sorted_rows(births))
         table = layer.features.sort_values(["birth", "death"]).reset_index(drop=True)
         rows = rows.sort_values(["birth", "death"]).reset_index(drop=True)
@@ -84,7 +84,7 @@ def test_2d_image_with_the_4_neighbourhood_equals_gudhi_vertices(make_napari_vie
     for dim, layer in layers.items():
         rows = expected.pairs[expected.pairs["dim"] == dim]
         np.testing.assert_array_equal(
-            _sorted_rows(layer.data), _sorted_rows(rows[["birth_y", "birth_x"]].to_numpy()))
+            _sorted_rows(layer.data), _sorted_rows(rows[["birth_voxel_y", "birth_voxel_x"]].to_numpy()))
         np.testing.assert_allclose(np.sort(layer.features["death"]), np.sort(rows["death"]))
     with pytest.raises(voxtopo.InputError, match=r"choose one of \[8, 4\]\.$"):
         widget.set_neighbourhood(26)
@@ -271,7 +271,7 @@ def test_reader_opens_a_folder_written_by_the_cli(make_napari_viewer, tmp_path):
         assert len(rows) == int((gudhi_pairs[:, 1] > gudhi_pairs[:, 0]).sum())
         np.testing.assert_array_equal(
             _sorted_rows(layers[dim].data),
-            _sorted_rows(rows[["birth_z", "birth_y", "birth_x"]].to_numpy()))
+            _sorted_rows(rows[["birth_voxel_z", "birth_voxel_y", "birth_voxel_x"]].to_numpy()))
         assert tuple(layers[dim].scale) == (3.0, 3.0, 3.0)
     assert set(_result_layers(viewer, "death")) == {0, 1, 2}
 

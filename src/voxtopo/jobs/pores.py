@@ -13,7 +13,7 @@ from pathlib import Path
 
 from .. import porosity
 from ..errors import InputError
-from ..io import load
+from ..io import load_on_grid_of
 from ..options import (AXIS, BOOLEAN, ENGINE, NEIGHBOURHOOD, NON_NEGATIVE, TEXT, THRESHOLD,
                        WHOLE, check, optional)
 from ..scan import Scan
@@ -82,22 +82,11 @@ class PoresResult:
     inputs: tuple = ()
 
 
-def _on_grid_of(scan: Scan, path: str, what: str) -> Scan:
-    """A mask of ``scan`` (pores, or the sample) read from ``path``, on the scan's voxel
-    size."""
-    other = load(path)
-    if other.shape != scan.shape:
-        raise InputError(f"The {what} {path} has shape {other.shape} but the scan "
-                         f"{scan.source or ''} has shape {scan.shape}; give a {what} of the "
-                         f"same scan.")
-    return other.with_data(other.data, spacing=scan.spacing, unit=scan.unit)
-
-
 def run(scan: Scan, options: PoresOptions | None = None, progress=None) -> PoresResult:
     """Measure the pore space of ``scan`` (or of ``options.mask`` over it)."""
     options = options or PoresOptions()
-    target = _on_grid_of(scan, options.mask, "mask") if options.mask else scan
-    roi = _on_grid_of(scan, options.roi, "region of interest") if options.roi else None
+    target = load_on_grid_of(scan, options.mask, "mask") if options.mask else scan
+    roi = load_on_grid_of(scan, options.roi, "region of interest") if options.roi else None
     axis = list(options.axis) if isinstance(options.axis, tuple) else options.axis
     analysis = porosity.analyse(target, threshold=options.threshold,
                                 pores_bright=options.pores_bright, label=options.label,

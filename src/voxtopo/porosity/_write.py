@@ -77,17 +77,6 @@ def column_units(table, unit: str, ndim: int) -> dict:
     return units
 
 
-def pairs_units(ndim: int, unit: str) -> dict:
-    """Column -> unit of pairs.csv: values in the scan's unit, locations as voxel indices,
-    ``robust`` a flag."""
-    units = {"dim": "", "birth": unit, "death": unit, "persistence": unit}
-    for which in ("birth", "death"):
-        for axis in AXES_3D[3 - ndim:]:
-            units[f"{which}_{axis}"] = "voxel index"
-    units["robust"] = ""
-    return units
-
-
 def write_pores(out, analysis, scan=None, force: bool = False, inputs=()) -> Path:
     """Write the result folder of a pore analysis, atomically.
 
@@ -98,7 +87,8 @@ def write_pores(out, analysis, scan=None, force: bool = False, inputs=()) -> Pat
         throat_radius, throat_z, throat_y, throat_x, border, lifetime, body_volume,
         isolated``; 2D drops the z columns and has ``body_area``), ``grains.csv``,
         ``loops.csv``, ``voids.csv`` (positions and sizes in the scan's unit),
-        ``pairs.csv`` (the diagram of the signed distance, locations as voxel indices),
+        ``pairs.csv`` (the diagram of the signed distance: positions in the scan's unit
+        and as voxel indices, :class:`voxtopo.Diagram`),
         ``summary.json`` (with ``columns``: file -> column -> unit) and the plots
         ``pore_sizes.png``, ``distance_diagram.png``, ``pore_slices.png``.
     analysis : PoreAnalysis
@@ -134,7 +124,7 @@ def write_pores(out, analysis, scan=None, force: bool = False, inputs=()) -> Pat
         summary["columns"] = {
             f"{name}.csv": column_units(getattr(analysis, name), unit, ndim)
             for name in ("pores", "grains", "loops", "voids")}
-        summary["columns"]["pairs.csv"] = pairs_units(ndim, unit)
+        summary["columns"]["pairs.csv"] = analysis.diagram.column_units()
         summary["plots"] = _plots(tmp, analysis, background, ndim)
         write_summary(tmp, summary)
         analysis.diagram.save(tmp)

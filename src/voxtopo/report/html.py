@@ -133,7 +133,7 @@ def _sections(summary: dict) -> list[dict]:
     """Sections for the keys the page does not lay out itself (other jobs' numbers)."""
     sections = []
     for key, value in summary.items():
-        if key in _KNOWN_KEYS:
+        if key in _KNOWN_KEYS or value is None:   # no region of interest, say
             continue
         title = key.replace("_", " ").capitalize()
         if isinstance(value, dict):

@@ -176,9 +176,8 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
         if with_regions and prepared.values == "distance":
             start = time.perf_counter()
             pores = diagram.dimension(0).pairs
-            axes = ("birth_z", "birth_y", "birth_x")[3 - diagram.ndim:]
             regions = porosity.pore_regions(
-                prepared.data, pores[list(axes)].to_numpy(dtype=np.int64),
+                prepared.data, diagram.dimension(0).voxels("birth"),
                 pores["death"].to_numpy(), diagram.neighbourhood, progress=progress)
             timings["pore_regions"] = time.perf_counter() - start
 

@@ -135,10 +135,10 @@ def read_result_folder(path) -> list[tuple]:
                                                                "which": "scan"}}}, "image"))
         if options.distance:
             prepared, _ = prepare(scan, options)
-            pores = diagram.dimension(0).pairs
-            axes = ("birth_z", "birth_y", "birth_x")[3 - diagram.ndim:]
-            regions = porosity.pore_regions(prepared.data, pores[list(axes)].to_numpy(dtype=np.int64),
-                                   pores["death"].to_numpy(), diagram.neighbourhood)
+            pores = diagram.dimension(0)
+            regions = porosity.pore_regions(prepared.data, pores.voxels("birth"),
+                                            pores.pairs["death"].to_numpy(),
+                                            diagram.neighbourhood)
     flag, thresholds = _verdict(summary)
     return layers + result_layers(diagram, placement, folder.name, mark_deaths=True,
                                   regions=regions, flag=flag, thresholds=thresholds,
