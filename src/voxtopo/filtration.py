@@ -349,7 +349,7 @@ def outside_last(scan, sample: np.ndarray, *, superlevel: bool = False,
     --------
     >>> field, level = outside_last(np.array([[1.0, 3.0], [2.0, 9.0]]),
     ...                             np.array([[True, True], [True, False]]))
-    >>> level, field.data[1, 1]
+    >>> level, float(field.data[1, 1])
     (6.0, 6.0)
     """
     scan = as_scan(scan)
