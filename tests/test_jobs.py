@@ -43,7 +43,7 @@ def test_a_mask_column_pairs_each_scan_with_its_mask_as_the_cli_does(tmp_path, c
 def test_a_mask_column_for_a_job_that_reads_no_mask_is_refused(tmp_path):
     np.save(tmp_path / "a.npy", np.eye(6))
     (tmp_path / "m.csv").write_text("path,mask\na.npy,a.npy\n")
-    with pytest.raises(InputError, match="only the pores job reads masks"):
+    with pytest.raises(InputError, match="only the pores job reads it"):
         batch.run_batch(tmp_path / "m.csv", tmp_path / "out", stream=io.StringIO())
     assert not (tmp_path / "out").exists()
 
@@ -225,3 +225,34 @@ def test_a_region_of_interest_with_a_distance_sweep_points_to_pores(tmp_path, ca
     assert cli.main(["analyse", str(tmp_path / "mask.npy"), "--out", str(tmp_path / "out"),
                      "--distance", "--roi", str(tmp_path / "mask.npy")]) == 2
     assert "voxtopo pores --roi" in capsys.readouterr().err
+
+
+def test_a_roi_column_pairs_each_scan_with_its_region_for_analyse(tmp_path, capsys,
+                                                                  cluster_address):
+    """A manifest's roi column gives the analyse job of each scan its own region, as
+    `voxtopo analyse --roi` does: the same pairs (the left half holds one disk: one
+    component that never dies, Hatcher 2002), and a roi for the patches job is refused."""
+    image, left = _disk_and_ring()
+    np.save(tmp_path / "field.npy", image)
+    np.save(tmp_path / "left.npy", left)
+    assert cli.main(["analyse", str(tmp_path / "field.npy"), "--out", str(tmp_path / "alone"),
+                     "--roi", str(tmp_path / "left.npy"), "--min-persistence", "0"]) == 0
+    (tmp_path / "m.csv").write_text("path,roi,name\nfield.npy,left.npy,left\n"
+                                    "field.npy,,whole\n")
+    (tmp_path / "s.toml").write_text('job = "analyse"\n[analyse]\nmin_persistence = 0\n')
+    table = batch.run_batch(tmp_path / "m.csv", tmp_path / "study",
+                            settings_path=tmp_path / "s.toml", scheduler=cluster_address,
+                            stream=io.StringIO())
+    assert list(table["status"]) == ["done", "done"]
+    assert table.loc[0, "region_of_interest_voxels"] == left.sum()
+    assert not any(c.startswith("columns") for c in table.columns)   # units stay in the json
+    alone = pd.read_csv(tmp_path / "alone" / "pairs.csv")
+    in_batch = pd.read_csv(tmp_path / "study" / "scans" / "left" / "pairs.csv")
+    pd.testing.assert_frame_equal(in_batch, alone)
+    assert list(in_batch["dim"]) == [0]
+    whole = pd.read_csv(tmp_path / "study" / "scans" / "whole" / "pairs.csv")
+    assert sorted(whole["dim"]) == [0, 0, 1]
+    (tmp_path / "p.toml").write_text('job = "patches"\n')
+    with pytest.raises(InputError, match="only the analyse and pores jobs read it"):
+        batch.run_batch(tmp_path / "m.csv", tmp_path / "patches", stream=io.StringIO(),
+                        settings_path=tmp_path / "p.toml")

@@ -384,7 +384,7 @@ class AnalysisResult:
         by_dim = ", ".join(f"dim {d}: {n}" for d, n in self.diagram.counts().items()
                            if d not in skipped)
         region = self.region()
-        within = "" if region is None else f"; {region['said']}"
+        within = "" if region is None else f"; {region_phrase(region)}"
         if not self.options.keeps_all_tested and self.verdict.tested_any:
             return (f"{kept} {self.verdict.flag} of {total} pairs {self.verdict.level}; "
                     f"{by_dim}{within}")
@@ -410,9 +410,14 @@ def describe_region(sample: np.ndarray | None, grid: Scan, roi) -> dict | None:
     return {"file": None if roi is None else str(roi), "voxels": voxels, size: amount,
             "unit": unit, "fraction_of_analysed_scan": voxels / sample.size,
             "meaning": "voxels outside the region are not part of the cubical complex; the "
-                       "noise is read and simulated within the region",
-            "said": f"within the region of interest ({voxels} voxels, {size} "
-                    f"{amount:.4g} {unit})"}
+                       "noise is read and simulated within the region"}
+
+
+def region_phrase(region: dict) -> str:
+    """The region of interest (:func:`describe_region`) in the words beside every count."""
+    size = "volume" if "volume" in region else "area"
+    return (f"within the region of interest ({region['voxels']} voxels, {size} "
+            f"{region[size]:.4g} {region['unit']})")
 
 
 def run(scan: Scan, options: AnalysisOptions | None = None, progress=None) -> AnalysisResult:
@@ -451,7 +456,7 @@ def run(scan: Scan, options: AnalysisOptions | None = None, progress=None) -> An
             del swept
             diagram = diagram.without_outside(outside)
             diagram = replace(diagram, notes=diagram.notes + (
-                describe_region(sample, prepared, options.roi)["said"],))
+                region_phrase(describe_region(sample, prepared, options.roi)),))
         timings["persistence"] = time.perf_counter() - start
         start = time.perf_counter()
         verdict = judge(diagram, unsmoothed, options, progress, sample)
@@ -614,7 +619,7 @@ def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepare
                               if not options.keeps_all_tested and verdict.tested_any else
                               "all pairs" if threshold == 0 else
                               f"pairs with persistence above {threshold:g}")
-                  + ("" if region is None else f", {region['said']}"),
+                  + ("" if region is None else f", {region_phrase(region)}"),
                   "pairs_computed": {str(d): n for d, n in verdict.tested.counts().items()}}
     return {
         "voxtopo_version": __version__,
