@@ -179,6 +179,7 @@ def test_analyse_with_a_region_sweeps_only_the_region(tmp_path, capsys):
     assert "within the region of interest" in summary["counted"]
     report = (tmp_path / "left" / "report.html").read_text()
     assert "Region of interest" in report and "450" in report
+    assert "Columns of pairs.csv and their units" in report
 
 
 def test_significance_within_a_region_ignores_the_noise_outside_it(tmp_path):
