@@ -215,7 +215,7 @@ def null_distribution(shape, noise: NoiseModel, *, smoothing: float | None = Non
     if not 0 < alpha < 1:
         raise InputError(f"The significance level alpha must lie between 0 and 1, got {alpha}.")
     smoothing_voxels = [smoothing / s for s in noise.spacing] if smoothing else []
-    voxels = math.prod(shape) if sample is None else int(np.count_nonzero(sample))
+    voxels = math.prod(shape)
     if block_shape is None:
         block_shape = shape if voxels <= FULL_SHAPE_VOXELS else \
             _block_shape(shape, noise, smoothing_voxels)
@@ -253,5 +253,7 @@ def null_distribution(shape, noise: NoiseModel, *, smoothing: float | None = Non
     if full:
         return NullDistribution(maxima, "full shape", block_shape, 1.0, (), seed)
     gumbel = tuple(_fit_gumbel(maxima[:, d]) for d in range(ndim))
-    return NullDistribution(maxima, "blocks", block_shape, voxels / math.prod(block_shape),
+    # a block stands for as many voxels of the field as were swept: the region's only
+    swept = voxels if sample is None else int(np.count_nonzero(sample))
+    return NullDistribution(maxima, "blocks", block_shape, swept / math.prod(block_shape),
                             gumbel, seed)
