@@ -182,6 +182,28 @@ def test_analyse_with_a_region_sweeps_only_the_region(tmp_path, capsys):
     assert "Columns of pairs.csv and their units" in report
 
 
+def test_invalid_voxels_outside_the_region_are_never_swept(tmp_path):
+    """A scan masked with NaN outside its region gives the region's diagram, the same as
+    the scan with any finite values there (outside voxels are not part of the complex);
+    one NaN inside is still refused in one sentence."""
+    image, left = _disk_and_ring()
+    masked = np.where(left, image, np.nan)
+    np.save(tmp_path / "masked.npy", masked)
+    np.save(tmp_path / "field.npy", image)
+    np.save(tmp_path / "left.npy", left)
+    for name in ("masked", "field"):
+        assert cli.main(["analyse", str(tmp_path / f"{name}.npy"), "--out",
+                         str(tmp_path / f"out-{name}"), "--roi", str(tmp_path / "left.npy"),
+                         "--min-persistence", "0"]) == 0
+    pd.testing.assert_frame_equal(pd.read_csv(tmp_path / "out-masked" / "pairs.csv"),
+                                  pd.read_csv(tmp_path / "out-field" / "pairs.csv"))
+    masked[3, 3] = np.nan
+    np.save(tmp_path / "masked.npy", masked)
+    assert cli.main(["analyse", str(tmp_path / "masked.npy"), "--out", str(tmp_path / "bad"),
+                     "--roi", str(tmp_path / "left.npy"), "--min-persistence", "0"]) == 2
+    assert not (tmp_path / "bad").exists()
+
+
 def test_significance_within_a_region_ignores_the_noise_outside_it(tmp_path):
     """Noise of level 1 inside the region and 30 outside: the noise is read off the region
     (Donoho & Johnstone 1994: the MAD of differences; level 1 by construction), so a dark

@@ -195,15 +195,39 @@ def preparation_plan(scan: Scan, options: AnalysisOptions) -> list[tuple[str, in
 
 
 def region_of_interest(scan: Scan, options: AnalysisOptions) -> np.ndarray | None:
-    """The region of interest of ``options.roi`` on the grid that is swept: cropped like
-    the scan, and after downsampling the blocks that lie wholly inside it; None without
-    one. A mask of another shape, not binary, or empty (before or after) is refused in
-    one sentence."""
+    """The region of interest of ``options.roi`` on the scan's grid (True inside), or None
+    without one. A mask of another shape, not binary, or empty is refused in one
+    sentence."""
     if options.roi is None:
         return None
+    return filt.region_of_interest(load_on_grid_of(scan, options.roi, "region of interest"),
+                                   scan.shape, scan.source or "array")
+
+
+def outside_made_finite(scan: Scan, region: np.ndarray) -> Scan:
+    """``scan`` with NaN or infinite voxels outside ``region`` set to the lowest value
+    inside, since those voxels never enter the sweep (a scan masked with NaN outside its
+    field of view); invalid voxels inside are left for the usual refusal."""
+    data = scan.data
+    if not np.issubdtype(data.dtype, np.floating):
+        return scan
+    invalid_outside = ~np.isfinite(data) & ~region
+    if not invalid_outside.any():
+        return scan
+    ensure_fits(data.nbytes, f"Setting the invalid voxels outside the region of interest of "
+                             f"the {'x'.join(map(str, scan.shape))} scan",
+                filt.PREPARATION_REMEDY)
+    inside = data[region & np.isfinite(data)]
+    lowest = inside.min() if inside.size else 0.0
+    return scan.with_data(np.where(invalid_outside, lowest, data))
+
+
+def region_as_swept(region: np.ndarray, scan: Scan, options: AnalysisOptions) -> np.ndarray:
+    """``region`` (on the scan's grid) on the grid that is swept: cropped like the scan,
+    and after downsampling the blocks that lie wholly inside it; a region left empty is
+    refused in one sentence."""
     where = scan.source or "array"
-    sample = filt.region_of_interest(load_on_grid_of(scan, options.roi, "region of interest"),
-                                     scan.shape, where)
+    sample = region
     if options.crop:
         sample = filt.crop(scan.with_data(sample), options.crop).data
     if options.downsample and options.downsample != 1:
@@ -439,8 +463,14 @@ def run(scan: Scan, options: AnalysisOptions | None = None, progress=None) -> An
     with reported_as_too_big(f"Analysing {scan.source or 'the scan'}",
                              max(needed for _, needed in plan), filt.PREPARATION_REMEDY):
         start = time.perf_counter()
-        sample = region_of_interest(scan, options)
-        unsmoothed, notes = prepare_unsmoothed(scan, options, plan)
+        region = region_of_interest(scan, options)
+        sample, given = None, scan
+        if region is not None:
+            given = outside_made_finite(scan, region)
+            sample = region_as_swept(region, scan, options)
+            del region
+        unsmoothed, notes = prepare_unsmoothed(given, options, plan)
+        del given
         prepared = finish_preparation(unsmoothed, options, notes)
         timings["prepare"] = time.perf_counter() - start
         start = time.perf_counter()
