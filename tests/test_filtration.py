@@ -2,6 +2,7 @@
 
 import numpy as np
 import pytest
+from reference import gudhi_intervals
 from scipy import ndimage
 
 import voxtopo
@@ -101,23 +102,12 @@ def test_an_empty_crop_is_told_in_the_users_words():
 
 # --- region of interest ---------------------------------------------------------------------
 def _gudhi_region_intervals(image, sample, dim, superlevel, neighbourhood):
-    """Reference: gudhi (Maria, Boissonnat, Glisse & Yvinec 2014, ICMS), a CubicalComplex
-    of the image with the voxels outside the region at +inf, so that they never enter the
-    complex (voxel construction for 8 / 26, vertex construction for 4 / 6); superlevel as
-    the sublevel filtration of the negated values."""
-    import gudhi
-
-    values = -image.astype(np.float64) if superlevel else image.astype(np.float64)
-    values[~sample] = np.inf
-    key = "top_dimensional_cells" if neighbourhood in (8, 26) else "vertices"
-    complex_ = gudhi.CubicalComplex(**{key: values})
-    complex_.compute_persistence(homology_coeff_field=2, min_persistence=0)
-    intervals = complex_.persistence_intervals_in_dimension(dim)
-    if len(intervals) == 0:
-        return []
-    intervals = intervals[np.isfinite(intervals[:, 0]) & (intervals[:, 1] > intervals[:, 0])]
-    if superlevel:
-        intervals = -intervals
+    """Reference: gudhi (reference.gudhi_intervals) on the image with the voxels outside the
+    region set to where the sweep never reaches (+inf, superlevel -inf), so that they never
+    enter the complex."""
+    values = np.where(sample, image, -np.inf if superlevel else np.inf)
+    construction = "voxel" if neighbourhood in (8, 26) else "vertex"
+    intervals = gudhi_intervals(values, dim, construction=construction, superlevel=superlevel)
     return sorted(map(tuple, np.round(intervals, 9)))
 
 
@@ -127,7 +117,8 @@ def _gudhi_region_intervals(image, sample, dim, superlevel, neighbourhood):
 def test_a_region_of_interest_gives_the_diagram_of_the_region_alone(shape, neighbourhood,
                                                                     superlevel):
     """Outside voxels entering last, then dropped, give exactly the persistence of the
-    region's own cubical complex: gudhi with the outside at +inf (source in the helper).
+    region's own cubical complex: gudhi (Maria, Boissonnat, Glisse & Yvinec 2014) with the
+    outside at +inf.
     The region is irregular (several pieces, holes), the values have ties."""
     rng = np.random.default_rng(sum(shape) + neighbourhood + superlevel)
     image = np.round(rng.random(shape) * 6) / 6

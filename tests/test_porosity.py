@@ -24,7 +24,8 @@ import pytest
 from skimage.measure import euler_number
 
 from voxtopo.errors import InputError
-from voxtopo.porosity import analyse, write_pores
+from voxtopo.jobs.pores import write_pores
+from voxtopo.porosity import analyse
 from voxtopo.porosity._euler import euler_characteristic, euler_characteristic_python
 
 ONE_VOXEL = 1.0
@@ -697,7 +698,7 @@ def test_diagram_plot_names_the_zones_in_our_words(simple_cubic):
     import matplotlib
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
-    from voxtopo.porosity._write import _diagram_plot
+    from voxtopo.report.pores import _diagram_plot
     mask, radius, result = simple_cubic
     fig = _diagram_plot(plt, result, "px", mask, 3)
     labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]

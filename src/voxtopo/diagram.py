@@ -130,11 +130,31 @@ class Diagram:
         return len(self.pairs)
 
     def dimension(self, dim: int) -> "Diagram":
-        """Only the pairs of homological dimension ``dim``."""
+        """Only the pairs of homological dimension ``dim``.
+
+        Parameters
+        ----------
+        dim : int
+            Homology dimension.
+
+        Returns
+        -------
+        Diagram
+        """
         return self._with_pairs(self.pairs[self.pairs["dim"] == dim])
 
     def above(self, min_persistence: float) -> "Diagram":
-        """Only the pairs whose persistence is strictly greater than ``min_persistence``."""
+        """Only the pairs whose persistence is strictly greater than ``min_persistence``.
+
+        Parameters
+        ----------
+        min_persistence : float
+            The shortest lifetime kept is just above this, in the diagram's units.
+
+        Returns
+        -------
+        Diagram
+        """
         return self._with_pairs(self.pairs[self.pairs["persistence"] > min_persistence])
 
     def finite(self) -> "Diagram":
@@ -142,18 +162,53 @@ class Diagram:
         return self._with_pairs(self.pairs[np.isfinite(self.pairs["death"])])
 
     def intervals(self, dim: int) -> np.ndarray:
-        """(n, 2) array of (birth, death) in dimension ``dim``."""
+        """(n, 2) array of (birth, death) in dimension ``dim``.
+
+        Parameters
+        ----------
+        dim : int
+            Homology dimension.
+
+        Returns
+        -------
+        ndarray of float64, shape (n, 2)
+            Essential classes have death ``inf`` (superlevel: ``-inf``).
+        """
         rows = self.pairs[self.pairs["dim"] == dim]
         return rows[["birth", "death"]].to_numpy(dtype=np.float64)
 
     def most_persistent(self, n: int = 10, dim: int | None = None) -> pd.DataFrame:
-        """The ``n`` longest-lived pairs (per dimension when ``dim`` is None)."""
+        """The ``n`` longest-lived pairs (per dimension when ``dim`` is None).
+
+        Parameters
+        ----------
+        n : int
+            Pairs per dimension.
+        dim : int, optional
+            Only this dimension.
+
+        Returns
+        -------
+        DataFrame
+            Rows of ``pairs``, by dimension and then longest first.
+        """
         rows = self.pairs if dim is None else self.pairs[self.pairs["dim"] == dim]
         return (rows.sort_values(["dim", "persistence"], ascending=[True, False], kind="stable")
                 .groupby("dim", group_keys=False).head(n))
 
     def counts(self, min_persistence: float | None = None) -> dict[int, int]:
-        """Number of pairs per dimension (above ``min_persistence`` when given)."""
+        """Number of pairs per dimension (above ``min_persistence`` when given).
+
+        Parameters
+        ----------
+        min_persistence : float, optional
+            Count only pairs whose persistence is strictly greater.
+
+        Returns
+        -------
+        dict
+            Dimension (0 to ndim - 1) -> number of pairs.
+        """
         rows = self.pairs if min_persistence is None else \
             self.pairs[self.pairs["persistence"] > min_persistence]
         return {d: int((rows["dim"] == d).sum()) for d in range(self.ndim)}
@@ -170,13 +225,34 @@ class Diagram:
         """Betti numbers [b0, b1, (b2)] of the swept set at ``level``.
 
         Sublevel: the set {value <= level}; superlevel: {value >= level}.
+
+        Parameters
+        ----------
+        level : float
+            The level of the sweep, in the diagram's units.
+
+        Returns
+        -------
+        list of int
+            One Betti number per dimension.
         """
         alive = self._alive(level)
         dims = self.pairs["dim"].to_numpy()
         return [int(np.count_nonzero(alive & (dims == k))) for k in range(self.ndim)]
 
     def betti_curve(self, levels) -> pd.DataFrame:
-        """Betti numbers at each level: columns ``level, betti_0, betti_1, (betti_2)``."""
+        """Betti numbers at each level: columns ``level, betti_0, betti_1, (betti_2)``.
+
+        Parameters
+        ----------
+        levels : array_like
+            Levels of the sweep, in the diagram's units.
+
+        Returns
+        -------
+        DataFrame
+            One row per level, in the order given.
+        """
         levels = np.asarray(levels, dtype=np.float64)
         b = self.pairs["birth"].to_numpy()
         d = self.pairs["death"].to_numpy()
@@ -195,13 +271,36 @@ class Diagram:
         return pd.DataFrame(out)
 
     def euler_curve(self, levels) -> pd.DataFrame:
-        """Euler characteristic (alternating sum of Betti numbers) at each level."""
+        """Euler characteristic (alternating sum of Betti numbers) at each level.
+
+        Parameters
+        ----------
+        levels : array_like
+            Levels of the sweep, in the diagram's units.
+
+        Returns
+        -------
+        DataFrame
+            Columns ``level, euler_characteristic``.
+        """
         curve = self.betti_curve(levels)
         chi = sum((-1) ** k * curve[f"betti_{k}"] for k in range(self.ndim))
         return pd.DataFrame({"level": curve["level"], "euler_characteristic": chi})
 
     def level_grid(self, n: int = 256) -> np.ndarray:
-        """n levels spanning every finite birth and death."""
+        """n levels spanning every finite birth and death.
+
+        Parameters
+        ----------
+        n : int
+            Number of levels.
+
+        Returns
+        -------
+        ndarray of float64
+            Increasing levels from the lowest to the highest finite value; one level when
+            all values are equal, ``[0.]`` when there is none.
+        """
         vals = self.pairs[["birth", "death"]].to_numpy(dtype=np.float64).ravel()
         vals = vals[np.isfinite(vals)]
         if len(vals) == 0:
@@ -218,7 +317,19 @@ class Diagram:
     # positions ------------------------------------------------------------------------
     def positions(self, which: str = "birth") -> np.ndarray:
         """(n, ndim) positions of the birth or death voxels in the scan's unit (NaN where
-        none)."""
+        none).
+
+        Parameters
+        ----------
+        which : {"birth", "death"}
+            Which voxel of each pair.
+
+        Returns
+        -------
+        ndarray of float64, shape (n, ndim)
+            The ``birth_z ..`` (or ``death_z ..``) columns: voxel indices times the
+            spacing, in the diagram's unit, (z, y, x) order.
+        """
         axes = AXES_3D[3 - self.ndim:]
         return self.pairs[[f"{which}_{a}" for a in axes]].to_numpy(dtype=np.float64,
                                                                    na_value=np.nan)
@@ -283,7 +394,15 @@ class Diagram:
     def save(self, folder, name: str = "pairs.csv") -> None:
         """Write ``pairs.csv`` and the diagram's description into ``summary.json``
         (merged under the key ``"diagram"`` when summary.json exists), with the unit of
-        every column under ``"columns"`` unless the summary already gives them."""
+        every column under ``"columns"`` unless the summary already gives them.
+
+        Parameters
+        ----------
+        folder : str or Path
+            An existing folder (a result folder being filled).
+        name : str
+            The file name of the pairs table.
+        """
         folder = Path(folder)
         from .io.results import read_summary, write_summary
 

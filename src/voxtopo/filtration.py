@@ -44,14 +44,43 @@ def _shape_text(shape) -> str:
 def smoothing_bytes(shape, dtype) -> int:
     """Bytes :func:`smooth` allocates beyond the scan: a float32 copy of the values (unless
     they are float32 already) and the float32 result (measured with tracemalloc: 4 and 8
-    bytes per voxel)."""
+    bytes per voxel).
+
+    Parameters
+    ----------
+    shape : tuple of int
+        The scan's shape.
+    dtype : numpy dtype
+        The scan's type.
+
+    Returns
+    -------
+    int
+
+    Examples
+    --------
+    >>> smoothing_bytes((10, 10), "float32"), smoothing_bytes((10, 10), "uint16")
+    (400, 800)
+    """
     copy = 0 if np.dtype(dtype) == np.float32 else 4
     return _voxels(shape) * (4 + copy)
 
 
 def downsampling_bytes(shape, factors) -> int:
     """Bytes :func:`downsample` allocates beyond the scan: the blocks as float64, their
-    float64 means and the means cast back (at most 8 bytes each)."""
+    float64 means and the means cast back (at most 8 bytes each).
+
+    Parameters
+    ----------
+    shape : tuple of int
+        The scan's shape.
+    factors : tuple of int
+        The downsampling factor per axis.
+
+    Returns
+    -------
+    int
+    """
     voxels = _voxels(shape)
     blocks = _voxels(factors)
     return voxels * 8 + (voxels // blocks + 1) * 16
@@ -60,7 +89,17 @@ def downsampling_bytes(shape, factors) -> int:
 def distance_bytes(shape) -> int:
     """Bytes :func:`signed_distance` allocates beyond the mask: scipy's feature transform
     (one int32 index per axis and voxel) and distances, for both phases, and the signed
-    float64 field (measured with tracemalloc: 41 bytes per voxel in 2D, 57 in 3D)."""
+    float64 field (measured with tracemalloc: 41 bytes per voxel in 2D, 57 in 3D).
+
+    Parameters
+    ----------
+    shape : tuple of int
+        The mask's shape (2D or 3D).
+
+    Returns
+    -------
+    int
+    """
     return _voxels(shape) * (33 + 8 * len(shape))
 
 
@@ -69,6 +108,27 @@ def smooth(scan, sigma: float) -> Scan:
 
     The kernel's width along each axis is sigma / spacing voxels, so an anisotropic scan is
     smoothed by the same physical amount in every direction.
+
+    Parameters
+    ----------
+    scan : Scan or ndarray
+        The scan (an array is taken with spacing 1 px).
+    sigma : float
+        Standard deviation of the Gaussian in the scan's unit; 0 or None leaves the scan
+        as it is.
+
+    Returns
+    -------
+    Scan
+        float32 values; ``metadata["smoothing_sigma"]`` records sigma.
+
+    Raises
+    ------
+    InputError
+        For a negative or non-finite sigma, one longer than the scan along an axis, or NaN
+        values.
+    TooBigError
+        When the smoothed copy would not fit in memory.
     """
     scan = as_scan(scan)
     if sigma is None or sigma == 0:
@@ -105,7 +165,24 @@ def _voxel_sigmas(scan: Scan, sigma: float) -> list[float]:
 
 
 def parse_box(text: str, ndim: int) -> tuple[slice, ...]:
-    """'10:50,0:64,:' -> slices, in (z, y, x) order; empty bounds mean the whole axis."""
+    """'10:50,0:64,:' -> slices, in (z, y, x) order; empty bounds mean the whole axis.
+
+    Parameters
+    ----------
+    text : str
+        One ``start:stop`` range per axis, separated by commas.
+    ndim : int
+        The scan's number of dimensions.
+
+    Returns
+    -------
+    tuple of slice
+
+    Examples
+    --------
+    >>> parse_box("10:50,:", 2)
+    (slice(10, 50, None), slice(None, None, None))
+    """
     parts = [p.strip() for p in text.split(",")]
     if len(parts) != ndim:
         raise InputError(f"A crop box for a {ndim}D scan needs {ndim} ranges like "
@@ -124,7 +201,25 @@ def parse_box(text: str, ndim: int) -> tuple[slice, ...]:
 
 
 def crop(scan, box) -> Scan:
-    """The part of the scan inside ``box`` (a tuple of slices or a 'a:b,c:d,...' string)."""
+    """The part of the scan inside ``box`` (a tuple of slices or a 'a:b,c:d,...' string).
+
+    Parameters
+    ----------
+    scan : Scan or ndarray
+        The scan.
+    box : tuple of slice or str
+        One range per axis, in voxels (see :func:`parse_box`).
+
+    Returns
+    -------
+    Scan
+        The cropped values; ``metadata["crop_origin"]`` holds the first voxel kept.
+
+    Raises
+    ------
+    InputError
+        For a box of the wrong number of ranges, or one that leaves nothing.
+    """
     scan = as_scan(scan)
     if isinstance(box, str):
         box = parse_box(box, scan.ndim)
@@ -147,6 +242,24 @@ def downsample(scan, factor) -> Scan:
 
     Voxels left over at the far end of an axis (shape not divisible by the factor) are
     dropped. The spacing grows by the factor.
+
+    Parameters
+    ----------
+    scan : Scan or ndarray
+        The scan.
+    factor : int or sequence of int
+        Block side, 1 or more, for every axis or per axis.
+
+    Returns
+    -------
+    Scan
+        The block means in the scan's type (integers rounded); the spacing times the
+        factors; ``metadata["downsample"]`` records them.
+
+    Raises
+    ------
+    InputError
+        For a factor below 1, one per axis of the wrong count, or one larger than the scan.
     """
     scan = as_scan(scan)
     factors = (int(factor),) * scan.ndim if np.isscalar(factor) else tuple(int(f) for f in factor)
@@ -179,8 +292,27 @@ def downsample(scan, factor) -> Scan:
 def threshold(scan, value="otsu", *, below: bool = True) -> tuple[np.ndarray, float]:
     """Binary mask of the voxels at or below ``value`` (or above, with ``below=False``).
 
-    ``value="otsu"`` picks the threshold by Otsu's method (scikit-image). Returns the mask
-    and the threshold used.
+    ``value="otsu"`` picks the threshold by Otsu's method (scikit-image).
+
+    Parameters
+    ----------
+    scan : Scan or ndarray
+        The gray scan.
+    value : float or "otsu"
+        The threshold, in the scan's gray values.
+    below : bool
+        True: the mask holds the voxels at or below ``value``; False: those above.
+
+    Returns
+    -------
+    mask : ndarray of bool
+    value : float
+        The threshold used.
+
+    Raises
+    ------
+    InputError
+        For NaN values, or a constant scan with "otsu".
     """
     scan = as_scan(scan)
     check_finite(scan)
@@ -245,7 +377,20 @@ def signed_distance(mask_or_scan, spacing=None, unit=None) -> Scan:
 
 
 def check_finite(scan_or_array, source: str | None = None) -> None:
-    """Raise InputError when the data hold NaN or infinite values."""
+    """Raise InputError when the data hold NaN or infinite values.
+
+    Parameters
+    ----------
+    scan_or_array : Scan or array_like
+        The values.
+    source : str, optional
+        What they are, for the message (default the scan's source).
+
+    Raises
+    ------
+    InputError
+        With the number of NaN or infinite voxels and the remedies.
+    """
     if isinstance(scan_or_array, Scan):
         data, source = scan_or_array.data, source or scan_or_array.source
     else:
@@ -261,7 +406,32 @@ def check_finite(scan_or_array, source: str | None = None) -> None:
 
 def fill_invalid(scan, value="max") -> Scan:
     """Replace NaN and infinite voxels by ``value``: a number, "max" or "min" of the
-    valid voxels. With "max" they enter a sublevel sweep last (they act as background)."""
+    valid voxels. With "max" they enter a sublevel sweep last (they act as background).
+
+    Parameters
+    ----------
+    scan : Scan or ndarray
+        The scan; integer scans are returned as they are.
+    value : float, "max" or "min"
+        What the invalid voxels become.
+
+    Returns
+    -------
+    Scan
+        A copy with the voxels filled (``metadata["filled_invalid"]`` counts them), or
+        ``scan`` itself when none is invalid.
+
+    Raises
+    ------
+    InputError
+        When no voxel is valid.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> fill_invalid(np.array([[1.0, np.nan, 3.0]])).data.tolist()
+    [[1.0, 3.0, 3.0]]
+    """
     scan = as_scan(scan)
     data = scan.data
     if not np.issubdtype(data.dtype, np.floating):

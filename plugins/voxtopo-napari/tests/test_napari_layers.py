@@ -126,7 +126,7 @@ def test_plugin_and_cli_report_the_same_pores(tmp_path, capsys):
     result = run_analysis(scan, options, name="gray", with_porosity=True)
     assert result.porosity["counts"] == summary["counts"]
     assert result.porosity["porosity"] == summary["porosity"]
-    from voxtopo.porosity import summary_lines
+    from voxtopo.jobs.pores import summary_lines
     assert [line for line in summary_lines(result.porosity)] == printed
     pores_layer = result.layers[0]
     assert len(pores_layer[0]) == summary["counts"]["pores"]

@@ -245,6 +245,23 @@ def read_header(path, *, shape=None, dtype=None, byte_order="little", offset=0,
     arguments are :func:`load`'s, for raw files and pyramid levels. Bad paths and files
     get the same one-sentence :class:`~voxtopo.InputError` as :func:`load`.
 
+    Parameters
+    ----------
+    path : str or Path
+        A file, folder of slices or zarr store :func:`load` reads.
+    shape, dtype, byte_order, offset : optional
+        The layout of a raw file (its shape in z, y, x order, its voxel type, "little" or
+        "big", bytes before the first voxel).
+    level : int
+        The resolution level of a pyramid (OME-Zarr, pyramidal TIFF); 0 is the full one.
+
+    Returns
+    -------
+    shape : tuple of int
+        The z, y, x (or y, x) sizes.
+    dtype : numpy.dtype
+        The stored voxel type.
+
     Examples
     --------
     >>> import tempfile, pathlib

@@ -30,7 +30,23 @@ JOBS = {"analyse": ".analyse", "pores": ".pores", "patches": ".patches",
 
 
 def get(name: str) -> ModuleType:
-    """The module of the job called ``name``."""
+    """The module of the job called ``name``.
+
+    Parameters
+    ----------
+    name : str
+        One of :data:`JOBS`: "analyse", "pores", "patches" or "periodicity".
+
+    Returns
+    -------
+    module
+        The job's module, with ``Options``, ``run``, ``write`` and ``describe``.
+
+    Raises
+    ------
+    InputError
+        For a name that is not a job.
+    """
     if name not in JOBS:
         raise InputError(f"{name!r} is not a voxtopo job; choose one of {sorted(JOBS)}.")
     return import_module(JOBS[name], __name__)

@@ -450,12 +450,25 @@ def run(scan: Scan, options: AnalysisOptions | None = None, progress=None) -> An
     Parameters
     ----------
     scan : Scan
-    options : AnalysisOptions
+        The scan as read (:func:`voxtopo.load`).
+    options : AnalysisOptions, optional
+        The settings; the defaults of ``voxtopo analyse`` without one.
     progress : callable(phase, fraction), optional
+        Called as the work goes on; may raise :class:`~voxtopo.Cancelled`.
 
     Returns
     -------
     AnalysisResult
+        The scan, the prepared filtration, the diagram kept (every pair, or those that
+        passed the test), the verdict of the test, the options, notes and timings.
+
+    Raises
+    ------
+    InputError
+        For options the scan cannot take (a threshold without a distance sweep, a crop
+        outside the scan, NaN values without fill_invalid, ...).
+    TooBigError
+        When the preparation or the sweep would not fit in memory (with the estimate).
     """
     options = options or AnalysisOptions()
     timings = {}
@@ -500,14 +513,42 @@ def run(scan: Scan, options: AnalysisOptions | None = None, progress=None) -> An
 
 
 def write(result: AnalysisResult, out, force: bool = False) -> Path:
-    """Fill the result folder ``out`` (see :func:`write_result`)."""
+    """Fill the result folder ``out`` (see :func:`write_result`).
+
+    Parameters
+    ----------
+    result : AnalysisResult
+        What :func:`run` returned.
+    out : str or Path
+        The result folder to create: pairs.csv, summary.json, the plots and report.html,
+        written whole or not at all.
+    force : bool
+        Replace ``out`` when it is a result folder voxtopo wrote.
+
+    Returns
+    -------
+    Path
+        ``out``.
+    """
     return write_result(out, result.scan, result.diagram, result.options,
                         prepared=result.prepared, timings=result.timings, notes=result.notes,
                         force=force, verdict=result.verdict, region=result.region())
 
 
 def describe(result: AnalysisResult) -> str:
-    """What was found, in the words of the CLI line and the plugin's status."""
+    """What was found, in the words of the CLI line and the plugin's status.
+
+    Parameters
+    ----------
+    result : AnalysisResult
+        What :func:`run` (or :func:`run_out_of_core`) returned.
+
+    Returns
+    -------
+    str
+        The counts with what they count (method and level), the engine and its time, and,
+        on a second line, that the voxel size is unknown when it is.
+    """
     where = ("out of core" if "out_of_core" in result.notes
              else f"with the {result.diagram.engine} engine")
     line = f"{result.headline()}; persistence in {result.diagram.seconds:.2f} s {where}"
@@ -573,6 +614,30 @@ def run_out_of_core(source, options: AnalysisOptions | None = None, *, load_opti
     dimension 1 of a volume is absent. Options that need the whole volume at once
     (smoothing, cropping, downsampling, the distance transform, periodic boundaries,
     filling invalid voxels, other fields than Z/2) are refused.
+
+    Parameters
+    ----------
+    source : str or Path
+        A zarr array or OME-Zarr image (:func:`voxtopo.io.open_chunked`).
+    options : AnalysisOptions, optional
+        The settings; only superlevel, neighbourhood and min_persistence apply here.
+    load_options : dict, optional
+        ``spacing``, ``unit``, ``channel``, ``timepoint`` and ``level`` of the store.
+    chunks : tuple of int, optional
+        The block shape of the work; default the store's chunks.
+    scheduler : optional
+        A dask scheduler or Client for the chunk tasks (default dask's own).
+
+    Returns
+    -------
+    AnalysisResult
+        Every pair listed (untested), the dimensions not computed named in its notes.
+
+    Raises
+    ------
+    InputError
+        For options or load options the out-of-core path cannot apply, or a store it
+        cannot open.
     """
     from ..engine.chunked import chunked_persistence
     from ..io import open_chunked
@@ -623,7 +688,23 @@ def run_out_of_core(source, options: AnalysisOptions | None = None, *, load_opti
 def analyse_out_of_core(source, out, options: AnalysisOptions | None = None, *,
                         load_options=None, chunks=None, force: bool = False,
                         scheduler=None) -> Diagram:
-    """:func:`run_out_of_core` then :func:`write`; returns the diagram."""
+    """:func:`run_out_of_core` then :func:`write`; returns the diagram.
+
+    Parameters
+    ----------
+    source : str or Path
+        A zarr array or OME-Zarr image.
+    out : str or Path
+        The result folder to create (checked before any chunk is read).
+    options, load_options, chunks, scheduler
+        As for :func:`run_out_of_core`.
+    force : bool
+        Replace ``out`` when it is a result folder voxtopo wrote.
+
+    Returns
+    -------
+    Diagram
+    """
     check_target(out, force, inputs=[source])
     result = run_out_of_core(source, options, load_options=load_options, chunks=chunks,
                              scheduler=scheduler)
@@ -679,7 +760,32 @@ def write_result(out, scan: Scan, diagram: Diagram, options: AnalysisOptions | N
     """Write pairs.csv, summary.json and the standard plots into ``out``, atomically.
 
     With a ``verdict`` the plots show every tested pair and the threshold (a band along
-    the diagonal, a line on the lifetime histograms); pairs.csv holds ``diagram``."""
+    the diagonal, a line on the lifetime histograms); pairs.csv holds ``diagram``.
+
+    Parameters
+    ----------
+    out : str or Path
+        The result folder to create, with report.html.
+    scan : Scan
+        The scan as read (its source may not be inside ``out``).
+    diagram : Diagram
+        The pairs to write.
+    options : AnalysisOptions, optional
+        The settings the diagram was made with, recorded in summary.json.
+    prepared : Scan, optional
+        The prepared filtration, described in summary.json when it differs from the scan.
+    timings, notes : dict, optional
+        Seconds per stage, and what the preparation did.
+    force : bool
+        Replace ``out`` when it is a result folder voxtopo wrote.
+    verdict : Verdict, optional
+        The significance or robustness test, for the counts and the plots.
+
+    Returns
+    -------
+    Path
+        ``out``.
+    """
     from ..report.html import write_report
     from ..report.plots import save_standard_plots
 

@@ -125,7 +125,33 @@ def _items(images_or_scans) -> list:
 def run(images_or_scans, options: PatchOptions | None = None, progress=None,
         mask=None) -> PatchesResult:
     """Sample the high-contrast patches of one or more images, keep the dense core and
-    compute the persistence of its landmarks."""
+    compute the persistence of its landmarks.
+
+    Parameters
+    ----------
+    images_or_scans : ndarray, Scan, or a list of them
+        Gray 2D images or 3D scans (3D scans give patches from the slices
+        ``options.axis`` and ``options.slices`` choose).
+    options : PatchOptions, optional
+        The settings; the defaults of ``voxtopo patches`` without one.
+    progress : callable(phase, fraction), optional
+        Called as the work goes on; may raise :class:`~voxtopo.Cancelled`.
+    mask : ndarray of bool or a list of them, optional
+        True where an image must not be used; patches touching it are left out. One per
+        input, of its shape.
+
+    Returns
+    -------
+    PatchesResult
+        The cloud, its dense core, the landmark persistence, its bars with ``p_value`` and
+        ``significant``, and the dominant loop's stability over resamples.
+
+    Raises
+    ------
+    InputError
+        Images that give too few high-contrast patches, or options that contradict each
+        other.
+    """
     options = options or PatchOptions()
     items = _items(images_or_scans)
     report = progress or (lambda phase, fraction: None)
@@ -200,7 +226,22 @@ def write(result: PatchesResult, out, force: bool = False) -> Path:
     birth, death, persistence, field, p_value, significant``), ``summary.json`` (with
     ``significance`` and ``dominant_loop_stability``), ``barcode.png``,
     ``diagram.png``, ``projection.png``, ``loop_gallery.png`` and ``report.html``. The
-    folder appears only when complete."""
+    folder appears only when complete.
+
+    Parameters
+    ----------
+    result : PatchesResult
+        What :func:`run` returned.
+    out : str or Path
+        The result folder to create; it may not be nor hold the source images.
+    force : bool
+        Replace ``out`` when it is a result folder voxtopo wrote.
+
+    Returns
+    -------
+    Path
+        ``out``.
+    """
     from ..report.html import write_report
 
     bars = result.persistence
@@ -219,7 +260,21 @@ def write(result: PatchesResult, out, force: bool = False) -> Path:
 
 
 def describe(result: PatchesResult) -> str:
-    """What was found, in the words of the CLI line and the plugin's status."""
+    """What was found, in the words of the CLI line and the plugin's status.
+
+    Parameters
+    ----------
+    result : PatchesResult
+        What :func:`run` returned.
+
+    Returns
+    -------
+    str
+        Per coefficient field, the Betti numbers at the middle scale and how far the
+        longest loop stands out; the numbers of core patches and landmarks; for a Rips
+        complex the significant loops (universal null, Bonferroni, alpha); and the
+        dominant loop's stability over resamples when it was measured; joined by "; ".
+    """
     bars = result.persistence
     lines = []
     for f in bars.fields:

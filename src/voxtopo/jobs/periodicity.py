@@ -212,12 +212,16 @@ def run(lapse: TimeLapse, options: PeriodicityOptions | None = None,
     lapse : TimeLapse
         From :func:`voxtopo.io.load_timelapse`.
     options : PeriodicityOptions, optional
+        The settings; the defaults of ``voxtopo periodicity`` without one.
     progress : callable, optional
         ``progress(phase, fraction)``; may raise :class:`~voxtopo.Cancelled`.
 
     Returns
     -------
     PeriodicityResult
+        The signals and their table (score, period, p_value, significant, ... per
+        signal), the mean frame, the whole-field rhythm (or None), the top signals'
+        traces and bars, the units and the timings.
 
     Raises
     ------
@@ -309,7 +313,19 @@ def _top(signals: Signals, table: pd.DataFrame, method: Method, count: int,
 
 
 def describe(result: PeriodicityResult) -> str:
-    """What was found, in the words of the CLI line and the plugin's status."""
+    """What was found, in the words of the CLI line and the plugin's status.
+
+    Parameters
+    ----------
+    result : PeriodicityResult
+        What :func:`run` returned.
+
+    Returns
+    -------
+    str
+        The count of significant regions with the test and level, and the whole field's
+        score and period (in the time unit) when it was measured.
+    """
     line = result.counts["statement"]
     if result.whole_field is not None:
         line += (f"; whole field: score {result.whole_field.score:.3f}, period "
@@ -319,9 +335,24 @@ def describe(result: PeriodicityResult) -> str:
 
 def write(result: PeriodicityResult, out, force: bool = False) -> Path:
     """Fill the result folder ``out``: score.tif, period.tif, regions.csv, summary.json,
-    plots and report.html. The folder appears whole or not at all."""
+    plots and report.html. The folder appears whole or not at all.
+
+    Parameters
+    ----------
+    result : PeriodicityResult
+        What :func:`run` returned.
+    out : str or Path
+        The result folder to create.
+    force : bool
+        Replace ``out`` when it is a result folder voxtopo wrote.
+
+    Returns
+    -------
+    Path
+        ``out``.
+    """
     from ..periodicity._plots import save_plots
-    from ..periodicity._report import write_report
+    from ..report.periodicity import write_periodicity_report
 
     with result_folder(out, force=force) as folder:
         signals, table = result.signals, result.table
@@ -333,7 +364,7 @@ def write(result: PeriodicityResult, out, force: bool = False) -> Path:
         plots = save_plots(result, folder)
         summary = _summary(result, plots)
         write_summary(folder, summary)
-        write_report(folder, summary)
+        write_periodicity_report(folder, summary)
     return Path(out)
 
 

@@ -10,17 +10,6 @@ INK = "#2b2d42"
 RHYTHM = "#c8553d"
 QUIET = "#9aa0b4"
 
-CAPTIONS = {
-    "score_map.png": "Score (0: no loop, 1: a round loop) over the mean frame; bright = "
-                     "strongly periodic.",
-    "period_histogram.png": "Periods of all measured signals (light) and of the significant "
-                            "ones (dark).",
-    "top_regions.png": "The highest-scoring signals: trace over time, sliding-window cloud "
-                       "projected on its first two principal axes, and H1 barcode over Z/2.",
-    "whole_field.png": "Whole-field rhythm: H1 and H2 barcodes of the sliding windows of the "
-                       "frames after PCA.",
-}
-
 
 def _flat_view(image):
     """A 2D view of a map: itself, or the maximum over z of a 3D map."""

@@ -37,7 +37,21 @@ _BYTES_PER_VOXEL = 128
 
 
 def cautions(spacing, unit) -> list[str]:
-    """The cautions written into every summary, with the resolution limit in ``unit``."""
+    """The cautions written into every summary, with the resolution limit in ``unit``.
+
+    Parameters
+    ----------
+    spacing : sequence of float
+        The voxel size; the finest one sets the smallest resolved throat.
+    unit : str
+        The unit of ``spacing``.
+
+    Returns
+    -------
+    list of str
+        Three sentences: segmentation and resolution, the smallest resolved throat in
+        ``unit``, and that results support research only.
+    """
     finest = min(spacing)
     return [
         "The numbers depend on the segmentation (threshold, label, smoothing) and on the "
@@ -107,6 +121,17 @@ RESOLVED_RADIUS_VOXELS = 1.5
 
 def is_binary_mask(data: np.ndarray) -> bool:
     """True for a binary mask as :func:`analyse` reads one: bool, 0/1, or 0/255 in 8 bits.
+
+    Parameters
+    ----------
+    data : array_like
+        The image.
+
+    Returns
+    -------
+    bool
+        Whether every value is 0 or the foreground value (1, or 255 in an 8-bit image
+        without any 1).
 
     Examples
     --------
@@ -259,7 +284,25 @@ def _flat(pairs: pd.DataFrame, which: str, shape) -> np.ndarray:
 
 
 def size_column(ndim: int, body: str = "body") -> str:
-    """Name of the own-size column of a pore or grain table: a volume in 3D, an area in 2D."""
+    """Name of the own-size column of a pore or grain table: a volume in 3D, an area in 2D.
+
+    Parameters
+    ----------
+    ndim : int
+        2 or 3.
+    body : str
+        The prefix of the column ("body" for pores and grains).
+
+    Returns
+    -------
+    str
+        ``<body>_volume`` in 3D, ``<body>_area`` in 2D.
+
+    Examples
+    --------
+    >>> size_column(3), size_column(2)
+    ('body_volume', 'body_area')
+    """
     return f"{body}_volume" if ndim == 3 else f"{body}_area"
 
 

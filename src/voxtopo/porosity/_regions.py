@@ -258,6 +258,18 @@ def regions_of(analysis, progress=None) -> np.ndarray:
 
     The same partition as the pores' ``body_volume`` (``body_area`` in 2D): the count of
     voxels labelled ``id`` times the voxel volume is that pore's own size.
+
+    Parameters
+    ----------
+    analysis : PoreAnalysis
+        What :func:`voxtopo.porosity.analyse` returned.
+    progress : callable(phase, fraction), optional
+        Called as the flooding goes on; may raise :class:`~voxtopo.Cancelled`.
+
+    Returns
+    -------
+    ndarray of int
+        The scan's shape; each voxel holds the ``id`` of its pore, or 0.
     """
     pores = analysis.pores
     distance = analysis.distance

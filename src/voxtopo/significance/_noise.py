@@ -316,6 +316,20 @@ def simulate_noise(shape, noise: NoiseModel, rng: np.random.Generator) -> np.nda
     model draws counts of mean ``noise.reference_count`` and applies the Anscombe
     transform instead.
 
+    Parameters
+    ----------
+    shape : tuple of int
+        Shape of the field.
+    noise : NoiseModel
+        The model (:func:`estimate_noise`).
+    rng : numpy.random.Generator
+        The source of randomness (seeded by the caller).
+
+    Returns
+    -------
+    ndarray of float32
+        The field, mean 0.
+
     Examples
     --------
     >>> model = NoiseModel("gaussian", "given", 2.0, 1.5, (1.0, 1.0), "px")

@@ -22,7 +22,7 @@ import numpy as np
 import voxtopo
 from voxtopo import porosity
 from voxtopo.errors import InputError
-from voxtopo.jobs import analyse
+from voxtopo.jobs import analyse, pores
 from voxtopo.jobs.analyse import AUTO, AnalysisOptions, prepare
 from voxtopo.scan import Scan
 
@@ -54,7 +54,7 @@ class AnalysisResult:
         significant / robust of M pairs, method and level) or the pore job's lines."""
         if self.pore_analysis is not None:
             return " ".join(line[0].upper() + line[1:] + ("" if line.endswith(".") else ".")
-                            for line in porosity.summary_lines(self.porosity))
+                            for line in pores.summary_lines(self.porosity))
         return analyse.describe(self.job)
 
     def export(self, out, force: bool = False):
@@ -62,7 +62,7 @@ class AnalysisResult:
         a pore analysis, of ``voxtopo analyse`` otherwise (``jobs.analyse.write``: p_value
         and significant, or robust, in pairs.csv)."""
         if self.pore_analysis is not None:
-            return porosity.write_pores(out, self.pore_analysis, self.scan, force=force)
+            return pores.write_pores(out, self.pore_analysis, self.scan, force=force)
         return analyse.write(self.job, out, force)
 
 
