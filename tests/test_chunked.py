@@ -29,10 +29,10 @@ def _ours(diagram, dim):
 def _assert_locations_hold_values(diagram, image):
     p = diagram.pairs
     axes = "zyx"[3 - image.ndim:]
-    births = image[tuple(p[f"birth_{a}"].to_numpy(dtype=np.int64) for a in axes)]
+    births = image[tuple(p[f"birth_voxel_{a}"].to_numpy(dtype=np.int64) for a in axes)]
     np.testing.assert_array_equal(births, p["birth"].to_numpy())
     finite = np.isfinite(p["death"].to_numpy())
-    deaths = image[tuple(p.loc[finite, f"death_{a}"].to_numpy(dtype=np.int64) for a in axes)]
+    deaths = image[tuple(p.loc[finite, f"death_voxel_{a}"].to_numpy(dtype=np.int64) for a in axes)]
     np.testing.assert_array_equal(deaths, p.loc[finite, "death"].to_numpy())
 
 

@@ -664,7 +664,8 @@ def test_every_column_has_its_unit_and_2d_sizes_are_areas(tmp_path):
         assert set(summary["columns"][name]) == set(table.columns), name
     assert summary["columns"]["pores.csv"]["body_area"] == "um^2"
     assert summary["columns"]["pores.csv"]["body_x"] == "um"
-    assert summary["columns"]["pairs.csv"]["birth_x"] == "voxel index"
+    assert summary["columns"]["pairs.csv"]["birth_x"] == "um"
+    assert summary["columns"]["pairs.csv"]["birth_voxel_x"] == "voxel index"
     # positions are physical: every body centre is a pixel centre times the spacing
     pores = pd.read_csv(out / "pores.csv")
     assert np.allclose(np.mod(pores["body_x"] / 0.5, 1.0), 0.0)

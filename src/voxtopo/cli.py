@@ -128,6 +128,10 @@ def _add_analyse(subparsers) -> None:
     f.add_argument("--smooth", type=float, metavar="SIGMA",
                    help="Gaussian smoothing, sigma in the scan's unit")
     f.add_argument("--crop", metavar="Z0:Z1,Y0:Y1,X0:X1", help="analyse only this box")
+    f.add_argument("--roi", metavar="MASKFILE",
+                   help="region of interest: a binary mask on the scan's grid, 1 = inside; "
+                        "voxels outside it are not part of the complex, and the noise is "
+                        "read and simulated inside it")
     f.add_argument("--downsample", type=int, default=1, metavar="N",
                    help="block-mean downsampling by N along every axis")
     f.add_argument("--distance", action="store_true",
@@ -206,11 +210,12 @@ def _run_analyse(args) -> int:
         significance=(DEFAULT_SIGNIFICANCE if args.significance is None
                       else args.significance),
         noise=args.noise, noise_model=args.noise_model,
-        boundary_tolerance=args.boundary_tolerance)
+        boundary_tolerance=args.boundary_tolerance, roi=args.roi)
     load_options = load_options_from(args)
     if args.out_of_core:
         return _run_out_of_core(args, options, load_options)
-    return _run_job("analyse", args, options, args.scan, load_options, [args.scan])
+    return _run_job("analyse", args, options, args.scan, load_options,
+                    [args.scan, args.roi])
 
 
 def _say_notes(scan) -> None:

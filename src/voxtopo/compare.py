@@ -224,7 +224,7 @@ def _level_of(diagram: Diagram, flag: str) -> str | None:
 def _features_compared(diagrams, names, all_pairs: bool,
                        min_persistence: float) -> tuple[str, list[str]]:
     """The phrase that says which pairs were compared, and notes on older results."""
-    above = (f" with persistence above {min_persistence:g} {_value_unit(diagrams[0])}"
+    above = (f" with persistence above {min_persistence:g} {diagrams[0].value_unit}"
              if min_persistence > 0 else "")
     flags = [_flag_of(d) for d in diagrams]
     if all_pairs:
@@ -261,10 +261,6 @@ def _only_flagged_note(diagram: Diagram, name: str, flag: str) -> str:
     return (f"every finite pair of {name} is flagged {flag} (a result folder keeps only those "
             f"when its analysis kept only {flag} features), so all its pairs are its {flag} "
             f"features")
-
-
-def _value_unit(diagram: Diagram) -> str:
-    return diagram.unit if diagram.values == "distance" else "gray value"
 
 
 def _finite_bottleneck(a: np.ndarray, b: np.ndarray) -> float:
@@ -1078,7 +1074,7 @@ def compare_diagrams(diagrams, names=None, groups=None, *, dims=(0, 1),
                              "groups and one with two or more members)")
     return Comparison(names, [str(g) for g in groups] if groups is not None
                       else [""] * len(diagrams), dims, metric, float(order), essential,
-                      features, min_persistence, _value_unit(diagrams[0]),
+                      features, min_persistence, diagrams[0].value_unit,
                       [{dim: int((d.pairs["dim"] == dim).sum()) for dim in dims}
                        for d in diagrams], matrices, images, grids, curves, embedding, test,
                       notes)

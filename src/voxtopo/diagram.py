@@ -18,15 +18,38 @@ AXES_3D = ("z", "y", "x")
 VERDICT_COLUMNS = ("p_value", "significant", "robust")
 
 
-def location_columns(ndim: int) -> list[str]:
-    """birth_z, birth_y, birth_x, death_z, ... (2D drops the z columns)."""
+#: What the unit of a column that is neither a value nor a position says.
+VOXEL_INDEX = "voxel index"
+
+
+def position_columns(ndim: int) -> list[str]:
+    """birth_z, birth_y, birth_x, death_z, ...: positions in the scan's unit (2D drops z).
+
+    Examples
+    --------
+    >>> position_columns(2)
+    ['birth_y', 'birth_x', 'death_y', 'death_x']
+    """
     axes = AXES_3D[3 - ndim:]
     return [f"birth_{a}" for a in axes] + [f"death_{a}" for a in axes]
 
 
+def voxel_columns(ndim: int) -> list[str]:
+    """birth_voxel_z, ..., death_voxel_x: the same places as voxel indices.
+
+    Examples
+    --------
+    >>> voxel_columns(2)
+    ['birth_voxel_y', 'birth_voxel_x', 'death_voxel_y', 'death_voxel_x']
+    """
+    axes = AXES_3D[3 - ndim:]
+    return [f"birth_voxel_{a}" for a in axes] + [f"death_voxel_{a}" for a in axes]
+
+
 def columns(ndim: int) -> list[str]:
     """The columns of ``Diagram.pairs`` for a scan of ``ndim`` dimensions."""
-    return ["dim", "birth", "death", "persistence"] + location_columns(ndim)
+    return (["dim", "birth", "death", "persistence"] + position_columns(ndim)
+            + voxel_columns(ndim))
 
 
 
@@ -46,8 +69,9 @@ class Diagram:
     """A persistence diagram of a scan.
 
     ``pairs`` is a DataFrame with one row per pair: ``dim, birth, death, persistence,
-    birth_z, birth_y, birth_x, death_z, death_y, death_x`` (2D drops the z columns).
-    Locations are voxel indices (nullable integers); an essential class has
+    birth_z, birth_y, birth_x, death_z, death_y, death_x`` (positions in the scan's unit,
+    voxel index times spacing), then ``birth_voxel_z, ..., death_voxel_x`` (the same places
+    as voxel indices, nullable integers); 2D drops the z columns. An essential class has
     ``death = inf`` (superlevel: ``-inf``), infinite persistence and no death location.
 
     The other fields say how the diagram was made, so it can be read on its own.
@@ -85,12 +109,12 @@ class Diagram:
         d_idx = raw.death_index[keep]
         d = np.unravel_index(np.maximum(d_idx, 0), scan.shape)
         for a, coord in zip(axes, b):
-            frame[f"birth_{a}"] = pd.array(coord, dtype="Int64")
+            frame[f"birth_voxel_{a}"] = pd.array(coord, dtype="Int64")
         for a, coord in zip(axes, d):
             col = pd.array(coord, dtype="Int64")
             col[d_idx < 0] = pd.NA
-            frame[f"death_{a}"] = col
-        pairs = pd.DataFrame(frame, columns=columns(ndim))
+            frame[f"death_voxel_{a}"] = col
+        pairs = _with_positions(pd.DataFrame(frame), ndim, scan.spacing)
         pairs = _sorted(pairs)
         return cls(pairs=pairs, ndim=ndim, shape=tuple(scan.shape), superlevel=superlevel,
                    neighbourhood=neighbourhood, spacing=tuple(scan.spacing), unit=scan.unit,
@@ -290,9 +314,10 @@ class Diagram:
         weight = np.linspace(0.0, 1.0, n)
         return lo * (1.0 - weight) + hi * weight
 
-    # physical positions ---------------------------------------------------------------
+    # positions ------------------------------------------------------------------------
     def positions(self, which: str = "birth") -> np.ndarray:
-        """(n, ndim) physical coordinates of the birth or death voxels (NaN where none).
+        """(n, ndim) positions of the birth or death voxels in the scan's unit (NaN where
+        none).
 
         Parameters
         ----------
@@ -302,12 +327,57 @@ class Diagram:
         Returns
         -------
         ndarray of float64, shape (n, ndim)
-            Voxel indices times the spacing, in the diagram's unit, (z, y, x) order.
+            The ``birth_z ..`` (or ``death_z ..``) columns: voxel indices times the
+            spacing, in the diagram's unit, (z, y, x) order.
         """
         axes = AXES_3D[3 - self.ndim:]
-        idx = self.pairs[[f"{which}_{a}" for a in axes]].to_numpy(dtype=np.float64,
-                                                                  na_value=np.nan)
-        return idx * np.asarray(self.spacing, dtype=np.float64)
+        return self.pairs[[f"{which}_{a}" for a in axes]].to_numpy(dtype=np.float64,
+                                                                   na_value=np.nan)
+
+    def voxels(self, which: str = "birth") -> np.ndarray:
+        """(n, ndim) voxel indices of the birth or death voxels (-1 where none)."""
+        axes = AXES_3D[3 - self.ndim:]
+        return (self.pairs[[f"{which}_voxel_{a}" for a in axes]].fillna(-1)
+                .to_numpy(dtype=np.int64))
+
+    @property
+    def value_unit(self) -> str:
+        """The unit of birth, death and persistence: the scan's unit for a distance sweep,
+        gray values otherwise."""
+        return self.unit if self.values == "distance" else "gray value"
+
+    def column_units(self, value_unit: str | None = None) -> dict:
+        """Column -> unit of :attr:`pairs` as written to pairs.csv ("" for counts and
+        flags); ``value_unit`` overrides :attr:`value_unit` (Anscombe units, say)."""
+        values = value_unit or self.value_unit
+        units = {"dim": "", "birth": values, "death": values, "persistence": values}
+        units.update({c: self.unit for c in position_columns(self.ndim)})
+        units.update({c: VOXEL_INDEX for c in voxel_columns(self.ndim)})
+        units.update({"p_value": "", "significant": "", "robust": ""})
+        return {c: units.get(c, "") for c in self.pairs.columns}
+
+    def without_outside(self, outside_level: float) -> "Diagram":
+        """The diagram of the region of interest alone, from the diagram of a field whose
+        outside voxels all hold ``outside_level`` (after every inside value of the sweep,
+        :func:`voxtopo.filtration.outside_last`): pairs born outside are dropped, and a
+        class that dies when the outside enters never dies within the region.
+
+        Below the outside level the sweep of the whole field is the sweep of the region's
+        own cubical complex, so every pair born and dead inside is the region's; what is
+        still alive when the outside enters lives for ever in the region alone.
+        """
+        pairs = self.pairs
+        sign = -1.0 if self.superlevel else 1.0
+        born_outside = sign * pairs["birth"].to_numpy(dtype=np.float64) >= sign * outside_level
+        pairs = pairs[~born_outside].copy()
+        dies_outside = sign * pairs["death"].to_numpy(dtype=np.float64) >= sign * outside_level
+        pairs.loc[dies_outside, "death"] = sign * np.inf
+        pairs.loc[dies_outside, "persistence"] = np.inf
+        for column in pairs.columns:
+            if column.startswith("death_"):
+                pairs.loc[dies_outside, column] = np.nan if column in position_columns(
+                    self.ndim) else pd.NA
+        return self._with_pairs(_sorted(pairs))
 
     # files ----------------------------------------------------------------------------
     def description(self) -> dict:
@@ -323,7 +393,8 @@ class Diagram:
 
     def save(self, folder, name: str = "pairs.csv") -> None:
         """Write ``pairs.csv`` and the diagram's description into ``summary.json``
-        (merged under the key ``"diagram"`` when summary.json exists).
+        (merged under the key ``"diagram"`` when summary.json exists), with the unit of
+        every column under ``"columns"`` unless the summary already gives them.
 
         Parameters
         ----------
@@ -338,6 +409,7 @@ class Diagram:
         self.pairs.to_csv(folder / name, index=False)
         summary = read_summary(folder) if (folder / "summary.json").exists() else {}
         summary["diagram"] = self.description()
+        summary.setdefault("columns", {}).setdefault(name, self.column_units())
         write_summary(folder, summary)
 
     @classmethod
@@ -356,6 +428,12 @@ class Diagram:
                              f"by voxtopo analyse.")
         ndim = int(meta["ndim"])
         pairs = pd.read_csv(pairs_path)
+        if not set(voxel_columns(ndim)) & set(pairs.columns):
+            # before positions in the scan's unit were written, birth_z ... death_x held
+            # the voxel indices: read them as such and work the positions out
+            pairs = pairs.rename(columns=dict(zip(position_columns(ndim),
+                                                  voxel_columns(ndim))))
+            pairs = _with_positions(pairs, ndim, meta["spacing"])
         missing = set(columns(ndim)) - set(pairs.columns)
         if missing:
             raise InputError(f"{pairs_path} lacks the columns {sorted(missing)}.")
@@ -364,9 +442,9 @@ class Diagram:
         pairs["dim"] = pairs["dim"].astype(np.int64)
         for c in verdicts:
             pairs[c] = pairs[c].astype(np.float64 if c == "p_value" else bool)
-        for c in ("birth", "death", "persistence"):
+        for c in ["birth", "death", "persistence"] + position_columns(ndim):
             pairs[c] = pairs[c].astype(np.float64)
-        for c in location_columns(ndim):
+        for c in voxel_columns(ndim):
             pairs[c] = pairs[c].astype("Int64")
         return cls(pairs=pairs, ndim=ndim, shape=tuple(meta["shape"]),
                    superlevel=bool(meta["superlevel"]), neighbourhood=int(meta["neighbourhood"]),
@@ -374,6 +452,17 @@ class Diagram:
                    field=int(meta["field"]), periodic=tuple(meta["periodic"]),
                    engine=meta["engine"], min_persistence=float(meta["min_persistence"]),
                    source=meta["source"], notes=tuple(meta.get("notes", ())))
+
+
+def _with_positions(pairs: pd.DataFrame, ndim: int, spacing) -> pd.DataFrame:
+    """``pairs`` (with voxel columns) given its positions in the scan's unit, columns in
+    the order of :func:`columns` and any further columns after them."""
+    axes = AXES_3D[3 - ndim:]
+    for which in ("birth", "death"):
+        for a, step in zip(axes, spacing):
+            index = pairs[f"{which}_voxel_{a}"].to_numpy(dtype=np.float64, na_value=np.nan)
+            pairs[f"{which}_{a}"] = index * float(step)
+    return pairs[columns(ndim) + [c for c in pairs.columns if c not in columns(ndim)]]
 
 
 def _sorted(pairs: pd.DataFrame) -> pd.DataFrame:

@@ -27,7 +27,7 @@ from .scan import Scan, as_scan
 
 __all__ = ["smooth", "crop", "parse_box", "downsample", "threshold", "signed_distance",
            "check_finite", "fill_invalid", "smoothing_bytes", "downsampling_bytes",
-           "distance_bytes"]
+           "distance_bytes", "binary_foreground", "region_of_interest", "outside_last"]
 
 #: What to do when a preparation step would not fit in memory.
 PREPARATION_REMEDY = "crop it (--crop) or downsample it (--downsample) first"
@@ -450,3 +450,82 @@ def fill_invalid(scan, value="max") -> Scan:
     out = data.copy()
     out[bad] = fill
     return scan.with_data(out, metadata={**scan.metadata, "filled_invalid": int(bad.sum())})
+
+
+# --------------------------------------------------------------------- region of interest
+def binary_foreground(data: np.ndarray):
+    """The value marking the foreground when ``data`` is a binary mask (True, 1, or 255 in
+    an 8-bit image without any 1), else None.
+
+    Examples
+    --------
+    >>> binary_foreground(np.array([0, 255], np.uint8)), binary_foreground(np.array([0, 2]))
+    (255, None)
+    """
+    if data.dtype == bool:
+        return True
+    if not (np.issubdtype(data.dtype, np.integer) or np.issubdtype(data.dtype, np.floating)):
+        return None
+    # 8-bit masks from image editors mark the foreground 255
+    foreground = 255 if data.dtype == np.uint8 and not (data == 1).any() else 1
+    return foreground if np.logical_or(data == 0, data == foreground).all() else None
+
+
+def region_of_interest(roi, shape, where: str) -> np.ndarray | None:
+    """The sample as a bool array of ``shape`` (True = sample), or None for the whole scan.
+
+    ``roi`` is a binary array or Scan (True, 1 or 255 = sample); ``where`` names the scan
+    in the messages. A wrong shape, a mask that is not binary or one without any voxel
+    of the sample is refused in one sentence.
+
+    Examples
+    --------
+    >>> int(region_of_interest(np.array([[0, 1], [1, 1]]), (2, 2), "array").sum())
+    3
+    """
+    if roi is None:
+        return None
+    data = roi.data if isinstance(roi, Scan) else np.asarray(roi)
+    named = roi.source if isinstance(roi, Scan) and roi.source else "the region of interest"
+    if data.shape != tuple(shape):
+        raise InputError(f"The region of interest {named} has shape {data.shape} but the "
+                         f"scan {where} has shape {tuple(shape)}; give a mask of the same "
+                         f"grid.")
+    foreground = binary_foreground(data)
+    if foreground is None:
+        raise InputError(f"The region of interest {named} is not a binary mask (True or 1 "
+                         f"marks the sample); threshold it first.")
+    sample = data == foreground
+    if not sample.any():
+        raise InputError(f"The region of interest {named} holds no voxel of the sample "
+                         f"(it is all 0); True or 1 marks the sample.")
+    return sample
+
+
+def outside_last(scan, sample: np.ndarray, *, superlevel: bool = False,
+                 min_persistence: float = 0.0) -> tuple[Scan, float]:
+    """The scan with every voxel outside ``sample`` set to one level that the sweep meets
+    after every voxel inside: above the inside maximum for a sublevel sweep, below the
+    minimum for a superlevel one.
+
+    Returns the field and that level. Up to the level the sweep is the sweep of the
+    region's own cubical complex; :meth:`voxtopo.Diagram.without_outside` then drops what
+    the outside adds. The level is far enough out that a class of the region alive when the
+    outside enters lives longer than ``min_persistence`` and so is kept by the engine::
+
+        inside values  [lo ............ hi]   outside: hi + (hi - lo) + min_persistence + 1
+
+    Examples
+    --------
+    >>> field, level = outside_last(np.array([[1.0, 3.0], [2.0, 9.0]]),
+    ...                             np.array([[True, True], [True, False]]))
+    >>> level, float(field.data[1, 1])
+    (6.0, 6.0)
+    """
+    scan = as_scan(scan)
+    inside = scan.data[sample]
+    low, high = float(inside.min()), float(inside.max())
+    margin = (high - low) + float(min_persistence) + 1.0
+    level = low - margin if superlevel else high + margin
+    data = np.where(sample, scan.data.astype(np.float64, copy=False), level)
+    return scan.with_data(data), level

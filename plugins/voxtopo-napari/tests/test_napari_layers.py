@@ -30,10 +30,11 @@ def test_features_table_positions_are_voxels_times_spacing():
     table = features_table(diagram, 1, placement)
     rows = diagram.pairs[diagram.pairs["dim"] == 1]
     assert len(table) == len(rows) > 0
-    np.testing.assert_allclose(table["birth_x_position"],
-                               rows["birth_x"].to_numpy(dtype=float) * 3.0 - 1)
-    np.testing.assert_allclose(table["birth_z_position"],
-                               rows["birth_z"].to_numpy(dtype=float) * 0.5 + 10)
+    np.testing.assert_allclose(table["birth_x"],
+                               rows["birth_voxel_x"].to_numpy(dtype=float) * 3.0 - 1)
+    np.testing.assert_allclose(table["birth_z"],
+                               rows["birth_voxel_z"].to_numpy(dtype=float) * 0.5 + 10)
+    assert "birth_x_position" not in table.columns      # one name for one idea
     assert (table["feature"].to_numpy() == rows.index.to_numpy()).all()
 
 
@@ -44,7 +45,8 @@ def test_body_radius_and_throat_radius_are_minus_birth_and_death():
                           "death": [np.inf, -1.0, 1.0], "persistence": [np.inf, 2.0, 3.0]})
     for column, values in (("birth_y", [1, 2, 3]), ("birth_x", [1, 2, 3]),
                            ("death_y", [pd.NA, 4, 5]), ("death_x", [pd.NA, 4, 5])):
-        pairs[column] = pd.array(values, dtype="Int64")
+        pairs[column] = pd.array(values, dtype="Float64").astype(float)
+        pairs[column.replace("_", "_voxel_")] = pd.array(values, dtype="Int64")
     diagram = voxtopo.Diagram(pairs=pairs, ndim=2, shape=(8, 8), neighbourhood=8,
                               spacing=(1.0, 1.0), values="distance")
     table = features_table(diagram, 0, placement_of((8, 8), (1.0, 1.0)))

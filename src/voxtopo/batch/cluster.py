@@ -114,7 +114,9 @@ def _run_out_of_core(client, entry, load_options, settings: Settings, out) -> di
 
     start = time.perf_counter()
     try:
-        analyse_out_of_core(entry.path, out, job_options("analyse", settings.analyse),
+        # the scan's own roi goes in too, so that the path refuses it rather than drop it
+        options = job_options("analyse", {**settings.analyse, **entry.files})
+        analyse_out_of_core(entry.path, out, options,
                             load_options=load_options, chunks=settings.batch.get("chunks"),
                             force=True, scheduler=client)
         return {"status": "done", "message": "", "seconds": time.perf_counter() - start}

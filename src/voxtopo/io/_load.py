@@ -89,6 +89,17 @@ def load(path, *, spacing=None, unit=None, channel=None, timepoint=None, shape=N
         layout.close()
 
 
+def load_on_grid_of(scan: Scan, path, what: str) -> Scan:
+    """A mask of ``scan`` (pores, or the sample) read from ``path``, on the scan's voxel
+    size; a file of another shape is refused in one sentence naming ``what`` it is."""
+    other = load(path)
+    if other.shape != scan.shape:
+        raise InputError(f"The {what} {path} has shape {other.shape} but the scan "
+                         f"{scan.source or ''} has shape {scan.shape}; give a {what} of the "
+                         f"same scan.")
+    return other.with_data(other.data, spacing=scan.spacing, unit=scan.unit)
+
+
 def load_timelapse(path, *, axes=None, frame_interval=None, spacing=None, unit=None,
                    channel=None, shape=None, dtype=None, byte_order="little", offset=0,
                    level=0) -> TimeLapse:

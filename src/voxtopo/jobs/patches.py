@@ -346,6 +346,14 @@ def _core_indices(cloud, dense) -> np.ndarray:
     return np.array([keys[tuple(row)] for row in dense.origin.tolist()], dtype=np.int64)
 
 
+#: Column -> unit of pairs.csv: births and deaths are Rips scales, Euclidean distances
+#: between points of the cloud in DCT coordinates, which are unitless (unit sphere).
+PAIRS_UNITS = {"dim": "", "birth": "distance in DCT coordinates (unitless)",
+               "death": "distance in DCT coordinates (unitless)",
+               "persistence": "distance in DCT coordinates (unitless)",
+               "field": "", "p_value": "", "significant": ""}
+
+
 def _summary(cloud, dense, result, options, k_neighbour, seconds) -> dict:
     from .. import __version__
 
@@ -373,6 +381,7 @@ def _summary(cloud, dense, result, options, k_neighbour, seconds) -> dict:
                   "landmarks.npy": "indices of the landmarks in cloud.npy",
                   "pairs.csv": "dim, birth, death, persistence, field, p_value, "
                                "significant"},
+        "columns": {"pairs.csv": PAIRS_UNITS},
         "seconds": round(seconds, 3),
         "software": {"voxtopo": __version__, "python": platform.python_version()},
         "cautions": cautions if RESEARCH_CAUTION in cautions else [RESEARCH_CAUTION] + cautions,

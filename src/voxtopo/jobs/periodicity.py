@@ -15,6 +15,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ..diagram import VOXEL_INDEX
 from ..errors import InputError
 from ..options import BOOLEAN, COUNT, NUMBER, POSITIVE, TEXT, WHOLE, Rule, check, optional
 from ..io import result_folder, save_tiff
@@ -278,13 +279,14 @@ def run(lapse: TimeLapse, options: PeriodicityOptions | None = None,
 
 
 def _positions(signals: Signals, lapse: TimeLapse) -> pd.DataFrame:
-    """Label, centre in pixels and in the scan's unit, and size of every signal."""
+    """Label, centre in the scan's unit and as a (fractional) voxel index, and size of
+    every signal."""
     names = "zyx"[3 - signals.centres.shape[1]:]
     columns = {"region": signals.labels}
     for k, name in enumerate(names):
-        columns[f"{name}_px"] = signals.centres[:, k]
+        columns[f"centre_{name}"] = signals.centres[:, k] * lapse.spacing[k]
     for k, name in enumerate(names):
-        columns[name] = signals.centres[:, k] * lapse.spacing[k]
+        columns[f"centre_voxel_{name}"] = signals.centres[:, k]
     columns["pixels"] = signals.sizes
     return pd.DataFrame(columns)
 
@@ -400,16 +402,22 @@ def _summary(result: PeriodicityResult, plots: list[str]) -> dict:
 
     time_unit, unit = result.time_unit, result.unit
     value_unit = "gray value (mean intensity)"
-    columns = {"region": {"pixel": "number of the pixel (bin) in row-major order",
-                          "tile": "number of the tile in row-major order",
-                          "region": "label in the regions image"}[result.signals.kind]}
-    for name in "zyx"[3 - result.signals.centres.shape[1]:]:
-        columns[f"{name}_px"] = f"centre, {name} pixel index"
-        columns[name] = f"centre, {unit}"
-    columns["pixels"] = "pixels averaged into the signal"
+    meanings = {"region": {"pixel": "number of the pixel (bin) in row-major order",
+                           "tile": "number of the tile in row-major order",
+                           "region": "label in the regions image"}[result.signals.kind]}
+    units = {"region": ""}
+    names = "zyx"[3 - result.signals.centres.shape[1]:]
+    for name in names:
+        meanings[f"centre_{name}"] = f"centre along {name}"
+        units[f"centre_{name}"] = unit
+    for name in names:
+        meanings[f"centre_voxel_{name}"] = f"centre along {name}, a (fractional) voxel index"
+        units[f"centre_voxel_{name}"] = VOXEL_INDEX
+    meanings["pixels"], units["pixels"] = "pixels averaged into the signal", ""
     for name, text in COLUMNS.items():
-        columns[name] = text.format(time=time_unit, value=value_unit)
-    columns["period"] = f"{time_unit} (highest periodogram peak in the period range)"
+        meanings[name] = text.format(time=time_unit, value=value_unit)
+        units[name] = COLUMN_UNITS.get(name, "").format(time=time_unit, value=value_unit)
+    meanings["period"] = f"{time_unit} (highest periodogram peak in the period range)"
     table = result.table
     top_rows = [{k: row[k] for k in ("region", "score", "period", "p_value")}
                 for row in result.top]
@@ -420,7 +428,8 @@ def _summary(result: PeriodicityResult, plots: list[str]) -> dict:
         "scan": result.lapse,
         "options": result.options.described(),
         "counts": result.counts,
-        "columns": columns,
+        "columns": {"regions.csv": units},
+        "column_meanings": {"regions.csv": meanings},
         "maps": {"score.tif": f"score of the signal each pixel belongs to, spacing in {unit}; "
                               f"NaN outside every region and where the trace is flat",
                  "period.tif": f"period in {time_unit}, same layout"},
@@ -456,6 +465,10 @@ def _summary(result: PeriodicityResult, plots: list[str]) -> dict:
         "software": {"voxtopo": __version__, **software_versions()},
         "cautions": [RESEARCH_CAUTION],
     }
+
+
+#: Unit of each measured column of regions.csv ("" for scores, p-values and flags).
+COLUMN_UNITS = {"period": "{time}", "amplitude": "{value}", "damping": "1/{time}"}
 
 
 def _number(value):

@@ -12,9 +12,8 @@ from dataclasses import asdict, dataclass
 from pathlib import Path
 
 from .. import porosity
-from ..diagram import AXES_3D
 from ..errors import InputError
-from ..io import load, result_folder
+from ..io import load_on_grid_of, result_folder
 from ..io.results import write_summary
 from ..options import (AXIS, BOOLEAN, ENGINE, NEIGHBOURHOOD, NON_NEGATIVE, TEXT, THRESHOLD,
                        WHOLE, check, optional)
@@ -86,17 +85,6 @@ class PoresResult:
     inputs: tuple = ()
 
 
-def _on_grid_of(scan: Scan, path: str, what: str) -> Scan:
-    """A mask of ``scan`` (pores, or the sample) read from ``path``, on the scan's voxel
-    size."""
-    other = load(path)
-    if other.shape != scan.shape:
-        raise InputError(f"The {what} {path} has shape {other.shape} but the scan "
-                         f"{scan.source or ''} has shape {scan.shape}; give a {what} of the "
-                         f"same scan.")
-    return other.with_data(other.data, spacing=scan.spacing, unit=scan.unit)
-
-
 def run(scan: Scan, options: PoresOptions | None = None, progress=None) -> PoresResult:
     """Measure the pore space of ``scan`` (or of ``options.mask`` over it).
 
@@ -123,8 +111,8 @@ def run(scan: Scan, options: PoresOptions | None = None, progress=None) -> Pores
         :func:`voxtopo.porosity.analyse` refuses.
     """
     options = options or PoresOptions()
-    target = _on_grid_of(scan, options.mask, "mask") if options.mask else scan
-    roi = _on_grid_of(scan, options.roi, "region of interest") if options.roi else None
+    target = load_on_grid_of(scan, options.mask, "mask") if options.mask else scan
+    roi = load_on_grid_of(scan, options.roi, "region of interest") if options.roi else None
     axis = list(options.axis) if isinstance(options.axis, tuple) else options.axis
     analysis = porosity.analyse(target, threshold=options.threshold,
                                 pores_bright=options.pores_bright, label=options.label,
@@ -259,35 +247,6 @@ def column_units(table, unit: str) -> dict:
     return units
 
 
-def pairs_units(ndim: int, unit: str) -> dict:
-    """Column -> unit of pairs.csv: values in the scan's unit, locations as voxel indices,
-    ``robust`` a flag.
-
-    Parameters
-    ----------
-    ndim : int
-        2 or 3: 2D has no z columns.
-    unit : str
-        The scan's unit of length (a signed distance is a length).
-
-    Returns
-    -------
-    dict
-        Column -> unit.
-
-    Examples
-    --------
-    >>> pairs_units(2, "um")["birth_x"], pairs_units(2, "um")["death"]
-    ('voxel index', 'um')
-    """
-    units = {"dim": "", "birth": unit, "death": unit, "persistence": unit}
-    for which in ("birth", "death"):
-        for axis in AXES_3D[3 - ndim:]:
-            units[f"{which}_{axis}"] = "voxel index"
-    units["robust"] = ""
-    return units
-
-
 def write_pores(out, analysis, scan=None, force: bool = False, inputs=()) -> Path:
     """Write the result folder of a pore analysis, atomically.
 
@@ -298,7 +257,8 @@ def write_pores(out, analysis, scan=None, force: bool = False, inputs=()) -> Pat
         throat_radius, throat_z, throat_y, throat_x, border, lifetime, body_volume,
         isolated``; 2D drops the z columns and has ``body_area``), ``grains.csv``,
         ``loops.csv``, ``voids.csv`` (positions and sizes in the scan's unit),
-        ``pairs.csv`` (the diagram of the signed distance, locations as voxel indices),
+        ``pairs.csv`` (the diagram of the signed distance: positions in the scan's unit
+        and as voxel indices, :class:`voxtopo.Diagram`),
         ``summary.json`` (with ``columns``: file -> column -> unit) and the plots
         ``pore_sizes.png``, ``distance_diagram.png``, ``pore_slices.png``.
     analysis : PoreAnalysis
@@ -314,7 +274,6 @@ def write_pores(out, analysis, scan=None, force: bool = False, inputs=()) -> Pat
     -------
     Path of the folder.
     """
-    ndim = analysis.mask.ndim
     background = analysis.mask if scan is None else as_scan(scan).data
     with result_folder(out, force=force,
                        inputs=[getattr(scan, "source", None), *inputs]) as tmp:
@@ -332,7 +291,7 @@ def write_pores(out, analysis, scan=None, force: bool = False, inputs=()) -> Pat
         summary["columns"] = {
             f"{name}.csv": column_units(getattr(analysis, name), unit)
             for name in ("pores", "grains", "loops", "voids")}
-        summary["columns"]["pairs.csv"] = pairs_units(ndim, unit)
+        summary["columns"]["pairs.csv"] = analysis.diagram.column_units()
         summary["plots"] = save_pore_plots(tmp, analysis, background)
         write_summary(tmp, summary)
         analysis.diagram.save(tmp)

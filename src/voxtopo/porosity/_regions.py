@@ -68,7 +68,8 @@ def pore_regions(distance, birth_voxels, death_levels, neighbourhood: int = 26,
     distance : ndarray
         Signed distance transform, negative in the pore phase (2D or 3D).
     birth_voxels : (n, ndim) array of int
-        Voxel index of each pore's birth (the ``birth_z, birth_y, birth_x`` of a diagram).
+        Voxel index of each pore's birth (the ``birth_voxel_z, birth_voxel_y, birth_voxel_x`` of a
+        diagram).
     death_levels : (n,) array of float
         Each pore's death; ``inf`` for a pore that never dies. Levels above 0 count as 0.
     neighbourhood : {4, 8} in 2D, {6, 26} in 3D

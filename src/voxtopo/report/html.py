@@ -148,7 +148,13 @@ def _sections(summary: dict) -> list[dict]:
     """Sections for the keys the page does not lay out itself (other jobs' numbers)."""
     sections = []
     for key, value in summary.items():
-        if key in _KNOWN_KEYS:
+        if key in _KNOWN_KEYS or value is None:   # no region of interest, say
+            continue
+        if key == "columns":                      # file -> column -> unit
+            for name, units in value.items():
+                sections.append({"title": f"Columns of {name} and their units",
+                                 "mapping": {c: u or "(no unit)" for c, u in units.items()},
+                                 "table": None})
             continue
         title = key.replace("_", " ").capitalize()
         if isinstance(value, dict):

@@ -185,8 +185,8 @@ def write_periodicity_report(folder, summary: dict) -> Path:
     summary : dict
         The folder's summary (what ``voxtopo.jobs.periodicity.write`` puts in
         summary.json): ``scan``, ``counts`` with its ``statement``, ``plots``,
-        ``columns``, ``method``, ``options``, ``timings_seconds``, ``notes``,
-        ``cautions``, ``software``, ``created`` and, optionally, ``whole_field``.
+        ``columns``, ``column_meanings``, ``method``, ``options``, ``timings_seconds``,
+        ``notes``, ``cautions``, ``software``, ``created`` and, optionally, ``whole_field``.
 
     Returns
     -------
@@ -202,11 +202,14 @@ def write_periodicity_report(folder, summary: dict) -> Path:
     counts = dict(summary["counts"])
     statement = counts.pop("statement")
     source = Path(str(summary["scan"].get("source") or "time-lapse")).name
+    units = summary["columns"]["regions.csv"]
+    columns = {name: f"{meaning} (unit: {units[name]})" if units.get(name) else meaning
+               for name, meaning in summary["column_meanings"]["regions.csv"].items()}
     html = render("periodicity.html", title=f"Rhythms in {source}",
                   subtitle="Sliding-window persistence (SW1PerS score) of mean-intensity "
                            "signals", scan=summary["scan"], statement=statement,
                   counts=counts, images=images, highest=Table.of(highest),
-                  whole_field=summary.get("whole_field"), columns=summary["columns"],
+                  whole_field=summary.get("whole_field"), columns=columns,
                   method=summary["method"], settings=summary["options"],
                   timings=summary["timings_seconds"], notes=summary["notes"],
                   cautions=summary["cautions"], software=summary["software"],

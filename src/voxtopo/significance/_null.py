@@ -228,7 +228,8 @@ def null_distribution(shape, noise: NoiseModel, *, smoothing: float | None = Non
                       superlevel: bool = False, neighbourhood: int | None = None,
                       periodic=False, field: int = 2, engine: str = "auto",
                       alpha: float = 0.05, simulations: int | None = None,
-                      block_shape=None, seed: int = 0, progress=None) -> NullDistribution:
+                      block_shape=None, seed: int = 0, progress=None,
+                      sample: np.ndarray | None = None) -> NullDistribution:
     """Simulate the largest persistence of noise-only fields prepared like the scan.
 
     Parameters
@@ -252,6 +253,11 @@ def null_distribution(shape, noise: NoiseModel, *, smoothing: float | None = Non
     seed : int
         Seed of the random generator (the same seed gives the same null).
     progress : callable(phase, fraction), optional
+    sample : ndarray of bool, optional
+        The region of interest the scan was swept in: full-shape simulations are swept in
+        the same region (outside voxels are not part of the complex,
+        :func:`voxtopo.filtration.outside_last`), and blocks stand for the region's voxels
+        only.
 
     Returns
     -------
@@ -285,9 +291,13 @@ def null_distribution(shape, noise: NoiseModel, *, smoothing: float | None = Non
                      unit=noise.unit, source="simulated noise")
         if smoothing:
             block = filt.smooth(block, smoothing)
+        if full and sample is not None:
+            block, outside = filt.outside_last(block, sample, superlevel=superlevel)
         diagram = persistence(block, superlevel=superlevel, neighbourhood=neighbourhood,
                               periodic=periodic if full else False, field=field,
                               engine=engine)
+        if full and sample is not None:
+            diagram = diagram.without_outside(outside)
         pairs = diagram.pairs
         lifetimes = pairs["persistence"].to_numpy()
         dims = pairs["dim"].to_numpy()
@@ -300,5 +310,7 @@ def null_distribution(shape, noise: NoiseModel, *, smoothing: float | None = Non
     if full:
         return NullDistribution(maxima, "full shape", block_shape, 1.0, (), seed)
     gumbel = tuple(_fit_gumbel(maxima[:, d]) for d in range(ndim))
-    return NullDistribution(maxima, "blocks", block_shape, voxels / math.prod(block_shape),
+    # a block stands for as many voxels of the field as were swept: the region's only
+    swept = voxels if sample is None else int(np.count_nonzero(sample))
+    return NullDistribution(maxima, "blocks", block_shape, swept / math.prod(block_shape),
                             gumbel, seed)

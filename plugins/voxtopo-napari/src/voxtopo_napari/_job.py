@@ -172,11 +172,11 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
 
         if with_regions and prepared.values == "distance":
             start = time.perf_counter()
-            pore_pairs = diagram.dimension(0).pairs
-            axes = ("birth_z", "birth_y", "birth_x")[3 - diagram.ndim:]
+            pore_pairs = diagram.dimension(0)
             regions = porosity.pore_regions(
-                prepared.data, pore_pairs[list(axes)].to_numpy(dtype=np.int64),
-                pore_pairs["death"].to_numpy(), diagram.neighbourhood, progress=progress)
+                prepared.data, pore_pairs.voxels("birth"),
+                pore_pairs.pairs["death"].to_numpy(), diagram.neighbourhood,
+                progress=progress)
             timings["pore_regions"] = time.perf_counter() - start
 
     report("building the layers", 0.0)

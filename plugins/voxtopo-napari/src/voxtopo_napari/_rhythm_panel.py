@@ -33,7 +33,7 @@ SIGNALS = {"every pixel (or bin of pixels)": "pixel", "tiles of the frame": "til
            "regions of a labels layer": "region"}
 
 #: Columns of the per-region table, as in regions.csv.
-TABLE_COLUMNS = ("region", "y", "x", "score", "period", "p_value", "significant")
+TABLE_COLUMNS = ("region", "centre_y", "centre_x", "score", "period", "p_value", "significant")
 
 
 class RhythmWidget(BackgroundRun, SavesResultFolder, QWidget):
