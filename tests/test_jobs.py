@@ -322,3 +322,55 @@ def test_a_time_point_for_the_periodicity_job_is_refused_not_dropped(tmp_path):
     assert jobs.read_input("periodicity", path).frames == 3
     np.testing.assert_array_equal(jobs.read_input("analyse", path, {"timepoint": 1}).data,
                                   stack[1])
+
+
+def test_a_folder_gives_back_the_settings_and_robust_verdict_it_was_written_with(tmp_path):
+    """A distance sweep of a 2D mask at spacing 1 and boundary tolerance 0.5: robust above
+    2 (0.5 + sqrt 2) = 3.83 in every dimension (stability, Cohen-Steiner, Edelsbrunner &
+    Harer 2007: twice the tolerance plus a voxel diagonal, the voxel-centre distance being
+    off the boundary by up to half of one)."""
+    from voxtopo.io.results import read_summary
+    from voxtopo.jobs import analyse
+    from voxtopo.scan import Scan
+
+    mask = np.zeros((32, 32), dtype=np.uint8)
+    mask[4:14, 4:14] = 1
+    mask[18:28, 18:28] = 1
+    options = analyse.AnalysisOptions(distance=True, boundary_tolerance=0.5, downsample=1)
+    result = analyse.run(Scan(mask, spacing=(1.0, 1.0), unit="um"), options)
+    analyse.write(result, tmp_path / "masks")
+    record = analyse.recorded(tmp_path / "masks")
+    assert record.options == options
+    assert record.flag == "robust"
+    bound = 2 * (0.5 + 2 ** 0.5)
+    assert record.thresholds == pytest.approx({0: bound, 1: bound})
+    # the words of summary.json's "counted" and, method and level, of the result line
+    assert record.features.startswith("robust features (persistence above 3.828 um")
+    assert record.features == read_summary(tmp_path / "masks")["counted"]
+    assert record.features.removeprefix("robust features ") in analyse.describe(result)
+
+
+def test_a_folder_gives_back_its_significance_level_and_a_listed_folder_none(tmp_path):
+    """A square 12 noise levels above Gaussian noise is far from noise (common practice, no
+    source): the folder records the family-wise test at the level asked; a summary without
+    a verdict gives flag None."""
+    import json
+
+    from voxtopo.jobs import analyse
+    from voxtopo.scan import Scan
+
+    image = np.random.default_rng(0).normal(0, 1, (32, 32))
+    image[10:22, 10:22] += 12
+    options = analyse.AnalysisOptions(significance=0.01)
+    result = analyse.run(Scan(image), options)
+    analyse.write(result, tmp_path / "square")
+    record = analyse.recorded(tmp_path / "square")
+    assert record.options == options and record.flag == "significant"
+    assert record.features.startswith("significant features (family-wise, alpha 0.01,")
+    assert f"{len(result.diagram)} significant of" in analyse.describe(result)
+    assert record.features.removeprefix("significant features ") in analyse.describe(result)
+    summary = json.loads((tmp_path / "square" / "summary.json").read_text())
+    assert record.features == summary["counted"]
+    del summary["significance"]
+    (tmp_path / "square" / "summary.json").write_text(json.dumps(summary))
+    assert analyse.recorded(tmp_path / "square").flag is None

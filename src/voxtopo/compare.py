@@ -50,6 +50,7 @@ from .diagram import Diagram
 from .errors import InputError
 from .io.results import read_summary, write_summary
 from .memory import ensure_fits
+from .significance import FLAG_COLUMNS, VERDICT_SECTIONS
 
 __all__ = ["bottleneck", "wasserstein", "wasserstein_bytes", "distance_matrix",
            "check_comparable", "select_features", "PersistenceImageGrid", "image_grid",
@@ -59,13 +60,6 @@ __all__ = ["bottleneck", "wasserstein", "wasserstein_bytes", "distance_matrix",
 
 METRICS = ("bottleneck", "wasserstein")
 ESSENTIAL_CHOICES = ("separate", "ignore")
-
-#: Per-pair flags written by voxtopo.significance, in the order they are looked for:
-#: ``significant`` (gray-value sweeps) and ``robust`` (distance sweeps).
-FLAG_COLUMNS = ("significant", "robust")
-
-#: summary.json section that states how each flag was computed.
-VERDICT_SECTIONS = {"significant": "significance", "robust": "robustness"}
 
 #: Peak memory of one gudhi Wasserstein call per cell of its (n + 1) x (m + 1) cost
 #: matrix. Measured as the rise of the peak resident memory of a fresh process (gudhi

@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 
 from ..io.results import is_complete, read_summary, write_atomically
+from ..significance import recorded_verdict
 from .manifest import ScanEntry
 from .settings import Settings
 
@@ -28,11 +29,11 @@ def _count_prefix(summary: dict) -> str:
     from ..report.html import COUNT_PREFIXES
 
     significant, robust, listed = COUNT_PREFIXES
-    verdict = summary.get("significance") or summary.get("robustness") or {}
+    flag, verdict = recorded_verdict(summary)
     kept_passing = (summary.get("options") or {}).get("min_persistence") == "auto"
     if not kept_passing or verdict.get("method", "not tested") == "not tested":
         return listed
-    return significant if "significance" in summary else robust
+    return significant if flag == "significant" else robust
 
 
 def _key_numbers(summary: dict) -> dict:

@@ -37,7 +37,8 @@ from ..errors import InputError
 from ..options import (BOOLEAN, COUNT, ENGINE, FILL, NEIGHBOURHOOD, NON_NEGATIVE, NUMBER,
                        POSITIVE, PRIME, TEXT, THRESHOLD, Rule, check, one_of, optional)
 from ..io import load, load_on_grid_of, result_folder
-from ..io.results import check_target, json_ready, software_versions, write_summary
+from ..io.results import (check_target, json_ready, read_summary, software_versions,
+                          write_summary)
 from ..memory import ensure_fits, reported_as_too_big
 from ..scan import Scan
 
@@ -331,6 +332,12 @@ class Verdict:
         return f"{self.flag} {self.level}" if self.tested_any else self.level
 
     @property
+    def features(self) -> str:
+        """What a count of the pairs that passed counts: "significant features
+        (family-wise, alpha 0.05, ...)" or "robust features (...)"."""
+        return f"{self.flag} features {self.level}"
+
+    @property
     def tested_any(self) -> bool:
         """False when the pairs could not be tested (no noise to test against)."""
         return bool(self.thresholds)
@@ -388,6 +395,56 @@ def untested(diagram: Diagram, reason: str) -> Verdict:
 
 #: The settings class of this job, under the name every job uses.
 Options = AnalysisOptions
+
+
+@dataclass(frozen=True)
+class RecordedAnalysis:
+    """What a result folder's summary.json says of the analysis that wrote it.
+
+    options      the settings it was made with
+    flag         "significant" or "robust" when its pairs were tested, else None
+    thresholds   persistence above which a pair passed, per dimension ({} untested)
+    features     what a count of the passing pairs counts, in the words of the result
+                 line ("significant features (family-wise, alpha 0.05, ...)"); "" untested
+    """
+
+    options: AnalysisOptions
+    flag: str | None
+    thresholds: dict
+    features: str
+
+
+def recorded(folder) -> RecordedAnalysis:
+    """The settings and the verdict recorded in the summary.json of an analyse folder.
+
+    Parameters
+    ----------
+    folder : str or Path
+        A result folder written by :func:`write`.
+
+    Returns
+    -------
+    RecordedAnalysis
+        Settings the summary does not name take their defaults; a folder whose pairs
+        were not tested (or whose thresholds are all missing) has flag None.
+
+    Raises
+    ------
+    InputError
+        When summary.json is missing or unreadable, or its options are refused.
+    """
+    summary = read_summary(folder)
+    known = AnalysisOptions.__dataclass_fields__
+    options = AnalysisOptions(**{name: value for name, value
+                                 in (summary.get("options") or {}).items() if name in known})
+    flag, section = sig.recorded_verdict(summary)
+    thresholds = {int(d): float(t) for d, t in (section.get("threshold") or {}).items()
+                  if t is not None}
+    if flag is None or not thresholds:
+        return RecordedAnalysis(options, None, {}, "")
+    # folders written before the summary named its features say the method alone
+    features = section.get("features") or f"{flag} features ({section.get('method')})"
+    return RecordedAnalysis(options, flag, thresholds, features)
 
 
 @dataclass
@@ -733,9 +790,11 @@ def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepare
            for d in range(diagram.ndim)}
     judged = {}
     if verdict is not None:
-        judged = {"significance" if verdict.flag == "significant" else "robustness":
-                  verdict.description,
-                  "counted": (f"{verdict.flag} features {verdict.level}"
+        section = dict(verdict.description)
+        if verdict.tested_any:
+            section["features"] = verdict.features
+        judged = {sig.VERDICT_SECTIONS[verdict.flag]: section,
+                  "counted": (verdict.features
                               if not options.keeps_all_tested and verdict.tested_any else
                               "all pairs" if threshold == 0 else
                               f"pairs with persistence above {threshold:g}")

@@ -207,14 +207,33 @@ def summary_lines(summary: dict) -> list[str]:
     n = robust["robust"]
     found = (f"{n['pores']} robust of {counts['pores']} pores, {n['grains']} robust of "
              f"{counts['grains']} grains, {n['loops']} robust of {counts['loops']} loops, "
-             f"{n['voids']} robust of {counts['voids']} voids (robust: persistence above "
-             f"{robust['threshold']:.4g} {unit}, boundary tolerance "
-             f"{robust['boundary_tolerance']:.4g} {unit}, stability theorem; listed: living "
-             f"longer than {summary['min_persistence']:.4g} {unit})")
+             f"{n['voids']} robust of {counts['voids']} voids (robust: "
+             f"{robust_level(summary)}; listed: living longer than "
+             f"{summary['min_persistence']:.4g} {unit})")
     lines = [f"porosity {summary['porosity']:.4f} {where} ({size}); {found}; of the listed "
              f"pores {counts['pores_at_border']} at the border, {counts['isolated_pores']} "
              f"isolated; percolates {_percolation_words(summary)}"]
     return lines + list(summary.get("notes", []))
+
+
+def robust_level(summary: dict) -> str:
+    """What makes a pore, grain, loop or void robust, in the words of the result line:
+    "persistence above 1.5 um, boundary tolerance 0.5 um, stability theorem".
+
+    Parameters
+    ----------
+    summary : dict
+        ``PoreAnalysis.summary`` (or a pores folder's summary.json).
+
+    Returns
+    -------
+    str
+        The threshold and the boundary tolerance with the scan's unit, and the method.
+    """
+    unit = summary["unit"]
+    robust = summary["robustness"]
+    return (f"persistence above {robust['threshold']:.4g} {unit}, boundary tolerance "
+            f"{robust['boundary_tolerance']:.4g} {unit}, stability theorem")
 
 
 def column_units(table, unit: str) -> dict:

@@ -23,17 +23,17 @@ was right.
 from __future__ import annotations
 
 from ..diagram import Diagram
-from ._flags import (ROBUST_METHOD, SIGNIFICANCE_METHOD, Significance,
-                     boundary_tolerance_of, check_alpha, robust_flags, robust_threshold,
-                     significant_counts,
-                     with_p_values)
+from ._flags import (FLAG_COLUMNS, ROBUST_METHOD, SIGNIFICANCE_METHOD, VERDICT_SECTIONS,
+                     Significance, boundary_tolerance_of, check_alpha, recorded_verdict,
+                     robust_flags, robust_threshold, significant_counts, with_p_values)
 from ._noise import NOISE_MODELS, NoiseModel, anscombe, estimate_noise, simulate_noise
 from ._null import NullDistribution, null_distribution, simulations_for
 from ._rips import (RIPS_SLOPE, UNIVERSAL_NULL, dominant_loop_stability, rips_significance,
                     universal_p_values)
 
 __all__ = ["NoiseModel", "NullDistribution", "Significance", "NOISE_MODELS",
-           "SIGNIFICANCE_METHOD", "ROBUST_METHOD", "UNIVERSAL_NULL", "RIPS_SLOPE",
+           "SIGNIFICANCE_METHOD", "ROBUST_METHOD", "FLAG_COLUMNS", "VERDICT_SECTIONS",
+           "UNIVERSAL_NULL", "RIPS_SLOPE", "recorded_verdict",
            "estimate_noise", "anscombe", "simulate_noise", "null_distribution",
            "simulations_for", "with_p_values", "assess", "check_alpha", "robust_flags",
            "boundary_tolerance_of", "robust_threshold", "significant_counts", "rips_significance",

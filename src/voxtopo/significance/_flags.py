@@ -18,6 +18,41 @@ SIGNIFICANCE_METHOD = "family-wise Monte Carlo test against simulated noise"
 ROBUST_METHOD = ("persistence above twice the boundary tolerance plus a voxel diagonal "
                  "(stability theorem)")
 
+#: The per-pair flag columns a verdict writes, in the order they are looked for:
+#: ``significant`` (gray-value sweeps) and ``robust`` (distance sweeps).
+FLAG_COLUMNS = ("significant", "robust")
+
+#: The summary.json section that says how each flag was decided.
+VERDICT_SECTIONS = {"significant": "significance", "robust": "robustness"}
+
+
+def recorded_verdict(summary: dict) -> tuple[str | None, dict]:
+    """The flag a summary.json holds a verdict for, and that verdict's section.
+
+    Parameters
+    ----------
+    summary : dict
+        The content of a result folder's summary.json.
+
+    Returns
+    -------
+    (str or None, dict)
+        "significant" or "robust" (looked for in the order of :data:`FLAG_COLUMNS`) and
+        its non-empty section; ``(None, {})`` when the summary holds neither.
+
+    Examples
+    --------
+    >>> recorded_verdict({"robustness": {"boundary_tolerance": 1.0}})
+    ('robust', {'boundary_tolerance': 1.0})
+    >>> recorded_verdict({"counts": {"0": 3}})
+    (None, {})
+    """
+    for flag in FLAG_COLUMNS:
+        section = summary.get(VERDICT_SECTIONS[flag])
+        if section:
+            return flag, section
+    return None, {}
+
 
 def check_alpha(alpha: float) -> float:
     """The level as a float, refused outside (0, 1).
