@@ -274,6 +274,10 @@ def test_reader_opens_a_folder_written_by_the_cli(make_napari_viewer, tmp_path):
             _sorted_rows(rows[["birth_voxel_z", "birth_voxel_y", "birth_voxel_x"]].to_numpy()))
         assert tuple(layers[dim].scale) == (3.0, 3.0, 3.0)
     assert set(_result_layers(viewer, "death")) == {0, 1, 2}
+    # every pair was asked for: the panel's count says so
+    from voxtopo_napari._diagram_panel import DiagramPanel
+    panel = DiagramPanel(viewer)
+    assert panel.count_label.text() == f"{len(pairs)} of {len(pairs)} pairs shown: all pairs"
 
 
 def test_reader_without_the_scan_shows_the_features_alone(make_napari_viewer, tmp_path):
@@ -383,7 +387,11 @@ def test_significant_features_are_shown_by_default_and_the_switch_shows_all(
     assert "alpha 0.05" in widget.status.text()
     bands = [c for c in panel.axes.collections if isinstance(c, PolyCollection)]
     assert bands and all(c.get_label().startswith("not significant") for c in bands)
-    assert "significant features" in panel.count_label.text()
+    # the count says what it counts in the command's words: method and level
+    count = panel.count_label.text()
+    assert count.startswith("3 of ")
+    assert f"significant features {widget.result.job.verdict.level}" in count
+    assert "family-wise, alpha 0.05" in count
     panel.show_all_check.setChecked(True)
     assert all(layer.shown.all() for layer in layers.values())
     assert len(panel.visible_features()) == sum(len(layer.data) for layer in layers.values())
@@ -416,6 +424,10 @@ def test_distance_mode_shows_the_robust_pores_by_default(make_napari_viewer, qtb
     assert bands and all(c.get_label().startswith("not robust") for c in bands)
     status = widget.status.text()
     assert ("2 robust of" in status) and f"{threshold:.4g}" in status
+    # the panel's count says what it counts, in the words of the status line
+    count = widget.diagram_panel.count_label.text()
+    assert "robust features (persistence above" in count and f"{threshold:.4g}" in count
+    assert count.split("robust features (")[1].rstrip(")") in status
 
 
 def test_reader_carries_the_threshold_band_of_a_tested_folder(make_napari_viewer, tmp_path):
@@ -440,6 +452,11 @@ def test_reader_carries_the_threshold_band_of_a_tested_folder(make_napari_viewer
     assert meta["thresholds"][0] == pytest.approx(summary["significance"]["threshold"]["0"])
     assert any(isinstance(c, PolyCollection) for c in panel.axes.collections)
     assert len(panel.visible_features()) == 3
+    # the count says what it counts, as summary.json and the command's line say it
+    assert panel.count_label.text() == f"3 of 3 pairs shown: {summary['counted']}"
+    assert "significant features (family-wise, alpha 0.05" in panel.count_label.text()
+    panel.show_all_check.setChecked(True)
+    assert "all pairs" in panel.count_label.text()
 
 
 def test_reader_opens_a_periodicity_folder_with_its_maps_in_the_scans_unit(

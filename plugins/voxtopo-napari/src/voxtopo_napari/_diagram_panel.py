@@ -26,6 +26,7 @@ from qtpy.QtWidgets import (QCheckBox, QComboBox, QDoubleSpinBox, QHBoxLayout, Q
                             QVBoxLayout, QWidget)
 
 from voxtopo.report import literal
+from voxtopo.significance import FLAG_COLUMNS
 
 from ._layers import METADATA_KEY, feature_name
 from ._lifetime_colours import lifetime_colormap, lifetime_colours, lifetime_fraction
@@ -37,8 +38,6 @@ DIM_MARKERS = ("o", "^", "s")
 SLIDER_STEPS = 1000
 #: A click selects the nearest point within this many screen pixels.
 CLICK_RADIUS_PX = 8.0
-#: Columns of a tested result that say which pairs are features.
-FLAG_COLUMNS = ("significant", "robust")
 BAND_COLOUR = "#c9a227"
 
 
@@ -277,16 +276,17 @@ class DiagramPanel(QWidget):
     def _flag(self) -> str | None:
         """"significant" or "robust" when the result's pairs were tested."""
         meta = self._meta()
-        if meta.get("flag"):
+        if "flag" in meta:      # None: the run listed its pairs untested
             return meta["flag"]
         for layer in self.birth_layers.values():
             return next((f for f in FLAG_COLUMNS if f in layer.features.columns), None)
         return None
 
     def _shown_what(self) -> str:
-        """What the shown pairs are, in the words of the count beside them."""
+        """What the shown pairs are, in the words of the job's result line: the flagged
+        features with their method and level, or all pairs."""
         flag = None if self.show_all else self._flag()
-        which = f"{flag} features" if flag else "all pairs"
+        which = (self._meta().get("features") or f"{flag} features") if flag else "all pairs"
         return which + (f" with persistence at least {self.min_persistence:g}"
                         if self.min_persistence > 0 else "")
 

@@ -145,7 +145,7 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
 
     timings = {}
     porosity_summary, pore_details, regions, shown_rows = None, None, None, None
-    computed, flag, thresholds = None, None, None
+    computed, flag, thresholds, features = None, None, None, ""
     if with_porosity and options.distance:
         start = time.perf_counter()
         computed = _pore_job(scan, options, progress)
@@ -157,6 +157,7 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
         flag = "robust"
         thresholds = {d: porosity_summary["robustness"]["threshold"]
                       for d in range(diagram.ndim)}
+        features = f"robust features ({pores.robust_level(porosity_summary)})"
         timings["porosity"] = time.perf_counter() - start
         if with_regions:
             start = time.perf_counter()
@@ -169,6 +170,7 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
         timings.update(computed.timings)
         if computed.verdict.tested_any:
             flag, thresholds = computed.verdict.flag, computed.verdict.thresholds
+            features = computed.verdict.features
 
         if with_regions and prepared.values == "distance":
             start = time.perf_counter()
@@ -186,7 +188,7 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
     shown = diagram if porosity_summary is not None else computed.verdict.tested
     layers = result_layers(shown, placement, name, mark_deaths=mark_deaths, regions=regions,
                            pore_details=pore_details, shown_rows=shown_rows, flag=flag,
-                           thresholds=thresholds,
+                           thresholds=thresholds, features=features,
                            show_all=options.min_persistence != AUTO)
     report("building the layers", 1.0)
     return AnalysisResult(name=name, scan=scan, prepared=prepared, options=options,

@@ -105,7 +105,7 @@ def features_table(diagram, dim: int, placement: Placement) -> pd.DataFrame:
 
 
 def _points(diagram, dim, which, placement, longest, result_name, pore_details=None,
-            rows=None, flag=None, thresholds=None, show_all=False):
+            rows=None, flag=None, thresholds=None, features="", show_all=False):
     axes = AXES_3D[3 - diagram.ndim:]
     table = features_table(diagram, dim, placement)
     if rows is not None:
@@ -142,7 +142,7 @@ def _points(diagram, dim, which, placement, longest, result_name, pore_details=N
                                     "superlevel": diagram.superlevel,
                                     "longest": longest, "flag": flag,
                                     "thresholds": dict(thresholds or {}),
-                                    "show_all": show_all}},
+                                    "features": features, "show_all": show_all}},
     }
     return coords.reshape(-1, diagram.ndim), kwargs, "points"
 
@@ -150,7 +150,8 @@ def _points(diagram, dim, which, placement, longest, result_name, pore_details=N
 def result_layers(diagram, placement: Placement, result_name: str, *,
                   mark_deaths: bool = False, regions=None, pore_details=None,
                   shown_rows=None, flag: str | None = None,
-                  thresholds: dict | None = None, show_all: bool = False) -> list[tuple]:
+                  thresholds: dict | None = None, features: str = "",
+                  show_all: bool = False) -> list[tuple]:
     """Layer-data tuples for one result: births per dimension, deaths on request, and
     the pore regions when given (an int array on the analysed grid: k + 1 = pore k of the
     diagram, or the pore's id for a pore analysis).
@@ -163,12 +164,15 @@ def result_layers(diagram, placement: Placement, result_name: str, *,
     features, and ``thresholds`` (dim -> persistence) the level it was decided at; the
     diagram panel shows the flagged pairs and draws the thresholds as a band; with
     ``show_all`` (the user listed every pair above a number) it starts showing all.
+    ``features`` says what the flagged pairs are, with the method and the level, in the
+    words of the job's result line ("significant features (family-wise, alpha 0.05,
+    ...)"); the panel writes it beside its count.
     """
     longest = longest_finite(diagram.pairs["persistence"])
     which = ["birth", "death"] if mark_deaths else ["birth"]
     shown_rows = shown_rows or {}
     layers = [_points(diagram, dim, end, placement, longest, result_name, pore_details,
-                      shown_rows.get(dim), flag, thresholds, show_all)
+                      shown_rows.get(dim), flag, thresholds, features, show_all)
               for end in which for dim in range(diagram.ndim)]
     if regions is not None:
         layers.append((regions, {

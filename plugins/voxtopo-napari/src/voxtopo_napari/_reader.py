@@ -30,7 +30,7 @@ from voxtopo import porosity
 from voxtopo.diagram import Diagram
 from voxtopo.errors import InputError
 from voxtopo.io.results import read_summary
-from voxtopo.jobs.analyse import AUTO, AnalysisOptions, prepare
+from voxtopo.jobs.analyse import AUTO, prepare, recorded
 
 from ._layers import METADATA_KEY, placement_of, result_layers
 
@@ -72,11 +72,6 @@ def _check_counts(folder: Path, summary: dict, diagram: Diagram) -> None:
         raise InputError(f"{folder / 'pairs.csv'} holds {sum(found.values())} pairs but "
                          f"summary.json lists {sum(listed.values())}; the folder is "
                          f"incomplete, write it again with voxtopo analyse.")
-
-
-def _options(summary: dict) -> AnalysisOptions:
-    known = AnalysisOptions.__dataclass_fields__
-    return AnalysisOptions(**{k: v for k, v in summary.get("options", {}).items() if k in known})
 
 
 #: tables of a pores folder: file stem -> the column prefix of the position shown
@@ -139,7 +134,8 @@ def read_result_folder(path) -> list[tuple]:
         raise InputError(f"{folder / 'pairs.csv'} cannot be read as a table of pairs "
                          f"({error}); write the folder again with voxtopo analyse.") from None
     _check_counts(folder, summary, diagram)
-    options = _options(summary)
+    record = recorded(folder)
+    options = record.options
     scan_info = summary.get("scan", {})
     source = scan_info.get("source", "")
     shape = tuple(scan_info.get("shape", diagram.shape))
@@ -159,21 +155,10 @@ def read_result_folder(path) -> list[tuple]:
             regions = porosity.pore_regions(prepared.data, pores.voxels("birth"),
                                             pores.pairs["death"].to_numpy(),
                                             diagram.neighbourhood)
-    flag, thresholds = _verdict(summary)
     return layers + result_layers(diagram, placement, folder.name, mark_deaths=True,
-                                  regions=regions, flag=flag, thresholds=thresholds,
+                                  regions=regions, flag=record.flag,
+                                  thresholds=record.thresholds, features=record.features,
                                   show_all=options.min_persistence != AUTO)
-
-
-def _verdict(summary: dict) -> tuple[str | None, dict]:
-    """The flag column ("significant" / "robust") and the threshold per dimension of an
-    analyse folder whose pairs were tested; (None, {}) otherwise."""
-    for key, flag in (("significance", "significant"), ("robustness", "robust")):
-        thresholds = (summary.get(key) or {}).get("threshold") or {}
-        found = {int(d): float(t) for d, t in thresholds.items() if t is not None}
-        if found:
-            return flag, found
-    return None, {}
 
 
 def _table(path: Path, job: str) -> pd.DataFrame:
