@@ -277,7 +277,27 @@ def test_reader_opens_a_folder_written_by_the_cli(make_napari_viewer, tmp_path):
     # every pair was asked for: the panel's count says so
     from voxtopo_napari._diagram_panel import DiagramPanel
     panel = DiagramPanel(viewer)
+    viewer.window.add_dock_widget(panel, name="voxtopo diagram")
     assert panel.count_label.text() == f"{len(pairs)} of {len(pairs)} pairs shown: all pairs"
+
+
+def test_a_folder_of_pairs_above_a_number_is_counted_as_such(make_napari_viewer, tmp_path):
+    """Pairs listed above a persistence the user gave are counted as those pairs, with
+    the words of the command's line and summary.json, not as all pairs."""
+    from voxtopo_napari._diagram_panel import DiagramPanel
+    np.save(tmp_path / "speckle.npy", np.random.default_rng(6).random((12, 12)))
+    out = tmp_path / "above"
+    assert cli.main(["analyse", str(tmp_path / "speckle.npy"), "--out", str(out),
+                     "--min-persistence", "0.3"]) == 0
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["counted"] == "pairs with persistence above 0.3"
+    viewer = make_napari_viewer()
+    viewer.open(str(out), plugin="voxtopo-napari")
+    panel = DiagramPanel(viewer)
+    viewer.window.add_dock_widget(panel, name="voxtopo diagram")
+    listed = len(pd.read_csv(out / "pairs.csv"))
+    assert panel.count_label.text() == (f"{listed} of {listed} pairs shown: pairs with "
+                                        f"persistence above 0.3")
 
 
 def test_reader_without_the_scan_shows_the_features_alone(make_napari_viewer, tmp_path):

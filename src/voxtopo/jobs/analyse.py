@@ -110,6 +110,13 @@ class AnalysisOptions:
         """The numeric lower bound on persistence handed to the engine."""
         return 0.0 if self.min_persistence == AUTO else float(self.min_persistence)
 
+    @property
+    def listed(self) -> str:
+        """The pairs a count of every listed pair counts: "all pairs" or "pairs with
+        persistence above 0.5"."""
+        floor = self.persistence_floor
+        return "all pairs" if floor == 0 else f"pairs with persistence above {floor:g}"
+
     def __post_init__(self):
         check(asdict(self), ANALYSE_RULES, "the analyse options")
         if self.distance:
@@ -477,8 +484,7 @@ class AnalysisResult:
         if not self.options.keeps_all_tested and self.verdict.tested_any:
             return (f"{kept} {self.verdict.flag} of {total} pairs {self.verdict.level}; "
                     f"{by_dim}{within}")
-        floor = self.options.persistence_floor
-        which = "all pairs" if floor == 0 else f"pairs with persistence above {floor:g}"
+        which = self.options.listed
         if not self.verdict.tested_any:
             return f"{kept} pairs ({which}; {by_dim}); {self.verdict.phrase}{within}"
         passing = sum(sig.significant_counts(self.diagram, self.verdict.flag).values())
@@ -796,8 +802,7 @@ def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepare
         judged = {sig.VERDICT_SECTIONS[verdict.flag]: section,
                   "counted": (verdict.features
                               if not options.keeps_all_tested and verdict.tested_any else
-                              "all pairs" if threshold == 0 else
-                              f"pairs with persistence above {threshold:g}")
+                              options.listed)
                   + ("" if region is None else f", {region_phrase(region)}"),
                   "pairs_computed": {str(d): n for d, n in verdict.tested.counts().items()}}
     return {

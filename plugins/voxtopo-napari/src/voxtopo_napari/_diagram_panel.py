@@ -284,9 +284,11 @@ class DiagramPanel(QWidget):
 
     def _shown_what(self) -> str:
         """What the shown pairs are, in the words of the job's result line: the flagged
-        features with their method and level, or all pairs."""
+        features with their method and level, or every pair listed."""
+        meta = self._meta()
         flag = None if self.show_all else self._flag()
-        which = (self._meta().get("features") or f"{flag} features") if flag else "all pairs"
+        which = ((meta.get("features") or f"{flag} features") if flag
+                 else meta.get("listed") or "all pairs")
         return which + (f" with persistence at least {self.min_persistence:g}"
                         if self.min_persistence > 0 else "")
 

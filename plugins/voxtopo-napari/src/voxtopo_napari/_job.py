@@ -189,7 +189,7 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
     layers = result_layers(shown, placement, name, mark_deaths=mark_deaths, regions=regions,
                            pore_details=pore_details, shown_rows=shown_rows, flag=flag,
                            thresholds=thresholds, features=features,
-                           show_all=options.min_persistence != AUTO)
+                           listed=options.listed, show_all=options.min_persistence != AUTO)
     report("building the layers", 1.0)
     return AnalysisResult(name=name, scan=scan, prepared=prepared, options=options,
                           diagram=diagram, placement=placement, layers=layers,

@@ -105,7 +105,8 @@ def features_table(diagram, dim: int, placement: Placement) -> pd.DataFrame:
 
 
 def _points(diagram, dim, which, placement, longest, result_name, pore_details=None,
-            rows=None, flag=None, thresholds=None, features="", show_all=False):
+            rows=None, flag=None, thresholds=None, features="", listed="all pairs",
+            show_all=False):
     axes = AXES_3D[3 - diagram.ndim:]
     table = features_table(diagram, dim, placement)
     if rows is not None:
@@ -142,7 +143,8 @@ def _points(diagram, dim, which, placement, longest, result_name, pore_details=N
                                     "superlevel": diagram.superlevel,
                                     "longest": longest, "flag": flag,
                                     "thresholds": dict(thresholds or {}),
-                                    "features": features, "show_all": show_all}},
+                                    "features": features, "listed": listed,
+                                    "show_all": show_all}},
     }
     return coords.reshape(-1, diagram.ndim), kwargs, "points"
 
@@ -151,7 +153,7 @@ def result_layers(diagram, placement: Placement, result_name: str, *,
                   mark_deaths: bool = False, regions=None, pore_details=None,
                   shown_rows=None, flag: str | None = None,
                   thresholds: dict | None = None, features: str = "",
-                  show_all: bool = False) -> list[tuple]:
+                  listed: str = "all pairs", show_all: bool = False) -> list[tuple]:
     """Layer-data tuples for one result: births per dimension, deaths on request, and
     the pore regions when given (an int array on the analysed grid: k + 1 = pore k of the
     diagram, or the pore's id for a pore analysis).
@@ -166,13 +168,14 @@ def result_layers(diagram, placement: Placement, result_name: str, *,
     ``show_all`` (the user listed every pair above a number) it starts showing all.
     ``features`` says what the flagged pairs are, with the method and the level, in the
     words of the job's result line ("significant features (family-wise, alpha 0.05,
-    ...)"); the panel writes it beside its count.
+    ...)"); the panel writes it beside its count, and ``listed`` (the options'
+    ``listed``: "all pairs" or "pairs with persistence above 0.5") when it shows all.
     """
     longest = longest_finite(diagram.pairs["persistence"])
     which = ["birth", "death"] if mark_deaths else ["birth"]
     shown_rows = shown_rows or {}
     layers = [_points(diagram, dim, end, placement, longest, result_name, pore_details,
-                      shown_rows.get(dim), flag, thresholds, features, show_all)
+                      shown_rows.get(dim), flag, thresholds, features, listed, show_all)
               for end in which for dim in range(diagram.ndim)]
     if regions is not None:
         layers.append((regions, {

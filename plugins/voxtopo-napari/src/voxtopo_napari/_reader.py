@@ -158,6 +158,7 @@ def read_result_folder(path) -> list[tuple]:
     return layers + result_layers(diagram, placement, folder.name, mark_deaths=True,
                                   regions=regions, flag=record.flag,
                                   thresholds=record.thresholds, features=record.features,
+                                  listed=options.listed,
                                   show_all=options.min_persistence != AUTO)
 
 
