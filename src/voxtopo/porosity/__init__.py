@@ -17,8 +17,9 @@ result folder, :func:`regions_of` labels each pore's region by its id.
 
 from ._analysis import (COMPLEMENT, PoreAnalysis, analyse, cautions, is_binary_mask,
                         size_column)
+from ._out_of_core import analyse_chunked
 from ._regions import pore_regions, regions_of
 from ._write import summary_lines, write_pores
 
-__all__ = ["analyse", "write_pores", "PoreAnalysis", "cautions", "COMPLEMENT", "size_column",
+__all__ = ["analyse", "analyse_chunked", "write_pores", "PoreAnalysis", "cautions", "COMPLEMENT", "size_column",
            "summary_lines", "pore_regions", "regions_of", "is_binary_mask"]

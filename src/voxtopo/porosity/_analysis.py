@@ -781,7 +781,8 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
                                                                  where, segmentation)
     planned = _estimate_bytes(mask.shape, n_pore, engine)
     what = f"Pore analysis of the {'x'.join(map(str, mask.shape))} scan"
-    remedy = "crop it (--crop) or downsample it (--downsample) first"
+    remedy = ("crop it (--crop) or downsample it (--downsample) first, or measure it chunk by "
+              "chunk with --out-of-core (voxtopo.jobs.pores.pores_out_of_core)")
     ensure_fits(planned, what, remedy)
     timings["segmentation"] = time.perf_counter() - clock
     # an allocation that fails after the plan said it fits is still one sentence

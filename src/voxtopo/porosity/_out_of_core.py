@@ -49,7 +49,7 @@ from ..diagram import AXES_3D
 from ..engine import construction_of
 from ..engine.chunked import BYTES_PER_CHUNK_VOXEL, chunked_merges, chunked_persistence
 from ..errors import InputError, TooBigError, VoxtopoError
-from ..memory import ensure_fits
+from ..memory import BUDGET_FRACTION, ensure_fits, human
 from ..scan import Scan
 from . import _chunked_edt, _local_counts
 from ._analysis import (COMPLEMENT, RESOLVED_RADIUS_VOXELS, SURFACE_SMOOTHING_VOXELS,
@@ -313,6 +313,21 @@ def compute_on(scheduler, what: str):
     return compute
 
 
+def _check_worker_memory(scheduler, planned: int, shape, chunks) -> None:
+    """Refuse a plan whose task would not fit the smallest worker of a distributed
+    scheduler (with the same margin as a run on this machine)."""
+    info = getattr(scheduler, "scheduler_info", None)
+    if info is None:
+        return
+    limits = [w.get("memory_limit") or 0 for w in info().get("workers", {}).values()]
+    limits = [limit for limit in limits if limit > 0]
+    if limits and planned > BUDGET_FRACTION * min(limits):
+        raise TooBigError(f"One task of the out-of-core pore analysis of the "
+                          f"{'x'.join(map(str, shape))} scan in {'x'.join(map(str, chunks))} "
+                          f"chunks would need about {human(planned)} but the smallest worker "
+                          f"has {human(min(limits))}; choose smaller chunks (--chunks).")
+
+
 # --------------------------------------------------------------------------- analyse
 def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool = False,
                     label=None, roi=None, spacing=None, unit=None, axis=None,
@@ -383,6 +398,7 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
     ensure_fits(planned, f"One task of the out-of-core pore analysis of the "
                          f"{'x'.join(map(str, shape))} scan in {'x'.join(map(str, chunks))} "
                          f"chunks", "choose smaller chunks (--chunks)")
+    _check_worker_memory(scheduler, planned, shape, chunks)
     compute = compute_on(scheduler, "the pore analysis")
 
     def step(name, fraction):
@@ -598,6 +614,10 @@ class MaskView(_Box):
 
     def __getitem__(self, index):
         return (np.asarray(self.phase[index]) & 1).astype(bool)
+
+    def __array__(self, dtype=None, copy=None):
+        whole = self[tuple(slice(None) for _ in self.shape)]
+        return whole if dtype is None else whole.astype(dtype)
 
 
 def _signed_chunk(phase, to_solid, to_pore, distance, lo, hi):

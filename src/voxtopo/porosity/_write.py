@@ -48,15 +48,19 @@ def summary_lines(summary: dict) -> list[str]:
     counts = summary["counts"]
     robust = summary["robustness"]
     n = robust["robust"]
+    loops = ("loops not computed (dimension 1 is computed in memory only)"
+             if counts["loops"] is None else f"{n['loops']} robust of {counts['loops']} loops")
     found = (f"{n['pores']} robust of {counts['pores']} pores, {n['grains']} robust of "
-             f"{counts['grains']} grains, {n['loops']} robust of {counts['loops']} loops, "
+             f"{counts['grains']} grains, {loops}, "
              f"{n['voids']} robust of {counts['voids']} voids (robust: persistence above "
              f"{robust['threshold']:.4g} {unit}, boundary tolerance "
              f"{robust['boundary_tolerance']:.4g} {unit}, stability theorem; listed: living "
              f"longer than {summary['min_persistence']:.4g} {unit})")
+    isolated = ("" if counts["isolated_pores"] is None
+                else f", {counts['isolated_pores']} isolated")
     lines = [f"porosity {summary['porosity']:.4f} {where} ({size}); {found}; of the listed "
-             f"pores {counts['pores_at_border']} at the border, {counts['isolated_pores']} "
-             f"isolated; percolates {_percolation_words(summary)}"]
+             f"pores {counts['pores_at_border']} at the border{isolated}; percolates "
+             f"{_percolation_words(summary)}"]
     return lines + list(summary.get("notes", []))
 
 
@@ -135,6 +139,12 @@ def write_pores(out, analysis, scan=None, force: bool = False, inputs=()) -> Pat
             f"{name}.csv": column_units(getattr(analysis, name), unit, ndim)
             for name in ("pores", "grains", "loops", "voids")}
         summary["columns"]["pairs.csv"] = pairs_units(ndim, unit)
+        if analysis.betti_curves is not None:
+            analysis.betti_curves.to_csv(tmp / "betti_curves.csv", index=False,
+                                         float_format="%.6g")
+            summary["files"]["betti_curves"] = "betti_curves.csv"
+            summary["columns"]["betti_curves.csv"] = {
+                c: (unit if c == "level" else "") for c in analysis.betti_curves.columns}
         summary["plots"] = _plots(tmp, analysis, background, ndim)
         write_summary(tmp, summary)
         analysis.diagram.save(tmp)
@@ -173,7 +183,10 @@ def _size_plot(plt, analysis, unit, background, ndim):
         pores, which = analysis.pores, "all pores (every pore touches the border)"
     body = pores["body_radius"].to_numpy(dtype=float)
     throat = pores["throat_radius"].to_numpy(dtype=float)
-    volume = pores[size_column(ndim)].to_numpy(dtype=float)
+    # out of core the basin sizes are not computed: the weighted panels say so instead
+    sized = size_column(ndim) in pores
+    volume = (pores[size_column(ndim)].to_numpy(dtype=float) if sized
+              else np.ones(len(pores)))
     has_throat = np.isfinite(throat)
     fig, ax = plt.subplots(2, 2, figsize=(10, 7.5))
     finite = np.concatenate([body, throat[has_throat]])
@@ -203,6 +216,12 @@ def _size_plot(plt, analysis, unit, background, ndim):
                  title=title, ylim=(0, 1.02))
     for axis in ax.ravel():
         axis.legend(frameon=False, fontsize=8)
+    if not sized:
+        for axis in (ax[0, 1], ax[1, 1]):
+            axis.clear()
+            axis.set_axis_off()
+            axis.text(0.5, 0.5, f"body {size_word}s are not computed out of core",
+                      ha="center", va="center", transform=axis.transAxes)
     fig.suptitle(f"Pore bodies and throats: {len(pores)} {which}; isolated pores have "
                  f"no throat")
     fig.tight_layout()
