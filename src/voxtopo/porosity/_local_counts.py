@@ -115,6 +115,8 @@ def interface_terms(soft: np.ndarray, origin, lo, hi, shape, spacing,
     ndim = len(shape)
     spacing = np.asarray(spacing, dtype=np.float64)
     owned_hi = [min(hi[a], shape[a] - 1) for a in range(ndim)]
+    if any(h <= l for l, h in zip(lo, owned_hi)):  # a last slab owns no square or cube
+        return 0.0, (None if ndim == 2 else 0.0)
     if ndim == 2:
         from skimage.measure import find_contours
 
