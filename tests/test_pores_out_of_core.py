@@ -33,14 +33,14 @@ def _with_cavity(mask, centre, radius):
     return mask | inside
 
 
-def _same_table(memory, chunked, any_order=False):
+def _same_table(memory, chunked, any_order=False, rtol=1e-6):
     columns = [c for c in chunked.columns if c in memory.columns]
     memory, chunked = memory[columns], chunked[columns]
     if any_order:  # rows of equal lifetime come in the diagram's order, not a fixed one
         memory, chunked = (t.sort_values(columns[1:]) for t in (memory, chunked))
         memory, chunked = (t.drop(columns="id") for t in (memory, chunked))
     pd.testing.assert_frame_equal(memory.reset_index(drop=True), chunked.reset_index(drop=True),
-                                  check_dtype=False, rtol=1e-6)
+                                  check_dtype=False, rtol=rtol)
 
 
 def _gudhi_betti(field, levels, construction):
@@ -261,3 +261,25 @@ def test_out_of_core_reads_an_ome_zarr_store_with_its_voxel_size(tmp_path):
     assert result.analysis.summary["spacing"] == [2.0, 1.0, 1.0]
     assert result.analysis.summary["unit"] == "um"
     _same_table(memory.pores, result.analysis.pores)
+
+
+def test_batch_settings_send_pores_out_of_core_onto_the_cluster(tmp_path, cluster_address):
+    import io
+
+    from voxtopo import batch
+
+    mask = _with_cavity(_blobs((16, 15, 14), seed=12), (8, 7, 7), 4)
+    store = zarr.create_array(str(tmp_path / "foam.zarr"), shape=mask.shape, chunks=(6, 6, 6),
+                              dtype=np.uint8)
+    store[...] = mask
+    settings = tmp_path / "settings.toml"
+    settings.write_text('job = "pores"\n[pores]\nout_of_core = true\nchunks = [5, 8, 7]\n')
+    (tmp_path / "m.csv").write_text("path\nfoam.zarr\n")
+    batch.run_batch(str(tmp_path / "m.csv"), tmp_path / "out", settings_path=settings,
+                    scheduler=cluster_address, stream=io.StringIO())
+    folder = tmp_path / "out" / "scans" / "foam"
+    summary = json.loads((folder / "summary.json").read_text())
+    assert summary["out_of_core"]["chunks"] == [5, 8, 7]
+    # pores.csv holds 6 significant digits
+    _same_table(analyse(mask).pores, pd.read_csv(folder / "pores.csv"), rtol=1e-5)
+    assert not [p for p in (tmp_path / "out" / "scans").iterdir() if "scratch" in p.name]

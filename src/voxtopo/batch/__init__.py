@@ -174,8 +174,10 @@ def run_batch(manifest, out, *, settings_path=None, scheduler=None, workers=None
               *(path for entry in entries for path in entry.files.values())]
     out = _check_out(out, [i for i in inputs if i is not None], settings, force)
     loads = {e.name: _load_options(e, settings) for e in entries}
+    # an out-of-core pores run holds one chunk per task, not the scan
+    whole_scans = not (settings.job == "pores" and settings.pores.get("out_of_core"))
     needs = [scan_bytes(*peek, settings.job) for e in entries
-             if (peek := _peek(e.path, loads[e.name])) is not None]
+             if whole_scans and (peek := _peek(e.path, loads[e.name])) is not None]
     count, limit = plan_workers(
         needs, workers=workers or settings.batch.get("workers"),
         memory_per_worker=_bytes_or_none(settings.batch.get("memory_per_worker")))
