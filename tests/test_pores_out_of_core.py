@@ -102,11 +102,11 @@ def test_out_of_core_pores_equal_in_memory_pores(tmp_path, shape, chunks, neighb
 
 
 def test_out_of_core_pores_with_a_region_of_interest_equal_in_memory(tmp_path):
-    mask = _with_cavity(_blobs((18, 16, 17), seed=7), (9, 8, 8), 4)
+    mask = _with_cavity(_blobs((14, 13, 12), seed=7), (7, 6, 6), 3)
     grid = np.indices(mask.shape)
-    roi = ((grid[1] - 8) ** 2 + (grid[2] - 8) ** 2) <= 49          # a cylinder along z
+    roi = ((grid[1] - 6) ** 2 + (grid[2] - 6) ** 2) <= 30          # a cylinder along z
     memory = analyse(mask, roi=roi)
-    chunked = analyse_chunked(mask, roi=roi, chunks=(7, 5, 6), scratch=tmp_path,
+    chunked = analyse_chunked(mask, roi=roi, chunks=(7, 7, 6), scratch=tmp_path,
                               scheduler="sync")
     for key in ("porosity", "percolates", "critical_throat", "euler_characteristic",
                 "region_of_interest"):
@@ -140,8 +140,8 @@ def test_betti_curves_from_euler_characteristic_equal_the_diagrams_and_gudhi(tmp
                                                                             neighbourhood):
     """b1 = b0 + b2 - chi (Euler-Poincare, Hatcher 2002) at every level, with b0 and b2
     from the chunked sweeps, equals the in-memory diagram's Betti curves and gudhi's."""
-    mask = _blobs((15, 14, 16), seed=11, sigma=1.5)
-    chunked = analyse_chunked(mask, chunks=(6, 5, 7), neighbourhood=neighbourhood,
+    mask = _blobs((13, 12, 12), seed=11, sigma=1.5)
+    chunked = analyse_chunked(mask, chunks=(7, 6, 6), neighbourhood=neighbourhood,
                               scratch=tmp_path, scheduler="sync")
     field = np.where(mask, -ndimage.distance_transform_edt(mask),
                      ndimage.distance_transform_edt(~mask))
@@ -226,14 +226,14 @@ def test_cli_out_of_core_rewrites_a_tiff_and_runs_on_the_cluster(tmp_path, capsy
                                                                    cluster_address):
     from voxtopo.cli import main
 
-    mask = _with_cavity(_blobs((30, 26), seed=4), (15, 13), 6)
+    mask = _with_cavity(_blobs((24, 22), seed=4), (12, 11), 5)
     path = tmp_path / "mask.tif"
     tifffile.imwrite(path, mask.astype(np.uint8))
     out = tmp_path / "result"
-    assert main(["pores", str(path), "--out", str(out), "--out-of-core", "--chunks", "8,9",
+    assert main(["pores", str(path), "--out", str(out), "--out-of-core", "--chunks", "12,11",
                  "--scheduler", cluster_address, "--spacing", "1.5", "--unit", "um"]) == 0
     said = capsys.readouterr().out
-    assert "Computed out of core in 8x9 chunks" in said
+    assert "Computed out of core in 12x11 chunks" in said
     summary = json.loads((out / "summary.json").read_text())
     memory = analyse(mask, spacing=(1.5, 1.5), unit="um")
     assert summary["porosity"] == memory.summary["porosity"]
@@ -246,9 +246,9 @@ def test_cli_out_of_core_rewrites_a_tiff_and_runs_on_the_cluster(tmp_path, capsy
 
 
 def test_out_of_core_reads_an_ome_zarr_store_with_its_voxel_size(tmp_path):
-    mask = _blobs((14, 15, 13), seed=9)
+    mask = _blobs((10, 12, 11), seed=9)
     root = zarr.open_group(str(tmp_path / "scan.ome.zarr"), mode="w")
-    data = root.create_array("0", shape=mask.shape, chunks=(5, 6, 7), dtype=np.uint8)
+    data = root.create_array("0", shape=mask.shape, chunks=(5, 6, 11), dtype=np.uint8)
     data[...] = mask
     root.attrs["multiscales"] = [{
         "version": "0.4",
@@ -268,18 +268,18 @@ def test_batch_settings_send_pores_out_of_core_onto_the_cluster(tmp_path, cluste
 
     from voxtopo import batch
 
-    mask = _with_cavity(_blobs((16, 15, 14), seed=12), (8, 7, 7), 4)
-    store = zarr.create_array(str(tmp_path / "foam.zarr"), shape=mask.shape, chunks=(6, 6, 6),
+    mask = _with_cavity(_blobs((12, 12, 10), seed=12), (6, 6, 5), 3)
+    store = zarr.create_array(str(tmp_path / "foam.zarr"), shape=mask.shape, chunks=(6, 6, 5),
                               dtype=np.uint8)
     store[...] = mask
     settings = tmp_path / "settings.toml"
-    settings.write_text('job = "pores"\n[pores]\nout_of_core = true\nchunks = [5, 8, 7]\n')
+    settings.write_text('job = "pores"\n[pores]\nout_of_core = true\nchunks = [6, 6, 10]\n')
     (tmp_path / "m.csv").write_text("path\nfoam.zarr\n")
     batch.run_batch(str(tmp_path / "m.csv"), tmp_path / "out", settings_path=settings,
                     scheduler=cluster_address, stream=io.StringIO())
     folder = tmp_path / "out" / "scans" / "foam"
     summary = json.loads((folder / "summary.json").read_text())
-    assert summary["out_of_core"]["chunks"] == [5, 8, 7]
+    assert summary["out_of_core"]["chunks"] == [6, 6, 10]
     # pores.csv holds 6 significant digits
     _same_table(analyse(mask).pores, pd.read_csv(folder / "pores.csv"), rtol=1e-5)
     assert not [p for p in (tmp_path / "out" / "scans").iterdir() if "scratch" in p.name]
