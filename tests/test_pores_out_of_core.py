@@ -77,8 +77,10 @@ def test_out_of_core_pores_equal_in_memory_pores(tmp_path, shape, chunks, neighb
                               neighbourhood=neighbourhood, scratch=tmp_path, scheduler="sync")
     assert 2 * chunked.pores["body_radius"].max() > 2.0 * min(chunks)
     a, b = memory.summary, chunked.summary
-    for key in ("porosity", "percolates", "critical_throat", "euler_characteristic"):
+    for key in ("porosity", "percolates", "critical_throat", "euler_characteristic",
+                "connected_porosity"):
         assert a[key] == b[key], key
+    assert b["connectivity_density"]["solid_pieces"] == a["connectivity_density"]["solid_pieces"]
     for axis, radius in a["percolation_radius"].items():
         assert b["percolation_radius"][axis] == (None if radius is None
                                                  else pytest.approx(radius, rel=1e-6))
@@ -86,7 +88,8 @@ def test_out_of_core_pores_equal_in_memory_pores(tmp_path, shape, chunks, neighb
     for key, value in a["minkowski"].items():
         assert b["minkowski"][key] == (value if not isinstance(value, float)
                                        else pytest.approx(value, rel=1e-6)), key
-    for key in ("pores", "pores_at_border", "grains", "grains_at_border", "voids"):
+    for key in ("pores", "pores_at_border", "isolated_pores", "grains", "grains_at_border",
+                "voids"):
         assert a["counts"][key] == b["counts"][key], key
     _same_table(memory.pores, chunked.pores)
     _same_table(memory.grains, chunked.grains)
@@ -109,7 +112,7 @@ def test_out_of_core_pores_with_a_region_of_interest_equal_in_memory(tmp_path):
     chunked = analyse_chunked(mask, roi=roi, chunks=(7, 7, 6), scratch=tmp_path,
                               scheduler="sync")
     for key in ("porosity", "percolates", "critical_throat", "euler_characteristic",
-                "region_of_interest"):
+                "region_of_interest", "connected_porosity"):
         assert memory.summary[key] == chunked.summary[key], key
     assert chunked.summary["minkowski"]["surface_area_density"] == pytest.approx(
         memory.summary["minkowski"]["surface_area_density"], rel=1e-6)

@@ -304,8 +304,8 @@ def _add_pores(subparsers) -> None:
     o.add_argument("--out-of-core", action="store_true",
                    help="read the scan chunk by chunk on a dask cluster (zarr / OME-Zarr; a "
                         "TIFF or .npy is rewritten into a store first); everything but the "
-                        "loops (dimension 1, in memory only), basin volumes and connected "
-                        "porosity, exactly as in memory, with Betti curves of all dimensions")
+                        "loops (dimension 1, in memory only) and the basin volumes, exactly "
+                        "as in memory, with Betti curves of all dimensions")
     o.add_argument("--chunks", type=_shape, metavar="Z,Y,X",
                    help="with --out-of-core: block shape of the tasks (default the store's)")
     o.add_argument("--scheduler", metavar="ADDRESS",

@@ -28,9 +28,11 @@ Everything is exact and equal to the in-memory result where both fit:
   characteristic from local counts, and b1 = b0 + b2 - chi at each level by the
   Euler-Poincare formula (Hatcher 2002) -- exact, not an estimate.
 
-Not computed out of core (the summary says so): the dimension-1 pairs of a volume (loops),
-each pore's and grain's basin volume and whether it is isolated, and the connected
-porosity; they need the whole volume in memory.
+* connected porosity and isolated pores from the connected pieces of each phase, labelled
+  chunk by chunk and joined across chunk faces (:mod:`voxtopo.porosity._chunked_pieces`).
+
+Not computed out of core (the summary says so): the dimension-1 pairs of a volume (loops)
+and each pore's and grain's basin volume; they need the whole volume in memory.
 """
 
 from __future__ import annotations
@@ -51,7 +53,7 @@ from ..engine.chunked import BYTES_PER_CHUNK_VOXEL, chunked_merges, chunked_pers
 from ..errors import InputError, TooBigError, VoxtopoError
 from ..memory import BUDGET_FRACTION, ensure_fits, human
 from ..scan import Scan
-from . import _chunked_edt, _local_counts
+from . import _chunked_edt, _chunked_pieces, _local_counts
 from ._analysis import (COMPLEMENT, RESOLVED_RADIUS_VOXELS, SURFACE_SMOOTHING_VOXELS,
                         PoreAnalysis, _axes, _check_extent, _coordinates, _flat,
                         _loop_table, _outside_as_never, _phase_notes, _robust_counts,
@@ -69,9 +71,8 @@ BYTES_PER_COUNT_VOXEL = 48
 BETTI_LEVELS = 256
 
 #: What the out-of-core path does not compute, in the summary's words.
-NOT_COMPUTED = ("the dimension-1 pairs of a volume (loops), the pores' and grains' basin "
-                "volumes and isolated flags, and the connected porosity need the whole "
-                "volume in memory and are not computed out of core")
+NOT_COMPUTED = ("the dimension-1 pairs of a volume (loops) and the pores' and grains' basin "
+                "volumes need the whole volume in memory and are not computed out of core")
 
 
 class WorkerLost(TooBigError):
@@ -477,6 +478,10 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
                            ("body", "throat"), shape, spacing, room)
     grains = _feature_table(_rows_of_dimension(solid_diagram, 0), solid_edge, True,
                             min_persistence, ("body", "neck"), shape, spacing, room)
+    step("pores and grains", 0.9)
+    pore_pieces = _pieces(phase, edge, (PORE,), n_pore, pores, "body", shape, chunks, compute)
+    solid_pieces = _pieces(phase, edge, (SOLID,), n_solid, grains, "body", shape, chunks,
+                           compute)
     pore_rows = pores.pop("pair_row").to_numpy()
     grains.pop("pair_row")
     loops = _loop_table(diagram, spacing, min_persistence)
@@ -488,15 +493,17 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
     # ---- percolation
     clock = time.perf_counter()
     names = AXES_3D[3 - ndim:]
-    radius, critical = {}, {}
+    radius, critical, connected = {}, {}, {}
     below_all = float(np.finfo(np.float32).min)
     for k, a in enumerate(axes):
         if all(faces_in_sample[a]):
             with worker_losses_told("the union-find sweeps"):
                 radius[names[a]], critical[names[a]] = _percolation(
                     pore_field, a, n_pore, chunks, spacing, below_all, scheduler)
+            through = pore_pieces.faces[:, a, 0] & pore_pieces.faces[:, a, 1]
+            connected[names[a]] = float(pore_pieces.sizes[through].sum() / sample_voxels)
         else:
-            radius[names[a]], critical[names[a]] = None, None
+            radius[names[a]], critical[names[a]], connected[names[a]] = None, None, None
         step("percolation", (k + 1) / len(axes))
     timings["percolation"] = time.perf_counter() - clock
 
@@ -533,7 +540,7 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
         notes.append(f"Percolation along {', '.join(unmeasured)} is not measured: the "
                      f"sample (region of interest) does not reach both faces of the scan "
                      f"along that axis.")
-    notes += _voxel_size_notes(unit, chi_solid, None, ndim)
+    notes += _voxel_size_notes(unit, chi_solid, len(solid_pieces.sizes), ndim)
     notes.append(f"Computed out of core in {'x'.join(map(str, chunks))} chunks: "
                  f"{NOT_COMPUTED}.")
     density_unit = (f"1/voxel^{ndim} (no voxel size)" if unit == "px" else f"1/{unit}^{ndim}")
@@ -543,7 +550,7 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
         robust["loops"] = None
     summary = {
         "porosity": float(pore_voxels / sample_voxels),
-        "connected_porosity": {names[a]: None for a in axes},
+        "connected_porosity": connected,
         "percolates": {a: percolation_state(r, finest) for a, r in radius.items()},
         "percolation_radius": {a: (r if r else None) for a, r in radius.items()},
         "critical_throat": {a: (None if c is None else [float(v) for v in c])
@@ -552,7 +559,7 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
                                  "neighbourhood": {"pore": n_pore, "solid": n_solid}},
         "connectivity_density": {"value": (1 - chi_solid) / volume, "phase": "solid",
                                  "neighbourhood": n_solid, "unit": density_unit,
-                                 "solid_pieces": None,
+                                 "solid_pieces": int(len(solid_pieces.sizes)),
                                  "formula": "(1 - euler_characteristic of the solid) / "
                                             "sample volume (Odgaard & Gundersen 1993)"},
         "minkowski": functionals,
@@ -564,7 +571,7 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
                     + ("" if loops_known else "; loops are not computed out of core (the "
                                               "Betti curves give their number at each level)"),
             "pores": int(len(pores)), "pores_at_border": int(pores["border"].sum()),
-            "isolated_pores": None,
+            "isolated_pores": int(pores["isolated"].sum()),
             "grains": int(len(grains)), "grains_at_border": int(grains["border"].sum()),
             "loops": int((loops["kind"] == "crossing").sum()) if loops_known else None,
             "voids": int((voids["kind"] == "crossing").sum()),
@@ -655,7 +662,8 @@ def _percolation(field, axis, neighbourhood, chunks, spacing, below_all, schedul
 def _feature_table(pairs: pd.DataFrame, edge_merges, flip: bool, min_persistence: float,
                    names, shape, spacing, room) -> pd.DataFrame:
     """The pore (or, with ``flip``, grain) table of :func:`voxtopo.porosity.analyse` from a
-    chunked dimension-0 diagram, without the basin volume and isolated flag."""
+    chunked dimension-0 diagram, without the basin volume (and, until
+    :func:`_pieces` adds it, the isolated flag)."""
     ndim = len(shape)
     axes = AXES_3D[3 - ndim:]
     body, neck = names
@@ -701,6 +709,44 @@ def _feature_table(pairs: pd.DataFrame, edge_merges, flip: bool, min_persistence
         table[f"{body}_voxel_{a}"] = birth_index[k].astype(np.int64)
     table["pair_row"] = pairs.index.to_numpy(dtype=np.int64)
     return largest_first(pd.DataFrame(table), body, axes)
+
+
+def _pieces(phase, edge, codes, neighbourhood, table, body, shape, chunks, compute):
+    """The connected pieces of a phase, chunk by chunk; adds the column ``isolated`` to
+    ``table`` (after ``lifetime``): the feature's piece holds no other feature of the table
+    and reaches no edge, as in memory."""
+    import dask
+
+    ndim = len(shape)
+    axes = AXES_3D[3 - ndim:]
+    voxel = table[[f"{body}_voxel_{a}" for a in axes]].to_numpy(dtype=np.int64)
+    block = voxel // np.asarray(chunks)
+    starts = block * np.asarray(chunks)
+    queries = {}
+    for row, (start, index) in enumerate(zip(map(tuple, starts), voxel)):
+        hi = tuple(min(s + c, n) for s, c, n in zip(start, chunks, shape))
+        local = int(np.ravel_multi_index(tuple(index - np.asarray(start)),
+                                         tuple(h - s for s, h in zip(start, hi))))
+        queries.setdefault(start, ([], []))
+        queries[start][0].append(row)
+        queries[start][1].append(local)
+    full = neighbourhood in (26, 8)
+    task = dask.delayed(_chunked_pieces.label_chunk, pure=False)
+    boxes = list(blocks(shape, chunks))
+    parts = compute([task(phase, edge, codes, full, lo, hi, queries.get(lo, ([], []))[1])
+                     for lo, hi in boxes])
+    pieces = _chunked_pieces.join(list(parts), shape, full)
+    piece = np.full(len(table), -1, np.int64)
+    for (lo, _), found in zip(boxes, pieces.piece_of_query):
+        if lo in queries:
+            piece[queries[lo][0]] = found
+    features_in_piece = np.bincount(piece[piece >= 0], minlength=len(pieces.sizes))
+    isolated = np.zeros(len(table), bool)
+    inside = piece >= 0
+    isolated[inside] = ((features_in_piece[piece[inside]] == 1)
+                        & ~pieces.at_edge[piece[inside]])
+    table.insert(table.columns.get_loc("lifetime") + 1, "isolated", isolated)
+    return pieces
 
 
 def betti_from_euler(diagram, levels, chi_curve) -> pd.DataFrame:
