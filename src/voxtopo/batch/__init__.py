@@ -72,7 +72,9 @@ The settings file (TOML, or YAML with the same keys)
 
     [pores]                    # the options of `voxtopo pores`: threshold,
     threshold = "otsu"         # pores_bright, label, axis, neighbourhood,
-    pores_bright = false       # roi, min_persistence, engine
+    pores_bright = false       # roi, min_persistence, engine, boundary_tolerance,
+                               # out_of_core (true: every scan chunk by chunk on the
+                               # batch's cluster, one scan at a time) and chunks
 
     [patches]                  # the options of `voxtopo patches`: k, contrast_percent,
     k = 3                      # positions, seed, log, axis, slices, k_neighbour,
@@ -86,8 +88,8 @@ The settings file (TOML, or YAML with the same keys)
     [batch]
     workers = 2                # local cluster size (default: the number of cores)
     memory_per_worker = "auto" # bytes, "8GB", or "auto" (from the memory estimate)
-    out_of_core = "auto"       # zarr scans: "auto" (when a scan would not fit a
-                               # worker), true (always) or false (never)
+    out_of_core = "auto"       # analyse job, zarr scans: "auto" (when a scan would not
+                               # fit a worker), true (always) or false (never)
     chunks = [128, 128, 128]   # out-of-core block shape (default: the store's chunks)
     worker_timeout = 120       # seconds with no dask worker before the batch stops
 
