@@ -194,11 +194,11 @@ def test_a_worker_that_dies_gives_one_sentence_and_writes_nothing(tmp_path):
         cluster = LocalCluster(n_workers=1, threads_per_worker=1, processes=True,
                                host="127.0.0.1", dashboard_address=None, silence_logs=50)
     try:
-        with Client(cluster) as client:
-            with pytest.raises(TooBigError, match="A worker of the out-of-core run died") as err:
-                pores_job.pores_out_of_core(DiesOnWorker(), tmp_path / "out",
-                                            pores_job.PoresOptions(out_of_core=True),
-                                            scratch=tmp_path / "scratch", scheduler=client)
+        with Client(cluster) as client, pytest.raises(
+                TooBigError, match="A worker of the out-of-core run died") as err:
+            pores_job.pores_out_of_core(DiesOnWorker(), tmp_path / "out",
+                                        pores_job.PoresOptions(out_of_core=True),
+                                        scratch=tmp_path / "scratch", scheduler=client)
     finally:
         cluster.close()
     assert str(err.value).count(". ") == 0 and "\n" not in str(err.value)

@@ -39,7 +39,7 @@ from . import _chunk_merge as kernel
 from ._pairs import RawPairs, check_exact_in_float64
 from ._union_find import neighbour_offsets
 
-__all__ = ["chunked_persistence", "chunked_merges", "BYTES_PER_CHUNK_VOXEL"]
+__all__ = ["BYTES_PER_CHUNK_VOXEL", "chunked_merges", "chunked_persistence"]
 
 #: Bytes per voxel of one chunk task: the values as float64, the sort order, union-find
 #: forest, flags and the four output buffers (int64 each).

@@ -19,8 +19,19 @@ from .. import porosity
 from ..errors import InputError
 from ..io import load
 from ..memory import BUDGET_FRACTION, available_bytes
-from ..options import (AXIS, BOOLEAN, ENGINE, NEIGHBOURHOOD, NON_NEGATIVE, SHAPE, TEXT,
-                       THRESHOLD, WHOLE, check, optional)
+from ..options import (
+    AXIS,
+    BOOLEAN,
+    ENGINE,
+    NEIGHBOURHOOD,
+    NON_NEGATIVE,
+    SHAPE,
+    TEXT,
+    THRESHOLD,
+    WHOLE,
+    check,
+    optional,
+)
 from ..scan import Scan
 
 

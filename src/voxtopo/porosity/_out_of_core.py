@@ -54,11 +54,28 @@ from ..errors import InputError, TooBigError, VoxtopoError
 from ..memory import BUDGET_FRACTION, ensure_fits, human
 from ..scan import Scan
 from . import _chunked_edt, _chunked_pieces, _local_counts
-from ._analysis import (COMPLEMENT, RESOLVED_RADIUS_VOXELS, SURFACE_SMOOTHING_VOXELS,
-                        PoreAnalysis, _axes, _check_extent, _coordinates, _flat,
-                        _loop_table, _outside_as_never, _phase_notes, _robust_counts,
-                        _rows_of_dimension, _void_table, _voxel_size_notes, _with_robust,
-                        ball_outside, cautions, largest_first, percolation_state)
+from ._analysis import (
+    COMPLEMENT,
+    RESOLVED_RADIUS_VOXELS,
+    SURFACE_SMOOTHING_VOXELS,
+    PoreAnalysis,
+    _axes,
+    _check_extent,
+    _coordinates,
+    _flat,
+    _loop_table,
+    _outside_as_never,
+    _phase_notes,
+    _robust_counts,
+    _rows_of_dimension,
+    _void_table,
+    _voxel_size_notes,
+    _with_robust,
+    ball_outside,
+    cautions,
+    largest_first,
+    percolation_state,
+)
 
 #: phase codes of the phase store: bit 0 is the segmented pore mask, bit 1 the sample
 OUTSIDE, OUTSIDE_PORE, SOLID, PORE = 0, 1, 2, 3
@@ -236,7 +253,7 @@ def _phase_chunk(array, roi, segmentation, phase, lo, hi):
     box = _box(lo, hi)
     pores = segmentation.pores(np.asarray(array[box]))
     sample = (np.ones(pores.shape, bool) if roi is None
-              else _binary(np.asarray(roi[box]), roi.foreground))
+              else np.asarray(roi[box]) == roi.foreground)
     codes = (pores.astype(np.uint8) | (sample.astype(np.uint8) << 1))
     phase[box] = codes
     shape = phase.shape
@@ -247,10 +264,6 @@ def _phase_chunk(array, roi, segmentation, phase, lo, hi):
         faces.append((first, last))
     return (int(np.count_nonzero(codes == PORE)), int(np.count_nonzero(codes == SOLID)),
             int(np.count_nonzero(sample)), faces)
-
-
-def _binary(block, foreground):
-    return block == foreground
 
 
 def _count_chunk(field, mask_and_sample, lo, hi, shape, spacing, levels, n_pore, n_solid,
@@ -559,7 +572,7 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
                                  "neighbourhood": {"pore": n_pore, "solid": n_solid}},
         "connectivity_density": {"value": (1 - chi_solid) / volume, "phase": "solid",
                                  "neighbourhood": n_solid, "unit": density_unit,
-                                 "solid_pieces": int(len(solid_pieces.sizes)),
+                                 "solid_pieces": len(solid_pieces.sizes),
                                  "formula": "(1 - euler_characteristic of the solid) / "
                                             "sample volume (Odgaard & Gundersen 1993)"},
         "minkowski": functionals,
@@ -570,13 +583,13 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
                     f"pairs (features of the segmented mask itself)"
                     + ("" if loops_known else "; loops are not computed out of core (the "
                                               "Betti curves give their number at each level)"),
-            "pores": int(len(pores)), "pores_at_border": int(pores["border"].sum()),
+            "pores": len(pores), "pores_at_border": int(pores["border"].sum()),
             "isolated_pores": int(pores["isolated"].sum()),
-            "grains": int(len(grains)), "grains_at_border": int(grains["border"].sum()),
+            "grains": len(grains), "grains_at_border": int(grains["border"].sum()),
             "loops": int((loops["kind"] == "crossing").sum()) if loops_known else None,
             "voids": int((voids["kind"] == "crossing").sum()),
-            "loops_in_filtration": int(len(loops)) if loops_known else None,
-            "voids_in_filtration": int(len(voids)),
+            "loops_in_filtration": len(loops) if loops_known else None,
+            "voids_in_filtration": len(voids),
             "robust": robust,
         },
         "robustness": {"method": sig.ROBUST_METHOD, "boundary_tolerance": delta,
@@ -784,11 +797,10 @@ def _segmentation(array, where, chunks, shape, threshold, pores_bright, label, c
         raise InputError(f"The out-of-core path takes a threshold value, not {threshold!r}: "
                          f"Otsu's method needs the whole histogram; give a number, or drop "
                          f"--out-of-core.")
-    if label is not None:
-        if not np.issubdtype(dtype, np.integer) and dtype != bool:
-            raise InputError(f"A pore label picks voxels of a label image, but the input "
-                             f"{where} holds {dtype} values; give an integer label image or "
-                             f"a threshold.")
+    if label is not None and not (np.issubdtype(dtype, np.integer) or dtype == bool):
+        raise InputError(f"A pore label picks voxels of a label image, but the input "
+                         f"{where} holds {dtype} values; give an integer label image or a "
+                         f"threshold.")
     task = dask.delayed(_value_facts, pure=False)
     facts = compute([task(array, lo, hi) for lo, hi in blocks(shape, chunks)])
     if not all(f["finite"] for f in facts):
