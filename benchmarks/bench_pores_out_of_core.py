@@ -21,9 +21,10 @@ run starts) beside each worker's measured peak resident memory (getrusage, which
 the interpreter and libraries, about 0.2-0.3 GB); wall time; CPU time of the workers and
 of this process; the seconds of each stage; the machine's load average before and after.
 
-A 2048^3 run (8.6e9 voxels) needs about 16 bytes per voxel of scratch space at its peak
-(two float32 distance transforms in two passes' stores, 137 GB) plus the 8.6 GB mask and
-4.3 GB of signed distance; give --folder on a disk with that much room.
+A 2048^3 run (8.6e9 voxels) needs, before zarr's compression, about 16 bytes per voxel of
+scratch at its peak (two float32 distance transforms, each in the stores of two passes:
+137 GB), beside the 8.6 GB input store, the 8.6 GB phase store and 34 GB of signed distance;
+give --folder on a disk with that much room.
 """
 
 from __future__ import annotations
