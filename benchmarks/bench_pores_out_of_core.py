@@ -80,10 +80,16 @@ def write_store(path: Path, size: int, chunk: int, spacing_um: float = 2.0) -> P
                 half = np.linalg.norm((hi - lo) / 2)
                 near = tree.query_ball_point(middle, half + reach)
                 solid = np.zeros(tuple(hi - lo), bool)
-                grid = np.ogrid[tuple(slice(a, b) for a, b in zip(lo, hi))]
                 for z, y, x, r in beads[near]:
-                    solid |= ((grid[0] - z) ** 2 + (grid[1] - y) ** 2 + (grid[2] - x) ** 2
+                    # only the box of the bead within the chunk
+                    first = np.maximum(np.floor([z - r, y - r, x - r]).astype(int), lo)
+                    last = np.minimum(np.ceil([z + r, y + r, x + r]).astype(int) + 1, hi)
+                    if np.any(last <= first):
+                        continue
+                    grid = np.ogrid[tuple(slice(a, b) for a, b in zip(first, last))]
+                    inside = ((grid[0] - z) ** 2 + (grid[1] - y) ** 2 + (grid[2] - x) ** 2
                               <= r * r)
+                    solid[tuple(slice(a - o, b - o) for a, b, o in zip(first, last, lo))] |= inside
                 data[z0:hi[0], y0:hi[1], x0:hi[2]] = (~solid).astype(np.uint8)
     return path
 
