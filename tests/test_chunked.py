@@ -2,10 +2,10 @@
 
 import json
 
-import gudhi
 import numpy as np
 import pytest
 import zarr
+from reference import gudhi_intervals
 from scipy import ndimage
 
 from voxtopo.engine import _chunk_merge
@@ -18,14 +18,7 @@ def _gudhi_intervals(image, dim, superlevel, construction):
     """Reference: gudhi (Maria, Boissonnat, Glisse & Yvinec 2014, "The Gudhi Library:
     Simplicial Complexes and Persistent Homology", ICMS), CubicalComplex with the matching
     construction; superlevel as the sublevel filtration of the negated values."""
-    values = -image.astype(np.float64) if superlevel else image.astype(np.float64)
-    key = "top_dimensional_cells" if construction == "voxel" else "vertices"
-    cc = gudhi.CubicalComplex(**{key: values})
-    cc.compute_persistence()
-    intervals = cc.persistence_intervals_in_dimension(dim)
-    intervals = intervals[intervals[:, 1] > intervals[:, 0]]
-    if superlevel:
-        intervals = -intervals
+    intervals = gudhi_intervals(image, dim, construction=construction, superlevel=superlevel)
     return sorted(map(tuple, np.round(intervals, 9)))
 
 
@@ -36,10 +29,10 @@ def _ours(diagram, dim):
 def _assert_locations_hold_values(diagram, image):
     p = diagram.pairs
     axes = "zyx"[3 - image.ndim:]
-    births = image[tuple(p[f"birth_{a}"].to_numpy(dtype=np.int64) for a in axes)]
+    births = image[tuple(p[f"birth_voxel_{a}"].to_numpy(dtype=np.int64) for a in axes)]
     np.testing.assert_array_equal(births, p["birth"].to_numpy())
     finite = np.isfinite(p["death"].to_numpy())
-    deaths = image[tuple(p.loc[finite, f"death_{a}"].to_numpy(dtype=np.int64) for a in axes)]
+    deaths = image[tuple(p.loc[finite, f"death_voxel_{a}"].to_numpy(dtype=np.int64) for a in axes)]
     np.testing.assert_array_equal(deaths, p.loc[finite, "death"].to_numpy())
 
 

@@ -37,9 +37,12 @@ name (optional)
     "_", leading dots go, and rows that would share a folder get -2, -3, ...
 channel, timepoint, level (optional)
     Which channel, time point or resolution level of this scan to read; win over [load].
-mask, roi (optional, pores job)
-    A binary pore mask of this scan (1 = pore; the scan is then drawn under the plots), and
-    a mask of the sample (1 = sample; outside it voxels are neither pore nor solid).
+mask (optional, pores job)
+    A binary pore mask of this scan (1 = pore; the scan is then drawn under the plots).
+roi (optional, analyse and pores jobs)
+    A mask of the region of interest of this scan (1 = inside): for pores, outside it
+    voxels are neither pore nor solid; for analyse, outside voxels are not part of the
+    complex and the noise is read within the region.
 Any other column is kept as it is and copied into summary.csv.
 
 Instead of a CSV file, MANIFEST may be a glob such as "scans/*.tif" (quote it).
@@ -68,7 +71,7 @@ The settings file (TOML, or YAML with the same keys)
     [analyse]                  # the options of `voxtopo analyse`: superlevel,
     superlevel = false         # neighbourhood, sigma (= --smooth), crop, downsample,
     neighbourhood = 26         # distance, threshold, pores_bright, fill_invalid,
-    min_persistence = 0.0      # min_persistence, periodic, field, engine
+    min_persistence = 0.0      # min_persistence, periodic, field, engine, roi
 
     [pores]                    # the options of `voxtopo pores`: threshold,
     threshold = "otsu"         # pores_bright, label, axis, neighbourhood,
@@ -111,7 +114,7 @@ from ..io.results import is_complete, is_voxtopo_folder
 # their clusters the way a batch does and check how the summary names a scan's counts
 from .cluster import (_SCRATCH, _WORKER_CONFIG, WORKER_TIMEOUT, WorkersLost,  # noqa: F401
                       _connect, _local_cluster, _submit_all)
-from .manifest import ScanEntry, _write_manifest, read_manifest
+from .manifest import FILE_COLUMNS, ScanEntry, _write_manifest, read_manifest
 from .plan import (_check_out, _clear_half_made, _job_of, _load_options, _make_out, _peek,
                    plan_workers, scan_bytes)
 from .settings import Settings, _bytes_or_none, job_options, read_settings
@@ -165,12 +168,15 @@ def run_batch(manifest, out, *, settings_path=None, scheduler=None, workers=None
     stream = stream or sys.stderr
     settings, text, kind = read_settings(settings_path)
     entries = read_manifest(manifest)
-    with_files = [entry for entry in entries if entry.files]
-    if with_files and settings.job != "pores":
-        column = next(iter(with_files[0].files))
-        raise InputError(f"The manifest gives a {column} for {with_files[0].name}, but only "
-                         f"the pores job reads masks and this batch runs {settings.job}; set "
-                         f"job = \"pores\" or leave the {column} column out.")
+    for entry in entries:
+        for column in entry.files:
+            readers = FILE_COLUMNS[column]
+            if settings.job not in readers:
+                raise InputError(f"The manifest gives a {column} for {entry.name}, but only "
+                                 f"the {' and '.join(readers)} job{'s' * (len(readers) > 1)} "
+                                 f"read{'s' * (len(readers) == 1)} it and this batch runs "
+                                 f"{settings.job}; set job = \"{readers[0]}\" or leave the "
+                                 f"{column} column out.")
     manifest_file = Path(manifest) if Path(manifest).is_file() else None
     inputs = [manifest_file, settings_path, *(entry.path for entry in entries),
               *(path for entry in entries for path in entry.files.values())]

@@ -72,15 +72,6 @@ def _local_cluster(workers, limit, scratch: Path):
 
 
 # --- one scan, on a worker -------------------------------------------------------------------
-def _read_input(job: str, path: str, load_options: dict):
-    """What the job reads: a time-lapse for periodicity, a scan for the others."""
-    from ..io import load, load_timelapse
-
-    if job == "periodicity":
-        options = {k: v for k, v in load_options.items() if k != "timepoint"}
-        return load_timelapse(path, **options)
-    return load(path, **load_options)
-
 
 def _run_one(job: str, path: str, out: str, load_options: dict, settings: dict,
              overrides: dict) -> dict:
@@ -98,7 +89,7 @@ def _run_one(job: str, path: str, out: str, load_options: dict, settings: dict,
     try:
         module = jobs.get(job)
         options = job_options(job, {**settings[job], **overrides})
-        result = module.run(_read_input(job, path, load_options), options)
+        result = module.run(jobs.read_input(job, path, load_options), options)
         module.write(result, out, force=True)
         return {"status": "done", "message": "", "seconds": time.perf_counter() - start}
     except (VoxtopoError, MemoryError) as error:
@@ -130,11 +121,12 @@ def _run_out_of_core(client, entry, load_options, settings: Settings, out, job) 
     try:
         if job == "pores-out-of-core":
             pores_out_of_core(entry.path, out,
-                              job_options("pores", {**settings.pores, **dict(entry.files)}),
+                              job_options("pores", {**settings.pores, **entry.files}),
                               load_options=load_options, force=True, scheduler=client)
         else:
-            analyse_out_of_core(entry.path, out, job_options("analyse", settings.analyse),
-                                load_options=load_options,
+            # the scan's own roi goes in too, so that the path refuses it rather than drop it
+            options = job_options("analyse", {**settings.analyse, **entry.files})
+            analyse_out_of_core(entry.path, out, options, load_options=load_options,
                                 chunks=settings.batch.get("chunks"), force=True,
                                 scheduler=client)
         return {"status": "done", "message": "", "seconds": time.perf_counter() - start}

@@ -17,9 +17,9 @@ __all__ = ["ScanEntry", "read_manifest"]
 
 #: Manifest columns that choose how one scan is read.
 _LOAD_COLUMNS = ("channel", "timepoint", "level")
-#: Manifest columns naming files of one scan that its job reads (the pores job's options
-#: of the same names).
-_FILE_COLUMNS = ("mask", "roi")
+#: Manifest columns naming files of one scan that its job reads (the job options of the
+#: same names), and the jobs that read each.
+FILE_COLUMNS = {"mask": ("pores",), "roi": ("analyse", "pores")}
 
 
 @dataclass
@@ -171,7 +171,7 @@ def read_manifest(manifest) -> list[ScanEntry]:
             raise InputError(f"The path in {where} is empty; give the scan's file or folder.")
         full = raw_path if Path(raw_path).is_absolute() else str(base / raw_path)
         files = {}
-        for column in _FILE_COLUMNS:
+        for column in FILE_COLUMNS:
             given = str(row.get(column, "") or "").strip()
             if given:
                 files[column] = given if Path(given).is_absolute() else str(base / given)

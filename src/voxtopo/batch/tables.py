@@ -17,7 +17,7 @@ __all__ = ["summary_table"]
 #: Keys of a scan's summary.json that are not key numbers for the table.
 _NOT_KEY_NUMBERS = {"most_persistent", "software", "cautions", "plots", "files", "options",
                     "diagram", "created", "voxtopo_version", "preparation", "counts",
-                    "essential", "notes", "pairs_computed"}
+                    "essential", "notes", "pairs_computed", "columns", "column_meanings"}
 
 
 def _count_prefix(summary: dict) -> str:

@@ -79,6 +79,33 @@ def open_chunked(path, *, level: int = 0, channel=None, timepoint=None, chunks=N
 
     Axes, voxel size and unit come from the OME-Zarr metadata (as :func:`voxtopo.load`
     reads them); a channel or time axis longer than one needs ``channel`` / ``timepoint``.
+
+    Parameters
+    ----------
+    path : str or Path
+        A zarr array or OME-Zarr image.
+    level : int
+        The resolution level of an OME-Zarr pyramid; 0 is the full one.
+    channel, timepoint : int, optional
+        The index taken on a channel or time axis.
+    chunks : tuple of int, optional
+        The block shape the work is cut into, in the spatial axes' order; default the
+        store's own chunks.
+    spacing : tuple of float, optional
+        Voxel size, winning over the metadata.
+    unit : str, optional
+        Unit of the spacing, winning over the metadata.
+
+    Returns
+    -------
+    ChunkedArray
+        The 2D or 3D spatial view, with its spacing, unit, source and chunks.
+
+    Raises
+    ------
+    InputError
+        For a path that is not a zarr store, a channel or time axis left unchosen or
+        chosen out of range, or an array without 2 or 3 spatial axes.
     """
     import zarr
 

@@ -54,28 +54,11 @@ from ..errors import InputError, TooBigError, VoxtopoError
 from ..memory import BUDGET_FRACTION, ensure_fits, human
 from ..scan import Scan
 from . import _chunked_edt, _chunked_pieces, _local_counts
-from ._analysis import (
-    COMPLEMENT,
-    RESOLVED_RADIUS_VOXELS,
-    SURFACE_SMOOTHING_VOXELS,
-    PoreAnalysis,
-    _axes,
-    _check_extent,
-    _coordinates,
-    _flat,
-    _loop_table,
-    _outside_as_never,
-    _phase_notes,
-    _robust_counts,
-    _rows_of_dimension,
-    _void_table,
-    _voxel_size_notes,
-    _with_robust,
-    ball_outside,
-    cautions,
-    largest_first,
-    percolation_state,
-)
+from ._analysis import (COMPLEMENT, RESOLVED_RADIUS_VOXELS, SURFACE_SMOOTHING_VOXELS,
+                        PoreAnalysis, _axes, _check_extent, _coordinates, _flat, _loop_table,
+                        _phase_notes, _robust_counts, _rows_of_dimension, _void_table,
+                        _voxel_size_notes, _with_robust, ball_outside, cautions, largest_first,
+                        percolation_state)
 
 #: phase codes of the phase store: bit 0 is the segmented pore mask, bit 1 the sample
 OUTSIDE, OUTSIDE_PORE, SOLID, PORE = 0, 1, 2, 3
@@ -482,8 +465,8 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
         solid_edge = chunked_merges(solid_field, superlevel=True, neighbourhood=n_solid,
                                     chunks=chunks, edge=edge, scheduler=scheduler)
     if roi is not None:
-        diagram = _outside_as_never(diagram, outside_level)
-        solid_diagram = _outside_as_never(solid_diagram, -outside_level)
+        diagram = diagram.without_outside(outside_level)
+        solid_diagram = solid_diagram.without_outside(-outside_level)
     diagram = sig.robust_flags(diagram, delta)
     solid_diagram = sig.robust_flags(solid_diagram, delta)
     room = squared.get("to_outside")
