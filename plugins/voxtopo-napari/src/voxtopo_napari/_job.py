@@ -21,7 +21,9 @@ import numpy as np
 
 import voxtopo
 from voxtopo import porosity
+from voxtopo.diagram import AXES_3D
 from voxtopo.errors import InputError
+from voxtopo.filtration import grid_frame
 from voxtopo.jobs import analyse, pores
 from voxtopo.jobs.analyse import AUTO, AnalysisOptions, prepare
 from voxtopo.scan import Scan
@@ -104,10 +106,14 @@ def _pore_analysis(scan: Scan, options: AnalysisOptions, progress):
                             progress=progress)
 
 
-def _pore_details(analysis):
-    """The pore table keyed by the diagram row of each pore (``feature``)."""
+def _pore_details(analysis, diagram):
+    """The pore table keyed by the diagram row of each pore (``feature``), its body
+    positions put on the scan's grid like the diagram's (``diagram`` placed in the scan)."""
     details = analysis.pores.drop(columns=[c for c in analysis.pores.columns
                                            if c.startswith("body_voxel_")])
+    for a, shift in zip(AXES_3D[3 - diagram.ndim:], diagram.origin):
+        if f"body_{a}" in details.columns:
+            details[f"body_{a}"] = details[f"body_{a}"] + shift
     details = details.rename(columns={"id": "pore_id"})
     details.insert(0, "feature", analysis.pore_rows)
     return details
@@ -153,9 +159,11 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
     if with_porosity and options.distance:
         start = time.perf_counter()
         analysis = _pore_analysis(scan, options, progress)
-        prepared, diagram, notes = analysis.distance, analysis.diagram, {}
+        prepared, notes = analysis.distance, {}
+        diagram = analysis.diagram.placed_in_scan(*grid_frame(scan.shape, options.crop,
+                                                              options.downsample))
         porosity_summary = analysis.summary
-        pore_details = _pore_details(analysis)
+        pore_details = _pore_details(analysis, diagram)
         shown_rows = {0: analysis.pore_rows}
         flag = "robust"
         thresholds = {d: porosity_summary["robustness"]["threshold"]
@@ -177,13 +185,12 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
             start = time.perf_counter()
             pores = diagram.dimension(0).pairs
             regions = porosity.pore_regions(
-                prepared.data, diagram.dimension(0).voxels("birth"),
+                prepared.data, diagram.dimension(0).swept_voxels("birth"),
                 pores["death"].to_numpy(), diagram.neighbourhood, progress=progress)
             timings["pore_regions"] = time.perf_counter() - start
 
     report("building the layers", 0.0)
-    placement = placement_of(scan.shape, scan.spacing, scan.unit, crop=options.crop,
-                             downsample=options.downsample, translate=translate)
+    placement = placement_of(diagram, translate=translate)
     # every tested pair becomes a point, so the panel's switch can show all of them
     shown = computed.verdict.tested if computed is not None else diagram
     layers = result_layers(shown, placement, name, mark_deaths=mark_deaths, regions=regions,
