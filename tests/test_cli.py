@@ -221,6 +221,7 @@ def test_distance_sweep_keeps_robust_pairs(tmp_path):
     (["--noise-model", "poisson"], "counts of at least 0"),
     (["--boundary-tolerance", "1"], "only applies to distance sweeps"),
     (["--distance", "--noise", "2"], "would be ignored"),
+    (["--distance", "--significance", "0.01"], "would be ignored"),
 ])
 def test_bad_significance_options_give_one_sentence(tmp_path, options, words):
     image = np.random.default_rng(0).normal(0, 1, (16, 16)).astype(np.float32)

@@ -281,6 +281,49 @@ def test_a_roi_column_pairs_each_scan_with_its_region_for_analyse(tmp_path, caps
                         settings_path=tmp_path / "p.toml")
 
 
+def test_a_significance_level_for_a_distance_sweep_is_refused_in_every_shell(tmp_path):
+    """RULES: an option that would be ignored is refused in one sentence (common practice,
+    no source); the job's options refuse it, so a batch settings file is refused as the
+    command line is."""
+    with pytest.raises(InputError, match="would be ignored with --distance"):
+        jobs.get("analyse").Options(distance=True, significance=0.01)
+    settings = tmp_path / "settings.toml"
+    settings.write_text('job = "analyse"\n[analyse]\ndistance = true\nsignificance = 0.01\n')
+    with pytest.raises(InputError, match="would be ignored with --distance"):
+        batch.read_settings(settings)
+
+
+def test_analysis_packages_load_no_matplotlib():
+    """DESIGN.md layering (project rule, no source): figures live in report/; every module
+    of the analysis packages imports without matplotlib."""
+    import subprocess
+    import sys
+
+    code = ("import importlib, pkgutil, sys\n"
+            "import voxtopo.patches, voxtopo.periodicity, voxtopo.porosity\n"
+            "for package in (voxtopo.patches, voxtopo.periodicity, voxtopo.porosity):\n"
+            "    for module in pkgutil.iter_modules(package.__path__):\n"
+            "        importlib.import_module(f'{package.__name__}.{module.name}')\n"
+            "print(sorted(m for m in sys.modules if m.split('.')[0] == 'matplotlib'))")
+    found = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                           check=True)
+    assert found.stdout.strip() == "[]"
+
+
+def test_a_time_point_for_the_periodicity_job_is_refused_not_dropped(tmp_path):
+    """RULES: an option that would be ignored is refused in one sentence (common practice,
+    no source): the periodicity job reads every frame, so a batch's timepoint cannot apply;
+    the other jobs read the frame it names."""
+    stack = np.arange(3 * 4 * 5, dtype=np.float32).reshape(3, 4, 5)
+    path = tmp_path / "lapse.tif"
+    tifffile.imwrite(path, stack, imagej=True, metadata={"axes": "TYX"})
+    with pytest.raises(InputError, match="leave the timepoint out"):
+        jobs.read_input("periodicity", path, {"timepoint": 1})
+    assert jobs.read_input("periodicity", path).frames == 3
+    np.testing.assert_array_equal(jobs.read_input("analyse", path, {"timepoint": 1}).data,
+                                  stack[1])
+
+
 def _bright_ball(shape, centre, radius_voxels):
     """A smooth bright ball (a Gaussian bump) whose brightest voxel is ``centre``."""
     grid = np.indices(shape).astype(np.float64)

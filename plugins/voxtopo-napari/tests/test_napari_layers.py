@@ -153,6 +153,14 @@ def test_plugin_and_cli_report_the_same_pores(tmp_path, capsys):
     table = pd.read_csv(tmp_path / "res" / "pores.csv")
     assert sorted(pores_layer[1]["features"]["pore_id"]) == sorted(table["id"])
     assert set(np.unique(result.regions)) - {0} == set(table["id"])
-    # the panel's export writes the same pore table as the command
+    # the panel's status is the command's lines, and its export is the command's folder:
+    # the same files (report.html included), the same pore table and the same counts
+    assert result.describe().splitlines() == printed
     result.export(tmp_path / "panel")
+    assert sorted(p.name for p in (tmp_path / "panel").iterdir()) == \
+        sorted(p.name for p in (tmp_path / "res").iterdir())
+    assert "report.html" in {p.name for p in (tmp_path / "panel").iterdir()}
     pd.testing.assert_frame_equal(pd.read_csv(tmp_path / "panel" / "pores.csv"), table)
+    exported = json.loads((tmp_path / "panel" / "summary.json").read_text())
+    assert exported["counts"] == summary["counts"]
+    assert exported["robustness"] == summary["robustness"]

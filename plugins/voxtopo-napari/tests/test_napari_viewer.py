@@ -13,6 +13,7 @@ import pytest
 import voxtopo
 from voxtopo import cli
 from voxtopo.diagram import AXES_3D
+from voxtopo.jobs import pores as pores_job
 from voxtopo_napari._layers import METADATA_KEY
 from voxtopo.porosity._regions import pore_regions_by_levels
 from voxtopo_napari._reader import napari_get_reader
@@ -237,7 +238,9 @@ def test_distance_mode_labels_each_pore_region(make_napari_viewer, qtbot):
     ending = int(np.flatnonzero(np.isfinite(table["death"].to_numpy()))[0])
     assert table["body_volume"][ending] == np.count_nonzero(
         regions[0].data == table["pore_id"][ending])
-    assert widget.status.text().startswith("Porosity")
+    # the status is the pores job's own line, as `voxtopo pores` prints it
+    assert widget.status.text() == pores_job.describe(widget.result.job)
+    assert widget.status.text().startswith("porosity")
 
 
 def test_reader_opens_a_folder_written_by_the_cli(make_napari_viewer, tmp_path):
@@ -331,6 +334,10 @@ def test_export_writes_the_same_folder_as_the_cli(make_napari_viewer, qtbot, tmp
     theirs = pd.read_csv(tmp_path / "from-cli" / "pairs.csv")
     assert {"p_value", "significant"} <= set(ours.columns)
     pd.testing.assert_frame_equal(ours, theirs)
+    # the same files, report.html and the plots included
+    assert sorted(p.name for p in exported.iterdir()) == \
+        sorted(p.name for p in (tmp_path / "from-cli").iterdir())
+    assert "report.html" in {p.name for p in exported.iterdir()}
     summary = json.loads((exported / "summary.json").read_text())
     assert summary["diagram"]["neighbourhood"] == 26
     assert summary["significance"]["alpha"] == 0.05

@@ -72,15 +72,6 @@ def _local_cluster(workers, limit, scratch: Path):
 
 
 # --- one scan, on a worker -------------------------------------------------------------------
-def _read_input(job: str, path: str, load_options: dict):
-    """What the job reads: a time-lapse for periodicity, a scan for the others."""
-    from ..io import load, load_timelapse
-
-    if job == "periodicity":
-        options = {k: v for k, v in load_options.items() if k != "timepoint"}
-        return load_timelapse(path, **options)
-    return load(path, **load_options)
-
 
 def _run_one(job: str, path: str, out: str, load_options: dict, settings: dict,
              overrides: dict) -> dict:
@@ -98,7 +89,7 @@ def _run_one(job: str, path: str, out: str, load_options: dict, settings: dict,
     try:
         module = jobs.get(job)
         options = job_options(job, {**settings[job], **overrides})
-        result = module.run(_read_input(job, path, load_options), options)
+        result = module.run(jobs.read_input(job, path, load_options), options)
         module.write(result, out, force=True)
         return {"status": "done", "message": "", "seconds": time.perf_counter() - start}
     except (VoxtopoError, MemoryError) as error:

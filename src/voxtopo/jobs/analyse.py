@@ -48,6 +48,9 @@ CAUTIONS = (
     "features a few voxels across are at the limit of what the scan resolves.",
 )
 
+#: Family-wise level of the significance test of gray-value sweeps when none is given.
+DEFAULT_SIGNIFICANCE = 0.05
+
 
 @dataclass
 class AnalysisOptions:
@@ -90,7 +93,7 @@ class AnalysisOptions:
     periodic: bool = False
     field: int = 2
     engine: str = "auto"
-    significance: float = 0.05
+    significance: float = DEFAULT_SIGNIFICANCE
     noise: float | None = None
     noise_model: str = "gaussian"
     boundary_tolerance: float | None = None
@@ -113,6 +116,11 @@ class AnalysisOptions:
                 raise InputError("A noise level or noise model would be ignored by a distance "
                                  "sweep (its uncertainty is the segmentation); leave them out "
                                  "or give --boundary-tolerance.")
+            if self.significance != DEFAULT_SIGNIFICANCE:
+                raise InputError(f"--significance {self.significance:g} tests gray-value "
+                                 f"sweeps and would be ignored with --distance (robust "
+                                 f"features are kept there); leave it out or set "
+                                 f"--boundary-tolerance.")
         elif self.boundary_tolerance is not None:
             raise InputError("The boundary tolerance only applies to distance sweeps "
                              "(--distance); leave it out or add --distance.")
@@ -689,8 +697,8 @@ def run_out_of_core(source, options: AnalysisOptions | None = None, *, load_opti
 
 def analyse_out_of_core(source, out, options: AnalysisOptions | None = None, *,
                         load_options=None, chunks=None, force: bool = False,
-                        scheduler=None) -> Diagram:
-    """:func:`run_out_of_core` then :func:`write`; returns the diagram.
+                        scheduler=None) -> AnalysisResult:
+    """:func:`run_out_of_core` then :func:`write`; returns the result.
 
     Parameters
     ----------
@@ -705,13 +713,14 @@ def analyse_out_of_core(source, out, options: AnalysisOptions | None = None, *,
 
     Returns
     -------
-    Diagram
+    AnalysisResult
+        What :func:`run_out_of_core` returned (:func:`describe` says it in one line).
     """
     check_target(out, force, inputs=[source])
     result = run_out_of_core(source, options, load_options=load_options, chunks=chunks,
                              scheduler=scheduler)
     write(result, out, force)
-    return result.diagram
+    return result
 
 
 def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepared=None,

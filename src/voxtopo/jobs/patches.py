@@ -243,6 +243,7 @@ def write(result: PatchesResult, out, force: bool = False) -> Path:
         ``out``.
     """
     from ..report.html import write_report
+    from ..report.patches import save_patch_plots
 
     bars = result.persistence
     with result_folder(out, force=force, inputs=result.sources) as folder:
@@ -250,7 +251,7 @@ def write(result: PatchesResult, out, force: bool = False) -> Path:
         np.save(folder / "core.npy", result.core_index)
         np.save(folder / "landmarks.npy", result.core_index[bars.landmarks])
         result.tested.to_csv(folder / "pairs.csv", index=False, float_format="%.10g")
-        _figures(folder, result.cloud, result.dense, bars)
+        save_patch_plots(folder, result.cloud, result.dense, bars)
         summary = _summary(result.cloud, result.dense, bars, result.options,
                            result.k_neighbour, result.seconds)
         summary.update(_verdict(result))
@@ -343,39 +344,6 @@ def _core_indices(cloud, dense) -> np.ndarray:
     """Where each core point sits in the cloud (origins are unique per patch)."""
     keys = {tuple(row): i for i, row in enumerate(cloud.origin.tolist())}
     return np.array([keys[tuple(row)] for row in dense.origin.tolist()], dtype=np.int64)
-
-
-def _figures(folder, cloud, dense, result) -> None:
-    import matplotlib.pyplot as plt
-
-    from ..report.plots import plot_barcode, plot_diagram
-    from ..patches._plots import gallery_indices, plot_gallery, plot_projection
-
-    for name, draw, width in (("barcode", plot_barcode, 6.4), ("diagram", plot_diagram, 5.2)):
-        fig, axes = plt.subplots(1, len(result.fields), squeeze=False,
-                                 figsize=(width * len(result.fields), 5.0),
-                                 constrained_layout=True)
-        for ax, f in zip(axes[0], result.fields):
-            rows = result.pairs[result.pairs["field"] == f]
-            title = f"{'Barcode' if name == 'barcode' else 'Persistence diagram'}, " \
-                    f"{result.method} over Z/{f} (max edge {result.max_edge:.3g})"
-            draw(rows, ax=ax, title=title)
-            ax.set_xlabel("scale (distance in DCT coordinates)") if name == "barcode" else None
-        fig.savefig(folder / f"{name}.png", dpi=110)
-        plt.close(fig)
-    fig, ax = plt.subplots(figsize=(5.6, 5.6), constrained_layout=True)
-    plot_projection(cloud.coordinates, dense.coordinates, result, ax=ax)
-    fig.savefig(folder / "projection.png", dpi=110)
-    plt.close(fig)
-    along = gallery_indices(result.loop)
-    picked = result.landmarks[along]
-    coords = dense.coordinates[picked]
-    labels = [f"{np.degrees(np.arctan2(c[1], c[0])) % 360:.0f} deg" for c in coords]
-    fig = plot_gallery(dense.patches[picked], labels,
-                       "Patches along the longest loop (landmarks on its cycle; angle in "
-                       "DCT coordinates 1-2)")
-    fig.savefig(folder / "loop_gallery.png", dpi=110)
-    plt.close(fig)
 
 
 #: Column -> unit of pairs.csv: births and deaths are Rips scales, Euclidean distances

@@ -301,15 +301,44 @@ def _top(signals: Signals, table: pd.DataFrame, method: Method, count: int,
     out = []
     for i in chosen:
         trace = signals.traces[i]
-        z, _ = normalise(detrend(trace[None], method.detrend_degree))
-        period_frames = np.array([table["period"].iloc[i] / frame_interval])
-        cloud = sliding_windows(z, period_frames, method.points, method.dimension)[0]
-        bars = rips_bars(cloud, fields=(2,))[(2, 1)]
+        cloud, bars = _cloud_and_bars(trace, table["period"].iloc[i], method, frame_interval)
         out.append({"row": int(i), "region": int(table["region"].iloc[i]), "trace": trace,
                     "cloud": cloud, "bars": bars, "score": float(table["score"].iloc[i]),
                     "period": float(table["period"].iloc[i]),
                     "p_value": float(table["p_value"].iloc[i])})
     return out
+
+
+def _cloud_and_bars(trace: np.ndarray, period: float, method: Method,
+                    frame_interval: float) -> tuple[np.ndarray, np.ndarray]:
+    """The sliding-window cloud of one trace at its period, and its H1 bars over Z/2."""
+    z, _ = normalise(detrend(trace[None], method.detrend_degree))
+    period_frames = np.array([period / frame_interval])
+    cloud = sliding_windows(z, period_frames, method.points, method.dimension)[0]
+    return cloud, rips_bars(cloud, fields=(2,))[(2, 1)]
+
+
+def signal_bars(result: PeriodicityResult, row: int) -> np.ndarray:
+    """The H1 bars over Z/2 of one signal's sliding-window cloud, as the plots of the top
+    signals draw them.
+
+    Parameters
+    ----------
+    result : PeriodicityResult
+        What :func:`run` returned.
+    row : int
+        The signal's row in ``result.table``.
+
+    Returns
+    -------
+    ndarray, shape (n, 2)
+        Birth and death of each bar; none for a flat signal (no period to embed at).
+    """
+    table = result.table
+    if table["flat"].iloc[row]:
+        return np.zeros((0, 2))
+    return _cloud_and_bars(result.signals.traces[row], table["period"].iloc[row],
+                           result.method, result.frame_interval)[1]
 
 
 def describe(result: PeriodicityResult) -> str:
@@ -351,8 +380,7 @@ def write(result: PeriodicityResult, out, force: bool = False) -> Path:
     Path
         ``out``.
     """
-    from ..periodicity._plots import save_plots
-    from ..report.periodicity import write_periodicity_report
+    from ..report.periodicity import save_periodicity_plots, write_periodicity_report
 
     with result_folder(out, force=force) as folder:
         signals, table = result.signals, result.table
@@ -361,7 +389,7 @@ def write(result: PeriodicityResult, out, force: bool = False) -> Path:
             save_tiff(Scan(painted, spacing=result.spacing, unit=result.unit,
                            source=f"{name} map"), folder / f"{name}.tif")
         table.to_csv(folder / "regions.csv", index=False, float_format="%.8g")
-        plots = save_plots(result, folder)
+        plots = save_periodicity_plots(folder, result)
         summary = _summary(result, plots)
         write_summary(folder, summary)
         write_periodicity_report(folder, summary)
