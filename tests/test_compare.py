@@ -541,3 +541,40 @@ def test_cli_line_states_the_permutation_tests_resolution(tmp_path, capsys):
     assert "3 distinct groupings" in line and "no p-value below about 0.333" in line
     summary = json.loads((tmp_path / "c" / "summary.json").read_text())
     assert summary["permutation_test"]["smallest_p_value_reachable"] == pytest.approx(1 / 3)
+
+
+def test_every_column_of_every_table_compare_writes_has_a_unit(tmp_path):
+    """Four distance sweeps in um through write_comparison: every column of every CSV has
+    a unit in summary.json's ``columns``; distances, levels and embedding coordinates are
+    in um (a distance between diagrams, a level and an MDS coordinate are in the unit of
+    births and deaths; common practice, no source); names, groups and Betti numbers
+    (counts) have none; the report shows each file's columns."""
+    import json
+
+    import pandas as pd
+
+    from voxtopo.filtration import signed_distance
+    from voxtopo.report.html import write_comparison
+
+    diagrams = []
+    for seed in range(4):
+        pores = _texture(500 + seed, 1.5 + seed % 2, (24, 24)) > 0.3
+        field = signed_distance(voxtopo.Scan(pores, spacing=0.5, unit="um"))
+        diagrams.append(_diagram(field))
+    comparison = compare.compare_diagrams(diagrams, names=list("pqrs"), groups=list("abab"),
+                                          n_permutations=19)
+    out = write_comparison(comparison, tmp_path / "cmp")
+    units = json.loads((out / "summary.json").read_text())["columns"]
+    written = sorted(path.name for path in out.glob("*.csv"))
+    assert written == ["betti_curves.csv", "distance_matrix.csv", "distances.csv",
+                       "embedding.csv"]
+    for name in written:
+        assert set(pd.read_csv(out / name).columns) == set(units[name]), name
+    assert units["distances.csv"]["bottleneck_dim0"] == "um"
+    assert units["distances.csv"]["first_group"] == ""
+    assert units["distance_matrix.csv"]["q"] == "um"
+    assert units["betti_curves.csv"] == {"name": "", "level": "um", "betti_0": "",
+                                         "betti_1": ""}
+    assert units["embedding.csv"]["mds_2"] == "um"
+    html = (out / "report.html").read_text()
+    assert all(f"Columns of {name} and their units" in html for name in written)

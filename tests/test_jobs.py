@@ -374,3 +374,50 @@ def test_a_folder_gives_back_its_significance_level_and_a_listed_folder_none(tmp
     del summary["significance"]
     (tmp_path / "square" / "summary.json").write_text(json.dumps(summary))
     assert analyse.recorded(tmp_path / "square").flag is None
+
+
+def _bright_ball(shape, centre, radius_voxels):
+    """A smooth bright ball (a Gaussian bump) whose brightest voxel is ``centre``."""
+    grid = np.indices(shape).astype(np.float64)
+    squared = sum((g - c) ** 2 for g, c in zip(grid, centre))
+    return (1000 * np.exp(-squared / (2 * radius_voxels ** 2))).astype(np.float32)
+
+
+def test_a_feature_after_crop_and_downsample_is_placed_where_it_sits_in_the_scan(tmp_path):
+    """A bright ball at scan voxel (11, 23, 26) of an anisotropic scan (2 x 0.5 x 0.5 um),
+    cropped from (3, 5, 7) and averaged in blocks of 2: the superlevel component of its
+    brightest block is born at that block's centre, within half a block of the ball's
+    centre along every axis, and its voxel index within half a block too (block-mean
+    sampling: a block's mean stands for its centre; common practice, no source)."""
+    centre = (11, 23, 26)
+    spacing = (2.0, 0.5, 0.5)
+    np.save(tmp_path / "ball.npy", _bright_ball((20, 40, 40), centre, 2.0))
+    assert cli.main(["analyse", str(tmp_path / "ball.npy"), "--superlevel", "--crop",
+                     "3:19,5:37,7:39", "--downsample", "2", "--spacing", "2,0.5,0.5",
+                     "--unit", "um", "--min-persistence", "0", "--engine", "gudhi",
+                     "--out", str(tmp_path / "res")]) == 0
+    pairs = pd.read_csv(tmp_path / "res" / "pairs.csv")
+    ball = pairs[pairs["dim"] == 0].sort_values("birth", ascending=False).iloc[0]
+    for axis, voxel, step in zip("zyx", centre, spacing):
+        assert abs(ball[f"birth_{axis}"] - voxel * step) <= step     # half a block of 2
+        assert abs(ball[f"birth_voxel_{axis}"] - voxel) <= 1
+        # a position is a block's centre: half a voxel off the scan's voxel centres
+        assert ball[f"birth_{axis}"] / step % 1 == pytest.approx(0.5)
+    summary = pd.read_json(tmp_path / "res" / "summary.json", typ="series")
+    assert "block" in summary["positions"] and "half a block" in summary["positions"]
+
+
+def test_a_crop_alone_counts_positions_from_the_scan_s_first_voxel(tmp_path):
+    """Without downsampling, the ball's brightest voxel is its birth voxel exactly, on the
+    scan's grid, and its position is that index times the voxel size (definition of
+    the columns in DESIGN.md; common practice, no source)."""
+    centre = (7, 9, 12)
+    np.save(tmp_path / "ball.npy", _bright_ball((14, 18, 20), centre, 1.5))
+    assert cli.main(["analyse", str(tmp_path / "ball.npy"), "--superlevel", "--crop",
+                     "2:13,4:16,5:19", "--spacing", "3,1,0.5", "--unit", "um",
+                     "--min-persistence", "0", "--engine", "gudhi",
+                     "--out", str(tmp_path / "res")]) == 0
+    pairs = pd.read_csv(tmp_path / "res" / "pairs.csv")
+    ball = pairs[pairs["dim"] == 0].sort_values("birth", ascending=False).iloc[0]
+    assert [ball[f"birth_voxel_{a}"] for a in "zyx"] == list(centre)
+    assert [ball[f"birth_{a}"] for a in "zyx"] == pytest.approx([21.0, 9.0, 6.0])

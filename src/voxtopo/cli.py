@@ -302,6 +302,21 @@ def _add_pores(subparsers) -> None:
                         "voxel diagonal are flagged robust (stability theorem)")
     m.add_argument("--engine", choices=["auto", "voxtopo", "gudhi"], default="auto",
                    help="persistence engine (the diagram is the same)")
+    o = p.add_argument_group("scans larger than memory")
+    o.add_argument("--out-of-core", action="store_true",
+                   help="read the scan chunk by chunk on a dask cluster (zarr / OME-Zarr; a "
+                        "TIFF or .npy is rewritten into a store first); everything but the "
+                        "loops (dimension 1, in memory only) and the basin volumes, exactly "
+                        "as in memory, with Betti curves of all dimensions")
+    o.add_argument("--chunks", type=_shape, metavar="Z,Y,X",
+                   help="with --out-of-core: block shape of the tasks (default the store's)")
+    o.add_argument("--scheduler", metavar="ADDRESS",
+                   help="with --out-of-core: address of a running dask scheduler whose "
+                        "workers reach the scan and the scratch folder (default: a local "
+                        "cluster, one worker per core)")
+    o.add_argument("--scratch", metavar="FOLDER",
+                   help="with --out-of-core: folder for the intermediate stores (default: "
+                        "beside --out); they are removed at the end")
     add_load_options(p)
     p.set_defaults(handler=_run_pores)
 
@@ -313,9 +328,32 @@ def _run_pores(args) -> int:
         pores_bright=args.pores_bright, label=args.label,
         roi=args.roi, axis=tuple(args.axis) if args.axis else None,
         neighbourhood=args.neighbourhood, min_persistence=args.min_persistence,
-        engine=args.engine, boundary_tolerance=args.boundary_tolerance)
-    return _run_job("pores", args, options, args.scan, load_options_from(args),
+        engine=args.engine, boundary_tolerance=args.boundary_tolerance,
+        out_of_core=args.out_of_core, chunks=args.chunks)
+    load_options = load_options_from(args)
+    if args.out_of_core:
+        return _run_pores_out_of_core(args, options, load_options)
+    for name in ("scheduler", "scratch"):
+        if getattr(args, name) is not None:
+            raise VoxtopoError(f"--{name} is for the out-of-core path and would be ignored; "
+                               f"add --out-of-core, or leave --{name} out.")
+    return _run_job("pores", args, options, args.scan, load_options,
                     [args.scan, args.mask, args.roi])
+
+
+def _run_pores_out_of_core(args, options, load_options) -> int:
+    from .jobs import pores
+    bar = ProgressBar()
+    try:
+        result = pores.pores_out_of_core(args.scan, args.out, options, scratch=args.scratch,
+                                         scheduler=args.scheduler, load_options=load_options,
+                                         force=args.force, progress=bar)
+    finally:
+        bar.close()
+    for line in pores.describe(result).splitlines():
+        print(f"voxtopo: {line}")
+    print(f"voxtopo: results written to {args.out} (research use only)")
+    return 0
 
 
 def _run_out_of_core(args, options, load_options) -> int:

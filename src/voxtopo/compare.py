@@ -915,11 +915,48 @@ class Comparison:
             "persistence_images": {str(d): g.description() for d, g in self.grids.items()},
             "permutation_test": self.test.description() if self.test else None,
             "notes": list(self.notes),
+            "columns": self.column_units(),
         }
+
+    def tables(self) -> dict:
+        """The tables of a comparison folder: file name -> DataFrame, as :meth:`save`
+        writes them (distances.csv, distance_matrix.csv, betti_curves.csv and, with an
+        embedding, embedding.csv)."""
+        matrix = pd.DataFrame(self.matrix, columns=self.names)
+        matrix.insert(0, "name", self.names)
+        tables = {"distances.csv": self.distance_table(), "distance_matrix.csv": matrix,
+                  "betti_curves.csv": self.curves}
+        if self.embedding is not None:
+            tables["embedding.csv"] = pd.DataFrame({"name": self.names, "group": self.groups,
+                                                    "mds_1": self.embedding[:, 0],
+                                                    "mds_2": self.embedding[:, 1]})
+        return tables
+
+    def column_units(self) -> dict:
+        """File -> column -> unit of every table :meth:`save` writes (summary.json's
+        ``columns``): distances, levels and embedding coordinates in the unit of the
+        values compared, names, groups and Betti numbers without one (""), and the
+        arrays of persistence_images.npz (pixel weights, no unit)."""
+        def unit_of(column):
+            if column in ("name", "first", "second", "group", "first_group",
+                          "second_group") or column.startswith("betti_"):
+                return ""
+            return self.unit
+
+        tables = self.tables()
+        units = {name: {column: unit_of(column) for column in table.columns}
+                 for name, table in tables.items()}
+        # past its first column the matrix's columns are the diagrams' names: distances
+        units["distance_matrix.csv"] = {column: "" if k == 0 else self.unit for k, column
+                                        in enumerate(tables["distance_matrix.csv"].columns)}
+        units["persistence_images.npz"] = {**{f"dim{d}": "" for d in self.images},
+                                           "names": ""}
+        return units
 
     def save(self, folder) -> None:
         """Write distances.csv, distance_matrix.csv, betti_curves.csv,
-        persistence_images.npz, embedding.csv and summary.json into ``folder``.
+        persistence_images.npz, embedding.csv and summary.json (with the unit of every
+        column under ``columns``) into ``folder``.
 
         Parameters
         ----------
@@ -927,18 +964,11 @@ class Comparison:
             An existing folder (the temporary folder of a comparison being written).
         """
         folder = Path(folder)
-        self.distance_table().to_csv(folder / "distances.csv", index=False,
-                                     float_format="%.10g")
-        pd.DataFrame(self.matrix, index=self.names, columns=self.names).to_csv(
-            folder / "distance_matrix.csv", float_format="%.10g")
-        self.curves.to_csv(folder / "betti_curves.csv", index=False, float_format="%.10g")
+        for name, table in self.tables().items():
+            table.to_csv(folder / name, index=False, float_format="%.10g")
         arrays = {f"dim{d}": img for d, img in self.images.items()}
         arrays["names"] = np.asarray(self.names, dtype=str)
         np.savez(folder / "persistence_images.npz", **arrays)
-        if self.embedding is not None:
-            pd.DataFrame({"name": self.names, "group": self.groups,
-                          "mds_1": self.embedding[:, 0], "mds_2": self.embedding[:, 1]}
-                         ).to_csv(folder / "embedding.csv", index=False, float_format="%.10g")
         write_summary(folder, self.summary())
 
 

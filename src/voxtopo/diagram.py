@@ -74,6 +74,12 @@ class Diagram:
     as voxel indices, nullable integers); 2D drops the z columns. An essential class has
     ``death = inf`` (superlevel: ``-inf``), infinite persistence and no death location.
 
+    Positions and voxel indices refer to the grid of the scan as read, also when the grid
+    that was swept is a crop (it starts at the scan's voxel ``first_voxel``) or a block
+    mean (``block`` voxels per side, see :meth:`placed_in_scan`); ``spacing`` and ``shape``
+    are those of the swept grid. Empty ``first_voxel`` and ``block`` mean the swept grid
+    is the scan's.
+
     The other fields say how the diagram was made, so it can be read on its own.
     """
 
@@ -93,6 +99,8 @@ class Diagram:
     notes: tuple[str, ...] = ()
     seconds: float = float("nan")
     extra: dict = dataclass_field(default_factory=dict)
+    first_voxel: tuple[int, ...] = ()
+    block: tuple[int, ...] = ()
 
     # construction -----------------------------------------------------------------
     @classmethod
@@ -327,18 +335,102 @@ class Diagram:
         Returns
         -------
         ndarray of float64, shape (n, ndim)
-            The ``birth_z ..`` (or ``death_z ..``) columns: voxel indices times the
-            spacing, in the diagram's unit, (z, y, x) order.
+            The ``birth_z ..`` (or ``death_z ..``) columns: positions on the scan's grid
+            (:meth:`placed_in_scan`), in the diagram's unit, (z, y, x) order.
         """
         axes = AXES_3D[3 - self.ndim:]
         return self.pairs[[f"{which}_{a}" for a in axes]].to_numpy(dtype=np.float64,
                                                                    na_value=np.nan)
 
     def voxels(self, which: str = "birth") -> np.ndarray:
-        """(n, ndim) voxel indices of the birth or death voxels (-1 where none)."""
+        """(n, ndim) voxel indices of the birth or death voxels on the scan's grid (-1
+        where none); :meth:`swept_voxels` gives them on the swept grid."""
         axes = AXES_3D[3 - self.ndim:]
         return (self.pairs[[f"{which}_voxel_{a}" for a in axes]].fillna(-1)
                 .to_numpy(dtype=np.int64))
+
+    def placed_in_scan(self, first_voxel, block) -> "Diagram":
+        """This diagram of a swept grid, its places put on the grid of the scan as read.
+
+        The swept grid is the scan cropped from voxel ``first_voxel`` and then averaged
+        in blocks of ``block`` voxels per axis. Swept voxel ``i`` is the block whose first
+        scan voxel is ``c = first_voxel + i * block``; its place is the block's centre::
+
+            position     (c + (block - 1) / 2) * scan spacing    (exact centre)
+            voxel index  c + (block - 1) // 2                    (centre voxel, rounded down)
+
+            scan voxels  |  c  | c+1 | c+2 | c+3 |      a block of 4: position c + 1.5,
+                         |<------ swept voxel i ---->|      voxel index c + 1
+
+        so a feature found after downsampling is placed within half a block of where it
+        sits in the scan. Call it once, on a diagram whose places are on the swept grid
+        (as the engine returns it).
+
+        Parameters
+        ----------
+        first_voxel : sequence of int
+            The scan voxel of the swept grid's first voxel (the crop's corner; 0 without).
+        block : sequence of int
+            Block side per axis (1 without downsampling).
+
+        Returns
+        -------
+        Diagram
+            The same pairs, in the same order, with ``birth_z .. death_x`` and
+            ``birth_voxel_z .. death_voxel_x`` on the scan's grid.
+        """
+        first = np.asarray(first_voxel, dtype=np.int64).reshape(self.ndim)
+        sides = np.asarray(block, dtype=np.int64).reshape(self.ndim)
+        scan_spacing = np.asarray(self.spacing, dtype=np.float64) / sides
+        pairs = self.pairs.copy()
+        axes = AXES_3D[3 - self.ndim:]
+        for which in ("birth", "death"):
+            for k, a in enumerate(axes):
+                swept = pairs[f"{which}_voxel_{a}"].to_numpy(dtype=np.float64, na_value=np.nan)
+                corner = first[k] + swept * sides[k]
+                pairs[f"{which}_{a}"] = (corner + (sides[k] - 1) / 2) * scan_spacing[k]
+                index = pd.array(np.nan_to_num(corner + (sides[k] - 1) // 2, nan=-1)
+                                 .astype(np.int64), dtype="Int64")
+                index[np.isnan(swept)] = pd.NA
+                pairs[f"{which}_voxel_{a}"] = index
+        return replace(self, pairs=pairs, first_voxel=tuple(int(v) for v in first),
+                       block=tuple(int(v) for v in sides))
+
+    @property
+    def origin(self) -> tuple[float, ...]:
+        """Position, in the scan's unit, of the swept grid's first voxel (the centre of
+        its block); zeros when the swept grid is the scan's."""
+        first, sides = self._frame()
+        return tuple(float(v) for v in (first + (sides - 1) / 2)
+                     * np.asarray(self.spacing, dtype=np.float64) / sides)
+
+    def swept_voxels(self, which: str = "birth") -> np.ndarray:
+        """(n, ndim) voxel indices on the swept grid (-1 where none): where the birth or
+        death sits in the prepared field the engine saw, for work on that field (pore
+        regions, layers drawn on it)."""
+        first, sides = self._frame()
+        scan_index = self.voxels(which)
+        swept = (scan_index - first - (sides - 1) // 2) // sides
+        return np.where(scan_index < 0, -1, swept)
+
+    def _frame(self) -> tuple[np.ndarray, np.ndarray]:
+        first = np.asarray(self.first_voxel or (0,) * self.ndim, dtype=np.int64)
+        sides = np.asarray(self.block or (1,) * self.ndim, dtype=np.int64)
+        return first, sides
+
+    def placement_note(self) -> str:
+        """How positions and voxel indices relate to the scan, for summary.json."""
+        first, sides = self._frame()
+        note = ("positions (birth_z ...) are in the scan's unit and voxel indices "
+                "(birth_voxel_z ...) on the grid of the scan as read, counted from its first "
+                "voxel")
+        if (first != 0).any():
+            note += f"; the crop starts at scan voxel {first.tolist()}"
+        if (sides != 1).any():
+            note += (f"; after downsampling by blocks of {sides.tolist()} voxels a position "
+                     f"is the centre of its block and a voxel index the block's centre voxel "
+                     f"(rounded down), good to half a block")
+        return note
 
     @property
     def value_unit(self) -> str:
@@ -388,7 +480,8 @@ class Diagram:
             "unit": self.unit, "values": self.values, "field": self.field,
             "periodic": list(self.periodic), "engine": self.engine,
             "min_persistence": self.min_persistence, "source": self.source,
-            "notes": list(self.notes),
+            "notes": list(self.notes), "first_voxel": list(self.first_voxel),
+            "block": list(self.block), "positions": self.placement_note(),
         }
 
     def save(self, folder, name: str = "pairs.csv") -> None:
@@ -451,7 +544,9 @@ class Diagram:
                    spacing=tuple(meta["spacing"]), unit=meta["unit"], values=meta["values"],
                    field=int(meta["field"]), periodic=tuple(meta["periodic"]),
                    engine=meta["engine"], min_persistence=float(meta["min_persistence"]),
-                   source=meta["source"], notes=tuple(meta.get("notes", ())))
+                   source=meta["source"], notes=tuple(meta.get("notes", ())),
+                   first_voxel=tuple(meta.get("first_voxel", ())),
+                   block=tuple(meta.get("block", ())))
 
 
 def _with_positions(pairs: pd.DataFrame, ndim: int, spacing) -> pd.DataFrame:

@@ -237,6 +237,39 @@ def crop(scan, box) -> Scan:
                           metadata={**scan.metadata, "crop_origin": origin})
 
 
+def grid_frame(shape, crop=None, downsample=1) -> tuple[tuple[int, ...], tuple[int, ...]]:
+    """Where the grid left by :func:`crop` then :func:`downsample` sits in the scan.
+
+    Parameters
+    ----------
+    shape : tuple of int
+        The scan's shape.
+    crop : str or tuple of slice, optional
+        The crop box (see :func:`parse_box`); None for the whole scan.
+    downsample : int or sequence of int
+        The block side, for every axis or per axis.
+
+    Returns
+    -------
+    first_voxel : tuple of int
+        The scan voxel of the grid's first voxel (the crop's corner).
+    block : tuple of int
+        Block side per axis (see :meth:`voxtopo.Diagram.placed_in_scan`).
+
+    Examples
+    --------
+    >>> grid_frame((10, 12), "2:,3:9", 2)
+    ((2, 3), (2, 2))
+    """
+    ndim = len(shape)
+    first = (0,) * ndim
+    if crop:
+        box = parse_box(crop, ndim) if isinstance(crop, str) else crop
+        first = tuple(int(b.indices(n)[0]) for b, n in zip(box, shape))
+    block = tuple(max(int(f), 1) for f in np.broadcast_to(downsample or 1, ndim))
+    return first, block
+
+
 def downsample(scan, factor) -> Scan:
     """Block-mean downsampling by an integer ``factor`` (one for all axes or one per axis).
 

@@ -11,13 +11,33 @@ from voxtopo_napari._layers import features_table, placement_of, result_layers
 from voxtopo_napari._lifetime_colours import RAMP_STOPS, lifetime_colours
 
 
-def test_crop_and_downsample_move_voxel_zero_to_the_first_block_centre():
-    """A crop starting at (2, 3) with 1.5-unit voxels puts voxel 0 at (3.0, 4.5); blocks of
-    2 voxels have their centre half a voxel in: 3.75, 5.25; the voxel size doubles
-    (block-mean geometry, common practice, no source)."""
-    placement = placement_of((10, 12), (1.5, 1.5), "um", crop="2:,3:", downsample=2)
-    assert placement.translate == pytest.approx((3.75, 5.25))
-    assert placement.scale == pytest.approx((3.0, 3.0))
+def test_the_plugin_places_a_feature_where_pairs_csv_places_it(tmp_path):
+    """A bright ball at scan voxel (11, 23, 26) of an anisotropic scan, cropped and
+    averaged in blocks of 2, run through the panel's job: its point sits at the world
+    coordinate pairs.csv of the same run gives (plus the layer's own offset), within half
+    a block of the ball's centre (block-mean sampling, common practice, no source)."""
+    from voxtopo.jobs import analyse
+    from voxtopo.jobs.analyse import AnalysisOptions
+    from voxtopo_napari._job import run_analysis
+
+    centre, spacing, offset = (11, 23, 26), (2.0, 0.5, 0.5), (100.0, -4.0, 7.0)
+    grid = np.indices((20, 40, 40)).astype(float)
+    ball = 1000 * np.exp(-sum((g - c) ** 2 for g, c in zip(grid, centre)) / 8.0)
+    scan = voxtopo.Scan(ball.astype(np.float32), spacing=spacing, unit="um")
+    options = AnalysisOptions(superlevel=True, crop="3:19,5:37,7:39", downsample=2,
+                              min_persistence=0, engine="gudhi")
+    analyse.write(analyse.run(scan, options), tmp_path / "res")
+    pairs = pd.read_csv(tmp_path / "res" / "pairs.csv")
+    row = pairs[pairs["dim"] == 0].sort_values("birth", ascending=False).iloc[0]
+    in_table = np.array([row[f"birth_{a}"] for a in "zyx"])
+    result = run_analysis(scan, options, name="ball", translate=offset)
+    data, kwargs, _ = result.layers[0]
+    brightest = int(np.argmax(kwargs["features"]["birth"].to_numpy()))
+    world = data[brightest] * np.asarray(kwargs["scale"]) + np.asarray(kwargs["translate"])
+    np.testing.assert_allclose(world, in_table + offset)
+    np.testing.assert_allclose([kwargs["features"][f"birth_{a}"][brightest] for a in "zyx"],
+                               in_table + offset)
+    assert (np.abs(in_table - np.multiply(centre, spacing)) <= np.asarray(spacing)).all()
 
 
 def test_features_table_positions_are_voxels_times_spacing():
@@ -26,7 +46,7 @@ def test_features_table_positions_are_voxels_times_spacing():
     rng = np.random.default_rng(3)
     diagram = voxtopo.persistence(rng.random((6, 7, 8)), engine="gudhi",
                                   spacing=(0.5, 2.0, 3.0), unit="um")
-    placement = placement_of((6, 7, 8), (0.5, 2.0, 3.0), "um", translate=(10, 0, -1))
+    placement = placement_of(diagram, translate=(10, 0, -1))
     table = features_table(diagram, 1, placement)
     rows = diagram.pairs[diagram.pairs["dim"] == 1]
     assert len(table) == len(rows) > 0
@@ -49,11 +69,11 @@ def test_body_radius_and_throat_radius_are_minus_birth_and_death():
         pairs[column.replace("_", "_voxel_")] = pd.array(values, dtype="Int64")
     diagram = voxtopo.Diagram(pairs=pairs, ndim=2, shape=(8, 8), neighbourhood=8,
                               spacing=(1.0, 1.0), values="distance")
-    table = features_table(diagram, 0, placement_of((8, 8), (1.0, 1.0)))
+    table = features_table(diagram, 0, placement_of(diagram))
     np.testing.assert_allclose(table["body_radius"], [5.0, 3.0, 2.0])
     assert "pore_radius" not in table.columns
     np.testing.assert_allclose(table["throat_radius"], [np.nan, 1.0, np.nan])
-    layers = result_layers(diagram, placement_of((8, 8), (1.0, 1.0)), "t", mark_deaths=True)
+    layers = result_layers(diagram, placement_of(diagram), "t", mark_deaths=True)
     names = [kwargs["name"] for _, kwargs, _ in layers]
     assert names[0] == "pores · t"
     deaths = layers[2][0]

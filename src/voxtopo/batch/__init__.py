@@ -75,7 +75,9 @@ The settings file (TOML, or YAML with the same keys)
 
     [pores]                    # the options of `voxtopo pores`: threshold,
     threshold = "otsu"         # pores_bright, label, axis, neighbourhood,
-    pores_bright = false       # roi, min_persistence, engine
+    pores_bright = false       # roi, min_persistence, engine, boundary_tolerance,
+                               # out_of_core (true: every scan chunk by chunk on the
+                               # batch's cluster, one scan at a time) and chunks
 
     [patches]                  # the options of `voxtopo patches`: k, contrast_percent,
     k = 3                      # positions, seed, log, axis, slices, k_neighbour,
@@ -89,8 +91,8 @@ The settings file (TOML, or YAML with the same keys)
     [batch]
     workers = 2                # local cluster size (default: the number of cores)
     memory_per_worker = "auto" # bytes, "8GB", or "auto" (from the memory estimate)
-    out_of_core = "auto"       # zarr scans: "auto" (when a scan would not fit a
-                               # worker), true (always) or false (never)
+    out_of_core = "auto"       # analyse job, zarr scans: "auto" (when a scan would not
+                               # fit a worker), true (always) or false (never)
     chunks = [128, 128, 128]   # out-of-core block shape (default: the store's chunks)
     worker_timeout = 120       # seconds with no dask worker before the batch stops
 
@@ -180,8 +182,10 @@ def run_batch(manifest, out, *, settings_path=None, scheduler=None, workers=None
               *(path for entry in entries for path in entry.files.values())]
     out = _check_out(out, [i for i in inputs if i is not None], settings, force)
     loads = {e.name: _load_options(e, settings) for e in entries}
+    # an out-of-core pores run holds one chunk per task, not the scan
+    whole_scans = not (settings.job == "pores" and settings.pores.get("out_of_core"))
     needs = [scan_bytes(*peek, settings.job) for e in entries
-             if (peek := _peek(e.path, loads[e.name])) is not None]
+             if whole_scans and (peek := _peek(e.path, loads[e.name])) is not None]
     count, limit = plan_workers(
         needs, workers=workers or settings.batch.get("workers"),
         memory_per_worker=_bytes_or_none(settings.batch.get("memory_per_worker")))

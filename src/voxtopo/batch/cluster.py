@@ -109,16 +109,26 @@ def _record_of(future) -> dict:
                            f"it may have run out of memory"}
 
 
-def _run_out_of_core(client, entry, load_options, settings: Settings, out) -> dict:
+#: jobs that spread one scan's chunk tasks over the whole cluster, run one scan at a time
+OUT_OF_CORE_JOBS = ("analyse-out-of-core", "pores-out-of-core")
+
+
+def _run_out_of_core(client, entry, load_options, settings: Settings, out, job) -> dict:
     from ..jobs.analyse import analyse_out_of_core
+    from ..jobs.pores import pores_out_of_core
 
     start = time.perf_counter()
     try:
-        # the scan's own roi goes in too, so that the path refuses it rather than drop it
-        options = job_options("analyse", {**settings.analyse, **entry.files})
-        analyse_out_of_core(entry.path, out, options,
-                            load_options=load_options, chunks=settings.batch.get("chunks"),
-                            force=True, scheduler=client)
+        if job == "pores-out-of-core":
+            pores_out_of_core(entry.path, out,
+                              job_options("pores", {**settings.pores, **entry.files}),
+                              load_options=load_options, force=True, scheduler=client)
+        else:
+            # the scan's own roi goes in too, so that the path refuses it rather than drop it
+            options = job_options("analyse", {**settings.analyse, **entry.files})
+            analyse_out_of_core(entry.path, out, options, load_options=load_options,
+                                chunks=settings.batch.get("chunks"), force=True,
+                                scheduler=client)
         return {"status": "done", "message": "", "seconds": time.perf_counter() - start}
     except (VoxtopoError, MemoryError) as error:
         return {"status": "failed", "message": str(error),
@@ -170,9 +180,9 @@ def _submit_all(client, todo, jobs, loads, settings, scans_dir, skipped, stream,
 
     progress = _Progress(len(todo), skipped, stream)
     futures = {}
-    in_process = [e for e in todo if jobs[e.name] == "analyse-out-of-core"]
+    in_process = [e for e in todo if jobs[e.name] in OUT_OF_CORE_JOBS]
     for entry in todo:
-        if jobs[entry.name] == "analyse-out-of-core":
+        if jobs[entry.name] in OUT_OF_CORE_JOBS:
             continue
         overrides = dict(entry.files)
         future = client.submit(_run_one, jobs[entry.name], entry.path,
@@ -216,5 +226,5 @@ def _submit_all(client, todo, jobs, loads, settings, scans_dir, skipped, stream,
     for entry in in_process:
         # Out-of-core scans spread their chunk tasks over the whole cluster.
         records[entry.name] = _run_out_of_core(client, entry, loads[entry.name], settings,
-                                               scans_dir / entry.name)
+                                               scans_dir / entry.name, jobs[entry.name])
         progress.update(entry.name, records[entry.name])

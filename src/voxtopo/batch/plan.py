@@ -109,9 +109,12 @@ def _peek(path: str, load_options: dict):
 
 
 def _job_of(entry: ScanEntry, settings: Settings, load_options: dict, worker_bytes) -> str:
-    """The job that runs one scan: the settings' job, or "analyse-out-of-core" for a zarr
+    """The job that runs one scan: the settings' job, "analyse-out-of-core" for a zarr
     scan that ``[batch] out_of_core`` sends there (always, or when it would not fit a
-    worker of ``worker_bytes``)."""
+    worker of ``worker_bytes``), or "pores-out-of-core" for every scan when
+    ``[pores] out_of_core = true``."""
+    if settings.job == "pores" and settings.pores.get("out_of_core"):
+        return "pores-out-of-core"
     if settings.job != "analyse":
         return settings.job
     choice = settings.batch.get("out_of_core", "auto")

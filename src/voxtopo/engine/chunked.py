@@ -39,7 +39,7 @@ from . import _chunk_merge as kernel
 from ._pairs import RawPairs, check_exact_in_float64
 from ._union_find import neighbour_offsets
 
-__all__ = ["chunked_persistence", "BYTES_PER_CHUNK_VOXEL"]
+__all__ = ["BYTES_PER_CHUNK_VOXEL", "chunked_merges", "chunked_persistence"]
 
 #: Bytes per voxel of one chunk task: the values as float64, the sort order, union-find
 #: forest, flags and the four output buffers (int64 each).
@@ -78,8 +78,9 @@ class _Grid:
     """The array as the tasks see it: its shape, the block shape of the tasks, and boxes
     read as C-contiguous arrays. Picklable when the array is (zarr arrays are)."""
 
-    def __init__(self, array, chunks, name: str):
+    def __init__(self, array, chunks, name: str, edge=None):
         self.array = array
+        self.edge = edge
         self.shape = tuple(int(n) for n in array.shape)
         self.dtype = np.dtype(array.dtype)
         self.chunks = tuple(int(c) for c in chunks)
@@ -89,11 +90,13 @@ class _Grid:
     def ndim(self) -> int:
         return len(self.shape)
 
-    def read(self, lo, hi) -> np.ndarray:
-        """The box [lo, hi) as a C-contiguous array."""
+    def read(self, lo, hi, array=None) -> np.ndarray:
+        """The box [lo, hi) of the array (or of ``array`` on the same grid) as a
+        C-contiguous array."""
         index = tuple(slice(int(a), int(b)) for a, b in zip(lo, hi))
         try:
-            return np.ascontiguousarray(np.asarray(self.array[index]))
+            return np.ascontiguousarray(np.asarray((self.array if array is None
+                                                    else array)[index]))
         except InputError:
             raise
         except Exception as exc:
@@ -162,8 +165,13 @@ def _reduce_leaf(source: _Grid, lo, hi, sweep: _Sweep):
     flagged = np.ascontiguousarray(np.broadcast_to(_flags(lo, hi, shape3, coords), cshape)
                                    ).reshape(-1)
     real_axes = range(3 - source.ndim, 3)
-    border = (_on_border(lo, hi, shape3, real_axes).reshape(-1) if sweep.with_outside
-              else np.zeros(n, np.uint8))
+    if not sweep.with_outside:
+        border = np.zeros(n, np.uint8)
+    elif source.edge is not None:
+        lo2, hi2 = lo[3 - source.ndim:], hi[3 - source.ndim:]
+        border = source.read(lo2, hi2, source.edge).astype(np.uint8).reshape(-1)
+    else:
+        border = _on_border(lo, hi, shape3, real_axes).reshape(-1)
     order = np.argsort(flat, kind="stable").astype(np.int64)
     offsets = neighbour_offsets(source.ndim, sweep.corners)
     parent = np.empty(n + 1, np.int64)
@@ -329,6 +337,35 @@ def _run_sweep(source, sweep, scheduler):
     pairs = _Pairs(join("young_id", np.int64), join("young_value", np.float64),
                    join("voxel_id", np.int64), join("voxel_value", np.float64))
     return pairs, top
+
+
+def chunked_merges(array, *, superlevel: bool = False, neighbourhood=None, chunks=None,
+                   edge=None, scheduler=None) -> _Pairs:
+    """Every merge of the dimension-0 sweep of ``array``, with ``edge`` as its eldest node.
+
+    The sweep of :func:`chunked_persistence` (elder rule, ties by C-order index), where
+    with ``edge`` (a bool array on the same grid, sliceable like ``array``) one more node,
+    older than every voxel, is joined to each ``edge`` voxel as that voxel enters. A
+    component dies when it meets an elder one or a component holding an ``edge`` voxel.
+
+    Returns
+    -------
+    merges
+        ``young_id`` (the dying component's first voxel, C-order flat index of the array),
+        ``young_value``, ``voxel_id`` and ``voxel_value`` (the voxel whose entry joined it,
+        and its value) of every merge with a positive lifetime; a component whose first
+        voxel is an ``edge`` voxel dies as it is born and is not listed.
+    """
+    from . import construction_of
+
+    name = getattr(array, "source", "") or "The array"
+    source = _Grid(array, chunks if chunks is not None else chunks_of(array), name,
+                   edge=edge)
+    _check_source(source)
+    neighbourhood, construction = construction_of(source.ndim, neighbourhood)
+    merges, _ = _run_sweep(source, _Sweep(not superlevel, construction == "voxel",
+                                          edge is not None), scheduler)
+    return merges
 
 
 def _check_source(source: _Grid):

@@ -146,3 +146,72 @@ def open_chunked(path, *, level: int = 0, channel=None, timepoint=None, chunks=N
     return ChunkedArray(array, fixed=fixed, spacing=tuple(spacing) if spacing else own_spacing,
                         unit=unit or layout.unit, source=str(path), chunks=chunks,
                         notes=layout.metadata.get("notes", ()))
+
+
+def rewrite_as_store(path, target, *, chunks=None, spacing=None, unit=None,
+                     progress=None) -> ChunkedArray:
+    """Rewrite a TIFF or .npy scan into a zarr store at ``target``, one slab at a time.
+
+    The file is read through a memory map (or page by page for a TIFF that cannot be
+    mapped), so no more than one slab of ``chunks[0]`` slices is in memory. Voxel size and
+    unit come from the file's metadata unless given. Returns the store opened with
+    :func:`open_chunked`.
+    """
+    import tifffile
+    import zarr
+
+    from ._layout import unlabelled_axes
+    from ._load import _open
+    from ._tiff import TIFF_SUFFIXES
+
+    path = Path(path)
+    suffix = path.suffix.lower()
+    if suffix not in TIFF_SUFFIXES + (".npy",):
+        raise InputError(f"The out-of-core path reads zarr / OME-Zarr stores and rewrites "
+                         f"TIFF and .npy files into one; {path} is neither (convert it to "
+                         f"OME-Zarr, or drop --out-of-core).")
+    layout = _open(path, shape=None, dtype=None, byte_order="little", offset=0, level=0)
+    try:
+        axes = layout.axes if layout.labelled else unlabelled_axes(layout.shape, str(path),
+                                                                    None, None)
+        if axes not in ("ZYX", "YX") or layout.rgb:
+            raise InputError(f"{path} holds axes {axes} of shape {layout.shape}; the "
+                             f"out-of-core path rewrites 2D or 3D gray files only (save one "
+                             f"channel and time point as OME-Zarr instead).")
+        found_spacing = tuple(layout.spacing.get(a, 1.0) for a in axes)
+        found_unit = layout.unit
+    finally:
+        layout.close()
+    shape = tuple(int(n) for n in layout.shape)
+    if suffix == ".npy":
+        data = np.load(path, mmap_mode="r", allow_pickle=False)
+    else:
+        try:  # uncompressed, contiguous files map; others are read page by page
+            data = tifffile.memmap(path, mode="r").reshape(shape)
+        except Exception:
+            data = _TiffPages(path, shape)
+    chunks = tuple(int(c) for c in (chunks or [min(n, 128) for n in shape]))
+    store = zarr.create_array(str(target), shape=shape, chunks=chunks, dtype=layout.dtype)
+    depth = chunks[0]
+    for start in range(0, shape[0], depth):
+        stop = min(start + depth, shape[0])
+        store[start:stop] = np.asarray(data[start:stop])
+        if progress is not None:
+            progress("rewriting the scan as a chunked store", stop / shape[0])
+    return open_chunked(target, spacing=spacing or found_spacing, unit=unit or found_unit)
+
+
+class _TiffPages:
+    """Slabs of a TIFF read page by page (a 2D image is one page, read once)."""
+
+    def __init__(self, path, shape):
+        self.path, self.shape = path, shape
+
+    def __getitem__(self, rows: slice) -> np.ndarray:
+        import tifffile
+
+        with tifffile.TiffFile(self.path) as tif:
+            pages = tif.series[0].pages
+            if len(self.shape) == 2:
+                return pages[0].asarray()[rows]
+            return np.stack([pages[i].asarray() for i in range(*rows.indices(self.shape[0]))])

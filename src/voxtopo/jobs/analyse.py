@@ -566,6 +566,8 @@ def run(scan: Scan, options: AnalysisOptions | None = None, progress=None) -> An
                               neighbourhood=options.neighbourhood, periodic=options.periodic,
                               field=options.field, engine=options.engine,
                               min_persistence=options.persistence_floor, progress=progress)
+        diagram = diagram.placed_in_scan(*filt.grid_frame(scan.shape, options.crop,
+                                                          options.downsample))
         if sample is not None:
             del swept
             diagram = diagram.without_outside(outside)
@@ -820,6 +822,7 @@ def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepare
                       for d in range(diagram.ndim)},
         "most_persistent": top,
         "columns": {"pairs.csv": diagram.column_units(value_unit)},
+        "positions": diagram.placement_note(),
         "timings_seconds": {k: round(v, 4) for k, v in (timings or {}).items()},
         "preparation": notes or {},
         "software": software_versions(),

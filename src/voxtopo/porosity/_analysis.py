@@ -90,6 +90,9 @@ class PoreAnalysis:
         The region of interest (None: the whole scan).
     pore_rows : ndarray of int
         For each row of ``pores`` (same order), its row in ``diagram.pairs``.
+    betti_curves : pandas.DataFrame or None
+        Out of core only: Betti numbers and Euler characteristic of the pore sweep at a
+        grid of levels (``level, betti_0, betti_1, (betti_2), euler_characteristic``).
     """
 
     pores: pd.DataFrame
@@ -104,6 +107,7 @@ class PoreAnalysis:
     critical_throats: dict = field(default_factory=dict)
     sample: np.ndarray | None = None
     pore_rows: np.ndarray | None = None
+    betti_curves: pd.DataFrame | None = None
 
 
 # ------------------------------------------------------------------------------- input
@@ -225,10 +229,15 @@ def _selected_by(segmentation: dict) -> str:
 def _check_phases(pore: np.ndarray, solid: np.ndarray, sample_voxels: int, where: str,
                   segmentation: dict) -> list[str]:
     """Refuse a phase that is empty; return a note for a phase of almost no voxels."""
+    return _phase_notes(int(np.count_nonzero(pore)), int(np.count_nonzero(solid)),
+                        sample_voxels, pore.size, where, segmentation)
+
+
+def _phase_notes(pore_voxels: int, solid_voxels: int, sample_voxels: int, total: int,
+                 where: str, segmentation: dict) -> list[str]:
+    """:func:`_check_phases` from the voxel counts of each phase and of the scan."""
     chosen = _selected_by(segmentation)
-    pore_voxels = int(np.count_nonzero(pore))
-    solid_voxels = int(np.count_nonzero(solid))
-    sample = "sample" if sample_voxels < pore.size else "scan"
+    sample = "sample" if sample_voxels < total else "scan"
     if pore_voxels == 0:
         raise InputError(f"{chosen[0].upper() + chosen[1:]} selects no pore voxel in the "
                          f"{sample} {where}, so there is no pore space to measure; check the "
@@ -328,21 +337,29 @@ def _basin_features(depth: np.ndarray, phase: np.ndarray, neighbourhood: int, bi
     voxel_volume = float(np.prod(spacing))
     body_radius = -births
     centre = _coordinates(birth_voxel, shape, spacing)
-    extent = (np.asarray(shape) - 1) * np.asarray(spacing)
-    half = 0.5 * np.asarray(spacing)
-    # the inscribed ball must fit in the scan's box (outer voxel faces) to be trusted
-    room = np.minimum(centre + half, extent + half - centre).min(axis=1) if len(centre) \
-        else np.zeros(0)
-    if room_in_sample is not None and len(centre):
-        room = np.minimum(room, room_in_sample.ravel()[birth_voxel])
-    ball_out = room < body_radius
+    room_at = (None if room_in_sample is None or not len(centre)
+               else room_in_sample.ravel()[birth_voxel])
     return {
         "body_radius": body_radius,
         "centre": centre,
-        "border": touches[back] | ball_out,
+        "border": touches[back] | ball_outside(centre, body_radius, shape, spacing, room_at),
         "own_size": own[back] * voxel_volume,
         "basin_voxels": size[back],
     }
+
+
+def ball_outside(centre: np.ndarray, body_radius: np.ndarray, shape, spacing,
+                 room_in_sample=None) -> np.ndarray:
+    """True where the inscribed ball (``centre``, ``body_radius``) is not inside the scan's
+    box (its outer voxel faces) or, given ``room_in_sample`` (each centre's distance to the
+    nearest voxel outside the region of interest), not inside the sample."""
+    extent = (np.asarray(shape) - 1) * np.asarray(spacing)
+    half = 0.5 * np.asarray(spacing)
+    room = np.minimum(centre + half, extent + half - centre).min(axis=1) if len(centre) \
+        else np.zeros(0)
+    if room_in_sample is not None and len(centre):
+        room = np.minimum(room, room_in_sample)
+    return room < body_radius
 
 
 def _phase_table(pairs: pd.DataFrame, depth: np.ndarray, phase: np.ndarray, neighbourhood,
@@ -400,8 +417,15 @@ def _phase_table(pairs: pd.DataFrame, depth: np.ndarray, phase: np.ndarray, neig
     for k, a in enumerate(axes):
         table[f"{body}_voxel_{a}"] = birth_index[k].astype(np.int64)
     table["pair_row"] = pairs.index.to_numpy(dtype=np.int64)
-    frame = pd.DataFrame(table)
-    frame = frame.sort_values(f"{body}_radius", ascending=False, kind="stable")
+    return largest_first(pd.DataFrame(table), body, axes)
+
+
+def largest_first(frame: pd.DataFrame, body: str, axes) -> pd.DataFrame:
+    """The feature table with the largest body first, ties by the body voxel's position
+    (C order), so that the order is the same whichever engine made the diagram; ids
+    numbered in that order."""
+    keys = [f"{body}_radius"] + [f"{body}_voxel_{a}" for a in axes]
+    frame = frame.sort_values(keys, ascending=[False] + [True] * len(axes), kind="stable")
     frame["id"] = np.arange(1, len(frame) + 1)
     return frame.reset_index(drop=True)
 
@@ -578,15 +602,16 @@ def _sample_distance(scan: Scan, pore: np.ndarray, solid: np.ndarray) -> Scan:
     return scan.with_data(np.where(pore, -inside, outside), values="distance")
 
 
-def _voxel_size_notes(unit: str, chi_solid: int, solid_pieces: int, ndim: int) -> list[str]:
+def _voxel_size_notes(unit: str, chi_solid: int, solid_pieces: int | None, ndim: int) -> list[str]:
     notes = []
     if unit == "px":
         notes.append("No voxel size was given or found in the file: every length is in "
                      "voxels (px) and every density per voxel, not a physical quantity; "
                      "give the voxel size (CLI --spacing, --unit) for physical numbers.")
     if chi_solid > 1:
+        pieces = "several" if solid_pieces is None else solid_pieces
         notes.append(f"The connectivity density is negative because the solid is "
-                     f"{solid_pieces} separate pieces (Euler characteristic {chi_solid} > 1): "
+                     f"{pieces} separate pieces (Euler characteristic {chi_solid} > 1): "
                      f"(1 - chi) / V assumes one connected structure and then counts its "
                      f"loops per unit {'volume' if ndim == 3 else 'area'}.")
     return notes
@@ -748,7 +773,8 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
                                                                  where, segmentation)
     planned = _estimate_bytes(mask.shape, n_pore, engine)
     what = f"Pore analysis of the {'x'.join(map(str, mask.shape))} scan"
-    remedy = "crop it (--crop) or downsample it (--downsample) first"
+    remedy = ("crop it (--crop) or downsample it (--downsample) first, or measure it chunk by "
+              "chunk with --out-of-core (voxtopo.jobs.pores.pores_out_of_core)")
     ensure_fits(planned, what, remedy)
     timings["segmentation"] = time.perf_counter() - clock
     # an allocation that fails after the plan said it fits is still one sentence

@@ -45,8 +45,15 @@ def integral_mean_curvature(vertices: np.ndarray, faces: np.ndarray) -> float:
     The sign is taken from the faces' own orientation: with normals pointing out of the
     pore phase, an edge where the surface bends away from the normal side is convex (+).
     """
+    return float(np.sum(edge_curvature_terms(vertices, faces)[2]))
+
+
+def edge_curvature_terms(vertices: np.ndarray, faces: np.ndarray):
+    """(face_a, face_b, term) of every interior edge: its two faces and its share
+    ``length * dihedral angle / 2`` of the integral mean curvature."""
     if len(faces) == 0:
-        return 0.0
+        empty = np.zeros(0, np.int64)
+        return empty, empty, np.zeros(0)
     tri = vertices[faces]
     normals = np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0])
     lengths = np.linalg.norm(normals, axis=1)
@@ -74,7 +81,7 @@ def integral_mean_curvature(vertices: np.ndarray, faces: np.ndarray) -> float:
                                                                        edge_length, 1.0)[:, None])
     cosine = np.einsum("ij,ij->i", n_a, n_b)
     angle = np.arctan2(sine, cosine)
-    return float(0.5 * np.sum(edge_length * angle))
+    return face_a, face_b, 0.5 * edge_length * angle
 
 
 def faces_in_sample(vertices: np.ndarray, faces: np.ndarray, sample: np.ndarray,

@@ -144,6 +144,14 @@ _CAPTIONS = {"diagram.png": "Persistence diagram: each point is one feature, bor
 
 
 
+def column_sections(columns: dict) -> list[dict]:
+    """One report section per file of summary.json's ``columns`` (file -> column ->
+    unit): "Columns of X and their units"."""
+    return [{"title": f"Columns of {name} and their units",
+             "mapping": {c: u or "(no unit)" for c, u in units.items()}, "table": None}
+            for name, units in columns.items()]
+
+
 def _sections(summary: dict) -> list[dict]:
     """Sections for the keys the page does not lay out itself (other jobs' numbers)."""
     sections = []
@@ -151,10 +159,7 @@ def _sections(summary: dict) -> list[dict]:
         if key in _KNOWN_KEYS or value is None:   # no region of interest, say
             continue
         if key == "columns":                      # file -> column -> unit
-            for name, units in value.items():
-                sections.append({"title": f"Columns of {name} and their units",
-                                 "mapping": {c: u or "(no unit)" for c, u in units.items()},
-                                 "table": None})
+            sections += column_sections(value)
             continue
         title = key.replace("_", " ").capitalize()
         if isinstance(value, dict):
@@ -621,6 +626,7 @@ def write_comparison(comparison, out, *, force: bool = False, inputs=()) -> Path
                       features=comparison.features, members=Table.of(members), images=images,
                       test=test, no_test_reason=reason,
                       distances=Table.of(comparison.distance_table()), settings=settings,
-                      notes=comparison.notes)
+                      notes=comparison.notes,
+                      column_sections=column_sections(summary["columns"]))
         (tmp / "report.html").write_text(html, encoding="utf-8")
     return Path(out)

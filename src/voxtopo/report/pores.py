@@ -74,7 +74,10 @@ def _size_plot(plt, analysis, unit, background, ndim):
         pores, which = analysis.pores, "all pores (every pore touches the border)"
     body = pores["body_radius"].to_numpy(dtype=float)
     throat = pores["throat_radius"].to_numpy(dtype=float)
-    volume = pores[size_column(ndim)].to_numpy(dtype=float)
+    # out of core the basin sizes are not computed: the weighted panels say so instead
+    sized = size_column(ndim) in pores
+    volume = (pores[size_column(ndim)].to_numpy(dtype=float) if sized
+              else np.ones(len(pores)))
     has_throat = np.isfinite(throat)
     fig, ax = plt.subplots(2, 2, figsize=(10, 7.5))
     finite = np.concatenate([body, throat[has_throat]])
@@ -104,6 +107,12 @@ def _size_plot(plt, analysis, unit, background, ndim):
                  title=title, ylim=(0, 1.02))
     for axis in ax.ravel():
         axis.legend(frameon=False, fontsize=8)
+    if not sized:
+        for axis in (ax[0, 1], ax[1, 1]):
+            axis.clear()
+            axis.set_axis_off()
+            axis.text(0.5, 0.5, f"body {size_word}s are not computed out of core",
+                      ha="center", va="center", transform=axis.transAxes)
     fig.suptitle(f"Pore bodies and throats: {len(pores)} {which}; isolated pores have "
                  f"no throat")
     fig.tight_layout()

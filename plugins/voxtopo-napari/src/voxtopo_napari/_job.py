@@ -23,7 +23,9 @@ import numpy as np
 
 import voxtopo
 from voxtopo import jobs, porosity
+from voxtopo.diagram import AXES_3D
 from voxtopo.errors import InputError
+from voxtopo.filtration import grid_frame
 from voxtopo.jobs import analyse, pores
 from voxtopo.jobs.analyse import AUTO, AnalysisOptions, prepare
 from voxtopo.scan import Scan
@@ -100,10 +102,14 @@ def _pore_job(scan: Scan, options: AnalysisOptions, progress) -> pores.PoresResu
         engine=options.engine, boundary_tolerance=options.boundary_tolerance), progress)
 
 
-def _pore_details(analysis):
-    """The pore table keyed by the diagram row of each pore (``feature``)."""
+def _pore_details(analysis, diagram):
+    """The pore table keyed by the diagram row of each pore (``feature``), its body
+    positions put on the scan's grid like the diagram's (``diagram`` placed in the scan)."""
     details = analysis.pores.drop(columns=[c for c in analysis.pores.columns
                                            if c.startswith("body_voxel_")])
+    for a, shift in zip(AXES_3D[3 - diagram.ndim:], diagram.origin):
+        if f"body_{a}" in details.columns:
+            details[f"body_{a}"] = details[f"body_{a}"] + shift
     details = details.rename(columns={"id": "pore_id"})
     details.insert(0, "feature", analysis.pore_rows)
     return details
@@ -150,9 +156,11 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
         start = time.perf_counter()
         computed = _pore_job(scan, options, progress)
         analysis = computed.analysis
-        prepared, diagram, notes = analysis.distance, analysis.diagram, {}
+        prepared, notes = analysis.distance, {}
+        diagram = analysis.diagram.placed_in_scan(*grid_frame(scan.shape, options.crop,
+                                                              options.downsample))
         porosity_summary = analysis.summary
-        pore_details = _pore_details(analysis)
+        pore_details = _pore_details(analysis, diagram)
         shown_rows = {0: analysis.pore_rows}
         flag = "robust"
         thresholds = {d: porosity_summary["robustness"]["threshold"]
@@ -176,14 +184,13 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
             start = time.perf_counter()
             pore_pairs = diagram.dimension(0)
             regions = porosity.pore_regions(
-                prepared.data, pore_pairs.voxels("birth"),
+                prepared.data, pore_pairs.swept_voxels("birth"),
                 pore_pairs.pairs["death"].to_numpy(), diagram.neighbourhood,
                 progress=progress)
             timings["pore_regions"] = time.perf_counter() - start
 
     report("building the layers", 0.0)
-    placement = placement_of(scan.shape, scan.spacing, scan.unit, crop=options.crop,
-                             downsample=options.downsample, translate=translate)
+    placement = placement_of(diagram, translate=translate)
     # every tested pair becomes a point, so the panel's switch can show all of them
     shown = diagram if porosity_summary is not None else computed.verdict.tested
     layers = result_layers(shown, placement, name, mark_deaths=mark_deaths, regions=regions,

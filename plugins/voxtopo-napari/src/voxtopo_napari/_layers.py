@@ -15,7 +15,6 @@ import numpy as np
 import pandas as pd
 
 from voxtopo.diagram import AXES_3D
-from voxtopo.filtration import parse_box
 
 from ._lifetime_colours import (RAMP_STOPS, lifetime_colours, lifetime_fraction, lifetime_sizes,
                                 longest_finite)
@@ -47,34 +46,28 @@ class Placement:
     unit: str = "px"
 
 
-def placement_of(shape, spacing, unit="px", crop=None, downsample=1,
-                 translate=None) -> Placement:
-    """Placement of a grid analysed after an optional crop and block-mean downsampling.
+def placement_of(diagram, translate=None) -> Placement:
+    """Placement of the grid a diagram was swept on, in the world of the scan's layer.
 
-    ``shape``, ``spacing`` and ``translate`` describe the scan as it was loaded (or as
-    its layer shows it). A crop moves voxel 0 to the box's corner; a block of ``f``
-    voxels has its centre (f - 1) / 2 voxels in from its corner.
+    ``translate`` is the world position of the scan layer's voxel 0. The swept grid's
+    voxel 0 sits at the diagram's :attr:`~voxtopo.Diagram.origin` (a crop's corner, a
+    block's centre: the rule of the tables), so a point drawn on the swept grid lands
+    where pairs.csv places it.
     """
-    ndim = len(shape)
-    spacing = np.asarray(spacing, dtype=np.float64)
-    origin = np.zeros(ndim)
-    if crop:
-        box = parse_box(crop, ndim) if isinstance(crop, str) else crop
-        origin = np.array([b.indices(n)[0] for b, n in zip(box, shape)], dtype=np.float64)
-    factors = np.ones(ndim) * (downsample if np.isscalar(downsample) else np.asarray(downsample))
-    base = np.zeros(ndim) if translate is None else np.asarray(translate, dtype=np.float64)
-    corner = base + origin * spacing + (factors - 1) / 2 * spacing
-    return Placement(tuple(float(s) for s in spacing * factors),
-                     tuple(float(t) for t in corner), unit)
+    base = np.zeros(diagram.ndim) if translate is None else np.asarray(translate,
+                                                                        dtype=np.float64)
+    corner = base + np.asarray(diagram.origin)
+    return Placement(tuple(float(s) for s in diagram.spacing),
+                     tuple(float(t) for t in corner), diagram.unit)
 
 
 def features_table(diagram, dim: int, placement: Placement) -> pd.DataFrame:
     """The features of one dimension: the diagram's rows, physical positions and sizes.
 
     Columns: ``feature`` (row of the diagram), ``dim, birth, death, persistence``, the
-    positions ``birth_z .. death_x`` in ``placement.unit`` (world coordinates of the scan
-    as shown, so a crop's corner is added), the voxel indices ``birth_voxel_z ..
-    death_voxel_x`` of the analysed grid, ``span`` (the
+    positions ``birth_z .. death_x`` in ``placement.unit`` (the diagram's positions on the
+    scan's grid plus the layer's own offset: world coordinates of the scan as shown), the
+    voxel indices ``birth_voxel_z .. death_voxel_x`` on the scan's grid, ``span`` (the
     physical distance from the birth voxel to the death voxel, a rough size of the
     feature), and for pores of a distance transform ``body_radius`` (minus the birth: the
     radius of the largest ball inside the pore, as in pores.csv) and ``throat_radius`` (minus the death:
@@ -87,16 +80,13 @@ def features_table(diagram, dim: int, placement: Placement) -> pd.DataFrame:
     for column in rows.columns:
         table[column] = rows[column].to_numpy() if rows[column].dtype != "Int64" \
             else rows[column].array
-    scale = np.asarray(placement.scale)
-    corner = np.asarray(placement.translate)
-    births = rows[[f"birth_voxel_{a}" for a in axes]].to_numpy(dtype=np.float64,
-                                                               na_value=np.nan)
-    deaths = rows[[f"death_voxel_{a}" for a in axes]].to_numpy(dtype=np.float64,
-                                                               na_value=np.nan)
+    layer_corner = np.asarray(placement.translate) - np.asarray(diagram.origin)
+    births = rows[[f"birth_{a}" for a in axes]].to_numpy(dtype=np.float64, na_value=np.nan)
+    deaths = rows[[f"death_{a}" for a in axes]].to_numpy(dtype=np.float64, na_value=np.nan)
     for k, a in enumerate(axes):
-        table[f"birth_{a}"] = births[:, k] * scale[k] + corner[k]
-        table[f"death_{a}"] = deaths[:, k] * scale[k] + corner[k]
-    table["span"] = np.sqrt((((deaths - births) * scale) ** 2).sum(axis=1))
+        table[f"birth_{a}"] = births[:, k] + layer_corner[k]
+        table[f"death_{a}"] = deaths[:, k] + layer_corner[k]
+    table["span"] = np.sqrt(((deaths - births) ** 2).sum(axis=1))
     if diagram.values == "distance" and dim == 0:
         table["body_radius"] = -rows["birth"].to_numpy()
         death = rows["death"].to_numpy()
@@ -115,8 +105,10 @@ def _points(diagram, dim, which, placement, longest, result_name, pore_details=N
         extra = pore_details.drop(columns=[c for c in pore_details.columns
                                            if c in table.columns and c != "feature"])
         table = table.merge(extra, on="feature", how="left")
-    coords = table[[f"{which}_voxel_{a}" for a in axes]].to_numpy(dtype=np.float64,
-                                                                  na_value=np.nan)
+    # the layer is drawn on the swept grid (scale and translate of ``placement``)
+    at = diagram.pairs.index.get_indexer(table["feature"].to_numpy())
+    coords = diagram.swept_voxels(which)[at].astype(np.float64)
+    coords[coords < 0] = np.nan
     if which == "death":
         has_death = ~np.isnan(coords).any(axis=1)
         coords, table = coords[has_death], table[has_death].reset_index(drop=True)

@@ -138,11 +138,9 @@ def read_result_folder(path) -> list[tuple]:
     options = record.options
     scan_info = summary.get("scan", {})
     source = scan_info.get("source", "")
-    shape = tuple(scan_info.get("shape", diagram.shape))
     spacing = tuple(scan_info.get("spacing", diagram.spacing))
     unit = scan_info.get("unit", diagram.unit)
-    placement = placement_of(shape, spacing, unit, crop=options.crop,
-                             downsample=options.downsample)
+    placement = placement_of(diagram)
     layers, regions = [], None
     if source and Path(source).exists():
         scan = voxtopo.load(source, spacing=spacing, unit=unit)
@@ -152,7 +150,7 @@ def read_result_folder(path) -> list[tuple]:
         if options.distance:
             prepared, _ = prepare(scan, options)
             pores = diagram.dimension(0)
-            regions = porosity.pore_regions(prepared.data, pores.voxels("birth"),
+            regions = porosity.pore_regions(prepared.data, pores.swept_voxels("birth"),
                                             pores.pairs["death"].to_numpy(),
                                             diagram.neighbourhood)
     return layers + result_layers(diagram, placement, folder.name, mark_deaths=True,

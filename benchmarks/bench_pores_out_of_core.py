@@ -1,0 +1,167 @@
+"""Wall time, CPU time and per-worker peak memory of `voxtopo pores --out-of-core`.
+
+    PYTHONPATH=src .venv/bin/python benchmarks/bench_pores_out_of_core.py --size 512
+    PYTHONPATH=src .venv/bin/python benchmarks/bench_pores_out_of_core.py --size 2048 \\
+        --folder /big/disk --workers 2 --memory-per-worker 6e9
+
+The data: a uint8 OME-Zarr mask of sintered beads (radius 7 to 11 voxels, seeded, about 55 %
+solid), written chunk by chunk: every bead is listed first (a few floats each), then each
+chunk draws the beads that reach it, so no more than one chunk of voxels is ever in memory
+and nothing large is made before the run. The store, the result folder and the scratch
+folder all go inside --folder (default a new temporary folder, removed at the end unless
+--keep).
+
+The run: a local dask cluster of --workers processes (one thread each, --memory-per-worker
+bytes each, default an equal share of 80 % of the available memory), the whole out-of-core
+pores job (segmentation, separable EDT, chunked union-find sweeps, percolation along the
+three axes, local counts, result folder).
+
+Printed: the store's size and chunks; the planned memory of one task (checked before the
+run starts) beside each worker's measured peak resident memory (getrusage, which includes
+the interpreter and libraries, about 0.2-0.3 GB); wall time; CPU time of the workers and
+of this process; the seconds of each stage; the machine's load average before and after.
+
+A 2048^3 run (8.6e9 voxels) needs, before zarr's compression, about 16 bytes per voxel of
+scratch at its peak (two float32 distance transforms, each in the stores of two passes:
+137 GB), beside the 8.6 GB input store, the 8.6 GB phase store and 34 GB of signed distance;
+give --folder on a disk with that much room.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import resource
+import shutil
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+SEED = 20261203
+
+
+def bead_list(size: int, radius=(7.0, 11.0), solid_fraction=0.55, seed=SEED) -> np.ndarray:
+    """(n, 4) centres (z, y, x) and radii of overlapping beads filling about
+    ``solid_fraction`` of a ``size``^3 volume before overlaps (seeded)."""
+    rng = np.random.default_rng(seed)
+    mean_volume = 4 / 3 * np.pi * np.mean(radius) ** 3
+    count = int(solid_fraction * size ** 3 / mean_volume)
+    centres = rng.uniform(0, size, (count, 3))
+    radii = rng.uniform(*radius, count)
+    return np.column_stack([centres, radii])
+
+
+def write_store(path: Path, size: int, chunk: int, spacing_um: float = 2.0) -> Path:
+    """An OME-Zarr mask (1 = pore, uint8) of the bead packing, written chunk by chunk."""
+    import zarr
+    from scipy.spatial import cKDTree
+
+    beads = bead_list(size)
+    tree = cKDTree(beads[:, :3])
+    reach = float(beads[:, 3].max())
+    root = zarr.open_group(str(path), mode="w")
+    data = root.create_array("0", shape=(size,) * 3, chunks=(chunk,) * 3, dtype=np.uint8)
+    root.attrs["multiscales"] = [{
+        "version": "0.4",
+        "axes": [{"name": a, "type": "space", "unit": "micrometer"} for a in "zyx"],
+        "datasets": [{"path": "0", "coordinateTransformations":
+                      [{"type": "scale", "scale": [spacing_um] * 3}]}]}]
+    starts = range(0, size, chunk)
+    for z0 in starts:
+        for y0 in starts:
+            for x0 in starts:
+                lo = np.array([z0, y0, x0])
+                hi = np.minimum(lo + chunk, size)
+                middle = (lo + hi - 1) / 2
+                half = np.linalg.norm((hi - lo) / 2)
+                near = tree.query_ball_point(middle, half + reach)
+                solid = np.zeros(tuple(hi - lo), bool)
+                for z, y, x, r in beads[near]:
+                    # only the box of the bead within the chunk
+                    first = np.maximum(np.floor([z - r, y - r, x - r]).astype(int), lo)
+                    last = np.minimum(np.ceil([z + r, y + r, x + r]).astype(int) + 1, hi)
+                    if np.any(last <= first):
+                        continue
+                    grid = np.ogrid[tuple(slice(a, b) for a, b in zip(first, last))]
+                    inside = ((grid[0] - z) ** 2 + (grid[1] - y) ** 2 + (grid[2] - x) ** 2
+                              <= r * r)
+                    solid[tuple(slice(a - o, b - o) for a, b, o in zip(first, last, lo))] |= inside
+                data[z0:hi[0], y0:hi[1], x0:hi[2]] = (~solid).astype(np.uint8)
+    return path
+
+
+def _usage():
+    """(peak resident bytes, CPU seconds) of the calling process."""
+    usage = resource.getrusage(resource.RUSAGE_SELF)
+    return usage.ru_maxrss * 1024, usage.ru_utime + usage.ru_stime
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    parser.add_argument("--size", type=int, default=512, help="edge of the cube (voxels)")
+    parser.add_argument("--chunk", type=int, default=128, help="chunk edge (voxels)")
+    parser.add_argument("--workers", type=int, default=2)
+    parser.add_argument("--memory-per-worker", type=float, default=None,
+                        help="bytes (default an equal share of 80 %% of available memory)")
+    parser.add_argument("--folder", type=Path, default=None,
+                        help="where the store, the result and the scratch go")
+    parser.add_argument("--keep", action="store_true", help="keep the folder")
+    args = parser.parse_args(argv)
+
+    import dask
+    from distributed import Client, LocalCluster
+
+    from voxtopo.jobs import pores
+    from voxtopo.memory import available_bytes, human
+    from voxtopo.porosity._out_of_core import planned_bytes_per_task
+
+    folder = args.folder or Path(tempfile.mkdtemp(prefix="bench-ooc-pores-"))
+    folder.mkdir(parents=True, exist_ok=True)
+    shape, chunks = (args.size,) * 3, (args.chunk,) * 3
+    print(f"load average before: {os.getloadavg()}")
+    clock = time.perf_counter()
+    store = write_store(folder / "beads.ome.zarr", args.size, args.chunk)
+    print(f"store: {store} {args.size}^3 uint8 in {args.chunk}^3 chunks, written in "
+          f"{time.perf_counter() - clock:.1f} s")
+    share = int(args.memory_per_worker or 0.8 * available_bytes() / args.workers)
+    planned = planned_bytes_per_task(shape, chunks)
+    print(f"planned memory of one task: {human(planned)}; worker memory limit {human(share)}")
+    with dask.config.set({"distributed.worker.daemon": False}):
+        cluster = LocalCluster(n_workers=args.workers, threads_per_worker=1, processes=True,
+                               memory_limit=share, dashboard_address=None,
+                               local_directory=str(folder), silence_logs=40)
+    try:
+        with Client(cluster) as client:
+            before = client.run(_usage)
+            start_cpu = _usage()[1]
+            clock = time.perf_counter()
+            result = pores.pores_out_of_core(store, folder / "result", scheduler=client,
+                                             scratch=folder)
+            wall = time.perf_counter() - clock
+            after = client.run(_usage)
+    finally:
+        cluster.close()
+    worker_cpu = sum(after[w][1] - before[w][1] for w in after)
+    own_cpu = _usage()[1] - start_cpu
+    summary = result.analysis.summary
+    print(f"wall {wall:.1f} s; CPU {worker_cpu:.1f} s in the workers + {own_cpu:.1f} s here "
+          f"(CPU / wall = {(worker_cpu + own_cpu) / wall:.2f} on {os.cpu_count()} cores)")
+    for name, (peak, _) in sorted(after.items()):
+        print(f"worker {name}: peak resident {human(peak)} (planned per task {human(planned)}, "
+              f"ratio {peak / planned:.2f})")
+    print(f"this process: peak resident {human(_usage()[0])}")
+    print("stages (s):", json.dumps(summary["timings_seconds"]))
+    print(f"porosity {summary['porosity']:.4f}, pores {summary['counts']['pores']}, "
+          f"percolates {summary['percolates']}")
+    print(f"load average after: {os.getloadavg()}")
+    if not args.keep and args.folder is None:
+        shutil.rmtree(folder, ignore_errors=True)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,848 @@
+"""Pore analysis of a scan larger than memory: chunk by chunk, on a dask scheduler.
+
+:func:`analyse_chunked` gives the numbers of :func:`voxtopo.porosity.analyse` for a scan
+held in a chunked store, reading one block per task, and keeps its intermediate stores in a
+scratch folder. The stages, each a set of dask tasks over the store's chunks::
+
+    scan chunks --segment--> phase store (pore / solid / outside the sample, 1 byte)
+      --separable EDT, 3 passes--> signed distance store (float32)
+      --chunked union-find--> dimension-0 and (d-1) diagrams of the pore and solid sweeps,
+                              percolation per axis, border flags of pores and grains
+      --local counts--> Euler curves, Euler characteristics, Minkowski functionals
+
+Everything is exact and equal to the in-memory result where both fit:
+
+* the signed distance by the exact separable transform
+  (:mod:`voxtopo.porosity._chunked_edt`);
+* pores and grains from the chunked dimension-0 diagrams
+  (:func:`voxtopo.engine.chunked.chunked_persistence`), voids from the dual sweep;
+* percolation along an axis as the level at which two extra slices, one before the first
+  slice and one after the last, both below every value, meet in the sublevel sweep: the
+  younger of them dies exactly where the inlet and outlet faces first connect;
+* a pore's basin reaches the border of the scan (or the rim of the sample) before its
+  level exactly when, in the sweep with the border voxels joined to an eldest node
+  (:func:`voxtopo.engine.chunked.chunked_merges`), the pore dies below that level;
+* Euler characteristics and Minkowski functionals as sums of local terms
+  (:mod:`voxtopo.porosity._local_counts`);
+* Betti curves of all dimensions: b0 and b(d-1) from the chunked sweeps, the Euler
+  characteristic from local counts, and b1 = b0 + b2 - chi at each level by the
+  Euler-Poincare formula (Hatcher 2002) -- exact, not an estimate.
+
+* connected porosity and isolated pores from the connected pieces of each phase, labelled
+  chunk by chunk and joined across chunk faces (:mod:`voxtopo.porosity._chunked_pieces`).
+
+Not computed out of core (the summary says so): the dimension-1 pairs of a volume (loops)
+and each pore's and grain's basin volume; they need the whole volume in memory.
+"""
+
+from __future__ import annotations
+
+import time
+from contextlib import contextmanager
+from dataclasses import dataclass
+from itertools import product
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from .. import significance as sig
+from ..diagram import AXES_3D
+from ..engine import construction_of
+from ..engine.chunked import BYTES_PER_CHUNK_VOXEL, chunked_merges, chunked_persistence
+from ..errors import InputError, TooBigError, VoxtopoError
+from ..memory import BUDGET_FRACTION, ensure_fits, human
+from ..scan import Scan
+from . import _chunked_edt, _chunked_pieces, _local_counts
+from ._analysis import (COMPLEMENT, RESOLVED_RADIUS_VOXELS, SURFACE_SMOOTHING_VOXELS,
+                        PoreAnalysis, _axes, _check_extent, _coordinates, _flat, _loop_table,
+                        _phase_notes, _robust_counts, _rows_of_dimension, _void_table,
+                        _voxel_size_notes, _with_robust, ball_outside, cautions, largest_first,
+                        percolation_state)
+
+#: phase codes of the phase store: bit 0 is the segmented pore mask, bit 1 the sample
+OUTSIDE, OUTSIDE_PORE, SOLID, PORE = 0, 1, 2, 3
+
+#: Bytes per voxel of a local-count task: the block with its halo as read (float32 field,
+#: phase), the smoothed mask, cell windows and marching-cubes buffers.
+BYTES_PER_COUNT_VOXEL = 48
+
+#: Number of levels of the Betti curves.
+BETTI_LEVELS = 256
+
+#: What the out-of-core path does not compute, in the summary's words.
+NOT_COMPUTED = ("the dimension-1 pairs of a volume (loops) and the pores' and grains' basin "
+                "volumes need the whole volume in memory and are not computed out of core")
+
+
+class WorkerLost(TooBigError):
+    """A worker of the out-of-core run died (killed, or out of memory) and dask gave up."""
+
+
+# ------------------------------------------------------------------------ lazy arrays
+class _Box:
+    """Shape, chunks and box reading shared by the lazy views below."""
+
+    def __init__(self, shape, chunks, dtype):
+        self.shape = tuple(int(n) for n in shape)
+        self.chunks = tuple(int(c) for c in chunks)
+        self.dtype = np.dtype(dtype)
+
+    @property
+    def ndim(self) -> int:
+        return len(self.shape)
+
+
+class SweepField(_Box):
+    """The field a sweep runs on: the signed distance in the sample and ``outside`` beyond
+    it (read lazily from the distance and phase stores; picklable)."""
+
+    def __init__(self, distance, phase, outside: float | None):
+        super().__init__(distance.shape, distance.chunks, np.float32)
+        self.distance, self.phase, self.outside = distance, phase, outside
+
+    def __getitem__(self, index):
+        values = np.asarray(self.distance[index], dtype=np.float32)
+        if self.outside is None:
+            return values
+        phase = np.asarray(self.phase[index])
+        return np.where(phase & 2, values, np.float32(self.outside))
+
+
+class WithEndSlices(_Box):
+    """``array`` with one slice of ``value`` before the first and after the last slice
+    along ``axis`` (the inlet and outlet of a percolation sweep)."""
+
+    def __init__(self, array, axis: int, value: float):
+        shape = list(array.shape)
+        shape[axis] += 2
+        super().__init__(shape, array.chunks, array.dtype)
+        self.array, self.axis, self.value = array, axis, value
+
+    def __getitem__(self, index):
+        n = self.array.shape[self.axis]
+        part = index[self.axis]
+        start, stop = part.start, part.stop
+        inner = list(index)
+        inner[self.axis] = slice(max(start - 1, 0), min(stop - 1, n))
+        values = np.asarray(self.array[tuple(inner)])
+        before, after = int(start == 0), int(stop == n + 2)
+        pad = [(0, 0)] * len(self.shape)
+        pad[self.axis] = (before, after)
+        return np.pad(values, pad, constant_values=self.value)
+
+
+class Edge(_Box):
+    """True on the scan's outer layer and, with a region of interest, on its rim (sample
+    voxels with a face neighbour outside it): where a basin is cut by the field of view."""
+
+    def __init__(self, phase, with_sample: bool):
+        super().__init__(phase.shape, phase.chunks, bool)
+        self.phase, self.with_sample = phase, with_sample
+
+    def __getitem__(self, index):
+        from scipy import ndimage
+
+        lo = [s.start for s in index]
+        hi = [s.stop for s in index]
+        edge = np.zeros([b - a for a, b in zip(lo, hi)], bool)
+        for a in range(self.ndim):
+            take = [slice(None)] * self.ndim
+            if lo[a] == 0:
+                take[a] = 0
+                edge[tuple(take)] = True
+            if hi[a] == self.shape[a]:
+                take[a] = -1
+                edge[tuple(take)] = True
+        if self.with_sample:
+            first = [max(a - 1, 0) for a in lo]
+            last = [min(b + 1, n) for b, n in zip(hi, self.shape)]
+            sample = np.asarray(self.phase[tuple(slice(a, b) for a, b in zip(first, last))]) & 2
+            # beyond the scan's faces the erosion sees sample (border_value=1), as in memory
+            pad = [(int(a == 0), int(b == n)) for a, b, n in zip(lo, hi, self.shape)]
+            sample = np.pad(sample.astype(bool), pad, constant_values=True)
+            rim = sample & ~ndimage.binary_erosion(sample, border_value=1)
+            inner = tuple(slice(a - f + p[0], b - f + p[0])
+                          for a, b, f, p in zip(lo, hi, first, pad))
+            edge |= rim[inner]
+        return edge
+
+
+# -------------------------------------------------------------------------- the plan
+def blocks(shape, chunks):
+    """(lo, hi) of every chunk of the grid."""
+    for lo in product(*[range(0, n, c) for n, c in zip(shape, chunks)]):
+        yield lo, tuple(min(a + c, n) for a, c, n in zip(lo, chunks, shape))
+
+
+def _box(lo, hi):
+    return tuple(slice(int(a), int(b)) for a, b in zip(lo, hi))
+
+
+def planned_bytes_per_task(shape, chunks, transforms: int = 2) -> int:
+    """Memory one task of the out-of-core pore run may hold at a time: the largest of a
+    distance-transform pass (a line block whole along the longest axis), a union-find
+    chunk, and a local-count chunk with its halo."""
+    chunk = int(np.prod(chunks))
+    line = max(int(np.prod(chunks)) // c * n for c, n in zip(chunks, shape))
+    halo = int(np.prod([c + 2 * _local_counts.HALO for c in chunks]))
+    return max(line * _chunked_edt.BYTES_PER_PASS_VOXEL * transforms,
+               chunk * BYTES_PER_CHUNK_VOXEL, halo * BYTES_PER_COUNT_VOXEL)
+
+
+@dataclass
+class Segmentation:
+    """How the pores are chosen from the scan's values, for the summary and the tasks."""
+
+    method: str
+    pore_value: object = None      # "mask" or "label": pores equal this
+    threshold: float | None = None
+    pores_bright: bool = False
+
+    def pores(self, block: np.ndarray) -> np.ndarray:
+        if self.threshold is not None:
+            return block > self.threshold if self.pores_bright else block <= self.threshold
+        return block == self.pore_value
+
+    def as_summary(self) -> dict:
+        if self.method == "label":
+            return {"method": "label", "label": int(self.pore_value), "threshold": None}
+        if self.method == "given":
+            return {"method": "given", "threshold": float(self.threshold),
+                    "pores": "above the threshold" if self.pores_bright
+                    else "at or below the threshold"}
+        return {"method": "mask", "threshold": None}
+
+
+def _value_facts(array, lo, hi):
+    """What the segmentation needs to know of one chunk's values."""
+    block = np.asarray(array[_box(lo, hi)])
+    facts = {"finite": True, "only_0_1": True, "only_0_255": True, "has_1": False,
+             "values": np.zeros(0)}
+    if np.issubdtype(block.dtype, np.floating):
+        facts["finite"] = bool(np.isfinite(block).all())
+    if block.dtype != bool:
+        zero = block == 0
+        facts["only_0_1"] = bool(np.all(zero | (block == 1)))
+        facts["only_0_255"] = bool(np.all(zero | (block == 255)))
+        facts["has_1"] = bool((block == 1).any())
+        facts["values"] = np.unique(block[~zero & (block != 1)])[:3]
+    return facts
+
+
+def _phase_chunk(array, roi, segmentation, phase, lo, hi):
+    """Write one chunk of the phase store; return its voxel counts and which faces of the
+    scan its sample touches."""
+    box = _box(lo, hi)
+    pores = segmentation.pores(np.asarray(array[box]))
+    sample = (np.ones(pores.shape, bool) if roi is None
+              else np.asarray(roi[box]) == roi.foreground)
+    codes = (pores.astype(np.uint8) | (sample.astype(np.uint8) << 1))
+    phase[box] = codes
+    shape = phase.shape
+    faces = []
+    for a in range(len(shape)):
+        first = bool(lo[a] == 0 and np.take(sample, 0, axis=a).any())
+        last = bool(hi[a] == shape[a] and np.take(sample, -1, axis=a).any())
+        faces.append((first, last))
+    return (int(np.count_nonzero(codes == PORE)), int(np.count_nonzero(codes == SOLID)),
+            int(np.count_nonzero(sample)), faces)
+
+
+def _count_chunk(field, mask_and_sample, lo, hi, shape, spacing, levels, n_pore, n_solid,
+                 with_sample):
+    """Local counts of one chunk: the pore sweep's Euler histogram over ``levels``, the
+    Euler characteristics of the pore and solid phases, and the interface terms."""
+    halo = _local_counts.HALO
+    first = [max(a - halo, 0) for a in lo]
+    last = [min(b + halo, n) for b, n in zip(hi, shape)]
+    box = _box(first, last)
+    values = np.asarray(field[box])
+    codes = np.asarray(mask_and_sample[box])
+    pore_construction = construction_of(len(shape), n_pore)[1]
+    solid_construction = construction_of(len(shape), n_solid)[1]
+    curve = _local_counts.euler_histogram(values, first, lo, hi, shape, pore_construction,
+                                          levels)
+    zero = np.zeros(1)
+    chi_pore = int(_local_counts.euler_histogram(
+        np.where(codes == PORE, 0.0, 1.0), first, lo, hi, shape, pore_construction, zero)[0])
+    chi_solid = int(_local_counts.euler_histogram(
+        np.where(codes == SOLID, 0.0, 1.0), first, lo, hi, shape, solid_construction,
+        zero)[0])
+    soft = _local_counts.smoothed(codes & 1, first, shape, SURFACE_SMOOTHING_VOXELS)
+    area, curvature = _local_counts.interface_terms(
+        soft, first, lo, hi, shape, spacing, (codes & 2).astype(bool) if with_sample else None)
+    return curve, chi_pore, chi_solid, area, curvature
+
+
+# ------------------------------------------------------------------------ scheduling
+#: what dask.distributed raises when a task's worker died more often than it retries
+_WORKER_LOST = ("KilledWorker", "CommClosedError", "FutureCancelledError")
+
+
+@contextmanager
+def worker_losses_told(what: str):
+    """Turn a worker lost for good (dask first retries the tasks of a dead worker) into
+    one sentence."""
+    try:
+        yield
+    except VoxtopoError:
+        raise
+    except Exception as error:
+        name = type(error).__name__
+        if name not in _WORKER_LOST:
+            raise
+        raise WorkerLost(f"A worker of the out-of-core run died during {what} and dask gave "
+                         f"up after retrying ({name}); it may have run out of memory: give "
+                         f"each worker more memory or choose smaller chunks "
+                         f"(--chunks).") from None
+
+
+def compute_on(scheduler, what: str):
+    """A function running a list of dask delayed objects on ``scheduler``."""
+
+    def compute(tasks):
+        import dask
+
+        options = {} if scheduler is None else {"scheduler": scheduler}
+        with worker_losses_told(what):
+            return dask.compute(*tasks, **options)
+    return compute
+
+
+def _check_worker_memory(scheduler, planned: int, shape, chunks) -> None:
+    """Refuse a plan whose task would not fit the smallest worker of a distributed
+    scheduler (with the same margin as a run on this machine)."""
+    info = getattr(scheduler, "scheduler_info", None)
+    if info is None:
+        return
+    limits = [w.get("memory_limit") or 0 for w in info().get("workers", {}).values()]
+    limits = [limit for limit in limits if limit > 0]
+    if limits and planned > BUDGET_FRACTION * min(limits):
+        raise TooBigError(f"One task of the out-of-core pore analysis of the "
+                          f"{'x'.join(map(str, shape))} scan in {'x'.join(map(str, chunks))} "
+                          f"chunks would need about {human(planned)} but the smallest worker "
+                          f"has {human(min(limits))}; choose smaller chunks (--chunks).")
+
+
+# --------------------------------------------------------------------------- analyse
+def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool = False,
+                    label=None, roi=None, spacing=None, unit=None, axis=None,
+                    neighbourhood: int | None = None, min_persistence: float | None = None,
+                    boundary_tolerance: float | None = None, chunks=None, scheduler=None,
+                    progress=None) -> PoreAnalysis:
+    """Pore bodies, throats, grains, percolation and integral geometry, out of core.
+
+    The numbers of :func:`voxtopo.porosity.analyse` for a scan read one chunk at a time;
+    the options mean the same. See the module's docstring for how, and for what is not
+    computed out of core.
+
+    Parameters
+    ----------
+    array : array-like
+        Binary mask, label image or gray scan with ``shape``, ``dtype``, ``chunks`` and
+        slicing (:func:`voxtopo.io.open_chunked` opens a zarr / OME-Zarr store as one);
+        every worker reads it, so it must be picklable for a distributed scheduler.
+    scratch : Path
+        An empty folder for the intermediate stores; the caller removes it.
+    threshold : float, optional
+        A value (Otsu's method needs the whole histogram and is refused here).
+    roi : array-like, optional
+        The region of interest on the same grid (True or 1 marks the sample).
+    chunks : tuple of int, optional
+        Block shape of the tasks and of the intermediate stores (default the array's).
+    scheduler : optional
+        A dask.distributed Client, or a local scheduler name ("threads", "sync").
+    progress : callable(phase, fraction), optional
+
+    Returns
+    -------
+    PoreAnalysis
+        With ``betti_curves`` (columns ``level, betti_0, betti_1, (betti_2),
+        euler_characteristic``); ``mask`` is a lazy view of the segmented pores and
+        ``distance`` None.
+    """
+    import zarr
+
+    timings = {}
+    clock = time.perf_counter()
+    where = getattr(array, "source", "") or "array"
+    shape = tuple(int(n) for n in array.shape)
+    ndim = len(shape)
+    if ndim not in (2, 3):
+        raise InputError(f"The pore analysis takes a 2D image or 3D volume, got shape {shape} "
+                         f"from {where}.")
+    _check_extent(shape, where)
+    chunks = tuple(int(c) for c in (chunks or getattr(array, "chunks", None) or shape))
+    if len(chunks) != ndim or min(chunks) < 1:
+        raise InputError(f"Chunks should be one positive size per axis ({ndim}), got {chunks}.")
+    spacing = tuple(float(s) for s in (spacing or getattr(array, "spacing", None)
+                                        or (1.0,) * ndim))
+    unit = unit or getattr(array, "unit", "px")
+    n_pore, _ = construction_of(ndim, neighbourhood)
+    n_solid = COMPLEMENT[n_pore]
+    axes = _axes(axis, ndim)
+    if min_persistence is None:
+        min_persistence = 0.5 * min(spacing)
+    elif not (np.isfinite(min_persistence) and min_persistence >= 0):
+        raise InputError(f"min_persistence must be a length >= 0 in {unit}, got "
+                         f"{min_persistence}.")
+    placeholder = Scan(np.broadcast_to(np.zeros((), np.float32), shape), spacing=spacing,
+                       unit=unit, source=where)
+    delta = sig.boundary_tolerance_of(placeholder, boundary_tolerance)
+    robust_above = sig.robust_threshold(placeholder, delta)
+    planned = planned_bytes_per_task(shape, chunks, 3 if roi is not None else 2)
+    ensure_fits(planned, f"One task of the out-of-core pore analysis of the "
+                         f"{'x'.join(map(str, shape))} scan in {'x'.join(map(str, chunks))} "
+                         f"chunks", "choose smaller chunks (--chunks)")
+    _check_worker_memory(scheduler, planned, shape, chunks)
+    compute = compute_on(scheduler, "the pore analysis")
+
+    def step(name, fraction):
+        if progress is not None:
+            progress(name, fraction)
+
+    # ---- segmentation
+    step("segmentation", 0.0)
+    segmentation = _segmentation(array, where, chunks, shape, threshold, pores_bright,
+                                 label, compute)
+    if roi is not None:
+        roi = _roi_view(roi, shape, chunks, compute)
+    scratch = Path(scratch)
+    scratch.mkdir(parents=True, exist_ok=True)
+    phase = zarr.create_array(str(scratch / "phase.zarr"), shape=shape, chunks=chunks,
+                              dtype=np.uint8, fill_value=0)
+    import dask
+
+    phase_task = dask.delayed(_phase_chunk, pure=False)
+    counted = compute([phase_task(array, roi, segmentation, phase, lo, hi)
+                       for lo, hi in blocks(shape, chunks)])
+    pore_voxels = sum(c[0] for c in counted)
+    if roi is not None and sum(c[2] for c in counted) == 0:
+        raise InputError(f"The region of interest {roi.source} holds no voxel of the sample "
+                         f"(it is all 0); True or 1 marks the sample.")
+    solid_voxels = sum(c[1] for c in counted)
+    sample_voxels = sum(c[2] for c in counted)
+    faces_in_sample = [(any(c[3][a][0] for c in counted), any(c[3][a][1] for c in counted))
+                       for a in range(ndim)]
+    total = int(np.prod(shape))
+    notes = list(getattr(array, "notes", ())) + _phase_notes(
+        pore_voxels, solid_voxels, sample_voxels, total, where, segmentation.as_summary())
+    timings["segmentation"] = time.perf_counter() - clock
+
+    # ---- signed distance
+    clock = time.perf_counter()
+    features = {"to_solid": _chunked_edt.Feature((SOLID,)),
+                "to_pore": _chunked_edt.Feature((PORE,))}
+    if roi is not None:
+        features["to_outside"] = _chunked_edt.Feature((OUTSIDE, OUTSIDE_PORE))
+    squared = _chunked_edt.squared_distances(phase, features, spacing, scratch / "edt",
+                                             chunks=chunks, compute=compute, progress=step)
+    distance = zarr.create_array(str(scratch / "distance.zarr"), shape=shape, chunks=chunks,
+                                 dtype=np.float32, fill_value=0)
+    signed_task = dask.delayed(_signed_chunk, pure=False)
+    largest = max(compute([signed_task(phase, squared["to_solid"], squared["to_pore"],
+                                       distance, lo, hi) for lo, hi in blocks(shape, chunks)]))
+    timings["distance_transform"] = time.perf_counter() - clock
+
+    # ---- sweeps
+    clock = time.perf_counter()
+    step("pores and grains", 0.0)
+    outside_level = None if roi is None else float(largest) + 2 * max(spacing)
+    pore_field = SweepField(distance, phase, outside_level)
+    solid_field = SweepField(distance, phase, None if roi is None else -outside_level)
+    common = {"chunks": chunks, "spacing": spacing, "unit": unit, "scheduler": scheduler}
+    with worker_losses_told("the union-find sweeps"):
+        diagram = chunked_persistence(pore_field, neighbourhood=n_pore, **common)
+        step("pores and grains", 0.25)
+        solid_diagram = chunked_persistence(solid_field, superlevel=True,
+                                            neighbourhood=n_solid, **common)
+        step("pores and grains", 0.5)
+        edge = Edge(phase, roi is not None)
+        pore_edge = chunked_merges(pore_field, neighbourhood=n_pore, chunks=chunks, edge=edge,
+                                   scheduler=scheduler)
+        step("pores and grains", 0.75)
+        solid_edge = chunked_merges(solid_field, superlevel=True, neighbourhood=n_solid,
+                                    chunks=chunks, edge=edge, scheduler=scheduler)
+    if roi is not None:
+        diagram = diagram.without_outside(outside_level)
+        solid_diagram = solid_diagram.without_outside(-outside_level)
+    diagram = sig.robust_flags(diagram, delta)
+    solid_diagram = sig.robust_flags(solid_diagram, delta)
+    room = squared.get("to_outside")
+    pores = _feature_table(_rows_of_dimension(diagram, 0), pore_edge, False, min_persistence,
+                           ("body", "throat"), shape, spacing, room)
+    grains = _feature_table(_rows_of_dimension(solid_diagram, 0), solid_edge, True,
+                            min_persistence, ("body", "neck"), shape, spacing, room)
+    step("pores and grains", 0.9)
+    pore_pieces = _pieces(phase, edge, (PORE,), n_pore, pores, "body", shape, chunks, compute)
+    solid_pieces = _pieces(phase, edge, (SOLID,), n_solid, grains, "body", shape, chunks,
+                           compute)
+    pore_rows = pores.pop("pair_row").to_numpy()
+    grains.pop("pair_row")
+    loops = _loop_table(diagram, spacing, min_persistence)
+    voids = _void_table(solid_diagram, spacing, min_persistence)
+    pores, grains, loops, voids = (_with_robust(t, robust_above)
+                                   for t in (pores, grains, loops, voids))
+    timings["features"] = time.perf_counter() - clock
+
+    # ---- percolation
+    clock = time.perf_counter()
+    names = AXES_3D[3 - ndim:]
+    radius, critical, connected = {}, {}, {}
+    below_all = float(np.finfo(np.float32).min)
+    for k, a in enumerate(axes):
+        if all(faces_in_sample[a]):
+            with worker_losses_told("the union-find sweeps"):
+                radius[names[a]], critical[names[a]] = _percolation(
+                    pore_field, a, n_pore, chunks, spacing, below_all, scheduler)
+            through = pore_pieces.faces[:, a, 0] & pore_pieces.faces[:, a, 1]
+            connected[names[a]] = float(pore_pieces.sizes[through].sum() / sample_voxels)
+        else:
+            radius[names[a]], critical[names[a]], connected[names[a]] = None, None, None
+        step("percolation", (k + 1) / len(axes))
+    timings["percolation"] = time.perf_counter() - clock
+
+    # ---- local counts
+    clock = time.perf_counter()
+    step("integral geometry", 0.0)
+    levels = np.unique(np.append(diagram.level_grid(BETTI_LEVELS), 0.0))
+    count_task = dask.delayed(_count_chunk, pure=False)
+    parts = compute([count_task(pore_field, phase, lo, hi, shape, spacing, levels, n_pore,
+                                n_solid, roi is not None) for lo, hi in blocks(shape, chunks)])
+    chi_curve = np.cumsum(sum(p[0] for p in parts))
+    chi_pore = int(sum(p[1] for p in parts))
+    chi_solid = int(sum(p[2] for p in parts))
+    area = float(sum(p[3] for p in parts))
+    curvature = None if ndim == 2 else float(sum(p[4] for p in parts))
+    volume = sample_voxels * float(np.prod(spacing))
+    functionals = {"phase": "pore", "volume_fraction": float(pore_voxels / sample_voxels),
+                   "surface_area_density": area / volume,
+                   "mean_curvature_density": None if curvature is None else curvature / volume,
+                   "euler_density": chi_pore / volume}
+    betti_curves = betti_from_euler(diagram, levels, chi_curve)
+    timings["integral_geometry"] = time.perf_counter() - clock
+    step("integral geometry", 1.0)
+
+    finest = min(spacing)
+    unresolved = [a for a, r in radius.items() if percolation_state(r, finest) == "not resolved"]
+    if unresolved:
+        notes.append(f"Percolation along {', '.join(unresolved)} is not resolved: the "
+                     f"narrowest passage has a radius below {RESOLVED_RADIUS_VOXELS} voxels "
+                     f"({RESOLVED_RADIUS_VOXELS * finest:.4g} {unit}), one or two voxels "
+                     f"wide, so the scan cannot tell whether it is open.")
+    unmeasured = [a for a, r in radius.items() if r is None]
+    if unmeasured:
+        notes.append(f"Percolation along {', '.join(unmeasured)} is not measured: the "
+                     f"sample (region of interest) does not reach both faces of the scan "
+                     f"along that axis.")
+    notes += _voxel_size_notes(unit, chi_solid, len(solid_pieces.sizes), ndim)
+    notes.append(f"Computed out of core in {'x'.join(map(str, chunks))} chunks: "
+                 f"{NOT_COMPUTED}.")
+    density_unit = (f"1/voxel^{ndim} (no voxel size)" if unit == "px" else f"1/{unit}^{ndim}")
+    loops_known = ndim == 2
+    robust = _robust_counts(pores, grains, loops, voids)
+    if not loops_known:
+        robust["loops"] = None
+    summary = {
+        "porosity": float(pore_voxels / sample_voxels),
+        "connected_porosity": connected,
+        "percolates": {a: percolation_state(r, finest) for a, r in radius.items()},
+        "percolation_radius": {a: (r if r else None) for a, r in radius.items()},
+        "critical_throat": {a: (None if c is None else [float(v) for v in c])
+                            for a, c in critical.items()},
+        "euler_characteristic": {"pore": chi_pore, "solid": chi_solid,
+                                 "neighbourhood": {"pore": n_pore, "solid": n_solid}},
+        "connectivity_density": {"value": (1 - chi_solid) / volume, "phase": "solid",
+                                 "neighbourhood": n_solid, "unit": density_unit,
+                                 "solid_pieces": len(solid_pieces.sizes),
+                                 "formula": "(1 - euler_characteristic of the solid) / "
+                                            "sample volume (Odgaard & Gundersen 1993)"},
+        "minkowski": functionals,
+        "counts": {
+            "what": f"dimension-0 features (pores, grains) and pairs (loops, voids) of the "
+                    f"signed distance living longer than min_persistence = "
+                    f"{min_persistence:.4g} {unit}; loops and voids count the crossing "
+                    f"pairs (features of the segmented mask itself)"
+                    + ("" if loops_known else "; loops are not computed out of core (the "
+                                              "Betti curves give their number at each level)"),
+            "pores": len(pores), "pores_at_border": int(pores["border"].sum()),
+            "isolated_pores": int(pores["isolated"].sum()),
+            "grains": len(grains), "grains_at_border": int(grains["border"].sum()),
+            "loops": int((loops["kind"] == "crossing").sum()) if loops_known else None,
+            "voids": int((voids["kind"] == "crossing").sum()),
+            "loops_in_filtration": len(loops) if loops_known else None,
+            "voids_in_filtration": len(voids),
+            "robust": robust,
+        },
+        "robustness": {"method": sig.ROBUST_METHOD, "boundary_tolerance": delta,
+                       "unit": unit, "threshold": robust_above, "robust": robust,
+                       "essential_classes": "never die; always robust"},
+        "segmentation": segmentation.as_summary(),
+        "threshold": segmentation.as_summary().get("threshold"),
+        "threshold_method": segmentation.as_summary()["method"],
+        "region_of_interest": (None if roi is None else
+                               {"voxels": sample_voxels,
+                                "fraction_of_scan": sample_voxels / total}),
+        "unit": unit,
+        "voxel_size_known": unit != "px",
+        "spacing": list(spacing),
+        "shape": list(shape),
+        "sample_volume": volume,
+        "min_persistence": float(min_persistence),
+        "radius_convention": "distances between voxel centres (pore voxel to nearest solid "
+                             "voxel centre); no half-voxel correction; good to about one "
+                             "voxel",
+        "out_of_core": {"chunks": list(chunks), "planned_bytes_per_task": planned,
+                        "not_computed": NOT_COMPUTED,
+                        "betti_curves": "b0 and b(d-1) from the chunked sweeps, the Euler "
+                                        "characteristic from local counts, b1 = b0 + b2 - "
+                                        "chi (Euler-Poincare): exact at every level"},
+        "timings_seconds": {k: round(v, 4) for k, v in timings.items()},
+        "notes": notes,
+        "cautions": cautions(spacing, unit),
+    }
+    return PoreAnalysis(pores=pores, grains=grains, loops=loops, voids=voids, summary=summary,
+                        diagram=diagram, solid_diagram=solid_diagram,
+                        mask=MaskView(phase), distance=None, critical_throats=critical,
+                        sample=None, pore_rows=pore_rows, betti_curves=betti_curves)
+
+
+class MaskView(_Box):
+    """The segmented pore mask, read lazily from the phase store (for slice plots)."""
+
+    def __init__(self, phase):
+        super().__init__(phase.shape, phase.chunks, bool)
+        self.phase = phase
+
+    def __getitem__(self, index):
+        return (np.asarray(self.phase[index]) & 1).astype(bool)
+
+    def __array__(self, dtype=None, copy=None):
+        whole = self[tuple(slice(None) for _ in self.shape)]
+        return whole if dtype is None else whole.astype(dtype)
+
+
+def _signed_chunk(phase, to_solid, to_pore, distance, lo, hi):
+    """-d in the pores, +d elsewhere (d to the nearest voxel of the other phase); returns
+    the largest |d| of the chunk."""
+    box = _box(lo, hi)
+    codes = np.asarray(phase[box])
+    inside = np.sqrt(np.asarray(to_solid[box]))
+    outside = np.sqrt(np.asarray(to_pore[box]))
+    signed = np.where(codes == PORE, -inside, outside).astype(np.float32)
+    distance[box] = signed
+    finite = np.abs(signed[np.isfinite(signed)])
+    return float(finite.max()) if finite.size else 0.0
+
+
+def _percolation(field, axis, neighbourhood, chunks, spacing, below_all, scheduler):
+    """(radius, critical voxel position) along ``axis``: where the younger of the two end
+    slices dies in the sublevel sweep; (0.0, None) when the faces never join in the pores."""
+    padded = WithEndSlices(field, axis, below_all)
+    merges = chunked_merges(padded, neighbourhood=neighbourhood, chunks=chunks,
+                            scheduler=scheduler)
+    shape3 = (1,) * (3 - field.ndim) + padded.shape
+    outlet = [0, 0, 0]
+    outlet[3 - field.ndim + axis] = shape3[3 - field.ndim + axis] - 1
+    outlet_id = int(np.ravel_multi_index(outlet, shape3))
+    which = np.flatnonzero(merges.young_id == outlet_id)
+    if len(which) == 0 or merges.voxel_value[which[0]] >= 0:
+        return 0.0, None
+    level = float(merges.voxel_value[which[0]])
+    voxel = np.array(np.unravel_index(int(merges.voxel_id[which[0]]), shape3))[3 - field.ndim:]
+    voxel[axis] -= 1
+    return -level, voxel.astype(np.float64) * np.asarray(spacing)
+
+
+def _feature_table(pairs: pd.DataFrame, edge_merges, flip: bool, min_persistence: float,
+                   names, shape, spacing, room) -> pd.DataFrame:
+    """The pore (or, with ``flip``, grain) table of :func:`voxtopo.porosity.analyse` from a
+    chunked dimension-0 diagram, without the basin volume (and, until
+    :func:`_pieces` adds it, the isolated flag)."""
+    ndim = len(shape)
+    axes = AXES_3D[3 - ndim:]
+    body, neck = names
+    births = pairs["birth"].to_numpy(dtype=np.float64)
+    deaths = pairs["death"].to_numpy(dtype=np.float64)
+    if flip:
+        births, deaths = -births, -deaths
+    keep = (births < 0) & (np.minimum(deaths, 0.0) - births > min_persistence)
+    pairs, births, deaths = pairs[keep], births[keep], deaths[keep]
+    birth_voxel = _flat(pairs, "birth", shape)
+    death_voxel = _flat(pairs, "death", shape)
+    level = np.minimum(deaths, 0.0)
+    # the sweep with the border as eldest node: the feature meets the border below its level
+    order = np.argsort(edge_merges.young_id)
+    known = edge_merges.young_id[order]
+    met = edge_merges.voxel_value[order] * (-1.0 if flip else 1.0)
+    # not listed: it met the border as it was born (its first voxel is on the border)
+    met_level = np.full(len(birth_voxel), -np.inf)
+    if len(known):
+        at = np.minimum(np.searchsorted(known, birth_voxel), len(known) - 1)
+        listed = known[at] == birth_voxel
+        met_level[listed] = met[at[listed]]
+    touches = met_level < level
+    body_radius = -births
+    centre = _coordinates(birth_voxel, shape, spacing)
+    room_at = None
+    if room is not None and len(birth_voxel):
+        index = tuple(np.unravel_index(birth_voxel, shape))
+        room_at = np.sqrt(np.asarray(room.get_coordinate_selection(index), dtype=np.float64))
+    border = touches | ball_outside(centre, body_radius, shape, spacing, room_at)
+    joined = deaths < 0
+    neck_at = _coordinates(np.where(joined, death_voxel, -1), shape, spacing)
+    table = {"id": np.arange(1, len(births) + 1), f"{body}_radius": body_radius}
+    for k, a in enumerate(axes):
+        table[f"{body}_{a}"] = centre[:, k]
+    table[f"{neck}_radius"] = np.where(joined, -deaths, np.nan)
+    for k, a in enumerate(axes):
+        table[f"{neck}_{a}"] = neck_at[:, k]
+    table["border"] = border.astype(bool)
+    table["lifetime"] = deaths - births
+    birth_index = np.unravel_index(np.maximum(birth_voxel, 0), shape)
+    for k, a in enumerate(axes):
+        table[f"{body}_voxel_{a}"] = birth_index[k].astype(np.int64)
+    table["pair_row"] = pairs.index.to_numpy(dtype=np.int64)
+    return largest_first(pd.DataFrame(table), body, axes)
+
+
+def _pieces(phase, edge, codes, neighbourhood, table, body, shape, chunks, compute):
+    """The connected pieces of a phase, chunk by chunk; adds the column ``isolated`` to
+    ``table`` (after ``lifetime``): the feature's piece holds no other feature of the table
+    and reaches no edge, as in memory."""
+    import dask
+
+    ndim = len(shape)
+    axes = AXES_3D[3 - ndim:]
+    voxel = table[[f"{body}_voxel_{a}" for a in axes]].to_numpy(dtype=np.int64)
+    block = voxel // np.asarray(chunks)
+    starts = block * np.asarray(chunks)
+    queries = {}
+    for row, (start, index) in enumerate(zip(map(tuple, starts), voxel)):
+        hi = tuple(min(s + c, n) for s, c, n in zip(start, chunks, shape))
+        local = int(np.ravel_multi_index(tuple(index - np.asarray(start)),
+                                         tuple(h - s for s, h in zip(start, hi))))
+        queries.setdefault(start, ([], []))
+        queries[start][0].append(row)
+        queries[start][1].append(local)
+    full = neighbourhood in (26, 8)
+    task = dask.delayed(_chunked_pieces.label_chunk, pure=False)
+    boxes = list(blocks(shape, chunks))
+    parts = compute([task(phase, edge, codes, full, lo, hi, queries.get(lo, ([], []))[1])
+                     for lo, hi in boxes])
+    pieces = _chunked_pieces.join(list(parts), shape, full)
+    piece = np.full(len(table), -1, np.int64)
+    for (lo, _), found in zip(boxes, pieces.piece_of_query):
+        if lo in queries:
+            piece[queries[lo][0]] = found
+    features_in_piece = np.bincount(piece[piece >= 0], minlength=len(pieces.sizes))
+    isolated = np.zeros(len(table), bool)
+    inside = piece >= 0
+    isolated[inside] = ((features_in_piece[piece[inside]] == 1)
+                        & ~pieces.at_edge[piece[inside]])
+    table.insert(table.columns.get_loc("lifetime") + 1, "isolated", isolated)
+    return pieces
+
+
+def betti_from_euler(diagram, levels, chi_curve) -> pd.DataFrame:
+    """Betti curves of the pore sweep: b0 and b(d-1) from the diagram, the Euler
+    characteristic from local counts, and b1 = b0 + b2 - chi (3D) or b0 - chi (2D) by the
+    Euler-Poincare formula chi = b0 - b1 + b2 (Hatcher 2002), exact at every level."""
+    ndim = diagram.ndim
+    known = diagram.betti_curve(levels)
+    b0 = known["betti_0"].to_numpy()
+    top = known[f"betti_{ndim - 1}"].to_numpy() if ndim == 3 else np.zeros_like(b0)
+    chi = np.asarray(chi_curve, dtype=np.int64)
+    curves = {"level": np.asarray(levels, dtype=np.float64), "betti_0": b0,
+              "betti_1": b0 + top - chi}
+    if ndim == 3:
+        curves["betti_2"] = top
+    curves["euler_characteristic"] = chi
+    return pd.DataFrame(curves)
+
+
+# ------------------------------------------------------------------- segmentation
+def _segmentation(array, where, chunks, shape, threshold, pores_bright, label, compute):
+    """Decide how pores are chosen, checking the values chunk by chunk as
+    :func:`voxtopo.porosity._analysis.pore_mask` checks them in memory."""
+    import dask
+
+    dtype = np.dtype(array.dtype)
+    if threshold is not None and label is not None:
+        raise InputError(f"Give either a threshold or a pore label for {where}, not both "
+                         f"(got threshold={threshold!r}, label={label!r}).")
+    if pores_bright and threshold is None:
+        raise InputError(f"pores_bright (CLI --pores-bright) only says which side of a "
+                         f"threshold the pores are on, and no threshold was given for "
+                         f"{where}; add a threshold or leave it out.")
+    if isinstance(threshold, str):
+        raise InputError(f"The out-of-core path takes a threshold value, not {threshold!r}: "
+                         f"Otsu's method needs the whole histogram; give a number, or drop "
+                         f"--out-of-core.")
+    if label is not None and not (np.issubdtype(dtype, np.integer) or dtype == bool):
+        raise InputError(f"A pore label picks voxels of a label image, but the input "
+                         f"{where} holds {dtype} values; give an integer label image or a "
+                         f"threshold.")
+    task = dask.delayed(_value_facts, pure=False)
+    facts = compute([task(array, lo, hi) for lo, hi in blocks(shape, chunks)])
+    if not all(f["finite"] for f in facts):
+        raise InputError(f"{where} has NaN or infinite voxels; fill them "
+                         f"(voxtopo.filtration.fill_invalid or --fill-invalid) or crop them "
+                         f"away.")
+    foreground = _foreground(dtype, facts)
+    if label is not None:
+        return Segmentation("label", pore_value=label)
+    if threshold is not None:
+        if foreground is not None:
+            raise InputError(f"The input {where} is already a binary mask (two values only), "
+                             f"where a threshold could only swap or keep its phases; leave "
+                             f"out the threshold: its True (1) voxels are the pores.")
+        return Segmentation("given", threshold=float(threshold), pores_bright=pores_bright)
+    if foreground is None:
+        examples = sorted({v for f in facts for v in np.asarray(f["values"]).tolist()})[:3]
+        raise InputError(
+            f"The input {where} is not a binary mask (it holds values such as {examples}); "
+            f"give a threshold (a value, CLI --threshold) or the pore label of a label image "
+            f"(CLI --label).")
+    return Segmentation("mask", pore_value=foreground)
+
+
+def _foreground(dtype, facts):
+    """The value marking the foreground of a binary mask, as
+    :func:`voxtopo.porosity._analysis._binary_foreground` decides it, or None."""
+    if dtype == bool:
+        return True
+    if not (np.issubdtype(dtype, np.integer) or np.issubdtype(dtype, np.floating)):
+        return None
+    if dtype == np.uint8 and not any(f["has_1"] for f in facts):
+        return 255 if all(f["only_0_255"] for f in facts) else None
+    return 1 if all(f["only_0_1"] for f in facts) else None
+
+
+class _Roi(_Box):
+    """A region of interest on the scan's grid, with the value marking the sample."""
+
+    def __init__(self, array, foreground, chunks):
+        super().__init__(array.shape, chunks, array.dtype)
+        self.array, self.foreground = array, foreground
+        self.source = getattr(array, "source", "") or "the region of interest"
+
+    def __getitem__(self, index):
+        return np.asarray(self.array[index])
+
+
+def _roi_view(roi, shape, chunks, compute):
+    import dask
+
+    named = getattr(roi, "source", "") or "the region of interest"
+    if tuple(roi.shape) != tuple(shape):
+        raise InputError(f"The region of interest {named} has shape {tuple(roi.shape)} but "
+                         f"the scan has shape {tuple(shape)}; give a mask of the same grid.")
+    task = dask.delayed(_value_facts, pure=False)
+    facts = compute([task(roi, lo, hi) for lo, hi in blocks(shape, chunks)])
+    foreground = _foreground(np.dtype(roi.dtype), facts)
+    if foreground is None:
+        raise InputError(f"The region of interest {named} is not a binary mask (True or 1 "
+                         f"marks the sample); threshold it first.")
+    return _Roi(roi, foreground, chunks)

@@ -1,0 +1,288 @@
+"""Out-of-core pores: the chunked run gives the in-memory numbers, checked against scipy,
+scikit-image and gudhi where those give the quantity directly."""
+
+import json
+import os
+
+import gudhi
+import numpy as np
+import pandas as pd
+import pytest
+import tifffile
+import zarr
+from scipy import ndimage
+from skimage.measure import euler_number
+
+from voxtopo.errors import TooBigError
+from voxtopo.jobs import pores as pores_job
+from voxtopo.porosity import analyse, analyse_chunked
+from voxtopo.porosity._chunked_edt import Feature, squared_distances
+from voxtopo.porosity._out_of_core import compute_on
+
+
+def _blobs(shape, seed, sigma=2.0, level=0.0):
+    """A random two-phase structure: smoothed noise below ``level`` is pore."""
+    rng = np.random.default_rng(seed)
+    return ndimage.gaussian_filter(rng.standard_normal(shape), sigma) < level
+
+
+def _with_cavity(mask, centre, radius):
+    """``mask`` with a ball of pore: a pore wider than the chunks."""
+    grid = np.indices(mask.shape)
+    inside = sum((g - c) ** 2 for g, c in zip(grid, centre)) <= radius ** 2
+    return mask | inside
+
+
+def _same_table(memory, chunked, any_order=False, rtol=1e-6):
+    columns = [c for c in chunked.columns if c in memory.columns]
+    memory, chunked = memory[columns], chunked[columns]
+    if any_order:  # rows of equal lifetime come in the diagram's order, not a fixed one
+        memory, chunked = (t.sort_values(columns[1:]) for t in (memory, chunked))
+        memory, chunked = (t.drop(columns="id") for t in (memory, chunked))
+    pd.testing.assert_frame_equal(memory.reset_index(drop=True), chunked.reset_index(drop=True),
+                                  check_dtype=False, rtol=rtol)
+
+
+def _gudhi_betti(field, levels, construction):
+    """Reference: gudhi (Maria, Boissonnat, Glisse & Yvinec 2014, "The Gudhi Library:
+    Simplicial Complexes and Persistent Homology", ICMS), CubicalComplex of the sublevel
+    filtration: Betti k at t counts the intervals with birth <= t < death."""
+    key = "top_dimensional_cells" if construction == "voxel" else "vertices"
+    cc = gudhi.CubicalComplex(**{key: field.astype(np.float64)})
+    cc.compute_persistence()
+    out = []
+    for k in range(field.ndim):
+        bars = cc.persistence_intervals_in_dimension(k)
+        out.append([int(np.count_nonzero((bars[:, 0] <= t) & (t < bars[:, 1])))
+                    for t in levels])
+    return out
+
+
+CASES = [
+    # (shape, chunks, neighbourhood, cavity): chunks smaller than the largest pore, odd
+    # shapes, chunks whole along an axis, both neighbourhoods, 2D and 3D
+    ((16, 17, 15), (6, 6, 6), None, ((8, 8, 7), 5)),
+    ((13, 11, 17), (13, 4, 5), 6, ((6, 5, 8), 4)),
+    ((41, 37), (9, 11), None, ((20, 18), 7)),
+    ((33, 29), (33, 7), 4, ((16, 14), 6)),
+]
+
+
+@pytest.mark.parametrize("shape, chunks, neighbourhood, cavity", CASES)
+def test_out_of_core_pores_equal_in_memory_pores(tmp_path, shape, chunks, neighbourhood,
+                                                 cavity):
+    mask = _with_cavity(_blobs(shape, seed=len(shape) + chunks[0]), *cavity)
+    memory = analyse(mask, spacing=(2.0,) * len(shape), unit="um", neighbourhood=neighbourhood)
+    chunked = analyse_chunked(mask, chunks=chunks, spacing=(2.0,) * len(shape), unit="um",
+                              neighbourhood=neighbourhood, scratch=tmp_path, scheduler="sync")
+    assert 2 * chunked.pores["body_radius"].max() > 2.0 * min(chunks)
+    a, b = memory.summary, chunked.summary
+    for key in ("porosity", "percolates", "critical_throat", "euler_characteristic",
+                "connected_porosity"):
+        assert a[key] == b[key], key
+    assert b["connectivity_density"]["solid_pieces"] == a["connectivity_density"]["solid_pieces"]
+    for axis, radius in a["percolation_radius"].items():
+        assert b["percolation_radius"][axis] == (None if radius is None
+                                                 else pytest.approx(radius, rel=1e-6))
+    assert b["connectivity_density"]["value"] == a["connectivity_density"]["value"]
+    for key, value in a["minkowski"].items():
+        assert b["minkowski"][key] == (value if not isinstance(value, float)
+                                       else pytest.approx(value, rel=1e-6)), key
+    for key in ("pores", "pores_at_border", "isolated_pores", "grains", "grains_at_border",
+                "voids"):
+        assert a["counts"][key] == b["counts"][key], key
+    _same_table(memory.pores, chunked.pores)
+    _same_table(memory.grains, chunked.grains)
+    _same_table(memory.voids, chunked.voids)
+    if len(shape) == 2:
+        _same_table(memory.loops, chunked.loops, any_order=True)
+    # porosity is the pore voxel fraction (common practice, no source)
+    assert b["porosity"] == pytest.approx(mask.mean(), abs=1e-12)
+    # Euler characteristic of the pore phase with the matching neighbourhood: scikit-image
+    # (Ohser, Nagel & Schladitz 2002)
+    full = neighbourhood in (None, 26, 8)
+    assert b["euler_characteristic"]["pore"] == euler_number(mask, len(shape) if full else 1)
+
+
+def test_out_of_core_pores_with_a_region_of_interest_equal_in_memory(tmp_path):
+    mask = _with_cavity(_blobs((14, 13, 12), seed=7), (7, 6, 6), 3)
+    grid = np.indices(mask.shape)
+    roi = ((grid[1] - 6) ** 2 + (grid[2] - 6) ** 2) <= 30          # a cylinder along z
+    memory = analyse(mask, roi=roi)
+    chunked = analyse_chunked(mask, roi=roi, chunks=(7, 7, 6), scratch=tmp_path,
+                              scheduler="sync")
+    for key in ("porosity", "percolates", "critical_throat", "euler_characteristic",
+                "region_of_interest", "connected_porosity"):
+        assert memory.summary[key] == chunked.summary[key], key
+    assert chunked.summary["minkowski"]["surface_area_density"] == pytest.approx(
+        memory.summary["minkowski"]["surface_area_density"], rel=1e-6)
+    _same_table(memory.pores, chunked.pores)
+    _same_table(memory.grains, chunked.grains)
+    # the sample's porosity counts only the sample (common practice, no source)
+    assert chunked.summary["porosity"] == pytest.approx(mask[roi].mean(), abs=1e-12)
+
+
+@pytest.mark.parametrize("shape, chunks, spacing", [((14, 19, 12), (5, 7, 4), (1.0, 0.7, 1.3)),
+                                                    ((27, 22), (8, 5), (0.6, 1.1))])
+def test_chunked_edt_equals_scipy_on_random_masks_with_anisotropic_spacing(tmp_path, shape,
+                                                                         chunks, spacing):
+    """Reference: scipy.ndimage.distance_transform_edt with ``sampling=``."""
+    rng = np.random.default_rng(5)
+    codes = (rng.random(shape) < 0.15).astype(np.uint8)
+    stores = squared_distances(codes, {"to_one": Feature((1,)), "to_zero": Feature((0,))},
+                               spacing, tmp_path, chunks=chunks,
+                               compute=compute_on("sync", "a test"))
+    for name, feature in (("to_one", codes == 1), ("to_zero", codes == 0)):
+        expected = ndimage.distance_transform_edt(~feature, sampling=spacing)
+        got = np.sqrt(stores[name][...].astype(np.float64))
+        np.testing.assert_allclose(got, expected, rtol=2e-7, atol=1e-6)
+
+
+@pytest.mark.parametrize("neighbourhood", [26, 6])
+def test_betti_curves_from_euler_characteristic_equal_the_diagrams_and_gudhi(tmp_path,
+                                                                            neighbourhood):
+    """b1 = b0 + b2 - chi (Euler-Poincare, Hatcher 2002) at every level, with b0 and b2
+    from the chunked sweeps, equals the in-memory diagram's Betti curves and gudhi's."""
+    mask = _blobs((13, 12, 12), seed=11, sigma=1.5)
+    chunked = analyse_chunked(mask, chunks=(7, 6, 6), neighbourhood=neighbourhood,
+                              scratch=tmp_path, scheduler="sync")
+    field = np.where(mask, -ndimage.distance_transform_edt(mask),
+                     ndimage.distance_transform_edt(~mask))
+    # the chunked distances are float32, the in-memory ones float64: compare at the levels
+    # of the grid that no distance value rounds across
+    values = np.unique(field)
+    levels = chunked.betti_curves["level"].to_numpy()
+    gap = np.abs(levels[:, None] - values[None, :]).min(axis=1)
+    curves = chunked.betti_curves[gap > 1e-5]
+    levels = curves["level"].to_numpy()
+    assert len(levels) > 200
+    memory = analyse(mask, neighbourhood=neighbourhood).diagram.betti_curve(levels)
+    reference = _gudhi_betti(field, levels, "voxel" if neighbourhood == 26 else "vertex")
+    for k in range(3):
+        np.testing.assert_array_equal(curves[f"betti_{k}"].to_numpy(),
+                                      memory[f"betti_{k}"].to_numpy())
+        np.testing.assert_array_equal(curves[f"betti_{k}"].to_numpy(), reference[k])
+    assert curves["betti_1"].max() > 0       # the check sees loops, not only zeros
+
+
+def test_in_memory_refusal_names_the_out_of_core_path(monkeypatch):
+    monkeypatch.setenv("VOXTOPO_MEMORY_LIMIT", "2e6")
+    with pytest.raises(TooBigError, match="--out-of-core"):
+        analyse(_blobs((48, 48, 48), seed=1))
+
+
+def test_a_worker_that_dies_gives_one_sentence_and_writes_nothing(tmp_path):
+    import dask
+    from distributed import Client, LocalCluster
+
+    mask = _blobs((12, 12), seed=2)
+
+    class DiesOnWorker:
+        """The scan as an array whose reading kills any dask worker that reads it."""
+
+        shape, dtype, chunks = mask.shape, mask.dtype, (6, 6)
+
+        def __getitem__(self, index):
+            from distributed import get_worker
+            try:
+                get_worker()
+            except ValueError:
+                return mask[index]
+            os._exit(1)
+
+    with dask.config.set({"distributed.scheduler.allowed-failures": 0}):
+        cluster = LocalCluster(n_workers=1, threads_per_worker=1, processes=True,
+                               host="127.0.0.1", dashboard_address=None, silence_logs=50)
+    try:
+        with Client(cluster) as client, pytest.raises(
+                TooBigError, match="A worker of the out-of-core run died") as err:
+            pores_job.pores_out_of_core(DiesOnWorker(), tmp_path / "out",
+                                        pores_job.PoresOptions(out_of_core=True),
+                                        scratch=tmp_path / "scratch", scheduler=client)
+    finally:
+        cluster.close()
+    assert str(err.value).count(". ") == 0 and "\n" not in str(err.value)
+    assert not (tmp_path / "out").exists()
+    assert list((tmp_path / "scratch").iterdir()) == []
+    assert not any(p.name.startswith(".out.") for p in tmp_path.iterdir())
+
+
+@pytest.mark.parametrize("extra, words", [
+    (["--out-of-core", "--engine", "gudhi"], "--engine gudhi picks an in-memory engine"),
+    (["--chunks", "4,4"], "--chunks sets the block shape"),
+    (["--scheduler", "tcp://127.0.0.1:1"], "--scheduler is for the out-of-core path"),
+    (["--out-of-core", "--threshold", "otsu"], "Otsu's threshold needs the whole histogram"),
+])
+def test_options_the_out_of_core_path_would_ignore_are_one_sentence_exit_2(tmp_path, capsys,
+                                                                          extra, words):
+    from voxtopo.cli import main
+
+    path = tmp_path / "scan.npy"
+    np.save(path, _blobs((10, 12), seed=3).astype(np.uint8))
+    assert main(["pores", str(path), "--out", str(tmp_path / "out"), *extra]) == 2
+    err = capsys.readouterr().err
+    assert words in err and "Traceback" not in err and len(err.strip().splitlines()) == 1
+    assert not (tmp_path / "out").exists()
+
+
+def test_cli_out_of_core_rewrites_a_tiff_and_runs_on_the_cluster(tmp_path, capsys,
+                                                                   cluster_address):
+    from voxtopo.cli import main
+
+    mask = _with_cavity(_blobs((24, 22), seed=4), (12, 11), 5)
+    path = tmp_path / "mask.tif"
+    tifffile.imwrite(path, mask.astype(np.uint8))
+    out = tmp_path / "result"
+    assert main(["pores", str(path), "--out", str(out), "--out-of-core", "--chunks", "12,11",
+                 "--scheduler", cluster_address, "--spacing", "1.5", "--unit", "um"]) == 0
+    said = capsys.readouterr().out
+    assert "Computed out of core in 12x11 chunks" in said
+    summary = json.loads((out / "summary.json").read_text())
+    memory = analyse(mask, spacing=(1.5, 1.5), unit="um")
+    assert summary["porosity"] == memory.summary["porosity"]
+    assert summary["counts"]["pores"] == memory.summary["counts"]["pores"]
+    curves = pd.read_csv(out / "betti_curves.csv")
+    reference = memory.diagram.betti_curve(curves["level"])
+    np.testing.assert_array_equal(curves["betti_1"], reference["betti_1"])
+    assert "Euler-Poincare" in summary["out_of_core"]["betti_curves"]
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["mask.tif", "result"]
+
+
+def test_out_of_core_reads_an_ome_zarr_store_with_its_voxel_size(tmp_path):
+    mask = _blobs((10, 12, 11), seed=9)
+    root = zarr.open_group(str(tmp_path / "scan.ome.zarr"), mode="w")
+    data = root.create_array("0", shape=mask.shape, chunks=(5, 6, 11), dtype=np.uint8)
+    data[...] = mask
+    root.attrs["multiscales"] = [{
+        "version": "0.4",
+        "axes": [{"name": a, "type": "space", "unit": "micrometer"} for a in "zyx"],
+        "datasets": [{"path": "0", "coordinateTransformations":
+                      [{"type": "scale", "scale": [2.0, 1.0, 1.0]}]}]}]
+    result = pores_job.pores_out_of_core(tmp_path / "scan.ome.zarr", tmp_path / "out",
+                                         scheduler="sync")
+    memory = analyse(mask, spacing=(2.0, 1.0, 1.0), unit="um")
+    assert result.analysis.summary["spacing"] == [2.0, 1.0, 1.0]
+    assert result.analysis.summary["unit"] == "um"
+    _same_table(memory.pores, result.analysis.pores)
+
+
+def test_batch_settings_send_pores_out_of_core_onto_the_cluster(tmp_path, cluster_address):
+    import io
+
+    from voxtopo import batch
+
+    mask = _with_cavity(_blobs((12, 12, 10), seed=12), (6, 6, 5), 3)
+    store = zarr.create_array(str(tmp_path / "foam.zarr"), shape=mask.shape, chunks=(6, 6, 5),
+                              dtype=np.uint8)
+    store[...] = mask
+    settings = tmp_path / "settings.toml"
+    settings.write_text('job = "pores"\n[pores]\nout_of_core = true\nchunks = [6, 6, 10]\n')
+    (tmp_path / "m.csv").write_text("path\nfoam.zarr\n")
+    batch.run_batch(str(tmp_path / "m.csv"), tmp_path / "out", settings_path=settings,
+                    scheduler=cluster_address, stream=io.StringIO())
+    folder = tmp_path / "out" / "scans" / "foam"
+    summary = json.loads((folder / "summary.json").read_text())
+    assert summary["out_of_core"]["chunks"] == [6, 6, 10]
+    # pores.csv holds 6 significant digits
+    _same_table(analyse(mask).pores, pd.read_csv(folder / "pores.csv"), rtol=1e-5)
+    assert not [p for p in (tmp_path / "out" / "scans").iterdir() if "scratch" in p.name]
