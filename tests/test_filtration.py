@@ -97,3 +97,17 @@ def test_an_empty_crop_is_told_in_the_users_words():
         filtration.crop(np.zeros((100, 100)), "50:10,:")
     message = str(refused.value)
     assert "50:10,:" in message and "slice(" not in message and "100x100" in message
+
+
+def test_otsu_threshold_of_integer_scans_is_scikit_images():
+    # skimage.filters.threshold_otsu (Otsu 1979, through scikit-image) on the whole array:
+    # the slab-wise histogram must give the same threshold
+    from skimage.filters import threshold_otsu
+    from voxtopo.filtration import threshold
+    rng = np.random.default_rng(8)
+    for dtype, low, high in ((np.uint16, 900, 40000), (np.int16, -3000, 2500),
+                             (np.uint8, 3, 250)):
+        gray = np.where(rng.random((12, 13, 14)) < 0.4, low, high).astype(np.int64)
+        gray = np.clip(gray + rng.normal(0, (high - low) / 10, gray.shape), low, high)
+        gray = gray.astype(dtype)
+        assert threshold(gray, "otsu")[1] == float(threshold_otsu(gray))

@@ -3,8 +3,9 @@
 Pore bodies and throats from the persistence of the signed distance transform, solid
 grains likewise, loops and enclosed voids, percolation radius and connected porosity per
 axis, Euler characteristic and connectivity density of each phase, and the Minkowski
-functionals of the pore phase. :func:`analyse` measures, :func:`write_pores` writes the
-result folder, :func:`regions_of` labels each pore's region by its id.
+functionals of the pore phase. :func:`analyse` measures, :func:`estimate` plans its memory,
+:func:`write_pores` writes the result folder, :func:`regions_of` labels each pore's region
+by its id.
 
 >>> import numpy as np
 >>> from voxtopo.porosity import analyse
@@ -15,10 +16,10 @@ result folder, :func:`regions_of` labels each pore's region by its id.
 (1, 'no')
 """
 
-from ._analysis import (COMPLEMENT, PoreAnalysis, analyse, cautions, is_binary_mask,
-                        size_column)
+from ._analysis import (COMPLEMENT, PoreAnalysis, analyse, cautions, estimate,
+                        is_binary_mask, size_column)
 from ._regions import pore_regions, regions_of
 from ._write import summary_lines, write_pores
 
-__all__ = ["analyse", "write_pores", "PoreAnalysis", "cautions", "COMPLEMENT", "size_column",
+__all__ = ["analyse", "estimate", "write_pores", "PoreAnalysis", "cautions", "COMPLEMENT", "size_column",
            "summary_lines", "pore_regions", "regions_of", "is_binary_mask"]

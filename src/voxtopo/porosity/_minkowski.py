@@ -13,6 +13,11 @@ open border of the mesh have one triangle only and carry no angle.
 from __future__ import annotations
 
 import numpy as np
+from scipy import ndimage
+
+#: voxel planes meshed at a time by :func:`interface_measures`: a slab's mesh and the
+#: curvature's per-edge arrays stay well under a gigabyte at 1024 x 1024 per plane
+SLAB_PLANES = 16
 
 
 def interface_mesh(pore: np.ndarray, spacing):
@@ -39,11 +44,14 @@ def surface_area(vertices: np.ndarray, faces: np.ndarray) -> float:
     return float(mesh_surface_area(vertices, faces))
 
 
-def integral_mean_curvature(vertices: np.ndarray, faces: np.ndarray) -> float:
+def integral_mean_curvature(vertices: np.ndarray, faces: np.ndarray, cells=None,
+                            step: float = 1.0) -> float:
     """Sum over interior edges of edge length times signed dihedral angle, halved.
 
     The sign is taken from the faces' own orientation: with normals pointing out of the
     pore phase, an edge where the surface bends away from the normal side is convex (+).
+    ``cells`` (first, stop) keeps only the edges whose midpoint lies in those cells along
+    z (voxel size ``step``): the part of a slab's mesh that is the slab's own.
     """
     if len(faces) == 0:
         return 0.0
@@ -65,6 +73,9 @@ def integral_mean_curvature(vertices: np.ndarray, faces: np.ndarray) -> float:
     has_twin = sorted_keys[position] == twin_key
     # count each interior edge once, from the directed edge with the smaller start
     use = has_twin & (starts < ends)
+    if cells is not None:
+        middle = _cells_of(0.5 * (vertices[starts, 0] + vertices[ends, 0]), step)
+        use &= (middle >= cells[0]) & (middle < cells[1])
     face_a = owner[use]
     face_b = owner[order[position[use]]]
     edge = vertices[ends[use]] - vertices[starts[use]]
@@ -104,3 +115,47 @@ def boundary_length_2d(mask: np.ndarray, spacing, sample=None) -> float:
             steps = steps[sample[tuple(middle.T)]]
         total += float(np.sum(steps))
     return total
+
+
+def _cells_of(points_z: np.ndarray, step: float) -> np.ndarray:
+    """Cell (between voxel planes k and k + 1) of each z position of a slab, in the slab's
+    plane numbering; a position on plane k belongs to cell k. The small margin keeps a
+    point on a plane on it despite the rounding of ``(i + t) * step / step``."""
+    return np.floor(points_z / step + 1e-6).astype(np.int64)
+
+
+def interface_measures(mask: np.ndarray, spacing, smoothing: float,
+                       sample=None) -> tuple[float, float]:
+    """(area, integral mean curvature) of the pore/solid interface of a 3D mask, meshed
+    slab by slab along z.
+
+    The mask is smoothed with a Gaussian of ``smoothing`` voxels (mode "nearest"), each
+    slab with a halo as wide as the filter's reach, so the values are the same as the
+    whole volume's; each slab is meshed with one more cell on each side, and counts the
+    triangles whose centroid and the edges whose midpoint lie in its own cells, so every
+    triangle and every interior edge (with both of its triangles) counts once. With
+    ``sample`` only the triangles whose centroid lies in a sample voxel count.
+    """
+    spacing = tuple(float(s) for s in spacing)
+    reach = int(4.0 * smoothing + 0.5)  # gaussian_filter's radius at its default truncate=4
+    nz = mask.shape[0]
+    area = curvature = 0.0
+    for first in range(0, nz - 1, SLAB_PLANES):
+        last = min(first + SLAB_PLANES, nz - 1)  # this slab's cells: first .. last - 1
+        low, high = max(first - 1, 0), min(last + 1, nz - 1)  # planes meshed
+        read_low, read_high = max(low - reach, 0), min(high + 1 + reach, nz)
+        soft = ndimage.gaussian_filter(mask[read_low:read_high].astype(np.float32),
+                                       sigma=smoothing, mode="nearest")
+        soft = soft[low - read_low:high + 1 - read_low]
+        vertices, faces = interface_mesh(soft, spacing)
+        if len(faces) == 0:
+            continue
+        if sample is not None:
+            shifted = vertices + np.array([low * spacing[0], 0.0, 0.0])
+            faces = faces_in_sample(shifted, faces, sample, spacing)
+        own_cells = (first - low, last - low)
+        centroid_cell = _cells_of(vertices[faces, 0].mean(axis=1), spacing[0])
+        counted = (centroid_cell >= own_cells[0]) & (centroid_cell < own_cells[1])
+        area += surface_area(vertices, faces[counted])
+        curvature += integral_mean_curvature(vertices, faces, own_cells, spacing[0])
+    return area, curvature
