@@ -463,7 +463,8 @@ def run_out_of_core(source, options: AnalysisOptions | None = None, *, load_opti
     (smoothing, cropping, downsampling, the distance transform, periodic boundaries,
     filling invalid voxels, other fields than Z/2) are refused.
     """
-    from ..engine.chunked import chunked_persistence, open_chunked
+    from ..engine.chunked import chunked_persistence
+    from ..io import open_chunked
 
     options = options or AnalysisOptions()
     defaults = AnalysisOptions()
