@@ -169,11 +169,11 @@ def main(argv=None) -> int:
                 rows.append((size, np.dtype(dtype).name, result, planned))
             finally:
                 shutil.rmtree(folder, ignore_errors=True)
-    print(f"\n{'size':>6} {'dtype':>7} {'wall s':>8} {'CPU s':>8} {'peak':>10} "
-          f"{'estimate':>10} {'est/peak':>9} {'exit':>5}")
+    print(f"\n{'size':>6} {'dtype':>7} {'wall s':>8} {'CPU s':>8} {'peak GB':>8} "
+          f"{'estimate GB':>12} {'est/peak':>9} {'exit':>5}")
     for size, dtype, result, planned in rows:
         print(f"{size:>5}^3 {dtype:>7} {result['wall']:8.1f} {result['cpu']:8.1f} "
-              f"{human(result['peak']):>10} {human(planned):>10} "
+              f"{result['peak'] / 1e9:8.3f} {planned / 1e9:12.3f} "
               f"{planned / result['peak']:9.2f} {result['code']:>5}")
     return 0
 

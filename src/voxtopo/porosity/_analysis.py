@@ -31,9 +31,26 @@ COMPLEMENT = {26: 6, 6: 26, 8: 4, 4: 8}
 #: 6 to 15 voxels) while moving the surface far less than a voxel.
 SURFACE_SMOOTHING_VOXELS = 0.7
 
-#: the interpreter with numpy, scipy, numba, pandas and matplotlib loaded, before any
-#: array (resident memory measured at the start of a run)
-_BASE_BYTES = 400_000_000
+#: the `voxtopo pores` process with its libraries loaded (peak of a 64^3 run: 382 MB)
+_BASE_BYTES = 380_000_000
+
+#: Calibration, from the peaks of benchmarks/bench_pores.py (uint8 overlapping-sphere
+#: masks, this machine): the peak of a pores run is that of its persistence runs, which
+#: took peak - base - held = 0.52 GB at 256^3 and 4.41 GB at 512^3, while the engine
+#: planned 0.94 GB and 7.0 GB for a float32 array of that shape (its plan covers gray
+#: images with many more pairs than a distance transform has). So a pores run plans this
+#: share of the engine's plan: 0.63 (512^3; 0.55 at 256^3, where the base dominates).
+#: The engine's plan still decides how the need grows with the shape; when the engine's
+#: own planning changes, this share is measured again with the benchmark.
+_ENGINE_PLAN_SHARE = 0.63
+
+#: the Euler characteristic's padded and shifted masks with the solid's mask, bytes per
+#: voxel (3 measured at 256^3, plus the solid)
+_EULER_BYTES_PER_VOXEL = 4
+
+#: one slab's marching-cubes mesh and per-edge curvature arrays, bytes per voxel of the
+#: slab (145 measured on a 256 x 256 x 18 slab of a bead packing)
+_MESH_BYTES_PER_VOXEL = 150
 
 #: what to do when a pore analysis would not fit in memory
 REMEDY = ("crop it (--crop), downsample it (--downsample), or run it out of core "
@@ -674,7 +691,8 @@ def estimate(shape, dtype=np.uint8, *, neighbourhood: int | None = None,
     -----
     Held through the run: the scan, the pore mask, the float32 signed distance and the
     interpreter with its libraries. On top of it, one step at a time: a persistence run
-    on the float32 field (the engine's estimate), the sweeps of one phase (the order of
+    on the float32 field (a calibrated share of the engine's estimate, which plans for
+    gray images with many more pairs), the sweeps of one phase (the order of
     its voxels and one union-find index per voxel, or its component labels), or the
     integral geometry (the Euler count's shifted masks). The constants are calibrated on
     the peaks of benchmarks/bench_pores.py (see there).
@@ -694,13 +712,17 @@ def estimate(shape, dtype=np.uint8, *, neighbourhood: int | None = None,
     # the scan, the pore mask, the float32 field; with a region of interest its mask, the
     # pore phase, the border rim and the room in the sample
     held = voxels * (scan + 1 + 4 + (3 + 4 if roi else 0))
-    persistence_run = _engine.estimate(shape, np.float32, engine=engine,
-                                       neighbourhood=n_pore)
+    persistence_run = _ENGINE_PLAN_SHARE * _engine.estimate(shape, np.float32, engine=engine,
+                                                           neighbourhood=n_pore)
     # a second float32 field beside the sample's (the outside levels)
     persistence_run += voxels * 4 if roi else 0
-    # the order of one phase's voxels (planned for all), one index per voxel and three bits
-    sweeps = voxels * (index + index + 3 / 8 + 1)
-    return int(_BASE_BYTES + held + max(persistence_run, sweeps))
+    # the order of one phase's voxels (planned for all of them), one union-find index per
+    # voxel and three bits, the solid's mask
+    sweeps = voxels * (2 * index + 3 / 8 + 1)
+    # the Euler count's shifted masks and the solid's, or one slab's mesh
+    integral_geometry = max(voxels * _EULER_BYTES_PER_VOXEL,
+                            min(voxels, _minkowski.SLAB_VOXELS) * _MESH_BYTES_PER_VOXEL)
+    return int(_BASE_BYTES + held + max(persistence_run, sweeps, integral_geometry))
 
 
 # ------------------------------------------------------------------------------ analyse

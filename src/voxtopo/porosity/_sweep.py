@@ -189,6 +189,8 @@ def _basin_kernel(order, values, sign, shape, offsets, query_voxel, query_level,
                 continue
             a, b = _root(parent, v), _root(parent, w)
             if a != b:
+                if parent[a] < parent[b]:  # a is the larger: it stays the root
+                    a, b = b, a
                 parent[b] += parent[a]
                 parent[a] = b
                 if _bit(border, a):
