@@ -440,17 +440,16 @@ def test_refusal_names_the_estimate_and_the_out_of_core_path(monkeypatch, tmp_pa
                  "--engine", ENGINE]) == 0
 
 
-def test_interface_in_slabs_equals_the_whole_mesh(monkeypatch):
+def test_interface_in_slabs_equals_the_whole_mesh():
     # the slab-wise mesh must count every triangle and interior edge once: the same area
     # and curvature as one mesh of the whole volume (marching cubes, Lorensen & Cline 1987,
-    # through scikit-image), here with 3 slabs (the last a short one) and a region of
+    # through scikit-image), here with 6 slabs (the last a short one) and a region of
     # interest
     from scipy import ndimage
     from voxtopo.porosity import _minkowski
     from voxtopo.porosity._analysis import SURFACE_SMOOTHING_VOXELS
-    shape = (21, 19)
-    monkeypatch.setattr(_minkowski, "SLAB_VOXELS", 7 * 21 * 19)  # slabs of 7 planes
-    mask = _blobs((2 * _minkowski.slab_planes((1,) + shape) + 4,) + shape, seed=4)
+    mask = _blobs((18, 21, 19), seed=4)
+    assert _minkowski.slab_planes(mask.shape) == 3  # an eighth of 18 planes, rounded up
     spacing = (1.3, 1.0, 0.8)
     sample = np.zeros(mask.shape, bool)
     sample[3:-2, 2:, :15] = True

@@ -48,10 +48,6 @@ _ENGINE_PLAN_SHARE = 0.63
 #: voxel (3 measured at 256^3, plus the solid)
 _EULER_BYTES_PER_VOXEL = 4
 
-#: one slab's marching-cubes mesh and per-edge curvature arrays, bytes per voxel of the
-#: slab (145 measured on a 256 x 256 x 18 slab of a bead packing)
-_MESH_BYTES_PER_VOXEL = 150
-
 #: what to do when a pore analysis would not fit in memory
 REMEDY = ("crop it (--crop), downsample it (--downsample), or run it out of core "
           "(voxtopo pores --out-of-core)")
@@ -720,8 +716,9 @@ def estimate(shape, dtype=np.uint8, *, neighbourhood: int | None = None,
     # voxel and three bits, the solid's mask
     sweeps = voxels * (2 * index + 3 / 8 + 1)
     # the Euler count's shifted masks and the solid's, or one slab's mesh
-    integral_geometry = max(voxels * _EULER_BYTES_PER_VOXEL,
-                            min(voxels, _minkowski.SLAB_VOXELS) * _MESH_BYTES_PER_VOXEL)
+    integral_geometry = voxels * _EULER_BYTES_PER_VOXEL
+    if len(shape) == 3:
+        integral_geometry = max(integral_geometry, _minkowski.slab_bytes(shape))
     return int(_BASE_BYTES + held + max(persistence_run, sweeps, integral_geometry))
 
 

@@ -15,15 +15,28 @@ from __future__ import annotations
 import numpy as np
 from scipy import ndimage
 
-#: voxels of the cells one slab of :func:`interface_measures` counts as its own (at least
-#: two planes): a slab's mesh and the curvature's per-edge arrays take about 150 bytes per
-#: voxel of a bead packing (measured at 256 x 256 x 18), so about 0.6 GB at this size
-SLAB_VOXELS = 1 << 22
+#: voxels of the cells one slab of :func:`interface_measures` counts as its own, at most:
+#: a slab's mesh and the curvature's per-edge arrays take about MESH_BYTES_PER_VOXEL, so
+#: about 1.2 GB at this size (8 planes of 1024 x 1024)
+SLAB_VOXELS = 1 << 23
+
+#: bytes of mesh and per-edge arrays per voxel of a slab (145 measured on 256 x 256 x 18
+#: of a bead packing: they follow the interface's area, which a finer structure raises)
+MESH_BYTES_PER_VOXEL = 150
 
 
 def slab_planes(shape) -> int:
-    """Planes of cells per slab of :func:`interface_measures` for a volume of ``shape``."""
-    return max(2, SLAB_VOXELS // (int(shape[1]) * int(shape[2])))
+    """Planes of cells per slab of :func:`interface_measures` for a volume of ``shape``: at
+    most SLAB_VOXELS and an eighth of the volume (so a small volume's mesh stays small
+    beside its other arrays), at least two."""
+    by_size = SLAB_VOXELS // (int(shape[1]) * int(shape[2]))
+    return max(2, min(by_size, -(-int(shape[0]) // 8)))
+
+
+def slab_bytes(shape) -> int:
+    """Bytes of one slab's mesh (the planes it meshes, with one more on each side)."""
+    planes = min(slab_planes(shape) + 2, int(shape[0]))
+    return planes * int(shape[1]) * int(shape[2]) * MESH_BYTES_PER_VOXEL
 
 
 def interface_mesh(pore: np.ndarray, spacing):
