@@ -13,6 +13,7 @@ open border of the mesh have one triangle only and carry no angle.
 from __future__ import annotations
 
 import numpy as np
+from numba import njit
 from scipy import ndimage
 
 #: voxels of the cells one slab of :func:`interface_measures` counts as its own, at most:
@@ -63,14 +64,12 @@ def surface_area(vertices: np.ndarray, faces: np.ndarray) -> float:
     return float(mesh_surface_area(vertices, faces))
 
 
-def integral_mean_curvature(vertices: np.ndarray, faces: np.ndarray, cells=None,
-                            step: float = 1.0) -> float:
+def integral_mean_curvature(vertices: np.ndarray, faces: np.ndarray) -> float:
     """Sum over interior edges of edge length times signed dihedral angle, halved.
 
     The sign is taken from the faces' own orientation: with normals pointing out of the
     pore phase, an edge where the surface bends away from the normal side is convex (+).
-    ``cells`` (first, stop) keeps only the edges whose midpoint lies in those cells along
-    z (voxel size ``step``): the part of a slab's mesh that is the slab's own.
+    The twin of the slab kernel :func:`_curvature_kernel`, vectorised and easy to read.
     """
     if len(faces) == 0:
         return 0.0
@@ -92,9 +91,6 @@ def integral_mean_curvature(vertices: np.ndarray, faces: np.ndarray, cells=None,
     has_twin = sorted_keys[position] == twin_key
     # count each interior edge once, from the directed edge with the smaller start
     use = has_twin & (starts < ends)
-    if cells is not None:
-        middle = _cells_of(0.5 * (vertices[starts, 0] + vertices[ends, 0]), step)
-        use &= (middle >= cells[0]) & (middle < cells[1])
     face_a = owner[use]
     face_b = owner[order[position[use]]]
     edge = vertices[ends[use]] - vertices[starts[use]]
@@ -177,5 +173,68 @@ def interface_measures(mask: np.ndarray, spacing, smoothing: float,
         centroid_cell = _cells_of(vertices[faces, 0].mean(axis=1), spacing[0])
         counted = (centroid_cell >= own_cells[0]) & (centroid_cell < own_cells[1])
         area += surface_area(vertices, faces[counted])
-        curvature += integral_mean_curvature(vertices, faces, own_cells, spacing[0])
+        curvature += _curvature_kernel(vertices.astype(np.float64), faces, own_cells[0],
+                                       own_cells[1], spacing[0])
     return area, curvature
+
+
+@njit(cache=True, nogil=True)
+def _curvature_kernel(vertices, faces, first_cell, stop_cell, step):
+    """:func:`integral_mean_curvature` of the edges whose midpoint lies in the cells
+    ``first_cell`` to ``stop_cell`` (exclusive) along z (voxel size ``step``): the part of
+    a slab's mesh that is the slab's own. One pass over the faces: the first directed edge
+    of each undirected edge waits in a hash table for its twin. Assumes a manifold,
+    consistently wound mesh (marching cubes: at most two faces per edge)."""
+    n_faces = faces.shape[0]
+    n_vertices = vertices.shape[0]
+    normals = np.zeros((n_faces, 3))
+    for f in range(n_faces):
+        a, b, c = faces[f, 0], faces[f, 1], faces[f, 2]
+        u0, u1, u2 = (vertices[b, 0] - vertices[a, 0], vertices[b, 1] - vertices[a, 1],
+                      vertices[b, 2] - vertices[a, 2])
+        w0, w1, w2 = (vertices[c, 0] - vertices[a, 0], vertices[c, 1] - vertices[a, 1],
+                      vertices[c, 2] - vertices[a, 2])
+        n0, n1, n2 = u1 * w2 - u2 * w1, u2 * w0 - u0 * w2, u0 * w1 - u1 * w0
+        length = np.sqrt(n0 * n0 + n1 * n1 + n2 * n2)
+        scale = 1.0 / length if length > 0 else 1.0
+        normals[f, 0], normals[f, 1], normals[f, 2] = n0 * scale, n1 * scale, n2 * scale
+    capacity = 1
+    while capacity < 4 * n_faces:
+        capacity *= 2
+    keys = np.full(capacity, -1, np.int64)
+    waiting = np.zeros(capacity, np.int64)
+    total = 0.0
+    for f in range(n_faces):
+        for k in range(3):
+            start, end = faces[f, k], faces[f, (k + 1) % 3]
+            low, high = min(start, end), max(start, end)
+            key = low * n_vertices + high
+            slot = np.int64((np.uint64(key) * np.uint64(0x9E3779B97F4A7C15))
+                            >> np.uint64(40)) & (capacity - 1)
+            while keys[slot] != -1 and keys[slot] != key:
+                slot = (slot + 1) & (capacity - 1)
+            if keys[slot] == -1:
+                keys[slot] = key
+                waiting[slot] = f if start < end else -f - 1
+                continue
+            other = waiting[slot]
+            # the face whose directed edge runs from the lower vertex to the higher is a
+            fa, fb = (other, f) if other >= 0 else (f, -other - 1)
+            # as _cells_of: a midpoint on a plane belongs to the cell above it
+            middle = 0.5 * (vertices[low, 0] + vertices[high, 0])
+            cell = np.int64(np.floor(middle / step + 1e-6))
+            if cell < first_cell or cell >= stop_cell:
+                continue
+            e0, e1, e2 = (vertices[high, 0] - vertices[low, 0],
+                          vertices[high, 1] - vertices[low, 1],
+                          vertices[high, 2] - vertices[low, 2])
+            edge_length = np.sqrt(e0 * e0 + e1 * e1 + e2 * e2)
+            if edge_length > 0:
+                e0, e1, e2 = e0 / edge_length, e1 / edge_length, e2 / edge_length
+            a0, a1, a2 = normals[fa, 0], normals[fa, 1], normals[fa, 2]
+            b0, b1, b2 = normals[fb, 0], normals[fb, 1], normals[fb, 2]
+            sine = ((a1 * b2 - a2 * b1) * e0 + (a2 * b0 - a0 * b2) * e1
+                    + (a0 * b1 - a1 * b0) * e2)
+            cosine = a0 * b0 + a1 * b1 + a2 * b2
+            total += edge_length * np.arctan2(sine, cosine)
+    return 0.5 * total
