@@ -17,13 +17,13 @@ from numba import njit
 from scipy import ndimage
 
 #: voxels of the cells one slab of :func:`interface_measures` counts as its own, at most:
-#: a slab's mesh and the curvature's per-edge arrays take about MESH_BYTES_PER_VOXEL, so
-#: about 1.2 GB at this size (8 planes of 1024 x 1024)
+#: a slab's mesh and the curvature kernel's table take about MESH_BYTES_PER_VOXEL, so
+#: about 0.7 GB at this size (8 planes of 1024 x 1024)
 SLAB_VOXELS = 1 << 23
 
-#: bytes of mesh and per-edge arrays per voxel of a slab (145 measured on 256 x 256 x 18
+#: bytes of mesh and curvature table per voxel of a slab (78 measured on 256 x 256 x 34
 #: of a bead packing: they follow the interface's area, which a finer structure raises)
-MESH_BYTES_PER_VOXEL = 150
+MESH_BYTES_PER_VOXEL = 80
 
 
 def slab_planes(shape) -> int:
