@@ -148,3 +148,17 @@ def test_outside_last_keeps_classes_the_engine_would_cut_by_min_persistence():
     # b0 counts the pieces)
     assert region.counts() == {0: 2, 1: 0}
     assert not np.isfinite(region.pairs["death"]).any()
+
+
+def test_otsu_threshold_of_integer_scans_is_scikit_images():
+    # skimage.filters.threshold_otsu (Otsu 1979, through scikit-image) on the whole array:
+    # the slab-wise histogram must give the same threshold
+    from skimage.filters import threshold_otsu
+    from voxtopo.filtration import threshold
+    rng = np.random.default_rng(8)
+    for dtype, low, high in ((np.uint16, 900, 40000), (np.int16, -3000, 2500),
+                             (np.uint8, 3, 250)):
+        gray = np.where(rng.random((12, 13, 14)) < 0.4, low, high).astype(np.int64)
+        gray = np.clip(gray + rng.normal(0, (high - low) / 10, gray.shape), low, high)
+        gray = gray.astype(dtype)
+        assert threshold(gray, "otsu")[1] == float(threshold_otsu(gray))

@@ -177,3 +177,20 @@ def test_cli_line_says_no_and_not_resolved_in_words(tmp_path, capsys):
     assert "z: not resolved" in out and "y: no" in out and "x: no" in out
     assert "r = 0" not in out and "z: yes" not in out
     assert "voxel size unknown" in out
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_sweep_order_is_numpys_stable_sort(dtype):
+    # definition of the sweep (common practice, no source): increasing value, ties by flat
+    # index, i.e. numpy's stable argsort of the phase's values; descending for the solid
+    rng = np.random.default_rng(2)
+    values = rng.integers(-6, 7, size=(9, 10, 11)).astype(dtype) / dtype(3)
+    values[0, 0, :3] = [dtype(0.0), dtype(-0.0), dtype(0.0)]  # equal values, distinct bits
+    phase = rng.random(values.shape) < 0.6
+    candidates = np.flatnonzero(phase)
+    expected = candidates[np.argsort(values.ravel()[candidates], kind="stable")]
+    assert np.array_equal(_sweep.sweep_order(values, phase), expected)
+    others = np.flatnonzero(~phase)
+    expected = others[np.argsort(-values.ravel()[others], kind="stable")]
+    assert np.array_equal(_sweep.sweep_order(values, phase, member=False, descending=True),
+                          expected)

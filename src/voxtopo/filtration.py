@@ -355,7 +355,8 @@ def threshold(scan, value="otsu", *, below: bool = True) -> tuple[np.ndarray, fl
         if data.min() == data.max():
             raise InputError(f"{scan.source or 'The scan'} is constant ({data.min()}); "
                              f"Otsu's method needs two phases to separate.")
-        value = float(threshold_otsu(data))
+        value = float(threshold_otsu(hist=_histogram(data)) if data.dtype.kind in "ui"
+                      else threshold_otsu(data))
     else:
         value = float(value)
     mask = data <= value if below else data > value
@@ -407,6 +408,19 @@ def signed_distance(mask_or_scan, spacing=None, unit=None) -> Scan:
     outside = ndimage.distance_transform_edt(~mask, sampling=sampling)
     field = np.where(mask, -inside, outside)
     return scan.with_data(field, values="distance")
+
+
+def _histogram(data: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(counts, values) of every integer from the data's minimum to its maximum: the
+    histogram scikit-image's ``threshold_otsu`` makes of integer data, counted slab by slab
+    instead of through one 8-byte copy of the whole scan."""
+    low, high = int(data.min()), int(data.max())
+    counts = np.zeros(high - low + 1, dtype=np.int64)
+    slabs = data.reshape(-1, *data.shape[-2:]) if data.ndim > 2 else data[np.newaxis]
+    for slab in slabs:
+        shifted = slab.ravel().astype(np.int64) - low
+        counts += np.bincount(shifted, minlength=len(counts))
+    return counts, np.arange(low, high + 1)
 
 
 def check_finite(scan_or_array, source: str | None = None) -> None:

@@ -4,9 +4,9 @@ Pore bodies and throats from the persistence of the signed distance transform, s
 grains likewise, loops and enclosed voids, percolation radius and connected porosity per
 axis, Euler characteristic and connectivity density of each phase, and the Minkowski
 functionals of the pore phase. :func:`analyse` measures (:func:`analyse_chunked` the same,
-chunk by chunk, for scans larger than memory), :func:`regions_of` labels each pore's region
-by its id; the pores job (:mod:`voxtopo.jobs.pores`) writes the result
-folder.
+chunk by chunk, for scans larger than memory), :func:`estimate` plans its memory,
+:func:`regions_of` labels each pore's region by its id; the pores job
+(:mod:`voxtopo.jobs.pores`) writes the result folder.
 
 >>> import numpy as np
 >>> from voxtopo.porosity import analyse
@@ -17,10 +17,10 @@ folder.
 (1, 'no')
 """
 
-from ._analysis import (COMPLEMENT, PoreAnalysis, analyse, cautions, is_binary_mask,
-                        size_column)
+from ._analysis import (COMPLEMENT, PoreAnalysis, analyse, cautions, estimate,
+                        is_binary_mask, size_column)
 from ._out_of_core import analyse_chunked
 from ._regions import pore_regions, regions_of
 
-__all__ = ["analyse", "analyse_chunked", "PoreAnalysis", "cautions", "COMPLEMENT",
+__all__ = ["analyse", "analyse_chunked", "estimate", "PoreAnalysis", "cautions", "COMPLEMENT",
            "size_column", "pore_regions", "regions_of", "is_binary_mask"]

@@ -12,12 +12,14 @@ from scipy import ndimage
 from .. import filtration
 from .. import significance as sig
 from ..diagram import AXES_3D
+from .. import engine as _engine
+from ..engine import construction_of, persistence
 from ..filtration import binary_foreground, region_of_interest
-from ..engine import construction_of, estimate, persistence
 from ..errors import InputError
 from ..memory import ensure_fits, reported_as_too_big
 from ..scan import Scan, as_scan
-from . import _euler, _minkowski, _sweep
+from ..engine._union_find import index_dtype
+from . import _edt, _euler, _minkowski, _sweep
 
 #: the solid phase takes the neighbourhood complementary to the pore phase's, so that the
 #: two phases' Euler characteristics and diagrams are dual to each other
@@ -29,11 +31,26 @@ COMPLEMENT = {26: 6, 6: 26, 8: 4, 4: 8}
 #: 6 to 15 voxels) while moving the surface far less than a voxel.
 SURFACE_SMOOTHING_VOXELS = 0.7
 
-#: bytes per voxel, besides persistence: the distance transform (two EDTs with their
-#: feature transforms, the signed field), the sweeps (order, parents, sizes, claims) and
-#: labels. Peak resident memory of a 256^3 bead packing was 2.3 GB (123 bytes per voxel,
-#: interpreter and libraries included; benchmarks/bench_pores.py), hence the margin.
-_BYTES_PER_VOXEL = 128
+#: the `voxtopo pores` process with its libraries loaded (peak of a 64^3 run: 382 MB)
+_BASE_BYTES = 380_000_000
+
+#: Calibration, from the peaks of benchmarks/bench_pores.py (uint8 overlapping-sphere
+#: masks, this machine): the peak of a pores run is that of its persistence runs, which
+#: took peak - base - held = 0.52 GB at 256^3 and 4.41 GB at 512^3, while the engine
+#: planned 0.94 GB and 7.0 GB for a float32 array of that shape (its plan covers gray
+#: images with many more pairs than a distance transform has). So a pores run plans this
+#: share of the engine's plan: 0.63 (512^3; 0.55 at 256^3, where the base dominates).
+#: The engine's plan still decides how the need grows with the shape; when the engine's
+#: own planning changes, this share is measured again with the benchmark.
+_ENGINE_PLAN_SHARE = 0.63
+
+#: the Euler characteristic's padded and shifted masks with the solid's mask, bytes per
+#: voxel (3 measured at 256^3, plus the solid)
+_EULER_BYTES_PER_VOXEL = 4
+
+#: what to do when a pore analysis would not fit in memory
+REMEDY = ("crop it (--crop), downsample it (--downsample), or run it out of core "
+          "(voxtopo pores --out-of-core)")
 
 
 def cautions(spacing, unit) -> list[str]:
@@ -226,16 +243,10 @@ def _selected_by(segmentation: dict) -> str:
     return "the mask"
 
 
-def _check_phases(pore: np.ndarray, solid: np.ndarray, sample_voxels: int, where: str,
-                  segmentation: dict) -> list[str]:
-    """Refuse a phase that is empty; return a note for a phase of almost no voxels."""
-    return _phase_notes(int(np.count_nonzero(pore)), int(np.count_nonzero(solid)),
-                        sample_voxels, pore.size, where, segmentation)
-
-
 def _phase_notes(pore_voxels: int, solid_voxels: int, sample_voxels: int, total: int,
                  where: str, segmentation: dict) -> list[str]:
-    """:func:`_check_phases` from the voxel counts of each phase and of the scan."""
+    """Refuse a phase that is empty; return a note for a phase of almost no voxels, from
+    the voxel counts of each phase, of the sample and of the whole scan."""
     chosen = _selected_by(segmentation)
     sample = "sample" if sample_voxels < total else "scan"
     if pore_voxels == 0:
@@ -316,14 +327,15 @@ def size_column(ndim: int, body: str = "body") -> str:
 
 
 def _basin_features(depth: np.ndarray, phase: np.ndarray, neighbourhood: int, births,
-                    deaths, birth_voxel, spacing, order, edge, room_in_sample):
+                    deaths, birth_voxel, spacing, order, edge, room_in_sample, flip=False):
     """Body radius, constriction radius, border flag and own size of dimension-0 features.
 
-    ``depth`` is the signed distance oriented so that the phase is negative; ``births`` and
-    ``deaths`` are levels of that field. The basin of a feature is the component of
+    ``depth`` is the signed distance, swept as it is or, with ``flip``, negated so that the
+    phase is negative; ``births`` and ``deaths`` are levels of the swept field. The basin of a feature is the component of
     ``{depth < min(death, 0)}`` holding its birth voxel: the region it drains before it
     joins an older feature, or its whole connected piece of the phase when it never does.
-    ``edge`` (flat bool) marks the voxels at the border of the scan or of the sample;
+    ``edge`` (flat bool, or None for the scan's outer layer) marks the voxels at the border
+    of the scan or of the sample;
     ``room_in_sample`` (or None) is each voxel's distance to the nearest voxel outside the
     region of interest.
     """
@@ -331,7 +343,8 @@ def _basin_features(depth: np.ndarray, phase: np.ndarray, neighbourhood: int, bi
     level = np.minimum(deaths, 0.0)
     order_q = np.argsort(level, kind="stable")
     size, own, touches = _sweep.basins(order, depth, shape, neighbourhood,
-                                       birth_voxel[order_q], level[order_q], edge=edge)
+                                       birth_voxel[order_q], level[order_q], edge=edge,
+                                       flip=flip)
     back = np.empty_like(order_q)
     back[order_q] = np.arange(len(order_q))
     voxel_volume = float(np.prod(spacing))
@@ -364,19 +377,19 @@ def ball_outside(centre: np.ndarray, body_radius: np.ndarray, shape, spacing,
 
 def _phase_table(pairs: pd.DataFrame, depth: np.ndarray, phase: np.ndarray, neighbourhood,
                  spacing, flip: bool, min_persistence: float, names: tuple[str, str],
-                 order=None, edge=None, room_in_sample=None, pieces=None):
+                 order=None, edge=None, room_in_sample=None):
     """Table of the dimension-0 features of one phase (pores, or grains with ``flip``).
 
-    ``order``: the phase's voxels by increasing ``depth`` (computed when not given).
-    ``edge``: flat bool array of the voxels at the border of the scan or of the sample.
-    ``pieces``: labels of the phase's connected pieces (computed when not given).
-    ``isolated``: the feature's connected piece of the phase (at level 0) holds no other
-    feature of the table and touches no border: a closed pore (or a loose grain)."""
+    ``depth`` is the signed distance (negative in the pores); with ``flip`` (the solid)
+    its negative is swept, without a copy.
+    ``order``: the phase's voxels by increasing depth (computed when not given).
+    ``edge``: flat bool array of the voxels at the border of the scan or of the sample
+    (None: the scan's outer layer).
+    The ``isolated`` column comes after, from the phase's connected pieces
+    (:func:`_with_isolated`), so that the labels and the sweep are not in memory together."""
     ndim = phase.ndim
     axes = AXES_3D[3 - ndim:]
     body, neck = names
-    if edge is None:
-        edge = _sweep.border_voxels(phase.shape)
     births = pairs["birth"].to_numpy(dtype=np.float64)
     deaths = pairs["death"].to_numpy(dtype=np.float64)
     if flip:  # superlevel values of the solid: turn them into sublevel depths
@@ -388,20 +401,13 @@ def _phase_table(pairs: pd.DataFrame, depth: np.ndarray, phase: np.ndarray, neig
     birth_voxel = _flat(pairs, "birth", phase.shape)
     death_voxel = _flat(pairs, "death", phase.shape)
     if order is None:
-        order = _sweep.sweep_order(depth, phase)
+        order = _sweep.sweep_order(depth, phase, descending=flip)
     feats = _basin_features(depth, phase, neighbourhood, births, deaths, birth_voxel, spacing,
-                            order, edge, room_in_sample)
+                            order, edge, room_in_sample, flip)
+    del order
     joined = deaths < 0
     neck_radius = np.where(joined, -deaths, np.nan)
     neck_at = _coordinates(np.where(joined, death_voxel, -1), phase.shape, spacing)
-    if pieces is None:
-        pieces = pore_components(phase, neighbourhood)
-    piece = pieces.ravel()[birth_voxel]
-    features_in_piece = np.bincount(piece, minlength=pieces.max() + 1)
-    at_edge = np.zeros(pieces.max() + 1, dtype=bool)
-    at_edge[np.unique(pieces.ravel()[edge.ravel()])] = True
-    at_edge[0] = False
-    isolated = (features_in_piece[piece] == 1) & ~at_edge[piece]
     table = {"id": np.arange(1, len(births) + 1), f"{body}_radius": feats["body_radius"]}
     for k, a in enumerate(axes):
         table[f"{body}_{a}"] = feats["centre"][:, k]
@@ -411,7 +417,6 @@ def _phase_table(pairs: pd.DataFrame, depth: np.ndarray, phase: np.ndarray, neig
     table["border"] = feats["border"].astype(bool)
     table["lifetime"] = deaths - births
     table[size_column(ndim, body)] = feats["own_size"]
-    table["isolated"] = isolated
     # the birth voxel's indices beside its physical position: the key to the regions
     birth_index = np.unravel_index(np.maximum(birth_voxel, 0), phase.shape)
     for k, a in enumerate(axes):
@@ -428,6 +433,25 @@ def largest_first(frame: pd.DataFrame, body: str, axes) -> pd.DataFrame:
     frame = frame.sort_values(keys, ascending=[False] + [True] * len(axes), kind="stable")
     frame["id"] = np.arange(1, len(frame) + 1)
     return frame.reset_index(drop=True)
+
+
+def _with_isolated(table: pd.DataFrame, pieces: np.ndarray, edge, body: str) -> pd.DataFrame:
+    """``table`` with ``isolated`` after the size column: the feature's connected piece of
+    the phase (``pieces``, at level 0) holds no other feature of the table and touches no
+    border (``edge``: flat bool, None for the scan's outer layer): a closed pore (or a
+    loose grain)."""
+    axes = AXES_3D[3 - pieces.ndim:]
+    voxel = tuple(table[f"{body}_voxel_{a}"].to_numpy(dtype=np.int64) for a in axes)
+    piece = pieces[voxel] if len(table) else np.zeros(0, dtype=np.int64)
+    n_pieces = int(pieces.max()) + 1
+    features_in_piece = np.bincount(piece, minlength=n_pieces)
+    at_edge = np.zeros(n_pieces, dtype=bool)
+    at_edge[_labels_at_edge(pieces, edge)] = True
+    at_edge[0] = False
+    table = table.copy()
+    table.insert(table.columns.get_loc(size_column(pieces.ndim, body)) + 1, "isolated",
+                 (features_in_piece[piece] == 1) & ~at_edge[piece])
+    return table
 
 
 def _with_robust(table: pd.DataFrame, robust_above: float) -> pd.DataFrame:
@@ -541,18 +565,44 @@ def pore_components(mask: np.ndarray, neighbourhood: int) -> np.ndarray:
     the solid's, with that phase's neighbourhood."""
     full = neighbourhood in (26, 8)
     structure = ndimage.generate_binary_structure(mask.ndim, mask.ndim if full else 1)
-    return ndimage.label(mask, structure=structure)[0]
+    labels = np.empty(mask.shape, dtype=index_dtype(mask.size))
+    ndimage.label(mask, structure=structure, output=labels)
+    return labels
 
 
-def connected_fraction(labels: np.ndarray, axis: int, sample_voxels: int | None = None) -> float:
+def connected_fraction(labels: np.ndarray, axis: int, sample_voxels: int | None = None,
+                       sizes: np.ndarray | None = None) -> float:
     """Fraction of the sample's volume (default: the scan's) in pore components touching
-    both faces of ``axis``."""
+    both faces of ``axis``; ``sizes`` (voxels per label, :func:`component_sizes`) saves a
+    pass over ``labels`` when several axes are asked."""
     inlet = np.unique(np.take(labels, 0, axis=axis))
     outlet = np.unique(np.take(labels, -1, axis=axis))
     through = np.intersect1d(inlet[inlet > 0], outlet[outlet > 0])
     if len(through) == 0:
         return 0.0
-    return float(np.isin(labels, through).sum() / (sample_voxels or labels.size))
+    if sizes is None:
+        sizes = component_sizes(labels)
+    return float(sizes[through].sum() / (sample_voxels or labels.size))
+
+
+def component_sizes(labels: np.ndarray) -> np.ndarray:
+    """Voxels per label (index = label), counted slab by slab: np.bincount would first copy
+    the labels to 8-byte integers."""
+    sizes = np.zeros(int(labels.max()) + 1, dtype=np.int64)
+    slabs = labels.reshape(-1, *labels.shape[-2:]) if labels.ndim > 2 else labels[np.newaxis]
+    for slab in slabs:
+        sizes += np.bincount(slab.ravel(), minlength=len(sizes))
+    return sizes
+
+
+def _labels_at_edge(labels: np.ndarray, edge) -> np.ndarray:
+    """The distinct labels found on ``edge`` (flat bool), or on the scan's outer layer when
+    ``edge`` is None (read from the faces, without a mask of the whole scan)."""
+    if edge is not None:
+        return np.unique(labels.ravel()[np.ravel(edge)])
+    faces = [np.unique(np.take(labels, end, axis=axis))
+             for axis in range(labels.ndim) for end in (0, -1)]
+    return np.unique(np.concatenate(faces))
 
 
 def minkowski(mask: np.ndarray, spacing, chi_pore: int, sample=None) -> dict:
@@ -560,16 +610,13 @@ def minkowski(mask: np.ndarray, spacing, chi_pore: int, sample=None) -> dict:
     scan); with ``sample`` only the interface inside it counts."""
     sample_voxels = mask.size if sample is None else int(np.count_nonzero(sample))
     volume = sample_voxels * float(np.prod(spacing))
-    sigma = [SURFACE_SMOOTHING_VOXELS] * mask.ndim
-    soft = ndimage.gaussian_filter(mask.astype(np.float32), sigma=sigma, mode="nearest")
     if mask.ndim == 3:
-        vertices, faces = _minkowski.interface_mesh(soft, spacing)
-        if sample is not None:
-            faces = _minkowski.faces_in_sample(vertices, faces, sample, spacing)
-        area = _minkowski.surface_area(vertices, faces)
-        curvature = _minkowski.integral_mean_curvature(vertices, faces)
+        area, curvature = _minkowski.interface_measures(mask, spacing, SURFACE_SMOOTHING_VOXELS,
+                                                        sample)
         mean_curvature_density = curvature / volume
     else:
+        soft = ndimage.gaussian_filter(mask.astype(np.float32), sigma=SURFACE_SMOOTHING_VOXELS,
+                                       mode="nearest")
         area = _minkowski.boundary_length_2d(soft, spacing, sample)
         mean_curvature_density = None
     pore_voxels = np.count_nonzero(mask if sample is None else mask & sample)
@@ -592,14 +639,23 @@ def percolation_state(radius: float | None, finest: float) -> str:
     return "yes" if radius >= RESOLVED_RADIUS_VOXELS * finest else "not resolved"
 
 
-def _sample_distance(scan: Scan, pore: np.ndarray, solid: np.ndarray) -> Scan:
-    """Signed distance in the sample: -d in the pores, +d in the solid, d to the nearest
-    voxel centre of the other phase in the sample (outside a region of interest a voxel is
-    neither, as the space beyond the scan's faces is). Without a region of interest this is
-    :func:`voxtopo.filtration.signed_distance` of the pore mask."""
-    inside = ndimage.distance_transform_edt(~solid, sampling=scan.spacing)
-    outside = ndimage.distance_transform_edt(~pore, sampling=scan.spacing)
-    return scan.with_data(np.where(pore, -inside, outside), values="distance")
+def _sample_distance(scan: Scan, mask: np.ndarray, sample: np.ndarray | None) -> Scan:
+    """Signed distance in the sample, float32: -d in the pores, +d in the solid, d to the
+    nearest voxel centre of the other phase in the sample (outside a region of interest a
+    voxel is neither, as the space beyond the scan's faces is). Without a region of
+    interest this is :func:`voxtopo.filtration.signed_distance` of the pore mask, with
+    both transforms in one float32 array (:func:`._edt.signed_squared_distance`)."""
+    spacing = scan.spacing
+    if sample is None:
+        field = _edt.signed_squared_distance(mask, spacing)
+        np.sqrt(field, out=field)
+    else:
+        # the pores' distance to the solid, then the rest's distance to the pores
+        field = _edt.distance_to_nearest(~mask & sample, spacing)
+        np.copyto(field, _edt.distance_to_nearest(mask & sample, spacing),
+                  where=~(mask & sample))
+    np.negative(field, out=field, where=mask if sample is None else mask & sample)
+    return scan.with_data(field, values="distance")
 
 
 def _voxel_size_notes(unit: str, chi_solid: int, solid_pieces: int | None, ndim: int) -> list[str]:
@@ -617,10 +673,66 @@ def _voxel_size_notes(unit: str, chi_solid: int, solid_pieces: int | None, ndim:
     return notes
 
 
-def _estimate_bytes(shape, neighbourhood, engine) -> int:
+def estimate(shape, dtype=np.uint8, *, neighbourhood: int | None = None,
+             engine: str = "auto", roi: bool = False) -> int:
+    """Bytes a pore analysis (:func:`analyse`, `voxtopo pores`) of a scan will need at its
+    peak, the scan itself included.
+
+    Parameters
+    ----------
+    shape : tuple of int
+        Shape of the scan, (y, x) or (z, y, x).
+    dtype : numpy dtype
+        Type of the scan as read (uint8 for a mask, uint16 for a gray scan, ...).
+    neighbourhood : {4, 8} in 2D, {6, 26} in 3D, optional
+        Connectivity of the pore phase (default 8 / 26).
+    engine : {"auto", "voxtopo", "gudhi"}
+        Persistence engine; its own plan (:func:`voxtopo.engine.estimate`) is used.
+    roi : bool
+        A region of interest is given (it adds its mask and a second float32 field).
+
+    Returns
+    -------
+    int
+        Bytes of the largest of the run's steps, each with what is held through it.
+
+    Notes
+    -----
+    Held through the run: the scan, the pore mask, the float32 signed distance and the
+    interpreter with its libraries. On top of it, one step at a time: a persistence run
+    on the float32 field (a calibrated share of the engine's estimate, which plans for
+    gray images with many more pairs), the sweeps of one phase (the order of
+    its voxels and one union-find index per voxel, or its component labels), or the
+    integral geometry (the Euler count's shifted masks). The constants are calibrated on
+    the peaks of benchmarks/bench_pores.py (see there).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from voxtopo.porosity import estimate
+    >>> estimate((512, 512, 512), np.uint8) < estimate((1024, 1024, 1024), np.uint8)
+    True
+    """
+    shape = tuple(int(n) for n in shape)
     voxels = int(np.prod(shape, dtype=np.int64))
-    per_run = estimate(shape, np.float64, engine=engine, neighbourhood=neighbourhood)
-    return voxels * _BYTES_PER_VOXEL + per_run
+    n_pore, _ = construction_of(len(shape), neighbourhood)
+    index = index_dtype(voxels).itemsize
+    scan = np.dtype(dtype).itemsize
+    # the scan, the pore mask, the float32 field; with a region of interest its mask, the
+    # pore phase, the border rim and the room in the sample
+    held = voxels * (scan + 1 + 4 + (3 + 4 if roi else 0))
+    persistence_run = _ENGINE_PLAN_SHARE * _engine.estimate(shape, np.float32, engine=engine,
+                                                           neighbourhood=n_pore)
+    # a second float32 field beside the sample's (the outside levels)
+    persistence_run += voxels * 4 if roi else 0
+    # the order of one phase's voxels (planned for all of them), one union-find index per
+    # voxel and three bits, the solid's mask
+    sweeps = voxels * (2 * index + 3 / 8 + 1)
+    # the Euler count's shifted masks and the solid's, or one slab's mesh
+    integral_geometry = voxels * _EULER_BYTES_PER_VOXEL
+    if len(shape) == 3:
+        integral_geometry = max(integral_geometry, _minkowski.slab_bytes(shape))
+    return int(_BASE_BYTES + held + max(persistence_run, sweeps, integral_geometry))
 
 
 # ------------------------------------------------------------------------------ analyse
@@ -766,19 +878,21 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
     sample = region_of_interest(roi, scan.shape, where)
     mask, segmentation = pore_mask(scan, threshold=threshold, pores_bright=pores_bright,
                                    label=label, sample=sample)
-    in_sample = np.ones(mask.shape, bool) if sample is None else sample
-    pore, solid = mask & in_sample, ~mask & in_sample
-    sample_voxels = int(np.count_nonzero(in_sample))
-    notes = list(scan.metadata.get("notes", [])) + _check_phases(pore, solid, sample_voxels,
-                                                                 where, segmentation)
-    planned = _estimate_bytes(mask.shape, n_pore, engine)
+    # without a region of interest the pore phase is the mask itself and the solid its
+    # complement, made only while a step needs it
+    pore = mask if sample is None else mask & sample
+    sample_voxels = mask.size if sample is None else int(np.count_nonzero(sample))
+    pore_voxels = int(np.count_nonzero(pore))
+    notes = list(scan.metadata.get("notes", [])) + _phase_notes(
+        pore_voxels, sample_voxels - pore_voxels, sample_voxels, mask.size, where,
+        segmentation)
+    planned = estimate(mask.shape, scan.data.dtype, neighbourhood=n_pore, engine=engine,
+                       roi=sample is not None)
     what = f"Pore analysis of the {'x'.join(map(str, mask.shape))} scan"
-    remedy = ("crop it (--crop) or downsample it (--downsample) first, or measure it chunk by "
-              "chunk with --out-of-core (voxtopo.jobs.pores.pores_out_of_core)")
-    ensure_fits(planned, what, remedy)
+    ensure_fits(planned, what, REMEDY)
     timings["segmentation"] = time.perf_counter() - clock
     # an allocation that fails after the plan said it fits is still one sentence
-    with reported_as_too_big(what, planned, remedy):
+    with reported_as_too_big(what, planned, REMEDY):
 
         def step(name, fraction):
             if progress is not None:
@@ -786,78 +900,94 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
 
         step("distance transform", 0.0)
         clock = time.perf_counter()
-        distance = _sample_distance(scan, pore, solid)
+        distance = _sample_distance(scan, mask, sample)
+        field = distance.data
         if sample is None:
             pore_field = solid_field = distance
         else:
             # the outside enters each sweep last, so no feature of the sample passes through it
-            outside_level = float(np.abs(distance.data).max()) + 2 * max(spacing)
-            pore_field = distance.with_data(np.where(sample, distance.data, outside_level))
-            solid_field = distance.with_data(np.where(sample, distance.data, -outside_level))
-        field = distance.data
+            outside_level = float(np.abs(field).max()) + 2 * max(spacing)
+            pore_field = distance.with_data(np.where(sample, field, np.float32(outside_level)))
         timings["distance_transform"] = time.perf_counter() - clock
 
         clock = time.perf_counter()
         diagram = persistence(pore_field, neighbourhood=n_pore, engine=engine, progress=progress)
+        if sample is not None:
+            solid_field = pore_field.with_data(np.negative(pore_field.data, out=pore_field.data))
+            np.copyto(solid_field.data, field, where=sample)
         solid_diagram = persistence(solid_field, superlevel=True, neighbourhood=n_solid,
                                     engine=engine, progress=progress)
+        del pore_field, solid_field
         if sample is not None:
             diagram = diagram.without_outside(outside_level)
             solid_diagram = solid_diagram.without_outside(-outside_level)
-            del pore_field, solid_field
         diagram = sig.robust_flags(diagram, delta)
         solid_diagram = sig.robust_flags(solid_diagram, delta)
         timings["persistence"] = time.perf_counter() - clock
 
+        # one phase at a time, and within it one large array besides the sweep order: the
+        # basin sweep, then the connected pieces, then the percolation sweeps
         step("pores and grains", 0.0)
         clock = time.perf_counter()
-        edge = _sweep.border_voxels(mask.shape)
-        room_in_sample = None
+        edge = room_in_sample = None
         if sample is not None:
             rim = sample & ~ndimage.binary_erosion(sample, border_value=1)
-            edge |= rim.ravel()
-            room_in_sample = ndimage.distance_transform_edt(sample, sampling=spacing)
+            edge = rim.ravel()
+            del rim
+            room_in_sample = _edt.distance_to_nearest(~sample, spacing)
         pore_order = _sweep.sweep_order(field, pore)
+        pores = _phase_table(_rows_of_dimension(diagram, 0), field, pore, n_pore, spacing, False,
+                             min_persistence, ("body", "throat"), pore_order, edge,
+                             room_in_sample)
         labels = pore_components(pore, n_pore)
+        pores = _with_isolated(pores, labels, edge, "body")
+        names = AXES_3D[3 - scan.ndim:]
+        faces_in_sample = {a: sample is None or (np.take(sample, 0, axis=a).any()
+                                                 and np.take(sample, -1, axis=a).any())
+                           for a in axes}
+        connected = {names[a]: None for a in axes}
+        if any(faces_in_sample.values()):
+            sizes = component_sizes(labels)
+            connected.update({names[a]: connected_fraction(labels, a, sample_voxels, sizes)
+                              for a in axes if faces_in_sample[a]})
+        del labels
+        timings["features"] = time.perf_counter() - clock
+
+        step("percolation", 0.0)
+        clock = time.perf_counter()
+        radius, critical = {}, {}
+        for k, a in enumerate(axes):
+            if faces_in_sample[a]:
+                radius[names[a]], critical[names[a]] = percolation(field, pore, a, n_pore,
+                                                                   spacing, pore_order)
+            else:
+                radius[names[a]], critical[names[a]] = None, None
+            step("percolation", (k + 1) / len(axes))
+        del pore_order
+        timings["percolation"] = time.perf_counter() - clock
+
+        clock = time.perf_counter()
+        solid = ~mask if sample is None else ~mask & sample
+        grains = _phase_table(_rows_of_dimension(solid_diagram, 0), field, solid, n_solid,
+                              spacing, True, min_persistence, ("body", "neck"), None, edge,
+                              room_in_sample)
         solid_labels = pore_components(solid, n_solid)
         solid_pieces = int(solid_labels.max())
-        pores = _phase_table(_rows_of_dimension(diagram, 0), field, pore, n_pore, spacing, False,
-                             min_persistence, ("body", "throat"), pore_order, edge, room_in_sample,
-                             labels)
-        grains = _phase_table(_rows_of_dimension(solid_diagram, 0), -field, solid, n_solid,
-                              spacing, True, min_persistence, ("body", "neck"), None, edge,
-                              room_in_sample, solid_labels)
-        del solid_labels
+        grains = _with_isolated(grains, solid_labels, edge, "body")
+        del solid_labels, room_in_sample, edge
         pore_rows = pores.pop("pair_row").to_numpy()
         grains.pop("pair_row")
         loops = _loop_table(diagram, spacing, min_persistence)
         voids = _void_table(solid_diagram, spacing, min_persistence)
         pores, grains, loops, voids = (_with_robust(table, robust_above)
                                        for table in (pores, grains, loops, voids))
-        del room_in_sample
-        timings["features"] = time.perf_counter() - clock
-
-        step("percolation", 0.0)
-        clock = time.perf_counter()
-        names = AXES_3D[3 - scan.ndim:]
-        radius, critical, connected = {}, {}, {}
-        for k, a in enumerate(axes):
-            faces_in_sample = (np.take(in_sample, 0, axis=a).any()
-                               and np.take(in_sample, -1, axis=a).any())
-            if faces_in_sample:
-                radius[names[a]], critical[names[a]] = percolation(field, pore, a, n_pore,
-                                                                   spacing, pore_order)
-                connected[names[a]] = connected_fraction(labels, a, sample_voxels)
-            else:
-                radius[names[a]], critical[names[a]], connected[names[a]] = None, None, None
-            step("percolation", (k + 1) / len(axes))
-        del labels, pore_order
-        timings["percolation"] = time.perf_counter() - clock
+        timings["features"] += time.perf_counter() - clock
 
         step("integral geometry", 0.0)
         clock = time.perf_counter()
         chi_pore = _euler.euler_characteristic(pore, n_pore)
         chi_solid = _euler.euler_characteristic(solid, n_solid)
+        del solid
         volume = sample_voxels * float(np.prod(spacing))
         functionals = minkowski(mask, spacing, chi_pore, sample)
         timings["integral_geometry"] = time.perf_counter() - clock
@@ -881,7 +1011,7 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
         density_unit = (f"1/voxel^{scan.ndim} (no voxel size)" if unit == "px"
                         else f"1/{unit}^{scan.ndim}")
         summary = {
-            "porosity": float(np.count_nonzero(pore) / sample_voxels),
+            "porosity": float(pore_voxels / sample_voxels),
             "connected_porosity": connected,
             "percolates": {a: percolation_state(r, finest) for a, r in radius.items()},
             "percolation_radius": {a: (r if r else None) for a, r in radius.items()},

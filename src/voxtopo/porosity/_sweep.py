@@ -24,7 +24,10 @@ both on tiny inputs and require the same answer.
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+from numba import njit, types
+from numba.typed import Dict
+
+from ..engine._union_find import index_dtype
 
 #: neighbourhood -> offsets (dz, dy, dx) of the neighbours, for a 3D (or single-slice) grid
 _FULL = [(dz, dy, dx) for dz in (-1, 0, 1) for dy in (-1, 0, 1) for dx in (-1, 0, 1)
@@ -72,16 +75,16 @@ def _neighbour(offsets, k, z, y, x, nz, ny, nx):
 
 
 @njit(cache=True, nogil=True)
-def _percolation_kernel(order, shape, axis, offsets):
+def _percolation_kernel(order, shape, axis, offsets, parent):
+    """``parent``: n + 2 entries of -1 (index type wide enough for n + 1)."""
     nz, ny, nx = shape[0], shape[1], shape[2]
     n = nz * ny * nx
     inlet, outlet = n, n + 1
-    parent = np.full(n + 2, -1, dtype=np.int64)
     parent[inlet] = inlet
     parent[outlet] = outlet
     last = shape[axis] - 1
     for step in range(order.shape[0]):
-        v = order[step]
+        v = np.int64(order[step])
         parent[v] = v
         z = v // (ny * nx)
         y = (v // nx) % ny
@@ -107,51 +110,174 @@ def _percolation_kernel(order, shape, axis, offsets):
     return -1
 
 
+@njit(cache=True, inline="always")
+def _bit(bits, i):
+    return (bits[i >> 3] >> (i & 7)) & 1
+
+
+@njit(cache=True, inline="always")
+def _set_bit(bits, i):
+    bits[i >> 3] |= np.uint8(1 << (i & 7))
+
+
+@njit(cache=True, inline="always")
+def _root(parent, i):
+    """Root of ``i`` where a root holds minus its component's size (path compression)."""
+    root = i
+    while parent[root] >= 0:
+        root = np.int64(parent[root])
+    while parent[i] >= 0 and parent[i] != root:
+        nxt = np.int64(parent[i])
+        parent[i] = root
+        i = nxt
+    return root
+
+
 @njit(cache=True, nogil=True)
-def _basin_kernel(order, values, shape, offsets, query_voxel, query_level, on_border):
+def _basin_kernel(order, values, sign, shape, offsets, query_voxel, query_level, edge,
+                  parent):
+    """``parent``: one index per voxel (type wide enough for the voxel count); a root holds
+    minus its size. ``edge`` empty: the border is the scan's outer layer (of a 2D image when
+    ``shape`` is one slice)."""
     nz, ny, nx = shape[0], shape[1], shape[2]
     n = nz * ny * nx
-    parent = np.full(n, -1, dtype=np.int64)
-    size = np.zeros(n, dtype=np.int64)
-    claimed = np.zeros(n, dtype=np.int64)
-    border = np.zeros(n, dtype=np.bool_)
+    visited = np.zeros((n + 7) // 8, dtype=np.uint8)
+    border = np.zeros((n + 7) // 8, dtype=np.uint8)
+    # voxels claimed by earlier queries, kept for the few roots that were queried
+    has_claim = np.zeros((n + 7) // 8, dtype=np.uint8)
+    claimed = Dict.empty(key_type=types.int64, value_type=types.int64)
     nq = query_voxel.shape[0]
     out_size = np.zeros(nq, dtype=np.int64)
     out_own = np.zeros(nq, dtype=np.int64)
     out_border = np.zeros(nq, dtype=np.bool_)
+    outer_layer = edge.shape[0] == 0
     q = 0
     for step in range(order.shape[0] + 1):
-        level = values[order[step]] if step < order.shape[0] else np.inf
+        level = sign * values[order[step]] if step < order.shape[0] else np.inf
         # answer every query whose level is not above the next voxel's value: the basin
         # is then exactly the component of {f < query level}
         while q < nq and query_level[q] <= level:
-            r = _find(parent, query_voxel[q]) if parent[query_voxel[q]] >= 0 else -1
-            if r >= 0:
-                out_size[q] = size[r]
-                out_own[q] = size[r] - claimed[r]
-                out_border[q] = border[r]
-                claimed[r] = size[r]
+            if _bit(visited, query_voxel[q]):
+                r = _root(parent, query_voxel[q])
+                size = -np.int64(parent[r])
+                taken = claimed[r] if _bit(has_claim, r) else 0
+                out_size[q] = size
+                out_own[q] = size - taken
+                out_border[q] = _bit(border, r) == 1
+                claimed[r] = size
+                _set_bit(has_claim, r)
             q += 1
         if step == order.shape[0]:
             break
-        v = order[step]
-        parent[v] = v
-        size[v] = 1
-        border[v] = on_border[v]
+        v = np.int64(order[step])
+        parent[v] = -1
+        _set_bit(visited, v)
         z = v // (ny * nx)
         y = (v // nx) % ny
         x = v % nx
+        if outer_layer:
+            # a 2D image is one slice, whose z is no border
+            on_edge = ((nz > 1 and (z == 0 or z == nz - 1)) or y == 0 or y == ny - 1
+                       or x == 0 or x == nx - 1)
+        else:
+            on_edge = edge[v]
+        if on_edge:
+            _set_bit(border, v)
         for k in range(offsets.shape[0]):
             w = _neighbour(offsets, k, z, y, x, nz, ny, nx)
-            if w < 0 or parent[w] < 0:
+            if w < 0 or not _bit(visited, w):
                 continue
-            a, b = _find(parent, v), _find(parent, w)
+            a, b = _root(parent, v), _root(parent, w)
             if a != b:
+                if parent[a] < parent[b]:  # a is the larger: it stays the root
+                    a, b = b, a
+                parent[b] += parent[a]
                 parent[a] = b
-                size[b] += size[a]
-                claimed[b] += claimed[a]
-                border[b] = border[b] or border[a]
+                if _bit(border, a):
+                    _set_bit(border, b)
+                if _bit(has_claim, a):
+                    taken = claimed.pop(a)
+                    if _bit(has_claim, b):
+                        claimed[b] += taken
+                    else:
+                        claimed[b] = taken
+                        _set_bit(has_claim, b)
     return out_size, out_own, out_border
+
+
+@njit(cache=True, inline="always")
+def _slot_of(key, table, used, mask):
+    """Slot of ``key`` in an open-addressing table (the empty slot where it would go)."""
+    slot = np.int64((np.uint64(key) * np.uint64(0x9E3779B97F4A7C15)) >> np.uint64(40)) & mask
+    while used[slot] and table[slot] != key:
+        slot = (slot + 1) & mask
+    return slot
+
+
+@njit(cache=True, nogil=True)
+def _distinct_keys(keys, inside, member):
+    """Open-addressing table of the distinct ``keys`` of the voxels with ``inside == member``
+    (table, used, first voxel of each key); the table grows to stay at most half full."""
+    capacity = 1 << 12
+    table = np.zeros(capacity, keys.dtype)
+    used = np.zeros(capacity, np.bool_)
+    first = np.zeros(capacity, np.int64)
+    count = 0
+    last_key = keys[0]
+    seen_any = False
+    for i in range(keys.shape[0]):
+        if inside[i] != member:
+            continue
+        key = keys[i]
+        if seen_any and key == last_key:  # neighbours along a line often share a value
+            continue
+        seen_any, last_key = True, key
+        slot = _slot_of(key, table, used, capacity - 1)
+        if used[slot]:
+            continue
+        used[slot], table[slot], first[slot] = True, key, i
+        count += 1
+        if 2 * count > capacity:
+            old_table, old_used, old_first = table, used, first
+            capacity *= 2
+            table = np.zeros(capacity, keys.dtype)
+            used = np.zeros(capacity, np.bool_)
+            first = np.zeros(capacity, np.int64)
+            for s in range(old_table.shape[0]):
+                if old_used[s]:
+                    t = _slot_of(old_table[s], table, used, capacity - 1)
+                    used[t], table[t], first[t] = True, old_table[s], old_first[s]
+    return table, used, first
+
+
+@njit(cache=True, nogil=True)
+def _ranked_order(values, keys, inside, member, descending, out):
+    """Counting sort of the voxels with ``inside == member`` by the rank of their value
+    among the distinct values (ties keep increasing flat index), into ``out``."""
+    table, used, first = _distinct_keys(keys, inside, member)
+    slots = np.flatnonzero(used)
+    distinct = np.empty(slots.shape[0], np.float64)
+    for j in range(slots.shape[0]):
+        distinct[j] = -values[first[slots[j]]] if descending else values[first[slots[j]]]
+    by_value = np.argsort(distinct)
+    rank_of_slot = np.zeros(table.shape[0], np.int64)
+    rank = -1
+    for j in range(by_value.shape[0]):
+        if j == 0 or distinct[by_value[j]] != distinct[by_value[j - 1]]:
+            rank += 1  # equal values (0.0 and -0.0) share a rank
+        rank_of_slot[slots[by_value[j]]] = rank
+    start = np.zeros(rank + 2, np.int64)
+    mask = table.shape[0] - 1
+    for i in range(keys.shape[0]):
+        if inside[i] == member:
+            start[rank_of_slot[_slot_of(keys[i], table, used, mask)] + 1] += 1
+    for r in range(rank + 1):
+        start[r + 1] += start[r]
+    for i in range(keys.shape[0]):
+        if inside[i] == member:
+            r = rank_of_slot[_slot_of(keys[i], table, used, mask)]
+            out[start[r]] = i
+            start[r] += 1
 
 
 # ------------------------------------------------------------------------ pure-Python twins
@@ -219,11 +345,25 @@ def basins_python(order, values, shape, offsets, query_voxel, query_level, on_bo
 
 
 # ------------------------------------------------------------------------------ front end
-def sweep_order(values: np.ndarray, phase: np.ndarray) -> np.ndarray:
-    """Flat indices of the ``phase`` voxels by increasing value, ties by flat index."""
-    flat = values.ravel()
-    candidates = np.flatnonzero(phase.ravel())
-    return candidates[np.argsort(flat[candidates], kind="stable")]
+def sweep_order(values: np.ndarray, phase: np.ndarray, *, member: bool = True,
+                descending: bool = False) -> np.ndarray:
+    """Flat indices of the voxels where ``phase == member``, by increasing value (by
+    decreasing value with ``descending``), ties by flat index.
+
+    A counting sort over the ranks of the distinct values (a distance transform has few):
+    the only array as large as the phase is the result, of the narrowest index type
+    (:func:`voxtopo.engine._union_find.index_dtype`)."""
+    flat = np.ascontiguousarray(values).ravel()
+    if flat.dtype not in (np.float32, np.float64):
+        flat = flat.astype(np.float64)
+    inside = np.ascontiguousarray(phase, dtype=bool).ravel()
+    count = int(np.count_nonzero(inside)) if member else int(inside.size
+                                                             - np.count_nonzero(inside))
+    order = np.empty(count, dtype=index_dtype(flat.size))
+    if count:
+        keys = flat.view(np.uint32 if flat.itemsize == 4 else np.uint64)
+        _ranked_order(flat, keys, inside, bool(member), bool(descending), order)
+    return order
 
 
 def border_voxels(shape) -> np.ndarray:
@@ -246,25 +386,33 @@ def percolation_step(order, shape, axis, neighbourhood, python=False) -> int:
     offsets = neighbour_offsets(neighbourhood)
     if python:
         return percolation_step_python(order, shape3, axis3, offsets)
-    return int(_percolation_kernel(np.ascontiguousarray(order, dtype=np.int64),
-                                   np.array(shape3, dtype=np.int64), axis3, offsets))
+    voxels = int(np.prod(shape3, dtype=np.int64))
+    # the two faces are nodes n and n + 1
+    parent = np.full(voxels + 2, -1, dtype=index_dtype(voxels + 1))
+    return int(_percolation_kernel(np.asarray(order), np.array(shape3, dtype=np.int64),
+                                   axis3, offsets, parent))
 
 
 def basins(order, values, shape, neighbourhood, query_voxel, query_level, python=False,
-           edge=None):
+           edge=None, flip=False):
     """(size, own, border) of each query's basin; queries must be sorted by level.
 
-    ``edge``: flat bool array of the voxels that count as border (default: the scan's outer
-    layer, :func:`border_voxels`); a region of interest adds its own rim."""
+    ``values`` is swept as ``-values`` with ``flip`` (the solid of a signed distance),
+    without a copy. ``edge``: flat bool array of the voxels that count as border (default:
+    the scan's outer layer, :func:`border_voxels`); a region of interest adds its own rim.
+    Besides ``order``, the kernel holds one index per voxel and three bits."""
     shape3 = as_3d_shape(shape)
     offsets = neighbour_offsets(neighbourhood)
-    flat_values = np.ascontiguousarray(values.ravel(), dtype=np.float64)
-    on_border = border_voxels(shape) if edge is None else np.ascontiguousarray(edge.ravel())
+    flat_values = np.ascontiguousarray(values).ravel()
     query_voxel = np.ascontiguousarray(query_voxel, dtype=np.int64)
     query_level = np.ascontiguousarray(query_level, dtype=np.float64)
     if python:
-        return basins_python(order, flat_values, shape3, offsets, query_voxel, query_level,
+        on_border = border_voxels(shape) if edge is None else np.ravel(edge)
+        depth = -flat_values if flip else flat_values
+        return basins_python(order, depth, shape3, offsets, query_voxel, query_level,
                              on_border)
-    return _basin_kernel(np.ascontiguousarray(order, dtype=np.int64), flat_values,
+    on_border = np.zeros(0, dtype=bool) if edge is None else np.ascontiguousarray(edge).ravel()
+    parent = np.empty(flat_values.size, dtype=index_dtype(flat_values.size))
+    return _basin_kernel(np.asarray(order), flat_values, -1.0 if flip else 1.0,
                          np.array(shape3, dtype=np.int64), offsets, query_voxel, query_level,
-                         on_border)
+                         on_border, parent)
