@@ -39,14 +39,14 @@ _STEPS_PER_REPORT = 1 << 21
 #: double when needed).
 _FIRST_BUFFER_FRACTION = 1 / 16
 
-#: Memory planning, from peaks measured on the benchmark cases (benchmarks/bench_engine.py):
-#: the share of voxels left for the sweep proper (0.6 % to 7 % measured), the pairs per
-#: voxel (0.3 % on smooth noise, 3 % on noisy beads; white noise has more), the bytes a
-#: pair holds until the result is built (RawPairs: int8 dim, two float64 values, two int64
-#: locations, and the concatenation copies).
+#: Memory planning, from peaks measured on the benchmark cases (benchmarks/bench_engine.py,
+#: benchmarks/bench_memory.py): the share of voxels left for the sweep proper (0.6 % to 7 %
+#: measured), the pairs per voxel (0.3 % on smooth noise, 3 % on noisy uint8 beads, 3.7 %
+#: on noisy uint16 beads; white noise has more), and the bytes a pair holds while the
+#: dimension-1 reduction runs (two locations, int64 at worst).
 _PLANNED_SWEPT_FRACTION = 0.05
-_PLANNED_PAIRS_PER_VOXEL = 0.02
-_BYTES_PER_PAIR = 66
+PLANNED_PAIRS_PER_VOXEL = 0.04
+_BYTES_PER_PAIR_HELD = 16
 
 
 def compute(values: np.ndarray, *, superlevel: bool, construction: str,
@@ -274,7 +274,8 @@ def bytes_needed(shape, dtype, neighbourhood=None) -> int:
     construction, 6-neighbourhood, on a padded copy of the values in a type up to twice
     as wide) runs beside them when both fit in the memory available together and the
     engine has two threads; otherwise it runs after them and takes over their union-find
-    buffer. The pairs are planned at one per fifty voxels.
+    buffer. The pairs are planned at one per 25 voxels (the table they become is planned
+    by :func:`voxtopo.engine.estimate`).
 
     Examples
     --------
@@ -297,7 +298,7 @@ def _needs(shape, dtype, vertex) -> tuple[int | None, int]:
     index = _union_find.index_dtype(voxels).itemsize
     swept = _PLANNED_SWEPT_FRACTION * voxels * (8 + 2 * index + dtype.itemsize)
     collecting = voxels + swept
-    pairs = _BYTES_PER_PAIR * _PLANNED_PAIRS_PER_VOXEL * voxels
+    pairs = _BYTES_PER_PAIR_HELD * PLANNED_PAIRS_PER_VOXEL * voxels
     if len(shape) == 2:
         return None, int(voxels * index + collecting + pairs)
     copies = 0

@@ -68,7 +68,7 @@ def with_p_values(diagram: Diagram, significance: Significance) -> Diagram:
     such as the one component every scan has) is not tested: ``p_value`` NaN and
     ``significant`` True, so it is always counted as a feature.
     """
-    pairs = diagram.pairs.copy()
+    pairs = diagram.pairs.copy(deep=False)  # new columns only: the table is not copied
     p_value = np.full(len(pairs), np.nan)
     dims = pairs["dim"].to_numpy()
     lifetimes = pairs["persistence"].to_numpy(dtype=np.float64)
@@ -107,7 +107,7 @@ def robust_flags(diagram: Diagram, boundary_tolerance: float | None = None) -> D
     boundary_tolerance : float, optional
         delta in the scan's unit; default one voxel (the largest spacing).
     """
-    pairs = diagram.pairs.copy()
+    pairs = diagram.pairs.copy(deep=False)  # new columns only: the table is not copied
     lifetimes = pairs["persistence"].to_numpy(dtype=np.float64)
     pairs["robust"] = ~np.isfinite(lifetimes) | (lifetimes > robust_threshold(
         diagram, boundary_tolerance))
