@@ -74,7 +74,7 @@ def estimate(shape, dtype=np.float32, *, engine: str = "auto", neighbourhood=Non
     Examples
     --------
     >>> import numpy as np
-    >>> 12e9 < estimate((1024, 1024, 1024), np.uint16) < 22e9
+    >>> 20e9 < estimate((1024, 1024, 1024), np.uint16) < 30e9
     True
     """
     name, _ = _choose_engine(engine, field, periodic)
