@@ -17,8 +17,13 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
-from voxtopo.engine._reduction import (pairs_dim1, pairs_dim1_explicit, reversed_order_values,
-                                       scratch_size, voxel_order)
+from voxtopo.engine._reduction import (
+    pairs_dim1,
+    pairs_dim1_explicit,
+    reversed_order_values,
+    scratch_size,
+    voxel_order,
+)
 from voxtopo.errors import Cancelled, InputError
 
 CONSTRUCTIONS = ["voxel", "vertex"]
