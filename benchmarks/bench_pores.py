@@ -62,7 +62,8 @@ def peak_rss_bytes() -> int:
 
 def run(mask: np.ndarray, engine: str) -> dict:
     from voxtopo.memory import human
-    from voxtopo.porosity import analyse, write_pores
+    from voxtopo.jobs.pores import write_pores
+    from voxtopo.porosity import analyse
     from voxtopo.porosity._analysis import _estimate_bytes
 
     start = time.perf_counter()

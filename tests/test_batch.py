@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import zarr
+from reference import gudhi_intervals
 from scipy import ndimage
 
 from voxtopo import batch, cli
@@ -34,16 +35,6 @@ def _textures(folder, count=4, shape=(28, 28)):
 def _manifest(path, rows):
     pd.DataFrame(rows).to_csv(path, index=False)
     return path
-
-
-def _gudhi_pair_count(image, dim):
-    """Number of pairs of positive persistence of dimension ``dim`` computed by gudhi
-    (Maria, Boissonnat, Glisse & Yvinec 2014, "The Gudhi Library", ICMS), voxel
-    construction, sublevel."""
-    cc = gudhi.CubicalComplex(top_dimensional_cells=np.asarray(image, dtype=np.float64))
-    cc.compute_persistence()
-    intervals = cc.persistence_intervals_in_dimension(dim)
-    return int(np.sum(intervals[:, 1] > intervals[:, 0]))
 
 
 @pytest.fixture(scope="module")
@@ -85,7 +76,7 @@ def test_summary_table_equals_analysing_each_scan_alone(finished_batch, tmp_path
             # and all pairs computed equal gudhi's own count on the same array (external
             # reference, Maria et al. 2014)
             assert (done.loc[name, f"pairs_computed_dim{d}"] == mine["pairs_computed"][str(d)]
-                    == _gudhi_pair_count(np.load(path), d))
+                    == len(gudhi_intervals(np.load(path), d)))
         assert done.loc[name, "counted"] == mine["counted"]
         assert done.loc[name, "counted"].startswith("significant features (family-wise, "
                                                     "alpha 0.05")
@@ -116,7 +107,7 @@ def test_summary_columns_say_all_pairs_only_when_all_pairs_were_listed(tmp_path)
             AnalysisOptions(distance=True))
     listed = batch._key_numbers(read_summary(tmp_path / "all"))
     assert [listed[f"pairs_dim{d}"] for d in (0, 1)] == [
-        _gudhi_pair_count(image, d) for d in (0, 1)]
+        len(gudhi_intervals(image, d)) for d in (0, 1)]
     assert listed["pairs_computed_dim1"] == listed["pairs_dim1"]
     tested = batch._key_numbers(read_summary(tmp_path / "auto"))
     assert "pairs_dim0" not in tested and tested["significant_dim0"] >= 1
@@ -205,11 +196,8 @@ def test_out_of_core_scans_run_their_chunks_on_the_cluster(tmp_path, cluster_add
                     scheduler=cluster_address, stream=io.StringIO())
     pairs = pd.read_csv(tmp_path / "out" / "scans" / "disc" / "pairs.csv")
     # gudhi (Maria et al. 2014) reference diagrams of dimensions 0 and 2
-    cc = gudhi.CubicalComplex(top_dimensional_cells=volume)
-    cc.compute_persistence()
     for dim in (0, 2):
-        expected = cc.persistence_intervals_in_dimension(dim)
-        expected = sorted(map(tuple, np.round(expected[expected[:, 1] > expected[:, 0]], 9)))
+        expected = sorted(map(tuple, np.round(gudhi_intervals(volume, dim), 9)))
         got = pairs[pairs["dim"] == dim][["birth", "death"]].to_numpy()
         assert sorted(map(tuple, np.round(got, 9))) == expected
     summary = json.loads((tmp_path / "out" / "scans" / "disc" / "summary.json").read_text())
@@ -234,11 +222,7 @@ def test_cli_batch_then_compare_by_group(finished_batch, tmp_path, capsys, clust
     distances = pd.read_csv(tmp_path / "cmp" / "distances.csv")
     row = distances[(distances["first"] == "scan_0") & (distances["second"] == "scan_1")]
     # gudhi.bottleneck_distance (Maria et al. 2014) on gudhi's own dimension-0 diagrams
-    reference = []
-    for path in paths[:2]:
-        cc = gudhi.CubicalComplex(top_dimensional_cells=np.load(path).astype(np.float64))
-        cc.compute_persistence()
-        reference.append(cc.persistence_intervals_in_dimension(0))
+    reference = [gudhi_intervals(np.load(path), 0) for path in paths[:2]]
     assert row["bottleneck_dim0"].iloc[0] == pytest.approx(
         gudhi.bottleneck_distance(*reference), rel=1e-6)
 

@@ -2,29 +2,23 @@
 
 import json
 
-import gudhi
 import numpy as np
 import pytest
 import zarr
+from reference import gudhi_intervals
 from scipy import ndimage
 
 from voxtopo.engine import _chunk_merge
-from voxtopo.engine.chunked import chunked_persistence, open_chunked
+from voxtopo.engine.chunked import chunked_persistence
 from voxtopo.errors import InputError
+from voxtopo.io import open_chunked
 
 
 def _gudhi_intervals(image, dim, superlevel, construction):
     """Reference: gudhi (Maria, Boissonnat, Glisse & Yvinec 2014, "The Gudhi Library:
     Simplicial Complexes and Persistent Homology", ICMS), CubicalComplex with the matching
     construction; superlevel as the sublevel filtration of the negated values."""
-    values = -image.astype(np.float64) if superlevel else image.astype(np.float64)
-    key = "top_dimensional_cells" if construction == "voxel" else "vertices"
-    cc = gudhi.CubicalComplex(**{key: values})
-    cc.compute_persistence()
-    intervals = cc.persistence_intervals_in_dimension(dim)
-    intervals = intervals[intervals[:, 1] > intervals[:, 0]]
-    if superlevel:
-        intervals = -intervals
+    intervals = gudhi_intervals(image, dim, construction=construction, superlevel=superlevel)
     return sorted(map(tuple, np.round(intervals, 9)))
 
 
@@ -35,10 +29,10 @@ def _ours(diagram, dim):
 def _assert_locations_hold_values(diagram, image):
     p = diagram.pairs
     axes = "zyx"[3 - image.ndim:]
-    births = image[tuple(p[f"birth_{a}"].to_numpy(dtype=np.int64) for a in axes)]
+    births = image[tuple(p[f"birth_voxel_{a}"].to_numpy(dtype=np.int64) for a in axes)]
     np.testing.assert_array_equal(births, p["birth"].to_numpy())
     finite = np.isfinite(p["death"].to_numpy())
-    deaths = image[tuple(p.loc[finite, f"death_{a}"].to_numpy(dtype=np.int64) for a in axes)]
+    deaths = image[tuple(p.loc[finite, f"death_voxel_{a}"].to_numpy(dtype=np.int64) for a in axes)]
     np.testing.assert_array_equal(deaths, p.loc[finite, "death"].to_numpy())
 
 
@@ -81,7 +75,7 @@ def _texture(shape, sigma, seed, decimals=1):
 def test_rings_crossing_chunks_match_gudhi(tmp_path, chunks, superlevel):
     image = _rings()
     path = _store(tmp_path, image, chunks)
-    diagram = chunked_persistence(path, superlevel=superlevel, scheduler="sync")
+    diagram = chunked_persistence(open_chunked(path), superlevel=superlevel, scheduler="sync")
     assert diagram.shape == image.shape
     for dim in (0, 1):
         assert _ours(diagram, dim) == _gudhi_intervals(image, dim, superlevel, "voxel")
@@ -97,7 +91,7 @@ def test_rings_crossing_chunks_match_gudhi(tmp_path, chunks, superlevel):
 def test_shells_crossing_chunks_match_gudhi(tmp_path, chunks):
     image = _shells()
     path = _store(tmp_path, image, chunks)
-    diagram = chunked_persistence(path, superlevel=True, scheduler="sync")
+    diagram = chunked_persistence(open_chunked(path), superlevel=True, scheduler="sync")
     for dim in (0, 2):
         assert _ours(diagram, dim) == _gudhi_intervals(image, dim, True, "voxel")
     assert diagram.dimension(1).pairs.empty
@@ -135,8 +129,10 @@ def test_dimension_zero_counts_components_like_scipy_label():
 
 def test_uint8_store_with_one_chunk_equals_many_chunks(tmp_path):
     image = (_texture((30, 30), 2.0, seed=4) * 40 + 128).clip(0, 255).astype(np.uint8)
-    one = chunked_persistence(_store(tmp_path, image, (30, 30), "one.zarr"), scheduler="sync")
-    many = chunked_persistence(_store(tmp_path, image, (4, 9), "many.zarr"), scheduler="sync")
+    one = chunked_persistence(open_chunked(_store(tmp_path, image, (30, 30), "one.zarr")),
+                              scheduler="sync")
+    many = chunked_persistence(open_chunked(_store(tmp_path, image, (4, 9), "many.zarr")),
+                               scheduler="sync")
     assert _ours(one, 0) == _ours(many, 0) == _gudhi_intervals(image, 0, False, "voxel")
     # gudhi (Maria et al. 2014) reference for dimension 1 as well
     assert _ours(many, 1) == _gudhi_intervals(image, 1, False, "voxel")
@@ -196,10 +192,12 @@ def test_graph_kernel_matches_its_plain_twin():
 
 def test_bad_inputs_are_refused_in_one_sentence(tmp_path):
     with pytest.raises(InputError, match="No zarr store"):
-        chunked_persistence(tmp_path / "missing.zarr")
+        open_chunked(tmp_path / "missing.zarr")
+    with pytest.raises(InputError, match="open a store with voxtopo.io.open_chunked"):
+        chunked_persistence(str(tmp_path / "missing.zarr"))
     (tmp_path / "plain.txt").write_text("not a store")
     with pytest.raises(InputError, match="not a zarr store"):
-        chunked_persistence(tmp_path / "plain.txt")
+        open_chunked(tmp_path / "plain.txt")
     with pytest.raises(InputError, match="2D image or 3D volume"):
         chunked_persistence(np.zeros((2, 3, 4, 5)), chunks=(1, 2, 2, 2))
     with pytest.raises(InputError, match="Chunks should be"):
@@ -210,12 +208,12 @@ def test_bad_inputs_are_refused_in_one_sentence(tmp_path):
     broken.mkdir()
     (broken / "zarr.json").write_text("{ not json")
     with pytest.raises(InputError, match="not a readable zarr store"):
-        chunked_persistence(broken)
+        open_chunked(broken)
     path = _store(tmp_path, np.arange(16.0).reshape(4, 4), (2, 2), "corrupt.zarr")
     chunk_files = sorted(p for p in (path / "c").rglob("*") if p.is_file())
     chunk_files[-1].write_bytes(b"\x00garbage")
     with pytest.raises(InputError, match="could not be read"):
-        chunked_persistence(path, scheduler="sync")
+        chunked_persistence(open_chunked(path), scheduler="sync")
 
 
 def test_cli_analyse_out_of_core_writes_a_result_folder(tmp_path, capsys):

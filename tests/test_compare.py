@@ -5,6 +5,7 @@ import math
 import gudhi
 import numpy as np
 import pytest
+from reference import gudhi_intervals
 from scipy import ndimage
 from scipy.spatial.distance import pdist, squareform
 from scipy.stats import norm
@@ -48,11 +49,7 @@ def test_bottleneck_equals_gudhi_on_gudhi_own_diagrams(superlevel):
     f, g = _texture(3, 2.0, (24, 24)), _texture(4, 2.0, (24, 24))
     sign = -1.0 if superlevel else 1.0
     for dim in (0, 1):
-        reference = []
-        for image in (f, g):
-            cc = gudhi.CubicalComplex(top_dimensional_cells=sign * image)
-            cc.compute_persistence()
-            reference.append(cc.persistence_intervals_in_dimension(dim))
+        reference = [gudhi_intervals(sign * image, dim) for image in (f, g)]
         expected = gudhi.bottleneck_distance(*reference)
         ours = compare.bottleneck(_diagram(f, superlevel=superlevel),
                                   _diagram(g, superlevel=superlevel), dims=(dim,))

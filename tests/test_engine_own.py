@@ -14,6 +14,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
+from reference import annulus, shell, solid_torus
 from skimage.measure import euler_number
 
 import voxtopo
@@ -97,19 +98,12 @@ def test_euler_characteristic_matches_scikit_image(ndim, construction, connectiv
         assert chi == euler_number(values <= level, connectivity=connectivity or ndim)
 
 
-def _ball_grid(n, ndim):
-    c = (n - 1) / 2
-    return np.sqrt(sum(g * g for g in np.meshgrid(*([np.arange(n) - c] * ndim),
-                                                  indexing="ij")))
-
-
 @pytest.mark.parametrize("neighbourhood", [6, 26])
 def test_spherical_shell_has_one_cavity(neighbourhood):
     """Betti numbers of a spherical shell are (1, 0, 1) (Hatcher 2002, "Algebraic
     Topology"), measured with the own engine at the shell's level."""
-    r = _ball_grid(25, 3)
-    shell = np.where((r >= 6) & (r <= 10), 0.0, 1.0)
-    diagram = voxtopo.persistence(shell, neighbourhood=neighbourhood, engine="voxtopo")
+    values = np.where(shell(25, 6, 10), 0.0, 1.0)
+    diagram = voxtopo.persistence(values, neighbourhood=neighbourhood, engine="voxtopo")
     assert diagram.engine == "voxtopo"
     assert diagram.betti(0.0) == [1, 0, 1]
 
@@ -117,17 +111,15 @@ def test_spherical_shell_has_one_cavity(neighbourhood):
 @pytest.mark.parametrize("neighbourhood", [4, 8])
 def test_annulus_has_one_loop(neighbourhood):
     """Betti numbers of an annulus are (1, 1) (Hatcher 2002, "Algebraic Topology")."""
-    r = _ball_grid(31, 2)
-    annulus = np.where((r >= 6) & (r <= 12), 0.0, 1.0)
-    diagram = voxtopo.persistence(annulus, neighbourhood=neighbourhood, engine="voxtopo")
+    values = np.where(annulus(31, 6, 12), 0.0, 1.0)
+    diagram = voxtopo.persistence(values, neighbourhood=neighbourhood, engine="voxtopo")
     assert diagram.betti(0.0) == [1, 1]
 
 
 def test_solid_torus_has_one_tunnel():
     """Betti numbers of a solid torus are (1, 1, 0) (Hatcher 2002, "Algebraic Topology");
     a superlevel run on the bright torus."""
-    z, y, x = np.meshgrid(*([np.arange(33) - 16.0] * 3), indexing="ij")
-    torus = ((np.hypot(y, x) - 10) ** 2 + z * z <= 16).astype(np.uint8) * 200
+    torus = solid_torus(33, big=10, small=4).astype(np.uint8) * 200
     diagram = voxtopo.persistence(torus, superlevel=True, engine="voxtopo")
     assert diagram.betti(200) == [1, 1, 0]
 

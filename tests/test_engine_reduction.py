@@ -10,12 +10,12 @@ External checks:
   torus surface two.
 """
 
-import gudhi
 import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
+from reference import gudhi_intervals, torus_distance
 
 from voxtopo.engine._reduction import (
     pairs_dim1,
@@ -31,11 +31,8 @@ CONSTRUCTIONS = ["voxel", "vertex"]
 
 def gudhi_dim1(values, construction):
     """Finite dimension-1 pairs of positive persistence from gudhi, sorted."""
-    key = "top_dimensional_cells" if construction == "voxel" else "vertices"
-    complex_ = gudhi.CubicalComplex(**{key: np.asarray(values, dtype=np.float64)})
-    complex_.compute_persistence(homology_coeff_field=2, min_persistence=0)
-    intervals = np.asarray(complex_.persistence_intervals_in_dimension(1)).reshape(-1, 2)
-    return sorted((float(b), float(d)) for b, d in intervals if d > b)
+    intervals = gudhi_intervals(values, 1, construction=construction)
+    return sorted((float(b), float(d)) for b, d in intervals)
 
 
 def as_sorted_pairs(birth, death):
@@ -117,16 +114,6 @@ def test_noisy_volumes_with_ties_equal_gudhi(construction, levels):
     shared = pairs_dim1(values, construction, threads=2)
     for mine, theirs in zip((birth, death, birth_index, death_index), shared):
         assert np.array_equal(mine, theirs)
-
-
-def torus_distance(shape=(24, 44, 44), core_radius=12.0):
-    """Distance of each voxel centre to a circle of radius ``core_radius`` in the middle
-    z-plane (y, x centred)."""
-    z, y, x = np.indices(shape, dtype=np.float64)
-    z -= (shape[0] - 1) / 2
-    y -= (shape[1] - 1) / 2
-    x -= (shape[2] - 1) / 2
-    return np.sqrt((np.hypot(y, x) - core_radius) ** 2 + z ** 2)
 
 
 def bars_alive(birth, death, level):

@@ -7,12 +7,12 @@ neighbourhoods and the number of components, numpy's stable argsort for the orde
 
 from collections import Counter
 
-import gudhi
 import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
+from reference import gudhi_intervals
 from scipy import ndimage
 
 from voxtopo.engine import _union_find, own
@@ -42,11 +42,8 @@ def _kernel_pairs(values, ascending, corners, with_outside):
 
 def _gudhi_pairs(values, construction, dim):
     """(birth, death) of dimension ``dim`` of the sublevel filtration, finite only."""
-    key = "top_dimensional_cells" if construction == "voxel" else "vertices"
-    cubical = gudhi.CubicalComplex(**{key: values.astype(np.float64)})
-    cubical.compute_persistence(homology_coeff_field=2, min_persistence=0)
-    pairs = cubical.persistence_intervals_in_dimension(dim)
-    return Counter((b, d) for b, d in pairs.tolist() if d > b and np.isfinite(d))
+    pairs = gudhi_intervals(values, dim, construction=construction)
+    return Counter((b, d) for b, d in pairs.tolist() if np.isfinite(d))
 
 
 @SETTINGS

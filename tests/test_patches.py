@@ -302,6 +302,9 @@ def test_voxtopo_patches_writes_a_complete_folder(tmp_path):
     cloud = np.load(out / "cloud.npy", allow_pickle=False)
     np.testing.assert_allclose(np.linalg.norm(cloud, axis=1), 1.0, atol=1e-12)
     summary = json.loads((out / "summary.json").read_text())
+    # common practice, no source: the table says the unit of each of its columns
+    assert list(summary["columns"]["pairs.csv"]) == list(pairs.columns)
+    assert summary["columns"]["pairs.csv"]["birth"].startswith("distance")
     assert summary["counts"]["kept"] == len(cloud) == 2400
     assert summary["counts"]["core"] == len(np.load(out / "core.npy", allow_pickle=False))
     assert any("not a medical diagnosis" in c for c in summary["cautions"])

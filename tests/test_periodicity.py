@@ -409,11 +409,15 @@ def test_periodicity_command_writes_a_complete_result_folder(tmp_path):
     assert table["period"][0] == pytest.approx(1.5, rel=0.05)
     assert bool(table["significant"][0]) and not bool(table["significant"][1])
     # position in the scan's unit: the disc is centred on pixel (8, 8), 0.5 um each
-    assert table["y"][0] == pytest.approx(4.0, abs=0.05) and table["x"][0] == pytest.approx(4.0, abs=0.05)
+    assert table["centre_y"][0] == pytest.approx(4.0, abs=0.05)
+    assert table["centre_x"][0] == pytest.approx(4.0, abs=0.05)
+    assert table["centre_voxel_y"][0] == pytest.approx(8.0, abs=0.1)
     summary = json.loads((out / "summary.json").read_text())
     assert summary["counts"]["statement"].startswith("1 significant of 2 regions at alpha 0.05")
-    assert summary["columns"]["period"].startswith("s")
-    assert summary["columns"]["y"] == "centre, um"
+    units = summary["columns"]["regions.csv"]
+    assert list(units) == list(table.columns)
+    assert units["period"] == "s" and units["damping"] == "1/s"
+    assert units["centre_y"] == "um" and units["centre_voxel_y"] == "voxel index"
     with tifffile.TiffFile(out / "period.tif") as tif:
         period_map = tif.asarray()
         assert tif.pages[0].tags["XResolution"].value[0] / tif.pages[0].tags["XResolution"].value[1] \
@@ -502,7 +506,7 @@ def test_a_time_series_of_volumes_gives_volume_maps_in_the_scans_unit(tmp_path):
     result = run(lapse, PeriodicityOptions(regions=ball.astype(np.uint8), surrogates=19,
                                            whole_field=False))
     row = result.table.iloc[0]
-    assert (row["z"], row["y"], row["x"]) == pytest.approx((6.0, 2.5, 3.0))
+    assert (row["centre_z"], row["centre_y"], row["centre_x"]) == pytest.approx((6.0, 2.5, 3.0))
     assert row["period"] == pytest.approx(1.0, rel=0.05) and row["significant"]
     assert result.signals.paint(result.table["score"]).shape == (7, 12, 12)
     assert "of 1 regions at alpha 0.05" in result.counts["statement"]

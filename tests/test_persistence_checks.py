@@ -89,13 +89,13 @@ def test_birth_and_death_voxels_hold_the_birth_and_death_values(shape, neighbour
     diagram = voxtopo.persistence(image, neighbourhood=neighbourhood, superlevel=superlevel)
     pairs = diagram.pairs
     axes = ["z", "y", "x"][3 - image.ndim:]
-    birth_idx = tuple(pairs[f"birth_{a}"].to_numpy(dtype=int) for a in axes)
+    birth_idx = tuple(pairs[f"birth_voxel_{a}"].to_numpy(dtype=int) for a in axes)
     np.testing.assert_array_equal(image[birth_idx], pairs["birth"].to_numpy())
     finite = pairs[np.isfinite(pairs["death"])]
-    death_idx = tuple(finite[f"death_{a}"].to_numpy(dtype=int) for a in axes)
+    death_idx = tuple(finite[f"death_voxel_{a}"].to_numpy(dtype=int) for a in axes)
     np.testing.assert_array_equal(image[death_idx], finite["death"].to_numpy())
     essential = pairs[~np.isfinite(pairs["death"])]
-    assert essential[[f"death_{a}" for a in axes]].isna().all().all()
+    assert essential[[f"death_voxel_{a}" for a in axes]].isna().all().all()
 
 
 def test_superlevel_pairs_keep_the_scans_own_values():

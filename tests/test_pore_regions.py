@@ -13,7 +13,7 @@ from voxtopo.porosity._regions import pore_regions, pore_regions_by_levels
 def _pores(distance, neighbourhood, min_persistence=0.0):
     pores = voxtopo.persistence(distance, neighbourhood=neighbourhood, engine="gudhi",
                                 min_persistence=min_persistence).dimension(0).pairs
-    axes = ["birth_z", "birth_y", "birth_x"][3 - distance.ndim:]
+    axes = ["birth_voxel_z", "birth_voxel_y", "birth_voxel_x"][3 - distance.ndim:]
     return pores[axes].to_numpy(dtype=np.int64), pores["death"].to_numpy()
 
 
@@ -64,7 +64,7 @@ def test_two_balls_joined_by_a_throat_split_into_two_regions():
     finite = pores[np.isfinite(pores["death"])]
     assert len(finite) == 1
     assert abs(-finite["death"].iloc[0] - 2) <= 1.0
-    births = pores[["birth_z", "birth_y", "birth_x"]].to_numpy(dtype=np.int64)
+    births = diagram.voxels("birth")
     labels = pore_regions(distance, births, pores["death"].to_numpy(), 26)
     np.testing.assert_array_equal(labels > 0, mask)
     structure = ndimage.generate_binary_structure(3, 3)

@@ -24,7 +24,8 @@ import pytest
 from skimage.measure import euler_number
 
 from voxtopo.errors import InputError
-from voxtopo.porosity import analyse, write_pores
+from voxtopo.jobs.pores import write_pores
+from voxtopo.porosity import analyse
 from voxtopo.porosity._euler import euler_characteristic, euler_characteristic_python
 
 ONE_VOXEL = 1.0
@@ -663,7 +664,8 @@ def test_every_column_has_its_unit_and_2d_sizes_are_areas(tmp_path):
         assert set(summary["columns"][name]) == set(table.columns), name
     assert summary["columns"]["pores.csv"]["body_area"] == "um^2"
     assert summary["columns"]["pores.csv"]["body_x"] == "um"
-    assert summary["columns"]["pairs.csv"]["birth_x"] == "voxel index"
+    assert summary["columns"]["pairs.csv"]["birth_x"] == "um"
+    assert summary["columns"]["pairs.csv"]["birth_voxel_x"] == "voxel index"
     # positions are physical: every body centre is a pixel centre times the spacing
     pores = pd.read_csv(out / "pores.csv")
     assert np.allclose(np.mod(pores["body_x"] / 0.5, 1.0), 0.0)
@@ -696,7 +698,7 @@ def test_diagram_plot_names_the_zones_in_our_words(simple_cubic):
     import matplotlib
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
-    from voxtopo.porosity._write import _diagram_plot
+    from voxtopo.report.pores import _diagram_plot
     mask, radius, result = simple_cubic
     fig = _diagram_plot(plt, result, "px", mask, 3)
     labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]

@@ -6,41 +6,9 @@ spherical shell (1,0,1), solid torus (1,1,0), thickened torus surface (1,2,1).
 
 import numpy as np
 import pytest
+from reference import annulus, ball, shell, solid_torus, torus_surface
 
 import voxtopo
-
-
-def _grid(n, ndim):
-    c = (n - 1) / 2
-    return np.meshgrid(*([np.arange(n) - c] * ndim), indexing="ij")
-
-
-def annulus(n=41, r_in=8, r_out=15):
-    y, x = _grid(n, 2)
-    r = np.hypot(y, x)
-    return (r >= r_in) & (r <= r_out)
-
-
-def ball(n=31, r=11):
-    z, y, x = _grid(n, 3)
-    return np.sqrt(z * z + y * y + x * x) <= r
-
-
-def shell(n=33, r_in=8, r_out=13):
-    z, y, x = _grid(n, 3)
-    r = np.sqrt(z * z + y * y + x * x)
-    return (r >= r_in) & (r <= r_out)
-
-
-def solid_torus(n=41, big=12, small=5):
-    z, y, x = _grid(n, 3)
-    return (np.hypot(y, x) - big) ** 2 + z * z <= small * small
-
-
-def torus_surface(n=45, big=13, small=6, thickness=2.2):
-    z, y, x = _grid(n, 3)
-    tube = np.sqrt((np.hypot(y, x) - big) ** 2 + z * z)
-    return np.abs(tube - small) <= thickness
 
 
 SHAPES = [

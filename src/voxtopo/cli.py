@@ -128,6 +128,10 @@ def _add_analyse(subparsers) -> None:
     f.add_argument("--smooth", type=float, metavar="SIGMA",
                    help="Gaussian smoothing, sigma in the scan's unit")
     f.add_argument("--crop", metavar="Z0:Z1,Y0:Y1,X0:X1", help="analyse only this box")
+    f.add_argument("--roi", metavar="MASKFILE",
+                   help="region of interest: a binary mask on the scan's grid, 1 = inside; "
+                        "voxels outside it are not part of the complex, and the noise is "
+                        "read and simulated inside it")
     f.add_argument("--downsample", type=int, default=1, metavar="N",
                    help="block-mean downsampling by N along every axis")
     f.add_argument("--distance", action="store_true",
@@ -169,15 +173,17 @@ def _add_analyse(subparsers) -> None:
     p.set_defaults(handler=_run_analyse)
 
 
-def _run_job(name: str, args, options, load_input, inputs) -> int:
-    """The one way every subcommand runs its job: check the output, read the input, run
-    with a progress bar, write the result folder, say what was found."""
+def _run_job(name: str, args, options, source, load_options: dict, inputs) -> int:
+    """The one way every subcommand runs its job: check the output, read ``source`` (a
+    path, or a list of paths) as the job reads it, run with a progress bar, write the
+    result folder, say what was found."""
     from . import jobs
     from .io.results import check_target
 
     job = jobs.get(name)
     check_target(args.out, args.force, inputs=inputs)
-    data = load_input()
+    data = ([jobs.read_input(name, path, load_options) for path in source]
+            if isinstance(source, list) else jobs.read_input(name, source, load_options))
     for scan in data if isinstance(data, list) else [data]:
         _say_notes(scan)
     bar = ProgressBar()
@@ -193,12 +199,7 @@ def _run_job(name: str, args, options, load_input, inputs) -> int:
 
 
 def _run_analyse(args) -> int:
-    from .io import load
-    from .jobs.analyse import AnalysisOptions
-    if args.distance and args.significance is not None:
-        raise VoxtopoError("--significance tests gray-value sweeps and would be ignored with "
-                           "--distance (robust features are kept there); leave it out or "
-                           "set --boundary-tolerance.")
+    from .jobs.analyse import DEFAULT_SIGNIFICANCE, AnalysisOptions
     options = AnalysisOptions(
         superlevel=args.superlevel, neighbourhood=args.neighbourhood, sigma=args.smooth,
         crop=args.crop, downsample=args.downsample, distance=args.distance,
@@ -206,14 +207,15 @@ def _run_analyse(args) -> int:
         fill_invalid=_fill_value(args.fill_invalid),
         min_persistence=_min_persistence(args.min_persistence),
         periodic=args.periodic, field=args.field, engine=args.engine,
-        significance=0.05 if args.significance is None else args.significance,
+        significance=(DEFAULT_SIGNIFICANCE if args.significance is None
+                      else args.significance),
         noise=args.noise, noise_model=args.noise_model,
-        boundary_tolerance=args.boundary_tolerance)
+        boundary_tolerance=args.boundary_tolerance, roi=args.roi)
     load_options = load_options_from(args)
     if args.out_of_core:
         return _run_out_of_core(args, options, load_options)
-    return _run_job("analyse", args, options, lambda: load(args.scan, **load_options),
-                    [args.scan])
+    return _run_job("analyse", args, options, args.scan, load_options,
+                    [args.scan, args.roi])
 
 
 def _say_notes(scan) -> None:
@@ -305,7 +307,6 @@ def _add_pores(subparsers) -> None:
 
 
 def _run_pores(args) -> int:
-    from .io import load
     from .jobs.pores import PoresOptions
     options = PoresOptions(
         mask=args.mask, threshold=_threshold_value(args.threshold),
@@ -313,18 +314,15 @@ def _run_pores(args) -> int:
         roi=args.roi, axis=tuple(args.axis) if args.axis else None,
         neighbourhood=args.neighbourhood, min_persistence=args.min_persistence,
         engine=args.engine, boundary_tolerance=args.boundary_tolerance)
-    load_options = load_options_from(args)
-    return _run_job("pores", args, options, lambda: load(args.scan, **load_options),
+    return _run_job("pores", args, options, args.scan, load_options_from(args),
                     [args.scan, args.mask, args.roi])
 
 
 def _run_out_of_core(args, options, load_options) -> int:
-    from .io.results import check_target
     from .jobs import analyse
-    check_target(args.out, args.force, inputs=[args.scan])
-    result = analyse.run_out_of_core(args.scan, options, load_options=load_options,
-                                     chunks=args.chunks)
-    analyse.write(result, args.out, force=args.force)
+    result = analyse.analyse_out_of_core(args.scan, args.out, options,
+                                         load_options=load_options, chunks=args.chunks,
+                                         force=args.force)
     print(f"voxtopo: {analyse.describe(result)}; {'; '.join(result.diagram.notes)}")
     print(f"voxtopo: results written to {args.out} (research use only)")
     return 0
@@ -515,7 +513,6 @@ def _add_patches(subparsers) -> None:
 
 
 def _run_patches(args) -> int:
-    from .io import load
     from .jobs.patches import PatchOptions
     options = PatchOptions(
         k=args.patch_size, contrast_percent=args.contrast_percent, positions=args.positions,
@@ -524,9 +521,8 @@ def _run_patches(args) -> int:
         landmarks=args.landmarks, fields=args.field, max_edge=args.max_edge,
         method=args.method, max_dimension=args.max_dimension,
         significance=args.significance, resamples=args.resamples)
-    load_options = load_options_from(args)
-    return _run_job("patches", args, options,
-                    lambda: [load(path, **load_options) for path in args.images], args.images)
+    return _run_job("patches", args, options, list(args.images), load_options_from(args),
+                    args.images)
 
 
 def _period_range(text: str):
@@ -595,19 +591,16 @@ def _add_periodicity(subparsers) -> None:
 
 
 def _run_periodicity(args) -> int:
-    from .io import load_timelapse
     from .jobs.periodicity import PeriodicityOptions
     options = PeriodicityOptions(
         periods=args.periods, bin=args.bin, tiles=args.tiles, regions=args.regions,
         surrogates=args.surrogates, significance=args.significance, points=args.points,
         whole_field=args.whole_field, seed=args.seed)
-
-    def load_input():
-        return load_timelapse(args.stack, axes=args.axes, frame_interval=args.frame_interval,
-                              spacing=args.spacing, unit=args.unit, channel=args.channel,
-                              level=args.level)
-
-    return _run_job("periodicity", args, options, load_input, [args.stack, args.regions])
+    load_options = {"axes": args.axes, "frame_interval": args.frame_interval,
+                    "spacing": args.spacing, "unit": args.unit, "channel": args.channel,
+                    "level": args.level}
+    return _run_job("periodicity", args, options, args.stack, load_options,
+                    [args.stack, args.regions])
 
 
 SUBCOMMANDS = (_add_analyse, _add_pores, _add_batch, _add_compare, _add_patches,

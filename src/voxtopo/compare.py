@@ -119,6 +119,16 @@ def check_comparable(diagrams) -> None:
     the same way (sublevel or superlevel) and hold the same kind of values in the same
     unit (gray values, or distances in one physical unit). It reads only the diagrams'
     descriptions, so callers run it before computing anything.
+
+    Parameters
+    ----------
+    diagrams : iterable of Diagram
+        At least one diagram.
+
+    Raises
+    ------
+    InputError
+        Naming the first diagram that differs from the first one, and how.
     """
     diagrams = list(diagrams)
     first = diagrams[0]
@@ -168,6 +178,20 @@ def select_features(diagram: Diagram, *, all_pairs: bool = False,
     pairs. ``all_pairs=True`` keeps every pair. In both cases only finite pairs whose
     persistence is above ``min_persistence`` stay.
 
+    Parameters
+    ----------
+    diagram : Diagram
+        A diagram, with or without a ``significant`` / ``robust`` column.
+    all_pairs : bool
+        Keep every pair instead of the flagged ones.
+    min_persistence : float
+        The shortest lifetime kept, in the diagram's units (0 or more).
+
+    Returns
+    -------
+    Diagram
+        A copy holding the selected pairs.
+
     Examples
     --------
     >>> import numpy as np, voxtopo
@@ -200,7 +224,7 @@ def _level_of(diagram: Diagram, flag: str) -> str | None:
 def _features_compared(diagrams, names, all_pairs: bool,
                        min_persistence: float) -> tuple[str, list[str]]:
     """The phrase that says which pairs were compared, and notes on older results."""
-    above = (f" with persistence above {min_persistence:g} {_value_unit(diagrams[0])}"
+    above = (f" with persistence above {min_persistence:g} {diagrams[0].value_unit}"
              if min_persistence > 0 else "")
     flags = [_flag_of(d) for d in diagrams]
     if all_pairs:
@@ -239,10 +263,6 @@ def _only_flagged_note(diagram: Diagram, name: str, flag: str) -> str:
             f"features")
 
 
-def _value_unit(diagram: Diagram) -> str:
-    return diagram.unit if diagram.values == "distance" else "gray value"
-
-
 def _finite_bottleneck(a: np.ndarray, b: np.ndarray) -> float:
     import gudhi
 
@@ -254,6 +274,17 @@ def _finite_bottleneck(a: np.ndarray, b: np.ndarray) -> float:
 def wasserstein_bytes(n_first: int, n_second: int) -> int:
     """Estimated peak memory, in bytes, of one Wasserstein call between ``n_first`` and
     ``n_second`` finite pairs (see WASSERSTEIN_BYTES_PER_CELL).
+
+    Parameters
+    ----------
+    n_first, n_second : int
+        Finite pairs of the two diagrams in one dimension.
+
+    Returns
+    -------
+    int
+        WASSERSTEIN_BYTES_PER_CELL bytes per cell of the (n_first + 1) x (n_second + 1)
+        cost matrix; 0 when both diagrams are empty.
 
     Examples
     --------
@@ -385,6 +416,32 @@ def distance_matrix(diagrams, dims=(0,), *, metric: str = "bottleneck", order: f
                     essential: str = "separate") -> np.ndarray:
     """Symmetric (n, n) matrix of distances between every pair of ``diagrams``.
 
+    Parameters
+    ----------
+    diagrams : iterable of Diagram
+        Comparable diagrams (:func:`check_comparable`).
+    dims : int or sequence of int
+        Homology dimensions; their distances are combined as :func:`bottleneck` and
+        :func:`wasserstein` combine them.
+    metric : {"bottleneck", "wasserstein"}
+        The distance.
+    order : float
+        The Wasserstein order q (ignored by the bottleneck distance).
+    essential : {"separate", "ignore"}
+        How classes that never die are compared (see :func:`bottleneck`).
+
+    Returns
+    -------
+    ndarray, shape (n, n)
+        Zero diagonal; ``inf`` where two diagrams have different numbers of essential
+        classes and ``essential="separate"``.
+
+    Raises
+    ------
+    InputError
+        For an unknown metric, incomparable diagrams, or Wasserstein distances that would
+        not fit in memory.
+
     Examples
     --------
     >>> import numpy as np, voxtopo
@@ -453,6 +510,22 @@ def image_grid(diagrams, dim: int, *, resolution: int = 20, sigma: float | None 
     largest persistence, each widened by three sigma so that no Gaussian is cut short
     where the data are. The default ``sigma`` is one pixel of the undilated persistence
     axis (largest persistence / resolution); the weight ramp is the largest persistence.
+
+    Parameters
+    ----------
+    diagrams : iterable of Diagram
+        The diagrams whose images will share the grid.
+    dim : int
+        Homology dimension.
+    resolution : int
+        Pixels along each axis, 2 or more.
+    sigma : float, optional
+        Standard deviation of each pair's Gaussian, in the diagrams' units.
+
+    Returns
+    -------
+    PersistenceImageGrid
+        Pixel edges along birth and persistence, ``sigma`` and the weight ramp.
     """
     if not (isinstance(resolution, (int, np.integer)) and resolution >= 2):
         raise InputError(f"The persistence image resolution must be an integer >= 2, "
@@ -512,6 +585,15 @@ def persistence_image(diagram: Diagram, dim: int, grid: PersistenceImageGrid) ->
     ``grid.sigma``; a pixel holds the weighted Gaussian mass that falls inside it.
     Essential classes are left out (their persistence is infinite).
 
+    Parameters
+    ----------
+    diagram : Diagram
+        The diagram.
+    dim : int
+        Homology dimension.
+    grid : PersistenceImageGrid
+        From :func:`image_grid`, shared by the images that are compared.
+
     Returns
     -------
     ndarray, shape (persistence pixels, birth pixels)
@@ -553,8 +635,21 @@ def common_levels(diagrams, n: int = 128) -> np.ndarray:
 def betti_curves(diagrams, names, n: int = 128) -> pd.DataFrame:
     """Betti curves of every diagram on one common grid of ``n`` levels.
 
-    Returns a long table: ``name, level, betti_0, betti_1, (betti_2)``; superlevel grids
-    run from high to low, in the order the sweep sees them.
+    Parameters
+    ----------
+    diagrams : sequence of Diagram
+        Comparable diagrams.
+    names : sequence of str
+        One name per diagram.
+    n : int
+        Number of levels, spread evenly from the lowest to the highest finite value of
+        all diagrams.
+
+    Returns
+    -------
+    DataFrame
+        A long table: ``name, level, betti_0, betti_1, (betti_2)``; superlevel grids run
+        from high to low, in the order the sweep sees them.
     """
     levels = common_levels(list(diagrams), n)
     frames = []
@@ -579,6 +674,18 @@ def _check_matrix(matrix: np.ndarray) -> np.ndarray:
 
 def embed_mds(matrix, *, seed: int = 0) -> np.ndarray:
     """(n, 2) metric MDS embedding of a precomputed distance matrix (scikit-learn).
+
+    Parameters
+    ----------
+    matrix : array_like, shape (n, n)
+        Finite distances, n at least 3.
+    seed : int
+        Seed of the MDS start, so that the picture is the same every run.
+
+    Returns
+    -------
+    ndarray, shape (n, 2)
+        One point per diagram.
 
     Examples
     --------
@@ -605,6 +712,16 @@ def distinct_groupings(group_sizes) -> int:
     The test statistic ignores the names of the groups, so relabellings that only swap
     two groups of equal size give the same grouping: with n diagrams in groups of sizes
     n_g, and m_k groups of size k, there are n! / (prod_g n_g! * prod_k m_k!).
+
+    Parameters
+    ----------
+    group_sizes : iterable of int
+        Members of each group, each 1 or more.
+
+    Returns
+    -------
+    int
+        The number of distinct groupings.
 
     Examples
     --------
@@ -676,6 +793,24 @@ def permutation_test(matrix, groups, *, n_permutations: int = 999,
     which never reports an impossible p = 0. With few diagrams the test is coarse: only
     :func:`distinct_groupings` different groupings exist, so p cannot fall much below one
     over their number (the result's ``smallest_p_value``).
+
+    Parameters
+    ----------
+    matrix : array_like, shape (n, n)
+        Finite distances between the diagrams.
+    groups : sequence of str
+        One group label per diagram; at least two groups, one with two or more members.
+    n_permutations : int
+        Shuffles of the labels.
+    seed : int
+        Seed of the shuffles.
+
+    Returns
+    -------
+    PermutationResult
+        The statistic, the p-value, the permutations and seed, the number of distinct
+        groupings, the group sizes and (as ``smallest_p_value``) about the smallest
+        p-value the test can reach.
 
     References
     ----------
@@ -790,7 +925,13 @@ class Comparison:
 
     def save(self, folder) -> None:
         """Write distances.csv, distance_matrix.csv, betti_curves.csv,
-        persistence_images.npz, embedding.csv and summary.json into ``folder``."""
+        persistence_images.npz, embedding.csv and summary.json into ``folder``.
+
+        Parameters
+        ----------
+        folder : str or Path
+            An existing folder (the temporary folder of a comparison being written).
+        """
         folder = Path(folder)
         self.distance_table().to_csv(folder / "distances.csv", index=False,
                                      float_format="%.10g")
@@ -933,7 +1074,7 @@ def compare_diagrams(diagrams, names=None, groups=None, *, dims=(0, 1),
                              "groups and one with two or more members)")
     return Comparison(names, [str(g) for g in groups] if groups is not None
                       else [""] * len(diagrams), dims, metric, float(order), essential,
-                      features, min_persistence, _value_unit(diagrams[0]),
+                      features, min_persistence, diagrams[0].value_unit,
                       [{dim: int((d.pairs["dim"] == dim).sum()) for dim in dims}
                        for d in diagrams], matrices, images, grids, curves, embedding, test,
                       notes)
@@ -968,9 +1109,25 @@ def load_results(paths, group_column: str | None = None):
     change nothing). The ``significant`` or ``robust`` column of pairs.csv, when there,
     comes along, so that :func:`compare_diagrams` can keep the features it flags.
 
+    Parameters
+    ----------
+    paths : iterable of str or Path
+        Result folders and batch folders.
+    group_column : str, optional
+        The column of the batch folders' summary.csv that groups their scans.
+
     Returns
     -------
-    (list of Diagram, list of str, list of str)
+    diagrams : list of Diagram
+    names : list of str
+    groups : list of str
+        In the order of ``paths`` (a batch folder's scans in its summary's order).
+
+    Raises
+    ------
+    InputError
+        For a path that is not a folder, a folder voxtopo did not write, or a
+        ``group_column`` without a batch folder or missing from its summary.csv.
     """
     paths = [Path(path) for path in paths]
     for path in paths:

@@ -18,20 +18,44 @@ AXES_3D = ("z", "y", "x")
 VERDICT_COLUMNS = ("p_value", "significant", "robust")
 
 
-def location_columns(ndim: int) -> list[str]:
-    """birth_z, birth_y, birth_x, death_z, ... (2D drops the z columns)."""
+#: What the unit of a column that is neither a value nor a position says.
+VOXEL_INDEX = "voxel index"
+
+
+def position_columns(ndim: int) -> list[str]:
+    """birth_z, birth_y, birth_x, death_z, ...: positions in the scan's unit (2D drops z).
+
+    Examples
+    --------
+    >>> position_columns(2)
+    ['birth_y', 'birth_x', 'death_y', 'death_x']
+    """
     axes = AXES_3D[3 - ndim:]
     return [f"birth_{a}" for a in axes] + [f"death_{a}" for a in axes]
 
 
 #: Bytes one pair takes at the peak of building a Diagram (the backend's RawPairs, 33,
-#: and the table made from them, about 128 measured on 4 million pairs of a 3D scan).
-TABLE_BYTES_PER_PAIR = 170
+#: and the table made from them with voxel and unit positions, about 172 measured on 4
+#: million pairs of a 3D scan).
+TABLE_BYTES_PER_PAIR = 210
+
+
+def voxel_columns(ndim: int) -> list[str]:
+    """birth_voxel_z, ..., death_voxel_x: the same places as voxel indices.
+
+    Examples
+    --------
+    >>> voxel_columns(2)
+    ['birth_voxel_y', 'birth_voxel_x', 'death_voxel_y', 'death_voxel_x']
+    """
+    axes = AXES_3D[3 - ndim:]
+    return [f"birth_voxel_{a}" for a in axes] + [f"death_voxel_{a}" for a in axes]
 
 
 def columns(ndim: int) -> list[str]:
     """The columns of ``Diagram.pairs`` for a scan of ``ndim`` dimensions."""
-    return ["dim", "birth", "death", "persistence"] + location_columns(ndim)
+    return (["dim", "birth", "death", "persistence"] + position_columns(ndim)
+            + voxel_columns(ndim))
 
 
 
@@ -51,8 +75,9 @@ class Diagram:
     """A persistence diagram of a scan.
 
     ``pairs`` is a DataFrame with one row per pair: ``dim, birth, death, persistence,
-    birth_z, birth_y, birth_x, death_z, death_y, death_x`` (2D drops the z columns).
-    Locations are voxel indices (nullable integers); an essential class has
+    birth_z, birth_y, birth_x, death_z, death_y, death_x`` (positions in the scan's unit,
+    voxel index times spacing), then ``birth_voxel_z, ..., death_voxel_x`` (the same places
+    as voxel indices, nullable integers); 2D drops the z columns. An essential class has
     ``death = inf`` (superlevel: ``-inf``), infinite persistence and no death location.
 
     The other fields say how the diagram was made, so it can be read on its own.
@@ -95,15 +120,15 @@ class Diagram:
         del persistence
         axes = AXES_3D[3 - ndim:]
         for a, coord in zip(axes, np.unravel_index(raw.birth_index[rows], scan.shape)):
-            frame[f"birth_{a}"] = pd.array(coord, dtype="Int64")
+            frame[f"birth_voxel_{a}"] = pd.array(coord, dtype="Int64")
         death_index = raw.death_index[rows]
         essential = death_index < 0
         for a, coord in zip(axes, np.unravel_index(np.maximum(death_index, 0), scan.shape)):
             column = pd.array(coord, dtype="Int64")
             column[essential] = pd.NA
-            frame[f"death_{a}"] = column
+            frame[f"death_voxel_{a}"] = column
         del death_index, essential, rows
-        pairs = pd.DataFrame(frame, columns=columns(ndim), copy=False)
+        pairs = _with_positions(pd.DataFrame(frame, copy=False), ndim, scan.spacing)
         return cls(pairs=pairs, ndim=ndim, shape=tuple(scan.shape), superlevel=superlevel,
                    neighbourhood=neighbourhood, spacing=tuple(scan.spacing), unit=scan.unit,
                    values=scan.values, field=field, periodic=tuple(periodic),
@@ -118,11 +143,31 @@ class Diagram:
         return len(self.pairs)
 
     def dimension(self, dim: int) -> "Diagram":
-        """Only the pairs of homological dimension ``dim``."""
+        """Only the pairs of homological dimension ``dim``.
+
+        Parameters
+        ----------
+        dim : int
+            Homology dimension.
+
+        Returns
+        -------
+        Diagram
+        """
         return self._with_pairs(self.pairs[self.pairs["dim"] == dim])
 
     def above(self, min_persistence: float) -> "Diagram":
-        """Only the pairs whose persistence is strictly greater than ``min_persistence``."""
+        """Only the pairs whose persistence is strictly greater than ``min_persistence``.
+
+        Parameters
+        ----------
+        min_persistence : float
+            The shortest lifetime kept is just above this, in the diagram's units.
+
+        Returns
+        -------
+        Diagram
+        """
         return self._with_pairs(self.pairs[self.pairs["persistence"] > min_persistence])
 
     def finite(self) -> "Diagram":
@@ -130,18 +175,53 @@ class Diagram:
         return self._with_pairs(self.pairs[np.isfinite(self.pairs["death"])])
 
     def intervals(self, dim: int) -> np.ndarray:
-        """(n, 2) array of (birth, death) in dimension ``dim``."""
+        """(n, 2) array of (birth, death) in dimension ``dim``.
+
+        Parameters
+        ----------
+        dim : int
+            Homology dimension.
+
+        Returns
+        -------
+        ndarray of float64, shape (n, 2)
+            Essential classes have death ``inf`` (superlevel: ``-inf``).
+        """
         rows = self.pairs[self.pairs["dim"] == dim]
         return rows[["birth", "death"]].to_numpy(dtype=np.float64)
 
     def most_persistent(self, n: int = 10, dim: int | None = None) -> pd.DataFrame:
-        """The ``n`` longest-lived pairs (per dimension when ``dim`` is None)."""
+        """The ``n`` longest-lived pairs (per dimension when ``dim`` is None).
+
+        Parameters
+        ----------
+        n : int
+            Pairs per dimension.
+        dim : int, optional
+            Only this dimension.
+
+        Returns
+        -------
+        DataFrame
+            Rows of ``pairs``, by dimension and then longest first.
+        """
         rows = self.pairs if dim is None else self.pairs[self.pairs["dim"] == dim]
         return (rows.sort_values(["dim", "persistence"], ascending=[True, False], kind="stable")
                 .groupby("dim", group_keys=False).head(n))
 
     def counts(self, min_persistence: float | None = None) -> dict[int, int]:
-        """Number of pairs per dimension (above ``min_persistence`` when given)."""
+        """Number of pairs per dimension (above ``min_persistence`` when given).
+
+        Parameters
+        ----------
+        min_persistence : float, optional
+            Count only pairs whose persistence is strictly greater.
+
+        Returns
+        -------
+        dict
+            Dimension (0 to ndim - 1) -> number of pairs.
+        """
         rows = self.pairs if min_persistence is None else \
             self.pairs[self.pairs["persistence"] > min_persistence]
         return {d: int((rows["dim"] == d).sum()) for d in range(self.ndim)}
@@ -158,13 +238,34 @@ class Diagram:
         """Betti numbers [b0, b1, (b2)] of the swept set at ``level``.
 
         Sublevel: the set {value <= level}; superlevel: {value >= level}.
+
+        Parameters
+        ----------
+        level : float
+            The level of the sweep, in the diagram's units.
+
+        Returns
+        -------
+        list of int
+            One Betti number per dimension.
         """
         alive = self._alive(level)
         dims = self.pairs["dim"].to_numpy()
         return [int(np.count_nonzero(alive & (dims == k))) for k in range(self.ndim)]
 
     def betti_curve(self, levels) -> pd.DataFrame:
-        """Betti numbers at each level: columns ``level, betti_0, betti_1, (betti_2)``."""
+        """Betti numbers at each level: columns ``level, betti_0, betti_1, (betti_2)``.
+
+        Parameters
+        ----------
+        levels : array_like
+            Levels of the sweep, in the diagram's units.
+
+        Returns
+        -------
+        DataFrame
+            One row per level, in the order given.
+        """
         levels = np.asarray(levels, dtype=np.float64)
         b = self.pairs["birth"].to_numpy()
         d = self.pairs["death"].to_numpy()
@@ -183,13 +284,36 @@ class Diagram:
         return pd.DataFrame(out)
 
     def euler_curve(self, levels) -> pd.DataFrame:
-        """Euler characteristic (alternating sum of Betti numbers) at each level."""
+        """Euler characteristic (alternating sum of Betti numbers) at each level.
+
+        Parameters
+        ----------
+        levels : array_like
+            Levels of the sweep, in the diagram's units.
+
+        Returns
+        -------
+        DataFrame
+            Columns ``level, euler_characteristic``.
+        """
         curve = self.betti_curve(levels)
         chi = sum((-1) ** k * curve[f"betti_{k}"] for k in range(self.ndim))
         return pd.DataFrame({"level": curve["level"], "euler_characteristic": chi})
 
     def level_grid(self, n: int = 256) -> np.ndarray:
-        """n levels spanning every finite birth and death."""
+        """n levels spanning every finite birth and death.
+
+        Parameters
+        ----------
+        n : int
+            Number of levels.
+
+        Returns
+        -------
+        ndarray of float64
+            Increasing levels from the lowest to the highest finite value; one level when
+            all values are equal, ``[0.]`` when there is none.
+        """
         vals = self.pairs[["birth", "death"]].to_numpy(dtype=np.float64).ravel()
         vals = vals[np.isfinite(vals)]
         if len(vals) == 0:
@@ -203,13 +327,70 @@ class Diagram:
         weight = np.linspace(0.0, 1.0, n)
         return lo * (1.0 - weight) + hi * weight
 
-    # physical positions ---------------------------------------------------------------
+    # positions ------------------------------------------------------------------------
     def positions(self, which: str = "birth") -> np.ndarray:
-        """(n, ndim) physical coordinates of the birth or death voxels (NaN where none)."""
+        """(n, ndim) positions of the birth or death voxels in the scan's unit (NaN where
+        none).
+
+        Parameters
+        ----------
+        which : {"birth", "death"}
+            Which voxel of each pair.
+
+        Returns
+        -------
+        ndarray of float64, shape (n, ndim)
+            The ``birth_z ..`` (or ``death_z ..``) columns: voxel indices times the
+            spacing, in the diagram's unit, (z, y, x) order.
+        """
         axes = AXES_3D[3 - self.ndim:]
-        idx = self.pairs[[f"{which}_{a}" for a in axes]].to_numpy(dtype=np.float64,
-                                                                  na_value=np.nan)
-        return idx * np.asarray(self.spacing, dtype=np.float64)
+        return self.pairs[[f"{which}_{a}" for a in axes]].to_numpy(dtype=np.float64,
+                                                                   na_value=np.nan)
+
+    def voxels(self, which: str = "birth") -> np.ndarray:
+        """(n, ndim) voxel indices of the birth or death voxels (-1 where none)."""
+        axes = AXES_3D[3 - self.ndim:]
+        return (self.pairs[[f"{which}_voxel_{a}" for a in axes]].fillna(-1)
+                .to_numpy(dtype=np.int64))
+
+    @property
+    def value_unit(self) -> str:
+        """The unit of birth, death and persistence: the scan's unit for a distance sweep,
+        gray values otherwise."""
+        return self.unit if self.values == "distance" else "gray value"
+
+    def column_units(self, value_unit: str | None = None) -> dict:
+        """Column -> unit of :attr:`pairs` as written to pairs.csv ("" for counts and
+        flags); ``value_unit`` overrides :attr:`value_unit` (Anscombe units, say)."""
+        values = value_unit or self.value_unit
+        units = {"dim": "", "birth": values, "death": values, "persistence": values}
+        units.update({c: self.unit for c in position_columns(self.ndim)})
+        units.update({c: VOXEL_INDEX for c in voxel_columns(self.ndim)})
+        units.update({"p_value": "", "significant": "", "robust": ""})
+        return {c: units.get(c, "") for c in self.pairs.columns}
+
+    def without_outside(self, outside_level: float) -> "Diagram":
+        """The diagram of the region of interest alone, from the diagram of a field whose
+        outside voxels all hold ``outside_level`` (after every inside value of the sweep,
+        :func:`voxtopo.filtration.outside_last`): pairs born outside are dropped, and a
+        class that dies when the outside enters never dies within the region.
+
+        Below the outside level the sweep of the whole field is the sweep of the region's
+        own cubical complex, so every pair born and dead inside is the region's; what is
+        still alive when the outside enters lives for ever in the region alone.
+        """
+        pairs = self.pairs
+        sign = -1.0 if self.superlevel else 1.0
+        born_outside = sign * pairs["birth"].to_numpy(dtype=np.float64) >= sign * outside_level
+        pairs = pairs[~born_outside].copy()
+        dies_outside = sign * pairs["death"].to_numpy(dtype=np.float64) >= sign * outside_level
+        pairs.loc[dies_outside, "death"] = sign * np.inf
+        pairs.loc[dies_outside, "persistence"] = np.inf
+        for column in pairs.columns:
+            if column.startswith("death_"):
+                pairs.loc[dies_outside, column] = np.nan if column in position_columns(
+                    self.ndim) else pd.NA
+        return self._with_pairs(_sorted(pairs))
 
     # files ----------------------------------------------------------------------------
     def description(self) -> dict:
@@ -225,13 +406,23 @@ class Diagram:
 
     def save(self, folder, name: str = "pairs.csv") -> None:
         """Write ``pairs.csv`` and the diagram's description into ``summary.json``
-        (merged under the key ``"diagram"`` when summary.json exists)."""
+        (merged under the key ``"diagram"`` when summary.json exists), with the unit of
+        every column under ``"columns"`` unless the summary already gives them.
+
+        Parameters
+        ----------
+        folder : str or Path
+            An existing folder (a result folder being filled).
+        name : str
+            The file name of the pairs table.
+        """
         folder = Path(folder)
         from .io.results import read_summary, write_summary
 
         self.pairs.to_csv(folder / name, index=False)
         summary = read_summary(folder) if (folder / "summary.json").exists() else {}
         summary["diagram"] = self.description()
+        summary.setdefault("columns", {}).setdefault(name, self.column_units())
         write_summary(folder, summary)
 
     @classmethod
@@ -250,6 +441,12 @@ class Diagram:
                              f"by voxtopo analyse.")
         ndim = int(meta["ndim"])
         pairs = pd.read_csv(pairs_path)
+        if not set(voxel_columns(ndim)) & set(pairs.columns):
+            # before positions in the scan's unit were written, birth_z ... death_x held
+            # the voxel indices: read them as such and work the positions out
+            pairs = pairs.rename(columns=dict(zip(position_columns(ndim),
+                                                  voxel_columns(ndim))))
+            pairs = _with_positions(pairs, ndim, meta["spacing"])
         missing = set(columns(ndim)) - set(pairs.columns)
         if missing:
             raise InputError(f"{pairs_path} lacks the columns {sorted(missing)}.")
@@ -258,9 +455,9 @@ class Diagram:
         pairs["dim"] = pairs["dim"].astype(np.int64)
         for c in verdicts:
             pairs[c] = pairs[c].astype(np.float64 if c == "p_value" else bool)
-        for c in ("birth", "death", "persistence"):
+        for c in ["birth", "death", "persistence"] + position_columns(ndim):
             pairs[c] = pairs[c].astype(np.float64)
-        for c in location_columns(ndim):
+        for c in voxel_columns(ndim):
             pairs[c] = pairs[c].astype("Int64")
         return cls(pairs=pairs, ndim=ndim, shape=tuple(meta["shape"]),
                    superlevel=bool(meta["superlevel"]), neighbourhood=int(meta["neighbourhood"]),
@@ -268,6 +465,17 @@ class Diagram:
                    field=int(meta["field"]), periodic=tuple(meta["periodic"]),
                    engine=meta["engine"], min_persistence=float(meta["min_persistence"]),
                    source=meta["source"], notes=tuple(meta.get("notes", ())))
+
+
+def _with_positions(pairs: pd.DataFrame, ndim: int, spacing) -> pd.DataFrame:
+    """``pairs`` (with voxel columns) given its positions in the scan's unit, columns in
+    the order of :func:`columns` and any further columns after them."""
+    axes = AXES_3D[3 - ndim:]
+    for which in ("birth", "death"):
+        for a, step in zip(axes, spacing):
+            index = pairs[f"{which}_voxel_{a}"].to_numpy(dtype=np.float64, na_value=np.nan)
+            pairs[f"{which}_{a}"] = index * float(step)
+    return pairs[columns(ndim) + [c for c in pairs.columns if c not in columns(ndim)]]
 
 
 def _sorted(pairs: pd.DataFrame) -> pd.DataFrame:

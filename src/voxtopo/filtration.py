@@ -27,7 +27,7 @@ from .scan import Scan, as_scan
 
 __all__ = ["smooth", "crop", "parse_box", "downsample", "threshold", "signed_distance",
            "check_finite", "fill_invalid", "smoothing_bytes", "downsampling_bytes",
-           "distance_bytes"]
+           "distance_bytes", "binary_foreground", "region_of_interest", "outside_last"]
 
 #: What to do when a preparation step would not fit in memory.
 PREPARATION_REMEDY = "crop it (--crop) or downsample it (--downsample) first"
@@ -44,14 +44,43 @@ def _shape_text(shape) -> str:
 def smoothing_bytes(shape, dtype) -> int:
     """Bytes :func:`smooth` allocates beyond the scan: a float32 copy of the values (unless
     they are float32 already) and the float32 result (measured with tracemalloc: 4 and 8
-    bytes per voxel)."""
+    bytes per voxel).
+
+    Parameters
+    ----------
+    shape : tuple of int
+        The scan's shape.
+    dtype : numpy dtype
+        The scan's type.
+
+    Returns
+    -------
+    int
+
+    Examples
+    --------
+    >>> smoothing_bytes((10, 10), "float32"), smoothing_bytes((10, 10), "uint16")
+    (400, 800)
+    """
     copy = 0 if np.dtype(dtype) == np.float32 else 4
     return _voxels(shape) * (4 + copy)
 
 
 def downsampling_bytes(shape, factors) -> int:
     """Bytes :func:`downsample` allocates beyond the scan: the blocks as float64, their
-    float64 means and the means cast back (at most 8 bytes each)."""
+    float64 means and the means cast back (at most 8 bytes each).
+
+    Parameters
+    ----------
+    shape : tuple of int
+        The scan's shape.
+    factors : tuple of int
+        The downsampling factor per axis.
+
+    Returns
+    -------
+    int
+    """
     voxels = _voxels(shape)
     blocks = _voxels(factors)
     return voxels * 8 + (voxels // blocks + 1) * 16
@@ -60,7 +89,17 @@ def downsampling_bytes(shape, factors) -> int:
 def distance_bytes(shape) -> int:
     """Bytes :func:`signed_distance` allocates beyond the mask: scipy's feature transform
     (one int32 index per axis and voxel) and distances, for both phases, and the signed
-    float64 field (measured with tracemalloc: 41 bytes per voxel in 2D, 57 in 3D)."""
+    float64 field (measured with tracemalloc: 41 bytes per voxel in 2D, 57 in 3D).
+
+    Parameters
+    ----------
+    shape : tuple of int
+        The mask's shape (2D or 3D).
+
+    Returns
+    -------
+    int
+    """
     return _voxels(shape) * (33 + 8 * len(shape))
 
 
@@ -69,6 +108,27 @@ def smooth(scan, sigma: float) -> Scan:
 
     The kernel's width along each axis is sigma / spacing voxels, so an anisotropic scan is
     smoothed by the same physical amount in every direction.
+
+    Parameters
+    ----------
+    scan : Scan or ndarray
+        The scan (an array is taken with spacing 1 px).
+    sigma : float
+        Standard deviation of the Gaussian in the scan's unit; 0 or None leaves the scan
+        as it is.
+
+    Returns
+    -------
+    Scan
+        float32 values; ``metadata["smoothing_sigma"]`` records sigma.
+
+    Raises
+    ------
+    InputError
+        For a negative or non-finite sigma, one longer than the scan along an axis, or NaN
+        values.
+    TooBigError
+        When the smoothed copy would not fit in memory.
     """
     scan = as_scan(scan)
     if sigma is None or sigma == 0:
@@ -105,7 +165,24 @@ def _voxel_sigmas(scan: Scan, sigma: float) -> list[float]:
 
 
 def parse_box(text: str, ndim: int) -> tuple[slice, ...]:
-    """'10:50,0:64,:' -> slices, in (z, y, x) order; empty bounds mean the whole axis."""
+    """'10:50,0:64,:' -> slices, in (z, y, x) order; empty bounds mean the whole axis.
+
+    Parameters
+    ----------
+    text : str
+        One ``start:stop`` range per axis, separated by commas.
+    ndim : int
+        The scan's number of dimensions.
+
+    Returns
+    -------
+    tuple of slice
+
+    Examples
+    --------
+    >>> parse_box("10:50,:", 2)
+    (slice(10, 50, None), slice(None, None, None))
+    """
     parts = [p.strip() for p in text.split(",")]
     if len(parts) != ndim:
         raise InputError(f"A crop box for a {ndim}D scan needs {ndim} ranges like "
@@ -124,7 +201,25 @@ def parse_box(text: str, ndim: int) -> tuple[slice, ...]:
 
 
 def crop(scan, box) -> Scan:
-    """The part of the scan inside ``box`` (a tuple of slices or a 'a:b,c:d,...' string)."""
+    """The part of the scan inside ``box`` (a tuple of slices or a 'a:b,c:d,...' string).
+
+    Parameters
+    ----------
+    scan : Scan or ndarray
+        The scan.
+    box : tuple of slice or str
+        One range per axis, in voxels (see :func:`parse_box`).
+
+    Returns
+    -------
+    Scan
+        The cropped values; ``metadata["crop_origin"]`` holds the first voxel kept.
+
+    Raises
+    ------
+    InputError
+        For a box of the wrong number of ranges, or one that leaves nothing.
+    """
     scan = as_scan(scan)
     if isinstance(box, str):
         box = parse_box(box, scan.ndim)
@@ -147,6 +242,24 @@ def downsample(scan, factor) -> Scan:
 
     Voxels left over at the far end of an axis (shape not divisible by the factor) are
     dropped. The spacing grows by the factor.
+
+    Parameters
+    ----------
+    scan : Scan or ndarray
+        The scan.
+    factor : int or sequence of int
+        Block side, 1 or more, for every axis or per axis.
+
+    Returns
+    -------
+    Scan
+        The block means in the scan's type (integers rounded); the spacing times the
+        factors; ``metadata["downsample"]`` records them.
+
+    Raises
+    ------
+    InputError
+        For a factor below 1, one per axis of the wrong count, or one larger than the scan.
     """
     scan = as_scan(scan)
     factors = (int(factor),) * scan.ndim if np.isscalar(factor) else tuple(int(f) for f in factor)
@@ -179,8 +292,27 @@ def downsample(scan, factor) -> Scan:
 def threshold(scan, value="otsu", *, below: bool = True) -> tuple[np.ndarray, float]:
     """Binary mask of the voxels at or below ``value`` (or above, with ``below=False``).
 
-    ``value="otsu"`` picks the threshold by Otsu's method (scikit-image). Returns the mask
-    and the threshold used.
+    ``value="otsu"`` picks the threshold by Otsu's method (scikit-image).
+
+    Parameters
+    ----------
+    scan : Scan or ndarray
+        The gray scan.
+    value : float or "otsu"
+        The threshold, in the scan's gray values.
+    below : bool
+        True: the mask holds the voxels at or below ``value``; False: those above.
+
+    Returns
+    -------
+    mask : ndarray of bool
+    value : float
+        The threshold used.
+
+    Raises
+    ------
+    InputError
+        For NaN values, or a constant scan with "otsu".
     """
     scan = as_scan(scan)
     check_finite(scan)
@@ -245,7 +377,20 @@ def signed_distance(mask_or_scan, spacing=None, unit=None) -> Scan:
 
 
 def check_finite(scan_or_array, source: str | None = None) -> None:
-    """Raise InputError when the data hold NaN or infinite values."""
+    """Raise InputError when the data hold NaN or infinite values.
+
+    Parameters
+    ----------
+    scan_or_array : Scan or array_like
+        The values.
+    source : str, optional
+        What they are, for the message (default the scan's source).
+
+    Raises
+    ------
+    InputError
+        With the number of NaN or infinite voxels and the remedies.
+    """
     if isinstance(scan_or_array, Scan):
         data, source = scan_or_array.data, source or scan_or_array.source
     else:
@@ -261,7 +406,32 @@ def check_finite(scan_or_array, source: str | None = None) -> None:
 
 def fill_invalid(scan, value="max") -> Scan:
     """Replace NaN and infinite voxels by ``value``: a number, "max" or "min" of the
-    valid voxels. With "max" they enter a sublevel sweep last (they act as background)."""
+    valid voxels. With "max" they enter a sublevel sweep last (they act as background).
+
+    Parameters
+    ----------
+    scan : Scan or ndarray
+        The scan; integer scans are returned as they are.
+    value : float, "max" or "min"
+        What the invalid voxels become.
+
+    Returns
+    -------
+    Scan
+        A copy with the voxels filled (``metadata["filled_invalid"]`` counts them), or
+        ``scan`` itself when none is invalid.
+
+    Raises
+    ------
+    InputError
+        When no voxel is valid.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> fill_invalid(np.array([[1.0, np.nan, 3.0]])).data.tolist()
+    [[1.0, 3.0, 3.0]]
+    """
     scan = as_scan(scan)
     data = scan.data
     if not np.issubdtype(data.dtype, np.floating):
@@ -280,3 +450,82 @@ def fill_invalid(scan, value="max") -> Scan:
     out = data.copy()
     out[bad] = fill
     return scan.with_data(out, metadata={**scan.metadata, "filled_invalid": int(bad.sum())})
+
+
+# --------------------------------------------------------------------- region of interest
+def binary_foreground(data: np.ndarray):
+    """The value marking the foreground when ``data`` is a binary mask (True, 1, or 255 in
+    an 8-bit image without any 1), else None.
+
+    Examples
+    --------
+    >>> binary_foreground(np.array([0, 255], np.uint8)), binary_foreground(np.array([0, 2]))
+    (255, None)
+    """
+    if data.dtype == bool:
+        return True
+    if not (np.issubdtype(data.dtype, np.integer) or np.issubdtype(data.dtype, np.floating)):
+        return None
+    # 8-bit masks from image editors mark the foreground 255
+    foreground = 255 if data.dtype == np.uint8 and not (data == 1).any() else 1
+    return foreground if np.logical_or(data == 0, data == foreground).all() else None
+
+
+def region_of_interest(roi, shape, where: str) -> np.ndarray | None:
+    """The sample as a bool array of ``shape`` (True = sample), or None for the whole scan.
+
+    ``roi`` is a binary array or Scan (True, 1 or 255 = sample); ``where`` names the scan
+    in the messages. A wrong shape, a mask that is not binary or one without any voxel
+    of the sample is refused in one sentence.
+
+    Examples
+    --------
+    >>> int(region_of_interest(np.array([[0, 1], [1, 1]]), (2, 2), "array").sum())
+    3
+    """
+    if roi is None:
+        return None
+    data = roi.data if isinstance(roi, Scan) else np.asarray(roi)
+    named = roi.source if isinstance(roi, Scan) and roi.source else "the region of interest"
+    if data.shape != tuple(shape):
+        raise InputError(f"The region of interest {named} has shape {data.shape} but the "
+                         f"scan {where} has shape {tuple(shape)}; give a mask of the same "
+                         f"grid.")
+    foreground = binary_foreground(data)
+    if foreground is None:
+        raise InputError(f"The region of interest {named} is not a binary mask (True or 1 "
+                         f"marks the sample); threshold it first.")
+    sample = data == foreground
+    if not sample.any():
+        raise InputError(f"The region of interest {named} holds no voxel of the sample "
+                         f"(it is all 0); True or 1 marks the sample.")
+    return sample
+
+
+def outside_last(scan, sample: np.ndarray, *, superlevel: bool = False,
+                 min_persistence: float = 0.0) -> tuple[Scan, float]:
+    """The scan with every voxel outside ``sample`` set to one level that the sweep meets
+    after every voxel inside: above the inside maximum for a sublevel sweep, below the
+    minimum for a superlevel one.
+
+    Returns the field and that level. Up to the level the sweep is the sweep of the
+    region's own cubical complex; :meth:`voxtopo.Diagram.without_outside` then drops what
+    the outside adds. The level is far enough out that a class of the region alive when the
+    outside enters lives longer than ``min_persistence`` and so is kept by the engine::
+
+        inside values  [lo ............ hi]   outside: hi + (hi - lo) + min_persistence + 1
+
+    Examples
+    --------
+    >>> field, level = outside_last(np.array([[1.0, 3.0], [2.0, 9.0]]),
+    ...                             np.array([[True, True], [True, False]]))
+    >>> level, float(field.data[1, 1])
+    (6.0, 6.0)
+    """
+    scan = as_scan(scan)
+    inside = scan.data[sample]
+    low, high = float(inside.min()), float(inside.max())
+    margin = (high - low) + float(min_persistence) + 1.0
+    level = low - margin if superlevel else high + margin
+    data = np.where(sample, scan.data.astype(np.float64, copy=False), level)
+    return scan.with_data(data), level

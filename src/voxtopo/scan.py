@@ -69,7 +69,19 @@ class Scan:
         return self.data.shape
 
     def with_data(self, data: np.ndarray, **changes) -> "Scan":
-        """A copy of this scan with new values (and optionally new spacing etc.)."""
+        """A copy of this scan with new values (and optionally new spacing etc.).
+
+        Parameters
+        ----------
+        data : ndarray
+            The new values.
+        **changes
+            Other fields to change (``spacing``, ``unit``, ``values``, ``metadata``, ...).
+
+        Returns
+        -------
+        Scan
+        """
         return replace(self, data=data, **changes)
 
     def describe(self) -> dict:

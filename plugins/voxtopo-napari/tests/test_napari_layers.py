@@ -30,10 +30,11 @@ def test_features_table_positions_are_voxels_times_spacing():
     table = features_table(diagram, 1, placement)
     rows = diagram.pairs[diagram.pairs["dim"] == 1]
     assert len(table) == len(rows) > 0
-    np.testing.assert_allclose(table["birth_x_position"],
-                               rows["birth_x"].to_numpy(dtype=float) * 3.0 - 1)
-    np.testing.assert_allclose(table["birth_z_position"],
-                               rows["birth_z"].to_numpy(dtype=float) * 0.5 + 10)
+    np.testing.assert_allclose(table["birth_x"],
+                               rows["birth_voxel_x"].to_numpy(dtype=float) * 3.0 - 1)
+    np.testing.assert_allclose(table["birth_z"],
+                               rows["birth_voxel_z"].to_numpy(dtype=float) * 0.5 + 10)
+    assert "birth_x_position" not in table.columns      # one name for one idea
     assert (table["feature"].to_numpy() == rows.index.to_numpy()).all()
 
 
@@ -44,7 +45,8 @@ def test_body_radius_and_throat_radius_are_minus_birth_and_death():
                           "death": [np.inf, -1.0, 1.0], "persistence": [np.inf, 2.0, 3.0]})
     for column, values in (("birth_y", [1, 2, 3]), ("birth_x", [1, 2, 3]),
                            ("death_y", [pd.NA, 4, 5]), ("death_x", [pd.NA, 4, 5])):
-        pairs[column] = pd.array(values, dtype="Int64")
+        pairs[column] = pd.array(values, dtype="Float64").astype(float)
+        pairs[column.replace("_", "_voxel_")] = pd.array(values, dtype="Int64")
     diagram = voxtopo.Diagram(pairs=pairs, ndim=2, shape=(8, 8), neighbourhood=8,
                               spacing=(1.0, 1.0), values="distance")
     table = features_table(diagram, 0, placement_of((8, 8), (1.0, 1.0)))
@@ -124,13 +126,21 @@ def test_plugin_and_cli_report_the_same_pores(tmp_path, capsys):
     result = run_analysis(scan, options, name="gray", with_porosity=True)
     assert result.porosity["counts"] == summary["counts"]
     assert result.porosity["porosity"] == summary["porosity"]
-    from voxtopo.porosity import summary_lines
+    from voxtopo.jobs.pores import summary_lines
     assert [line for line in summary_lines(result.porosity)] == printed
     pores_layer = result.layers[0]
     assert len(pores_layer[0]) == summary["counts"]["pores"]
     table = pd.read_csv(tmp_path / "res" / "pores.csv")
     assert sorted(pores_layer[1]["features"]["pore_id"]) == sorted(table["id"])
     assert set(np.unique(result.regions)) - {0} == set(table["id"])
-    # the panel's export writes the same pore table as the command
+    # the panel's status is the command's lines, and its export is the command's folder:
+    # the same files (report.html included), the same pore table and the same counts
+    assert result.describe().splitlines() == printed
     result.export(tmp_path / "panel")
+    assert sorted(p.name for p in (tmp_path / "panel").iterdir()) == \
+        sorted(p.name for p in (tmp_path / "res").iterdir())
+    assert "report.html" in {p.name for p in (tmp_path / "panel").iterdir()}
     pd.testing.assert_frame_equal(pd.read_csv(tmp_path / "panel" / "pores.csv"), table)
+    exported = json.loads((tmp_path / "panel" / "summary.json").read_text())
+    assert exported["counts"] == summary["counts"]
+    assert exported["robustness"] == summary["robustness"]

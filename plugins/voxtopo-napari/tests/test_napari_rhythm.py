@@ -4,9 +4,10 @@ Needs a display (Xvfb); see conftest.py.
 """
 
 import numpy as np
+import pandas as pd
 import pytest
 
-from voxtopo.jobs.periodicity import PeriodicityOptions, run
+from voxtopo.jobs.periodicity import PeriodicityOptions, run, write
 from voxtopo.scan import TimeLapse
 from voxtopo_napari._rhythm_panel import SIGNALS, RhythmWidget
 
@@ -73,6 +74,18 @@ def test_rhythm_panel_adds_maps_table_and_shows_a_clicked_region(make_napari_vie
 
     widget.table.selectRow(1)
     assert expected.table["region"].iloc[widget.shown_row] == 5
+
+    # saved through the job: the files of `voxtopo periodicity`, report.html included,
+    # and the same regions table as the job's own folder
+    saved = widget.export(tmp_path / "from-panel")
+    write(expected, tmp_path / "from-job")
+    assert sorted(p.name for p in saved.iterdir()) == \
+        sorted(p.name for p in (tmp_path / "from-job").iterdir())
+    assert "report.html" in {p.name for p in saved.iterdir()}
+    pd.testing.assert_frame_equal(pd.read_csv(saved / "regions.csv"),
+                                  pd.read_csv(tmp_path / "from-job" / "regions.csv"))
+    assert widget.export(tmp_path / "from-panel") is None   # never overwritten silently
+    assert "already exists" in widget.status.text()
     viewer.screenshot(str(tmp_path / "rhythm_panel.png"), canvas_only=False)
     assert (tmp_path / "rhythm_panel.png").stat().st_size > 0
 

@@ -13,6 +13,7 @@ import pytest
 import voxtopo
 from voxtopo import cli
 from voxtopo.diagram import AXES_3D
+from voxtopo.jobs import pores as pores_job
 from voxtopo_napari._layers import METADATA_KEY
 from voxtopo.porosity._regions import pore_regions_by_levels
 from voxtopo_napari._reader import napari_get_reader
@@ -61,7 +62,7 @@ def test_points_layers_equal_gudhi_persistence(make_napari_viewer, qtbot):
     assert sorted(layers) == [0, 1, 2]
     for dim, layer in layers.items():
         rows = expected.pairs[expected.pairs["dim"] == dim]
-        births = rows[[f"birth_{a}" for a in AXES_3D]].to_numpy(dtype=np.float64)
+        births = rows[[f"birth_voxel_{a}" for a in AXES_3D]].to_numpy(dtype=np.float64)
         np.testing.assert_array_equal(_sorted_rows(layer.data), _sorted_rows(births))
         table = layer.features.sort_values(["birth", "death"]).reset_index(drop=True)
         rows = rows.sort_values(["birth", "death"]).reset_index(drop=True)
@@ -84,7 +85,7 @@ def test_2d_image_with_the_4_neighbourhood_equals_gudhi_vertices(make_napari_vie
     for dim, layer in layers.items():
         rows = expected.pairs[expected.pairs["dim"] == dim]
         np.testing.assert_array_equal(
-            _sorted_rows(layer.data), _sorted_rows(rows[["birth_y", "birth_x"]].to_numpy()))
+            _sorted_rows(layer.data), _sorted_rows(rows[["birth_voxel_y", "birth_voxel_x"]].to_numpy()))
         np.testing.assert_allclose(np.sort(layer.features["death"]), np.sort(rows["death"]))
     with pytest.raises(voxtopo.InputError, match=r"choose one of \[8, 4\]\.$"):
         widget.set_neighbourhood(26)
@@ -237,14 +238,16 @@ def test_distance_mode_labels_each_pore_region(make_napari_viewer, qtbot):
     ending = int(np.flatnonzero(np.isfinite(table["death"].to_numpy()))[0])
     assert table["body_volume"][ending] == np.count_nonzero(
         regions[0].data == table["pore_id"][ending])
-    assert widget.status.text().startswith("Porosity")
+    # the status is the pores job's own line, as `voxtopo pores` prints it
+    assert widget.status.text() == pores_job.describe(widget.result.job)
+    assert widget.status.text().startswith("porosity")
 
 
 def test_reader_opens_a_folder_written_by_the_cli(make_napari_viewer, tmp_path):
     """The reader shows what `voxtopo analyse` wrote: the scan under the features and one
     layer per dimension at the births in pairs.csv (read here with pandas alone); the
     number of pairs per dimension is gudhi's (Maria et al. 2014, CubicalComplex)."""
-    import gudhi
+    from reference import gudhi_intervals
 
     data = np.random.default_rng(4).random((8, 9, 10))
     scan_path = tmp_path / "speckle.npy"
@@ -262,16 +265,13 @@ def test_reader_opens_a_folder_written_by_the_cli(make_napari_viewer, tmp_path):
     assert tuple(scan_layer.scale) == (3.0, 3.0, 3.0)
 
     pairs = pd.read_csv(out / "pairs.csv")
-    complex_ = gudhi.CubicalComplex(top_dimensional_cells=data)
-    complex_.compute_persistence(homology_coeff_field=2, min_persistence=0)
     layers = _result_layers(viewer)
     for dim in range(3):
         rows = pairs[pairs["dim"] == dim]
-        gudhi_pairs = complex_.persistence_intervals_in_dimension(dim)
-        assert len(rows) == int((gudhi_pairs[:, 1] > gudhi_pairs[:, 0]).sum())
+        assert len(rows) == len(gudhi_intervals(data, dim))
         np.testing.assert_array_equal(
             _sorted_rows(layers[dim].data),
-            _sorted_rows(rows[["birth_z", "birth_y", "birth_x"]].to_numpy()))
+            _sorted_rows(rows[["birth_voxel_z", "birth_voxel_y", "birth_voxel_x"]].to_numpy()))
         assert tuple(layers[dim].scale) == (3.0, 3.0, 3.0)
     assert set(_result_layers(viewer, "death")) == {0, 1, 2}
 
@@ -305,6 +305,10 @@ def test_export_writes_the_same_folder_as_the_cli(make_napari_viewer, qtbot, tmp
     theirs = pd.read_csv(tmp_path / "from-cli" / "pairs.csv")
     assert {"p_value", "significant"} <= set(ours.columns)
     pd.testing.assert_frame_equal(ours, theirs)
+    # the same files, report.html and the plots included
+    assert sorted(p.name for p in exported.iterdir()) == \
+        sorted(p.name for p in (tmp_path / "from-cli").iterdir())
+    assert "report.html" in {p.name for p in exported.iterdir()}
     summary = json.loads((exported / "summary.json").read_text())
     assert summary["diagram"]["neighbourhood"] == 26
     assert summary["significance"]["alpha"] == 0.05
@@ -436,3 +440,65 @@ def test_reader_carries_the_threshold_band_of_a_tested_folder(make_napari_viewer
     assert meta["thresholds"][0] == pytest.approx(summary["significance"]["threshold"]["0"])
     assert any(isinstance(c, PolyCollection) for c in panel.axes.collections)
     assert len(panel.visible_features()) == 3
+
+
+def test_reader_opens_a_periodicity_folder_with_its_maps_in_the_scans_unit(
+        make_napari_viewer, tmp_path):
+    """A folder of `voxtopo periodicity` opens as its score map over the scan's grid, with
+    the scan's pixel size (0.5 um: ImageJ resolution 2 pixels per um, TIFF 6.0 / ImageJ),
+    and one point per signal at the centre regions.csv gives (read with pandas alone)."""
+    import tifffile
+
+    rng = np.random.default_rng(0)
+    time = np.arange(60) * 0.1
+    yy, xx = np.mgrid[0:12, 0:12]
+    disc = (yy - 5) ** 2 + (xx - 6) ** 2 < 10
+    stack = 100 + 4 * rng.standard_normal((60, 12, 12))
+    stack += 20 * np.cos(2 * np.pi * time / 1.5)[:, None, None] * disc
+    path = tmp_path / "beats.tif"
+    tifffile.imwrite(path, stack.astype(np.float32), imagej=True, resolution=(2.0, 2.0),
+                     metadata={"axes": "TYX", "finterval": 0.1, "unit": "um"})
+    labels = np.zeros((12, 12), np.uint16)
+    labels[disc] = 1
+    labels[8:, :4] = 2
+    tifffile.imwrite(tmp_path / "labels.tif", labels)
+    out = tmp_path / "rhythm"
+    assert cli.main(["periodicity", str(path), "--out", str(out), "--regions",
+                     str(tmp_path / "labels.tif"), "--surrogates", "19",
+                     "--no-whole-field"]) == 0
+    assert napari_get_reader(str(out)) is not None
+    viewer = make_napari_viewer()
+    viewer.open(str(out), plugin="voxtopo-napari")
+    score = viewer.layers["score · rhythm"]
+    assert score.data.shape == (12, 12) and tuple(score.scale) == (0.5, 0.5)
+    table = pd.read_csv(out / "regions.csv")
+    assert np.nanmax(score.data) == pytest.approx(table["score"].max(), rel=1e-6)
+    signals = viewer.layers["signals · rhythm"]
+    np.testing.assert_allclose(signals.data * np.asarray(signals.scale),
+                               table[["centre_y", "centre_x"]].to_numpy())
+    assert list(signals.features["region"]) == [1, 2]
+    assert "period · rhythm" in viewer.layers
+
+
+def test_reader_opens_a_patches_folder_with_the_patches_on_their_image(
+        make_napari_viewer, tmp_path):
+    """A folder of `voxtopo patches` opens as its source image with a point at the centre
+    of every kept patch: the top-left pixel in cloud_origin.npy plus (k - 1) / 2 (a k x k
+    patch's centre, common practice, no source), and core marks the dense core."""
+    from skimage import data as samples
+
+    image = tmp_path / "gravel.npy"
+    np.save(image, samples.gravel()[:96, :96])
+    out = tmp_path / "cloud"
+    assert cli.main(["patches", str(image), "--out", str(out), "--positions", "all",
+                     "--resamples", "0"]) == 0
+    assert napari_get_reader(str(out)) is not None
+    viewer = make_napari_viewer()
+    viewer.open(str(out), plugin="voxtopo-napari")
+    assert viewer.layers["gravel"].data.shape == (96, 96)
+    points = viewer.layers["patches · gravel · cloud"]
+    origin = np.load(out / "cloud_origin.npy", allow_pickle=False)
+    np.testing.assert_allclose(points.data, origin[:, 2:] + 1.0)      # k = 3
+    core = np.load(out / "core.npy", allow_pickle=False)
+    assert points.features["core"].sum() == len(core)
+    assert points.features["core"].to_numpy()[core].all()

@@ -33,12 +33,52 @@ _NEIGHBOURHOODS = {2: {4: "vertex", 8: "voxel"}, 3: {6: "vertex", 26: "voxel"}}
 
 def default_neighbourhood(ndim: int) -> int:
     """8 in 2D and 26 in 3D: the voxel construction, where voxels that share only a
-    corner belong to the same component of the swept set (sublevel or superlevel)."""
+    corner belong to the same component of the swept set (sublevel or superlevel).
+
+    Parameters
+    ----------
+    ndim : int
+        2 or 3.
+
+    Returns
+    -------
+    int
+        The default neighbourhood.
+
+    Examples
+    --------
+    >>> default_neighbourhood(2), default_neighbourhood(3)
+    (8, 26)
+    """
     return 8 if ndim == 2 else 26
 
 
 def construction_of(ndim: int, neighbourhood: int | None) -> tuple[int, str]:
-    """(neighbourhood, "vertex" | "voxel") for a scan of ``ndim`` dimensions."""
+    """(neighbourhood, "vertex" | "voxel") for a scan of ``ndim`` dimensions.
+
+    Parameters
+    ----------
+    ndim : int
+        2 or 3.
+    neighbourhood : int or None
+        4 or 8 in 2D, 6 or 26 in 3D; None: :func:`default_neighbourhood`.
+
+    Returns
+    -------
+    (int, str)
+        The neighbourhood and its construction: 4 / 6 the vertex construction, 8 / 26
+        the voxel (top-dimensional cell) construction.
+
+    Raises
+    ------
+    InputError
+        For a neighbourhood that the scan's dimension does not have.
+
+    Examples
+    --------
+    >>> construction_of(3, None), construction_of(2, 4)
+    ((26, 'voxel'), (4, 'vertex'))
+    """
     if neighbourhood is None:
         neighbourhood = default_neighbourhood(ndim)
     choices = _NEIGHBOURHOODS[ndim]
@@ -70,6 +110,26 @@ def estimate(shape, dtype=np.float32, *, engine: str = "auto", neighbourhood=Non
     array itself: the backend's peak, or the table of pairs the Diagram is built into
     (planned at one pair per 25 voxels, :data:`voxtopo.diagram.TABLE_BYTES_PER_PAIR`
     each), whichever is larger; the two are never held at once.
+
+    Parameters
+    ----------
+    shape : tuple of int
+        The array's shape.
+    dtype : numpy dtype
+        The array's type.
+    engine : {"auto", "voxtopo", "gudhi"}
+        The engine :func:`persistence` would use ("auto" chooses as it does).
+    neighbourhood : int, optional
+        As for :func:`persistence` (the own engine's plan depends on it).
+    field : int
+        Coefficient field Z/field.
+    periodic : bool
+        Periodic boundaries (these go to the gudhi backend).
+
+    Returns
+    -------
+    int
+        Planned bytes of the run's working memory.
 
     Examples
     --------

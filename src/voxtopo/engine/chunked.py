@@ -1,7 +1,9 @@
 """Out-of-core persistence: the exact dimension-0 (and d-1) diagram of a chunked array.
 
-The array (a zarr / OME-Zarr store, or any array that can be sliced) is read one chunk at a
-time. Each chunk is swept by a dask task (:func:`voxtopo.engine._chunk_merge.reduce_chunk`),
+The engine takes arrays, not files: anything with ``shape``, ``dtype``, ``chunks`` and
+``__getitem__`` (a zarr array, :class:`voxtopo.io.ChunkedArray` from
+:func:`voxtopo.io.open_chunked`, a dask or numpy array) is read one chunk at a time. Each
+chunk is swept by a dask task (:func:`voxtopo.engine._chunk_merge.reduce_chunk`),
 which finishes the pairs it can decide alone and hands on a reduced graph of what it cannot.
 Neighbouring blocks are then merged pairwise, one axis after the other, by further dask
 tasks that read the two voxel planes on either side of their shared face, add the grid
@@ -25,27 +27,23 @@ computed out of core; the diagram says so in its notes.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 
 from ..diagram import Diagram, check_min_persistence
 from ..errors import InputError
+from ..io._chunked import chunks_of
 from ..memory import ensure_fits
 from ..scan import Scan
 from . import _chunk_merge as kernel
 from ._pairs import RawPairs, check_exact_in_float64
 from ._union_find import neighbour_offsets
 
-__all__ = ["chunked_persistence", "open_chunked", "ChunkedSource", "BYTES_PER_CHUNK_VOXEL"]
+__all__ = ["chunked_persistence", "BYTES_PER_CHUNK_VOXEL"]
 
 #: Bytes per voxel of one chunk task: the values as float64, the sort order, union-find
 #: forest, flags and the four output buffers (int64 each).
 BYTES_PER_CHUNK_VOXEL = 8 * 8 + 4
-
-#: Chunk edge used when the array has no chunks of its own (a numpy array).
-DEFAULT_CHUNK_EDGE = 128
-
 
 @dataclass(frozen=True)
 class _Sweep:
@@ -76,104 +74,32 @@ class _Pairs:
     voxel_value: np.ndarray
 
 
-class ChunkedSource:
-    """A 2D or 3D view of a stored array, sliced lazily and picklable for dask workers.
+class _Grid:
+    """The array as the tasks see it: its shape, the block shape of the tasks, and boxes
+    read as C-contiguous arrays. Picklable when the array is (zarr arrays are)."""
 
-    ``array`` is anything with ``shape``, ``dtype`` and slicing (zarr.Array, numpy, dask);
-    ``fixed`` maps stored axis positions to the index taken there (a channel or time
-    point), so only the spatial axes remain. ``notes`` are what the reader noticed (such as
-    chunks the store does not hold); the diagram carries them.
-    """
-
-    def __init__(self, array, *, fixed=None, spacing=(), unit="px", source="",
-                 chunks=None, notes=()):
+    def __init__(self, array, chunks, name: str):
         self.array = array
-        self.notes = tuple(notes)
-        self.fixed = dict(fixed or {})
-        stored = tuple(int(n) for n in array.shape)
-        self.axes = [i for i in range(len(stored)) if i not in self.fixed]
-        self.shape = tuple(stored[i] for i in self.axes)
+        self.shape = tuple(int(n) for n in array.shape)
         self.dtype = np.dtype(array.dtype)
-        self.spacing = tuple(spacing) or (1.0,) * len(self.shape)
-        self.unit = unit
-        self.source = source
-        own = getattr(array, "chunks", None)
-        if isinstance(own, tuple) and own and isinstance(own[0], tuple):  # dask: per-axis tuples
-            own = tuple(c[0] for c in own)
-        if own is not None:
-            self.chunks = tuple(int(own[i]) for i in self.axes)
-        else:
-            self.chunks = tuple(min(n, DEFAULT_CHUNK_EDGE) for n in self.shape)
-        if chunks is not None:
-            self.chunks = tuple(int(c) for c in chunks)
+        self.chunks = tuple(int(c) for c in chunks)
+        self.source = name
 
     @property
     def ndim(self) -> int:
         return len(self.shape)
 
     def read(self, lo, hi) -> np.ndarray:
-        """The box [lo, hi) of the spatial axes as a C-contiguous array."""
-        index = []
-        spatial = iter(zip(lo, hi))
-        for i in range(len(self.axes) + len(self.fixed)):
-            if i in self.fixed:
-                index.append(self.fixed[i])
-            else:
-                a, b = next(spatial)
-                index.append(slice(int(a), int(b)))
+        """The box [lo, hi) as a C-contiguous array."""
+        index = tuple(slice(int(a), int(b)) for a, b in zip(lo, hi))
         try:
-            return np.ascontiguousarray(np.asarray(self.array[tuple(index)]))
+            return np.ascontiguousarray(np.asarray(self.array[index]))
+        except InputError:
+            raise
         except Exception as exc:
-            raise InputError(f"{self.source or 'The array'} could not be read at "
-                             f"{list(zip(lo, hi))}; a chunk may be missing or corrupt "
+            raise InputError(f"{self.source} could not be read at {list(zip(lo, hi))}; a "
+                             f"chunk may be missing or corrupt "
                              f"({' '.join(str(exc).split())[:100]}).") from None
-
-
-def open_chunked(path, *, level: int = 0, channel=None, timepoint=None, chunks=None,
-                 spacing=None, unit=None) -> ChunkedSource:
-    """Open a zarr array or OME-Zarr image for out-of-core work, reading no voxel data.
-
-    Axes, voxel size and unit come from the OME-Zarr metadata (as :func:`voxtopo.load`
-    reads them); a channel or time axis longer than one needs ``channel`` / ``timepoint``.
-    """
-    import zarr
-
-    from ..io._zarr import is_zarr, open_zarr
-
-    path = Path(path)
-    if not path.exists():
-        raise InputError(f"No zarr store at {path}; check the path.")
-    if not is_zarr(path):
-        raise InputError(f"{path} is not a zarr store; the out-of-core path reads zarr and "
-                         f"OME-Zarr (convert other formats, or drop --out-of-core).")
-    layout = open_zarr(path, level=level)
-    node = zarr.open(str(path), mode="r")
-    array = node if isinstance(node, zarr.Array) else node[layout.metadata["dataset"]]
-    letters = layout.axes or ("ZYX"[3 - len(layout.shape):] if len(layout.shape) <= 3 else "")
-    if not letters:
-        raise InputError(f"{path} holds a {len(layout.shape)}D array with no axis names; "
-                         f"the out-of-core path needs a 2D or 3D array.")
-    fixed = {}
-    for i, letter in enumerate(letters):
-        if letter in "TC":
-            chosen = timepoint if letter == "T" else channel
-            size = layout.shape[i]
-            if chosen is None and size > 1:
-                raise InputError(f"{path} has {size} {'time points' if letter == 'T' else 'channels'}; "
-                                 f"choose one with {'--timepoint' if letter == 'T' else '--channel'}.")
-            chosen = 0 if chosen is None else int(chosen)
-            if not 0 <= chosen < size:
-                raise InputError(f"{'timepoint' if letter == 'T' else 'channel'}={chosen} is "
-                                 f"out of range for {path}, which has {size}.")
-            fixed[i] = chosen
-    spatial = [a for a in letters if a in "ZYX"]
-    if len(spatial) not in (2, 3):
-        raise InputError(f"{path} has the axes {letters}; the out-of-core path needs 2 or 3 "
-                         f"spatial axes.")
-    own_spacing = tuple(layout.spacing.get(a, 1.0) for a in spatial)
-    return ChunkedSource(array, fixed=fixed, spacing=tuple(spacing) if spacing else own_spacing,
-                         unit=unit or layout.unit, source=str(path), chunks=chunks,
-                         notes=layout.metadata.get("notes", ()))
 
 
 # --- geometry helpers (everything is handled in 3D; a 2D image is one z-slice) ---------------
@@ -205,7 +131,7 @@ def _on_border(lo, hi, shape3, real_axes):
     return border
 
 
-def _read3(source: ChunkedSource, lo, hi) -> np.ndarray:
+def _read3(source: _Grid, lo, hi) -> np.ndarray:
     lo2, hi2 = lo[3 - source.ndim:], hi[3 - source.ndim:]
     block = source.read(lo2, hi2)
     return block.reshape(tuple(b - a for a, b in zip(lo, hi)))
@@ -224,11 +150,11 @@ def _later(value_a, id_a, value_b, id_b, ascending):
 
 
 # --- the dask tasks ------------------------------------------------------------------
-def _reduce_leaf(source: ChunkedSource, lo, hi, sweep: _Sweep):
+def _reduce_leaf(source: _Grid, lo, hi, sweep: _Sweep):
     shape3 = _pad3(source.shape, 1)
     n_total = int(np.prod(shape3))
     data = _read3(source, lo, hi)
-    check_exact_in_float64(data, source.source or "The array")
+    check_exact_in_float64(data, source.source)
     cshape = data.shape
     flat = data.reshape(-1)
     n = flat.size
@@ -278,7 +204,7 @@ def _reduce_leaf(source: ChunkedSource, lo, hi, sweep: _Sweep):
     return pairs, block
 
 
-def _cross_edges(source: ChunkedSource, a: _Block, b: _Block, axis: int, sweep: _Sweep):
+def _cross_edges(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
     """Grid edges between the last plane of ``a`` and the first plane of ``b`` along
     ``axis`` (both blocks span the same box on the other axes)."""
     shape3 = _pad3(source.shape, 1)
@@ -315,7 +241,7 @@ def _cross_edges(source: ChunkedSource, a: _Block, b: _Block, axis: int, sweep: 
     return tuple(np.concatenate(column) for column in zip(*parts))
 
 
-def _merge(source: ChunkedSource, a: _Block, b: _Block, axis: int, sweep: _Sweep):
+def _merge(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
     shape3 = _pad3(source.shape, 1)
     n_total = int(np.prod(shape3))
     lo = tuple(min(p, q) for p, q in zip(a.lo, b.lo))
@@ -355,7 +281,7 @@ def _merge(source: ChunkedSource, a: _Block, b: _Block, axis: int, sweep: _Sweep
     return pairs, block
 
 
-def _plan(source: ChunkedSource, sweep: _Sweep):
+def _plan(source: _Grid, sweep: _Sweep):
     """Dask delayed objects: every task's finished pairs, and the top block."""
     import dask
 
@@ -405,44 +331,47 @@ def _run_sweep(source, sweep, scheduler):
     return pairs, top
 
 
-def _check_source(source: ChunkedSource):
+def _check_source(source: _Grid):
     if source.ndim not in (2, 3):
         raise InputError(f"Out-of-core persistence takes a 2D image or 3D volume, got shape "
-                         f"{source.shape} from {source.source or 'the array'}.")
+                         f"{source.shape}.")
     if any(n == 0 for n in source.shape):
-        raise InputError(f"{source.source or 'The array'} is empty (shape {source.shape}).")
+        raise InputError(f"{source.source} is empty (shape {source.shape}).")
     if len(source.chunks) != source.ndim or any(c < 1 for c in source.chunks):
         raise InputError(f"Chunks should be one positive size per axis ({source.ndim}), got "
                          f"{source.chunks}.")
     kind = source.dtype.kind
     if kind not in "uifb":
         raise InputError(f"Cannot compute persistence of {source.dtype} values from "
-                         f"{source.source or 'the array'}; give gray values as integers or "
-                         f"floats.")
+                         f"{source.source}; give gray values as integers or floats.")
     voxels = int(np.prod(source.chunks))
     ensure_fits(voxels * BYTES_PER_CHUNK_VOXEL,
                 f"One {'x'.join(map(str, source.chunks))} chunk of the out-of-core run",
                 "choose smaller chunks (--chunks)")
 
 
-def chunked_persistence(source, *, superlevel: bool = False, neighbourhood=None,
+def chunked_persistence(array, *, superlevel: bool = False, neighbourhood=None,
                         chunks=None, min_persistence: float = 0.0, dual: bool = True,
                         spacing=None, unit=None, scheduler=None) -> Diagram:
     """Exact dimension-0 and dimension-(d-1) diagram of an array read chunk by chunk.
 
     Parameters
     ----------
-    source : path, ChunkedSource, zarr.Array or ndarray
-        A zarr / OME-Zarr store (see :func:`open_chunked`) or an array to slice.
+    array : array-like
+        Anything with ``shape``, ``dtype`` and ``__getitem__`` taking a tuple of slices:
+        a zarr array, a :class:`voxtopo.io.ChunkedArray` (:func:`voxtopo.io.open_chunked`
+        opens a store as one), a dask or numpy array. Its ``chunks``, ``spacing``, ``unit``,
+        ``source`` and ``notes`` are used when it has them. Tasks read it on the workers,
+        so it must be picklable for a distributed scheduler.
     superlevel, neighbourhood, min_persistence :
         As in :func:`voxtopo.persistence` (8/26 by default: the voxel construction).
     chunks : tuple of int, optional
-        Block shape of the tasks; default the store's own chunks (128 per axis for a
+        Block shape of the tasks; default the array's own chunks (128 per axis for a
         numpy array). Each task holds one block in memory.
     dual : bool
         Also compute dimension d-1 (loops in 2D, cavities in 3D) by duality.
     spacing, unit : optional
-        Voxel size and unit (default the store's metadata).
+        Voxel size and unit (default the array's own, else 1 px).
     scheduler : optional
         Passed to ``dask.compute``; by default dask's current scheduler (the
         dask.distributed client when one is active).
@@ -464,16 +393,15 @@ def chunked_persistence(source, *, superlevel: bool = False, neighbourhood=None,
     from . import construction_of
 
     min_persistence = check_min_persistence(min_persistence)
-    if not isinstance(source, ChunkedSource):
-        if isinstance(source, (str, Path)):
-            source = open_chunked(source, chunks=chunks, spacing=spacing, unit=unit)
-        else:
-            source = ChunkedSource(source, chunks=chunks, spacing=spacing or (),
-                                   unit=unit or "px", source="array")
-    elif chunks is not None:
-        source = ChunkedSource(source.array, fixed=source.fixed, spacing=source.spacing,
-                               unit=source.unit, source=source.source, chunks=chunks,
-                               notes=source.notes)
+    if not all(hasattr(array, name) for name in ("shape", "dtype", "__getitem__")):
+        raise InputError(f"Out-of-core persistence takes an array (shape, dtype, slicing), "
+                         f"got {type(array).__name__}; open a store with "
+                         f"voxtopo.io.open_chunked first.")
+    name = getattr(array, "source", "") or "The array"
+    spacing = tuple(spacing or getattr(array, "spacing", ()) or (1.0,) * len(array.shape))
+    unit = unit or getattr(array, "unit", "px")
+    notes_of_array = tuple(getattr(array, "notes", ()))
+    source = _Grid(array, chunks if chunks is not None else chunks_of(array), name)
     _check_source(source)
     neighbourhood, construction = construction_of(source.ndim, neighbourhood)
     ascending = not superlevel
@@ -481,7 +409,7 @@ def chunked_persistence(source, *, superlevel: bool = False, neighbourhood=None,
 
     low, top = _run_sweep(source, _Sweep(ascending, construction == "voxel", False), scheduler)
     if len(top.vert_id) == 0:
-        raise InputError(f"{source.source or 'The array'} yielded no components.")
+        raise InputError(f"{source.source} yielded no components.")
     eldest = top.vert_id[np.argmin(top.vert_value) if ascending else np.argmax(top.vert_value)]
     eldest_value = top.vert_value[top.vert_id == eldest][0]
     dims = [np.zeros(len(low.young_id) + 1, np.int8)]
@@ -490,7 +418,7 @@ def chunked_persistence(source, *, superlevel: bool = False, neighbourhood=None,
     birth_index = [low.young_id, [eldest]]
     death_index = [low.voxel_id, [-1]]
     notes = [f"computed out of core in {'x'.join(map(str, source.chunks))} chunks",
-             *source.notes]
+             *notes_of_array]
     if dual:
         high, _ = _run_sweep(source, _Sweep(not ascending, construction == "vertex", True),
                              scheduler)
@@ -506,7 +434,8 @@ def chunked_persistence(source, *, superlevel: bool = False, neighbourhood=None,
                    np.concatenate(birth_index), np.concatenate(death_index),
                    engine="voxtopo-chunked", notes=tuple(notes))
     placeholder = np.broadcast_to(np.zeros((), source.dtype), source.shape)
-    scan = Scan(placeholder, spacing=source.spacing, unit=source.unit, source=source.source)
+    scan = Scan(placeholder, spacing=spacing, unit=unit,
+                source="" if name == "The array" else name)
     return Diagram.from_raw(raw, scan, superlevel=superlevel, neighbourhood=neighbourhood,
                             field=2, periodic=(False,) * source.ndim,
                             min_persistence=min_persistence, notes=tuple(notes))

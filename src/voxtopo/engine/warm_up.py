@@ -27,7 +27,7 @@ def warm_up() -> None:
 
     rng = np.random.default_rng(0)
     for shape in ((9, 9), (6, 6, 6)):
-        for dtype in (np.uint8, np.float32, np.float64):
+        for dtype in (np.uint8, np.uint16, np.float32, np.float64):
             values = (rng.random(shape) * 200).astype(dtype)
             for neighbourhood in ((8, 4) if len(shape) == 2 else (26, 6)):
                 for superlevel in (False, True):

@@ -89,6 +89,17 @@ def load(path, *, spacing=None, unit=None, channel=None, timepoint=None, shape=N
         layout.close()
 
 
+def load_on_grid_of(scan: Scan, path, what: str) -> Scan:
+    """A mask of ``scan`` (pores, or the sample) read from ``path``, on the scan's voxel
+    size; a file of another shape is refused in one sentence naming ``what`` it is."""
+    other = load(path)
+    if other.shape != scan.shape:
+        raise InputError(f"The {what} {path} has shape {other.shape} but the scan "
+                         f"{scan.source or ''} has shape {scan.shape}; give a {what} of the "
+                         f"same scan.")
+    return other.with_data(other.data, spacing=scan.spacing, unit=scan.unit)
+
+
 def load_timelapse(path, *, axes=None, frame_interval=None, spacing=None, unit=None,
                    channel=None, shape=None, dtype=None, byte_order="little", offset=0,
                    level=0) -> TimeLapse:
@@ -233,6 +244,23 @@ def read_header(path, *, shape=None, dtype=None, byte_order="little", offset=0,
     :func:`load` leaves them once one is picked); the file's voxels are not read. The
     arguments are :func:`load`'s, for raw files and pyramid levels. Bad paths and files
     get the same one-sentence :class:`~voxtopo.InputError` as :func:`load`.
+
+    Parameters
+    ----------
+    path : str or Path
+        A file, folder of slices or zarr store :func:`load` reads.
+    shape, dtype, byte_order, offset : optional
+        The layout of a raw file (its shape in z, y, x order, its voxel type, "little" or
+        "big", bytes before the first voxel).
+    level : int
+        The resolution level of a pyramid (OME-Zarr, pyramidal TIFF); 0 is the full one.
+
+    Returns
+    -------
+    shape : tuple of int
+        The z, y, x (or y, x) sizes.
+    dtype : numpy.dtype
+        The stored voxel type.
 
     Examples
     --------

@@ -47,6 +47,16 @@ _GLOB_CHARACTERS = set("*?[")
 def input_paths(source) -> list[Path]:
     """The files and folders a source names: the path itself, or every match of a glob.
 
+    Parameters
+    ----------
+    source : str, Path or None
+        A path, or a glob (characters ``*?[`` in a path that does not exist).
+
+    Returns
+    -------
+    list of Path
+        Resolved paths (sorted matches of a glob); empty for None.
+
     Examples
     --------
     >>> input_paths(None)
@@ -71,7 +81,20 @@ def _nearest_existing(path: Path) -> Path:
 
 
 def is_voxtopo_folder(path, kind: str | None = None) -> bool:
-    """True when ``path`` is a folder voxtopo wrote (of ``kind`` when given)."""
+    """True when ``path`` is a folder voxtopo wrote (of ``kind`` when given).
+
+    Parameters
+    ----------
+    path : str or Path
+        The folder.
+    kind : str, optional
+        "result" or "batch"; any kind when not given.
+
+    Returns
+    -------
+    bool
+        Whether the folder holds voxtopo's marker file (of that kind).
+    """
     marker = Path(path) / MARKER
     if not marker.is_file():
         return False
@@ -84,7 +107,15 @@ def is_voxtopo_folder(path, kind: str | None = None) -> bool:
 
 
 def write_marker(folder, kind: str) -> None:
-    """Mark ``folder`` as a voxtopo folder of ``kind`` ("result", "batch")."""
+    """Mark ``folder`` as a voxtopo folder of ``kind`` ("result", "batch").
+
+    Parameters
+    ----------
+    folder : str or Path
+        An existing folder voxtopo is filling.
+    kind : str
+        "result" or "batch".
+    """
     from .. import __version__
 
     (Path(folder) / MARKER).write_text(
@@ -98,6 +129,25 @@ def check_output(out, inputs=(), *, option: str = "--out") -> Path:
     Checks everything that does not depend on whether the folder exists: not a link,
     not the working directory or above it, not an input nor around one nor inside an
     input folder, and a parent that exists or can be made, and can be written.
+
+    Parameters
+    ----------
+    out : str or Path
+        The output folder the user named.
+    inputs : iterable of paths or globs
+        What the output is made from (None entries are skipped).
+    option : str
+        The option that named ``out``, for the messages.
+
+    Returns
+    -------
+    Path
+        ``out`` resolved.
+
+    Raises
+    ------
+    InputError
+        In one sentence, for each of the cases above.
     """
     given = Path(out)
     if given.is_symlink():
@@ -141,8 +191,28 @@ def _check_writable(folder: Path, out) -> None:
 def check_target(out, force: bool = False, inputs=()) -> Path:
     """Refuse an output that exists, unless ``force`` and it is voxtopo's own result folder.
 
-    Returns the resolved path. See :func:`check_output` for the checks made on every
-    output. An existing empty folder counts as new: nothing in it can be lost.
+    See :func:`check_output` for the checks made on every output. An existing empty
+    folder counts as new: nothing in it can be lost.
+
+    Parameters
+    ----------
+    out : str or Path
+        The result folder the user named.
+    force : bool
+        Allow replacing an existing result folder voxtopo wrote.
+    inputs : iterable of paths or globs
+        What the result is made from.
+
+    Returns
+    -------
+    Path
+        ``out`` resolved.
+
+    Raises
+    ------
+    InputError
+        When ``out`` exists (without ``force``, or not written by voxtopo) or fails
+        :func:`check_output`.
     """
     resolved = check_output(out, inputs)
     if resolved.exists() and any(resolved.iterdir()):
@@ -160,6 +230,23 @@ def result_folder(out, force: bool = False, inputs=(), kind: str = "result"):
     """Context manager yielding a temporary Path to write into; renamed to ``out`` on success.
 
     Missing parent folders are made; the folder gets the user's usual permissions.
+
+    Parameters
+    ----------
+    out : str or Path
+        The folder to create (checked by :func:`check_target` before anything is made).
+    force : bool
+        Replace ``out`` when it is a folder voxtopo wrote.
+    inputs : iterable of paths or globs
+        What the result is made from; ``out`` may not be nor hold them.
+    kind : str
+        The marker's kind, "result" or "batch".
+
+    Yields
+    ------
+    Path
+        A hidden temporary folder beside ``out``: removed on any error, renamed to ``out``
+        when the block ends. A result another run finished meanwhile is never replaced.
 
     Examples
     --------
@@ -219,7 +306,17 @@ def _rename_new(tmp: Path, target: Path, out) -> None:
 
 
 def is_complete(out) -> bool:
-    """True when ``out`` is a finished voxtopo result folder (marker and summary.json)."""
+    """True when ``out`` is a finished voxtopo result folder (marker and summary.json).
+
+    Parameters
+    ----------
+    out : str or Path
+        The folder.
+
+    Returns
+    -------
+    bool
+    """
     out = Path(out)
     return is_voxtopo_folder(out) and (out / "summary.json").is_file()
 
@@ -234,6 +331,16 @@ def json_ready(value):
     """``value`` as plain JSON values, written one way everywhere: numpy scalars and
     arrays become numbers and lists, tuples become lists, paths become text, +-infinity
     becomes "inf" / "-inf" and NaN becomes null.
+
+    Parameters
+    ----------
+    value : object
+        A summary or any part of it (dicts, lists, numbers, arrays, paths, text).
+
+    Returns
+    -------
+    object
+        The same structure in plain JSON values (dict keys as text).
 
     Examples
     --------
@@ -293,7 +400,21 @@ def software_versions() -> dict:
 
 def write_summary(folder, summary: dict) -> Path:
     """Write ``summary.json`` into ``folder``: plain JSON (see :func:`json_ready`), with the
-    software versions the numbers came from."""
+    software versions the numbers came from.
+
+    Parameters
+    ----------
+    folder : str or Path
+        The result folder (or the temporary folder a job is filling).
+    summary : dict
+        The job's summary; ``voxtopo_version`` is put first and ``software`` added when
+        absent. Infinities are written as the strings "inf" and "-inf".
+
+    Returns
+    -------
+    Path
+        The summary.json written (atomically: an existing one stays whole on an error).
+    """
     from .. import __version__
 
     summary = {"voxtopo_version": __version__, **summary}
@@ -306,7 +427,20 @@ def write_summary(folder, summary: dict) -> Path:
 def read_summary(folder) -> dict:
     """Read ``summary.json`` of a result folder; "inf" and "-inf" come back as numbers.
 
-    Raises InputError in one sentence when it is missing or not valid JSON.
+    Parameters
+    ----------
+    folder : str or Path
+        A result folder voxtopo wrote.
+
+    Returns
+    -------
+    dict
+        The summary, with infinities as floats.
+
+    Raises
+    ------
+    InputError
+        In one sentence, when summary.json is missing, not valid JSON or not an object.
     """
     path = Path(folder) / "summary.json"
     if not path.is_file():
@@ -329,6 +463,19 @@ def write_atomically(path, write) -> Path:
 
     On any error (a full disk included) the temporary file is removed and an existing
     ``path`` stays as it was.
+
+    Parameters
+    ----------
+    path : str or Path
+        The file to write; its folder must exist.
+    write : callable
+        ``write(temporary_path)`` writes the whole file at the temporary path (beside
+        ``path``, hidden, so that the rename is atomic).
+
+    Returns
+    -------
+    Path
+        ``path``, with the user's usual permissions (umask).
 
     Examples
     --------
@@ -361,6 +508,18 @@ def safe_folder_name(text, fallback: str = "scan") -> str:
     everything else become ``_``; leading dots (``.``, ``..``, hidden names) go; an empty
     result becomes ``fallback``.
 
+    Parameters
+    ----------
+    text : str
+        What the user wrote (a manifest's name, a file name); anything ``str`` accepts.
+    fallback : str
+        The name when nothing of ``text`` is left.
+
+    Returns
+    -------
+    str
+        The name, at most 80 characters.
+
     Examples
     --------
     >>> [safe_folder_name(t) for t in ("..", "a/../b", ".hidden", "Probe 3 (wet)", "é")]
@@ -378,6 +537,16 @@ def safe_folder_name(text, fallback: str = "scan") -> str:
 def unique_folder_names(names) -> list[str]:
     """Make safe names distinct (case-insensitively, as some file systems compare them)
     by adding -2, -3, ... in order.
+
+    Parameters
+    ----------
+    names : iterable of str
+        Names in order; each is made safe with :func:`safe_folder_name` first.
+
+    Returns
+    -------
+    list of str
+        One distinct name per input, in the same order; the first of equal names keeps it.
 
     Examples
     --------

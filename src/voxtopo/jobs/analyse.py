@@ -36,7 +36,7 @@ from ..engine import estimate, out_of_core_remedy, persistence
 from ..errors import InputError
 from ..options import (BOOLEAN, COUNT, ENGINE, FILL, NEIGHBOURHOOD, NON_NEGATIVE, NUMBER,
                        POSITIVE, PRIME, TEXT, THRESHOLD, Rule, check, one_of, optional)
-from ..io import load, result_folder
+from ..io import load, load_on_grid_of, result_folder
 from ..io.results import check_target, json_ready, software_versions, write_summary
 from ..memory import ensure_fits, reported_as_too_big
 from ..scan import Scan
@@ -47,6 +47,9 @@ CAUTIONS = (
     "The numbers depend on segmentation, resolution, smoothing and the chosen neighbourhood; "
     "features a few voxels across are at the limit of what the scan resolves.",
 )
+
+#: Family-wise level of the significance test of gray-value sweeps when none is given.
+DEFAULT_SIGNIFICANCE = 0.05
 
 
 @dataclass
@@ -72,6 +75,9 @@ class AnalysisOptions:
     noise_model     "gaussian" or "poisson" (photon counts, Anscombe transform first)
     boundary_tolerance  distance sweeps: how far the boundary may be off, in the scan's
                     unit (None = one voxel)
+    roi             a mask file of the region of interest on the scan's grid (1 = inside):
+                    voxels outside it are not part of the cubical complex, and the noise
+                    is read and simulated within it (None = the whole scan)
     """
 
     superlevel: bool = False
@@ -87,10 +93,11 @@ class AnalysisOptions:
     periodic: bool = False
     field: int = 2
     engine: str = "auto"
-    significance: float = 0.05
+    significance: float = DEFAULT_SIGNIFICANCE
     noise: float | None = None
     noise_model: str = "gaussian"
     boundary_tolerance: float | None = None
+    roi: str | None = None
 
     @property
     def keeps_all_tested(self) -> bool:
@@ -109,6 +116,11 @@ class AnalysisOptions:
                 raise InputError("A noise level or noise model would be ignored by a distance "
                                  "sweep (its uncertainty is the segmentation); leave them out "
                                  "or give --boundary-tolerance.")
+            if self.significance != DEFAULT_SIGNIFICANCE:
+                raise InputError(f"--significance {self.significance:g} tests gray-value "
+                                 f"sweeps and would be ignored with --distance (robust "
+                                 f"features are kept there); leave it out or set "
+                                 f"--boundary-tolerance.")
         elif self.boundary_tolerance is not None:
             raise InputError("The boundary tolerance only applies to distance sweeps "
                              "(--distance); leave it out or add --distance.")
@@ -118,6 +130,10 @@ class AnalysisOptions:
         if self.pores_bright and self.threshold is None:
             raise InputError("--pores-bright says which side of --threshold the pores are; "
                              "give --distance --threshold with it, or leave it out.")
+        if self.roi is not None and self.distance:
+            raise InputError("A region of interest with --distance is what `voxtopo pores "
+                             "--roi` measures (outside voxels neither pore nor solid); use "
+                             "it, or leave --roi out.")
 
 
 #: What each field of AnalysisOptions accepts (settings files are checked against it).
@@ -141,6 +157,7 @@ ANALYSE_RULES = {
     "noise": optional(POSITIVE),
     "noise_model": one_of(*sig.NOISE_MODELS),
     "boundary_tolerance": optional(POSITIVE),
+    "roi": optional(TEXT),
 }
 
 #: The value of ``min_persistence`` (CLI ``--min-persistence auto``) that keeps the
@@ -185,6 +202,52 @@ def preparation_plan(scan: Scan, options: AnalysisOptions) -> list[tuple[str, in
     return steps
 
 
+def region_of_interest(scan: Scan, options: AnalysisOptions) -> np.ndarray | None:
+    """The region of interest of ``options.roi`` on the scan's grid (True inside), or None
+    without one. A mask of another shape, not binary, or empty is refused in one
+    sentence."""
+    if options.roi is None:
+        return None
+    return filt.region_of_interest(load_on_grid_of(scan, options.roi, "region of interest"),
+                                   scan.shape, scan.source or "array")
+
+
+def outside_made_finite(scan: Scan, region: np.ndarray) -> Scan:
+    """``scan`` with NaN or infinite voxels outside ``region`` set to the lowest value
+    inside, since those voxels never enter the sweep (a scan masked with NaN outside its
+    field of view); invalid voxels inside are left for the usual refusal."""
+    data = scan.data
+    if not np.issubdtype(data.dtype, np.floating):
+        return scan
+    invalid_outside = ~np.isfinite(data) & ~region
+    if not invalid_outside.any():
+        return scan
+    ensure_fits(data.nbytes, f"Setting the invalid voxels outside the region of interest of "
+                             f"the {'x'.join(map(str, scan.shape))} scan",
+                filt.PREPARATION_REMEDY)
+    inside = data[region & np.isfinite(data)]
+    lowest = inside.min() if inside.size else 0.0
+    return scan.with_data(np.where(invalid_outside, lowest, data))
+
+
+def region_as_swept(region: np.ndarray, scan: Scan, options: AnalysisOptions) -> np.ndarray:
+    """``region`` (on the scan's grid) on the grid that is swept: cropped like the scan,
+    and after downsampling the blocks that lie wholly inside it; a region left empty is
+    refused in one sentence."""
+    where = scan.source or "array"
+    sample = region
+    if options.crop:
+        sample = filt.crop(scan.with_data(sample), options.crop).data
+    if options.downsample and options.downsample != 1:
+        blocks = filt.downsample(scan.with_data(sample.astype(np.float32)), options.downsample)
+        sample = blocks.data == 1
+    if not sample.any():
+        raise InputError(f"The region of interest {options.roi} holds no voxel of the part of "
+                         f"{where} that is analysed (after --crop, or no whole block after "
+                         f"--downsample); give a region inside it.")
+    return sample
+
+
 def prepare(scan: Scan, options: AnalysisOptions) -> tuple[Scan, dict]:
     """Apply crop, invalid-voxel filling, downsampling, the Anscombe transform (Poisson
     noise model), smoothing and (optionally) the signed distance transform, in that
@@ -196,10 +259,14 @@ def prepare(scan: Scan, options: AnalysisOptions) -> tuple[Scan, dict]:
     return finish_preparation(unsmoothed, options, notes), notes
 
 
-def prepare_unsmoothed(scan: Scan, options: AnalysisOptions) -> tuple[Scan, dict]:
-    """The preparation up to (not including) smoothing: the scan whose noise is measured."""
+def prepare_unsmoothed(scan: Scan, options: AnalysisOptions,
+                       plan: list | None = None) -> tuple[Scan, dict]:
+    """The preparation up to (not including) smoothing: the scan whose noise is measured.
+
+    ``plan`` is :func:`preparation_plan` of the same scan and options when the caller has
+    already worked it out."""
     # persistence, the last step, is checked by the engine with its own remedies
-    for step, needed in preparation_plan(scan, options)[:-1]:
+    for step, needed in (plan or preparation_plan(scan, options))[:-1]:
         ensure_fits(needed, step, filt.PREPARATION_REMEDY)
     notes = {}
     if options.crop:
@@ -270,9 +337,10 @@ class Verdict:
 
 
 def judge(diagram: Diagram, unsmoothed: Scan, options: AnalysisOptions,
-          progress=None) -> Verdict:
+          progress=None, sample: np.ndarray | None = None) -> Verdict:
     """p-values and ``significant`` flags (gray-value sweeps) or ``robust`` flags
-    (distance sweeps) for every pair of ``diagram``."""
+    (distance sweeps) for every pair of ``diagram``; with a region of interest
+    (``sample``) the noise is read and simulated within it."""
     if options.distance:
         tested = sig.robust_flags(diagram, options.boundary_tolerance)
         delta = sig.boundary_tolerance_of(diagram, options.boundary_tolerance)
@@ -292,7 +360,7 @@ def judge(diagram: Diagram, unsmoothed: Scan, options: AnalysisOptions,
                                           noise=options.noise,
                                           noise_model=options.noise_model,
                                           smoothing=options.sigma, engine=options.engine,
-                                          progress=progress)
+                                          progress=progress, sample=sample)
     except InputError as reason:
         if not options.keeps_all_tested:
             raise
@@ -333,6 +401,12 @@ class AnalysisResult:
     options: AnalysisOptions
     notes: dict = dataclass_field(default_factory=dict)
     timings: dict = dataclass_field(default_factory=dict)
+    sample: np.ndarray | None = None
+
+    def region(self) -> dict | None:
+        """The region of interest for summary.json: file, voxels, its volume (2D: area)
+        in the scan's unit; None when the whole scan was swept."""
+        return describe_region(self.sample, self.prepared, self.options.roi)
 
     def headline(self) -> str:
         """The result in one line: what was counted, by which method, at which level."""
@@ -341,15 +415,41 @@ class AnalysisResult:
         skipped = set((self.notes.get("out_of_core") or {}).get("dimensions_not_computed", []))
         by_dim = ", ".join(f"dim {d}: {n}" for d, n in self.diagram.counts().items()
                            if d not in skipped)
+        region = self.region()
+        within = "" if region is None else f"; {region_phrase(region)}"
         if not self.options.keeps_all_tested and self.verdict.tested_any:
             return (f"{kept} {self.verdict.flag} of {total} pairs {self.verdict.level}; "
-                    f"{by_dim}")
+                    f"{by_dim}{within}")
         floor = self.options.persistence_floor
         which = "all pairs" if floor == 0 else f"pairs with persistence above {floor:g}"
         if not self.verdict.tested_any:
-            return f"{kept} pairs ({which}; {by_dim}); {self.verdict.phrase}"
+            return f"{kept} pairs ({which}; {by_dim}); {self.verdict.phrase}{within}"
         passing = sum(sig.significant_counts(self.diagram, self.verdict.flag).values())
-        return f"{kept} pairs ({which}; {by_dim}), of which {passing} {self.verdict.phrase}"
+        return (f"{kept} pairs ({which}; {by_dim}), of which {passing} "
+                f"{self.verdict.phrase}{within}")
+
+
+def describe_region(sample: np.ndarray | None, grid: Scan, roi) -> dict | None:
+    """What summary.json, the report and the result line say of a region of interest
+    (``sample`` on the grid of ``grid``): its file, voxel count and volume (an area in 2D)
+    in the scan's unit."""
+    if sample is None:
+        return None
+    voxels = int(np.count_nonzero(sample))
+    size = "volume" if sample.ndim == 3 else "area"
+    amount = voxels * float(np.prod(grid.spacing))
+    unit = f"{grid.unit}^{sample.ndim}"
+    return {"file": None if roi is None else str(roi), "voxels": voxels, size: amount,
+            "unit": unit, "fraction_of_analysed_scan": voxels / sample.size,
+            "meaning": "voxels outside the region are not part of the cubical complex; the "
+                       "noise is read and simulated within the region"}
+
+
+def region_phrase(region: dict) -> str:
+    """The region of interest (:func:`describe_region`) in the words beside every count."""
+    size = "volume" if "volume" in region else "area"
+    return (f"within the region of interest ({region['voxels']} voxels, {size} "
+            f"{region[size]:.4g} {region['unit']})")
 
 
 def run(scan: Scan, options: AnalysisOptions | None = None, progress=None) -> AnalysisResult:
@@ -358,48 +458,105 @@ def run(scan: Scan, options: AnalysisOptions | None = None, progress=None) -> An
     Parameters
     ----------
     scan : Scan
-    options : AnalysisOptions
+        The scan as read (:func:`voxtopo.load`).
+    options : AnalysisOptions, optional
+        The settings; the defaults of ``voxtopo analyse`` without one.
     progress : callable(phase, fraction), optional
+        Called as the work goes on; may raise :class:`~voxtopo.Cancelled`.
 
     Returns
     -------
     AnalysisResult
+        The scan, the prepared filtration, the diagram kept (every pair, or those that
+        passed the test), the verdict of the test, the options, notes and timings.
+
+    Raises
+    ------
+    InputError
+        For options the scan cannot take (a threshold without a distance sweep, a crop
+        outside the scan, NaN values without fill_invalid, ...).
+    TooBigError
+        When the preparation or the sweep would not fit in memory (with the estimate).
     """
     options = options or AnalysisOptions()
     timings = {}
-    planned = max(needed for _, needed in preparation_plan(scan, options))
-    with reported_as_too_big(f"Analysing {scan.source or 'the scan'}", planned,
-                             out_of_core_remedy(scan.ndim)):
+    plan = preparation_plan(scan, options)
+    with reported_as_too_big(f"Analysing {scan.source or 'the scan'}",
+                             max(needed for _, needed in plan), out_of_core_remedy(scan.ndim)):
         start = time.perf_counter()
-        unsmoothed, notes = prepare_unsmoothed(scan, options)
+        region = region_of_interest(scan, options)
+        sample, given = None, scan
+        if region is not None:
+            given = outside_made_finite(scan, region)
+            sample = region_as_swept(region, scan, options)
+            del region
+        unsmoothed, notes = prepare_unsmoothed(given, options, plan)
+        del given
         prepared = finish_preparation(unsmoothed, options, notes)
         timings["prepare"] = time.perf_counter() - start
         start = time.perf_counter()
-        diagram = persistence(prepared, superlevel=options.superlevel,
+        swept = prepared
+        if sample is not None:
+            swept, outside = filt.outside_last(prepared, sample, superlevel=options.superlevel,
+                                               min_persistence=options.persistence_floor)
+        diagram = persistence(swept, superlevel=options.superlevel,
                               neighbourhood=options.neighbourhood, periodic=options.periodic,
                               field=options.field, engine=options.engine,
                               min_persistence=options.persistence_floor, progress=progress)
+        if sample is not None:
+            del swept
+            diagram = diagram.without_outside(outside)
+            diagram = replace(diagram, notes=diagram.notes + (
+                region_phrase(describe_region(sample, prepared, options.roi)),))
         timings["persistence"] = time.perf_counter() - start
         start = time.perf_counter()
-        verdict = judge(diagram, unsmoothed, options, progress)
+        verdict = judge(diagram, unsmoothed, options, progress, sample)
         timings["significance"] = time.perf_counter() - start
     kept = verdict.tested
     if not options.keeps_all_tested:
         kept = replace(kept, pairs=kept.pairs[kept.pairs[verdict.flag].to_numpy(dtype=bool)]
                        .reset_index(drop=True),
                        notes=kept.notes + (f"pairs kept: {verdict.phrase}",))
-    return AnalysisResult(scan, prepared, kept, verdict, options, notes, timings)
+    return AnalysisResult(scan, prepared, kept, verdict, options, notes, timings, sample)
 
 
 def write(result: AnalysisResult, out, force: bool = False) -> Path:
-    """Fill the result folder ``out`` (see :func:`write_result`)."""
+    """Fill the result folder ``out`` (see :func:`write_result`).
+
+    Parameters
+    ----------
+    result : AnalysisResult
+        What :func:`run` returned.
+    out : str or Path
+        The result folder to create: pairs.csv, summary.json, the plots and report.html,
+        written whole or not at all.
+    force : bool
+        Replace ``out`` when it is a result folder voxtopo wrote.
+
+    Returns
+    -------
+    Path
+        ``out``.
+    """
     return write_result(out, result.scan, result.diagram, result.options,
                         prepared=result.prepared, timings=result.timings, notes=result.notes,
-                        force=force, verdict=result.verdict)
+                        force=force, verdict=result.verdict, region=result.region())
 
 
 def describe(result: AnalysisResult) -> str:
-    """What was found, in the words of the CLI line and the plugin's status."""
+    """What was found, in the words of the CLI line and the plugin's status.
+
+    Parameters
+    ----------
+    result : AnalysisResult
+        What :func:`run` (or :func:`run_out_of_core`) returned.
+
+    Returns
+    -------
+    str
+        The counts with what they count (method and level), the engine and its time, and,
+        on a second line, that the voxel size is unknown when it is.
+    """
     where = ("out of core" if "out_of_core" in result.notes
              else f"with the {result.diagram.engine} engine")
     line = f"{result.headline()}; persistence in {result.diagram.seconds:.2f} s {where}"
@@ -407,6 +564,9 @@ def describe(result: AnalysisResult) -> str:
         line += f"\n{VOXEL_SIZE_UNKNOWN}"
     return line
 
+
+#: The unit of births, deaths and persistence after the Anscombe transform of photon counts.
+ANSCOMBE_UNITS = "Anscombe units, 2 sqrt(counts + 3/8)"
 
 #: The unit of a scan whose voxel size nobody gave.
 UNKNOWN_UNIT = "px"
@@ -462,8 +622,33 @@ def run_out_of_core(source, options: AnalysisOptions | None = None, *, load_opti
     dimension 1 of a volume is absent. Options that need the whole volume at once
     (smoothing, cropping, downsampling, the distance transform, periodic boundaries,
     filling invalid voxels, other fields than Z/2) are refused.
+
+    Parameters
+    ----------
+    source : str or Path
+        A zarr array or OME-Zarr image (:func:`voxtopo.io.open_chunked`).
+    options : AnalysisOptions, optional
+        The settings; only superlevel, neighbourhood and min_persistence apply here.
+    load_options : dict, optional
+        ``spacing``, ``unit``, ``channel``, ``timepoint`` and ``level`` of the store.
+    chunks : tuple of int, optional
+        The block shape of the work; default the store's chunks.
+    scheduler : optional
+        A dask scheduler or Client for the chunk tasks (default dask's own).
+
+    Returns
+    -------
+    AnalysisResult
+        Every pair listed (untested), the dimensions not computed named in its notes.
+
+    Raises
+    ------
+    InputError
+        For options or load options the out-of-core path cannot apply, or a store it
+        cannot open.
     """
-    from ..engine.chunked import chunked_persistence, open_chunked
+    from ..engine.chunked import chunked_persistence
+    from ..io import open_chunked
 
     options = options or AnalysisOptions()
     defaults = AnalysisOptions()
@@ -472,6 +657,9 @@ def run_out_of_core(source, options: AnalysisOptions | None = None, *, load_opti
     if asked:
         raise InputError(f"The out-of-core path cannot apply {', '.join(asked)} (they need the "
                          f"whole volume in memory); leave them out or drop --out-of-core.")
+    if options.roi is not None:
+        raise InputError("The out-of-core path does not take a region of interest yet; leave "
+                         "--roi out, or crop the store to the region and drop --out-of-core.")
     load_options = dict(load_options or {})
     unknown = set(load_options) - {"spacing", "unit", "channel", "timepoint", "level"}
     if unknown:
@@ -507,20 +695,39 @@ def run_out_of_core(source, options: AnalysisOptions | None = None, *, load_opti
 
 def analyse_out_of_core(source, out, options: AnalysisOptions | None = None, *,
                         load_options=None, chunks=None, force: bool = False,
-                        scheduler=None) -> Diagram:
-    """:func:`run_out_of_core` then :func:`write`; returns the diagram."""
+                        scheduler=None) -> AnalysisResult:
+    """:func:`run_out_of_core` then :func:`write`; returns the result.
+
+    Parameters
+    ----------
+    source : str or Path
+        A zarr array or OME-Zarr image.
+    out : str or Path
+        The result folder to create (checked before any chunk is read).
+    options, load_options, chunks, scheduler
+        As for :func:`run_out_of_core`.
+    force : bool
+        Replace ``out`` when it is a result folder voxtopo wrote.
+
+    Returns
+    -------
+    AnalysisResult
+        What :func:`run_out_of_core` returned (:func:`describe` says it in one line).
+    """
     check_target(out, force, inputs=[source])
     result = run_out_of_core(source, options, load_options=load_options, chunks=chunks,
                              scheduler=scheduler)
     write(result, out, force)
-    return result.diagram
+    return result
 
 
 def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepared=None,
-              timings=None, notes=None, verdict: Verdict | None = None) -> dict:
+              timings=None, notes=None, verdict: Verdict | None = None,
+              region: dict | None = None) -> dict:
     """The content of summary.json (the diagram's own description is added on save)."""
     prepared = prepared or scan
     threshold = options.persistence_floor
+    value_unit = ANSCOMBE_UNITS if "anscombe" in (notes or {}) else None
     most = diagram.most_persistent(10)
     top = {str(d): json_ready(most[most["dim"] == d].to_dict(orient="records"))
            for d in range(diagram.ndim)}
@@ -531,7 +738,8 @@ def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepare
                   "counted": (f"{verdict.flag} features {verdict.level}"
                               if not options.keeps_all_tested and verdict.tested_any else
                               "all pairs" if threshold == 0 else
-                              f"pairs with persistence above {threshold:g}"),
+                              f"pairs with persistence above {threshold:g}")
+                  + ("" if region is None else f", {region_phrase(region)}"),
                   "pairs_computed": {str(d): n for d, n in verdict.tested.counts().items()}}
     return {
         "voxtopo_version": __version__,
@@ -540,12 +748,14 @@ def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepare
         "voxel_size_known": scan.unit != UNKNOWN_UNIT,
         "analysed": prepared.describe(),
         "options": asdict(options),
+        "region_of_interest": region,
         "counts": {str(d): n for d, n in diagram.counts(threshold).items()},
         **judged,
         "essential": {str(d): int(((diagram.pairs["dim"] == d)
                                    & ~np.isfinite(diagram.pairs["death"])).sum())
                       for d in range(diagram.ndim)},
         "most_persistent": top,
+        "columns": {"pairs.csv": diagram.column_units(value_unit)},
         "timings_seconds": {k: round(v, 4) for k, v in (timings or {}).items()},
         "preparation": notes or {},
         "software": software_versions(),
@@ -555,20 +765,45 @@ def summarise(scan: Scan, diagram: Diagram, options: AnalysisOptions, *, prepare
 
 def write_result(out, scan: Scan, diagram: Diagram, options: AnalysisOptions | None = None, *,
                  prepared=None, timings=None, notes=None, force: bool = False,
-                 verdict: Verdict | None = None) -> Path:
+                 verdict: Verdict | None = None, region: dict | None = None) -> Path:
     """Write pairs.csv, summary.json and the standard plots into ``out``, atomically.
 
     With a ``verdict`` the plots show every tested pair and the threshold (a band along
-    the diagonal, a line on the lifetime histograms); pairs.csv holds ``diagram``."""
+    the diagonal, a line on the lifetime histograms); pairs.csv holds ``diagram``.
+
+    Parameters
+    ----------
+    out : str or Path
+        The result folder to create, with report.html.
+    scan : Scan
+        The scan as read (its source may not be inside ``out``).
+    diagram : Diagram
+        The pairs to write.
+    options : AnalysisOptions, optional
+        The settings the diagram was made with, recorded in summary.json.
+    prepared : Scan, optional
+        The prepared filtration, described in summary.json when it differs from the scan.
+    timings, notes : dict, optional
+        Seconds per stage, and what the preparation did.
+    force : bool
+        Replace ``out`` when it is a result folder voxtopo wrote.
+    verdict : Verdict, optional
+        The significance or robustness test, for the counts and the plots.
+
+    Returns
+    -------
+    Path
+        ``out``.
+    """
     from ..report.html import write_report
     from ..report.plots import save_standard_plots
 
     options = options or AnalysisOptions()
     timings = dict(timings or {})
     start = time.perf_counter()
-    with result_folder(out, force=force, inputs=[scan.source]) as tmp:
+    with result_folder(out, force=force, inputs=[scan.source, options.roi]) as tmp:
         summary = summarise(scan, diagram, options, prepared=prepared, timings=timings,
-                            notes=notes, verdict=verdict)
+                            notes=notes, verdict=verdict, region=region)
         write_summary(tmp, summary)
         diagram.save(tmp)
         if verdict is None or not verdict.tested_any:

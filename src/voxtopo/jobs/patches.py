@@ -125,7 +125,33 @@ def _items(images_or_scans) -> list:
 def run(images_or_scans, options: PatchOptions | None = None, progress=None,
         mask=None) -> PatchesResult:
     """Sample the high-contrast patches of one or more images, keep the dense core and
-    compute the persistence of its landmarks."""
+    compute the persistence of its landmarks.
+
+    Parameters
+    ----------
+    images_or_scans : ndarray, Scan, or a list of them
+        Gray 2D images or 3D scans (3D scans give patches from the slices
+        ``options.axis`` and ``options.slices`` choose).
+    options : PatchOptions, optional
+        The settings; the defaults of ``voxtopo patches`` without one.
+    progress : callable(phase, fraction), optional
+        Called as the work goes on; may raise :class:`~voxtopo.Cancelled`.
+    mask : ndarray of bool or a list of them, optional
+        True where an image must not be used; patches touching it are left out. One per
+        input, of its shape.
+
+    Returns
+    -------
+    PatchesResult
+        The cloud, its dense core, the landmark persistence, its bars with ``p_value`` and
+        ``significant``, and the dominant loop's stability over resamples.
+
+    Raises
+    ------
+    InputError
+        Images that give too few high-contrast patches, or options that contradict each
+        other.
+    """
     options = options or PatchOptions()
     items = _items(images_or_scans)
     report = progress or (lambda phase, fraction: None)
@@ -200,8 +226,24 @@ def write(result: PatchesResult, out, force: bool = False) -> Path:
     birth, death, persistence, field, p_value, significant``), ``summary.json`` (with
     ``significance`` and ``dominant_loop_stability``), ``barcode.png``,
     ``diagram.png``, ``projection.png``, ``loop_gallery.png`` and ``report.html``. The
-    folder appears only when complete."""
+    folder appears only when complete.
+
+    Parameters
+    ----------
+    result : PatchesResult
+        What :func:`run` returned.
+    out : str or Path
+        The result folder to create; it may not be nor hold the source images.
+    force : bool
+        Replace ``out`` when it is a result folder voxtopo wrote.
+
+    Returns
+    -------
+    Path
+        ``out``.
+    """
     from ..report.html import write_report
+    from ..report.patches import save_patch_plots
 
     bars = result.persistence
     with result_folder(out, force=force, inputs=result.sources) as folder:
@@ -209,7 +251,7 @@ def write(result: PatchesResult, out, force: bool = False) -> Path:
         np.save(folder / "core.npy", result.core_index)
         np.save(folder / "landmarks.npy", result.core_index[bars.landmarks])
         result.tested.to_csv(folder / "pairs.csv", index=False, float_format="%.10g")
-        _figures(folder, result.cloud, result.dense, bars)
+        save_patch_plots(folder, result.cloud, result.dense, bars)
         summary = _summary(result.cloud, result.dense, bars, result.options,
                            result.k_neighbour, result.seconds)
         summary.update(_verdict(result))
@@ -219,7 +261,21 @@ def write(result: PatchesResult, out, force: bool = False) -> Path:
 
 
 def describe(result: PatchesResult) -> str:
-    """What was found, in the words of the CLI line and the plugin's status."""
+    """What was found, in the words of the CLI line and the plugin's status.
+
+    Parameters
+    ----------
+    result : PatchesResult
+        What :func:`run` returned.
+
+    Returns
+    -------
+    str
+        Per coefficient field, the Betti numbers at the middle scale and how far the
+        longest loop stands out; the numbers of core patches and landmarks; for a Rips
+        complex the significant loops (universal null, Bonferroni, alpha); and the
+        dominant loop's stability over resamples when it was measured; joined by "; ".
+    """
     bars = result.persistence
     lines = []
     for f in bars.fields:
@@ -290,37 +346,12 @@ def _core_indices(cloud, dense) -> np.ndarray:
     return np.array([keys[tuple(row)] for row in dense.origin.tolist()], dtype=np.int64)
 
 
-def _figures(folder, cloud, dense, result) -> None:
-    import matplotlib.pyplot as plt
-
-    from ..report.plots import plot_barcode, plot_diagram
-    from ..patches._plots import gallery_indices, plot_gallery, plot_projection
-
-    for name, draw, width in (("barcode", plot_barcode, 6.4), ("diagram", plot_diagram, 5.2)):
-        fig, axes = plt.subplots(1, len(result.fields), squeeze=False,
-                                 figsize=(width * len(result.fields), 5.0),
-                                 constrained_layout=True)
-        for ax, f in zip(axes[0], result.fields):
-            rows = result.pairs[result.pairs["field"] == f]
-            title = f"{'Barcode' if name == 'barcode' else 'Persistence diagram'}, " \
-                    f"{result.method} over Z/{f} (max edge {result.max_edge:.3g})"
-            draw(rows, ax=ax, title=title)
-            ax.set_xlabel("scale (distance in DCT coordinates)") if name == "barcode" else None
-        fig.savefig(folder / f"{name}.png", dpi=110)
-        plt.close(fig)
-    fig, ax = plt.subplots(figsize=(5.6, 5.6), constrained_layout=True)
-    plot_projection(cloud.coordinates, dense.coordinates, result, ax=ax)
-    fig.savefig(folder / "projection.png", dpi=110)
-    plt.close(fig)
-    along = gallery_indices(result.loop)
-    picked = result.landmarks[along]
-    coords = dense.coordinates[picked]
-    labels = [f"{np.degrees(np.arctan2(c[1], c[0])) % 360:.0f} deg" for c in coords]
-    fig = plot_gallery(dense.patches[picked], labels,
-                       "Patches along the longest loop (landmarks on its cycle; angle in "
-                       "DCT coordinates 1-2)")
-    fig.savefig(folder / "loop_gallery.png", dpi=110)
-    plt.close(fig)
+#: Column -> unit of pairs.csv: births and deaths are Rips scales, Euclidean distances
+#: between points of the cloud in DCT coordinates, which are unitless (unit sphere).
+PAIRS_UNITS = {"dim": "", "birth": "distance in DCT coordinates (unitless)",
+               "death": "distance in DCT coordinates (unitless)",
+               "persistence": "distance in DCT coordinates (unitless)",
+               "field": "", "p_value": "", "significant": ""}
 
 
 def _summary(cloud, dense, result, options, k_neighbour, seconds) -> dict:
@@ -350,6 +381,7 @@ def _summary(cloud, dense, result, options, k_neighbour, seconds) -> dict:
                   "landmarks.npy": "indices of the landmarks in cloud.npy",
                   "pairs.csv": "dim, birth, death, persistence, field, p_value, "
                                "significant"},
+        "columns": {"pairs.csv": PAIRS_UNITS},
         "seconds": round(seconds, 3),
         "software": {"voxtopo": __version__, "python": platform.python_version()},
         "cautions": cautions if RESEARCH_CAUTION in cautions else [RESEARCH_CAUTION] + cautions,

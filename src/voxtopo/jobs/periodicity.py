@@ -15,6 +15,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ..diagram import VOXEL_INDEX
 from ..errors import InputError
 from ..options import BOOLEAN, COUNT, NUMBER, POSITIVE, TEXT, WHOLE, Rule, check, optional
 from ..io import result_folder, save_tiff
@@ -211,12 +212,16 @@ def run(lapse: TimeLapse, options: PeriodicityOptions | None = None,
     lapse : TimeLapse
         From :func:`voxtopo.io.load_timelapse`.
     options : PeriodicityOptions, optional
+        The settings; the defaults of ``voxtopo periodicity`` without one.
     progress : callable, optional
         ``progress(phase, fraction)``; may raise :class:`~voxtopo.Cancelled`.
 
     Returns
     -------
     PeriodicityResult
+        The signals and their table (score, period, p_value, significant, ... per
+        signal), the mean frame, the whole-field rhythm (or None), the top signals'
+        traces and bars, the units and the timings.
 
     Raises
     ------
@@ -274,13 +279,14 @@ def run(lapse: TimeLapse, options: PeriodicityOptions | None = None,
 
 
 def _positions(signals: Signals, lapse: TimeLapse) -> pd.DataFrame:
-    """Label, centre in pixels and in the scan's unit, and size of every signal."""
+    """Label, centre in the scan's unit and as a (fractional) voxel index, and size of
+    every signal."""
     names = "zyx"[3 - signals.centres.shape[1]:]
     columns = {"region": signals.labels}
     for k, name in enumerate(names):
-        columns[f"{name}_px"] = signals.centres[:, k]
+        columns[f"centre_{name}"] = signals.centres[:, k] * lapse.spacing[k]
     for k, name in enumerate(names):
-        columns[name] = signals.centres[:, k] * lapse.spacing[k]
+        columns[f"centre_voxel_{name}"] = signals.centres[:, k]
     columns["pixels"] = signals.sizes
     return pd.DataFrame(columns)
 
@@ -295,10 +301,7 @@ def _top(signals: Signals, table: pd.DataFrame, method: Method, count: int,
     out = []
     for i in chosen:
         trace = signals.traces[i]
-        z, _ = normalise(detrend(trace[None], method.detrend_degree))
-        period_frames = np.array([table["period"].iloc[i] / frame_interval])
-        cloud = sliding_windows(z, period_frames, method.points, method.dimension)[0]
-        bars = rips_bars(cloud, fields=(2,))[(2, 1)]
+        cloud, bars = _cloud_and_bars(trace, table["period"].iloc[i], method, frame_interval)
         out.append({"row": int(i), "region": int(table["region"].iloc[i]), "trace": trace,
                     "cloud": cloud, "bars": bars, "score": float(table["score"].iloc[i]),
                     "period": float(table["period"].iloc[i]),
@@ -306,8 +309,52 @@ def _top(signals: Signals, table: pd.DataFrame, method: Method, count: int,
     return out
 
 
+def _cloud_and_bars(trace: np.ndarray, period: float, method: Method,
+                    frame_interval: float) -> tuple[np.ndarray, np.ndarray]:
+    """The sliding-window cloud of one trace at its period, and its H1 bars over Z/2."""
+    z, _ = normalise(detrend(trace[None], method.detrend_degree))
+    period_frames = np.array([period / frame_interval])
+    cloud = sliding_windows(z, period_frames, method.points, method.dimension)[0]
+    return cloud, rips_bars(cloud, fields=(2,))[(2, 1)]
+
+
+def signal_bars(result: PeriodicityResult, row: int) -> np.ndarray:
+    """The H1 bars over Z/2 of one signal's sliding-window cloud, as the plots of the top
+    signals draw them.
+
+    Parameters
+    ----------
+    result : PeriodicityResult
+        What :func:`run` returned.
+    row : int
+        The signal's row in ``result.table``.
+
+    Returns
+    -------
+    ndarray, shape (n, 2)
+        Birth and death of each bar; none for a flat signal (no period to embed at).
+    """
+    table = result.table
+    if table["flat"].iloc[row]:
+        return np.zeros((0, 2))
+    return _cloud_and_bars(result.signals.traces[row], table["period"].iloc[row],
+                           result.method, result.frame_interval)[1]
+
+
 def describe(result: PeriodicityResult) -> str:
-    """What was found, in the words of the CLI line and the plugin's status."""
+    """What was found, in the words of the CLI line and the plugin's status.
+
+    Parameters
+    ----------
+    result : PeriodicityResult
+        What :func:`run` returned.
+
+    Returns
+    -------
+    str
+        The count of significant regions with the test and level, and the whole field's
+        score and period (in the time unit) when it was measured.
+    """
     line = result.counts["statement"]
     if result.whole_field is not None:
         line += (f"; whole field: score {result.whole_field.score:.3f}, period "
@@ -317,9 +364,23 @@ def describe(result: PeriodicityResult) -> str:
 
 def write(result: PeriodicityResult, out, force: bool = False) -> Path:
     """Fill the result folder ``out``: score.tif, period.tif, regions.csv, summary.json,
-    plots and report.html. The folder appears whole or not at all."""
-    from ..periodicity._plots import save_plots
-    from ..periodicity._report import write_report
+    plots and report.html. The folder appears whole or not at all.
+
+    Parameters
+    ----------
+    result : PeriodicityResult
+        What :func:`run` returned.
+    out : str or Path
+        The result folder to create.
+    force : bool
+        Replace ``out`` when it is a result folder voxtopo wrote.
+
+    Returns
+    -------
+    Path
+        ``out``.
+    """
+    from ..report.periodicity import save_periodicity_plots, write_periodicity_report
 
     with result_folder(out, force=force) as folder:
         signals, table = result.signals, result.table
@@ -328,10 +389,10 @@ def write(result: PeriodicityResult, out, force: bool = False) -> Path:
             save_tiff(Scan(painted, spacing=result.spacing, unit=result.unit,
                            source=f"{name} map"), folder / f"{name}.tif")
         table.to_csv(folder / "regions.csv", index=False, float_format="%.8g")
-        plots = save_plots(result, folder)
+        plots = save_periodicity_plots(folder, result)
         summary = _summary(result, plots)
         write_summary(folder, summary)
-        write_report(folder, summary)
+        write_periodicity_report(folder, summary)
     return Path(out)
 
 
@@ -341,16 +402,22 @@ def _summary(result: PeriodicityResult, plots: list[str]) -> dict:
 
     time_unit, unit = result.time_unit, result.unit
     value_unit = "gray value (mean intensity)"
-    columns = {"region": {"pixel": "number of the pixel (bin) in row-major order",
-                          "tile": "number of the tile in row-major order",
-                          "region": "label in the regions image"}[result.signals.kind]}
-    for name in "zyx"[3 - result.signals.centres.shape[1]:]:
-        columns[f"{name}_px"] = f"centre, {name} pixel index"
-        columns[name] = f"centre, {unit}"
-    columns["pixels"] = "pixels averaged into the signal"
+    meanings = {"region": {"pixel": "number of the pixel (bin) in row-major order",
+                           "tile": "number of the tile in row-major order",
+                           "region": "label in the regions image"}[result.signals.kind]}
+    units = {"region": ""}
+    names = "zyx"[3 - result.signals.centres.shape[1]:]
+    for name in names:
+        meanings[f"centre_{name}"] = f"centre along {name}"
+        units[f"centre_{name}"] = unit
+    for name in names:
+        meanings[f"centre_voxel_{name}"] = f"centre along {name}, a (fractional) voxel index"
+        units[f"centre_voxel_{name}"] = VOXEL_INDEX
+    meanings["pixels"], units["pixels"] = "pixels averaged into the signal", ""
     for name, text in COLUMNS.items():
-        columns[name] = text.format(time=time_unit, value=value_unit)
-    columns["period"] = f"{time_unit} (highest periodogram peak in the period range)"
+        meanings[name] = text.format(time=time_unit, value=value_unit)
+        units[name] = COLUMN_UNITS.get(name, "").format(time=time_unit, value=value_unit)
+    meanings["period"] = f"{time_unit} (highest periodogram peak in the period range)"
     table = result.table
     top_rows = [{k: row[k] for k in ("region", "score", "period", "p_value")}
                 for row in result.top]
@@ -361,7 +428,8 @@ def _summary(result: PeriodicityResult, plots: list[str]) -> dict:
         "scan": result.lapse,
         "options": result.options.described(),
         "counts": result.counts,
-        "columns": columns,
+        "columns": {"regions.csv": units},
+        "column_meanings": {"regions.csv": meanings},
         "maps": {"score.tif": f"score of the signal each pixel belongs to, spacing in {unit}; "
                               f"NaN outside every region and where the trace is flat",
                  "period.tif": f"period in {time_unit}, same layout"},
@@ -397,6 +465,10 @@ def _summary(result: PeriodicityResult, plots: list[str]) -> dict:
         "software": {"voxtopo": __version__, **software_versions()},
         "cautions": [RESEARCH_CAUTION],
     }
+
+
+#: Unit of each measured column of regions.csv ("" for scores, p-values and flags).
+COLUMN_UNITS = {"period": "{time}", "amplitude": "{value}", "damping": "1/{time}"}
 
 
 def _number(value):

@@ -88,7 +88,20 @@ class PatchPersistence:
 
     def bars(self, dim: int, field: int | None = None) -> pd.DataFrame:
         """Bars of one dimension (and field; the first when not given), longest first,
-        with their persistence counted up to ``max_edge`` in ``persistence_to_max_edge``."""
+        with their persistence counted up to ``max_edge`` in ``persistence_to_max_edge``.
+
+        Parameters
+        ----------
+        dim : int
+            Homology dimension.
+        field : int, optional
+            Coefficient field Z/field, one of ``fields``.
+
+        Returns
+        -------
+        DataFrame
+            The pairs' rows with ``persistence_to_max_edge`` added.
+        """
         field = self.fields[0] if field is None else field
         rows = self.pairs[(self.pairs["dim"] == dim) & (self.pairs["field"] == field)].copy()
         rows["persistence_to_max_edge"] = (np.minimum(rows["death"], self.max_edge)
@@ -98,7 +111,19 @@ class PatchPersistence:
 
     def margin(self, field: int | None = None) -> dict:
         """How far the longest dimension-1 bar beats the second (persistence up to
-        ``max_edge``): their difference and ratio."""
+        ``max_edge``): their difference and ratio.
+
+        Parameters
+        ----------
+        field : int, optional
+            Coefficient field Z/field; the first of ``fields`` when not given.
+
+        Returns
+        -------
+        dict
+            ``longest``, ``second``, ``difference`` and ``ratio`` (inf without a second
+            bar).
+        """
         lengths = self.bars(1, field)["persistence_to_max_edge"].to_numpy()
         first = float(lengths[0]) if len(lengths) else 0.0
         second = float(lengths[1]) if len(lengths) > 1 else 0.0

@@ -63,7 +63,20 @@ class Patches:
         return len(self.coordinates)
 
     def subset(self, indices, **changes) -> "Patches":
-        """The patches at ``indices`` (an index array or boolean mask), in that order."""
+        """The patches at ``indices`` (an index array or boolean mask), in that order.
+
+        Parameters
+        ----------
+        indices : array_like of int or bool
+            Which patches to keep.
+        **changes
+            Other fields of the new cloud (``counts``, ``parameters``, ...).
+
+        Returns
+        -------
+        Patches
+            A new cloud with the chosen rows of every per-patch array.
+        """
         indices = np.asarray(indices)
         distance = None if self.neighbour_distance is None else self.neighbour_distance[indices]
         fields = {"coordinates": self.coordinates[indices], "patches": self.patches[indices],
@@ -80,7 +93,15 @@ class Patches:
 
     def save(self, folder, name: str = "cloud") -> None:
         """Write ``<name>.npy`` (coordinates), ``<name>_patches.npy``,
-        ``<name>_origin.npy`` and ``<name>.json`` (parameters and sources) into ``folder``."""
+        ``<name>_origin.npy`` and ``<name>.json`` (parameters and sources) into ``folder``.
+
+        Parameters
+        ----------
+        folder : str or Path
+            An existing folder.
+        name : str
+            The files' stem.
+        """
         folder = Path(folder)
         np.save(folder / f"{name}.npy", self.coordinates)
         np.save(folder / f"{name}_patches.npy", self.patches)

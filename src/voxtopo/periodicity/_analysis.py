@@ -82,6 +82,34 @@ def band_in_frames(periods, frames: int, frame_interval: float, time_unit: str =
 
     At least two periods must fit in the signal and a period must span two frames or more
     (the Nyquist limit).
+
+    Parameters
+    ----------
+    periods : (float, float) or None
+        Shortest and longest period in ``time_unit``; None: from two frames to half the
+        series.
+    frames : int
+        Length of the signals.
+    frame_interval : float
+        Time between frames, in ``time_unit``.
+    time_unit : str
+        The unit of ``periods``, for the messages.
+
+    Returns
+    -------
+    (float, float)
+        Shortest and longest period in frames.
+
+    Raises
+    ------
+    InputError
+        When the series is too short or the band is not two increasing positive numbers
+        that fit in it.
+
+    Examples
+    --------
+    >>> band_in_frames(None, 100, 0.5)
+    (2.0, 50.0)
     """
     if frames < 2:
         raise InputError(f"The time-lapse has {frames} frame; a rhythm needs a series of "

@@ -36,7 +36,25 @@ SQRT3 = float(np.sqrt(3.0))
 
 
 def window_length(period_frames, dimension: int = DIMENSION):
-    """Window length M tau, in frames, for a period in frames: L M / (M + 1)."""
+    """Window length M tau, in frames, for a period in frames: L M / (M + 1).
+
+    Parameters
+    ----------
+    period_frames : float or array_like
+        Periods L, in frames.
+    dimension : int
+        The embedding dimension M.
+
+    Returns
+    -------
+    ndarray of float64
+        Window lengths in frames, of the shape of ``period_frames``.
+
+    Examples
+    --------
+    >>> float(window_length(11.0, dimension=10))
+    10.0
+    """
     return np.asarray(period_frames, dtype=np.float64) * dimension / (dimension + 1.0)
 
 

@@ -53,7 +53,20 @@ class Signals:
         return len(self.traces)
 
     def paint(self, values, fill=np.nan) -> np.ndarray:
-        """A map of the spatial shape holding each signal's value on its pixels."""
+        """A map of the spatial shape holding each signal's value on its pixels.
+
+        Parameters
+        ----------
+        values : array_like, shape (signals,)
+            One value per signal (a column of the measured table).
+        fill : float
+            The value of pixels that belong to no signal (outside every region).
+
+        Returns
+        -------
+        ndarray of float32
+            The frames' spatial shape.
+        """
         values = np.asarray(values, dtype=np.float32)
         out = np.full(self.owner.shape, fill, dtype=np.float32)
         inside = self.owner >= 0
@@ -100,6 +113,18 @@ def pixel_signals(stack, bin: int = 1) -> Signals:
 
     Blocks at the far edges are smaller when ``bin`` does not divide the image.
 
+    Parameters
+    ----------
+    stack : array_like, shape (t, y, x) or (t, z, y, x)
+        The time-lapse.
+    bin : int
+        Side of the blocks in pixels (1: every pixel).
+
+    Returns
+    -------
+    Signals
+        One row of ``traces`` per block, in row-major order.
+
     Examples
     --------
     >>> stack = np.arange(2 * 4 * 4, dtype=float).reshape(2, 4, 4)
@@ -120,6 +145,18 @@ def pixel_signals(stack, bin: int = 1) -> Signals:
 def tile_signals(stack, tiles: int) -> Signals:
     """One signal per tile: the image cut into ``tiles`` parts along every spatial axis.
 
+    Parameters
+    ----------
+    stack : array_like, shape (t, y, x) or (t, z, y, x)
+        The time-lapse.
+    tiles : int
+        Parts along each spatial axis (``tiles ** ndim`` signals), as equal as can be.
+
+    Returns
+    -------
+    Signals
+        One row of ``traces`` per tile, in row-major order.
+
     Examples
     --------
     >>> signals = tile_signals(np.zeros((3, 10, 12)), tiles=2)
@@ -139,6 +176,20 @@ def tile_signals(stack, tiles: int) -> Signals:
 
 def region_signals(stack, regions, source: str = "the regions image") -> Signals:
     """One signal per labelled region (label > 0) of an integer image of the same shape.
+
+    Parameters
+    ----------
+    stack : array_like, shape (t, y, x) or (t, z, y, x)
+        The time-lapse.
+    regions : array_like of int
+        A label image of the frame shape: 0 background, 1, 2, ... regions.
+    source : str
+        What the label image is, for the messages (its file name).
+
+    Returns
+    -------
+    Signals
+        One row of ``traces`` per label present, in increasing label order.
 
     Examples
     --------

@@ -28,6 +28,18 @@ def detrend(traces, degree: int = 1) -> np.ndarray:
     A low-degree polynomial takes out slow drift (bleaching, focus) without touching an
     oscillation that lasts a few periods, so a damped oscillation keeps its shape.
 
+    Parameters
+    ----------
+    traces : array_like, shape (..., frames)
+        Signals over time, one per row.
+    degree : int
+        Degree of the trend (0: the mean only).
+
+    Returns
+    -------
+    ndarray of float64
+        The residuals, of the shape of ``traces``.
+
     Examples
     --------
     >>> bool(np.allclose(detrend(np.array([[1.0, 2.0, 3.0, 4.0]])), 0))
@@ -44,6 +56,24 @@ def normalise(traces) -> tuple[np.ndarray, np.ndarray]:
     """Rows scaled to unit standard deviation, and a mask of the rows that do not vary.
 
     Rows that do not vary (standard deviation zero up to rounding) are left at zero.
+
+    Parameters
+    ----------
+    traces : array_like, shape (rows, frames)
+        Signals over time, one per row (usually detrended).
+
+    Returns
+    -------
+    scaled : ndarray of float64
+        Each row over its standard deviation; flat rows all zero.
+    flat : ndarray of bool, shape (rows,)
+        The rows that do not vary.
+
+    Examples
+    --------
+    >>> scaled, flat = normalise(np.array([[1.0, -1.0], [2.0, 2.0]]))
+    >>> scaled.tolist(), flat.tolist()
+    ([[1.0, -1.0], [0.0, 0.0]], [False, True])
     """
     traces = np.asarray(traces, dtype=np.float64)
     scale = traces.std(axis=-1)
@@ -61,6 +91,18 @@ def spectral_period(traces, band: tuple[float, float]) -> np.ndarray:
 
     The rows are tapered with a Hann window, zero padded ``PADDING`` times, and the peak
     is refined by a parabola through the logarithms of the three powers around it.
+
+    Parameters
+    ----------
+    traces : array_like, shape (rows, frames) or (frames,)
+        Signals over time.
+    band : (float, float)
+        Shortest and longest period searched, in frames.
+
+    Returns
+    -------
+    ndarray of float64, shape (rows,)
+        Periods in frames, within ``band``.
 
     Examples
     --------
@@ -98,6 +140,16 @@ def amplitude(detrended) -> np.ndarray:
     """sqrt(2) times the standard deviation of each detrended row: the amplitude of a
     sinusoid, in the signal's own units.
 
+    Parameters
+    ----------
+    detrended : array_like, shape (..., frames)
+        Detrended signals, one per row.
+
+    Returns
+    -------
+    ndarray
+        One amplitude per row.
+
     Examples
     --------
     >>> t = np.arange(400)
@@ -114,6 +166,18 @@ def damping(detrended, frame_interval: float = 1.0) -> np.ndarray:
     is fitted by a straight line over the middle 80 percent of the frames (the transform
     rings at the ends). Positive: the oscillation dies away; near zero: it keeps its
     amplitude; negative: it grows.
+
+    Parameters
+    ----------
+    detrended : array_like, shape (rows, frames) or (frames,)
+        Detrended signals.
+    frame_interval : float
+        Time between frames, in the time unit the rate is given in.
+
+    Returns
+    -------
+    ndarray of float64, shape (rows,)
+        Decay rates, per time unit.
 
     Examples
     --------
@@ -143,6 +207,19 @@ def surrogates(traces, count: int, rng: np.random.Generator) -> np.ndarray:
     colour, not the same rhythm with shuffled phases (which, for a sinusoid, would be the
     sinusoid again and make the test powerless). For white noise the surrogates are white
     noise, so the p-values of white noise are uniform.
+
+    Parameters
+    ----------
+    traces : array_like, shape (rows, frames) or (frames,)
+        Signals over time (detrended).
+    count : int
+        Surrogates per row.
+    rng : numpy.random.Generator
+        The source of randomness (seeded by the caller).
+
+    Returns
+    -------
+    ndarray of float64, shape (rows, count, frames)
 
     References
     ----------

@@ -3,8 +3,9 @@
 Pore bodies and throats from the persistence of the signed distance transform, solid
 grains likewise, loops and enclosed voids, percolation radius and connected porosity per
 axis, Euler characteristic and connectivity density of each phase, and the Minkowski
-functionals of the pore phase. :func:`analyse` measures, :func:`write_pores` writes the
-result folder, :func:`regions_of` labels each pore's region by its id.
+functionals of the pore phase. :func:`analyse` measures, :func:`regions_of` labels each
+pore's region by its id; the pores job (:mod:`voxtopo.jobs.pores`) writes the result
+folder.
 
 >>> import numpy as np
 >>> from voxtopo.porosity import analyse
@@ -18,7 +19,6 @@ result folder, :func:`regions_of` labels each pore's region by its id.
 from ._analysis import (COMPLEMENT, PoreAnalysis, analyse, cautions, is_binary_mask,
                         size_column)
 from ._regions import pore_regions, regions_of
-from ._write import summary_lines, write_pores
 
-__all__ = ["analyse", "write_pores", "PoreAnalysis", "cautions", "COMPLEMENT", "size_column",
-           "summary_lines", "pore_regions", "regions_of", "is_binary_mask"]
+__all__ = ["analyse", "PoreAnalysis", "cautions", "COMPLEMENT", "size_column",
+           "pore_regions", "regions_of", "is_binary_mask"]

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import dataclasses
 import time
 from dataclasses import dataclass, field
 
@@ -13,6 +12,7 @@ from scipy import ndimage
 from .. import filtration
 from .. import significance as sig
 from ..diagram import AXES_3D
+from ..filtration import binary_foreground, region_of_interest
 from ..engine import construction_of, estimate, persistence
 from ..errors import InputError
 from ..memory import ensure_fits, reported_as_too_big
@@ -37,7 +37,21 @@ _BYTES_PER_VOXEL = 128
 
 
 def cautions(spacing, unit) -> list[str]:
-    """The cautions written into every summary, with the resolution limit in ``unit``."""
+    """The cautions written into every summary, with the resolution limit in ``unit``.
+
+    Parameters
+    ----------
+    spacing : sequence of float
+        The voxel size; the finest one sets the smallest resolved throat.
+    unit : str
+        The unit of ``spacing``.
+
+    Returns
+    -------
+    list of str
+        Three sentences: segmentation and resolution, the smallest resolved throat in
+        ``unit``, and that results support research only.
+    """
     finest = min(spacing)
     return [
         "The numbers depend on the segmentation (threshold, label, smoothing) and on the "
@@ -105,20 +119,19 @@ SPARSE_PHASE_FRACTION = 0.001
 RESOLVED_RADIUS_VOXELS = 1.5
 
 
-def _binary_foreground(data: np.ndarray):
-    """The value marking the foreground when ``data`` is a binary mask (True, 1, or 255 in
-    an 8-bit image without any 1), else None."""
-    if data.dtype == bool:
-        return True
-    if not (np.issubdtype(data.dtype, np.integer) or np.issubdtype(data.dtype, np.floating)):
-        return None
-    # 8-bit masks from image editors mark the foreground 255
-    foreground = 255 if data.dtype == np.uint8 and not (data == 1).any() else 1
-    return foreground if np.logical_or(data == 0, data == foreground).all() else None
-
-
 def is_binary_mask(data: np.ndarray) -> bool:
     """True for a binary mask as :func:`analyse` reads one: bool, 0/1, or 0/255 in 8 bits.
+
+    Parameters
+    ----------
+    data : array_like
+        The image.
+
+    Returns
+    -------
+    bool
+        Whether every value is 0 or the foreground value (1, or 255 in an 8-bit image
+        without any 1).
 
     Examples
     --------
@@ -126,7 +139,7 @@ def is_binary_mask(data: np.ndarray) -> bool:
     >>> is_binary_mask(np.array([0, 255], np.uint8)), is_binary_mask(np.array([0, 2]))
     (True, False)
     """
-    return _binary_foreground(np.asarray(data)) is not None
+    return binary_foreground(np.asarray(data)) is not None
 
 
 def pore_mask(scan: Scan, *, threshold=None, pores_bright=False, label=None, sample=None):
@@ -159,7 +172,7 @@ def pore_mask(scan: Scan, *, threshold=None, pores_bright=False, label=None, sam
     if threshold is not None:
         if isinstance(threshold, str) and threshold != "otsu":
             raise InputError(f"The threshold should be a number or 'otsu', got {threshold!r}.")
-        if _binary_foreground(data) is not None:
+        if binary_foreground(data) is not None:
             raise InputError(f"The input {where} is already a binary mask (two values only), "
                              f"where a threshold could only swap or keep its phases; leave "
                              f"out the threshold: its True (1) voxels are the pores.")
@@ -175,7 +188,7 @@ def pore_mask(scan: Scan, *, threshold=None, pores_bright=False, label=None, sam
                       else "at or below the threshold"}
     if data.dtype != bool:
         filtration.check_finite(scan)
-    foreground = _binary_foreground(data)
+    foreground = binary_foreground(data)
     if foreground is None:
         examples = np.unique(data[(data != 0) & (data != 1)])[:3].tolist()
         raise InputError(
@@ -183,29 +196,6 @@ def pore_mask(scan: Scan, *, threshold=None, pores_bright=False, label=None, sam
             f"give a threshold (a value or 'otsu', CLI --threshold) or the pore label of a "
             f"label image (CLI --label).")
     return data == foreground, {"method": "mask", "threshold": None}
-
-
-def region_of_interest(roi, shape, where: str) -> np.ndarray | None:
-    """The sample as a bool array of ``shape`` (True = sample), or None for the whole scan.
-
-    ``roi`` is a binary array or Scan (True, 1 or 255 = sample)."""
-    if roi is None:
-        return None
-    data = roi.data if isinstance(roi, Scan) else np.asarray(roi)
-    named = roi.source if isinstance(roi, Scan) and roi.source else "the region of interest"
-    if data.shape != tuple(shape):
-        raise InputError(f"The region of interest {named} has shape {data.shape} but the "
-                         f"scan {where} has shape {tuple(shape)}; give a mask of the same "
-                         f"grid.")
-    foreground = _binary_foreground(data)
-    if foreground is None:
-        raise InputError(f"The region of interest {named} is not a binary mask (True or 1 "
-                         f"marks the sample); threshold it first.")
-    sample = data == foreground
-    if not sample.any():
-        raise InputError(f"The region of interest {named} holds no voxel of the sample "
-                         f"(it is all 0); True or 1 marks the sample.")
-    return sample
 
 
 def _name(scan: Scan) -> str:
@@ -286,7 +276,7 @@ def _coordinates(flat_index: np.ndarray, shape, spacing) -> np.ndarray:
 
 def _flat(pairs: pd.DataFrame, which: str, shape) -> np.ndarray:
     axes = AXES_3D[3 - len(shape):]
-    cols = pairs[[f"{which}_{a}" for a in axes]]
+    cols = pairs[[f"{which}_voxel_{a}" for a in axes]]
     missing = cols.isna().any(axis=1).to_numpy()
     idx = cols.fillna(0).to_numpy(dtype=np.int64)
     flat = np.ravel_multi_index(tuple(idx.T), shape) if len(idx) else np.zeros(0, np.int64)
@@ -294,7 +284,25 @@ def _flat(pairs: pd.DataFrame, which: str, shape) -> np.ndarray:
 
 
 def size_column(ndim: int, body: str = "body") -> str:
-    """Name of the own-size column of a pore or grain table: a volume in 3D, an area in 2D."""
+    """Name of the own-size column of a pore or grain table: a volume in 3D, an area in 2D.
+
+    Parameters
+    ----------
+    ndim : int
+        2 or 3.
+    body : str
+        The prefix of the column ("body" for pores and grains).
+
+    Returns
+    -------
+    str
+        ``<body>_volume`` in 3D, ``<body>_area`` in 2D.
+
+    Examples
+    --------
+    >>> size_column(3), size_column(2)
+    ('body_volume', 'body_area')
+    """
     return f"{body}_volume" if ndim == 3 else f"{body}_area"
 
 
@@ -560,22 +568,6 @@ def percolation_state(radius: float | None, finest: float) -> str:
     return "yes" if radius >= RESOLVED_RADIUS_VOXELS * finest else "not resolved"
 
 
-def _outside_as_never(diagram, outside_level: float):
-    """The diagram of the sample alone: pairs born in the outside (at ``outside_level``)
-    are dropped, deaths there become 'never dies' (no death voxel)."""
-    pairs = diagram.pairs
-    sign = -1.0 if diagram.superlevel else 1.0
-    born_outside = sign * pairs["birth"].to_numpy(dtype=np.float64) >= sign * outside_level
-    pairs = pairs[~born_outside].copy()
-    dies_outside = sign * pairs["death"].to_numpy(dtype=np.float64) >= sign * outside_level
-    pairs.loc[dies_outside, "death"] = sign * np.inf
-    pairs.loc[dies_outside, "persistence"] = np.inf
-    for column in pairs.columns:
-        if column.startswith("death_"):
-            pairs.loc[dies_outside, column] = np.nan
-    return dataclasses.replace(diagram, pairs=pairs.reset_index(drop=True))
-
-
 def _sample_distance(scan: Scan, pore: np.ndarray, solid: np.ndarray) -> Scan:
     """Signed distance in the sample: -d in the pores, +d in the solid, d to the nearest
     voxel centre of the other phase in the sample (outside a region of interest a voxel is
@@ -784,8 +776,8 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
         solid_diagram = persistence(solid_field, superlevel=True, neighbourhood=n_solid,
                                     engine=engine, progress=progress)
         if sample is not None:
-            diagram = _outside_as_never(diagram, outside_level)
-            solid_diagram = _outside_as_never(solid_diagram, -outside_level)
+            diagram = diagram.without_outside(outside_level)
+            solid_diagram = solid_diagram.without_outside(-outside_level)
             del pore_field, solid_field
         diagram = sig.robust_flags(diagram, delta)
         solid_diagram = sig.robust_flags(solid_diagram, delta)

@@ -68,7 +68,8 @@ def pore_regions(distance, birth_voxels, death_levels, neighbourhood: int = 26,
     distance : ndarray
         Signed distance transform, negative in the pore phase (2D or 3D).
     birth_voxels : (n, ndim) array of int
-        Voxel index of each pore's birth (the ``birth_z, birth_y, birth_x`` of a diagram).
+        Voxel index of each pore's birth (the ``birth_voxel_z, birth_voxel_y, birth_voxel_x`` of a
+        diagram).
     death_levels : (n,) array of float
         Each pore's death; ``inf`` for a pore that never dies. Levels above 0 count as 0.
     neighbourhood : {4, 8} in 2D, {6, 26} in 3D
@@ -257,6 +258,18 @@ def regions_of(analysis, progress=None) -> np.ndarray:
 
     The same partition as the pores' ``body_volume`` (``body_area`` in 2D): the count of
     voxels labelled ``id`` times the voxel volume is that pore's own size.
+
+    Parameters
+    ----------
+    analysis : PoreAnalysis
+        What :func:`voxtopo.porosity.analyse` returned.
+    progress : callable(phase, fraction), optional
+        Called as the flooding goes on; may raise :class:`~voxtopo.Cancelled`.
+
+    Returns
+    -------
+    ndarray of int
+        The scan's shape; each voxel holds the ``id`` of its pore, or 0.
     """
     pores = analysis.pores
     distance = analysis.distance

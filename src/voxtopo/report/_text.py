@@ -10,6 +10,16 @@ def literal(text) -> str:
     dollar signs matplotlib would parse them, and fail on a command it does not know.
     An escaped dollar sign is drawn as a dollar sign.
 
+    Parameters
+    ----------
+    text : object
+        What the user wrote; anything ``str`` accepts.
+
+    Returns
+    -------
+    str
+        The text with every ``$`` escaped.
+
     Examples
     --------
     >>> print(literal("$x$ um"))

@@ -94,7 +94,22 @@ def _environment():
 
 
 def render(template: str, **context) -> str:
-    """Render one of the templates (``result.html``, ``batch.html``, ``compare.html``)."""
+    """Render one of the templates (``result.html``, ``batch.html``, ``compare.html``,
+    ``periodicity.html``).
+
+    Parameters
+    ----------
+    template : str
+        The template's file name in ``report/templates``.
+    **context
+        The template's values; ``cautions``, ``software``, ``created`` and ``subtitle``
+        get the house defaults when not given.
+
+    Returns
+    -------
+    str
+        The page's HTML.
+    """
     context.setdefault("cautions", list(CAUTIONS))
     context.setdefault("software", software_versions())
     context.setdefault("created", datetime.now(timezone.utc).isoformat(timespec="seconds"))
@@ -133,7 +148,13 @@ def _sections(summary: dict) -> list[dict]:
     """Sections for the keys the page does not lay out itself (other jobs' numbers)."""
     sections = []
     for key, value in summary.items():
-        if key in _KNOWN_KEYS:
+        if key in _KNOWN_KEYS or value is None:   # no region of interest, say
+            continue
+        if key == "columns":                      # file -> column -> unit
+            for name, units in value.items():
+                sections.append({"title": f"Columns of {name} and their units",
+                                 "mapping": {c: u or "(no unit)" for c, u in units.items()},
+                                 "table": None})
             continue
         title = key.replace("_", " ").capitalize()
         if isinstance(value, dict):
@@ -297,6 +318,19 @@ def write_batch_report(folder, settings: dict | None = None) -> Path:
 
     Each scan's own report is linked by a relative path (scans/<name>/report.html), so
     the folder can be moved as a whole.
+
+    Parameters
+    ----------
+    folder : str or Path
+        The batch folder.
+    settings : dict, optional
+        The batch's settings tables, shown on the page; without them, the name of the
+        folder's settings file.
+
+    Returns
+    -------
+    Path
+        The report.
     """
     folder = Path(folder)
     summary_path = folder / "summary.csv"
@@ -361,7 +395,21 @@ def _colours(groups) -> dict:
 
 def plot_distance_heatmap(matrix, names, groups, title: str = "distance"):
     """Heatmap of a distance matrix with rows and columns ordered by group, group borders
-    drawn as lines. Returns the matplotlib Figure."""
+    drawn as lines.
+
+    Parameters
+    ----------
+    matrix : array_like, shape (n, n)
+        The distances.
+    names, groups : sequence of str
+        One name and one group label ("" for none) per diagram.
+    title : str
+        The colour bar's label.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
     import matplotlib.pyplot as plt
 
 
@@ -383,7 +431,20 @@ def plot_distance_heatmap(matrix, names, groups, title: str = "distance"):
 
 
 def plot_embedding(embedding, names, groups):
-    """Scatter plot of a 2D embedding, one colour per group. Returns the Figure."""
+    """Scatter plot of a 2D embedding, one colour per group.
+
+    Parameters
+    ----------
+    embedding : ndarray, shape (n, 2)
+        The points (:func:`voxtopo.compare.embed_mds`).
+    names, groups : sequence of str
+        One name and one group label per point; names are written beside the points
+        when there are at most 40.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
     import matplotlib.pyplot as plt
 
 
@@ -415,7 +476,17 @@ def _group_legend(ax, colours: dict) -> None:
 
 def plot_betti_curves(comparison):
     """Betti curves of a comparison: one panel per dimension compared, one line per
-    diagram coloured by its group. Returns the Figure."""
+    diagram coloured by its group.
+
+    Parameters
+    ----------
+    comparison : Comparison
+        What :func:`voxtopo.compare.compare_diagrams` returned.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
     import matplotlib.pyplot as plt
 
     dims = comparison.dims
@@ -442,7 +513,17 @@ def plot_betti_curves(comparison):
 
 def plot_persistence_images(comparison):
     """Mean persistence image of each group (rows) in each dimension compared (columns),
-    on the comparison's common grid with real birth values. Returns the Figure."""
+    on the comparison's common grid with real birth values.
+
+    Parameters
+    ----------
+    comparison : Comparison
+        What :func:`voxtopo.compare.compare_diagrams` returned.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
     import matplotlib.pyplot as plt
 
     groups = sorted(set(map(str, comparison.groups)))
@@ -475,8 +556,24 @@ def _words(mapping: dict) -> dict:
 def write_comparison(comparison, out, *, force: bool = False, inputs=()) -> Path:
     """Write a comparison folder: tables (see ``Comparison.save``), heatmap.png, mds.png,
     betti_curves.png, persistence_images.png and report.html, atomically (nothing is left
-    behind on an error). ``inputs`` are the result folders compared, which the output may
-    not be nor contain."""
+    behind on an error).
+
+    Parameters
+    ----------
+    comparison : Comparison
+        What :func:`voxtopo.compare.compare_diagrams` returned.
+    out : str or Path
+        The folder to create.
+    force : bool
+        Replace ``out`` when it is a folder voxtopo wrote.
+    inputs : sequence of paths
+        The result folders compared, which ``out`` may not be nor contain.
+
+    Returns
+    -------
+    Path
+        ``out``.
+    """
     import matplotlib.pyplot as plt
 
     from ..io import result_folder

@@ -43,7 +43,7 @@ __all__ = ["NoiseModel", "NullDistribution", "Significance", "NOISE_MODELS",
 def assess(diagram: Diagram, unsmoothed, *, alpha: float = 0.05, noise: float | None = None,
            noise_model: str = "gaussian", smoothing: float | None = None,
            engine: str = "auto", seed: int = 0, simulations: int | None = None,
-           block_shape=None, progress=None) -> tuple[Diagram, Significance]:
+           block_shape=None, progress=None, sample=None) -> tuple[Diagram, Significance]:
     """p-values and ``significant`` flags for the pairs of a gray-value sweep.
 
     Parameters
@@ -63,6 +63,10 @@ def assess(diagram: Diagram, unsmoothed, *, alpha: float = 0.05, noise: float | 
         Gaussian smoothing sigma (scan's unit) applied before the sweep.
     engine, seed, simulations, block_shape, progress
         See :func:`null_distribution`.
+    sample : ndarray of bool, optional
+        The region of interest ``diagram`` was swept in (same grid as ``unsmoothed``): the
+        noise is read off the region's voxels and the noise-only fields are swept in the
+        same region.
 
     Returns
     -------
@@ -78,11 +82,12 @@ def assess(diagram: Diagram, unsmoothed, *, alpha: float = 0.05, noise: float | 
     True
     """
     alpha = check_alpha(alpha)
-    model = estimate_noise(unsmoothed, noise=noise, noise_model=noise_model)
+    model = estimate_noise(unsmoothed, noise=noise, noise_model=noise_model, sample=sample)
     null = null_distribution(diagram.shape, model, smoothing=smoothing,
                              superlevel=diagram.superlevel, neighbourhood=diagram.neighbourhood,
                              periodic=any(diagram.periodic), field=diagram.field,
                              engine=engine, alpha=alpha, simulations=simulations,
-                             block_shape=block_shape, seed=seed, progress=progress)
+                             block_shape=block_shape, seed=seed, progress=progress,
+                             sample=sample)
     significance = Significance(model, null, alpha)
     return with_p_values(diagram, significance), significance

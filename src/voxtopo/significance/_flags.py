@@ -20,7 +20,28 @@ ROBUST_METHOD = ("persistence above twice the boundary tolerance plus a voxel di
 
 
 def check_alpha(alpha: float) -> float:
-    """The level as a float, refused outside (0, 1)."""
+    """The level as a float, refused outside (0, 1).
+
+    Parameters
+    ----------
+    alpha : float or str
+        The family-wise significance level the user gave.
+
+    Returns
+    -------
+    float
+        ``alpha``, strictly between 0 and 1.
+
+    Raises
+    ------
+    InputError
+        For a value that is not a number or not strictly between 0 and 1.
+
+    Examples
+    --------
+    >>> check_alpha("0.05")
+    0.05
+    """
     try:
         alpha = float(alpha)
     except (TypeError, ValueError):
@@ -45,7 +66,21 @@ class Significance:
         return {d: self.null.threshold(d, self.alpha) for d in range(self.null.maxima.shape[1])}
 
     def describe(self, diagram: Diagram) -> dict:
-        """summary.json entry: noise, level, simulations, thresholds and counts."""
+        """summary.json entry: noise, level, simulations, thresholds and counts.
+
+        Parameters
+        ----------
+        diagram : Diagram
+            The diagram with a ``significant`` column (:func:`with_p_values`); its unit
+            names the thresholds' unit for a distance sweep.
+
+        Returns
+        -------
+        dict
+            ``method``, ``alpha``, ``noise``, ``simulations``, ``null``, ``threshold``
+            per dimension (None when no simulated maximum exceeds it), its unit,
+            ``significant`` per dimension and what happens to essential classes.
+        """
         unit = "Anscombe units" if self.noise.model == "poisson" else (
             diagram.unit if diagram.values == "distance" else "gray value")
         counts = significant_counts(diagram)
@@ -67,6 +102,18 @@ def with_p_values(diagram: Diagram, significance: Significance) -> Diagram:
     significant when ``p_value <= alpha``. An essential class (a feature that never dies,
     such as the one component every scan has) is not tested: ``p_value`` NaN and
     ``significant`` True, so it is always counted as a feature.
+
+    Parameters
+    ----------
+    diagram : Diagram
+        The diagram of the scan that ``significance`` was made for.
+    significance : Significance
+        Noise model, null distribution and level.
+
+    Returns
+    -------
+    Diagram
+        A copy with the two columns added.
     """
     pairs = diagram.pairs.copy(deep=False)  # new columns only: the table is not copied
     p_value = np.full(len(pairs), np.nan)
@@ -117,13 +164,45 @@ def robust_flags(diagram: Diagram, boundary_tolerance: float | None = None) -> D
 def robust_threshold(diagram: Diagram, boundary_tolerance: float | None = None) -> float:
     """Persistence above which a feature of a distance sweep is robust:
     ``2 (delta + h sqrt(d))`` in the scan's unit, h the largest spacing, d the number of
-    dimensions (see :func:`robust_flags`)."""
+    dimensions (see :func:`robust_flags`).
+
+    Parameters
+    ----------
+    diagram : Diagram
+        A diagram of a distance sweep (its spacing and number of dimensions are used).
+    boundary_tolerance : float, optional
+        delta, how far the segmented boundary may be off, in the scan's unit; default
+        one voxel (the largest spacing).
+
+    Returns
+    -------
+    float
+        The threshold in the scan's unit.
+    """
     delta = boundary_tolerance_of(diagram, boundary_tolerance)
     return 2.0 * (delta + float(max(diagram.spacing)) * math.sqrt(diagram.ndim))
 
 
 def boundary_tolerance_of(diagram: Diagram, boundary_tolerance: float | None) -> float:
-    """delta in the scan's unit: the given one, or one voxel (the largest spacing)."""
+    """delta in the scan's unit: the given one, or one voxel (the largest spacing).
+
+    Parameters
+    ----------
+    diagram : Diagram
+        The diagram whose spacing and unit are used.
+    boundary_tolerance : float or None
+        The tolerance the user gave, or None.
+
+    Returns
+    -------
+    float
+        delta, 0 or more.
+
+    Raises
+    ------
+    InputError
+        For a negative or non-finite tolerance.
+    """
     if boundary_tolerance is None:
         return float(max(diagram.spacing))
     if not (np.isfinite(boundary_tolerance) and boundary_tolerance >= 0):
@@ -133,7 +212,20 @@ def boundary_tolerance_of(diagram: Diagram, boundary_tolerance: float | None) ->
 
 
 def significant_counts(diagram: Diagram, flag: str = "significant") -> dict[int, int]:
-    """Pairs per dimension whose ``flag`` column is true."""
+    """Pairs per dimension whose ``flag`` column is true.
+
+    Parameters
+    ----------
+    diagram : Diagram
+        A diagram with the ``flag`` column.
+    flag : str
+        "significant" or "robust".
+
+    Returns
+    -------
+    dict
+        Dimension (0 to ndim - 1) -> count.
+    """
     pairs = diagram.pairs
     chosen = pairs[flag].to_numpy(dtype=bool)
     dims = pairs["dim"].to_numpy()

@@ -161,19 +161,28 @@ def _differences_per_lag(data: np.ndarray) -> int:
     return int(min(data.size * data.ndim, MAX_DIFFERENCES * data.ndim))
 
 
-def _spread_of_differences(data: np.ndarray, axis: int, lag: int) -> float:
-    """Robust variance of ``x[i + lag] - x[i]`` along ``axis`` (MAD, scaled)."""
+def _spread_of_differences(data: np.ndarray, axis: int, lag: int,
+                           sample: np.ndarray | None = None) -> float:
+    """Robust variance of ``x[i + lag] - x[i]`` along ``axis`` (MAD, scaled), over the
+    pairs of voxels that both lie in ``sample`` when it is given."""
     step = 1
     others = data.size // max(data.shape[axis], 1)
     while others // step ** (data.ndim - 1) * data.shape[axis] > MAX_DIFFERENCES:
         step += 1
-    view = data[tuple(slice(None) if a == axis else slice(None, None, step)
-                      for a in range(data.ndim))]
+    thinned = tuple(slice(None) if a == axis else slice(None, None, step)
+                    for a in range(data.ndim))
+    view = data[thinned]
     if view.shape[axis] <= lag:
         return np.nan
     ahead = tuple(slice(lag, None) if a == axis else slice(None) for a in range(data.ndim))
     behind = tuple(slice(None, -lag) if a == axis else slice(None) for a in range(data.ndim))
-    differences = np.subtract(view[ahead], view[behind], dtype=np.float32).ravel()
+    differences = np.subtract(view[ahead], view[behind], dtype=np.float32)
+    if sample is not None:
+        inside = sample[thinned]
+        differences = differences[inside[ahead] & inside[behind]]
+        if differences.size == 0:
+            return np.nan
+    differences = differences.ravel()
     deviations = np.abs(differences - np.median(differences))
     return float((MAD_TO_SIGMA * np.median(deviations)) ** 2)
 
@@ -201,7 +210,8 @@ def _fit_correlation(spreads: np.ndarray, differences: int) -> tuple[float, floa
 
 
 def estimate_noise(scan_or_array, *, noise: float | None = None,
-                   noise_model: str = "gaussian") -> NoiseModel:
+                   noise_model: str = "gaussian", sample: np.ndarray | None = None
+                   ) -> NoiseModel:
     """Noise level and correlation length of a scan, read off the scan itself.
 
     Parameters
@@ -215,6 +225,9 @@ def estimate_noise(scan_or_array, *, noise: float | None = None,
     noise_model : {"gaussian", "poisson"}
         "poisson": the scan holds Anscombe-transformed photon counts, whose noise is white
         with unit variance (``noise`` must then be left out).
+    sample : ndarray of bool, optional
+        The region of interest: only differences between two voxels of the region count,
+        and the Poisson reference level is read off the region's voxels.
 
     Returns
     -------
@@ -252,7 +265,8 @@ def estimate_noise(scan_or_array, *, noise: float | None = None,
                          "the gaussian noise model.")
     source = scan.source or "The scan"
     if noise_model == "poisson":
-        dim_level = float(np.percentile(scan.data, POISSON_REFERENCE_PERCENTILE))
+        counted = scan.data if sample is None else scan.data[sample]
+        dim_level = float(np.percentile(counted, POISSON_REFERENCE_PERCENTILE))
         count = max((dim_level / 2.0) ** 2 - 3 / 8, LEAST_REFERENCE_COUNT)
         return NoiseModel("poisson", "poisson", 1.0, 0.0, scan.spacing, scan.unit,
                           ("photon counts: independent voxels with variance equal to the "
@@ -262,12 +276,14 @@ def estimate_noise(scan_or_array, *, noise: float | None = None,
                            "heavier tails, so brighter parts are tested conservatively)",),
                           count)
     data = scan.data
-    constant = data.size == 0 or data.min() == data.max()
+    values = data if sample is None else data[sample]
+    constant = values.size == 0 or values.min() == values.max()
     if constant and noise is None:
-        raise InputError(f"{source} is constant ({data.flat[0]} everywhere): there is no "
+        where = "" if sample is None else " within the region of interest"
+        raise InputError(f"{source} is constant{where} ({values.flat[0]} everywhere): there is no "
                          f"noise to estimate and no feature to test; give the noise level "
                          f"(--noise SIGMA) or list every pair (--min-persistence 0).")
-    spreads = np.array([np.nanmean([_spread_of_differences(data, axis, lag)
+    spreads = np.array([np.nanmean([_spread_of_differences(data, axis, lag, sample)
                                     for axis in range(data.ndim)])
                         for lag in RESIDUAL_LAGS])
     notes = []
@@ -299,6 +315,20 @@ def simulate_noise(shape, noise: NoiseModel, rng: np.random.Generator) -> np.nda
     through the kernel's own norm, not through the field's sample deviation. The Poisson
     model draws counts of mean ``noise.reference_count`` and applies the Anscombe
     transform instead.
+
+    Parameters
+    ----------
+    shape : tuple of int
+        Shape of the field.
+    noise : NoiseModel
+        The model (:func:`estimate_noise`).
+    rng : numpy.random.Generator
+        The source of randomness (seeded by the caller).
+
+    Returns
+    -------
+    ndarray of float32
+        The field, mean 0.
 
     Examples
     --------

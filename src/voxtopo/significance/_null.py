@@ -58,7 +58,25 @@ BLOCK_WIDTHS = 10
 
 def simulations_for(alpha: float, ndim: int) -> int:
     """Full-shape simulations needed so that a p-value of ``alpha / (2 ndim)`` can be
-    reached (alpha 0.05: 79 in 2D, 119 in 3D)."""
+    reached (alpha 0.05: 79 in 2D, 119 in 3D).
+
+    Parameters
+    ----------
+    alpha : float
+        The family-wise level.
+    ndim : int
+        2 or 3: the p-values are multiplied by the number of dimensions tested.
+
+    Returns
+    -------
+    int
+        At least :data:`LEAST_FULL_SHAPE_SIMULATIONS`.
+
+    Examples
+    --------
+    >>> simulations_for(0.05, 2), simulations_for(0.05, 3)
+    (79, 119)
+    """
     return max(LEAST_FULL_SHAPE_SIMULATIONS, math.ceil(2.0 * ndim / alpha) - 1)
 
 
@@ -98,7 +116,20 @@ class NullDistribution:
 
     def p_value(self, dim: int, persistence) -> np.ndarray:
         """Family-wise p-value (over the scan and its dimensions) of features of
-        dimension ``dim`` with this persistence."""
+        dimension ``dim`` with this persistence.
+
+        Parameters
+        ----------
+        dim : int
+            Homology dimension.
+        persistence : float or array_like
+            Finite lifetimes, in the units of the simulated maxima.
+
+        Returns
+        -------
+        ndarray
+            p-values in (0, 1], one per lifetime.
+        """
         return np.minimum(1.0, self.dimensions * self._p_one_dimension(dim, persistence))
 
     def _p_one_dimension(self, dim, persistence) -> np.ndarray:
@@ -114,7 +145,20 @@ class NullDistribution:
 
     def threshold(self, dim: int, alpha: float) -> float:
         """Persistence above which a feature of dimension ``dim`` is significant at
-        ``alpha`` (inf when no persistence could be, with too few simulations)."""
+        ``alpha`` (inf when no persistence could be, with too few simulations).
+
+        Parameters
+        ----------
+        dim : int
+            Homology dimension.
+        alpha : float
+            The family-wise level (shared by the dimensions, Bonferroni).
+
+        Returns
+        -------
+        float
+            The threshold, or ``inf``.
+        """
         alpha = alpha / self.dimensions
         if self.method == "full shape":
             null = np.sort(self.maxima[:, dim])[::-1]
@@ -128,7 +172,20 @@ class NullDistribution:
                                          - math.log(-math.log1p(-alpha))))
 
     def describe(self, alpha: float) -> dict:
-        """How the null was made, as JSON values."""
+        """How the null was made, as JSON values.
+
+        Parameters
+        ----------
+        alpha : float
+            The family-wise level, for the thresholds reported.
+
+        Returns
+        -------
+        dict
+            Simulations, method, simulated shape, blocks per scan, seed, how a p-value
+            is computed, for blocks the fitted Gumbel laws, and the threshold per
+            dimension at ``alpha``.
+        """
         out = {"simulations": self.simulations, "method": self.method,
                "simulated_shape": list(self.block_shape),
                "blocks_per_scan": self.blocks_per_scan, "seed": self.seed,
@@ -171,7 +228,8 @@ def null_distribution(shape, noise: NoiseModel, *, smoothing: float | None = Non
                       superlevel: bool = False, neighbourhood: int | None = None,
                       periodic=False, field: int = 2, engine: str = "auto",
                       alpha: float = 0.05, simulations: int | None = None,
-                      block_shape=None, seed: int = 0, progress=None) -> NullDistribution:
+                      block_shape=None, seed: int = 0, progress=None,
+                      sample: np.ndarray | None = None) -> NullDistribution:
     """Simulate the largest persistence of noise-only fields prepared like the scan.
 
     Parameters
@@ -195,6 +253,11 @@ def null_distribution(shape, noise: NoiseModel, *, smoothing: float | None = Non
     seed : int
         Seed of the random generator (the same seed gives the same null).
     progress : callable(phase, fraction), optional
+    sample : ndarray of bool, optional
+        The region of interest the scan was swept in: full-shape simulations are swept in
+        the same region (outside voxels are not part of the complex,
+        :func:`voxtopo.filtration.outside_last`), and blocks stand for the region's voxels
+        only.
 
     Returns
     -------
@@ -228,9 +291,13 @@ def null_distribution(shape, noise: NoiseModel, *, smoothing: float | None = Non
                      unit=noise.unit, source="simulated noise")
         if smoothing:
             block = filt.smooth(block, smoothing)
+        if full and sample is not None:
+            block, outside = filt.outside_last(block, sample, superlevel=superlevel)
         diagram = persistence(block, superlevel=superlevel, neighbourhood=neighbourhood,
                               periodic=periodic if full else False, field=field,
                               engine=engine)
+        if full and sample is not None:
+            diagram = diagram.without_outside(outside)
         pairs = diagram.pairs
         lifetimes = pairs["persistence"].to_numpy()
         dims = pairs["dim"].to_numpy()
@@ -243,5 +310,7 @@ def null_distribution(shape, noise: NoiseModel, *, smoothing: float | None = Non
     if full:
         return NullDistribution(maxima, "full shape", block_shape, 1.0, (), seed)
     gumbel = tuple(_fit_gumbel(maxima[:, d]) for d in range(ndim))
-    return NullDistribution(maxima, "blocks", block_shape, voxels / math.prod(block_shape),
+    # a block stands for as many voxels of the field as were swept: the region's only
+    swept = voxels if sample is None else int(np.count_nonzero(sample))
+    return NullDistribution(maxima, "blocks", block_shape, swept / math.prod(block_shape),
                             gumbel, seed)

@@ -3,8 +3,9 @@
 Both panels (features, rhythms) share this: the work runs in a napari thread worker, its
 progress comes back through a queued Qt signal, Cancel sets a flag that the next progress
 report turns into ``voxtopo.Cancelled``, and nothing is added to the viewer unless the
-work finished. A panel provides ``run_button``, ``cancel_button``, ``progress_bar`` and
-``status`` widgets, a ``WORK`` name for its messages and an ``_on_done(result)``.
+work finished. The mixin makes the panel's run and cancel buttons, progress bar and status
+line (:meth:`BackgroundRun._init_background`, placed by :meth:`BackgroundRun._add_run_controls`);
+a panel provides a ``WORK`` name for its messages, ``run()`` and ``_on_done(result)``.
 """
 
 from __future__ import annotations
@@ -14,6 +15,7 @@ import threading
 from napari.qt.threading import create_worker
 from napari.utils.notifications import show_error
 from qtpy.QtCore import QObject, Signal
+from qtpy.QtWidgets import QHBoxLayout, QLabel, QProgressBar, QPushButton
 
 from voxtopo.errors import Cancelled, VoxtopoError
 
@@ -32,12 +34,35 @@ class BackgroundRun:
     #: What the panel's work is called in its messages ("The analysis", ...).
     WORK = "The work"
 
-    def _init_background(self) -> None:
+    def _init_background(self, run_text: str, run_tip: str, prompt: str) -> None:
+        """Make the run and cancel buttons (``run_text``, its tooltip ``run_tip``), the
+        progress bar and the status line (first showing ``prompt``)."""
+        self.run_button = QPushButton(run_text)
+        self.run_button.setToolTip(run_tip)
+        self.run_button.clicked.connect(self.run)
+        self.cancel_button = QPushButton("Cancel")
+        self.cancel_button.setToolTip(f"Stop {self.WORK.lower()}; nothing is added.")
+        self.cancel_button.setEnabled(False)
+        self.cancel_button.clicked.connect(self.cancel)
+        self.progress_bar = QProgressBar()
+        self.progress_bar.setRange(0, 1000)
+        self.status = QLabel(prompt)
+        self.status.setWordWrap(True)
         self.worker = None
         self.last_error = None
         self._cancel = threading.Event()
         self._relay = _ProgressRelay()
         self._relay.changed.connect(self._show_progress)
+
+    def _add_run_controls(self, layout) -> None:
+        """Put the buttons side by side, then the progress bar and the status line, into
+        the panel's vertical ``layout``."""
+        buttons = QHBoxLayout()
+        buttons.addWidget(self.run_button)
+        buttons.addWidget(self.cancel_button)
+        layout.addLayout(buttons)
+        layout.addWidget(self.progress_bar)
+        layout.addWidget(self.status)
 
     @property
     def running(self) -> bool:

@@ -5,10 +5,12 @@ The widget turns its controls into an :class:`AnalysisOptions` and a Scan, then 
 threshold, distance transform, persistence and the verdict on every pair: significant for a
 gray-value sweep, robust for a distance sweep) and, for a distance transform, the pore
 regions. The layers hold every tested pair with its flag, so the diagram panel can show the
-features by default and all pairs on request. With porosity, the pore job of the library (:func:`voxtopo.porosity.analyse`)
-does the segmentation, the diagram, the pore table and the regions, exactly as
-``voxtopo pores`` does, and its pores are tied to the diagram by their ids. Nothing touches
-a viewer, so nothing is half-made when the work is cancelled.
+features by default and all pairs on request. With porosity, the pores job
+(``jobs.pores.run``) does the segmentation, the diagram, the pore table and the regions,
+exactly as ``voxtopo pores`` does, and its pores are tied to the diagram by their ids. The
+result keeps the job's own result, so the status line and the saved folder are the job's
+``describe`` and ``write``, as in the command. Nothing touches a viewer, so nothing is
+half-made when the work is cancelled.
 """
 
 from __future__ import annotations
@@ -20,9 +22,9 @@ from dataclasses import dataclass, field
 import numpy as np
 
 import voxtopo
-from voxtopo import porosity
+from voxtopo import jobs, porosity
 from voxtopo.errors import InputError
-from voxtopo.jobs import analyse
+from voxtopo.jobs import analyse, pores
 from voxtopo.jobs.analyse import AUTO, AnalysisOptions, prepare
 from voxtopo.scan import Scan
 
@@ -33,7 +35,8 @@ __all__ = ["AnalysisResult", "run_analysis", "scan_from_layer_data"]
 
 @dataclass
 class AnalysisResult:
-    """What one run produced: the scan, what was analysed, the diagram and its layers."""
+    """What one run produced: the scan, what was analysed, the diagram and its layers, and
+    the result of the job that made them (``job_name``: "analyse" or "pores")."""
 
     name: str
     scan: Scan
@@ -46,24 +49,18 @@ class AnalysisResult:
     porosity: dict | None = None
     notes: dict = field(default_factory=dict)
     timings: dict = field(default_factory=dict)
-    pore_analysis: object | None = None
-    job: analyse.AnalysisResult | None = None
+    job_name: str = "analyse"
+    job: analyse.AnalysisResult | pores.PoresResult | None = None
 
     def describe(self) -> str:
-        """What was found, in the words of the command: ``jobs.analyse.describe`` (N
-        significant / robust of M pairs, method and level) or the pore job's lines."""
-        if self.pore_analysis is not None:
-            return " ".join(line[0].upper() + line[1:] + ("" if line.endswith(".") else ".")
-                            for line in porosity.summary_lines(self.porosity))
-        return analyse.describe(self.job)
+        """What was found, in the words of the command: the job's ``describe`` (N
+        significant / robust of M pairs with method and level, or the pore lines)."""
+        return jobs.get(self.job_name).describe(self.job)
 
     def export(self, out, force: bool = False):
-        """Write this result as a voxtopo result folder: the files of ``voxtopo pores`` for
-        a pore analysis, of ``voxtopo analyse`` otherwise (``jobs.analyse.write``: p_value
-        and significant, or robust, in pairs.csv)."""
-        if self.pore_analysis is not None:
-            return porosity.write_pores(out, self.pore_analysis, self.scan, force=force)
-        return analyse.write(self.job, out, force)
+        """Write this result as the job's result folder, report.html included: what
+        ``voxtopo pores`` or ``voxtopo analyse`` writes for the same settings."""
+        return jobs.get(self.job_name).write(self.job, out, force)
 
 
 def scan_from_layer_data(data, *, name: str, spacing, unit: str, source: str = "",
@@ -88,20 +85,19 @@ def scan_from_layer_data(data, *, name: str, spacing, unit: str, source: str = "
     return Scan(array, spacing=spacing, unit=unit, source=source or f"napari layer {name}")
 
 
-def _pore_analysis(scan: Scan, options: AnalysisOptions, progress):
-    """voxtopo.porosity's analysis of the layer, with the panel's crop, downsampling and
-    smoothing first; a binary image keeps its own phases (True, 1 = pore), as in the CLI."""
+def _pore_job(scan: Scan, options: AnalysisOptions, progress) -> pores.PoresResult:
+    """The pores job on the layer, with the panel's crop, downsampling and smoothing first;
+    a binary image keeps its own phases (True, 1 = pore) instead of the panel's threshold,
+    which the job would refuse on it."""
     gray, _ = prepare(scan, dataclasses.replace(options, distance=False, threshold=None,
                                                 pores_bright=False))
     threshold, pores_bright = options.threshold, options.pores_bright
     if porosity.is_binary_mask(gray.data):
         threshold, pores_bright = None, False
-    return porosity.analyse(gray, threshold=threshold, pores_bright=pores_bright,
-                            neighbourhood=options.neighbourhood,
-                            min_persistence=(None if options.min_persistence == AUTO
-                                             else options.min_persistence),
-                            engine=options.engine,
-                            progress=progress)
+    return pores.run(gray, pores.PoresOptions(
+        threshold=threshold, pores_bright=pores_bright, neighbourhood=options.neighbourhood,
+        min_persistence=None if options.min_persistence == AUTO else options.min_persistence,
+        engine=options.engine, boundary_tolerance=options.boundary_tolerance), progress)
 
 
 def _pore_details(analysis):
@@ -133,9 +129,9 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
     with_regions : bool
         For a distance transform, label the region of every pore.
     with_porosity : bool
-        For a distance transform, run the library's pore job (:func:`voxtopo.porosity.
-        analyse`) instead: its diagram, its pores (the pore layer then holds exactly the
-        pores of the pore table, with their ids), its regions and its summary.
+        For a distance transform, run the pores job (``jobs.pores.run``) instead: its
+        diagram, its pores (the pore layer then holds exactly the pores of the pore table,
+        with their ids), its regions and its summary.
     progress : callable(phase, fraction), optional
         Raise voxtopo.Cancelled in it to stop; the run then leaves nothing behind.
 
@@ -148,11 +144,12 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
             progress(phase, fraction)
 
     timings = {}
-    analysis, porosity_summary, pore_details, regions, shown_rows = None, None, None, None, None
+    porosity_summary, pore_details, regions, shown_rows = None, None, None, None
     computed, flag, thresholds = None, None, None
     if with_porosity and options.distance:
         start = time.perf_counter()
-        analysis = _pore_analysis(scan, options, progress)
+        computed = _pore_job(scan, options, progress)
+        analysis = computed.analysis
         prepared, diagram, notes = analysis.distance, analysis.diagram, {}
         porosity_summary = analysis.summary
         pore_details = _pore_details(analysis)
@@ -175,18 +172,18 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
 
         if with_regions and prepared.values == "distance":
             start = time.perf_counter()
-            pores = diagram.dimension(0).pairs
-            axes = ("birth_z", "birth_y", "birth_x")[3 - diagram.ndim:]
+            pore_pairs = diagram.dimension(0)
             regions = porosity.pore_regions(
-                prepared.data, pores[list(axes)].to_numpy(dtype=np.int64),
-                pores["death"].to_numpy(), diagram.neighbourhood, progress=progress)
+                prepared.data, pore_pairs.voxels("birth"),
+                pore_pairs.pairs["death"].to_numpy(), diagram.neighbourhood,
+                progress=progress)
             timings["pore_regions"] = time.perf_counter() - start
 
     report("building the layers", 0.0)
     placement = placement_of(scan.shape, scan.spacing, scan.unit, crop=options.crop,
                              downsample=options.downsample, translate=translate)
     # every tested pair becomes a point, so the panel's switch can show all of them
-    shown = computed.verdict.tested if computed is not None else diagram
+    shown = diagram if porosity_summary is not None else computed.verdict.tested
     layers = result_layers(shown, placement, name, mark_deaths=mark_deaths, regions=regions,
                            pore_details=pore_details, shown_rows=shown_rows, flag=flag,
                            thresholds=thresholds,
@@ -195,4 +192,6 @@ def run_analysis(scan: Scan, options: AnalysisOptions, *, name: str, translate=N
     return AnalysisResult(name=name, scan=scan, prepared=prepared, options=options,
                           diagram=diagram, placement=placement, layers=layers,
                           regions=regions, porosity=porosity_summary, notes=notes,
-                          timings=timings, pore_analysis=analysis, job=computed)
+                          timings=timings,
+                          job_name="analyse" if porosity_summary is None else "pores",
+                          job=computed)

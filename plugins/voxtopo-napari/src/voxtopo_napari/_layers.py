@@ -72,8 +72,9 @@ def features_table(diagram, dim: int, placement: Placement) -> pd.DataFrame:
     """The features of one dimension: the diagram's rows, physical positions and sizes.
 
     Columns: ``feature`` (row of the diagram), ``dim, birth, death, persistence``, the
-    voxel locations ``birth_z .. death_x`` of the diagram, the physical positions
-    ``birth_z_position ..`` (in ``placement.unit``, world coordinates), ``span`` (the
+    positions ``birth_z .. death_x`` in ``placement.unit`` (world coordinates of the scan
+    as shown, so a crop's corner is added), the voxel indices ``birth_voxel_z ..
+    death_voxel_x`` of the analysed grid, ``span`` (the
     physical distance from the birth voxel to the death voxel, a rough size of the
     feature), and for pores of a distance transform ``body_radius`` (minus the birth: the
     radius of the largest ball inside the pore, as in pores.csv) and ``throat_radius`` (minus the death:
@@ -88,11 +89,13 @@ def features_table(diagram, dim: int, placement: Placement) -> pd.DataFrame:
             else rows[column].array
     scale = np.asarray(placement.scale)
     corner = np.asarray(placement.translate)
-    births = rows[[f"birth_{a}" for a in axes]].to_numpy(dtype=np.float64, na_value=np.nan)
-    deaths = rows[[f"death_{a}" for a in axes]].to_numpy(dtype=np.float64, na_value=np.nan)
+    births = rows[[f"birth_voxel_{a}" for a in axes]].to_numpy(dtype=np.float64,
+                                                               na_value=np.nan)
+    deaths = rows[[f"death_voxel_{a}" for a in axes]].to_numpy(dtype=np.float64,
+                                                               na_value=np.nan)
     for k, a in enumerate(axes):
-        table[f"birth_{a}_position"] = births[:, k] * scale[k] + corner[k]
-        table[f"death_{a}_position"] = deaths[:, k] * scale[k] + corner[k]
+        table[f"birth_{a}"] = births[:, k] * scale[k] + corner[k]
+        table[f"death_{a}"] = deaths[:, k] * scale[k] + corner[k]
     table["span"] = np.sqrt((((deaths - births) * scale) ** 2).sum(axis=1))
     if diagram.values == "distance" and dim == 0:
         table["body_radius"] = -rows["birth"].to_numpy()
@@ -111,7 +114,8 @@ def _points(diagram, dim, which, placement, longest, result_name, pore_details=N
         extra = pore_details.drop(columns=[c for c in pore_details.columns
                                            if c in table.columns and c != "feature"])
         table = table.merge(extra, on="feature", how="left")
-    coords = table[[f"{which}_{a}" for a in axes]].to_numpy(dtype=np.float64, na_value=np.nan)
+    coords = table[[f"{which}_voxel_{a}" for a in axes]].to_numpy(dtype=np.float64,
+                                                                  na_value=np.nan)
     if which == "death":
         has_death = ~np.isnan(coords).any(axis=1)
         coords, table = coords[has_death], table[has_death].reset_index(drop=True)

@@ -5,7 +5,8 @@ The panel turns its controls into :class:`voxtopo.periodicity.PeriodicityOptions
 worker (progress through voxtopo's callback; Cancel makes the next callback raise
 ``voxtopo.Cancelled``), then adds the score and period maps as image layers and fills a
 table with one row per region (tile, pixel bin). Selecting a row, or clicking a pixel of
-the score layer, shows that signal's trace and its H1 barcode below the table.
+the score layer, shows that signal's trace and its H1 barcode below the table. "Save
+result folder" writes the folder of `voxtopo periodicity` through the job's ``write``.
 """
 
 from __future__ import annotations
@@ -13,15 +14,17 @@ from __future__ import annotations
 import numpy as np
 from napari.layers import Image, Labels
 from qtpy.QtWidgets import (QAbstractItemView, QComboBox, QDoubleSpinBox, QFormLayout,
-                            QHBoxLayout, QLabel, QProgressBar, QPushButton, QSpinBox,
-                            QTableWidget, QTableWidgetItem, QVBoxLayout, QWidget)
+                            QHBoxLayout, QLabel, QSpinBox, QTableWidget, QTableWidgetItem,
+                            QVBoxLayout, QWidget)
 
+from voxtopo import jobs
 from voxtopo.errors import InputError, VoxtopoError
-from voxtopo.jobs.periodicity import PeriodicityOptions, run
-from voxtopo.periodicity import detrend, normalise, rips_bars, sliding_windows
+from voxtopo.jobs.periodicity import PeriodicityOptions, describe, run, signal_bars
+from voxtopo.report.periodicity import RHYTHM, plot_bars, plot_trace
 from voxtopo.scan import FRAME, TimeLapse
 
 from ._background import BackgroundRun
+from ._saving import SavesResultFolder
 
 __all__ = ["SIGNALS", "TABLE_COLUMNS", "RhythmWidget"]
 
@@ -30,10 +33,10 @@ SIGNALS = {"every pixel (or bin of pixels)": "pixel", "tiles of the frame": "til
            "regions of a labels layer": "region"}
 
 #: Columns of the per-region table, as in regions.csv.
-TABLE_COLUMNS = ("region", "y", "x", "score", "period", "p_value", "significant")
+TABLE_COLUMNS = ("region", "centre_y", "centre_x", "score", "period", "p_value", "significant")
 
 
-class RhythmWidget(BackgroundRun, QWidget):
+class RhythmWidget(BackgroundRun, SavesResultFolder, QWidget):
     """Dock panel measuring rhythms in a time-lapse image layer (t, y, x) or (t, z, y, x)."""
 
     WORK = "The rhythm search"
@@ -43,7 +46,9 @@ class RhythmWidget(BackgroundRun, QWidget):
         self.viewer = napari_viewer
         self.result = None
         self.shown_row = None
-        self._init_background()
+        self._init_background("Find rhythms", "Measure the rhythms of the chosen time-lapse "
+                              "in the background.", "Pick a time-lapse layer.")
+        self._init_saving("`voxtopo periodicity`")
 
         self.layer_choice = QComboBox()
         self.layer_choice.setToolTip("The time-lapse: an image layer whose first axis is time.")
@@ -77,16 +82,6 @@ class RhythmWidget(BackgroundRun, QWidget):
         self.alpha_box.setValue(PeriodicityOptions().significance)
         self.alpha_box.setToolTip("Level of significance.")
 
-        self.run_button = QPushButton("Find rhythms")
-        self.run_button.clicked.connect(self.run)
-        self.cancel_button = QPushButton("Cancel")
-        self.cancel_button.setEnabled(False)
-        self.cancel_button.clicked.connect(self.cancel)
-        self.progress_bar = QProgressBar()
-        self.progress_bar.setRange(0, 1000)
-        self.status = QLabel("Pick a time-lapse layer.")
-        self.status.setWordWrap(True)
-
         self.table = QTableWidget(0, len(TABLE_COLUMNS))
         self.table.setHorizontalHeaderLabels(list(TABLE_COLUMNS))
         self.table.setSelectionBehavior(QAbstractItemView.SelectRows)
@@ -114,14 +109,10 @@ class RhythmWidget(BackgroundRun, QWidget):
         form.addRow("regions", self.regions_choice)
         form.addRow("surrogates", self.surrogates_box)
         form.addRow("significance", self.alpha_box)
-        buttons = QHBoxLayout()
-        buttons.addWidget(self.run_button)
-        buttons.addWidget(self.cancel_button)
         layout = QVBoxLayout(self)
         layout.addLayout(form)
-        layout.addLayout(buttons)
-        layout.addWidget(self.progress_bar)
-        layout.addWidget(self.status)
+        self._add_run_controls(layout)
+        layout.addWidget(self.export_button)
         layout.addWidget(self.table)
         layout.addWidget(self.canvas)
 
@@ -204,9 +195,11 @@ class RhythmWidget(BackgroundRun, QWidget):
                                               "unit": result.time_unit}})
         score.mouse_drag_callbacks.append(self._on_map_click)
         self.result = result
+        self.export_button.setEnabled(True)
         self.score_layer, self.period_layer = score, period
         self._fill_table(table)
-        self.status.setText(result.counts["statement"] + ".")
+        # the job's own line: the same counts and words as `voxtopo periodicity`
+        self.status.setText(describe(result))
 
     # table and the signal view ------------------------------------------------------------
     def _fill_table(self, table) -> None:
@@ -241,30 +234,18 @@ class RhythmWidget(BackgroundRun, QWidget):
     def show_signal(self, row: int) -> None:
         """Draw the trace and the H1 barcode (Z/2) of signal ``row`` of the result table."""
         result = self.result
-        trace = result.signals.traces[row]
         table = result.table
-        time = np.arange(len(trace)) * result.frame_interval
         self.trace_axes.clear()
-        self.trace_axes.plot(time, trace, color="#2b2d42", lw=1)
-        self.trace_axes.set_xlabel(f"time ({result.time_unit})")
-        self.trace_axes.set_ylabel("mean intensity")
-        self.trace_axes.set_title(f"{result.signals.kind} {table['region'].iloc[row]}: score "
-                                  f"{table['score'].iloc[row]:.3f}, period "
-                                  f"{table['period'].iloc[row]:.3g} {result.time_unit}",
-                                  fontsize=8)
+        plot_trace(result.signals.traces[row], result.frame_interval, result.time_unit,
+                   self.trace_axes, f"{result.signals.kind} {table['region'].iloc[row]}: "
+                                    f"score {table['score'].iloc[row]:.3f}, period "
+                                    f"{table['period'].iloc[row]:.3g} {result.time_unit}")
         self.barcode_axes.clear()
-        bars = np.zeros((0, 2))
-        if not table["flat"].iloc[row]:
-            z, _ = normalise(detrend(trace[None], result.method.detrend_degree))
-            period = np.array([table["period"].iloc[row] / result.frame_interval])
-            cloud = sliding_windows(z, period, result.method.points, result.method.dimension)
-            bars = rips_bars(cloud[0], fields=(2,))[(2, 1)]
-        for k, (birth, death) in enumerate(bars[:30]):
-            self.barcode_axes.plot([birth, death], [k, k], color="#c8553d", lw=2)
-        self.barcode_axes.set_yticks([])
-        self.barcode_axes.invert_yaxis()
-        self.barcode_axes.set_xlabel("scale (distance on the unit sphere)")
-        self.barcode_axes.set_title("H1 barcode over Z/2", fontsize=8)
+        bars = signal_bars(result, row)
+        plot_bars(bars, self.barcode_axes, "H1 barcode over Z/2", colour=RHYTHM)
         self.canvas.draw_idle()
         self.shown_row = row
         self.shown_bars = bars
+
+    def _write_result(self, folder, force: bool):
+        return jobs.get("periodicity").write(self.result, folder, force)

@@ -10,13 +10,9 @@ during its computation takes effect when that step returns.)
 
 from __future__ import annotations
 
-from pathlib import Path
-
 from napari.layers import Image, Labels, Layer
-from napari.utils.notifications import show_info
-from qtpy.QtWidgets import (QCheckBox, QComboBox, QDoubleSpinBox, QFileDialog, QFormLayout,
-                            QHBoxLayout, QLabel, QProgressBar, QPushButton, QVBoxLayout,
-                            QWidget)
+from qtpy.QtWidgets import (QCheckBox, QComboBox, QDoubleSpinBox, QFormLayout,
+                            QLabel, QVBoxLayout, QWidget)
 
 from voxtopo.errors import InputError, VoxtopoError
 from voxtopo.jobs.analyse import AUTO, AnalysisOptions
@@ -25,6 +21,7 @@ from ._background import BackgroundRun
 from ._diagram_panel import DiagramPanel
 from ._job import run_analysis, scan_from_layer_data
 from ._layers import METADATA_KEY
+from ._saving import SavesResultFolder
 
 __all__ = ["AnalysisWidget", "MODES", "layer_unit"]
 
@@ -55,7 +52,7 @@ def layer_unit(layer) -> str:
     return "px" if text in ("pixel", "px", "") else text
 
 
-class AnalysisWidget(BackgroundRun, QWidget):
+class AnalysisWidget(BackgroundRun, SavesResultFolder, QWidget):
     """Dock panel running voxtopo on an image or labels layer."""
 
     WORK = "The analysis"
@@ -66,7 +63,8 @@ class AnalysisWidget(BackgroundRun, QWidget):
         self.result = None
         self.diagram_panel = None
         self._runs = 0
-        self._init_background()
+        self._init_background("Find features", "Compute the persistence of the chosen layer "
+                              "in the background.", "Pick a layer and press Find features.")
 
         self.layer_choice = QComboBox()
         self.layer_choice.setToolTip("The image (gray values) or labels (mask) layer to "
@@ -112,24 +110,7 @@ class AnalysisWidget(BackgroundRun, QWidget):
                                        "analysis too (pore volumes, percolation); it takes "
                                        "about twice as long.")
 
-        self.run_button = QPushButton("Find features")
-        self.run_button.setToolTip("Compute the persistence of the chosen layer in the "
-                                   "background.")
-        self.run_button.clicked.connect(self.run)
-        self.cancel_button = QPushButton("Cancel")
-        self.cancel_button.setToolTip("Stop the running analysis; nothing is added.")
-        self.cancel_button.setEnabled(False)
-        self.cancel_button.clicked.connect(self.cancel)
-        self.progress_bar = QProgressBar()
-        self.progress_bar.setRange(0, 1000)
-        self.status = QLabel("Pick a layer and press Find features.")
-        self.status.setWordWrap(True)
-        self.export_button = QPushButton("Save result folder…")
-        self.export_button.setToolTip("Write the result folder as the command does: "
-                                      "`voxtopo pores` for a porosity run, `voxtopo "
-                                      "analyse` otherwise.")
-        self.export_button.setEnabled(False)
-        self.export_button.clicked.connect(self._ask_export)
+        self._init_saving("`voxtopo pores` for a porosity run, `voxtopo analyse` otherwise")
 
         form = QFormLayout()
         form.addRow("layer", self.layer_choice)
@@ -140,14 +121,9 @@ class AnalysisWidget(BackgroundRun, QWidget):
         form.addRow("min persistence", self.min_persistence_box)
         form.addRow(self.deaths_check)
         form.addRow(self.porosity_check)
-        buttons = QHBoxLayout()
-        buttons.addWidget(self.run_button)
-        buttons.addWidget(self.cancel_button)
         layout = QVBoxLayout(self)
         layout.addLayout(form)
-        layout.addLayout(buttons)
-        layout.addWidget(self.progress_bar)
-        layout.addWidget(self.status)
+        self._add_run_controls(layout)
         layout.addWidget(self.export_button)
         layout.addWidget(QLabel("Results support research; they are not a diagnosis nor a "
                                 "certification of a part or structure."))
@@ -289,22 +265,5 @@ class AnalysisWidget(BackgroundRun, QWidget):
             window.add_dock_widget(self.diagram_panel, name="voxtopo diagram", area="right")
         self.diagram_panel.show_result(name)
 
-    def _ask_export(self) -> None:
-        folder, _ = QFileDialog.getSaveFileName(self, "Name a new result folder",
-                                                str(Path.home() / "voxtopo-result"))
-        if folder:
-            self.export(folder)
-
-    def export(self, folder, force: bool = False):
-        """Write the current result as a voxtopo result folder; returns its path."""
-        if self.result is None:
-            self._fail("There is no result to save yet; press Find features first.")
-            return None
-        try:
-            out = self.result.export(folder, force=force)
-        except VoxtopoError as error:
-            self._fail(str(error))
-            return None
-        show_info(f"Saved the result in {out}.")
-        self.status.setText(f"Saved the result in {out}.")
-        return out
+    def _write_result(self, folder, force: bool):
+        return self.result.export(folder, force=force)

@@ -1,13 +1,21 @@
-"""Figures of a patch cloud: its projection on the first two DCT coordinates and a
-gallery of patches along a loop (matplotlib, Agg backend)."""
+"""Figures of a patch-space result: barcode and diagram per coefficient field, the cloud
+on its first two DCT coordinates, and a gallery of patches along the longest loop
+(matplotlib, Agg backend)."""
 
 from __future__ import annotations
+
+from pathlib import Path
 
 import matplotlib
 
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
+
+from .plots import plot_barcode, plot_diagram  # noqa: E402
+
+__all__ = ["GALLERY_SIZE", "gallery_indices", "plot_gallery", "plot_projection",
+           "save_patch_plots"]
 
 _CLOUD = "#9aa5b1"
 _CORE = "#1f7a8c"
@@ -72,3 +80,58 @@ def plot_gallery(patches: np.ndarray, labels, title: str):
         axes[0, 0].text(0.5, 0.5, "no loop at these settings", ha="center", va="center")
     fig.suptitle(title, fontsize=9, color=_INK)
     return fig
+
+
+def save_patch_plots(folder, cloud, dense, persistence) -> list[str]:
+    """Draw the plots of a patch-space result into ``folder``.
+
+    Parameters
+    ----------
+    folder : str or Path
+        The result folder being filled.
+    cloud : Patches
+        Every high-contrast patch kept (:func:`voxtopo.patches.sample`).
+    dense : Patches
+        Its dense core (:func:`voxtopo.patches.core`).
+    persistence : PatchPersistence
+        What :func:`voxtopo.patches.persistence` returned for the core's landmarks.
+
+    Returns
+    -------
+    list of str
+        The files written, in this order: ``barcode.png`` and ``diagram.png`` (one panel
+        per coefficient field), ``projection.png`` (:func:`plot_projection`) and
+        ``loop_gallery.png`` (patches at landmarks spread along the longest loop's cycle).
+    """
+    folder = Path(folder)
+    names = []
+    for name, draw, width in (("barcode", plot_barcode, 6.4), ("diagram", plot_diagram, 5.2)):
+        fig, axes = plt.subplots(1, len(persistence.fields), squeeze=False,
+                                 figsize=(width * len(persistence.fields), 5.0),
+                                 constrained_layout=True)
+        for ax, f in zip(axes[0], persistence.fields):
+            rows = persistence.pairs[persistence.pairs["field"] == f]
+            title = f"{'Barcode' if name == 'barcode' else 'Persistence diagram'}, " \
+                    f"{persistence.method} over Z/{f} (max edge {persistence.max_edge:.3g})"
+            draw(rows, ax=ax, title=title)
+            if name == "barcode":
+                ax.set_xlabel("scale (distance in DCT coordinates)")
+        fig.savefig(folder / f"{name}.png", dpi=110)
+        plt.close(fig)
+        names.append(f"{name}.png")
+    fig, ax = plt.subplots(figsize=(5.6, 5.6), constrained_layout=True)
+    plot_projection(cloud.coordinates, dense.coordinates, persistence, ax=ax)
+    fig.savefig(folder / "projection.png", dpi=110)
+    plt.close(fig)
+    names.append("projection.png")
+    along = gallery_indices(persistence.loop)
+    picked = persistence.landmarks[along]
+    coords = dense.coordinates[picked]
+    labels = [f"{np.degrees(np.arctan2(c[1], c[0])) % 360:.0f} deg" for c in coords]
+    fig = plot_gallery(dense.patches[picked], labels,
+                       "Patches along the longest loop (landmarks on its cycle; angle in "
+                       "DCT coordinates 1-2)")
+    fig.savefig(folder / "loop_gallery.png", dpi=110)
+    plt.close(fig)
+    names.append("loop_gallery.png")
+    return names

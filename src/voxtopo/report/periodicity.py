@@ -1,15 +1,20 @@
-"""Figures of a periodicity result: score map, period histogram, the top signals, and the
-whole-field barcode."""
+"""Plots and report.html of a periodicity result: score map, period histogram, the top
+signals, the whole-field barcode, and the report drawn with the house templates."""
 
 from __future__ import annotations
 
+import base64
+from pathlib import Path
+
 import numpy as np
+import pandas as pd
 
-#: Our own colours: bars and traces, significant signals, the rest.
-INK = "#2b2d42"
-RHYTHM = "#c8553d"
-QUIET = "#9aa0b4"
+from .html import Table, render
 
+__all__ = ["CAPTIONS", "RHYTHM", "plot_bars", "plot_trace", "save_periodicity_plots",
+           "write_periodicity_report"]
+
+#: What each plot of a periodicity folder shows, under it in the report.
 CAPTIONS = {
     "score_map.png": "Score (0: no loop, 1: a round loop) over the mean frame; bright = "
                      "strongly periodic.",
@@ -20,6 +25,11 @@ CAPTIONS = {
     "whole_field.png": "Whole-field rhythm: H1 and H2 barcodes of the sliding windows of the "
                        "frames after PCA.",
 }
+
+#: Our own colours: bars and traces, significant signals, the rest.
+INK = "#2b2d42"
+RHYTHM = "#c8553d"
+QUIET = "#9aa0b4"
 
 
 def _flat_view(image):
@@ -69,7 +79,7 @@ def plot_period_histogram(result, ax):
     ax.set_title("Periods", fontsize=10)
 
 
-def plot_barcode(bars, ax, title: str, colour=INK):
+def plot_bars(bars, ax, title: str, colour=INK):
     """Horizontal bars from birth to death, longest at the top."""
     bars = np.asarray(bars).reshape(-1, 2)
     for k, (birth, death) in enumerate(bars[:40]):
@@ -80,13 +90,39 @@ def plot_barcode(bars, ax, title: str, colour=INK):
     ax.set_title(title, fontsize=9)
 
 
-def save_plots(result, folder) -> list[str]:
-    """Draw every figure into ``folder``; the names written, in the report's order."""
+def plot_trace(trace, frame_interval: float, time_unit: str, ax, title: str):
+    """One signal's mean intensity over time."""
+    time = np.arange(len(trace)) * frame_interval
+    ax.plot(time, trace, color=INK, lw=1)
+    ax.set_xlabel(f"time ({time_unit})")
+    ax.set_ylabel("mean intensity")
+    ax.set_title(title, fontsize=9)
+
+
+def save_periodicity_plots(folder, result) -> list[str]:
+    """Draw the plots of a periodicity result into ``folder``.
+
+    Parameters
+    ----------
+    folder : Path
+        The result folder being filled.
+    result : PeriodicityResult
+        What :func:`voxtopo.jobs.periodicity.run` returned.
+
+    Returns
+    -------
+    list of str
+        The files written, in the report's order: ``score_map.png``,
+        ``period_histogram.png``, ``top_regions.png`` (when there are top signals) and
+        ``whole_field.png`` (when the whole field was measured); :data:`CAPTIONS` says
+        what each shows.
+    """
     import matplotlib
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
+    folder = Path(folder)
     names = []
     fig, ax = plt.subplots(figsize=(6.0, 5.2), constrained_layout=True)
     shown = plot_score_map(result, ax)
@@ -105,12 +141,9 @@ def save_plots(result, folder) -> list[str]:
         fig, axes = plt.subplots(len(result.top), 3, figsize=(12, 3.0 * len(result.top)),
                                  squeeze=False, constrained_layout=True)
         for row, item in zip(axes, result.top):
-            time = np.arange(len(item["trace"])) * result.frame_interval
-            row[0].plot(time, item["trace"], color=INK, lw=1)
-            row[0].set_xlabel(f"time ({result.time_unit})")
-            row[0].set_ylabel("mean intensity")
-            row[0].set_title(f"{result.signals.kind} {item['region']}: period "
-                             f"{item['period']:.3g} {result.time_unit}", fontsize=9)
+            plot_trace(item["trace"], result.frame_interval, result.time_unit, row[0],
+                       f"{result.signals.kind} {item['region']}: period "
+                       f"{item['period']:.3g} {result.time_unit}")
             cloud = item["cloud"] - item["cloud"].mean(axis=0)
             axes_2d = np.linalg.svd(cloud, full_matrices=False)[2][:2]
             flat = cloud @ axes_2d.T
@@ -119,8 +152,8 @@ def save_plots(result, folder) -> list[str]:
             row[1].set_title("sliding-window cloud (first two principal axes)", fontsize=9)
             p_text = "no p-value" if not np.isfinite(item["p_value"]) else \
                 f"p = {item['p_value']:.3g}"
-            plot_barcode(item["bars"], row[2], f"H1 over Z/2: score {item['score']:.3f}, "
-                                               f"{p_text}")
+            plot_bars(item["bars"], row[2], f"H1 over Z/2: score {item['score']:.3f}, "
+                                            f"{p_text}")
         fig.savefig(folder / "top_regions.png", dpi=100)
         plt.close(fig)
         names.append("top_regions.png")
@@ -134,8 +167,53 @@ def save_plots(result, folder) -> list[str]:
         for ax, rows, title in ((axes[0], loops, "whole field: H1 over Z/2"),
                                 (axes[1], shells, "whole field: H2 over Z/2")):
             rows = rows.sort_values("persistence", ascending=False)
-            plot_barcode(rows[["birth", "death"]].to_numpy(), ax, title)
+            plot_bars(rows[["birth", "death"]].to_numpy(), ax, title)
         fig.savefig(folder / "whole_field.png", dpi=100)
         plt.close(fig)
         names.append("whole_field.png")
     return names
+
+
+def write_periodicity_report(folder, summary: dict) -> Path:
+    """Write ``report.html`` into a periodicity result folder.
+
+    Parameters
+    ----------
+    folder : str or Path
+        The folder being filled (or a finished one): it holds ``regions.csv`` and the PNG
+        plots named in ``summary["plots"]``.
+    summary : dict
+        The folder's summary (what ``voxtopo.jobs.periodicity.write`` puts in
+        summary.json): ``scan``, ``counts`` with its ``statement``, ``plots``,
+        ``columns``, ``column_meanings``, ``method``, ``options``, ``timings_seconds``,
+        ``notes``, ``cautions``, ``software``, ``created`` and, optionally, ``whole_field``.
+
+    Returns
+    -------
+    Path
+        The report: the 20 highest-scoring regions, every plot with its caption, the
+        counts, settings, units, notes and cautions.
+    """
+    folder = Path(folder)
+    images = [{"data": base64.b64encode((folder / name).read_bytes()).decode("ascii"),
+               "caption": CAPTIONS.get(name, name)} for name in summary["plots"]]
+    table = pd.read_csv(folder / "regions.csv")
+    highest = table.sort_values("score", ascending=False, na_position="last").head(20)
+    counts = dict(summary["counts"])
+    statement = counts.pop("statement")
+    source = Path(str(summary["scan"].get("source") or "time-lapse")).name
+    units = summary["columns"]["regions.csv"]
+    columns = {name: f"{meaning} (unit: {units[name]})" if units.get(name) else meaning
+               for name, meaning in summary["column_meanings"]["regions.csv"].items()}
+    html = render("periodicity.html", title=f"Rhythms in {source}",
+                  subtitle="Sliding-window persistence (SW1PerS score) of mean-intensity "
+                           "signals", scan=summary["scan"], statement=statement,
+                  counts=counts, images=images, highest=Table.of(highest),
+                  whole_field=summary.get("whole_field"), columns=columns,
+                  method=summary["method"], settings=summary["options"],
+                  timings=summary["timings_seconds"], notes=summary["notes"],
+                  cautions=summary["cautions"], software=summary["software"],
+                  created=summary["created"])
+    target = folder / "report.html"
+    target.write_text(html, encoding="utf-8")
+    return target

@@ -1,4 +1,5 @@
-"""The pore result folder: pores.csv, grains.csv, loops.csv, voids.csv, summary.json, plots."""
+"""Plots of a pore analysis: sizes of bodies and throats, the signed-distance diagram,
+and slices with the largest pores and the critical throats."""
 
 from __future__ import annotations
 
@@ -7,15 +8,10 @@ from pathlib import Path
 import numpy as np
 
 from ..diagram import AXES_3D
-from ..io import result_folder
-from ..io.results import write_summary
-from ..report import literal
-from ..scan import as_scan
-from ._analysis import size_column
+from ..porosity import size_column
+from ._text import literal
 
-#: first columns of pores.csv, in this order; more columns may follow
-PORE_COLUMNS = ["id", "body_radius", "body_z", "body_y", "body_x", "throat_radius",
-                "throat_z", "throat_y", "throat_x", "border", "lifetime", "robust"]
+__all__ = ["save_pore_plots"]
 
 _PORE_COLOUR = "#2b6f8f"
 _GRAIN_COLOUR = "#b5652a"
@@ -26,124 +22,29 @@ _SOLID_ZONE = "#eadbc0"
 _WALL_ZONE = "#dcd6ea"
 
 
-def _percolation_words(summary: dict) -> str:
-    unit = summary["unit"]
-    words = []
-    for axis, state in summary["percolates"].items():
-        radius = summary["percolation_radius"][axis]
-        if state in ("yes", "not resolved"):
-            words.append(f"{axis}: {state} (r = {radius:.4g} {unit})")
-        else:
-            words.append(f"{axis}: {state}")
-    return ", ".join(words)
-
-
-def summary_lines(summary: dict) -> list[str]:
-    """The lines a person reads first (CLI, plugin status): porosity, counts, percolation,
-    then every note of the summary, one sentence each."""
-    unit = summary["unit"]
-    where = "of the sample" if summary.get("region_of_interest") else "of the scan"
-    size = ("voxel size unknown, lengths in px" if unit == "px"
-            else f"lengths in {unit}")
-    counts = summary["counts"]
-    robust = summary["robustness"]
-    n = robust["robust"]
-    found = (f"{n['pores']} robust of {counts['pores']} pores, {n['grains']} robust of "
-             f"{counts['grains']} grains, {n['loops']} robust of {counts['loops']} loops, "
-             f"{n['voids']} robust of {counts['voids']} voids (robust: persistence above "
-             f"{robust['threshold']:.4g} {unit}, boundary tolerance "
-             f"{robust['boundary_tolerance']:.4g} {unit}, stability theorem; listed: living "
-             f"longer than {summary['min_persistence']:.4g} {unit})")
-    lines = [f"porosity {summary['porosity']:.4f} {where} ({size}); {found}; of the listed "
-             f"pores {counts['pores_at_border']} at the border, {counts['isolated_pores']} "
-             f"isolated; percolates {_percolation_words(summary)}"]
-    return lines + list(summary.get("notes", []))
-
-
-def column_units(table, unit: str, ndim: int) -> dict:
-    """Column -> unit of a pore, grain, loop or void table ("" for flags, ids and kinds)."""
-    units = {}
-    for column in table.columns:
-        if "_voxel_" in column:
-            units[column] = "voxel index"
-        elif column.endswith("_volume"):
-            units[column] = f"{unit}^3"
-        elif column.endswith("_area"):
-            units[column] = f"{unit}^2"
-        elif column.endswith(("_radius", "_z", "_y", "_x")) or column == "lifetime":
-            units[column] = unit
-        else:
-            units[column] = ""
-    return units
-
-
-def pairs_units(ndim: int, unit: str) -> dict:
-    """Column -> unit of pairs.csv: values in the scan's unit, locations as voxel indices,
-    ``robust`` a flag."""
-    units = {"dim": "", "birth": unit, "death": unit, "persistence": unit}
-    for which in ("birth", "death"):
-        for axis in AXES_3D[3 - ndim:]:
-            units[f"{which}_{axis}"] = "voxel index"
-    units["robust"] = ""
-    return units
-
-
-def write_pores(out, analysis, scan=None, force: bool = False, inputs=()) -> Path:
-    """Write the result folder of a pore analysis, atomically.
+def save_pore_plots(folder, analysis, background) -> list[str]:
+    """Draw the plots of a pore analysis into ``folder``.
 
     Parameters
     ----------
-    out : path
-        Folder to create: ``pores.csv`` (columns ``id, body_radius, body_z, body_y, body_x,
-        throat_radius, throat_z, throat_y, throat_x, border, lifetime, body_volume,
-        isolated``; 2D drops the z columns and has ``body_area``), ``grains.csv``,
-        ``loops.csv``, ``voids.csv`` (positions and sizes in the scan's unit),
-        ``pairs.csv`` (the diagram of the signed distance, locations as voxel indices),
-        ``summary.json`` (with ``columns``: file -> column -> unit) and the plots
-        ``pore_sizes.png``, ``distance_diagram.png``, ``pore_slices.png``.
+    folder : str or Path
+        The result folder being filled.
     analysis : PoreAnalysis
         What :func:`voxtopo.porosity.analyse` returned.
-    scan : Scan or ndarray, optional
-        The grayscale scan to draw under the marks of the slice plot (default: the mask).
-    force : bool
-        Replace ``out`` if it is a result folder voxtopo wrote.
-    inputs : sequence of paths
-        Other files the result was made from (a mask): ``out`` may not be nor hold them.
+    background : ndarray
+        The image drawn under the marks of the slice plot (the gray scan, or the mask),
+        of the analysis' shape.
 
     Returns
     -------
-    Path of the folder.
+    list of str
+        The files written, in this order: ``pore_sizes.png`` (body and throat radii by
+        count and by size, with their cumulative curves), ``distance_diagram.png`` (the
+        persistence diagram of the signed distance, its three zones named) and
+        ``pore_slices.png`` (the largest pores and the critical throat on slices).
     """
+    folder = Path(folder)
     ndim = analysis.mask.ndim
-    background = analysis.mask if scan is None else as_scan(scan).data
-    from ..report.html import write_report
-
-    with result_folder(out, force=force,
-                       inputs=[getattr(scan, "source", None), *inputs]) as tmp:
-        pores = analysis.pores
-        extra = [c for c in pores.columns if c not in PORE_COLUMNS]
-        ordered = [c for c in PORE_COLUMNS if c in pores.columns] + extra
-        pores[ordered].to_csv(tmp / "pores.csv", index=False, float_format="%.6g")
-        analysis.grains.to_csv(tmp / "grains.csv", index=False, float_format="%.6g")
-        analysis.loops.to_csv(tmp / "loops.csv", index=False, float_format="%.6g")
-        analysis.voids.to_csv(tmp / "voids.csv", index=False, float_format="%.6g")
-        summary = dict(analysis.summary)
-        summary["files"] = {"pores": "pores.csv", "grains": "grains.csv", "loops": "loops.csv",
-                            "voids": "voids.csv", "diagram": "pairs.csv"}
-        unit = summary["unit"]
-        summary["columns"] = {
-            f"{name}.csv": column_units(getattr(analysis, name), unit, ndim)
-            for name in ("pores", "grains", "loops", "voids")}
-        summary["columns"]["pairs.csv"] = pairs_units(ndim, unit)
-        summary["plots"] = _plots(tmp, analysis, background, ndim)
-        write_summary(tmp, summary)
-        analysis.diagram.save(tmp)
-        write_report(tmp)
-    return Path(out)
-
-
-# --------------------------------------------------------------------------------- plots
-def _plots(folder: Path, analysis, background, ndim) -> list[str]:
     import matplotlib
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
