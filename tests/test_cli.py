@@ -100,13 +100,20 @@ def test_bad_input_gives_one_sentence_exit_2_and_no_folder(tmp_path, make, words
     assert _digest(path) == before
 
 
-def test_memory_refusal_names_the_estimate_and_a_remedy(tmp_path, monkeypatch):
+def test_memory_refusal_names_the_estimate_and_a_remedy(tmp_path, monkeypatch, capsys):
+    """The refusal says what it would need and every way out, the out-of-core path with
+    what that path computes (dimensions 0 and d-1) included."""
     np.save(tmp_path / "a.npy", np.zeros((20, 20, 20), np.float32))
     monkeypatch.setenv("VOXTOPO_MEMORY_LIMIT", "50000")  # the scan (32 kB) fits, a run does not
     out = tmp_path / "out"
     code = main(["analyse", str(tmp_path / "a.npy"), "--out", str(out)])
     assert code == 2
     assert not out.exists()
+    said = capsys.readouterr().err
+    assert "would need about" in said and "kB" in said
+    for remedy in ("--crop", "--downsample", "dimensions 0 and 2 out of core", "OME-Zarr",
+                   "voxtopo analyse --out-of-core", "voxtopo batch"):
+        assert remedy in said, remedy
 
 
 def test_debug_shows_the_traceback(tmp_path):

@@ -18,6 +18,7 @@ from reference import annulus, shell, solid_torus
 from skimage.measure import euler_number
 
 import voxtopo
+from voxtopo import memory
 from voxtopo.engine import _gudhi, estimate, own
 from voxtopo.errors import Cancelled, InputError, TooBigError
 
@@ -289,3 +290,61 @@ def test_memory_estimate_grows_with_size_and_refuses_what_does_not_fit(monkeypat
     monkeypatch.setenv("VOXTOPO_MEMORY_LIMIT", str(small // 2))
     with pytest.raises(TooBigError, match="voxtopo engine"):
         voxtopo.persistence(np.zeros((64, 64, 64), np.uint8), engine="voxtopo")
+
+
+def _same_pairs(one, two) -> bool:
+    return all(np.array_equal(getattr(one, name), getattr(two, name))
+               for name in ("dim", "birth", "death", "birth_index", "death_index"))
+
+
+@pytest.mark.parametrize("construction", ["voxel", "vertex"])
+def test_reduction_after_the_sweeps_when_side_by_side_would_not_fit(monkeypatch, construction):
+    """With two threads but memory for only one part at a time, dimension 1 runs after the
+    sweeps in their union-find buffer: the same pairs and locations as side by side, and
+    gudhi's diagram (Maria, Boissonnat, Glisse & Yvinec 2014); the estimate is then the
+    smaller, one-after-the-other need."""
+    values = np.random.default_rng(8).integers(0, 9, (9, 10, 11)).astype(np.uint16)
+    side_by_side = own.compute(values, superlevel=True, construction=construction,
+                               threads=2)
+    roomy = own.bytes_needed(values.shape, values.dtype, 6 if construction == "vertex" else 26)
+    squeezed = own._needs(values.shape, np.dtype(values.dtype), construction == "vertex")
+    assert squeezed[1] < squeezed[0] == roomy
+    limit = (squeezed[0] + squeezed[1]) / 2 / memory.BUDGET_FRACTION
+    monkeypatch.setenv("VOXTOPO_MEMORY_LIMIT", str(limit))
+    assert not own._side_by_side_fits(values.shape, values.dtype, construction == "vertex")
+    assert own.bytes_needed(values.shape, values.dtype,
+                            6 if construction == "vertex" else 26) == squeezed[1]
+    one_after_other = own.compute(values, superlevel=True, construction=construction,
+                                  threads=2)
+    assert _same_pairs(side_by_side, one_after_other)
+    theirs = _gudhi.compute(values, superlevel=True, construction=construction,
+                            periodic=None, field=2)
+    assert _multiset(one_after_other) == _multiset(theirs)
+
+
+@pytest.mark.parametrize("shape", [(7, 9), (5, 6, 7)])
+@pytest.mark.parametrize("construction", ["voxel", "vertex"])
+@pytest.mark.parametrize("dtype", [np.uint16, np.float32])
+def test_64_bit_indices_give_the_same_pairs(monkeypatch, shape, construction, dtype):
+    """The 64-bit path, run on small data by lowering the engine's one limit for 32-bit
+    indices (_union_find.INT32_VOXELS) below the volume's size: every array of indices,
+    ranks and links becomes int64, and the pairs and locations are those of the 32-bit
+    run and gudhi's diagram (Maria, Boissonnat, Glisse & Yvinec 2014). This proves that
+    no kernel depends on 32-bit indices; the limit itself is pinned in
+    test_engine_union_find."""
+    from voxtopo.engine import _union_find
+
+    values = (np.random.default_rng(9).integers(0, 7, shape) * 3).astype(dtype)
+    narrow = {superlevel: own.compute(values, superlevel=superlevel,
+                                      construction=construction, threads=1)
+              for superlevel in (False, True)}
+    monkeypatch.setattr(_union_find, "INT32_VOXELS", 10)
+    assert _union_find.index_dtype(values.size) == np.int64
+    for superlevel in (False, True):
+        for threads in (1, 2):
+            wide = own.compute(values, superlevel=superlevel, construction=construction,
+                               threads=threads)
+            assert _same_pairs(narrow[superlevel], wide)
+        theirs = _gudhi.compute(values, superlevel=superlevel, construction=construction,
+                                periodic=None, field=2)
+        assert _multiset(wide) == _multiset(theirs)

@@ -17,7 +17,13 @@ from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 from reference import gudhi_intervals, torus_distance
 
-from voxtopo.engine._reduction import pairs_dim1, pairs_dim1_explicit, voxel_order
+from voxtopo.engine._reduction import (
+    pairs_dim1,
+    pairs_dim1_explicit,
+    reversed_order_values,
+    scratch_size,
+    voxel_order,
+)
 from voxtopo.errors import Cancelled, InputError
 
 CONSTRUCTIONS = ["voxel", "vertex"]
@@ -135,13 +141,24 @@ def test_thickened_torus_surface_has_two_long_loops(construction):
     assert np.count_nonzero(death - birth > 3.0) == 2
 
 
-def test_given_order_gives_the_same_pairs_and_input_is_untouched():
+@pytest.mark.parametrize("dtype", [np.uint8, np.float32])
+def test_lent_buffer_and_superlevel_keep_the_pairs_and_leave_the_input(dtype):
+    """A buffer lent as scratch (holding garbage) changes nothing; a superlevel sweep
+    (counting ranks from the top, or a reversed copy for floats) pairs the same voxels as
+    the sublevel sweep of the order-reversed values, with the scan's own values."""
     rng = np.random.default_rng(3)
-    values = rng.integers(0, 6, size=(6, 5, 7)).astype(np.uint8)
+    values = rng.integers(0, 6, size=(6, 5, 7)).astype(dtype)
     before = values.copy()
     plain = pairs_dim1(values, "voxel")
-    reused = pairs_dim1(values, "voxel", order=voxel_order(values))
+    lent = np.full(scratch_size(values.shape, "voxel") + 3, 77, dtype=np.int32)
+    reused = pairs_dim1(values, "voxel", scratch=lent)
     assert all(np.array_equal(a, b) for a, b in zip(plain, reused))
+    top = pairs_dim1(values, "voxel", superlevel=True)
+    reversed_ = pairs_dim1(reversed_order_values(values), "voxel")
+    assert len(top[0]) > 0
+    assert np.array_equal(top[2], reversed_[2]) and np.array_equal(top[3], reversed_[3])
+    assert np.array_equal(top[0], values.reshape(-1)[top[2]])
+    assert np.all(top[1] < top[0])
     assert np.array_equal(values, before)
 
 

@@ -138,3 +138,42 @@ def test_cube_growth_equals_its_definition(mask, corners):
     the neighbourhoods)."""
     mask &= ~(1 << 13)
     assert _union_find._grow(mask, corners) == _grow_by_definition(mask, corners)
+
+
+def test_flat_indices_and_counts_past_2_31_voxels_in_a_thin_slab():
+    """A uint8 image of 2^21 + 3 rows of 1024 voxels, just past 2^31 voxels, with a
+    pattern in its last three rows (common practice, no source: flat indices must not
+    wrap at 2^31). Proves, at the real size, that the engine switches to 64-bit indices
+    there, that the counting sort's histogram counts more than 2^31 equal voxels exactly,
+    and that the linking pass and the sweep give for the last rows the pairs of the same
+    rows cut out as a small image, shifted by their flat offset. Only the last rows are
+    ever written: the rest of the image and of the union-find stay untouched (zero pages),
+    so the test holds a few megabytes, not the 19 GB it addresses."""
+    width, rows = 1024, 2**21 + 3
+    voxels = rows * width
+    assert voxels > 2**31 and _union_find.index_dtype(voxels) == np.int64
+    image = np.zeros((rows, width), dtype=np.uint8)
+    pattern = np.random.default_rng(11).integers(1, 10, (3, width)).astype(np.uint8)
+    image[-3:] = pattern
+    flat = image.reshape(-1)
+    counts = _union_find.value_histogram(flat, 0, 256, False)
+    assert counts[0] == voxels - pattern.size
+    assert np.array_equal(counts[1:10], np.bincount(pattern.ravel(), minlength=10)[1:])
+
+    # a descending sweep over the pattern: the zero rows above come after every voxel of it
+    shape = np.array((1, rows, width), dtype=np.int64)
+    parent = np.empty(voxels + 1, dtype=_union_find.index_dtype(voxels))
+    first = (rows - 3) * width
+    _union_find.link_regular_voxels(flat, rows - 3, rows, False, shape,
+                                    _union_find.neighbour_offsets(2, True), True, 0, parent)
+    marked = first + np.flatnonzero(parent[first:voxels] == -1)
+    order = marked[np.argsort(flat[marked], kind="stable")]
+    roots = np.empty(4096, dtype=parent.dtype)
+    dying_at = np.empty(4096, dtype=parent.dtype)
+    step, count = _union_find.sweep(flat, order, 0, order.size, False, shape,
+                                    _union_find.neighbour_offsets(2, True), 0, parent,
+                                    roots, dying_at, 0)
+    assert step == order.size and count > 0
+    big = list(zip((roots[:count] - first).tolist(), (dying_at[:count] - first).tolist()))
+    assert min(roots[:count].min(), dying_at[:count].min()) > 2**31
+    assert big == _kernel_pairs(pattern, ascending=False, corners=True, with_outside=False)

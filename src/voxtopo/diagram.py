@@ -34,6 +34,12 @@ def position_columns(ndim: int) -> list[str]:
     return [f"birth_{a}" for a in axes] + [f"death_{a}" for a in axes]
 
 
+#: Bytes one pair takes at the peak of building a Diagram (the backend's RawPairs, 33,
+#: and the table made from them with voxel and unit positions, about 172 measured on 4
+#: million pairs of a 3D scan).
+TABLE_BYTES_PER_PAIR = 210
+
+
 def voxel_columns(ndim: int) -> list[str]:
     """birth_voxel_z, ..., death_voxel_x: the same places as voxel indices.
 
@@ -106,24 +112,31 @@ class Diagram:
     @classmethod
     def from_raw(cls, raw, scan, *, superlevel, neighbourhood, field, periodic,
                  min_persistence=0.0, notes=(), seconds=float("nan")) -> "Diagram":
-        """Build a Diagram from a backend's RawPairs and the scan it came from."""
+        """Build a Diagram from a backend's RawPairs and the scan it came from.
+
+        The rows are put in the table's order (:func:`_sorted`) before the columns are
+        made, and each column is made once, so that a large diagram is never held twice.
+        """
         ndim = scan.ndim
         persistence = np.abs(raw.death - raw.birth)
-        keep = persistence > min_persistence
-        frame = {"dim": raw.dim[keep].astype(np.int64), "birth": raw.birth[keep],
-                 "death": raw.death[keep], "persistence": persistence[keep]}
+        kept = np.flatnonzero(persistence > min_persistence)
+        # the order of _sorted (stable: equal keys keep the engine's order), on the arrays
+        rows = kept[np.lexsort((raw.birth[kept], -persistence[kept], raw.dim[kept]))]
+        del kept
+        frame = {"dim": raw.dim[rows].astype(np.int64), "birth": raw.birth[rows],
+                 "death": raw.death[rows], "persistence": persistence[rows]}
+        del persistence
         axes = AXES_3D[3 - ndim:]
-        b = np.unravel_index(raw.birth_index[keep], scan.shape)
-        d_idx = raw.death_index[keep]
-        d = np.unravel_index(np.maximum(d_idx, 0), scan.shape)
-        for a, coord in zip(axes, b):
+        for a, coord in zip(axes, np.unravel_index(raw.birth_index[rows], scan.shape)):
             frame[f"birth_voxel_{a}"] = pd.array(coord, dtype="Int64")
-        for a, coord in zip(axes, d):
-            col = pd.array(coord, dtype="Int64")
-            col[d_idx < 0] = pd.NA
-            frame[f"death_voxel_{a}"] = col
-        pairs = _with_positions(pd.DataFrame(frame), ndim, scan.spacing)
-        pairs = _sorted(pairs)
+        death_index = raw.death_index[rows]
+        essential = death_index < 0
+        for a, coord in zip(axes, np.unravel_index(np.maximum(death_index, 0), scan.shape)):
+            column = pd.array(coord, dtype="Int64")
+            column[essential] = pd.NA
+            frame[f"death_voxel_{a}"] = column
+        del death_index, essential, rows
+        pairs = _with_positions(pd.DataFrame(frame, copy=False), ndim, scan.spacing)
         return cls(pairs=pairs, ndim=ndim, shape=tuple(scan.shape), superlevel=superlevel,
                    neighbourhood=neighbourhood, spacing=tuple(scan.spacing), unit=scan.unit,
                    values=scan.values, field=field, periodic=tuple(periodic),

@@ -12,15 +12,15 @@ import time
 
 import numpy as np
 
-from ..diagram import Diagram, check_min_persistence
+from ..diagram import TABLE_BYTES_PER_PAIR, Diagram, check_min_persistence
 from ..errors import InputError
 from ..memory import ensure_fits
 from ..scan import Scan, as_scan
 from . import _gudhi, own
 from ._pairs import RawPairs, check_exact_in_float64
 
-__all__ = ["persistence", "estimate", "construction_of", "default_neighbourhood",
-           "BACKENDS", "RawPairs"]
+__all__ = ["persistence", "estimate", "out_of_core_remedy", "construction_of",
+           "default_neighbourhood", "BACKENDS", "RawPairs"]
 
 #: name -> (compute function, bytes per voxel or a callable giving the bytes of a run)
 BACKENDS = {
@@ -106,7 +106,10 @@ def _choose_engine(engine: str, field: int, periodic: bool) -> tuple[str, list[s
 
 def estimate(shape, dtype=np.float32, *, engine: str = "auto", neighbourhood=None,
              field: int = 2, periodic: bool = False) -> int:
-    """Bytes a persistence run on an array of ``shape`` and ``dtype`` will need.
+    """Bytes a persistence run on an array of ``shape`` and ``dtype`` will need beyond the
+    array itself: the backend's peak, or the table of pairs the Diagram is built into
+    (planned at one pair per 25 voxels, :data:`voxtopo.diagram.TABLE_BYTES_PER_PAIR`
+    each), whichever is larger; the two are never held at once.
 
     Parameters
     ----------
@@ -126,14 +129,31 @@ def estimate(shape, dtype=np.float32, *, engine: str = "auto", neighbourhood=Non
     Returns
     -------
     int
-        Planned bytes of the run's working memory (the engine's own estimate).
+        Planned bytes of the run's working memory.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> 20e9 < estimate((1024, 1024, 1024), np.uint16) < 30e9
+    True
     """
     name, _ = _choose_engine(engine, field, periodic)
     voxels = int(np.prod(shape, dtype=np.int64))
     per_voxel = BACKENDS[name][1]
     if callable(per_voxel):
-        return int(per_voxel(tuple(shape), np.dtype(dtype), neighbourhood))
-    return voxels * per_voxel + voxels * np.dtype(np.float64).itemsize
+        backend = int(per_voxel(tuple(shape), np.dtype(dtype), neighbourhood))
+    else:
+        backend = voxels * per_voxel + voxels * np.dtype(np.float64).itemsize
+    table = int(own.PLANNED_PAIRS_PER_VOXEL * voxels * TABLE_BYTES_PER_PAIR)
+    return max(backend, table)
+
+
+def out_of_core_remedy(ndim: int) -> str:
+    """The remedies for a scan too big for an in-memory run, in the user's words."""
+    computed = "the whole diagram" if ndim == 2 else f"dimensions 0 and {ndim - 1}"
+    return (f"crop it (--crop), downsample it (--downsample), or compute {computed} out of "
+            f"core from an OME-Zarr copy of the scan (voxtopo analyse --out-of-core, or "
+            f"voxtopo batch)")
 
 
 def _check_values(data: np.ndarray, source: str) -> None:
@@ -211,8 +231,7 @@ def persistence(scan_or_array, superlevel: bool = False, neighbourhood: int | No
                       field=field, periodic=any(periodic_axes))
     ensure_fits(needed, f"Persistence of the {'x'.join(map(str, data.shape))} scan with the "
                         f"{name} engine",
-                "crop it (--crop), downsample it (--downsample) or compute dimension 0 "
-                "out of core (voxtopo batch with an OME-Zarr input)")
+                out_of_core_remedy(scan.ndim))
     compute = BACKENDS[name][0]
     start = time.perf_counter()
     raw = compute(data, superlevel=superlevel, construction=construction,

@@ -59,10 +59,12 @@ columns that needed an addition are remembered, in a hash table from their pivot
 to the reduced column itself, so memory grows with the number of truly reduced columns,
 not with the volume.
 
-Memory per voxel: the sorted order and the ranks (4 bytes each up to 2^31 voxels), the
-distinct-value level of each rank (4), one 32-bit word of flags (own edges left by the
-clearing, squares already a pivot), and during the clearing a union-find parent per grid
-corner (4).
+Memory per voxel: the ranks (4 bytes up to 2^31 voxels, else 8), one 32-bit word of
+flags (own edges left by the clearing, squares already a pivot), and one buffer that holds
+first the clearing's union-find parent per grid corner and then the sorted order (4). For
+8- and 16-bit data a counting sort writes the ranks directly; whether two ranks hold the
+same value is told from the first rank of each distinct value (a short table for such
+data), not from a per-voxel array.
 
 Coefficients are Z/2. Without periodic boundaries the box is contractible, so every loop
 dies and there are no essential dimension-1 classes.
@@ -77,8 +79,10 @@ import numpy as np
 from numba import njit
 
 from ..errors import InputError
+from . import _union_find
 
-__all__ = ["pairs_dim1", "pairs_dim1_explicit", "bytes_needed", "CONSTRUCTIONS"]
+__all__ = ["pairs_dim1", "pairs_dim1_explicit", "bytes_needed", "scratch_size", "voxel_ranks",
+           "CONSTRUCTIONS"]
 
 CONSTRUCTIONS = ("voxel", "vertex")
 
@@ -323,7 +327,7 @@ def voxel_order(values: np.ndarray) -> np.ndarray:
         low, high = int(flat.min()), int(flat.max())
         if high - low < max(1 << 16, flat.size):
             return _counting_order(flat, low, high - low + 1)
-    if flat.dtype == np.float32 and flat.size < 2**31:
+    if flat.dtype == np.float32 and _union_find.index_dtype(flat.size) == np.int32:
         return _radix_order(flat.view(np.uint32))
     return np.argsort(flat, kind="stable")
 
@@ -377,25 +381,130 @@ def _radix_order(raw_bits):
 
 
 @njit(cache=True, nogil=True)
-def _levels(flat, order, level):
-    """level[r]: how many distinct values come before the voxel of rank ``r``."""
+def _value_starts(flat, order, starts):
+    """Write the first rank of each distinct value of ``flat`` (sorted by ``order``) into
+    ``starts``; return how many there are (with ``starts`` of size 0: only count them)."""
     count = 0
-    if order.size:
-        level[0] = 0
-    for r in range(1, order.size):
-        if flat[order[r]] != flat[order[r - 1]]:
+    for r in range(order.size):
+        if r == 0 or flat[order[r]] != flat[order[r - 1]]:
+            if starts.size:
+                starts[count] = r
             count += 1
-        level[r] = count
-
-
-def _index_type(count: int):
-    return np.int32 if count < 2**31 else np.int64
+    return count
 
 
 @njit(cache=True, nogil=True)
-def _ranks(order, rank):
+def _ranks_of_order(order, rank):
     for r in range(order.size):
         rank[order[r]] = r
+
+
+@njit(cache=True, nogil=True)
+def _order_of_ranks(rank, order):
+    for v in range(rank.size):
+        order[rank[v]] = v
+
+
+@njit(cache=True, inline="always")
+def _value_rises(starts, r, p):
+    """Whether the voxel of rank ``p`` (> ``r``) has a larger value than the voxel of rank
+    ``r``: a distinct value starts after ``r`` and no later than ``p``."""
+    low, high = 0, starts.size
+    while low < high:
+        middle = (low + high) >> 1
+        if starts[middle] <= r:
+            low = middle + 1
+        else:
+            high = middle
+    return low < starts.size and starts[low] <= p
+
+
+def _counting_sorts(flat) -> bool:
+    """Whether the ranks of ``flat`` come from a counting sort (integers over few levels)."""
+    if not np.issubdtype(flat.dtype, np.integer) or flat.size == 0:
+        return False
+    return int(flat.max()) - int(flat.min()) < max(1 << 16, flat.size)
+
+
+def voxel_ranks(values: np.ndarray, superlevel: bool = False):
+    """(rank, starts): the position of every voxel in the order ``(value, flat index)``
+    (superlevel: values from the highest down, ties still by flat index), and the first
+    rank of each distinct value, ascending.
+
+    Integers over few levels (8- and 16-bit data) take a counting sort that writes the
+    ranks directly; other values are sorted (:func:`voxel_order`, after reversing their
+    order for a superlevel sweep) and the order is dropped once the ranks are written.
+    Ranks and starts have the engine's index type.
+    """
+    flat = values.reshape(-1)
+    index_type = _union_find.index_dtype(flat.size)
+    rank = np.empty(flat.size, dtype=index_type)
+    if _counting_sorts(flat):
+        low, high = int(flat.min()), int(flat.max())
+        counts = _union_find.value_histogram(flat, low, high - low + 1, superlevel)
+        _union_find.counting_ranks(flat, low, counts, superlevel, rank)
+        present = counts[counts > 0]
+        starts = np.zeros(present.size, dtype=index_type)
+        np.cumsum(present[:-1], out=starts[1:])
+        return rank, starts
+    swept = reversed_order_values(flat) if superlevel else flat
+    order = voxel_order(swept)
+    _ranks_of_order(order, rank)
+    starts = np.empty(_value_starts(swept, order, np.empty(0, dtype=index_type)),
+                      dtype=index_type)
+    _value_starts(swept, order, starts)
+    return rank, starts
+
+
+def reversed_order_values(values: np.ndarray) -> np.ndarray:
+    """Values whose sublevel sweep is the superlevel sweep of ``values``, exactly.
+
+    Integers take the bitwise complement (``~v = -v - 1``; ``255 - v`` for uint8), which
+    reverses the order without overflow; floats are negated, which is exact.
+    """
+    if values.dtype == bool:
+        return ~values.astype(np.uint8)
+    if values.dtype.kind in "ui":
+        return ~values
+    return -values
+
+
+@njit(cache=True, nogil=True)
+def _flagged(words, bit, found):
+    """Write into ``found`` the positions of ``words`` with ``bit`` set, ascending; return
+    how many there are (with ``found`` of size 0: only count them)."""
+    count = 0
+    for i in range(words.size):
+        if (words[i] >> bit) & 1:
+            if found.size:
+                found[count] = i
+            count += 1
+    return count
+
+
+@njit(cache=True, nogil=True)
+def _flagged_voxels(rank, words, bit, found):
+    """:func:`_flagged` for voxels in memory order, whose words sit at their ranks."""
+    count = 0
+    for v in range(rank.size):
+        if (words[rank[v]] >> bit) & 1:
+            if found.size:
+                found[count] = v
+            count += 1
+    return count
+
+
+def _positions_flagged(words, bit, index_type, rank=None):
+    """Positions (ranks; with ``rank``: voxels) whose word has ``bit`` set, without an
+    array as long as the volume."""
+    empty = np.empty(0, dtype=index_type)
+    if rank is None:
+        found = np.empty(_flagged(words, bit, empty), dtype=index_type)
+        _flagged(words, bit, found)
+    else:
+        found = np.empty(_flagged_voxels(rank, words, bit, empty), dtype=index_type)
+        _flagged_voxels(rank, words, bit, found)
+    return found
 
 
 # --------------------------------------------------------------------------- clearing
@@ -651,10 +760,10 @@ def _find(parent, x):
 
 
 @njit(cache=True, nogil=True)
-def _death_edges(ranks, order, n0, n1, n2, vertex, edge_codes, words, parent):
-    """Clear in ``words`` every own edge of the voxels of ``ranks`` (ascending; those the
-    local clearing left undecided) that joins two components when the edges are added in
-    filtration order: these are the columns that clearing skips.
+def _death_edges(undecided, rank, n0, n1, n2, vertex, edge_codes, words, parent):
+    """Clear in ``words`` every own edge of the voxels ``undecided`` (flat indices in rank
+    order; those the local clearing left undecided) that joins two components when the
+    edges are added in filtration order: these are the columns that clearing skips.
 
     A union-find over this module's own vertices (voxels, or grid corners in the voxel
     construction), whose links for the other voxels :func:`_own_edges` has set: a link
@@ -664,12 +773,13 @@ def _death_edges(ranks, order, n0, n1, n2, vertex, edge_codes, words, parent):
     """
     m1, m2 = (n1, n2) if vertex else (n1 + 1, n2 + 1)
     shift = 0 if vertex else 1
-    for j in range(ranks.size):
-        v = np.int64(order[ranks[j]])
+    for j in range(undecided.size):
+        v = np.int64(undecided[j])
+        r = rank[v]
         i2 = v % n2
         i1 = (v // n2) % n1
         i0 = v // (n1 * n2)
-        bits = words[ranks[j]]
+        bits = words[r]
         for k in range(edge_codes.size):
             if not (bits >> k) & 1:
                 continue
@@ -694,8 +804,8 @@ def _death_edges(ranks, order, n0, n1, n2, vertex, edge_codes, words, parent):
                     ra, rb = rb, ra
                 parent[ra] += parent[rb]
                 parent[rb] = ra
-                words[ranks[j]] &= ~np.uint32(1 << k)
-        words[ranks[j]] &= ~(np.uint32(1) << np.uint32(_IRREGULAR_BIT))
+                words[r] &= ~np.uint32(1 << k)
+        words[r] &= ~(np.uint32(1) << np.uint32(_IRREGULAR_BIT))
 
 
 @njit(cache=True, nogil=True)
@@ -880,7 +990,7 @@ def _unreduced_owner(square, edge, order, rank, words, edge_bit, n0, n1, n2, ver
 
 
 @njit(cache=True, nogil=True)
-def _reduce_ranks(r_high, r_low, listed, use_list, level, order, rank, words, n0, n1, n2,
+def _reduce_ranks(r_high, r_low, listed, use_list, starts, order, rank, words, n0, n1, n2,
                   vertex, edge_codes, edge_bit, square_bit, table_keys, table_vals, pool,
                   counters, births, deaths):
     """Visit the edges of the voxels of rank ``r_high`` down to ``r_low`` (inclusive),
@@ -888,7 +998,8 @@ def _reduce_ranks(r_high, r_low, listed, use_list, level, order, rank, words, n0
     ranks ``listed[r_high]`` down to ``listed[r_low]`` (``listed`` ascending).
 
     ``words`` holds, per voxel, a bit for each of its own edges that clearing left and
-    one for each of its own squares that is already the pivot of a column. ``counters`` = [table entries, pool length,
+    one for each of its own squares that is already the pivot of a column; ``starts``
+    the first rank of each distinct value (:func:`voxel_ranks`). ``counters`` = [table entries, pool length,
     pairs written, columns reduced, columns paired without reduction, columns left empty,
     heap pushes]. Returns the (possibly grown) table, pool and output arrays.
     """
@@ -980,7 +1091,7 @@ def _reduce_ranks(r_high, r_low, listed, use_list, level, order, rank, words, n0
             words[pivot >> CODE_BITS] |= np.uint32(1) << np.uint32(
                 square_bit[pivot & _CODE_MASK])
             # equal ranks are a zero-persistence pair; only others need the (random) read
-            if (pivot >> CODE_BITS) != r and level[pivot >> CODE_BITS] > level[r]:
+            if (pivot >> CODE_BITS) != r and _value_rises(starts, r, pivot >> CODE_BITS):
                 n = counters[2]
                 if n == births.size:
                     bigger_b = np.empty(births.size * 2, dtype=np.int64)
@@ -1022,7 +1133,8 @@ def _check(values, construction):
     return np.ascontiguousarray(values)
 
 
-def pairs_dim1(values, construction, progress=None, *, order=None, threads=1):
+def pairs_dim1(values, construction, progress=None, *, superlevel=False, threads=1,
+               scratch=None):
     """Finite dimension-1 persistence pairs of the sublevel filtration of a 3D volume.
 
     Parameters
@@ -1036,17 +1148,21 @@ def pairs_dim1(values, construction, progress=None, *, order=None, threads=1):
     progress : callable(phase, fraction), optional
         Called with ``"dimension 1"`` and the fraction done at coarse checkpoints; raise
         ``voxtopo.Cancelled`` inside it to stop.
-    order : ndarray, optional
-        C-order flat voxel indices sorted by ``(value, flat index)``, when the caller has
-        already sorted the voxels; skips the sort.
+    superlevel : bool
+        Sweep the values from the highest down (the superlevel filtration) instead; the
+        pairs keep the scan's own values (birth the higher one).
     threads : int
         With 2 or more, the memory-order pass is shared by two threads (the result is
         the same).
+    scratch : ndarray of int, optional
+        A buffer of at least :func:`scratch_size` entries the caller no longer needs
+        (the sweeps' union-find links): it holds the clearing's union-find and then the
+        sorted voxel order, instead of a new array of that size.
 
     Returns
     -------
     birth, death : ndarray of float64
-        Values of the pairs with ``death > birth``, read from ``values``.
+        Values of the pairs with ``death != birth``, read from ``values``.
     birth_index, death_index : ndarray of int64
         C-order flat indices of the voxels the birth and death values come from.
 
@@ -1054,8 +1170,7 @@ def pairs_dim1(values, construction, progress=None, *, order=None, threads=1):
     -----
     A cohomology reduction with clearing and apparent/emergent pairs over an implicit
     cubical complex; see the module docstring for the cells, the tie rule and the method.
-    Superlevel filtrations are the sublevel filtration of the negated values (the caller
-    transforms). Without periodic boundaries there are no essential loops.
+    Without periodic boundaries there are no essential loops.
 
     References
     ----------
@@ -1075,12 +1190,22 @@ def pairs_dim1(values, construction, progress=None, *, order=None, threads=1):
     >>> birth.tolist(), death.tolist(), death_index.tolist()
     ([0.0], [5.0], [4])
     """
-    birth, death, birth_index, death_index, _ = reduce_dim1(values, construction, progress,
-                                                            order=order, threads=threads)
+    birth, death, birth_index, death_index, _ = reduce_dim1(
+        values, construction, progress, superlevel=superlevel, threads=threads,
+        scratch=scratch)
     return birth, death, birth_index, death_index
 
 
-def reduce_dim1(values, construction, progress=None, *, order=None, threads=1):
+def scratch_size(shape, construction) -> int:
+    """Entries of the buffer :func:`pairs_dim1` can take as ``scratch``: one per grid
+    corner (voxel construction) or voxel (vertex construction)."""
+    if construction == "vertex":
+        return int(np.prod(shape, dtype=np.int64))
+    return int(np.prod([n + 1 for n in shape], dtype=np.int64))
+
+
+def reduce_dim1(values, construction, progress=None, *, superlevel=False, threads=1,
+                scratch=None):
     """:func:`pairs_dim1` plus a dict of counts (columns reduced, columns paired at once,
     pairs of positive persistence, reduction-matrix entries kept), which
     the benchmark prints."""
@@ -1090,17 +1215,9 @@ def reduce_dim1(values, construction, progress=None, *, order=None, threads=1):
     voxels = values.size
     if progress is not None:
         progress(PHASE, 0.0)
-    if order is None:
-        order = voxel_order(values)
-    index_type = _index_type(voxels)
-    order = np.asarray(order).astype(index_type, copy=False)
-    rank = np.empty(voxels, dtype=index_type)
-    _ranks(order, rank)
+    rank, starts = voxel_ranks(values, superlevel)
+    index_type = rank.dtype
     flat = values.reshape(-1)
-    # level[r]: how many distinct values come before rank r, so that the kernel tells
-    # zero-persistence pairs apart without being compiled once per value type
-    level = np.empty(voxels, dtype=index_type)
-    _levels(flat, order, level)
     edge_codes = _EDGE_CODES_VERTEX if vertex else _EDGE_CODES_VOXEL
     edge_bit = _EDGE_BIT_VERTEX if vertex else _EDGE_BIT_VOXEL
     square_bit = _SQUARE_BIT_VERTEX if vertex else _SQUARE_BIT_VOXEL
@@ -1108,8 +1225,11 @@ def reduce_dim1(values, construction, progress=None, *, order=None, threads=1):
         progress(PHASE, 0.1)
 
     words = np.empty(voxels, dtype=np.uint32)
-    corners = voxels if vertex else (n0 + 1) * (n1 + 1) * (n2 + 1)
-    parent = np.full(corners, -1, dtype=_index_type(corners))
+    corners = scratch_size(values.shape, construction)
+    if scratch is None or scratch.size < corners:
+        scratch = np.empty(corners, dtype=_union_find.index_dtype(corners))
+    parent = scratch[:corners]
+    parent.fill(-1)
     offsets, positions = _block_offsets(n1, n2)
     later = _LATER_VERTEX if vertex else _LATER_VOXEL
     memo = np.full(1 if vertex else 1 << 20, _UNKNOWN, dtype=np.uint32)
@@ -1132,9 +1252,14 @@ def reduce_dim1(values, construction, progress=None, *, order=None, threads=1):
                    0, n0)
     if progress is not None:
         progress(PHASE, 0.15)
-    undecided = np.flatnonzero(words >> np.uint32(_IRREGULAR_BIT))
-    _death_edges(undecided, order, n0, n1, n2, vertex, edge_codes, words, parent)
-    del parent, undecided
+    undecided = _positions_flagged(words, _IRREGULAR_BIT, index_type, rank)
+    undecided = undecided[np.argsort(rank[undecided], kind="stable")]
+    _death_edges(undecided, rank, n0, n1, n2, vertex, edge_codes, words, parent)
+    del undecided
+    # the clearing's union-find is done with: its buffer now holds the voxels in order
+    order = scratch[:voxels]
+    _order_of_ranks(rank, order)
+    del parent
     if progress is not None:
         progress(PHASE, 0.25)
 
@@ -1150,7 +1275,7 @@ def reduce_dim1(values, construction, progress=None, *, order=None, threads=1):
         visits = voxels
     else:
         _pair_own_squares(words, edge_codes, square_bit, counters)
-        listed = np.flatnonzero(words >> np.uint32(_IRREGULAR_BIT)).astype(index_type)
+        listed = _positions_flagged(words, _IRREGULAR_BIT, index_type)
         np.bitwise_and(words, ~(np.uint32(1) << np.uint32(_IRREGULAR_BIT)), out=words)
         visits = listed.size
     steps = np.linspace(visits, 0, _PROGRESS_STEPS + 1).astype(np.int64)
@@ -1158,8 +1283,8 @@ def reduce_dim1(values, construction, progress=None, *, order=None, threads=1):
         high, low = steps[step] - 1, steps[step + 1]
         if high >= low:
             table_keys, table_vals, pool, births, deaths = _reduce_ranks(
-                high, low, listed, not vertex, level, order, rank, words, n0, n1, n2, vertex,
-                edge_codes, edge_bit, square_bit,
+                high, low, listed, not vertex, starts, order, rank, words, n0, n1, n2,
+                vertex, edge_codes, edge_bit, square_bit,
                 table_keys, table_vals, pool, counters, births, deaths)
         if progress is not None:
             progress(PHASE, 0.25 + 0.75 * (step + 1) / _PROGRESS_STEPS)
@@ -1169,33 +1294,54 @@ def reduce_dim1(values, construction, progress=None, *, order=None, threads=1):
     counts = {"reduced": int(counters[3]), "paired_at_once": int(counters[4]),
               "pairs": int(counters[2]), "kept_entries": int(counters[1]),
               "heap_pushes": int(counters[6])}
+    del words, rank, order, listed
     birth_index = births[:counters[2]].copy()
     death_index = deaths[:counters[2]].copy()
     birth = flat[birth_index].astype(np.float64)
     death = flat[death_index].astype(np.float64)
-    keep = death > birth
+    keep = death != birth
     return birth[keep], death[keep], birth_index[keep], death_index[keep], counts
 
 
-def bytes_needed(shape, dtype) -> int:
+#: Bytes per voxel planned for the reduced columns kept and the pivot table that finds
+#: them: they hold only the columns that needed a reduction, which depends on the data.
+#: Measured on 512^3 uint16 noisy sintered beads (benchmarks/bench_memory.py data): 0.78
+#: kept entries and 0.07 reduced columns per voxel, 1.07 GB of column pool (8-byte entries,
+#: doubling) and 0.54 GB of table, 12 bytes per voxel; smooth data keep far fewer.
+_KEPT_BYTES_PER_VOXEL = 12
+
+
+def bytes_needed(shape, dtype, *, superlevel=False, with_scratch=False) -> int:
     """Peak bytes :func:`pairs_dim1` needs for a volume of ``shape`` and ``dtype``.
 
-    Per voxel: order, rank, level, flags and the clearing's union-find parent (4 bytes
-    each with 32-bit indices, 8 above 2^31 voxels), the sorted copy of the values used
-    for the levels, and the sort's scratch (8 bytes per voxel: the counting sort's output,
-    or the keys and indices a float32 radix pass writes into); plus 64 MB for the pivot table and
-    reduced columns, which hold only the columns that needed a reduction (a few percent
-    of the voxels on smooth data).
+    Per voxel: the ranks (4 bytes with 32-bit indices, 8 above 2^31 voxels), one 32-bit
+    word of flags, and the buffer that holds first the clearing's union-find (one entry
+    per grid corner) and then the sorted order (none when the caller lends it as
+    ``scratch``: ``with_scratch``). 8- and 16-bit data take a counting sort that writes the
+    ranks directly; other values are sorted first, which needs the sort's arrays while the
+    ranks are written (a float32 radix sort 16 bytes per voxel, numpy's sort about 12,
+    plus a reversed copy of the values for a superlevel sweep) and a start rank per
+    distinct value. Plus the reduced columns kept and their pivot table, planned at 12
+    bytes per voxel (measured on noisy 16-bit scans; smooth data keep far fewer).
 
     Examples
     --------
-    >>> bytes_needed((512, 512, 512), "uint8") / 1e9 < 6
+    >>> 3e9 < bytes_needed((512, 512, 512), "uint8") < 4e9
     True
     """
     voxels = int(np.prod(shape, dtype=np.int64))
-    index = 4 if voxels < 2**31 else 8
-    itemsize = np.dtype(dtype).itemsize
-    return voxels * (5 * index + itemsize + 8) + 64 * 2**20
+    index = _union_find.index_dtype(voxels).itemsize
+    corners = int(np.prod([n + 1 for n in shape], dtype=np.int64))
+    buffer = 0 if with_scratch else corners * _union_find.index_dtype(corners).itemsize
+    dtype = np.dtype(dtype)
+    steady = voxels * (index + 4 + _KEPT_BYTES_PER_VOXEL) + buffer
+    if dtype.kind in "uib" and dtype.itemsize <= 2:
+        return steady
+    # the distinct values: as many as the voxels at worst
+    starts = voxels * index
+    radix = dtype == np.float32 and index == 4
+    sort = voxels * (16 if radix else 12) + (voxels * dtype.itemsize if superlevel else 0)
+    return max(sort + voxels * index, steady + starts)
 
 
 # --------------------------------------------------------------------------- twin

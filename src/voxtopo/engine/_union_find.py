@@ -66,7 +66,12 @@ MERGES_PER_VOXEL = 27
 
 
 def index_dtype(voxels: int) -> np.dtype:
-    """int32 while flat indices (and the outside node) fit, else int64."""
+    """int32 while flat indices (and the outside node) fit, else int64.
+
+    The engine's one switch between 32- and 64-bit indices: every array of flat indices,
+    ranks or union-find links takes its type from here (tests lower the limit to run
+    the 64-bit path on small volumes).
+    """
     return np.dtype(np.int32) if voxels <= INT32_VOXELS else np.dtype(np.int64)
 
 
@@ -83,6 +88,41 @@ def neighbour_offsets(ndim: int, corners: bool) -> np.ndarray:
                if (dz, dy, dx) != (0, 0, 0)
                and (corners or abs(dz) + abs(dy) + abs(dx) == 1)]
     return np.array(offsets, dtype=np.int64)
+
+
+@njit(cache=True, nogil=True)
+def value_histogram(values, low, levels, descending):
+    """Voxels per level of ``values`` (integers from ``low`` to ``low + levels - 1``), as
+    int64 counts (a single level may hold more than 2^31 voxels).
+
+    The level of ``x`` is ``x - low``, or ``low + levels - 1 - x`` when ``descending``, so
+    that the highest value comes first.
+    """
+    counts = np.zeros(levels, dtype=np.int64)
+    top = low + levels - 1
+    for i in range(values.size):
+        x = np.int64(values[i])
+        counts[top - x if descending else x - low] += 1
+    return counts
+
+
+@njit(cache=True, nogil=True)
+def counting_ranks(values, low, counts, descending, rank):
+    """Write into ``rank`` the position of every voxel in the order (level, flat index),
+    levels as in :func:`value_histogram` whose ``counts`` are given: a counting sort that
+    writes ranks, so no sorted order (nor its scratch) is ever held."""
+    levels = counts.size
+    next_rank = np.empty(levels, dtype=np.int64)
+    total = np.int64(0)
+    for k in range(levels):
+        next_rank[k] = total
+        total += counts[k]
+    top = low + levels - 1
+    for i in range(values.size):
+        x = np.int64(values[i])
+        k = top - x if descending else x - low
+        rank[i] = next_rank[k]
+        next_rank[k] += 1
 
 
 @njit(cache=True, nogil=True)

@@ -23,6 +23,7 @@ import threading
 import numpy as np
 
 from ..errors import Cancelled, InputError
+from ..memory import BUDGET_FRACTION, available_bytes
 from . import _union_find
 from ._pairs import RawPairs
 
@@ -38,17 +39,14 @@ _STEPS_PER_REPORT = 1 << 21
 #: double when needed).
 _FIRST_BUFFER_FRACTION = 1 / 16
 
-#: Memory planning, from peaks measured on the benchmark cases (benchmarks/bench_engine.py):
-#: the share of voxels left for the sweep proper (0.6 % to 7 % measured), the pairs per
-#: voxel (0.3 % on smooth noise, 3 % on noisy beads; white noise has more), the bytes a
-#: pair holds until the result is built (RawPairs: int8 dim, two float64 values, two int64
-#: locations, and the concatenation copies), and the dimension-1 reduction's need per voxel
-#: when it does not say (whole-engine peaks of 28-30 bytes per voxel measured on 256^3
-#: and 512^3 uint8 beads, 20 on 128^3 float32 smooth noise).
+#: Memory planning, from peaks measured on the benchmark cases (benchmarks/bench_engine.py,
+#: benchmarks/bench_memory.py): the share of voxels left for the sweep proper (0.6 % to 7 %
+#: measured), the pairs per voxel (0.3 % on smooth noise, 3 % on noisy uint8 beads, 3.7 %
+#: on noisy uint16 beads; white noise has more), and the bytes a pair holds while the
+#: dimension-1 reduction runs (two locations, int64 at worst).
 _PLANNED_SWEPT_FRACTION = 0.05
-_PLANNED_PAIRS_PER_VOXEL = 0.02
-_BYTES_PER_PAIR = 66
-_REDUCTION_BYTES_PER_VOXEL = 26
+PLANNED_PAIRS_PER_VOXEL = 0.04
+_BYTES_PER_PAIR_HELD = 16
 
 
 def compute(values: np.ndarray, *, superlevel: bool, construction: str,
@@ -78,7 +76,9 @@ def compute(values: np.ndarray, *, superlevel: bool, construction: str,
         always called from the calling thread.
     threads : int, optional
         Threads for a 3D volume: with 2 or more, dimension 1 runs in a second thread
-        beside the two sweeps (the result is the same). Default :func:`default_threads`.
+        beside the two sweeps when both fit in the memory available together (else after
+        them, its memory-order pass shared by two threads); the result is the same.
+        Default :func:`default_threads`.
 
     Returns
     -------
@@ -109,19 +109,28 @@ def compute(values: np.ndarray, *, superlevel: bool, construction: str,
     shape = np.array((1,) * (3 - ndim) + tuple(values.shape), dtype=np.int64)
     ascending = not superlevel
 
+    threads = threads or default_threads()
+    vertex = construction == "vertex"
     loops = None
-    if ndim == 3 and (threads or default_threads()) >= 2:
+    links = None
+    if ndim == 3 and threads >= 2 and _side_by_side_fits(values.shape, values.dtype, vertex):
         # dimension 1 runs beside the two sweeps: all three kernels release the GIL
         loops = _Background(_dimension_one, values, flat, superlevel, construction, 2)
+    elif ndim == 3:
+        # one after the other, the reduction taking over the sweeps' union-find buffer
+        entries = _links_size(values.shape, vertex)
+        links = np.empty(entries, dtype=_union_find.index_dtype(entries))
     try:
         roots_0, voxels_0, roots_top, voxels_top = _sweeps(flat, shape, ndim, ascending,
-                                                           construction, progress)
+                                                           construction, progress, links)
         if ndim == 3:
             dim1 = (loops.result(progress) if loops is not None else
-                    _dimension_one(values, flat, superlevel, construction, 1, progress))
+                    _dimension_one(values, flat, superlevel, construction, threads,
+                                   progress, links))
     finally:
         if loops is not None:
             loops.stop()
+    del links
     # The eldest voxel of all: first in (value, flat index) order, or last for superlevel.
     eldest = int(np.argmin(flat)) if ascending else flat.size - 1 - int(np.argmax(flat[::-1]))
 
@@ -211,9 +220,14 @@ class _Background:
         self._thread.join()
 
 
-def _sweeps(flat, shape, ndim, ascending, construction, progress):
-    """(roots, voxels) of the dimension-0 sweep and of the dual dimension d-1 sweep."""
-    parent = np.empty(flat.size + 1, dtype=_union_find.index_dtype(flat.size))
+def _sweeps(flat, shape, ndim, ascending, construction, progress, links=None):
+    """(roots, voxels) of the dimension-0 sweep and of the dual dimension d-1 sweep.
+
+    ``links``: a buffer of at least one entry per voxel and one more to hold the
+    union-find (else a new one is made).
+    """
+    parent = (links[:flat.size + 1] if links is not None else
+              np.empty(flat.size + 1, dtype=_union_find.index_dtype(flat.size)))
     roots_0, voxels_0 = _sweep(flat, shape, ndim, ascending=ascending,
                                corners=construction == "voxel", with_outside=0,
                                parent=parent, progress=progress, phase="dimension 0")
@@ -255,31 +269,71 @@ def bytes_needed(shape, dtype, neighbourhood=None) -> int:
     """Bytes a run on an array of ``shape`` and ``dtype`` needs beyond the array itself.
 
     The sweeps hold one union-find index per voxel, a byte per voxel while the voxels
-    left for the sweep proper are collected, and those voxels' order; a 3D volume's
-    dimension-1 reduction runs beside them, or after them with one thread (with a reversed
-    copy of the values for a superlevel run, and for the vertex construction a padded
-    one, planned for here). The pairs are planned at one per fifty voxels.
-    ``neighbourhood`` does not change the need and is accepted for the common signature.
+    left for the sweep proper are collected, and those voxels' order. A 3D volume's
+    dimension-1 reduction (:func:`voxtopo.engine._reduction.bytes_needed`; for the vertex
+    construction, 6-neighbourhood, on a padded copy of the values in a type up to twice
+    as wide) runs beside them when both fit in the memory available together and the
+    engine has two threads; otherwise it runs after them and takes over their union-find
+    buffer. The pairs are planned at one per 25 voxels (the table they become is planned
+    by :func:`voxtopo.engine.estimate`).
 
     Examples
     --------
     >>> 25e6 < bytes_needed((2048, 2048), np.float32) < 40e6
     True
     """
+    side_by_side, one_after_other = _needs(tuple(shape), np.dtype(dtype), neighbourhood == 6)
+    if (side_by_side is not None and default_threads() >= 2
+            and side_by_side <= _budget()):
+        return side_by_side
+    return one_after_other
+
+
+def _needs(shape, dtype, vertex) -> tuple[int | None, int]:
+    """(bytes with the reduction beside the sweeps, or None for a 2D image; bytes with
+    the reduction after them)."""
+    from . import _reduction
+
     voxels = int(np.prod(shape, dtype=np.int64))
-    dtype = np.dtype(dtype)
     index = _union_find.index_dtype(voxels).itemsize
     swept = _PLANNED_SWEPT_FRACTION * voxels * (8 + 2 * index + dtype.itemsize)
-    peak = voxels * (index + 1) + swept
-    if len(shape) == 3:
-        # a reversed copy of the values, and for the vertex construction a padded one
-        # (in a type up to twice as wide)
-        padded = int(np.prod([n + 2 for n in shape], dtype=np.int64))
-        loops = (_reduction_bytes(tuple(n + 2 for n in shape), dtype)
-                 + voxels * dtype.itemsize + padded * min(2 * dtype.itemsize, 8))
-        # with two threads the reduction runs while the sweeps hold their arrays
-        peak = peak + loops if default_threads() >= 2 else max(peak, loops)
-    return int(peak + _BYTES_PER_PAIR * _PLANNED_PAIRS_PER_VOXEL * voxels)
+    collecting = voxels + swept
+    pairs = _BYTES_PER_PAIR_HELD * PLANNED_PAIRS_PER_VOXEL * voxels
+    if len(shape) == 2:
+        return None, int(voxels * index + collecting + pairs)
+    copies = 0
+    reduced_shape = shape
+    if vertex:
+        # a reversed copy of the values, then the padded one (in a type up to twice as
+        # wide, over as few levels), which the reduction sweeps in the voxel construction
+        reduced_shape = tuple(n + 2 for n in shape)
+        copies = (voxels * dtype.itemsize + int(np.prod(reduced_shape, dtype=np.int64))
+                  * min(2 * dtype.itemsize, 8))
+    alone = _reduction.bytes_needed(reduced_shape, dtype, superlevel=True)
+    lent = _reduction.bytes_needed(reduced_shape, dtype, superlevel=True, with_scratch=True)
+    entries = _links_size(shape, vertex)
+    links = entries * _union_find.index_dtype(entries).itemsize
+    side_by_side = (voxels + 1) * index + collecting + copies + alone + pairs
+    one_after_other = links + max(collecting, copies + lent) + pairs
+    return int(side_by_side), int(one_after_other)
+
+
+def _links_size(shape, vertex) -> int:
+    """Entries of the union-find buffer the sweeps and then the reduction share."""
+    from . import _reduction
+
+    reduced = tuple(n + 2 for n in shape) if vertex else tuple(shape)
+    return max(int(np.prod(shape, dtype=np.int64)) + 1,
+               _reduction.scratch_size(reduced, "voxel"))
+
+
+def _budget() -> int:
+    return int(available_bytes() * BUDGET_FRACTION)
+
+
+def _side_by_side_fits(shape, dtype, vertex) -> bool:
+    side_by_side, _ = _needs(tuple(shape), np.dtype(dtype), vertex)
+    return side_by_side is not None and side_by_side <= _budget()
 
 
 BYTES_PER_VOXEL = bytes_needed
@@ -352,11 +406,12 @@ def _sweep(flat, shape, ndim, *, ascending, corners, with_outside, parent, progr
     return roots[:count].copy(), dying_at[:count].copy()
 
 
-def _dimension_one(values, flat, superlevel, construction, threads, progress):
+def _dimension_one(values, flat, superlevel, construction, threads, progress,
+                   links=None):
     """(births, deaths, birth index, death index) of dimension 1 of a 3D volume.
 
-    The reduction sweeps a sublevel filtration: a superlevel run hands it values with
-    the order reversed; the values of the pairs are then read back from ``flat``.
+    ``links``: the sweeps' union-find buffer, lent to the reduction when it runs after
+    them. The values of the pairs are read back from ``flat``.
     """
     from . import _reduction
 
@@ -364,18 +419,17 @@ def _dimension_one(values, flat, superlevel, construction, threads, progress):
     # the loops of the vertex construction of f are those of the voxel construction of -f
     # with the outside of the volume present from the start, births and deaths swapped;
     # the voxel construction's reduction is the faster one.
-    dual = (_padded_below(values if superlevel else _reversed_order_values(values))
+    dual = (_padded_below(values if superlevel else _reduction.reversed_order_values(values))
             if construction == "vertex" else None)
     if dual is not None:
-        pairs = _reduction.pairs_dim1(dual, "voxel", progress=progress, threads=threads)
+        pairs = _reduction.pairs_dim1(dual, "voxel", progress=progress, threads=threads,
+                                      scratch=links)
         birth_index = _unpad(np.asarray(pairs[3], dtype=np.int64), dual.shape)
         death_index = _unpad(np.asarray(pairs[2], dtype=np.int64), dual.shape)
         del dual, pairs
     else:
-        swept = _reversed_order_values(values) if superlevel else values
-        pairs = _reduction.pairs_dim1(swept, construction, progress=progress,
-                                      threads=threads)
-        del swept
+        pairs = _reduction.pairs_dim1(values, construction, progress=progress,
+                                      superlevel=superlevel, threads=threads, scratch=links)
         birth_index = np.asarray(pairs[2], dtype=np.int64)
         death_index = np.asarray(pairs[3], dtype=np.int64)
         del pairs
@@ -420,27 +474,3 @@ def _unpad(index: np.ndarray, padded_shape) -> np.ndarray:
         raise RuntimeError("a loop of the dual volume sits in its outside shell, which "
                            "cannot happen; this is a bug in voxtopo's engine.")
     return np.ravel_multi_index(tuple(inside), inner).astype(np.int64)
-
-
-def _reversed_order_values(values: np.ndarray) -> np.ndarray:
-    """Values whose sublevel sweep is the superlevel sweep of ``values``, exactly.
-
-    Integers take the bitwise complement (``~v = -v - 1``; ``255 - v`` for uint8), which
-    reverses the order without overflow; floats are negated, which is exact.
-    """
-    if values.dtype == bool:
-        return ~values.astype(np.uint8)
-    if values.dtype.kind in "ui":
-        return ~values
-    return -values
-
-
-def _reduction_bytes(shape, dtype) -> int:
-    try:
-        from . import _reduction
-    except ImportError:
-        return 0
-    need = getattr(_reduction, "bytes_needed", None)
-    if callable(need):
-        return int(need(shape, dtype))
-    return _REDUCTION_BYTES_PER_VOXEL * int(np.prod(shape, dtype=np.int64))

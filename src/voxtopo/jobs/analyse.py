@@ -32,7 +32,7 @@ from .. import __version__
 from .. import filtration as filt
 from .. import significance as sig
 from ..diagram import Diagram
-from ..engine import estimate, persistence
+from ..engine import estimate, out_of_core_remedy, persistence
 from ..errors import InputError
 from ..options import (BOOLEAN, COUNT, ENGINE, FILL, NEIGHBOURHOOD, NON_NEGATIVE, NUMBER,
                        POSITIVE, PRIME, TEXT, THRESHOLD, Rule, check, one_of, optional)
@@ -545,7 +545,7 @@ def run(scan: Scan, options: AnalysisOptions | None = None, progress=None) -> An
     timings = {}
     plan = preparation_plan(scan, options)
     with reported_as_too_big(f"Analysing {scan.source or 'the scan'}",
-                             max(needed for _, needed in plan), filt.PREPARATION_REMEDY):
+                             max(needed for _, needed in plan), out_of_core_remedy(scan.ndim)):
         start = time.perf_counter()
         region = region_of_interest(scan, options)
         sample, given = None, scan

@@ -150,7 +150,7 @@ def with_p_values(diagram: Diagram, significance: Significance) -> Diagram:
     Diagram
         A copy with the two columns added.
     """
-    pairs = diagram.pairs.copy()
+    pairs = diagram.pairs.copy(deep=False)  # new columns only: the table is not copied
     p_value = np.full(len(pairs), np.nan)
     dims = pairs["dim"].to_numpy()
     lifetimes = pairs["persistence"].to_numpy(dtype=np.float64)
@@ -189,7 +189,7 @@ def robust_flags(diagram: Diagram, boundary_tolerance: float | None = None) -> D
     boundary_tolerance : float, optional
         delta in the scan's unit; default one voxel (the largest spacing).
     """
-    pairs = diagram.pairs.copy()
+    pairs = diagram.pairs.copy(deep=False)  # new columns only: the table is not copied
     lifetimes = pairs["persistence"].to_numpy(dtype=np.float64)
     pairs["robust"] = ~np.isfinite(lifetimes) | (lifetimes > robust_threshold(
         diagram, boundary_tolerance))
