@@ -427,11 +427,12 @@ def test_refusal_names_the_estimate_and_the_out_of_core_path(monkeypatch, tmp_pa
     from voxtopo.porosity import estimate
     mask = _blobs((24, 24, 24), seed=2).astype(np.uint8)
     np.save(tmp_path / "mask.npy", mask)
-    planned = estimate(mask.shape, np.uint8)
+    planned = estimate(mask.shape, np.uint8, engine=ENGINE)
     # a budget (80 % of the limit) just short of the plan
     monkeypatch.setenv("VOXTOPO_MEMORY_LIMIT", str(int(planned / 0.8) - 1000))
     out = tmp_path / "out"
-    assert main(["pores", str(tmp_path / "mask.npy"), "--out", str(out)]) == 2
+    assert main(["pores", str(tmp_path / "mask.npy"), "--out", str(out),
+                 "--engine", ENGINE]) == 2
     err = capsys.readouterr().err.strip().splitlines()[-1]
     assert human(planned) in err and "--out-of-core" in err and "--crop" in err
     assert "Traceback" not in err and not out.exists()
