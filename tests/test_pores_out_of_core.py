@@ -11,9 +11,10 @@ import pytest
 import tifffile
 import zarr
 from scipy import ndimage
+from skimage.filters import threshold_otsu
 from skimage.measure import euler_number
 
-from voxtopo.errors import TooBigError
+from voxtopo.errors import InputError, TooBigError
 from voxtopo.jobs import pores as pores_job
 from voxtopo.porosity import analyse, analyse_chunked
 from voxtopo.porosity._chunked_edt import Feature, squared_distances
@@ -211,7 +212,6 @@ def test_a_worker_that_dies_gives_one_sentence_and_writes_nothing(tmp_path):
     (["--out-of-core", "--engine", "gudhi"], "--engine gudhi picks an in-memory engine"),
     (["--chunks", "4,4"], "--chunks sets the block shape"),
     (["--scheduler", "tcp://127.0.0.1:1"], "--scheduler is for the out-of-core path"),
-    (["--out-of-core", "--threshold", "otsu"], "Otsu's threshold needs the whole histogram"),
 ])
 def test_options_the_out_of_core_path_would_ignore_are_one_sentence_exit_2(tmp_path, capsys,
                                                                           extra, words):
@@ -286,3 +286,90 @@ def test_batch_settings_send_pores_out_of_core_onto_the_cluster(tmp_path, cluste
     # pores.csv holds 6 significant digits
     _same_table(analyse(mask).pores, pd.read_csv(folder / "pores.csv"), rtol=1e-5)
     assert not [p for p in (tmp_path / "out" / "scans").iterdir() if "scratch" in p.name]
+
+
+def _gray(shape, seed, dtype=np.uint16):
+    """A gray scan of a two-phase structure: dark pores near 12000, bright solid near
+    40000, with noise so that the histogram has thousands of distinct values."""
+    rng = np.random.default_rng(seed)
+    mean = np.where(_blobs(shape, seed), 12000.0, 40000.0)
+    gray = np.clip(mean + rng.normal(0.0, 6000.0, shape), 0, 65535)
+    return gray.astype(dtype)
+
+
+@pytest.mark.parametrize("chunks", [(6, 6, 6), (16, 4, 5), (5, 17, 3)])
+def test_out_of_core_otsu_threshold_equals_scikit_image_on_the_whole_uint16_scan(tmp_path,
+                                                                                  chunks):
+    gray = _gray((16, 17, 15), seed=11)
+    chunked = analyse_chunked(gray, threshold="otsu", chunks=chunks, scratch=tmp_path,
+                              scheduler="sync")
+    # outside source: scikit-image threshold_otsu (Otsu 1979) on the whole array
+    assert chunked.summary["threshold"] == float(threshold_otsu(gray))
+    assert chunked.summary["segmentation"]["method"] == "otsu"
+    memory = analyse(gray, threshold="otsu")
+    assert chunked.summary["segmentation"] == memory.summary["segmentation"]
+    for key in ("porosity", "euler_characteristic", "connected_porosity"):
+        assert chunked.summary[key] == memory.summary[key], key
+    for key in ("pores", "pores_at_border", "isolated_pores", "grains", "grains_at_border",
+                "voids"):
+        assert chunked.summary["counts"][key] == memory.summary["counts"][key], key
+    # porosity is the fraction of voxels at or below the threshold (common practice, no
+    # source)
+    assert chunked.summary["porosity"] == pytest.approx(
+        np.mean(gray <= threshold_otsu(gray)), abs=1e-12)
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_out_of_core_otsu_threshold_of_a_float_scan_equals_scikit_image(tmp_path, dtype):
+    gray = _gray((15, 14, 13), seed=5, dtype=dtype) / dtype(65535.0)
+    gray = gray.astype(dtype)
+    chunked = analyse_chunked(gray, threshold="otsu", chunks=(4, 7, 5), scratch=tmp_path,
+                              scheduler="sync")
+    # outside source: scikit-image threshold_otsu (Otsu 1979), 256 bins over [min, max]
+    assert chunked.summary["threshold"] == float(threshold_otsu(gray))
+    assert chunked.summary["porosity"] == analyse(gray, threshold="otsu").summary["porosity"]
+
+
+def test_out_of_core_otsu_counts_only_the_region_of_interest(tmp_path):
+    gray = _gray((14, 13, 12), seed=8)
+    grid = np.indices(gray.shape)
+    roi = ((grid[1] - 6) ** 2 + (grid[2] - 6) ** 2) <= 30          # a cylinder along z
+    gray[~roi] = 65535                                              # bright mounting around it
+    chunked = analyse_chunked(gray, threshold="otsu", roi=roi, chunks=(7, 5, 6),
+                              scratch=tmp_path, scheduler="sync")
+    # outside source: scikit-image threshold_otsu (Otsu 1979) of the sample's voxels alone
+    assert chunked.summary["threshold"] == float(threshold_otsu(gray[roi]))
+    assert chunked.summary["threshold"] != float(threshold_otsu(gray))
+    memory = analyse(gray, threshold="otsu", roi=roi)
+    assert chunked.summary["segmentation"] == memory.summary["segmentation"]
+    assert chunked.summary["porosity"] == memory.summary["porosity"]
+
+
+def test_out_of_core_otsu_of_a_constant_scan_is_one_sentence(tmp_path):
+    gray = np.full((8, 9, 7), 1234, np.uint16)
+    with pytest.raises(InputError, match="is constant") as err:
+        analyse_chunked(gray, threshold="otsu", chunks=(4, 4, 4), scratch=tmp_path,
+                        scheduler="sync")
+    assert "\n" not in str(err.value) and str(err.value).count(". ") == 0
+
+
+def test_cli_out_of_core_otsu_summary_equals_the_in_memory_run(tmp_path, cluster_address):
+    from voxtopo.cli import main
+
+    gray = _gray((18, 16, 14), seed=21)
+    path = tmp_path / "gray.npy"
+    np.save(path, gray)
+    common = ["--threshold", "otsu", "--spacing", "2", "--unit", "um"]
+    assert main(["pores", str(path), "--out", str(tmp_path / "memory"), *common]) == 0
+    assert main(["pores", str(path), "--out", str(tmp_path / "chunked"), *common,
+                 "--out-of-core", "--chunks", "7,9,5", "--scheduler", cluster_address]) == 0
+    memory, chunked = (json.loads((tmp_path / name / "summary.json").read_text())
+                       for name in ("memory", "chunked"))
+    # outside source: scikit-image threshold_otsu (Otsu 1979) on the whole array
+    assert chunked["threshold"] == memory["threshold"] == float(threshold_otsu(gray))
+    assert chunked["segmentation"] == memory["segmentation"]
+    assert chunked["threshold_method"] == "otsu"
+    assert chunked["porosity"] == memory["porosity"]
+    for key in ("pores", "pores_at_border", "isolated_pores", "grains", "grains_at_border",
+                "voids"):
+        assert chunked["counts"][key] == memory["counts"][key], key

@@ -75,10 +75,6 @@ class PoresOptions:
                 raise InputError(f"--engine {self.engine} picks an in-memory engine and would "
                                  f"be ignored with --out-of-core (the chunked union-find "
                                  f"computes the diagrams); leave it out.")
-            if self.threshold == "otsu":
-                raise InputError("Otsu's threshold needs the whole histogram in memory, so "
-                                 "--out-of-core takes a threshold value; give --threshold "
-                                 "VALUE, or drop --out-of-core.")
             if self.mask is not None:
                 raise InputError("With --out-of-core the scan itself is analysed and a gray "
                                  "scan under --mask would only be drawn in a plot; give the "

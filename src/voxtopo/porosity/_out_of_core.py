@@ -12,6 +12,9 @@ scratch folder. The stages, each a set of dask tasks over the store's chunks::
 
 Everything is exact and equal to the in-memory result where both fit:
 
+* Otsu's threshold (``threshold="otsu"``) from the histogram scikit-image makes of the whole
+  scan (or of the region of interest's voxels), counted chunk by chunk in two passes: the
+  range of the values, then the counts, summed in a tree;
 * the signed distance by the exact separable transform
   (:mod:`voxtopo.porosity._chunked_edt`);
 * pores and grains from the chunked dimension-0 diagrams
@@ -207,8 +210,8 @@ class Segmentation:
     def as_summary(self) -> dict:
         if self.method == "label":
             return {"method": "label", "label": int(self.pore_value), "threshold": None}
-        if self.method == "given":
-            return {"method": "given", "threshold": float(self.threshold),
+        if self.threshold is not None:
+            return {"method": self.method, "threshold": float(self.threshold),
                     "pores": "above the threshold" if self.pores_bright
                     else "at or below the threshold"}
         return {"method": "mask", "threshold": None}
@@ -345,8 +348,9 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
         every worker reads it, so it must be picklable for a distributed scheduler.
     scratch : Path
         An empty folder for the intermediate stores; the caller removes it.
-    threshold : float, optional
-        A value (Otsu's method needs the whole histogram and is refused here).
+    threshold : float or "otsu", optional
+        A value, or "otsu": Otsu's threshold of the histogram counted chunk by chunk (of the
+        region of interest's voxels only, with ``roi``), equal to the in-memory one.
     roi : array-like, optional
         The region of interest on the same grid (True or 1 marks the sample).
     chunks : tuple of int, optional
@@ -404,10 +408,10 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
 
     # ---- segmentation
     step("segmentation", 0.0)
-    segmentation = _segmentation(array, where, chunks, shape, threshold, pores_bright,
-                                 label, compute)
     if roi is not None:
         roi = _roi_view(roi, shape, chunks, compute)
+    segmentation = _segmentation(array, where, chunks, shape, threshold, pores_bright,
+                                 label, roi, compute)
     scratch = Path(scratch)
     scratch.mkdir(parents=True, exist_ok=True)
     phase = zarr.create_array(str(scratch / "phase.zarr"), shape=shape, chunks=chunks,
@@ -763,7 +767,8 @@ def betti_from_euler(diagram, levels, chi_curve) -> pd.DataFrame:
 
 
 # ------------------------------------------------------------------- segmentation
-def _segmentation(array, where, chunks, shape, threshold, pores_bright, label, compute):
+def _segmentation(array, where, chunks, shape, threshold, pores_bright, label, roi,
+                  compute):
     """Decide how pores are chosen, checking the values chunk by chunk as
     :func:`voxtopo.porosity._analysis.pore_mask` checks them in memory."""
     import dask
@@ -776,10 +781,8 @@ def _segmentation(array, where, chunks, shape, threshold, pores_bright, label, c
         raise InputError(f"pores_bright (CLI --pores-bright) only says which side of a "
                          f"threshold the pores are on, and no threshold was given for "
                          f"{where}; add a threshold or leave it out.")
-    if isinstance(threshold, str):
-        raise InputError(f"The out-of-core path takes a threshold value, not {threshold!r}: "
-                         f"Otsu's method needs the whole histogram; give a number, or drop "
-                         f"--out-of-core.")
+    if isinstance(threshold, str) and threshold != "otsu":
+        raise InputError(f"The threshold should be a number or 'otsu', got {threshold!r}.")
     if label is not None and not (np.issubdtype(dtype, np.integer) or dtype == bool):
         raise InputError(f"A pore label picks voxels of a label image, but the input "
                          f"{where} holds {dtype} values; give an integer label image or a "
@@ -798,6 +801,11 @@ def _segmentation(array, where, chunks, shape, threshold, pores_bright, label, c
             raise InputError(f"The input {where} is already a binary mask (two values only), "
                              f"where a threshold could only swap or keep its phases; leave "
                              f"out the threshold: its True (1) voxels are the pores.")
+        if threshold == "otsu":
+            within = "" if roi is None else " within the region of interest"
+            return Segmentation("otsu" + within, pores_bright=pores_bright,
+                                threshold=_otsu_chunked(array, roi, where, shape, chunks,
+                                                        compute))
         return Segmentation("given", threshold=float(threshold), pores_bright=pores_bright)
     if foreground is None:
         examples = sorted({v for f in facts for v in np.asarray(f["values"]).tolist()})[:3]
@@ -806,6 +814,79 @@ def _segmentation(array, where, chunks, shape, threshold, pores_bright, label, c
             f"give a threshold (a value, CLI --threshold) or the pore label of a label image "
             f"(CLI --label).")
     return Segmentation("mask", pore_value=foreground)
+
+
+#: Bins of scikit-image's Otsu histogram of float data (``threshold_otsu``'s ``nbins``).
+OTSU_FLOAT_BINS = 256
+
+#: How many partial histograms one task adds up when they are summed in a tree.
+HISTOGRAMS_PER_SUM = 8
+
+
+def _sample_values(array, roi, lo, hi) -> np.ndarray:
+    """The chunk's gray values, only those of the sample with a region of interest."""
+    box = _box(lo, hi)
+    values = np.asarray(array[box])
+    return values.ravel() if roi is None else values[np.asarray(roi[box]) == roi.foreground]
+
+
+def _value_range(array, roi, lo, hi):
+    """(smallest, largest) gray value of the chunk's sample, or None when it has none."""
+    values = _sample_values(array, roi, lo, hi)
+    return (values.min(), values.max()) if values.size else None
+
+
+def _otsu_counts(array, roi, lo, hi, low, high) -> np.ndarray:
+    """The chunk's share of the histogram scikit-image's ``threshold_otsu`` makes of the
+    whole scan: one bin per integer from ``low`` to ``high``, or OTSU_FLOAT_BINS equal bins
+    over [low, high] for floats (numpy assigns each value to its bin alone, so the chunks'
+    counts add up to the whole scan's)."""
+    values = _sample_values(array, roi, lo, hi)
+    if values.dtype.kind in "ui":
+        return np.bincount(values.astype(np.int64) - int(low),
+                           minlength=int(high) - int(low) + 1)
+    return np.histogram(values, bins=OTSU_FLOAT_BINS, range=(low, high))[0]
+
+
+def _sum_counts(*counts) -> np.ndarray:
+    return np.sum(counts, axis=0)
+
+
+def _otsu_chunked(array, roi, where, shape, chunks, compute) -> float:
+    """Otsu's threshold of the scan's (or the sample's) gray values, equal to
+    :func:`voxtopo.filtration.threshold` in memory: the range in one pass over the chunks,
+    the histogram in a second, then scikit-image's ``threshold_otsu`` on it."""
+    import dask
+    from skimage.filters import threshold_otsu
+
+    range_task = dask.delayed(_value_range, pure=False)
+    ranges = [r for r in compute([range_task(array, roi, lo, hi)
+                                  for lo, hi in blocks(shape, chunks)]) if r is not None]
+    if not ranges:
+        raise InputError(f"The region of interest {roi.source} holds no voxel of the sample "
+                         f"(it is all 0); True or 1 marks the sample.")
+    low, high = min(r[0] for r in ranges), max(r[1] for r in ranges)
+    if low == high:
+        raise InputError(f"{where} is constant ({low}); Otsu's method needs two phases to "
+                         f"separate.")
+    integer = np.dtype(array.dtype).kind in "ui"
+    bins = int(high) - int(low) + 1 if integer else OTSU_FLOAT_BINS
+    ensure_fits(bins * 8 * (HISTOGRAMS_PER_SUM + 1),
+                f"The histogram of {bins} gray values of {where} for Otsu's threshold",
+                "give a threshold value (--threshold VALUE)")
+    counts_task = dask.delayed(_otsu_counts, pure=False)
+    parts = [counts_task(array, roi, lo, hi, low, high) for lo, hi in blocks(shape, chunks)]
+    while len(parts) > 1:
+        parts = [dask.delayed(_sum_counts, pure=False)(*parts[i:i + HISTOGRAMS_PER_SUM])
+                 for i in range(0, len(parts), HISTOGRAMS_PER_SUM)]
+    counts = compute(parts)[0]
+    if integer:
+        centres = np.arange(int(low), int(high) + 1)
+    else:
+        # the bin edges numpy makes of the whole scan's range, as threshold_otsu gets them
+        edges = np.histogram(np.array([low, high]), bins=OTSU_FLOAT_BINS, range=(low, high))[1]
+        centres = (edges[:-1] + edges[1:]) / 2.0
+    return float(threshold_otsu(hist=(counts, centres)))
 
 
 def _foreground(dtype, facts):
