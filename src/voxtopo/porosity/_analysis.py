@@ -675,6 +675,129 @@ def _voxel_size_notes(unit: str, chi_solid: int, solid_pieces: int | None, ndim:
     return notes
 
 
+def pore_summary(*, notes: list, radius: dict, critical: dict, connected: dict, chi, neighbourhoods,
+                 solid_pieces, volume: float, functionals: dict, tables, loops_known: bool,
+                 robustness, segmentation: dict, roi_used: bool, voxels, unit: str, spacing,
+                 shape, min_persistence: float, timings: dict) -> dict:
+    """summary.json of a pore analysis, in memory or out of core, from its measurements.
+
+    Adds the percolation and voxel-size notes to ``notes`` (the summary holds that list).
+
+    Parameters
+    ----------
+    notes : list of str
+        Notes so far; extended in place.
+    radius, critical, connected : dict
+        Per axis name: percolation radius (None when not measured), critical throat
+        position, connected porosity.
+    chi, neighbourhoods : (int, int)
+        Euler characteristic and neighbourhood of the pore and solid phases.
+    solid_pieces : int or None
+        Number of connected pieces of the solid.
+    volume : float
+        Sample volume (area in 2D) in the scan's unit.
+    functionals : dict
+        Minkowski functionals of the pore phase.
+    tables : (DataFrame, DataFrame, DataFrame, DataFrame)
+        Pores, grains, loops and voids.
+    loops_known : bool
+        False when the loops (dimension-1 pairs of a volume) were not computed.
+    robustness : (float, float)
+        Boundary tolerance and the persistence above which a feature is robust.
+    segmentation : dict
+        How the pore phase was chosen (method, threshold, pores).
+    roi_used : bool
+        Whether a region of interest bounded the sample.
+    voxels : (int, int, int)
+        Pore voxels, sample voxels, voxels of the scan.
+    unit : str
+    spacing, shape : sequence
+    min_persistence : float
+    timings : dict
+        Seconds per stage.
+
+    Returns
+    -------
+    dict
+    """
+    pores, grains, loops, voids = tables
+    chi_pore, chi_solid = chi
+    n_pore, n_solid = neighbourhoods
+    delta, robust_above = robustness
+    pore_voxels, sample_voxels, scan_voxels = voxels
+    ndim = len(shape)
+    finest = min(spacing)
+    unresolved = [a for a, r in radius.items() if percolation_state(r, finest) == "not resolved"]
+    if unresolved:
+        notes.append(f"Percolation along {', '.join(unresolved)} is not resolved: the "
+                     f"narrowest passage has a radius below {RESOLVED_RADIUS_VOXELS} voxels "
+                     f"({RESOLVED_RADIUS_VOXELS * finest:.4g} {unit}), one or two voxels "
+                     f"wide, so the scan cannot tell whether it is open.")
+    unmeasured = [a for a, r in radius.items() if r is None]
+    if unmeasured:
+        notes.append(f"Percolation along {', '.join(unmeasured)} is not measured: the "
+                     f"sample (region of interest) does not reach both faces of the scan "
+                     f"along that axis.")
+    notes += _voxel_size_notes(unit, chi_solid, solid_pieces, ndim)
+    density_unit = f"1/voxel^{ndim} (no voxel size)" if unit == "px" else f"1/{unit}^{ndim}"
+    robust = _robust_counts(pores, grains, loops, voids)
+    if not loops_known:
+        robust["loops"] = None
+    return {
+        "porosity": float(pore_voxels / sample_voxels),
+        "connected_porosity": connected,
+        "percolates": {a: percolation_state(r, finest) for a, r in radius.items()},
+        "percolation_radius": {a: (r if r else None) for a, r in radius.items()},
+        "critical_throat": {a: (None if c is None else [float(v) for v in c])
+                            for a, c in critical.items()},
+        "euler_characteristic": {"pore": chi_pore, "solid": chi_solid,
+                                 "neighbourhood": {"pore": n_pore, "solid": n_solid}},
+        "connectivity_density": {"value": (1 - chi_solid) / volume, "phase": "solid",
+                                 "neighbourhood": n_solid, "unit": density_unit,
+                                 "solid_pieces": solid_pieces,
+                                 "formula": "(1 - euler_characteristic of the solid) / "
+                                            "sample volume (Odgaard & Gundersen 1993)"},
+        "minkowski": functionals,
+        "counts": {
+            "what": f"dimension-0 features (pores, grains) and pairs (loops, voids) of the "
+                    f"signed distance living longer than min_persistence = "
+                    f"{min_persistence:.4g} {unit}; loops and voids count the crossing "
+                    f"pairs (features of the segmented mask itself)"
+                    + ("" if loops_known else "; loops are not computed out of core (the "
+                                              "Betti curves give their number at each level)"),
+            "pores": int(len(pores)), "pores_at_border": int(pores["border"].sum()),
+            "isolated_pores": int(pores["isolated"].sum()),
+            "grains": int(len(grains)), "grains_at_border": int(grains["border"].sum()),
+            "loops": int((loops["kind"] == "crossing").sum()) if loops_known else None,
+            "voids": int((voids["kind"] == "crossing").sum()),
+            "loops_in_filtration": int(len(loops)) if loops_known else None,
+            "voids_in_filtration": int(len(voids)),
+            "robust": robust,
+        },
+        "robustness": {"method": sig.ROBUST_METHOD, "boundary_tolerance": delta,
+                       "unit": unit, "threshold": robust_above, "robust": robust,
+                       "essential_classes": "never die; always robust"},
+        "segmentation": segmentation,
+        "threshold": segmentation.get("threshold"),
+        "threshold_method": segmentation["method"],
+        "region_of_interest": ({"voxels": sample_voxels,
+                                "fraction_of_scan": sample_voxels / scan_voxels}
+                               if roi_used else None),
+        "unit": unit,
+        "voxel_size_known": unit != "px",
+        "spacing": list(spacing),
+        "shape": list(shape),
+        "sample_volume": volume,
+        "min_persistence": float(min_persistence),
+        "radius_convention": "distances between voxel centres (pore voxel to nearest solid "
+                             "voxel centre); no half-voxel correction; good to about one "
+                             "voxel",
+        "timings_seconds": {k: round(v, 4) for k, v in timings.items()},
+        "notes": notes,
+        "cautions": cautions(spacing, unit),
+    }
+
+
 def estimate(shape, dtype=np.uint8, *, neighbourhood: int | None = None,
              engine: str = "auto", roi: bool = False) -> int:
     """Bytes a pore analysis (:func:`analyse`, `voxtopo pores`) of a scan will need at its
@@ -995,74 +1118,14 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
         timings["integral_geometry"] = time.perf_counter() - clock
         step("integral geometry", 1.0)
 
-        unit = scan.unit
-        finest = min(spacing)
-        unresolved = [a for a, r in radius.items()
-                      if percolation_state(r, finest) == "not resolved"]
-        if unresolved:
-            notes.append(f"Percolation along {', '.join(unresolved)} is not resolved: the "
-                         f"narrowest passage has a radius below {RESOLVED_RADIUS_VOXELS} voxels "
-                         f"({RESOLVED_RADIUS_VOXELS * finest:.4g} {unit}), one or two voxels "
-                         f"wide, so the scan cannot tell whether it is open.")
-        unmeasured = [a for a, r in radius.items() if r is None]
-        if unmeasured:
-            notes.append(f"Percolation along {', '.join(unmeasured)} is not measured: the "
-                         f"sample (region of interest) does not reach both faces of the scan "
-                         f"along that axis.")
-        notes += _voxel_size_notes(unit, chi_solid, solid_pieces, scan.ndim)
-        density_unit = (f"1/voxel^{scan.ndim} (no voxel size)" if unit == "px"
-                        else f"1/{unit}^{scan.ndim}")
-        summary = {
-            "porosity": float(pore_voxels / sample_voxels),
-            "connected_porosity": connected,
-            "percolates": {a: percolation_state(r, finest) for a, r in radius.items()},
-            "percolation_radius": {a: (r if r else None) for a, r in radius.items()},
-            "critical_throat": {a: (None if c is None else [float(v) for v in c])
-                                for a, c in critical.items()},
-            "euler_characteristic": {"pore": chi_pore, "solid": chi_solid,
-                                     "neighbourhood": {"pore": n_pore, "solid": n_solid}},
-            "connectivity_density": {"value": (1 - chi_solid) / volume, "phase": "solid",
-                                     "neighbourhood": n_solid, "unit": density_unit,
-                                     "solid_pieces": solid_pieces,
-                                     "formula": "(1 - euler_characteristic of the solid) / "
-                                                "sample volume (Odgaard & Gundersen 1993)"},
-            "minkowski": functionals,
-            "counts": {
-                "what": f"dimension-0 features (pores, grains) and pairs (loops, voids) of the "
-                        f"signed distance living longer than min_persistence = "
-                        f"{min_persistence:.4g} {unit}; loops and voids count the crossing "
-                        f"pairs (features of the segmented mask itself)",
-                "pores": int(len(pores)), "pores_at_border": int(pores["border"].sum()),
-                "isolated_pores": int(pores["isolated"].sum()),
-                "grains": int(len(grains)), "grains_at_border": int(grains["border"].sum()),
-                "loops": int((loops["kind"] == "crossing").sum()),
-                "voids": int((voids["kind"] == "crossing").sum()),
-                "loops_in_filtration": int(len(loops)), "voids_in_filtration": int(len(voids)),
-                "robust": _robust_counts(pores, grains, loops, voids),
-            },
-            "robustness": {"method": sig.ROBUST_METHOD, "boundary_tolerance": delta,
-                           "unit": scan.unit, "threshold": robust_above,
-                           "robust": _robust_counts(pores, grains, loops, voids),
-                           "essential_classes": "never die; always robust"},
-            "segmentation": segmentation,
-            "threshold": segmentation.get("threshold"),
-            "threshold_method": segmentation["method"],
-            "region_of_interest": (None if sample is None else
-                                   {"voxels": sample_voxels, "fraction_of_scan":
-                                    sample_voxels / mask.size}),
-            "unit": unit,
-            "voxel_size_known": unit != "px",
-            "spacing": list(spacing),
-            "shape": list(mask.shape),
-            "sample_volume": volume,
-            "min_persistence": float(min_persistence),
-            "radius_convention": "distances between voxel centres (pore voxel to nearest solid "
-                                 "voxel centre); no half-voxel correction; good to about one "
-                                 "voxel",
-            "timings_seconds": {k: round(v, 4) for k, v in timings.items()},
-            "notes": notes,
-            "cautions": cautions(spacing, unit),
-        }
+        summary = pore_summary(
+            notes=notes, radius=radius, critical=critical, connected=connected,
+            chi=(chi_pore, chi_solid), neighbourhoods=(n_pore, n_solid),
+            solid_pieces=solid_pieces, volume=volume, functionals=functionals,
+            tables=(pores, grains, loops, voids), loops_known=True, robustness=(delta,
+            robust_above), segmentation=segmentation, roi_used=sample is not None,
+            voxels=(pore_voxels, sample_voxels, mask.size), unit=scan.unit, spacing=spacing,
+            shape=mask.shape, min_persistence=min_persistence, timings=timings)
         return PoreAnalysis(pores=pores, grains=grains, loops=loops, voids=voids, summary=summary,
                             diagram=diagram, solid_diagram=solid_diagram, mask=mask,
                             distance=distance, critical_throats=critical, sample=sample,

@@ -57,11 +57,10 @@ from ..errors import InputError, TooBigError, VoxtopoError
 from ..memory import BUDGET_FRACTION, ensure_fits, human
 from ..scan import Scan
 from . import _chunked_edt, _chunked_pieces, _local_counts
-from ._analysis import (COMPLEMENT, RESOLVED_RADIUS_VOXELS, SURFACE_SMOOTHING_VOXELS,
-                        PoreAnalysis, _axes, _check_extent, _coordinates, _flat, _loop_table,
-                        _phase_notes, _robust_counts, _rows_of_dimension, _void_table,
-                        _voxel_size_notes, _with_robust, ball_outside, cautions, largest_first,
-                        percolation_state)
+from ._analysis import (COMPLEMENT, SURFACE_SMOOTHING_VOXELS, PoreAnalysis, _axes,
+                        _check_extent, _coordinates, _flat, _loop_table, _phase_notes,
+                        _rows_of_dimension, _void_table, _with_robust, ball_outside,
+                        largest_first, pore_summary)
 
 #: phase codes of the phase store: bit 0 is the segmented pore mask, bit 1 the sample
 OUTSIDE, OUTSIDE_PORE, SOLID, PORE = 0, 1, 2, 3
@@ -528,84 +527,23 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
     timings["integral_geometry"] = time.perf_counter() - clock
     step("integral geometry", 1.0)
 
-    finest = min(spacing)
-    unresolved = [a for a, r in radius.items() if percolation_state(r, finest) == "not resolved"]
-    if unresolved:
-        notes.append(f"Percolation along {', '.join(unresolved)} is not resolved: the "
-                     f"narrowest passage has a radius below {RESOLVED_RADIUS_VOXELS} voxels "
-                     f"({RESOLVED_RADIUS_VOXELS * finest:.4g} {unit}), one or two voxels "
-                     f"wide, so the scan cannot tell whether it is open.")
-    unmeasured = [a for a, r in radius.items() if r is None]
-    if unmeasured:
-        notes.append(f"Percolation along {', '.join(unmeasured)} is not measured: the "
-                     f"sample (region of interest) does not reach both faces of the scan "
-                     f"along that axis.")
-    notes += _voxel_size_notes(unit, chi_solid, len(solid_pieces.sizes), ndim)
+    summary = pore_summary(
+        notes=notes, radius=radius, critical=critical, connected=connected,
+        chi=(chi_pore, chi_solid), neighbourhoods=(n_pore, n_solid),
+        solid_pieces=len(solid_pieces.sizes), volume=volume, functionals=functionals,
+        tables=(pores, grains, loops, voids), loops_known=ndim == 2,
+        robustness=(delta, robust_above), segmentation=segmentation.as_summary(),
+        roi_used=roi is not None, voxels=(pore_voxels, sample_voxels, total), unit=unit,
+        spacing=spacing, shape=shape, min_persistence=min_persistence, timings=timings)
     notes.append(f"Computed out of core in {'x'.join(map(str, chunks))} chunks: "
                  f"{NOT_COMPUTED}.")
-    density_unit = (f"1/voxel^{ndim} (no voxel size)" if unit == "px" else f"1/{unit}^{ndim}")
-    loops_known = ndim == 2
-    robust = _robust_counts(pores, grains, loops, voids)
-    if not loops_known:
-        robust["loops"] = None
-    summary = {
-        "porosity": float(pore_voxels / sample_voxels),
-        "connected_porosity": connected,
-        "percolates": {a: percolation_state(r, finest) for a, r in radius.items()},
-        "percolation_radius": {a: (r if r else None) for a, r in radius.items()},
-        "critical_throat": {a: (None if c is None else [float(v) for v in c])
-                            for a, c in critical.items()},
-        "euler_characteristic": {"pore": chi_pore, "solid": chi_solid,
-                                 "neighbourhood": {"pore": n_pore, "solid": n_solid}},
-        "connectivity_density": {"value": (1 - chi_solid) / volume, "phase": "solid",
-                                 "neighbourhood": n_solid, "unit": density_unit,
-                                 "solid_pieces": len(solid_pieces.sizes),
-                                 "formula": "(1 - euler_characteristic of the solid) / "
-                                            "sample volume (Odgaard & Gundersen 1993)"},
-        "minkowski": functionals,
-        "counts": {
-            "what": f"dimension-0 features (pores, grains) and pairs (loops, voids) of the "
-                    f"signed distance living longer than min_persistence = "
-                    f"{min_persistence:.4g} {unit}; loops and voids count the crossing "
-                    f"pairs (features of the segmented mask itself)"
-                    + ("" if loops_known else "; loops are not computed out of core (the "
-                                              "Betti curves give their number at each level)"),
-            "pores": len(pores), "pores_at_border": int(pores["border"].sum()),
-            "isolated_pores": int(pores["isolated"].sum()),
-            "grains": len(grains), "grains_at_border": int(grains["border"].sum()),
-            "loops": int((loops["kind"] == "crossing").sum()) if loops_known else None,
-            "voids": int((voids["kind"] == "crossing").sum()),
-            "loops_in_filtration": len(loops) if loops_known else None,
-            "voids_in_filtration": len(voids),
-            "robust": robust,
-        },
-        "robustness": {"method": sig.ROBUST_METHOD, "boundary_tolerance": delta,
-                       "unit": unit, "threshold": robust_above, "robust": robust,
-                       "essential_classes": "never die; always robust"},
-        "segmentation": segmentation.as_summary(),
-        "threshold": segmentation.as_summary().get("threshold"),
-        "threshold_method": segmentation.as_summary()["method"],
-        "region_of_interest": (None if roi is None else
-                               {"voxels": sample_voxels,
-                                "fraction_of_scan": sample_voxels / total}),
-        "unit": unit,
-        "voxel_size_known": unit != "px",
-        "spacing": list(spacing),
-        "shape": list(shape),
-        "sample_volume": volume,
-        "min_persistence": float(min_persistence),
-        "radius_convention": "distances between voxel centres (pore voxel to nearest solid "
-                             "voxel centre); no half-voxel correction; good to about one "
-                             "voxel",
+    summary.update({
         "out_of_core": {"chunks": list(chunks), "planned_bytes_per_task": planned,
                         "not_computed": NOT_COMPUTED,
                         "betti_curves": "b0 and b(d-1) from the chunked sweeps, the Euler "
                                         "characteristic from local counts, b1 = b0 + b2 - "
                                         "chi (Euler-Poincare): exact at every level"},
-        "timings_seconds": {k: round(v, 4) for k, v in timings.items()},
-        "notes": notes,
-        "cautions": cautions(spacing, unit),
-    }
+    })
     return PoreAnalysis(pores=pores, grains=grains, loops=loops, voids=voids, summary=summary,
                         diagram=diagram, solid_diagram=solid_diagram,
                         mask=MaskView(phase), distance=None, critical_throats=critical,
