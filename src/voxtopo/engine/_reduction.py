@@ -141,11 +141,71 @@ _PROGRESS_STEPS = 10
 PHASE = "dimension 1"
 
 
+# --------------------------------------------------------------------------- ranks
+#
+# ``ranks`` is a tuple ``(levels, offset, sign, bits)`` read by the kernels below. With
+# ``bits >= 0`` the ranks are *composed*: the rank of voxel ``v`` is
+# ``(sign * levels[v] + offset) << bits | v``, where ``levels`` are the integer values
+# themselves, so no array of ranks or of the sorted order is held (8- and 16-bit scans).
+# Composed ranks are not consecutive, but they order the voxels exactly as ``(value, flat
+# index)`` does, and comparisons are all the reduction makes of them; a voxel's flag word
+# then sits at the voxel itself. With ``bits == -1`` ``levels`` holds the ranks
+# 0 .. n - 1 (any other values) and the flag words sit at the ranks.
+
+
+@njit(cache=True, inline="always")
+def _rank(ranks, v):
+    levels, offset, sign, bits = ranks
+    level = sign * np.int64(levels[v]) + offset
+    if bits < 0:
+        return level
+    return (level << bits) | v
+
+
+@njit(cache=True, inline="always")
+def _voxel(ranks, order, r):
+    """The voxel of rank ``r``."""
+    bits = ranks[3]
+    if bits < 0:
+        return np.int64(order[r])
+    return r & ((np.int64(1) << bits) - 1)
+
+
+@njit(cache=True, inline="always")
+def _word_at(ranks, r):
+    """Position of the flag word of the voxel of rank ``r``."""
+    bits = ranks[3]
+    if bits < 0:
+        return r
+    return r & ((np.int64(1) << bits) - 1)
+
+
+def composed_ranks(flat: np.ndarray, superlevel: bool):
+    """``ranks`` composed from integer values (see above), or None when the values are
+    not integers or their levels and the voxel indices do not fit in a cell key."""
+    if flat.dtype.kind not in "ui" or flat.size == 0:
+        return None
+    low, high = int(flat.min()), int(flat.max())
+    bits = max(1, (flat.size - 1).bit_length())
+    if (high - low).bit_length() + bits + CODE_BITS > 62:
+        return None
+    offset, sign = (high, -1) if superlevel else (-low, 1)
+    return flat, np.int64(offset), np.int64(sign), np.int64(bits)
+
+
+@njit(cache=True, nogil=True)
+def _ranks_of(ranks, voxels):
+    out = np.empty(voxels.size, dtype=np.int64)
+    for j in range(voxels.size):
+        out[j] = _rank(ranks, np.int64(voxels[j]))
+    return out
+
+
 # --------------------------------------------------------------------------- cells
 
 
 @njit(cache=True, inline="always")
-def _cell_key(c0, c1, c2, rank, n0, n1, n2, vertex):
+def _cell_key(c0, c1, c2, ranks, n0, n1, n2, vertex):
     """Key ``32 * rank + code`` of the cell at doubled-grid coordinates ``c``."""
     b0 = b1 = b2 = 0
     if vertex:
@@ -154,7 +214,7 @@ def _cell_key(c0, c1, c2, rank, n0, n1, n2, vertex):
             for i1 in range(c1 >> 1, ((c1 + 1) >> 1) + 1):
                 base = (i0 * n1 + i1) * n2
                 for i2 in range(c2 >> 1, ((c2 + 1) >> 1) + 1):
-                    r = np.int64(rank[base + i2])
+                    r = _rank(ranks, base + i2)
                     if r > best:
                         best = r
                         b0, b1, b2 = i0, i1, i2
@@ -165,7 +225,7 @@ def _cell_key(c0, c1, c2, rank, n0, n1, n2, vertex):
             for i1 in range(max((c1 - 1) >> 1, 0), min(c1 >> 1, n1 - 1) + 1):
                 base = (i0 * n1 + i1) * n2
                 for i2 in range(max((c2 - 1) >> 1, 0), min(c2 >> 1, n2 - 1) + 1):
-                    r = np.int64(rank[base + i2])
+                    r = _rank(ranks, base + i2)
                     if r < best:
                         best = r
                         b0, b1, b2 = i0, i1, i2
@@ -186,7 +246,7 @@ def _own_square_code(code):
 
 
 @njit(cache=True, inline="always")
-def _earliest_own_coface(i0, i1, i2, code, r, rank, n0, n1, n2, vertex):
+def _earliest_own_coface(i0, i1, i2, code, r, ranks, n0, n1, n2, vertex):
     """Key of the earliest square around an edge that is voxel ``i``'s own (rank ``r``).
 
     Voxel construction: the other cubes around the edge come later, so the two faces of
@@ -210,8 +270,8 @@ def _earliest_own_coface(i0, i1, i2, code, r, rank, n0, n1, n2, vertex):
         for t in (-1, 1):
             if position + t < 0 or position + t >= extent:
                 continue
-            side = np.int64(rank[here + t * stride])
-            far = np.int64(rank[other + t * stride])
+            side = _rank(ranks, here + t * stride)
+            far = _rank(ranks, other + t * stride)
             if side < r and far < r:
                 key = (np.int64(r) << CODE_BITS) | (code + weight * t)
             elif side > far:
@@ -224,9 +284,9 @@ def _earliest_own_coface(i0, i1, i2, code, r, rank, n0, n1, n2, vertex):
 
 
 @njit(cache=True, inline="always")
-def _cell_coords(key, order, n1, n2, vertex):
+def _cell_coords(key, order, ranks, n1, n2, vertex):
     """Doubled-grid coordinates of the cell with ``key``."""
-    v = np.int64(order[key >> CODE_BITS])
+    v = _voxel(ranks, order, key >> CODE_BITS)
     code = key & _CODE_MASK
     i2 = v % n2
     i1 = (v // n2) % n1
@@ -237,64 +297,64 @@ def _cell_coords(key, order, n1, n2, vertex):
 
 
 @njit(cache=True, inline="always")
-def _marked(key, words, square_bit):
+def _marked(key, words, ranks, square_bit):
     """Whether the square ``key`` is already the pivot of a column."""
-    return (words[key >> CODE_BITS] >> square_bit[key & _CODE_MASK]) & 1
+    return (words[_word_at(ranks, key >> CODE_BITS)] >> square_bit[key & _CODE_MASK]) & 1
 
 
 @njit(cache=True, inline="always")
-def _coboundary_at(c0, c1, c2, rank, n0, n1, n2, vertex, out):
+def _coboundary_at(c0, c1, c2, ranks, n0, n1, n2, vertex, out):
     """Write the keys of the squares around the edge at ``c`` into ``out``; return how many."""
     e0, e1, e2 = (2 * n0 - 1, 2 * n1 - 1, 2 * n2 - 1) if vertex else (2 * n0 + 1, 2 * n1 + 1,
                                                                       2 * n2 + 1)
     count = 0
     if c0 % 2 == 0:
         if c0 > 0:
-            out[count] = _cell_key(c0 - 1, c1, c2, rank, n0, n1, n2, vertex)
+            out[count] = _cell_key(c0 - 1, c1, c2, ranks, n0, n1, n2, vertex)
             count += 1
         if c0 < e0 - 1:
-            out[count] = _cell_key(c0 + 1, c1, c2, rank, n0, n1, n2, vertex)
+            out[count] = _cell_key(c0 + 1, c1, c2, ranks, n0, n1, n2, vertex)
             count += 1
     if c1 % 2 == 0:
         if c1 > 0:
-            out[count] = _cell_key(c0, c1 - 1, c2, rank, n0, n1, n2, vertex)
+            out[count] = _cell_key(c0, c1 - 1, c2, ranks, n0, n1, n2, vertex)
             count += 1
         if c1 < e1 - 1:
-            out[count] = _cell_key(c0, c1 + 1, c2, rank, n0, n1, n2, vertex)
+            out[count] = _cell_key(c0, c1 + 1, c2, ranks, n0, n1, n2, vertex)
             count += 1
     if c2 % 2 == 0:
         if c2 > 0:
-            out[count] = _cell_key(c0, c1, c2 - 1, rank, n0, n1, n2, vertex)
+            out[count] = _cell_key(c0, c1, c2 - 1, ranks, n0, n1, n2, vertex)
             count += 1
         if c2 < e2 - 1:
-            out[count] = _cell_key(c0, c1, c2 + 1, rank, n0, n1, n2, vertex)
+            out[count] = _cell_key(c0, c1, c2 + 1, ranks, n0, n1, n2, vertex)
             count += 1
     return count
 
 
 @njit(cache=True, inline="always")
-def _coboundary(key, order, rank, n0, n1, n2, vertex, out):
+def _coboundary(key, order, ranks, n0, n1, n2, vertex, out):
     """Write the keys of the squares around edge ``key`` into ``out``; return how many."""
-    c0, c1, c2 = _cell_coords(key, order, n1, n2, vertex)
-    return _coboundary_at(c0, c1, c2, rank, n0, n1, n2, vertex, out)
+    c0, c1, c2 = _cell_coords(key, order, ranks, n1, n2, vertex)
+    return _coboundary_at(c0, c1, c2, ranks, n0, n1, n2, vertex, out)
 
 
 @njit(cache=True, inline="always")
-def _boundary(key, order, rank, n0, n1, n2, vertex, out):
+def _boundary(key, order, ranks, n0, n1, n2, vertex, out):
     """Write the keys of the four edges of square ``key`` into ``out``; return 4."""
-    c0, c1, c2 = _cell_coords(key, order, n1, n2, vertex)
+    c0, c1, c2 = _cell_coords(key, order, ranks, n1, n2, vertex)
     count = 0
     if c0 % 2 == 1:
-        out[count] = _cell_key(c0 - 1, c1, c2, rank, n0, n1, n2, vertex)
-        out[count + 1] = _cell_key(c0 + 1, c1, c2, rank, n0, n1, n2, vertex)
+        out[count] = _cell_key(c0 - 1, c1, c2, ranks, n0, n1, n2, vertex)
+        out[count + 1] = _cell_key(c0 + 1, c1, c2, ranks, n0, n1, n2, vertex)
         count += 2
     if c1 % 2 == 1:
-        out[count] = _cell_key(c0, c1 - 1, c2, rank, n0, n1, n2, vertex)
-        out[count + 1] = _cell_key(c0, c1 + 1, c2, rank, n0, n1, n2, vertex)
+        out[count] = _cell_key(c0, c1 - 1, c2, ranks, n0, n1, n2, vertex)
+        out[count + 1] = _cell_key(c0, c1 + 1, c2, ranks, n0, n1, n2, vertex)
         count += 2
     if c2 % 2 == 1:
-        out[count] = _cell_key(c0, c1, c2 - 1, rank, n0, n1, n2, vertex)
-        out[count + 1] = _cell_key(c0, c1, c2 + 1, rank, n0, n1, n2, vertex)
+        out[count] = _cell_key(c0, c1, c2 - 1, ranks, n0, n1, n2, vertex)
+        out[count + 1] = _cell_key(c0, c1, c2 + 1, ranks, n0, n1, n2, vertex)
         count += 2
     return count
 
@@ -406,6 +466,15 @@ def _order_of_ranks(rank, order):
 
 
 @njit(cache=True, inline="always")
+def _rises(ranks, starts, r, p):
+    """Whether the voxel of rank ``p`` (> ``r``) has a larger value than that of ``r``."""
+    bits = ranks[3]
+    if bits >= 0:
+        return (p >> bits) > (r >> bits)
+    return _value_rises(starts, r, p)
+
+
+@njit(cache=True, inline="always")
 def _value_rises(starts, r, p):
     """Whether the voxel of rank ``p`` (> ``r``) has a larger value than the voxel of rank
     ``r``: a distinct value starts after ``r`` and no later than ``p``."""
@@ -483,27 +552,27 @@ def _flagged(words, bit, found):
 
 
 @njit(cache=True, nogil=True)
-def _flagged_voxels(rank, words, bit, found):
+def _flagged_voxels(ranks, words, bit, found):
     """:func:`_flagged` for voxels in memory order, whose words sit at their ranks."""
     count = 0
-    for v in range(rank.size):
-        if (words[rank[v]] >> bit) & 1:
+    for v in range(words.size):
+        if (words[_word_at(ranks, _rank(ranks, v))] >> bit) & 1:
             if found.size:
                 found[count] = v
             count += 1
     return count
 
 
-def _positions_flagged(words, bit, index_type, rank=None):
-    """Positions (ranks; with ``rank``: voxels) whose word has ``bit`` set, without an
+def _positions_flagged(words, bit, index_type, ranks=None):
+    """Positions (ranks; with ``ranks``: voxels) whose word has ``bit`` set, without an
     array as long as the volume."""
     empty = np.empty(0, dtype=index_type)
-    if rank is None:
+    if ranks is None:
         found = np.empty(_flagged(words, bit, empty), dtype=index_type)
         _flagged(words, bit, found)
     else:
-        found = np.empty(_flagged_voxels(rank, words, bit, empty), dtype=index_type)
-        _flagged_voxels(rank, words, bit, found)
+        found = np.empty(_flagged_voxels(ranks, words, bit, empty), dtype=index_type)
+        _flagged_voxels(ranks, words, bit, found)
     return found
 
 
@@ -596,7 +665,7 @@ def _block_offsets(n1, n2):
 
 
 @njit(cache=True, nogil=True)
-def _own_edges(rank, n0, n1, n2, vertex, later, words, parent, offsets, positions, memo,
+def _own_edges(ranks, n0, n1, n2, vertex, later, words, parent, offsets, positions, memo,
                first_layer, stop_layer):
     """One pass in memory order that sets up the clearing.
 
@@ -626,18 +695,19 @@ def _own_edges(rank, n0, n1, n2, vertex, later, words, parent, offsets, position
         for i1 in range(n1):
             for i2 in range(n2):
                 v = (i0 * n1 + i1) * n2 + i2
-                r = rank[v]
+                r = _rank(ranks, v)
+                slot = _word_at(ranks, r)
                 # bit p: the block position p holds a voxel that comes earlier
                 earlier = np.int64(0)
                 if 0 < i0 < n0 - 1 and 0 < i1 < n1 - 1 and 0 < i2 < n2 - 1:
                     for t in range(26):
-                        earlier |= np.int64(rank[v + offsets[t]] < r) << positions[t]
+                        earlier |= np.int64(_rank(ranks, v + offsets[t]) < r) << positions[t]
                 else:
                     for t in range(26):
                         p = positions[t]
                         j0, j1, j2 = i0 + p // 9 - 1, i1 + (p // 3) % 3 - 1, i2 + p % 3 - 1
                         if (0 <= j0 < n0 and 0 <= j1 < n1 and 0 <= j2 < n2
-                                and rank[v + offsets[t]] < r):
+                                and _rank(ranks, v + offsets[t]) < r):
                             earlier |= np.int64(1) << p
                 bits = np.uint32(0)
                 if vertex:
@@ -673,7 +743,7 @@ def _own_edges(rank, n0, n1, n2, vertex, later, words, parent, offsets, position
                         code = later[first, 0]
                         parent[v] = v + ((code // 9 - 1) * n1 + (code // 3) % 3 - 1) * n2 \
                             + code % 3 - 1
-                    words[r] = bits
+                    words[slot] = bits
                     continue
                 for k in range(12):
                     if not earlier & _EDGE_MASK_VOXEL[k]:
@@ -690,9 +760,9 @@ def _own_edges(rank, n0, n1, n2, vertex, later, words, parent, offsets, position
                     outcome = _clear_in_cube(fresh, bits, local)
                     memo[key] = outcome
                 if outcome >> np.uint32(_IRREGULAR_BIT):
-                    words[r] = bits | (np.uint32(1) << np.uint32(_IRREGULAR_BIT))
+                    words[slot] = bits | (np.uint32(1) << np.uint32(_IRREGULAR_BIT))
                     continue
-                words[r] = outcome & np.uint32(0xFFF)
+                words[slot] = outcome & np.uint32(0xFFF)
                 anchor = np.int64(outcome >> np.uint32(12)) & 15
                 if anchor == 8:  # no earlier corner: corner 0 is the new component's root
                     anchor = 0
@@ -760,7 +830,7 @@ def _find(parent, x):
 
 
 @njit(cache=True, nogil=True)
-def _death_edges(undecided, rank, n0, n1, n2, vertex, edge_codes, words, parent):
+def _death_edges(undecided, ranks, n0, n1, n2, vertex, edge_codes, words, parent):
     """Clear in ``words`` every own edge of the voxels ``undecided`` (flat indices in rank
     order; those the local clearing left undecided) that joins two components when the
     edges are added in filtration order: these are the columns that clearing skips.
@@ -775,11 +845,11 @@ def _death_edges(undecided, rank, n0, n1, n2, vertex, edge_codes, words, parent)
     shift = 0 if vertex else 1
     for j in range(undecided.size):
         v = np.int64(undecided[j])
-        r = rank[v]
+        slot = _word_at(ranks, _rank(ranks, v))
         i2 = v % n2
         i1 = (v // n2) % n1
         i0 = v // (n1 * n2)
-        bits = words[r]
+        bits = words[slot]
         for k in range(edge_codes.size):
             if not (bits >> k) & 1:
                 continue
@@ -804,8 +874,8 @@ def _death_edges(undecided, rank, n0, n1, n2, vertex, edge_codes, words, parent)
                     ra, rb = rb, ra
                 parent[ra] += parent[rb]
                 parent[rb] = ra
-                words[r] &= ~np.uint32(1 << k)
-        words[r] &= ~(np.uint32(1) << np.uint32(_IRREGULAR_BIT))
+                words[slot] &= ~np.uint32(1 << k)
+        words[slot] &= ~(np.uint32(1) << np.uint32(_IRREGULAR_BIT))
 
 
 @njit(cache=True, nogil=True)
@@ -943,7 +1013,7 @@ def _heap_pivot(heap, size):
 
 
 @njit(cache=True, inline="always")
-def _unreduced_owner(square, edge, order, rank, words, edge_bit, n0, n1, n2, vertex, faces):
+def _unreduced_owner(square, edge, order, ranks, words, edge_bit, n0, n1, n2, vertex, faces):
     """Edge visited before ``edge`` (a larger key) whose coboundary, unreduced, has
     ``square`` as pivot, or -1. The first such edge visited (largest key) is the owner.
 
@@ -954,7 +1024,7 @@ def _unreduced_owner(square, edge, order, rank, words, edge_bit, n0, n1, n2, ver
     if not vertex:
         r = square >> CODE_BITS
         code = square & _CODE_MASK
-        flags = words[r]
+        flags = words[_word_at(ranks, r)]
         owner = np.int64(-1)
         offset = (code // 9 - 1, (code // 3) % 3 - 1, code % 3 - 1)
         for axis in range(3):
@@ -971,26 +1041,26 @@ def _unreduced_owner(square, edge, order, rank, words, edge_bit, n0, n1, n2, ver
                 if _own_square_code(face) == code:
                     owner = key
         return owner
-    _boundary(square, order, rank, n0, n1, n2, vertex, faces)
+    _boundary(square, order, ranks, n0, n1, n2, vertex, faces)
     owner = np.int64(-1)
     for j in range(4):
         face = faces[j]
         if face <= edge or face <= owner:
             continue
-        if not (words[face >> CODE_BITS] >> edge_bit[face & _CODE_MASK]) & 1:
+        if not (words[_word_at(ranks, face >> CODE_BITS)] >> edge_bit[face & _CODE_MASK]) & 1:
             continue
-        v = np.int64(order[face >> CODE_BITS])
+        v = _voxel(ranks, order, face >> CODE_BITS)
         i2 = v % n2
         i1 = (v // n2) % n1
         i0 = v // (n1 * n2)
-        if _earliest_own_coface(i0, i1, i2, face & _CODE_MASK, face >> CODE_BITS, rank, n0, n1,
+        if _earliest_own_coface(i0, i1, i2, face & _CODE_MASK, face >> CODE_BITS, ranks, n0, n1,
                                 n2, vertex) == square:
             owner = face
     return owner
 
 
 @njit(cache=True, nogil=True)
-def _reduce_ranks(r_high, r_low, listed, use_list, starts, order, rank, words, n0, n1, n2,
+def _reduce_ranks(r_high, r_low, listed, use_list, starts, order, ranks, words, n0, n1, n2,
                   vertex, edge_codes, edge_bit, square_bit, table_keys, table_vals, pool,
                   counters, births, deaths):
     """Visit the edges of the voxels of rank ``r_high`` down to ``r_low`` (inclusive),
@@ -1009,21 +1079,21 @@ def _reduce_ranks(r_high, r_low, listed, use_list, starts, order, rank, words, n
     heap = np.empty(64, dtype=np.int64)
     for step in range(r_high, r_low - 1, -1):
         r = np.int64(listed[step]) if use_list else np.int64(step)
-        v = np.int64(order[r])
+        v = _voxel(ranks, order, r)
         i2 = v % n2
         i1 = (v // n2) % n1
         i0 = v // (n1 * n2)
-        bits = words[r]
+        bits = words[_word_at(ranks, r)]
         for k in range(edge_codes.size - 1, -1, -1):
             if not (bits >> k) & 1:
                 continue
             code = edge_codes[k]
             edge = (np.int64(r) << CODE_BITS) | code
-            pivot = _earliest_own_coface(i0, i1, i2, code, r, rank, n0, n1, n2, vertex)
+            pivot = _earliest_own_coface(i0, i1, i2, code, r, ranks, n0, n1, n2, vertex)
             if pivot < 0:
                 counters[5] += 1
                 continue
-            if not _marked(pivot, words, square_bit):
+            if not _marked(pivot, words, ranks, square_bit):
                 counters[4] += 1
             else:
                 counters[3] += 1
@@ -1031,7 +1101,7 @@ def _reduce_ranks(r_high, r_low, listed, use_list, starts, order, rank, words, n
                 count = _coboundary_at(2 * i0 + shift + code // 9 - 1,
                                        2 * i1 + shift + (code // 3) % 3 - 1,
                                        2 * i2 + shift + code % 3 - 1,
-                                       rank, n0, n1, n2, vertex, cofaces)
+                                       ranks, n0, n1, n2, vertex, cofaces)
                 for j in range(count):
                     heap, size = _heap_push(heap, size, cofaces[j])
                 counters[6] += count
@@ -1039,7 +1109,7 @@ def _reduce_ranks(r_high, r_low, listed, use_list, starts, order, rank, words, n
                     # voxel construction: a bit next to the square's mark says whether a
                     # reduced column is stored for it, which spares most table lookups
                     stored = -1
-                    if vertex or (words[pivot >> CODE_BITS] >> np.uint32(
+                    if vertex or (words[_word_at(ranks, pivot >> CODE_BITS)] >> np.uint32(
                             square_bit[pivot & _CODE_MASK] + _STORED_SHIFT)) & 1:
                         stored = _table_find(table_keys, table_vals, pivot)
                     if stored >= 0:
@@ -1047,16 +1117,16 @@ def _reduce_ranks(r_high, r_low, listed, use_list, starts, order, rank, words, n
                             heap, size = _heap_push(heap, size, pool[stored + 1 + j])
                         counters[6] += pool[stored]
                     else:
-                        owner = _unreduced_owner(pivot, edge, order, rank, words, edge_bit,
+                        owner = _unreduced_owner(pivot, edge, order, ranks, words, edge_bit,
                                                  n0, n1, n2, vertex, faces)
                         if owner < 0:
                             raise RuntimeError("a pivot square has no owner column")
-                        count = _coboundary(owner, order, rank, n0, n1, n2, vertex, cofaces)
+                        count = _coboundary(owner, order, ranks, n0, n1, n2, vertex, cofaces)
                         for j in range(count):
                             heap, size = _heap_push(heap, size, cofaces[j])
                         counters[6] += count
                     pivot, heap, size = _heap_pivot(heap, size)
-                    if pivot < 0 or not _marked(pivot, words, square_bit):
+                    if pivot < 0 or not _marked(pivot, words, ranks, square_bit):
                         break
                 if pivot < 0:
                     counters[5] += 1
@@ -1086,12 +1156,12 @@ def _reduce_ranks(r_high, r_low, listed, use_list, starts, order, rank, words, n
                 _table_put(table_keys, table_vals, pivot, start)
                 counters[0] += 1
                 if not vertex:
-                    words[pivot >> CODE_BITS] |= np.uint32(1) << np.uint32(
+                    words[_word_at(ranks, pivot >> CODE_BITS)] |= np.uint32(1) << np.uint32(
                         square_bit[pivot & _CODE_MASK] + _STORED_SHIFT)
-            words[pivot >> CODE_BITS] |= np.uint32(1) << np.uint32(
+            words[_word_at(ranks, pivot >> CODE_BITS)] |= np.uint32(1) << np.uint32(
                 square_bit[pivot & _CODE_MASK])
             # equal ranks are a zero-persistence pair; only others need the (random) read
-            if (pivot >> CODE_BITS) != r and _value_rises(starts, r, pivot >> CODE_BITS):
+            if (pivot >> CODE_BITS) != r and _rises(ranks, starts, r, pivot >> CODE_BITS):
                 n = counters[2]
                 if n == births.size:
                     bigger_b = np.empty(births.size * 2, dtype=np.int64)
@@ -1100,7 +1170,7 @@ def _reduce_ranks(r_high, r_low, listed, use_list, starts, order, rank, words, n
                     bigger_d[:n] = deaths[:n]
                     births, deaths = bigger_b, bigger_d
                 births[n] = v
-                deaths[n] = order[pivot >> CODE_BITS]
+                deaths[n] = _voxel(ranks, order, pivot >> CODE_BITS)
                 counters[2] = n + 1
     return table_keys, table_vals, pool, births, deaths
 
@@ -1215,9 +1285,16 @@ def reduce_dim1(values, construction, progress=None, *, superlevel=False, thread
     voxels = values.size
     if progress is not None:
         progress(PHASE, 0.0)
-    rank, starts = voxel_ranks(values, superlevel)
-    index_type = rank.dtype
     flat = values.reshape(-1)
+    index_type = _union_find.index_dtype(voxels)
+    # the voxel construction of integer values needs no array of ranks nor of the order
+    ranks = None if vertex else composed_ranks(flat, superlevel)
+    if ranks is None:
+        rank, starts = voxel_ranks(values, superlevel)
+        ranks = (rank, np.int64(0), np.int64(1), np.int64(-1))
+    else:
+        rank, starts = None, np.empty(0, dtype=index_type)
+    composed = rank is None
     edge_codes = _EDGE_CODES_VERTEX if vertex else _EDGE_CODES_VOXEL
     edge_bit = _EDGE_BIT_VERTEX if vertex else _EDGE_BIT_VOXEL
     square_bit = _SQUARE_BIT_VERTEX if vertex else _SQUARE_BIT_VOXEL
@@ -1226,6 +1303,8 @@ def reduce_dim1(values, construction, progress=None, *, superlevel=False, thread
 
     words = np.empty(voxels, dtype=np.uint32)
     corners = scratch_size(values.shape, construction)
+    if isinstance(scratch, list):  # a buffer given away: it is freed once done with
+        scratch = scratch.pop() if scratch else None
     if scratch is None or scratch.size < corners:
         scratch = np.empty(corners, dtype=_union_find.index_dtype(corners))
     parent = scratch[:corners]
@@ -1238,28 +1317,31 @@ def reduce_dim1(values, construction, progress=None, *, superlevel=False, thread
         middle = n0 // 2
         other = np.full(memo.size, _UNKNOWN, dtype=np.uint32)
         helper = threading.Thread(target=_own_edges, args=(
-            rank, n0, n1, n2, vertex, later, words, parent, offsets, positions, other,
+            ranks, n0, n1, n2, vertex, later, words, parent, offsets, positions, other,
             middle, n0))
         helper.start()
         try:
-            _own_edges(rank, n0, n1, n2, vertex, later, words, parent, offsets, positions,
+            _own_edges(ranks, n0, n1, n2, vertex, later, words, parent, offsets, positions,
                        memo, 0, middle)
         finally:
             helper.join()
         del other
     else:
-        _own_edges(rank, n0, n1, n2, vertex, later, words, parent, offsets, positions, memo,
+        _own_edges(ranks, n0, n1, n2, vertex, later, words, parent, offsets, positions, memo,
                    0, n0)
     if progress is not None:
         progress(PHASE, 0.15)
-    undecided = _positions_flagged(words, _IRREGULAR_BIT, index_type, rank)
-    undecided = undecided[np.argsort(rank[undecided], kind="stable")]
-    _death_edges(undecided, rank, n0, n1, n2, vertex, edge_codes, words, parent)
-    del undecided
-    # the clearing's union-find is done with: its buffer now holds the voxels in order
-    order = scratch[:voxels]
-    _order_of_ranks(rank, order)
-    del parent
+    undecided = _positions_flagged(words, _IRREGULAR_BIT, index_type, ranks)
+    undecided = undecided[np.argsort(_ranks_of(ranks, undecided), kind="stable")]
+    _death_edges(undecided, ranks, n0, n1, n2, vertex, edge_codes, words, parent)
+    del undecided, parent
+    if composed:
+        order = np.empty(0, dtype=index_type)
+        del scratch
+    else:
+        # the clearing's union-find is done with: its buffer now holds the voxels in order
+        order = scratch[:voxels]
+        _order_of_ranks(rank, order)
     if progress is not None:
         progress(PHASE, 0.25)
 
@@ -1276,6 +1358,8 @@ def reduce_dim1(values, construction, progress=None, *, superlevel=False, thread
     else:
         _pair_own_squares(words, edge_codes, square_bit, counters)
         listed = _positions_flagged(words, _IRREGULAR_BIT, index_type)
+        if composed:  # the flagged voxels' ranks, ascending
+            listed = np.sort(_ranks_of(ranks, listed))
         np.bitwise_and(words, ~(np.uint32(1) << np.uint32(_IRREGULAR_BIT)), out=words)
         visits = listed.size
     steps = np.linspace(visits, 0, _PROGRESS_STEPS + 1).astype(np.int64)
@@ -1283,7 +1367,7 @@ def reduce_dim1(values, construction, progress=None, *, superlevel=False, thread
         high, low = steps[step] - 1, steps[step + 1]
         if high >= low:
             table_keys, table_vals, pool, births, deaths = _reduce_ranks(
-                high, low, listed, not vertex, starts, order, rank, words, n0, n1, n2,
+                high, low, listed, not vertex, starts, order, ranks, words, n0, n1, n2,
                 vertex, edge_codes, edge_bit, square_bit,
                 table_keys, table_vals, pool, counters, births, deaths)
         if progress is not None:
