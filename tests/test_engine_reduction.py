@@ -162,6 +162,28 @@ def test_lent_buffer_and_superlevel_keep_the_pairs_and_leave_the_input(dtype):
     assert np.array_equal(values, before)
 
 
+@pytest.mark.parametrize("dtype", [np.uint16, np.int32, np.float64])
+def test_pool_grown_many_times_keeps_the_pairs(monkeypatch, dtype):
+    """Check against gudhi (Maria, Boissonnat, Glisse & Yvinec 2014): with a pool of kept
+    columns that starts at 8 entries and must be grown before nearly every column (and
+    whose columns outgrow what is free), the pairs are still gudhi's; integer values
+    compose their ranks, float64 values keep arrays of ranks and order."""
+    from voxtopo.engine import _reduction
+
+    monkeypatch.setattr(_reduction, "_FIRST_POOL_ENTRIES", 8)
+    monkeypatch.setattr(_reduction, "_POOL_RESERVE", 2)
+    rng = np.random.default_rng(11)
+    values = rng.integers(0, 60, size=(9, 11, 10)).astype(dtype)
+    birth, death, _, _, counts = _reduction.reduce_dim1(values, "voxel")
+    assert counts["kept_entries"] > 100  # the pool really had to grow
+    assert as_sorted_pairs(birth, death) == gudhi_dim1(values, "voxel")
+    given_away = [np.full(scratch_size(values.shape, "voxel"), 5, dtype=np.int32)]
+    again = pairs_dim1(values, "voxel", scratch=given_away, superlevel=True)
+    assert given_away == []  # the reduction took the buffer (and frees it when done)
+    expected = gudhi_intervals(values, 1, construction="voxel", superlevel=True)
+    assert as_sorted_pairs(again[0], again[1]) == sorted(map(tuple, expected.tolist()))
+
+
 def test_voxel_order_is_sorted_by_value_then_index():
     """Common practice, no source: numpy's stable argsort is the reference order."""
     rng = np.random.default_rng(5)

@@ -81,8 +81,8 @@ from numba import njit
 from ..errors import InputError
 from . import _union_find
 
-__all__ = ["pairs_dim1", "pairs_dim1_explicit", "bytes_needed", "scratch_size", "voxel_ranks",
-           "CONSTRUCTIONS"]
+__all__ = ["pairs_dim1", "pairs_dim1_explicit", "bytes_needed", "phase_bytes",
+           "composes_ranks", "scratch_size", "voxel_ranks", "CONSTRUCTIONS"]
 
 CONSTRUCTIONS = ("voxel", "vertex")
 
@@ -154,12 +154,17 @@ PHASE = "dimension 1"
 
 
 @njit(cache=True, inline="always")
-def _rank(ranks, v):
+def _level(ranks, v):
     levels, offset, sign, bits = ranks
-    level = sign * np.int64(levels[v]) + offset
+    return sign * np.int64(levels[v]) + offset
+
+
+@njit(cache=True, inline="always")
+def _rank(ranks, v):
+    bits = ranks[3]
     if bits < 0:
-        return level
-    return (level << bits) | v
+        return _level(ranks, v)
+    return (_level(ranks, v) << bits) | v
 
 
 @njit(cache=True, inline="always")
@@ -1059,32 +1064,88 @@ def _unreduced_owner(square, edge, order, ranks, words, edge_bit, n0, n1, n2, ve
     return owner
 
 
+#: Bytes of an entry of the pool of kept columns: a cell in 40 bits (a 32-bit and an 8-bit
+#: array). With composed ranks the entry is the cell's voxel and code, and its key is
+#: composed again from the voxel's value when it is read; else it is the key itself.
+POOL_ENTRY_BYTES = 5
+
+#: Entries the pool must have free before a voxel's edges are visited (the caller grows it
+#: in place when the reduction stops short of this), and its first size.
+_POOL_RESERVE = 1 << 16
+_FIRST_POOL_ENTRIES = 1 << 20
+
+#: The most voxels whose cells (voxel and code) fit in a pool entry.
+_MOST_VOXELS = 1 << (8 * POOL_ENTRY_BYTES - CODE_BITS)
+
+
+@njit(cache=True, inline="always")
+def _pool_raw(pool_low, pool_high, at):
+    return (np.int64(pool_high[at]) << 32) | np.int64(pool_low[at])
+
+
+@njit(cache=True, inline="always")
+def _pool_put(pool_low, pool_high, at, entry):
+    pool_low[at] = np.uint32(entry & 0xFFFFFFFF)
+    pool_high[at] = np.uint8(entry >> 32)
+
+
+@njit(cache=True, inline="always")
+def _pool_read(pool_low, pool_high, at, ranks):
+    """The key of the cell at entry ``at``."""
+    entry = _pool_raw(pool_low, pool_high, at)
+    bits = ranks[3]
+    if bits < 0:
+        return entry
+    return (_level(ranks, entry >> CODE_BITS) << (bits + CODE_BITS)) | entry
+
+
+@njit(cache=True, inline="always")
+def _pool_write(pool_low, pool_high, at, key, ranks):
+    """Keep the cell of ``key`` at entry ``at``."""
+    bits = ranks[3]
+    if bits >= 0:
+        key &= (np.int64(1) << (bits + CODE_BITS)) - 1
+    _pool_put(pool_low, pool_high, at, key)
+
+
 @njit(cache=True, nogil=True)
-def _reduce_ranks(r_high, r_low, listed, use_list, starts, order, ranks, words, n0, n1, n2,
-                  vertex, edge_codes, edge_bit, square_bit, table_keys, table_vals, pool,
-                  counters, births, deaths):
+def _reduce_ranks(r_high, r_low, first_edge, listed, use_list, starts, order, ranks, words,
+                  n0, n1, n2, vertex, edge_codes, edge_bit, square_bit, table_keys,
+                  table_vals, pool_low, pool_high, reserve, counters, births, deaths):
     """Visit the edges of the voxels of rank ``r_high`` down to ``r_low`` (inclusive),
     last edge first, and pair each with a square. With ``use_list``, visit instead the
-    ranks ``listed[r_high]`` down to ``listed[r_low]`` (``listed`` ascending).
+    ranks ``listed[r_high]`` down to ``listed[r_low]`` (``listed`` ascending). The first
+    voxel's edges are visited from edge ``first_edge`` down.
 
     ``words`` holds, per voxel, a bit for each of its own edges that clearing left and
     one for each of its own squares that is already the pivot of a column; ``starts``
-    the first rank of each distinct value (:func:`voxel_ranks`). ``counters`` = [table entries, pool length,
-    pairs written, columns reduced, columns paired without reduction, columns left empty,
-    heap pushes]. Returns the (possibly grown) table, pool and output arrays.
+    the first rank of each distinct value (:func:`voxel_ranks`). ``counters`` = [table
+    entries, pool length, pairs written, columns reduced, columns paired without
+    reduction, columns left empty, heap pushes]. The reduced columns are kept in
+    ``pool_low`` / ``pool_high`` (a length, then the entries), which this function never
+    grows: when they have less than ``reserve`` entries free before a voxel, or
+    too few for a column, it stops there.
+
+    Returns ``(step, edge, table_keys, table_vals, births, deaths)``: ``step < r_low``
+    when every voxel was visited, else where to go on (with ``edge``) once the pool has
+    grown; the table and the output arrays may have grown.
     """
     shift = 0 if vertex else 1
     faces = np.empty(4, dtype=np.int64)
     cofaces = np.empty(6, dtype=np.int64)
     heap = np.empty(64, dtype=np.int64)
     for step in range(r_high, r_low - 1, -1):
+        if pool_low.size - counters[1] < reserve:
+            return step, edge_codes.size - 1 if step != r_high else first_edge, \
+                table_keys, table_vals, births, deaths
         r = np.int64(listed[step]) if use_list else np.int64(step)
         v = _voxel(ranks, order, r)
         i2 = v % n2
         i1 = (v // n2) % n1
         i0 = v // (n1 * n2)
         bits = words[_word_at(ranks, r)]
-        for k in range(edge_codes.size - 1, -1, -1):
+        last = first_edge if step == r_high else edge_codes.size - 1
+        for k in range(last, -1, -1):
             if not (bits >> k) & 1:
                 continue
             code = edge_codes[k]
@@ -1113,9 +1174,11 @@ def _reduce_ranks(r_high, r_low, listed, use_list, starts, order, ranks, words, 
                             square_bit[pivot & _CODE_MASK] + _STORED_SHIFT)) & 1:
                         stored = _table_find(table_keys, table_vals, pivot)
                     if stored >= 0:
-                        for j in range(pool[stored]):
-                            heap, size = _heap_push(heap, size, pool[stored + 1 + j])
-                        counters[6] += pool[stored]
+                        length = _pool_raw(pool_low, pool_high, stored)
+                        for j in range(length):
+                            heap, size = _heap_push(heap, size, _pool_read(
+                                pool_low, pool_high, stored + 1 + j, ranks))
+                        counters[6] += length
                     else:
                         owner = _unreduced_owner(pivot, edge, order, ranks, words, edge_bit,
                                                  n0, n1, n2, vertex, faces)
@@ -1131,27 +1194,23 @@ def _reduce_ranks(r_high, r_low, listed, use_list, starts, order, ranks, words, 
                 if pivot < 0:
                     counters[5] += 1
                     continue
-                # keep the reduced column itself (pivot first), as the heap drains
+                # keep the reduced column itself (pivot first), as the heap drains; the
+                # heap's size bounds the column's length
                 start = counters[1]
-                if start + 2 > pool.size:
-                    bigger = np.empty(pool.size * 2, dtype=np.int64)
-                    bigger[:start] = pool[:start]
-                    pool = bigger
+                if start + 1 + size > pool_low.size:
+                    counters[7] = start + 1 + size
+                    return step, k, table_keys, table_vals, births, deaths
                 write = start + 1
                 while True:
                     entry, heap, size = _heap_pivot(heap, size)
                     if entry < 0:
                         break
                     size = _heap_pop(heap, size)
-                    if write == pool.size:
-                        bigger = np.empty(pool.size * 2, dtype=np.int64)
-                        bigger[:write] = pool[:write]
-                        pool = bigger
-                    pool[write] = entry
+                    _pool_write(pool_low, pool_high, write, entry, ranks)
                     write += 1
-                pool[start] = write - start - 1
+                _pool_put(pool_low, pool_high, start, write - start - 1)
                 counters[1] = write
-                if 2 * (counters[0] + 1) > table_keys.size:
+                if 4 * (counters[0] + 1) > 3 * table_keys.size:  # at most 3/4 full
                     table_keys, table_vals = _table_grow(table_keys, table_vals)
                 _table_put(table_keys, table_vals, pivot, start)
                 counters[0] += 1
@@ -1172,7 +1231,22 @@ def _reduce_ranks(r_high, r_low, listed, use_list, starts, order, ranks, words, 
                 births[n] = v
                 deaths[n] = _voxel(ranks, order, pivot >> CODE_BITS)
                 counters[2] = n + 1
-    return table_keys, table_vals, pool, births, deaths
+    return r_low - 1, 0, table_keys, table_vals, births, deaths
+
+
+class _Pool:
+    """The reduced columns kept: 40-bit entries in a 32-bit and an 8-bit array, grown in
+    place (``ndarray.resize``: the allocator can move the pages rather than copy them, so
+    the pool is not held twice while it grows)."""
+
+    def __init__(self):
+        self.low = np.empty(_FIRST_POOL_ENTRIES, dtype=np.uint32)
+        self.high = np.empty(_FIRST_POOL_ENTRIES, dtype=np.uint8)
+
+    def grow(self, needed: int) -> None:
+        size = max(int(needed), self.low.size + self.low.size // 2)
+        self.low.resize(size, refcheck=False)
+        self.high.resize(size, refcheck=False)
 
 
 # --------------------------------------------------------------------------- public
@@ -1189,6 +1263,10 @@ def _check(values, construction):
     if values.size == 0:
         raise InputError(f"Cannot compute persistence of an empty volume of shape "
                          f"{values.shape}; give at least one voxel.")
+    if values.size > _MOST_VOXELS:
+        raise InputError(f"Dimension 1 of a volume of {values.size} voxels is beyond the "
+                         f"reduction's {_MOST_VOXELS} voxels (cells are kept in 40 bits); "
+                         f"crop or downsample it.")
     if values.dtype == bool:
         values = values.astype(np.uint8)
     if not (np.issubdtype(values.dtype, np.integer) or np.issubdtype(values.dtype, np.floating)):
@@ -1277,8 +1355,10 @@ def scratch_size(shape, construction) -> int:
 def reduce_dim1(values, construction, progress=None, *, superlevel=False, threads=1,
                 scratch=None):
     """:func:`pairs_dim1` plus a dict of counts (columns reduced, columns paired at once,
-    pairs of positive persistence, reduction-matrix entries kept), which
-    the benchmark prints."""
+    pairs of positive persistence, reduction-matrix entries kept, heap pushes, voxels
+    the local clearing left undecided, voxels the reduction visited, the pool's and the
+    pivot table's final sizes), which the benchmarks print and the memory plan is
+    calibrated on."""
     values = _check(values, construction)
     vertex = construction == "vertex"
     n0, n1, n2 = values.shape
@@ -1334,6 +1414,7 @@ def reduce_dim1(values, construction, progress=None, *, superlevel=False, thread
     undecided = _positions_flagged(words, _IRREGULAR_BIT, index_type, ranks)
     undecided = undecided[np.argsort(_ranks_of(ranks, undecided), kind="stable")]
     _death_edges(undecided, ranks, n0, n1, n2, vertex, edge_codes, words, parent)
+    undecided_voxels = undecided.size
     del undecided, parent
     if composed:
         order = np.empty(0, dtype=index_type)
@@ -1347,8 +1428,8 @@ def reduce_dim1(values, construction, progress=None, *, superlevel=False, thread
 
     table_keys = np.full(1024, -1, dtype=np.int64)
     table_vals = np.empty(1024, dtype=np.int64)
-    pool = np.empty(1024, dtype=np.int64)
-    counters = np.zeros(7, dtype=np.int64)
+    pool = _Pool()
+    counters = np.zeros(8, dtype=np.int64)
     births = np.empty(1024, dtype=np.int64)
     deaths = np.empty(1024, dtype=np.int64)
     if vertex:
@@ -1365,11 +1446,14 @@ def reduce_dim1(values, construction, progress=None, *, superlevel=False, thread
     steps = np.linspace(visits, 0, _PROGRESS_STEPS + 1).astype(np.int64)
     for step in range(_PROGRESS_STEPS):
         high, low = steps[step] - 1, steps[step + 1]
-        if high >= low:
-            table_keys, table_vals, pool, births, deaths = _reduce_ranks(
-                high, low, listed, not vertex, starts, order, ranks, words, n0, n1, n2,
-                vertex, edge_codes, edge_bit, square_bit,
-                table_keys, table_vals, pool, counters, births, deaths)
+        edge = edge_codes.size - 1
+        while high >= low:
+            high, edge, table_keys, table_vals, births, deaths = _reduce_ranks(
+                high, low, edge, listed, not vertex, starts, order, ranks, words, n0, n1,
+                n2, vertex, edge_codes, edge_bit, square_bit, table_keys, table_vals,
+                pool.low, pool.high, _POOL_RESERVE, counters, births, deaths)
+            if high >= low:
+                pool.grow(max(counters[1] + _POOL_RESERVE, counters[7]))
         if progress is not None:
             progress(PHASE, 0.25 + 0.75 * (step + 1) / _PROGRESS_STEPS)
     if counters[5]:
@@ -1377,8 +1461,10 @@ def reduce_dim1(values, construction, progress=None, *, superlevel=False, thread
                            f"cannot happen; this is a bug in voxtopo's reduction.")
     counts = {"reduced": int(counters[3]), "paired_at_once": int(counters[4]),
               "pairs": int(counters[2]), "kept_entries": int(counters[1]),
-              "heap_pushes": int(counters[6])}
-    del words, rank, order, listed
+              "heap_pushes": int(counters[6]), "undecided_voxels": int(undecided_voxels),
+              "listed_voxels": int(listed.size), "pool_entries": int(pool.low.size),
+              "table_slots": int(table_keys.size)}
+    del words, rank, order, listed, pool
     birth_index = births[:counters[2]].copy()
     death_index = deaths[:counters[2]].copy()
     birth = flat[birth_index].astype(np.float64)
@@ -1387,45 +1473,83 @@ def reduce_dim1(values, construction, progress=None, *, superlevel=False, thread
     return birth[keep], death[keep], birth_index[keep], death_index[keep], counts
 
 
-#: Bytes per voxel planned for the reduced columns kept and the pivot table that finds
-#: them: they hold only the columns that needed a reduction, which depends on the data.
-#: Measured on 512^3 uint16 noisy sintered beads (benchmarks/bench_memory.py data): 0.78
-#: kept entries and 0.07 reduced columns per voxel, 1.07 GB of column pool (8-byte entries,
-#: doubling) and 0.54 GB of table, 12 bytes per voxel; smooth data keep far fewer.
-_KEPT_BYTES_PER_VOXEL = 12
+#: Planned per voxel, measured on 256^3 uint16 noisy sintered beads (the data of
+#: benchmarks/bench_memory.py; `reduce_dim1` counts them): reduced columns kept, their
+#: entries, the voxels the local clearing leaves undecided and the voxels the reduction
+#: visits. Smooth data have far fewer of each. Measured: 0.073, 0.78, 0.025, 0.070.
+_PLANNED_COLUMNS = 0.075
+_PLANNED_ENTRIES = 0.8
+_PLANNED_UNDECIDED = 0.03
+_PLANNED_LISTED = 0.075
+
+#: Bytes of a slot of the pivot table (an 8-byte key and an 8-byte pool position) and the
+#: most slots per column (the table is kept between 3/8 and 3/4 full).
+_TABLE_SLOT_BYTES = 16
+_SLOTS_PER_COLUMN = 8 / 3
+
+
+def composes_ranks(shape, dtype) -> bool:
+    """Whether :func:`reduce_dim1` composes ranks (no arrays of ranks or order) for an
+    array of ``shape`` and ``dtype`` whatever its values (integers whose whole range, one
+    level more for a padded copy, fits in a cell key beside the voxel index)."""
+    dtype = np.dtype(dtype)
+    voxels = int(np.prod(shape, dtype=np.int64))
+    bits = max(1, (voxels - 1).bit_length())
+    return dtype.kind in "uib" and 8 * dtype.itemsize + 1 + bits + CODE_BITS <= 62
+
+
+def phase_bytes(shape, dtype, *, superlevel=False) -> tuple[int, int, bool]:
+    """(bytes of the clearing, bytes of the reduction proper, whether the buffer lent as
+    ``scratch`` is held through the reduction) of :func:`pairs_dim1` on the voxel
+    construction of an array of ``shape`` and ``dtype``, the scratch buffer (one index
+    per grid corner, :func:`scratch_size`) not included.
+
+    Both phases hold one 32-bit word of flags per voxel. The clearing adds the voxels it
+    leaves undecided, with their ranks and sort order. The reduction adds the ranks of
+    the voxels it visits (sorted), the reduced columns kept (5-byte entries) and the
+    pivot table, planned per voxel as measured on noisy 16-bit scans (smooth data need
+    less). Values that do not compose ranks (:func:`composes_ranks`) also hold the ranks
+    throughout (4 or 8 bytes per voxel), first sorted (a float32 radix sort 16 bytes per
+    voxel, numpy's sort about 12, plus a reversed copy of the values for a superlevel
+    sweep, and a start rank per distinct value), and the sorted order, in the scratch
+    buffer, through the reduction.
+    """
+    voxels = int(np.prod(shape, dtype=np.int64))
+    dtype = np.dtype(dtype)
+    words = 4 * voxels
+    undecided = int(_PLANNED_UNDECIDED * voxels) * (4 + 8 + 8)
+    kept = (_PLANNED_ENTRIES * voxels * POOL_ENTRY_BYTES
+            + _PLANNED_COLUMNS * voxels * _SLOTS_PER_COLUMN * _TABLE_SLOT_BYTES)
+    listed = int(_PLANNED_LISTED * voxels) * 8
+    clearing = words + undecided
+    reducing = int(words + listed + kept)
+    if composes_ranks(shape, dtype):
+        return clearing, reducing, False
+    index = _union_find.index_dtype(voxels).itemsize
+    rank = voxels * index
+    if dtype.kind in "uib" and dtype.itemsize <= 2:
+        ranking = 0  # a counting sort writes the ranks
+    else:
+        radix = dtype == np.float32 and index == 4
+        ranking = (voxels * (16 if radix else 12) + (voxels * dtype.itemsize if superlevel
+                                                     else 0) + voxels * index)
+    return max(ranking, rank + clearing), rank + reducing, True
 
 
 def bytes_needed(shape, dtype, *, superlevel=False, with_scratch=False) -> int:
-    """Peak bytes :func:`pairs_dim1` needs for a volume of ``shape`` and ``dtype``.
-
-    Per voxel: the ranks (4 bytes with 32-bit indices, 8 above 2^31 voxels), one 32-bit
-    word of flags, and the buffer that holds first the clearing's union-find (one entry
-    per grid corner) and then the sorted order (none when the caller lends it as
-    ``scratch``: ``with_scratch``). 8- and 16-bit data take a counting sort that writes the
-    ranks directly; other values are sorted first, which needs the sort's arrays while the
-    ranks are written (a float32 radix sort 16 bytes per voxel, numpy's sort about 12,
-    plus a reversed copy of the values for a superlevel sweep) and a start rank per
-    distinct value. Plus the reduced columns kept and their pivot table, planned at 12
-    bytes per voxel (measured on noisy 16-bit scans; smooth data keep far fewer).
+    """Peak bytes :func:`pairs_dim1` needs for a volume of ``shape`` and ``dtype`` in the
+    voxel construction: the larger of its two phases (:func:`phase_bytes`), with the
+    scratch buffer where it is held (none when the caller lends it: ``with_scratch``).
 
     Examples
     --------
-    >>> 3e9 < bytes_needed((512, 512, 512), "uint8") < 4e9
+    >>> 1e9 < bytes_needed((512, 512, 512), "uint8") < 2e9
     True
     """
-    voxels = int(np.prod(shape, dtype=np.int64))
-    index = _union_find.index_dtype(voxels).itemsize
+    clearing, reducing, holds = phase_bytes(shape, dtype, superlevel=superlevel)
     corners = int(np.prod([n + 1 for n in shape], dtype=np.int64))
     buffer = 0 if with_scratch else corners * _union_find.index_dtype(corners).itemsize
-    dtype = np.dtype(dtype)
-    steady = voxels * (index + 4 + _KEPT_BYTES_PER_VOXEL) + buffer
-    if dtype.kind in "uib" and dtype.itemsize <= 2:
-        return steady
-    # the distinct values: as many as the voxels at worst
-    starts = voxels * index
-    radix = dtype == np.float32 and index == 4
-    sort = voxels * (16 if radix else 12) + (voxels * dtype.itemsize if superlevel else 0)
-    return max(sort + voxels * index, steady + starts)
+    return max(clearing + buffer, reducing + (buffer if holds else 0))
 
 
 # --------------------------------------------------------------------------- twin

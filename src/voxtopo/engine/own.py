@@ -118,11 +118,13 @@ def compute(values: np.ndarray, *, superlevel: bool, construction: str,
         loops = _Background(_dimension_one, values, flat, superlevel, construction, 2)
     elif ndim == 3:
         # one after the other, the reduction taking over the sweeps' union-find buffer
+        # (given away in a list, so that it is freed as soon as the reduction is done with it)
         entries = _links_size(values.shape, vertex)
-        links = np.empty(entries, dtype=_union_find.index_dtype(entries))
+        links = [np.empty(entries, dtype=_union_find.index_dtype(entries))]
     try:
         roots_0, voxels_0, roots_top, voxels_top = _sweeps(flat, shape, ndim, ascending,
-                                                           construction, progress, links)
+                                                           construction, progress,
+                                                           links[0] if links else None)
         if ndim == 3:
             dim1 = (loops.result(progress) if loops is not None else
                     _dimension_one(values, flat, superlevel, construction, threads,
@@ -274,7 +276,8 @@ def bytes_needed(shape, dtype, neighbourhood=None) -> int:
     construction, 6-neighbourhood, on a padded copy of the values in a type up to twice
     as wide) runs beside them when both fit in the memory available together and the
     engine has two threads; otherwise it runs after them and takes over their union-find
-    buffer. The pairs are planned at one per 25 voxels (the table they become is planned
+    buffer, which it frees after its clearing (8- to 32-bit integer values, whose ranks
+    it composes) or keeps for the sorted order (other values). The pairs are planned at one per 25 voxels (the table they become is planned
     by :func:`voxtopo.engine.estimate`).
 
     Examples
@@ -310,11 +313,14 @@ def _needs(shape, dtype, vertex) -> tuple[int | None, int]:
         copies = (voxels * dtype.itemsize + int(np.prod(reduced_shape, dtype=np.int64))
                   * min(2 * dtype.itemsize, 8))
     alone = _reduction.bytes_needed(reduced_shape, dtype, superlevel=True)
-    lent = _reduction.bytes_needed(reduced_shape, dtype, superlevel=True, with_scratch=True)
+    clearing, reducing, holds = _reduction.phase_bytes(reduced_shape, dtype, superlevel=True)
     entries = _links_size(shape, vertex)
     links = entries * _union_find.index_dtype(entries).itemsize
     side_by_side = (voxels + 1) * index + collecting + copies + alone + pairs
-    one_after_other = links + max(collecting, copies + lent) + pairs
+    # the buffer is given away to the reduction, which frees it after the clearing unless
+    # it holds the sorted order there
+    one_after_other = max(links + collecting, links + copies + clearing,
+                          (links if holds else 0) + copies + reducing) + pairs
     return int(side_by_side), int(one_after_other)
 
 
@@ -410,8 +416,8 @@ def _dimension_one(values, flat, superlevel, construction, threads, progress,
                    links=None):
     """(births, deaths, birth index, death index) of dimension 1 of a 3D volume.
 
-    ``links``: the sweeps' union-find buffer, lent to the reduction when it runs after
-    them. The values of the pairs are read back from ``flat``.
+    ``links``: a list holding the sweeps' union-find buffer, given away to the reduction
+    when it runs after them (it frees the buffer once done with it). The values of the pairs are read back from ``flat``.
     """
     from . import _reduction
 
