@@ -134,7 +134,7 @@ def estimate(shape, dtype=np.float32, *, engine: str = "auto", neighbourhood=Non
     Examples
     --------
     >>> import numpy as np
-    >>> 20e9 < estimate((1024, 1024, 1024), np.uint16) < 30e9
+    >>> 10e9 < estimate((1024, 1024, 1024), np.uint16) < 16e9
     True
     """
     name, _ = _choose_engine(engine, field, periodic)
