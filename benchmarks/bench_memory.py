@@ -47,7 +47,8 @@ SLAB_PLANES = 32
 BLUR_HALO = 4
 
 
-def bead_volume(shape, path: Path, radius=(7.0, 11.0), solid_fraction=0.55) -> None:
+def bead_volume(shape, path: Path, radius=(7.0, 11.0), solid_fraction=0.55,
+                noise: float = NOISE) -> None:
     """Write a uint16 volume of overlapping bright beads in a dark matrix, with Gaussian
     noise blurred over about a voxel, into the .npy file ``path``, slab by slab.
 
@@ -85,7 +86,7 @@ def bead_volume(shape, path: Path, radius=(7.0, 11.0), solid_fraction=0.55) -> N
         del solid
         for z in range(low, high):
             plane_rng = np.random.default_rng((SEED, z))
-            slab[z - low] += plane_rng.standard_normal(shape[1:], dtype=np.float32) * NOISE
+            slab[z - low] += plane_rng.standard_normal(shape[1:], dtype=np.float32) * noise
         slab = ndimage.gaussian_filter(slab, 1.0, output=np.float32, truncate=BLUR_HALO)
         inner = slab[first - low:first - low + min(SLAB_PLANES, depth - first)]
         target[first:first + inner.shape[0]] = np.clip(np.rint(inner), 0, 65535)
@@ -114,6 +115,10 @@ def main(argv=None):
                         default=Path(tempfile.gettempdir()) / "voxtopo-bench-memory",
                         help="folder for the generated volumes and the results")
     parser.add_argument("--keep", action="store_true", help="keep the generated volumes")
+    parser.add_argument("--noise", type=float, default=NOISE,
+                        help=f"standard deviation of the noise in gray levels before the blur "
+                             f"(default {NOISE:g}, a noisy scan; 500 gives a smooth one, "
+                             f"whose reduction keeps far fewer columns than the plan)")
     args = parser.parse_args(argv)
 
     from voxtopo.engine import estimate
@@ -128,11 +133,11 @@ def main(argv=None):
     print(f"interpreter with voxtopo's libraries: peak {human(interpreter)}")
     for size in args.sizes:
         shape = (size,) * 3
-        path = args.scratch / f"beads_{size}_uint16.npy"
+        path = args.scratch / f"beads_{size}_uint16_noise{args.noise:g}.npy"
         ready = path.exists() and np.load(path, mmap_mode="r").shape == shape
         if not ready:
             start = time.perf_counter()
-            bead_volume(shape, path)
+            bead_volume(shape, path, noise=args.noise)
             print(f"\nwrote {path} in {time.perf_counter() - start:.0f} s")
         out = args.scratch / f"result_{size}"
         shutil.rmtree(out, ignore_errors=True)
@@ -142,7 +147,8 @@ def main(argv=None):
         steps = preparation_plan(probe, AnalysisOptions())
         engine_need = estimate(shape, np.uint16)
         plan = volume + max(needed for _, needed in steps) + interpreter
-        print(f"\n== {size}^3 uint16 sintered beads, voxtopo analyse (defaults) ==")
+        print(f"\n== {size}^3 uint16 sintered beads, noise {args.noise:g}, voxtopo analyse "
+              f"(defaults) ==")
         print(f"wall {wall:8.1f} s   CPU {cpu:8.1f} s   peak resident {human(peak)}   "
               f"exit {code}")
         print(f"engine estimate {human(engine_need)}; plan = volume {human(volume)} + "
