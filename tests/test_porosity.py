@@ -442,6 +442,25 @@ def test_refusal_names_the_estimate_and_the_out_of_core_path(monkeypatch, tmp_pa
                  "--engine", ENGINE]) == 0
 
 
+def test_pores_is_planned_once_as_a_whole(monkeypatch):
+    # common practice, no source: a job checks its memory once, for the whole run; its
+    # persistence runs are part of that plan and are not refused on their own (with a
+    # remedy naming another command) after the distance transform has been done
+    import voxtopo.engine
+    from voxtopo.errors import TooBigError
+    from voxtopo.porosity import analyse
+
+    def refuse(needed, what, remedy):
+        raise TooBigError(f"{what} would need {needed} bytes; {remedy}.")
+
+    monkeypatch.setattr(voxtopo.engine, "ensure_fits", refuse)
+    mask = _blobs((20, 20, 20), seed=4)
+    with pytest.raises(TooBigError, match="analyse --out-of-core"):
+        voxtopo.engine.persistence(mask.astype(np.float32))
+    result = analyse(mask, engine=ENGINE)
+    assert result.summary["porosity"] == pytest.approx(mask.mean())
+
+
 def test_interface_in_slabs_equals_the_whole_mesh():
     # the slab-wise mesh must count every triangle and interior edge once: the same area
     # and curvature as one mesh of the whole volume (marching cubes, Lorensen & Cline 1987,

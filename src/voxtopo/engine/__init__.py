@@ -173,7 +173,7 @@ def _check_values(data: np.ndarray, source: str) -> None:
 def persistence(scan_or_array, superlevel: bool = False, neighbourhood: int | None = None,
                 periodic=False, field: int = 2, engine: str = "auto",
                 min_persistence: float = 0.0, *, spacing=None, unit=None,
-                progress=None) -> Diagram:
+                progress=None, memory_checked: bool = False) -> Diagram:
     """Cubical persistence diagram of a 2D image or 3D volume, with feature locations.
 
     Parameters
@@ -198,6 +198,11 @@ def persistence(scan_or_array, superlevel: bool = False, neighbourhood: int | No
         Voxel size and unit for a bare array (they override a Scan's own).
     progress : callable(phase: str, fraction: float), optional
         Called as work advances; raise voxtopo.Cancelled inside it to stop.
+    memory_checked : bool
+        The caller has already planned this run's memory within a larger job and checked
+        that it fits (:func:`voxtopo.porosity.analyse` does), so the run is not checked
+        again against what is left after the job's own arrays, nor refused with remedies
+        that name another command.
 
     Returns
     -------
@@ -227,11 +232,11 @@ def persistence(scan_or_array, superlevel: bool = False, neighbourhood: int | No
     if field < 2 or any(field % k == 0 for k in range(2, int(field ** 0.5) + 1)):
         raise InputError(f"The coefficient field must be Z/p for a prime p, got {field}.")
     name, notes = _choose_engine(engine, field, any(periodic_axes))
-    needed = estimate(data.shape, data.dtype, engine=name, neighbourhood=neighbourhood,
-                      field=field, periodic=any(periodic_axes))
-    ensure_fits(needed, f"Persistence of the {'x'.join(map(str, data.shape))} scan with the "
-                        f"{name} engine",
-                out_of_core_remedy(scan.ndim))
+    if not memory_checked:
+        needed = estimate(data.shape, data.dtype, engine=name, neighbourhood=neighbourhood,
+                          field=field, periodic=any(periodic_axes))
+        ensure_fits(needed, f"Persistence of the {'x'.join(map(str, data.shape))} scan with "
+                            f"the {name} engine", out_of_core_remedy(scan.ndim))
     compute = BACKENDS[name][0]
     start = time.perf_counter()
     raw = compute(data, superlevel=superlevel, construction=construction,

@@ -1036,12 +1036,14 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
         timings["distance_transform"] = time.perf_counter() - clock
 
         clock = time.perf_counter()
-        diagram = persistence(pore_field, neighbourhood=n_pore, engine=engine, progress=progress)
+        # planned above as part of the whole analysis, so not checked again on their own
+        diagram = persistence(pore_field, neighbourhood=n_pore, engine=engine, progress=progress,
+                              memory_checked=True)
         if sample is not None:
             solid_field = pore_field.with_data(np.negative(pore_field.data, out=pore_field.data))
             np.copyto(solid_field.data, field, where=sample)
         solid_diagram = persistence(solid_field, superlevel=True, neighbourhood=n_solid,
-                                    engine=engine, progress=progress)
+                                    engine=engine, progress=progress, memory_checked=True)
         del pore_field, solid_field
         if sample is not None:
             diagram = diagram.without_outside(outside_level)
