@@ -59,12 +59,18 @@ columns that needed an addition are remembered, in a hash table from their pivot
 to the reduced column itself, so memory grows with the number of truly reduced columns,
 not with the volume.
 
-Memory per voxel: the ranks (4 bytes up to 2^31 voxels, else 8), one 32-bit word of
-flags (own edges left by the clearing, squares already a pivot), and one buffer that holds
-first the clearing's union-find parent per grid corner and then the sorted order (4). For
-8- and 16-bit data a counting sort writes the ranks directly; whether two ranks hold the
-same value is told from the first rank of each distinct value (a short table for such
-data), not from a per-voxel array.
+Memory per voxel. Integer values in the voxel construction (8- and 16-bit scans, and the
+padded copies through which their vertex construction is reduced) need no array of ranks: a
+voxel's rank is *composed* as ``(level << b) | v`` from its value's level and its flat
+index ``v`` (``b`` bits), which orders the voxels exactly as ``(value, flat index)`` and
+gives the voxel back from the rank with a mask. They hold one 32-bit word of flags per
+voxel (own edges left by the clearing, squares already a pivot) and, during the clearing
+only, a union-find parent per grid corner. Other values hold their ranks (4 bytes up to
+2^31 voxels, else 8) and the sorted order (4), which takes over the clearing's buffer.
+The reduced columns kept take 5 bytes an entry (the cell's voxel and code; its key is
+composed again on reading), in a pool grown in place, and the pivot table 16 bytes a
+slot; both grow with the columns that really needed a reduction (measured and planned in
+:func:`phase_bytes`).
 
 Coefficients are Z/2. Without periodic boundaries the box is contractible, so every loop
 dies and there are no essential dimension-1 classes.
