@@ -32,7 +32,7 @@ from .. import __version__
 from .. import filtration as filt
 from .. import significance as sig
 from ..diagram import Diagram
-from ..engine import estimate, out_of_core_remedy, persistence
+from ..engine import estimate, out_of_core_remedy, own, persistence
 from ..errors import InputError
 from ..options import (BOOLEAN, COUNT, ENGINE, FILL, NEIGHBOURHOOD, NON_NEGATIVE, NUMBER,
                        POSITIVE, PRIME, TEXT, THRESHOLD, Rule, check, one_of, optional)
@@ -173,12 +173,21 @@ ANALYSE_RULES = {
 AUTO = "auto"
 
 
+#: Bytes per pair held while the diagram is tested and its tables written, beyond the
+#: scan: the Diagram, its p-values and flags, and the tables. Measured on a 512^3 uint16
+#: noisy bead scan (benchmarks/bench_memory.py): 2.22 GB beyond the scan and the
+#: interpreter for 4.85 million pairs, at the peak of the significance stage.
+RESULT_BYTES_PER_PAIR = 460
+
+
 def preparation_plan(scan: Scan, options: AnalysisOptions) -> list[tuple[str, int]]:
-    """What each step of :func:`prepare` and then persistence will allocate beyond the
-    scan, in order.
+    """What each step of :func:`prepare`, then the testing and writing of the pairs, and
+    then persistence will allocate beyond the scan.
 
     Returns ``(step, bytes)`` pairs, worked out from shapes alone so that a step that would
-    not fit is refused before any earlier step has run.
+    not fit is refused before any earlier step has run. Persistence comes last (the engine
+    checks it with its own remedies); the pairs it makes are planned at
+    ``voxtopo.engine.own.PLANNED_PAIRS_PER_VOXEL``.
     """
     shape, dtype = scan.shape, scan.data.dtype
     steps = []
@@ -203,6 +212,9 @@ def preparation_plan(scan: Scan, options: AnalysisOptions) -> list[tuple[str, in
     if options.distance:
         steps.append((named("The distance transform of"), filt.distance_bytes(shape)))
         dtype = np.dtype(np.float64)
+    pairs = own.PLANNED_PAIRS_PER_VOXEL * int(np.prod(shape, dtype=np.int64))
+    steps.append((named("Testing and writing the pairs of"),
+                  int(pairs * RESULT_BYTES_PER_PAIR)))
     steps.append((named("Persistence of"),
                   estimate(shape, dtype, engine=options.engine,
                            neighbourhood=options.neighbourhood, field=options.field,
@@ -273,9 +285,12 @@ def prepare_unsmoothed(scan: Scan, options: AnalysisOptions,
 
     ``plan`` is :func:`preparation_plan` of the same scan and options when the caller has
     already worked it out."""
-    # persistence, the last step, is checked by the engine with its own remedies
-    for step, needed in (plan or preparation_plan(scan, options))[:-1]:
+    # the preparation's steps; then the pairs' testing and writing, which the out-of-core
+    # path avoids too; persistence, the last step, is checked by the engine itself
+    *preparing, (results, result_bytes), _ = plan or preparation_plan(scan, options)
+    for step, needed in preparing:
         ensure_fits(needed, step, filt.PREPARATION_REMEDY)
+    ensure_fits(result_bytes, results, out_of_core_remedy(scan.ndim))
     notes = {}
     if options.crop:
         scan = filt.crop(scan, options.crop)
