@@ -164,12 +164,27 @@ def _basin_kernel(order, values, sign, shape, offsets, query_voxel, query_level,
     out_own = np.zeros(nq, dtype=np.int64)
     out_border = np.zeros(nq, dtype=np.bool_)
     outer_layer = edge.shape[0] == 0
+    steps = order.shape[0]
+    # a query is answered before the first step whose voxel's level is not below the
+    # query's (the levels rise along ``order``): its basin is then exactly the component
+    # of {f < query level}; found by bisection, so the sweep reads no value
+    answer_at = np.empty(nq, np.int64)
+    for i in range(nq):
+        low, high = 0, steps
+        while low < high:
+            middle = (low + high) // 2
+            if sign * values[order[middle]] < query_level[i]:
+                low = middle + 1
+            else:
+                high = middle
+        answer_at[i] = low
+    # flat offsets of the neighbours of a voxel away from the faces (no bounds to check)
+    flat = np.empty(offsets.shape[0], np.int64)
+    for k in range(offsets.shape[0]):
+        flat[k] = (offsets[k, 0] * ny + offsets[k, 1]) * nx + offsets[k, 2]
     q = 0
-    for step in range(order.shape[0] + 1):
-        level = sign * values[order[step]] if step < order.shape[0] else np.inf
-        # answer every query whose level is not above the next voxel's value: the basin
-        # is then exactly the component of {f < query level}
-        while q < nq and query_level[q] <= level:
+    for step in range(steps + 1):
+        while q < nq and answer_at[q] <= step:
             if _bit(visited, query_voxel[q]):
                 r = _root(parent, query_voxel[q])
                 size = -np.int64(parent[r])
@@ -180,7 +195,7 @@ def _basin_kernel(order, values, sign, shape, offsets, query_voxel, query_level,
                 claimed[r] = size
                 _set_bit(has_claim, r)
             q += 1
-        if step == order.shape[0]:
+        if step == steps:
             break
         v = np.int64(order[step])
         parent[v] = -1
@@ -196,16 +211,24 @@ def _basin_kernel(order, values, sign, shape, offsets, query_voxel, query_level,
             on_edge = edge[v]
         if on_edge:
             _set_bit(border, v)
+        inside = 0 < z < nz - 1 and 0 < y < ny - 1 and 0 < x < nx - 1
+        root = v  # v's root, followed through the unions below
         for k in range(offsets.shape[0]):
-            w = _neighbour(offsets, k, z, y, x, nz, ny, nx)
-            if w < 0 or not _bit(visited, w):
+            if inside:
+                w = v + flat[k]
+            else:
+                w = _neighbour(offsets, k, z, y, x, nz, ny, nx)
+                if w < 0:
+                    continue
+            if not _bit(visited, w):
                 continue
-            a, b = _root(parent, v), _root(parent, w)
+            a, b = root, _root(parent, w)
             if a != b:
                 if parent[a] < parent[b]:  # a is the larger: it stays the root
                     a, b = b, a
                 parent[b] += parent[a]
                 parent[a] = b
+                root = b
                 if _bit(border, a):
                     _set_bit(border, b)
                 if _bit(has_claim, a):
