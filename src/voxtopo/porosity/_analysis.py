@@ -48,10 +48,6 @@ _BASE_BYTES = 380_000_000
 #: 0.86 GB) and 0.94 at 512^3 (4.1 of 4.4 GB), so the share stays.
 _ENGINE_PLAN_SHARE = 0.63
 
-#: the Euler characteristic's padded and shifted masks with the solid's mask, bytes per
-#: voxel (3 measured at 256^3, plus the solid)
-_EULER_BYTES_PER_VOXEL = 4
-
 #: what to do when a pore analysis would not fit in memory
 REMEDY = ("crop it (--crop), downsample it (--downsample), or run it out of core "
           "(voxtopo pores --out-of-core)")
@@ -795,10 +791,10 @@ def estimate(shape, dtype=np.uint8, *, neighbourhood: int | None = None,
     Held through the run: the scan, the pore mask, the float32 signed distance and the
     interpreter with its libraries. On top of it, one step at a time: a persistence run
     on the float32 field (a calibrated share of the engine's estimate, which plans for
-    gray images with many more pairs), the sweeps of one phase (the order of
-    its voxels and one union-find index per voxel, or its component labels), or the
-    integral geometry (the Euler count's shifted masks). The constants are calibrated on
-    the peaks of benchmarks/bench_pores.py (see there).
+    gray images with many more pairs), or the sweeps of one phase (the order of its voxels
+    and one union-find index per voxel, which also gives its connected pieces) with the
+    integral geometry beside them on a second thread (one slab's mesh at a time). The
+    constants are calibrated on the peaks of benchmarks/bench_pores.py (see there).
 
     Examples
     --------
@@ -820,13 +816,12 @@ def estimate(shape, dtype=np.uint8, *, neighbourhood: int | None = None,
     # a second float32 field beside the sample's (the outside levels)
     persistence_run += voxels * 4 if roi else 0
     # the order of one phase's voxels (planned for all of them), one union-find index per
-    # voxel and three bits, the solid's mask
-    sweeps = voxels * (2 * index + 3 / 8 + 1)
-    # the Euler count's shifted masks and the solid's, or one slab's mesh
-    integral_geometry = voxels * _EULER_BYTES_PER_VOXEL
+    # voxel and three bits, with a region of interest the solid's mask; beside them the
+    # integral geometry's thread holds one slab's mesh (its Euler count holds nothing)
+    sweeps = voxels * (2 * index + 3 / 8 + (1 if roi else 0))
     if len(shape) == 3:
-        integral_geometry = max(integral_geometry, _minkowski.slab_bytes(shape))
-    return int(_BASE_BYTES + held + max(persistence_run, sweeps, integral_geometry))
+        sweeps += _minkowski.slab_bytes(shape)
+    return int(_BASE_BYTES + held + max(persistence_run, sweeps))
 
 
 def _integral_geometry(mask, sample, spacing, neighbourhoods, stop):

@@ -19,12 +19,15 @@ from scipy import ndimage
 from ..errors import Cancelled
 
 #: voxels of the cells one slab of :func:`interface_measures` counts as its own, at most:
-#: a slab's mesh and the curvature kernel's table take about MESH_BYTES_PER_VOXEL, so
-#: about 0.7 GB at this size (8 planes of 1024 x 1024)
+#: a slab's mesh and the kernel's edge lists take at most MESH_BYTES_PER_VOXEL, so
+#: at most 0.7 GB at this size (8 planes of 1024 x 1024)
 SLAB_VOXELS = 1 << 23
 
-#: bytes of mesh and curvature table per voxel of a slab (78 measured on 256 x 256 x 34
-#: of a bead packing: they follow the interface's area, which a finer structure raises)
+#: bytes of mesh and curvature tables per voxel of a slab, an upper bound: 78 measured on
+#: 256 x 256 x 34 of a bead packing with an earlier kernel that paired edges in a hash
+#: table; the edge lists of :func:`_slab_kernel` need about a quarter less (growth of the
+#: peak resident memory on that slab: 40 bytes per voxel against 54). They follow the
+#: interface's area, which a finer structure raises.
 MESH_BYTES_PER_VOXEL = 80
 
 
