@@ -79,6 +79,27 @@ def _neighbour(offsets, k, z, y, x, nz, ny, nx):
 _NOT_ENTERED = -65
 
 
+@njit(cache=True)
+def _joining_order(offsets):
+    """(order, earlier) for visiting a voxel's neighbours: face neighbours first, and for
+    the ``i``-th neighbour visited the bits ``j < i`` of the earlier ones adjacent to it.
+    Two neighbours of a voxel that are adjacent to each other and have both entered a
+    sweep are already in one component (the later joined the earlier as it entered), so a
+    neighbour adjacent to an earlier entered one needs no union: with the full
+    neighbourhood a face neighbour alone covers 17 of the 26."""
+    count = offsets.shape[0]
+    order = np.argsort(np.abs(offsets).sum(axis=1), kind="mergesort")
+    earlier = np.zeros(count, np.int64)
+    for i in range(count):
+        for j in range(i):
+            for k in range(count):
+                if (offsets[order[i], 0] - offsets[order[j], 0] == offsets[k, 0]
+                        and offsets[order[i], 1] - offsets[order[j], 1] == offsets[k, 1]
+                        and offsets[order[i], 2] - offsets[order[j], 2] == offsets[k, 2]):
+                    earlier[i] |= np.int64(1) << j
+    return order, earlier
+
+
 @njit(cache=True, nogil=True)
 def _percolation_kernel(order, shape, wanted, offsets, parent):
     """Step of ``order`` at which the first and last faces of each wanted axis join (-1:
@@ -88,6 +109,7 @@ def _percolation_kernel(order, shape, wanted, offsets, parent):
     _NOT_ENTERED (index type wide enough for the voxel count)."""
     nz, ny, nx = shape[0], shape[1], shape[2]
     steps = np.full(3, -1, np.int64)
+    joining, earlier = _joining_order(offsets)
     left = 0
     for a in range(3):
         left += wanted[a]
@@ -106,9 +128,13 @@ def _percolation_kernel(order, shape, wanted, offsets, parent):
             if coord == shape[a] - 1:
                 faces |= 2 << (2 * a)
         parent[v] = -1 - faces
-        for k in range(offsets.shape[0]):
-            w = _neighbour(offsets, k, z, y, x, nz, ny, nx)
+        entered = np.int64(0)
+        for i in range(joining.shape[0]):
+            w = _neighbour(offsets, joining[i], z, y, x, nz, ny, nx)
             if w < 0 or parent[w] == _NOT_ENTERED:
+                continue
+            entered |= np.int64(1) << i
+            if entered & earlier[i]:
                 continue
             r = _root(parent, w)
             if r != v:
@@ -182,6 +208,7 @@ def _basin_kernel(order, values, sign, shape, offsets, query_voxel, query_level,
     flat = np.empty(offsets.shape[0], np.int64)
     for k in range(offsets.shape[0]):
         flat[k] = (offsets[k, 0] * ny + offsets[k, 1]) * nx + offsets[k, 2]
+    joining, earlier = _joining_order(offsets)
     q = 0
     for step in range(steps + 1):
         while q < nq and answer_at[q] <= step:
@@ -213,14 +240,18 @@ def _basin_kernel(order, values, sign, shape, offsets, query_voxel, query_level,
             _set_bit(border, v)
         inside = 0 < z < nz - 1 and 0 < y < ny - 1 and 0 < x < nx - 1
         root = v  # v's root, followed through the unions below
-        for k in range(offsets.shape[0]):
+        entered = np.int64(0)
+        for i in range(joining.shape[0]):
             if inside:
-                w = v + flat[k]
+                w = v + flat[joining[i]]
             else:
-                w = _neighbour(offsets, k, z, y, x, nz, ny, nx)
+                w = _neighbour(offsets, joining[i], z, y, x, nz, ny, nx)
                 if w < 0:
                     continue
             if not _bit(visited, w):
+                continue
+            entered |= np.int64(1) << i
+            if entered & earlier[i]:
                 continue
             a, b = root, _root(parent, w)
             if a != b:
