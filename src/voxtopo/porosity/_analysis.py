@@ -442,10 +442,13 @@ def largest_first(frame: pd.DataFrame, body: str, axes) -> pd.DataFrame:
 def _isolated(pieces, birth_voxel: np.ndarray) -> np.ndarray:
     """For each feature (its birth voxel): its connected piece of the phase (at level 0)
     holds no other feature and reaches no border of the scan or sample: a closed pore (or
-    a loose grain)."""
-    piece = pieces.piece_of(birth_voxel)
+    a loose grain). A feature without a birth voxel (index -1) is not isolated."""
+    known = birth_voxel >= 0
+    piece = pieces.piece_of(birth_voxel[known])
     _, which, features_in_piece = np.unique(piece, return_inverse=True, return_counts=True)
-    return (features_in_piece[which] == 1) & ~pieces.at_border(piece)
+    isolated = np.zeros(len(birth_voxel), dtype=bool)
+    isolated[known] = (features_in_piece[which] == 1) & ~pieces.at_border(piece)
+    return isolated
 
 
 def _with_robust(table: pd.DataFrame, robust_above: float) -> pd.DataFrame:
