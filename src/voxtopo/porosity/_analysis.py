@@ -1113,6 +1113,9 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
             robust_above), segmentation=segmentation, roi_used=sample is not None,
             voxels=(pore_voxels, sample_voxels, mask.size), unit=scan.unit, spacing=spacing,
             shape=mask.shape, min_persistence=min_persistence, timings=timings)
+        summary["timings_note"] = ("integral_geometry runs on a second thread beside features "
+                                   "and percolation: their seconds overlap, and the stages "
+                                   "add up to more than the run's wall time")
         return PoreAnalysis(pores=pores, grains=grains, loops=loops, voids=voids, summary=summary,
                             diagram=diagram, solid_diagram=solid_diagram, mask=mask,
                             distance=distance, critical_throats=critical, sample=sample,
