@@ -20,7 +20,10 @@ time, CPU time (user + system) and peak resident memory (the child's own ``ru_ma
 from ``os.wait4``) are printed beside ``voxtopo.porosity.estimate`` for the same shape and
 type, the ratio estimate / peak, and the seconds of each stage from the run's summary.json.
 The first child only compiles the numba kernels (not timed). The load average is printed:
-figures are only comparable on an otherwise idle machine.
+figures are only comparable on an otherwise idle machine. The integral geometry runs on a
+second thread beside the features and percolation stages, so its seconds overlap theirs:
+the three together take about the longer of integral_geometry and features + percolation
+(on two free cores).
 """
 
 from __future__ import annotations

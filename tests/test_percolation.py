@@ -116,9 +116,11 @@ def test_kernels_agree_with_their_python_twins(neighbourhood):
         mask = rng.random(shape) < 0.6
         field = signed_distance(mask).data
         order = _sweep.sweep_order(field, mask)
+        all_axes = _sweep.percolation_steps(order, shape, [0, 1, 2], neighbourhood)
         for axis in range(3):
-            assert _sweep.percolation_step(order, shape, axis, neighbourhood) == \
-                _sweep.percolation_step(order, shape, axis, neighbourhood, python=True)
+            twin = _sweep.percolation_step(order, shape, axis, neighbourhood, python=True)
+            assert _sweep.percolation_step(order, shape, axis, neighbourhood) == twin
+            assert all_axes[axis] == twin
         voxels = order[rng.choice(len(order), size=6, replace=False)]
         levels = np.sort(rng.uniform(field[mask].min(), 0.0, size=6))
         fast = _sweep.basins(order, field, shape, neighbourhood, voxels, levels)
@@ -194,3 +196,43 @@ def test_sweep_order_is_numpys_stable_sort(dtype):
     expected = others[np.argsort(-values.ravel()[others], kind="stable")]
     assert np.array_equal(_sweep.sweep_order(values, phase, member=False, descending=True),
                           expected)
+
+
+@pytest.mark.parametrize("shape, neighbourhood, member", [((12, 13, 14), 26, True),
+                                                          ((12, 13, 14), 6, False),
+                                                          ((30, 31), 8, True),
+                                                          ((30, 31), 4, False)])
+def test_pieces_left_by_the_basin_sweep_are_scipy_labels(shape, neighbourhood, member):
+    # scipy.ndimage.label with generate_binary_structure(ndim, 1 | ndim) (CHECKS.md): the
+    # union-find of a whole phase's sweep holds the same pieces, with the same sizes, the
+    # same ones reaching the scan's outer layer and the same ones on each face.
+    rng = np.random.default_rng(len(shape) * neighbourhood)
+    # scattered blobs of the phase swept (the pore phase, or the solid: member False)
+    mask = ndimage.gaussian_filter(rng.normal(size=shape), 1.0) > (0.1 if member else -0.4)
+    phase = mask if member else ~mask
+    field = signed_distance(mask).data
+    order = _sweep.sweep_order(field, mask, member=member, descending=not member)
+    _, pieces = _sweep.basins_and_pieces(order, field, shape, neighbourhood,
+                                         np.zeros(0, np.int64), np.zeros(0), flip=not member)
+    full = neighbourhood in (26, 8)
+    labels, count = ndimage.label(phase, ndimage.generate_binary_structure(len(shape),
+                                                                          len(shape) if full
+                                                                          else 1))
+    assert pieces.count() == count > 3
+    voxels = np.flatnonzero(phase)
+    piece = pieces.piece_of(voxels)
+    # one piece per label and one label per piece
+    pairs = np.unique(np.stack([piece, labels.ravel()[voxels]]), axis=1)
+    assert pairs.shape[1] == count
+    sizes = np.bincount(labels.ravel())
+    assert np.array_equal(pieces.sizes(pairs[0]), sizes[pairs[1]])
+    edge = np.ones(shape, bool)
+    edge[(slice(1, -1),) * len(shape)] = False
+    reaching = set(np.unique(labels[edge & phase]).tolist())
+    assert pieces.at_border(pairs[0]).tolist() == [int(lab) in reaching for lab in pairs[1]]
+    to_label = dict(zip(pairs[0].tolist(), pairs[1].tolist()))
+    for axis in range(len(shape)):
+        for end in (0, -1):
+            on_face = np.unique(np.take(labels, end, axis=axis))
+            assert sorted(to_label[p] for p in pieces.on_face(phase, axis, end)) == \
+                on_face[on_face > 0].tolist()

@@ -26,7 +26,8 @@ from skimage.measure import euler_number
 from voxtopo.errors import InputError
 from voxtopo.jobs.pores import write_pores
 from voxtopo.porosity import analyse
-from voxtopo.porosity._euler import euler_characteristic, euler_characteristic_python
+from voxtopo.porosity._euler import (euler_characteristic, euler_characteristic_python,
+                                     phase_euler_characteristics)
 
 ONE_VOXEL = 1.0
 ENGINE = "gudhi"
@@ -177,6 +178,23 @@ def test_euler_counting_matches_scikit_image_and_its_twin(connectivity, neighbou
         expected = euler_number(mask, connectivity=connectivity)
         assert euler_characteristic(mask, neighbourhood) == expected
         assert euler_characteristic_python(mask, neighbourhood) == expected
+
+
+@pytest.mark.parametrize("shape", [(6, 7, 8), (1, 6, 9), (9, 11), (2, 2)])
+def test_both_phases_counted_in_one_pass_match_scikit_image(shape):
+    # skimage.measure.euler_number (Ohser, Nagel & Schladitz 2002): the pore phase with the
+    # full neighbourhood (connectivity ndim), the solid with the face one (connectivity 1),
+    # each cut to a random region of interest (a voxel outside it is in neither phase).
+    rng = np.random.default_rng(len(shape) * 100 + shape[0])
+    full, face = (26, 6) if len(shape) == 3 else (8, 4)
+    for _ in range(10):
+        mask = rng.random(shape) < rng.uniform(0.2, 0.8)
+        sample = rng.random(shape) < 0.8
+        assert phase_euler_characteristics(mask, (full, face), sample) == (
+            euler_number(mask & sample, connectivity=len(shape)),
+            euler_number(~mask & sample, connectivity=1))
+        assert phase_euler_characteristics(mask, (face, full)) == (
+            euler_number(mask, connectivity=1), euler_number(~mask, connectivity=len(shape)))
 
 
 def test_euler_characteristic_agrees_with_the_betti_numbers_at_level_zero():

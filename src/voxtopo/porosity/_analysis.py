@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import threading
 import time
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -45,10 +47,6 @@ _BASE_BYTES = 380_000_000
 #: after the engine's memory diet (same data): estimate / peak 0.98 at 256^3 (0.85 of
 #: 0.86 GB) and 0.94 at 512^3 (4.1 of 4.4 GB), so the share stays.
 _ENGINE_PLAN_SHARE = 0.63
-
-#: the Euler characteristic's padded and shifted masks with the solid's mask, bytes per
-#: voxel (3 measured at 256^3, plus the solid)
-_EULER_BYTES_PER_VOXEL = 4
 
 #: what to do when a pore analysis would not fit in memory
 REMEDY = ("crop it (--crop), downsample it (--downsample), or run it out of core "
@@ -339,14 +337,15 @@ def _basin_features(depth: np.ndarray, phase: np.ndarray, neighbourhood: int, bi
     ``edge`` (flat bool, or None for the scan's outer layer) marks the voxels at the border
     of the scan or of the sample;
     ``room_in_sample`` (or None) is each voxel's distance to the nearest voxel outside the
-    region of interest.
+    region of interest. ``order`` holds every voxel of the phase, so the sweep also gives
+    the phase's connected pieces (``pieces``, :class:`._sweep.Pieces`).
     """
     shape = phase.shape
     level = np.minimum(deaths, 0.0)
     order_q = np.argsort(level, kind="stable")
-    size, own, touches = _sweep.basins(order, depth, shape, neighbourhood,
-                                       birth_voxel[order_q], level[order_q], edge=edge,
-                                       flip=flip)
+    (size, own, touches), pieces = _sweep.basins_and_pieces(
+        order, depth, shape, neighbourhood, birth_voxel[order_q], level[order_q], edge=edge,
+        flip=flip)
     back = np.empty_like(order_q)
     back[order_q] = np.arange(len(order_q))
     voxel_volume = float(np.prod(spacing))
@@ -360,6 +359,7 @@ def _basin_features(depth: np.ndarray, phase: np.ndarray, neighbourhood: int, bi
         "border": touches[back] | ball_outside(centre, body_radius, shape, spacing, room_at),
         "own_size": own[back] * voxel_volume,
         "basin_voxels": size[back],
+        "pieces": pieces,
     }
 
 
@@ -379,16 +379,17 @@ def ball_outside(centre: np.ndarray, body_radius: np.ndarray, shape, spacing,
 
 def _phase_table(pairs: pd.DataFrame, depth: np.ndarray, phase: np.ndarray, neighbourhood,
                  spacing, flip: bool, min_persistence: float, names: tuple[str, str],
-                 order=None, edge=None, room_in_sample=None):
-    """Table of the dimension-0 features of one phase (pores, or grains with ``flip``).
+                 order=None, edge=None, room_in_sample=None, member: bool = True):
+    """(table, pieces) of the dimension-0 features of one phase (pores, or grains with
+    ``flip``) and the phase's connected pieces (:class:`._sweep.Pieces`).
 
     ``depth`` is the signed distance (negative in the pores); with ``flip`` (the solid)
     its negative is swept, without a copy.
+    ``phase``: the voxels where it equals ``member`` are the phase (the solid of a whole
+    scan is ``mask`` with ``member`` False, without a mask of its own).
     ``order``: the phase's voxels by increasing depth (computed when not given).
     ``edge``: flat bool array of the voxels at the border of the scan or of the sample
-    (None: the scan's outer layer).
-    The ``isolated`` column comes after, from the phase's connected pieces
-    (:func:`_with_isolated`), so that the labels and the sweep are not in memory together."""
+    (None: the scan's outer layer)."""
     ndim = phase.ndim
     axes = AXES_3D[3 - ndim:]
     body, neck = names
@@ -403,7 +404,7 @@ def _phase_table(pairs: pd.DataFrame, depth: np.ndarray, phase: np.ndarray, neig
     birth_voxel = _flat(pairs, "birth", phase.shape)
     death_voxel = _flat(pairs, "death", phase.shape)
     if order is None:
-        order = _sweep.sweep_order(depth, phase, descending=flip)
+        order = _sweep.sweep_order(depth, phase, member=member, descending=flip)
     feats = _basin_features(depth, phase, neighbourhood, births, deaths, birth_voxel, spacing,
                             order, edge, room_in_sample, flip)
     del order
@@ -419,12 +420,13 @@ def _phase_table(pairs: pd.DataFrame, depth: np.ndarray, phase: np.ndarray, neig
     table["border"] = feats["border"].astype(bool)
     table["lifetime"] = deaths - births
     table[size_column(ndim, body)] = feats["own_size"]
+    table["isolated"] = _isolated(feats["pieces"], birth_voxel)
     # the birth voxel's indices beside its physical position: the key to the regions
     birth_index = np.unravel_index(np.maximum(birth_voxel, 0), phase.shape)
     for k, a in enumerate(axes):
         table[f"{body}_voxel_{a}"] = birth_index[k].astype(np.int64)
     table["pair_row"] = pairs.index.to_numpy(dtype=np.int64)
-    return largest_first(pd.DataFrame(table), body, axes)
+    return largest_first(pd.DataFrame(table), body, axes), feats["pieces"]
 
 
 def largest_first(frame: pd.DataFrame, body: str, axes) -> pd.DataFrame:
@@ -437,23 +439,16 @@ def largest_first(frame: pd.DataFrame, body: str, axes) -> pd.DataFrame:
     return frame.reset_index(drop=True)
 
 
-def _with_isolated(table: pd.DataFrame, pieces: np.ndarray, edge, body: str) -> pd.DataFrame:
-    """``table`` with ``isolated`` after the size column: the feature's connected piece of
-    the phase (``pieces``, at level 0) holds no other feature of the table and touches no
-    border (``edge``: flat bool, None for the scan's outer layer): a closed pore (or a
-    loose grain)."""
-    axes = AXES_3D[3 - pieces.ndim:]
-    voxel = tuple(table[f"{body}_voxel_{a}"].to_numpy(dtype=np.int64) for a in axes)
-    piece = pieces[voxel] if len(table) else np.zeros(0, dtype=np.int64)
-    n_pieces = int(pieces.max()) + 1
-    features_in_piece = np.bincount(piece, minlength=n_pieces)
-    at_edge = np.zeros(n_pieces, dtype=bool)
-    at_edge[_labels_at_edge(pieces, edge)] = True
-    at_edge[0] = False
-    table = table.copy()
-    table.insert(table.columns.get_loc(size_column(pieces.ndim, body)) + 1, "isolated",
-                 (features_in_piece[piece] == 1) & ~at_edge[piece])
-    return table
+def _isolated(pieces, birth_voxel: np.ndarray) -> np.ndarray:
+    """For each feature (its birth voxel): its connected piece of the phase (at level 0)
+    holds no other feature and reaches no border of the scan or sample: a closed pore (or
+    a loose grain). A feature without a birth voxel (index -1) is not isolated."""
+    known = birth_voxel >= 0
+    piece = pieces.piece_of(birth_voxel[known])
+    _, which, features_in_piece = np.unique(piece, return_inverse=True, return_counts=True)
+    isolated = np.zeros(len(birth_voxel), dtype=bool)
+    isolated[known] = (features_in_piece[which] == 1) & ~pieces.at_border(piece)
+    return isolated
 
 
 def _with_robust(table: pd.DataFrame, robust_above: float) -> pd.DataFrame:
@@ -547,74 +542,47 @@ def _void_table(solid_diagram, spacing, min_persistence) -> pd.DataFrame:
 
 
 # -------------------------------------------------------------------- whole-scan numbers
-def percolation(distance: np.ndarray, mask: np.ndarray, axis: int, neighbourhood: int,
-                spacing, order=None):
-    """(radius, critical voxel) for one axis: the largest r such that the pore voxels at
-    distance >= r from the solid connect the inlet face to the outlet face; (0, None) when
-    the faces never join through the pore phase."""
+def percolation_radii(distance: np.ndarray, mask: np.ndarray, axes, neighbourhood: int,
+                      spacing, order=None) -> dict:
+    """Axis -> (radius, critical voxel) for each of ``axes``, all from one sweep: the
+    largest r such that the pore voxels at distance >= r from the solid connect the inlet
+    face to the outlet face; (0, None) when the faces never join through the pore phase."""
     if order is None:
         order = _sweep.sweep_order(distance, mask)
-    step = _sweep.percolation_step(order, mask.shape, axis, neighbourhood)
-    if step < 0:
-        return 0.0, None
-    voxel = int(order[step])
-    return float(-distance.ravel()[voxel]), _coordinates(np.array([voxel]), mask.shape,
-                                                          spacing)[0]
+    steps = _sweep.percolation_steps(order, mask.shape, list(axes), neighbourhood)
+    found = {}
+    for axis, step in steps.items():
+        if step < 0:
+            found[axis] = (0.0, None)
+            continue
+        voxel = int(order[step])
+        found[axis] = (float(-distance.ravel()[voxel]),
+                       _coordinates(np.array([voxel]), mask.shape, spacing)[0])
+    return found
 
 
-def pore_components(mask: np.ndarray, neighbourhood: int) -> np.ndarray:
-    """Labels of the connected pieces of a phase (scipy.ndimage.label), the pore phase's or
-    the solid's, with that phase's neighbourhood."""
-    full = neighbourhood in (26, 8)
-    structure = ndimage.generate_binary_structure(mask.ndim, mask.ndim if full else 1)
-    labels = np.empty(mask.shape, dtype=index_dtype(mask.size))
-    ndimage.label(mask, structure=structure, output=labels)
-    return labels
+def percolation(distance: np.ndarray, mask: np.ndarray, axis: int, neighbourhood: int,
+                spacing, order=None):
+    """(radius, critical voxel) for one axis (:func:`percolation_radii`)."""
+    return percolation_radii(distance, mask, [axis], neighbourhood, spacing, order)[axis]
 
 
-def connected_fraction(labels: np.ndarray, axis: int, sample_voxels: int | None = None,
-                       sizes: np.ndarray | None = None) -> float:
-    """Fraction of the sample's volume (default: the scan's) in pore components touching
-    both faces of ``axis``; ``sizes`` (voxels per label, :func:`component_sizes`) saves a
-    pass over ``labels`` when several axes are asked."""
-    inlet = np.unique(np.take(labels, 0, axis=axis))
-    outlet = np.unique(np.take(labels, -1, axis=axis))
-    through = np.intersect1d(inlet[inlet > 0], outlet[outlet > 0])
-    if len(through) == 0:
-        return 0.0
-    if sizes is None:
-        sizes = component_sizes(labels)
-    return float(sizes[through].sum() / (sample_voxels or labels.size))
+def connected_fraction(pieces, phase: np.ndarray, axis: int, sample_voxels: int) -> float:
+    """Fraction of the sample's volume (``sample_voxels``) in the pieces of the pore phase
+    (``phase``, its :class:`._sweep.Pieces`) touching both faces of ``axis``."""
+    through = np.intersect1d(pieces.on_face(phase, axis, 0), pieces.on_face(phase, axis, -1))
+    return float(pieces.sizes(through).sum() / sample_voxels)
 
 
-def component_sizes(labels: np.ndarray) -> np.ndarray:
-    """Voxels per label (index = label), counted slab by slab: np.bincount would first copy
-    the labels to 8-byte integers."""
-    sizes = np.zeros(int(labels.max()) + 1, dtype=np.int64)
-    slabs = labels.reshape(-1, *labels.shape[-2:]) if labels.ndim > 2 else labels[np.newaxis]
-    for slab in slabs:
-        sizes += np.bincount(slab.ravel(), minlength=len(sizes))
-    return sizes
-
-
-def _labels_at_edge(labels: np.ndarray, edge) -> np.ndarray:
-    """The distinct labels found on ``edge`` (flat bool), or on the scan's outer layer when
-    ``edge`` is None (read from the faces, without a mask of the whole scan)."""
-    if edge is not None:
-        return np.unique(labels.ravel()[np.ravel(edge)])
-    faces = [np.unique(np.take(labels, end, axis=axis))
-             for axis in range(labels.ndim) for end in (0, -1)]
-    return np.unique(np.concatenate(faces))
-
-
-def minkowski(mask: np.ndarray, spacing, chi_pore: int, sample=None) -> dict:
+def minkowski(mask: np.ndarray, spacing, chi_pore: int, sample=None, stop=None) -> dict:
     """Minkowski functionals of the pore phase per unit volume of the sample (default: the
-    scan); with ``sample`` only the interface inside it counts."""
+    scan); with ``sample`` only the interface inside it counts. ``stop`` (a
+    threading.Event), once set, ends the meshing between two slabs with Cancelled."""
     sample_voxels = mask.size if sample is None else int(np.count_nonzero(sample))
     volume = sample_voxels * float(np.prod(spacing))
     if mask.ndim == 3:
         area, curvature = _minkowski.interface_measures(mask, spacing, SURFACE_SMOOTHING_VOXELS,
-                                                        sample)
+                                                        sample, stop)
         mean_curvature_density = curvature / volume
     else:
         soft = ndimage.gaussian_filter(mask.astype(np.float32), sigma=SURFACE_SMOOTHING_VOXELS,
@@ -826,10 +794,10 @@ def estimate(shape, dtype=np.uint8, *, neighbourhood: int | None = None,
     Held through the run: the scan, the pore mask, the float32 signed distance and the
     interpreter with its libraries. On top of it, one step at a time: a persistence run
     on the float32 field (a calibrated share of the engine's estimate, which plans for
-    gray images with many more pairs), the sweeps of one phase (the order of
-    its voxels and one union-find index per voxel, or its component labels), or the
-    integral geometry (the Euler count's shifted masks). The constants are calibrated on
-    the peaks of benchmarks/bench_pores.py (see there).
+    gray images with many more pairs), or the sweeps of one phase (the order of its voxels
+    and one union-find index per voxel, which also gives its connected pieces) with the
+    integral geometry beside them on a second thread (one slab's mesh at a time). The
+    constants are calibrated on the peaks of benchmarks/bench_pores.py (see there).
 
     Examples
     --------
@@ -851,13 +819,78 @@ def estimate(shape, dtype=np.uint8, *, neighbourhood: int | None = None,
     # a second float32 field beside the sample's (the outside levels)
     persistence_run += voxels * 4 if roi else 0
     # the order of one phase's voxels (planned for all of them), one union-find index per
-    # voxel and three bits, the solid's mask
-    sweeps = voxels * (2 * index + 3 / 8 + 1)
-    # the Euler count's shifted masks and the solid's, or one slab's mesh
-    integral_geometry = voxels * _EULER_BYTES_PER_VOXEL
+    # voxel and three bits, with a region of interest the solid's mask; beside them the
+    # integral geometry's thread holds one slab's mesh (its Euler count holds nothing)
+    sweeps = voxels * (2 * index + 3 / 8 + (1 if roi else 0))
     if len(shape) == 3:
-        integral_geometry = max(integral_geometry, _minkowski.slab_bytes(shape))
-    return int(_BASE_BYTES + held + max(persistence_run, sweeps, integral_geometry))
+        sweeps += _minkowski.slab_bytes(shape)
+    return int(_BASE_BYTES + held + max(persistence_run, sweeps))
+
+
+def _integral_geometry(mask, sample, spacing, neighbourhoods, stop):
+    """((chi_pore, chi_solid), Minkowski functionals, seconds) of the phases of ``mask``
+    within ``sample``; ``stop`` (an Event) set ends it between two slabs."""
+    clock = time.perf_counter()
+    chi = _euler.phase_euler_characteristics(mask, neighbourhoods, sample)
+    functionals = minkowski(mask, spacing, chi[0], sample, stop=stop)
+    return chi, functionals, time.perf_counter() - clock
+
+
+def _features(field, mask, sample, pore, diagram, solid_diagram, neighbourhoods, spacing,
+              min_persistence, robust_above, axes, sample_voxels, timings, step):
+    """The feature tables, percolation and connected porosity of both phases, one phase
+    at a time; adds the seconds of ``features`` and ``percolation`` to ``timings``.
+
+    Returns (pores, grains, loops, voids, radius, critical, connected, solid_pieces,
+    pore_rows)."""
+    n_pore, n_solid = neighbourhoods
+    names = AXES_3D[3 - mask.ndim:]
+    step("pores and grains", 0.0)
+    clock = time.perf_counter()
+    edge = room_in_sample = None
+    if sample is not None:
+        rim = sample & ~ndimage.binary_erosion(sample, border_value=1)
+        edge = rim.ravel()
+        del rim
+        room_in_sample = _edt.distance_to_nearest(~sample, spacing)
+    pore_order = _sweep.sweep_order(field, pore)
+    pores, pieces = _phase_table(_rows_of_dimension(diagram, 0), field, pore, n_pore, spacing,
+                                 False, min_persistence, ("body", "throat"), pore_order, edge,
+                                 room_in_sample)
+    faces_in_sample = {a: sample is None or (np.take(sample, 0, axis=a).any()
+                                             and np.take(sample, -1, axis=a).any())
+                       for a in axes}
+    connected = {names[a]: (connected_fraction(pieces, pore, a, sample_voxels)
+                            if faces_in_sample[a] else None) for a in axes}
+    del pieces
+    timings["features"] = time.perf_counter() - clock
+
+    step("percolation", 0.0)
+    clock = time.perf_counter()
+    found = percolation_radii(field, pore, [a for a in axes if faces_in_sample[a]], n_pore,
+                              spacing, pore_order)
+    del pore_order
+    radius = {names[a]: found[a][0] if a in found else None for a in axes}
+    critical = {names[a]: found[a][1] if a in found else None for a in axes}
+    step("percolation", 1.0)
+    timings["percolation"] = time.perf_counter() - clock
+
+    clock = time.perf_counter()
+    # the solid of a whole scan is swept as the voxels where the mask is False
+    solid, member = (mask, False) if sample is None else (~mask & sample, True)
+    grains, pieces = _phase_table(_rows_of_dimension(solid_diagram, 0), field, solid, n_solid,
+                                  spacing, True, min_persistence, ("body", "neck"), None, edge,
+                                  room_in_sample, member=member)
+    solid_pieces = pieces.count()
+    del pieces, solid, room_in_sample, edge
+    pore_rows = pores.pop("pair_row").to_numpy()
+    grains.pop("pair_row")
+    loops = _loop_table(diagram, spacing, min_persistence)
+    voids = _void_table(solid_diagram, spacing, min_persistence)
+    pores, grains, loops, voids = (_with_robust(table, robust_above)
+                                   for table in (pores, grains, loops, voids))
+    timings["features"] += time.perf_counter() - clock
+    return pores, grains, loops, voids, radius, critical, connected, solid_pieces, pore_rows
 
 
 # ------------------------------------------------------------------------------ analyse
@@ -1052,73 +1085,27 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
         solid_diagram = sig.robust_flags(solid_diagram, delta)
         timings["persistence"] = time.perf_counter() - clock
 
-        # one phase at a time, and within it one large array besides the sweep order: the
-        # basin sweep, then the connected pieces, then the percolation sweeps
-        step("pores and grains", 0.0)
-        clock = time.perf_counter()
-        edge = room_in_sample = None
-        if sample is not None:
-            rim = sample & ~ndimage.binary_erosion(sample, border_value=1)
-            edge = rim.ravel()
-            del rim
-            room_in_sample = _edt.distance_to_nearest(~sample, spacing)
-        pore_order = _sweep.sweep_order(field, pore)
-        pores = _phase_table(_rows_of_dimension(diagram, 0), field, pore, n_pore, spacing, False,
-                             min_persistence, ("body", "throat"), pore_order, edge,
-                             room_in_sample)
-        labels = pore_components(pore, n_pore)
-        pores = _with_isolated(pores, labels, edge, "body")
-        names = AXES_3D[3 - scan.ndim:]
-        faces_in_sample = {a: sample is None or (np.take(sample, 0, axis=a).any()
-                                                 and np.take(sample, -1, axis=a).any())
-                           for a in axes}
-        connected = {names[a]: None for a in axes}
-        if any(faces_in_sample.values()):
-            sizes = component_sizes(labels)
-            connected.update({names[a]: connected_fraction(labels, a, sample_voxels, sizes)
-                              for a in axes if faces_in_sample[a]})
-        del labels
-        timings["features"] = time.perf_counter() - clock
-
-        step("percolation", 0.0)
-        clock = time.perf_counter()
-        radius, critical = {}, {}
-        for k, a in enumerate(axes):
-            if faces_in_sample[a]:
-                radius[names[a]], critical[names[a]] = percolation(field, pore, a, n_pore,
-                                                                   spacing, pore_order)
-            else:
-                radius[names[a]], critical[names[a]] = None, None
-            step("percolation", (k + 1) / len(axes))
-        del pore_order
-        timings["percolation"] = time.perf_counter() - clock
-
-        clock = time.perf_counter()
-        solid = ~mask if sample is None else ~mask & sample
-        grains = _phase_table(_rows_of_dimension(solid_diagram, 0), field, solid, n_solid,
-                              spacing, True, min_persistence, ("body", "neck"), None, edge,
-                              room_in_sample)
-        solid_labels = pore_components(solid, n_solid)
-        solid_pieces = int(solid_labels.max())
-        grains = _with_isolated(grains, solid_labels, edge, "body")
-        del solid_labels, room_in_sample, edge
-        pore_rows = pores.pop("pair_row").to_numpy()
-        grains.pop("pair_row")
-        loops = _loop_table(diagram, spacing, min_persistence)
-        voids = _void_table(solid_diagram, spacing, min_persistence)
-        pores, grains, loops, voids = (_with_robust(table, robust_above)
-                                       for table in (pores, grains, loops, voids))
-        timings["features"] += time.perf_counter() - clock
-
+        # the integral geometry needs only the mask (and one slab's mesh at a time): it
+        # runs on the second core while the sweeps run here, one phase at a time, each
+        # with one union-find array besides its sweep order
         step("integral geometry", 0.0)
-        clock = time.perf_counter()
-        chi_pore = _euler.euler_characteristic(pore, n_pore)
-        chi_solid = _euler.euler_characteristic(solid, n_solid)
-        del solid
-        volume = sample_voxels * float(np.prod(spacing))
-        functionals = minkowski(mask, spacing, chi_pore, sample)
-        timings["integral_geometry"] = time.perf_counter() - clock
+        stop = threading.Event()
+        with ThreadPoolExecutor(max_workers=1) as background:
+            geometry = background.submit(_integral_geometry, mask, sample, spacing,
+                                         (n_pore, n_solid), stop)
+            try:
+                features = _features(field, mask, sample, pore, diagram, solid_diagram,
+                                     (n_pore, n_solid), spacing, min_persistence,
+                                     robust_above, axes, sample_voxels, timings, step)
+            except BaseException:
+                stop.set()
+                raise
+            (chi_pore, chi_solid), functionals, timings["integral_geometry"] = \
+                geometry.result()
         step("integral geometry", 1.0)
+        (pores, grains, loops, voids, radius, critical, connected, solid_pieces,
+         pore_rows) = features
+        volume = sample_voxels * float(np.prod(spacing))
 
         summary = pore_summary(
             notes=notes, radius=radius, critical=critical, connected=connected,
@@ -1128,6 +1115,9 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
             robust_above), segmentation=segmentation, roi_used=sample is not None,
             voxels=(pore_voxels, sample_voxels, mask.size), unit=scan.unit, spacing=spacing,
             shape=mask.shape, min_persistence=min_persistence, timings=timings)
+        summary["timings_note"] = ("integral_geometry runs on a second thread beside features "
+                                   "and percolation: their seconds overlap, and the stages "
+                                   "add up to more than the run's wall time")
         return PoreAnalysis(pores=pores, grains=grains, loops=loops, voids=voids, summary=summary,
                             diagram=diagram, solid_diagram=solid_diagram, mask=mask,
                             distance=distance, critical_throats=critical, sample=sample,

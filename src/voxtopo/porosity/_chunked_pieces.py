@@ -8,8 +8,8 @@ chunk face are then joined: for every face between chunks the two voxel planes o
 side are laid out over the whole scan, and every pair of neighbouring phase voxels across
 it (straight across, and diagonally with the 26 / 8 neighbourhood) joins their labels. The
 joined labels are the connected components of a graph with one node per local label,
-so the result equals labelling the whole scan at once (:func:`voxtopo.porosity._analysis.
-pore_components`)::
+so the result equals labelling the whole scan at once (scipy.ndimage.label with the
+phase's neighbourhood)::
 
     chunk A | chunk B        plane of A's last voxels  a a . b
             |                plane of B's first voxels a . b b

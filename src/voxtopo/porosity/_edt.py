@@ -269,6 +269,36 @@ def _two_phase_along_last(volume, phase, step2):
 
 
 @njit(cache=True, nogil=True, parallel=True)
+def _two_phase_first_pass(volume, phase, step2):
+    """The first pass (along axis 2) of both problems from the phases alone: along a line
+    the squared distance from a voxel to the nearest voxel of the other phase, found from
+    the last voxel of each phase seen going right, then going left (the lower envelope of
+    parabolas at 0 on the other phase's voxels, without the envelope)."""
+    n0, n1, n = volume.shape
+    for line in prange(n0 * n1):
+        a, b = line // n1, line % n1
+        last_in, last_out = -1, -1  # last voxel of the phase, and of the rest
+        for i in range(n):
+            other = last_out if phase[a, b, i] else last_in
+            volume[a, b, i] = np.inf if other < 0 else step2 * (i - other) * (i - other)
+            if phase[a, b, i]:
+                last_in = i
+            else:
+                last_out = i
+        last_in, last_out = n, n
+        for i in range(n - 1, -1, -1):
+            other = last_out if phase[a, b, i] else last_in
+            if other < n:
+                d = step2 * (other - i) * (other - i)
+                if d < volume[a, b, i]:
+                    volume[a, b, i] = d
+            if phase[a, b, i]:
+                last_in = i
+            else:
+                last_out = i
+
+
+@njit(cache=True, nogil=True, parallel=True)
 def _two_phase_along_middle(volume, phase, step2, width):
     n0, n, n2 = volume.shape
     blocks = (n2 + width - 1) // width
@@ -323,13 +353,13 @@ def signed_squared_distance(phase: np.ndarray, spacing=None) -> np.ndarray:
     spacing = _check_spacing(spacing, phase.ndim)
     if phase.all() or not phase.any():
         raise ValueError("signed_squared_distance needs a voxel of each phase.")
-    squared = np.full(phase.shape, np.inf, dtype=np.float32)
+    squared = np.empty(phase.shape, dtype=np.float32)  # the first pass writes every voxel
     volume, _ = _as_3d(squared, 0)
     inside, _ = _as_3d(phase, 0)
     for axis in reversed(range(3 - phase.ndim, 3)):
         step2 = spacing[axis - (3 - phase.ndim)] ** 2
         if axis == 2:
-            _two_phase_along_last(volume, inside, step2)
+            _two_phase_first_pass(volume, inside, step2)
             continue
         v, p = ((volume.swapaxes(0, 1), inside.swapaxes(0, 1)) if axis == 0
                 else (volume, inside))

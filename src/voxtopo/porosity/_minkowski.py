@@ -16,13 +16,18 @@ import numpy as np
 from numba import njit
 from scipy import ndimage
 
+from ..errors import Cancelled
+
 #: voxels of the cells one slab of :func:`interface_measures` counts as its own, at most:
-#: a slab's mesh and the curvature kernel's table take about MESH_BYTES_PER_VOXEL, so
-#: about 0.7 GB at this size (8 planes of 1024 x 1024)
+#: a slab's mesh and the kernel's edge lists take at most MESH_BYTES_PER_VOXEL, so
+#: at most 0.7 GB at this size (8 planes of 1024 x 1024)
 SLAB_VOXELS = 1 << 23
 
-#: bytes of mesh and curvature table per voxel of a slab (78 measured on 256 x 256 x 34
-#: of a bead packing: they follow the interface's area, which a finer structure raises)
+#: bytes of mesh and curvature tables per voxel of a slab, an upper bound: 78 measured on
+#: 256 x 256 x 34 of a bead packing with an earlier kernel that paired edges in a hash
+#: table; the edge lists of :func:`_slab_kernel` need about a quarter less (growth of the
+#: peak resident memory on that slab: 40 bytes per voxel against 54). They follow the
+#: interface's area, which a finer structure raises.
 MESH_BYTES_PER_VOXEL = 80
 
 
@@ -48,7 +53,7 @@ def interface_mesh(pore: np.ndarray, spacing):
 
     if pore.max() <= 0.5 or pore.min() >= 0.5:
         return np.zeros((0, 3)), np.zeros((0, 3), dtype=np.int64)
-    vertices, faces, _, _ = marching_cubes(pore.astype(np.float32), level=0.5,
+    vertices, faces, _, _ = marching_cubes(np.asarray(pore, dtype=np.float32), level=0.5,
                                            spacing=tuple(float(s) for s in spacing),
                                            allow_degenerate=False)
     # marching_cubes winds its faces the other way round for this orientation
@@ -69,7 +74,7 @@ def integral_mean_curvature(vertices: np.ndarray, faces: np.ndarray) -> float:
 
     The sign is taken from the faces' own orientation: with normals pointing out of the
     pore phase, an edge where the surface bends away from the normal side is convex (+).
-    The twin of the slab kernel :func:`_curvature_kernel`, vectorised and easy to read.
+    The twin of the slab kernel :func:`_slab_kernel`, vectorised and easy to read.
     """
     return float(np.sum(edge_curvature_terms(vertices, faces)[2]))
 
@@ -139,15 +144,8 @@ def boundary_length_2d(mask: np.ndarray, spacing, sample=None) -> float:
     return total
 
 
-def _cells_of(points_z: np.ndarray, step: float) -> np.ndarray:
-    """Cell (between voxel planes k and k + 1) of each z position of a slab, in the slab's
-    plane numbering; a position on plane k belongs to cell k. The small margin keeps a
-    point on a plane on it despite the rounding of ``(i + t) * step / step``."""
-    return np.floor(points_z / step + 1e-6).astype(np.int64)
-
-
 def interface_measures(mask: np.ndarray, spacing, smoothing: float,
-                       sample=None) -> tuple[float, float]:
+                       sample=None, stop=None) -> tuple[float, float]:
     """(area, integral mean curvature) of the pore/solid interface of a 3D mask, meshed
     slab by slab along z.
 
@@ -156,7 +154,9 @@ def interface_measures(mask: np.ndarray, spacing, smoothing: float,
     whole volume's; each slab is meshed with one more cell on each side, and counts the
     triangles whose centroid and the edges whose midpoint lie in its own cells, so every
     triangle and every interior edge (with both of its triangles) counts once. With
-    ``sample`` only the triangles whose centroid lies in a sample voxel count.
+    ``sample`` only the triangles whose centroid lies in a sample voxel count. ``stop`` (a
+    threading.Event), once set, ends the work before the next slab with Cancelled: the
+    analysis it was part of has stopped.
     """
     spacing = tuple(float(s) for s in spacing)
     reach = int(4.0 * smoothing + 0.5)  # gaussian_filter's radius at its default truncate=4
@@ -164,6 +164,8 @@ def interface_measures(mask: np.ndarray, spacing, smoothing: float,
     area = curvature = 0.0
     planes = slab_planes(mask.shape)
     for first in range(0, nz - 1, planes):
+        if stop is not None and stop.is_set():
+            raise Cancelled("The interface measures were stopped with the analysis.")
         last = min(first + planes, nz - 1)  # this slab's cells: first .. last - 1
         low, high = max(first - 1, 0), min(last + 1, nz - 1)  # planes meshed
         read_low, read_high = max(low - reach, 0), min(high + 1 + reach, nz)
@@ -176,25 +178,29 @@ def interface_measures(mask: np.ndarray, spacing, smoothing: float,
         if sample is not None:
             shifted = vertices + np.array([low * spacing[0], 0.0, 0.0])
             faces = faces_in_sample(shifted, faces, sample, spacing)
-        own_cells = (first - low, last - low)
-        centroid_cell = _cells_of(vertices[faces, 0].mean(axis=1), spacing[0])
-        counted = (centroid_cell >= own_cells[0]) & (centroid_cell < own_cells[1])
-        area += surface_area(vertices, faces[counted])
-        curvature += _curvature_kernel(vertices.astype(np.float64), faces, own_cells[0],
-                                       own_cells[1], spacing[0])
+        slab_area, slab_curvature = _slab_kernel(vertices.astype(np.float64), faces,
+                                                 first - low, last - low, spacing[0])
+        area += slab_area
+        curvature += slab_curvature
     return area, curvature
 
 
 @njit(cache=True, nogil=True)
-def _curvature_kernel(vertices, faces, first_cell, stop_cell, step):
-    """:func:`integral_mean_curvature` of the edges whose midpoint lies in the cells
-    ``first_cell`` to ``stop_cell`` (exclusive) along z (voxel size ``step``): the part of
-    a slab's mesh that is the slab's own. One pass over the faces: the first directed edge
-    of each undirected edge waits in a hash table for its twin. Assumes a manifold,
-    consistently wound mesh (marching cubes: at most two faces per edge)."""
+def _slab_kernel(vertices, faces, first_cell, stop_cell, step):
+    """(area, integral mean curvature) of the part of a slab's mesh that is the slab's own:
+    the triangles whose centroid and the interior edges whose midpoint lie in the cells
+    ``first_cell`` to ``stop_cell`` (exclusive) along z (voxel size ``step``; cell k lies
+    between voxel planes k and k + 1 of the slab, and a point on plane k belongs to cell
+    k: the small margin keeps it there despite the rounding of ``(i + t) * step / step``).
+    The area is :func:`surface_area`'s, the curvature
+    :func:`integral_mean_curvature`'s (its vectorised twin). The edges are listed under
+    their lower vertex (a counting sort), where an interior edge's two faces meet: the
+    lists are short and follow the mesh's own order, so the pass stays in cache. Assumes a
+    manifold, consistently wound mesh (marching cubes: at most two faces per edge)."""
     n_faces = faces.shape[0]
     n_vertices = vertices.shape[0]
     normals = np.zeros((n_faces, 3))
+    area = 0.0
     for f in range(n_faces):
         a, b, c = faces[f, 0], faces[f, 1], faces[f, 2]
         u0, u1, u2 = (vertices[b, 0] - vertices[a, 0], vertices[b, 1] - vertices[a, 1],
@@ -203,45 +209,57 @@ def _curvature_kernel(vertices, faces, first_cell, stop_cell, step):
                       vertices[c, 2] - vertices[a, 2])
         n0, n1, n2 = u1 * w2 - u2 * w1, u2 * w0 - u0 * w2, u0 * w1 - u1 * w0
         length = np.sqrt(n0 * n0 + n1 * n1 + n2 * n2)
+        centroid = (vertices[a, 0] + vertices[b, 0] + vertices[c, 0]) / 3.0
+        cell = np.int64(np.floor(centroid / step + 1e-6))
+        if first_cell <= cell < stop_cell:
+            area += 0.5 * length
         scale = 1.0 / length if length > 0 else 1.0
         normals[f, 0], normals[f, 1], normals[f, 2] = n0 * scale, n1 * scale, n2 * scale
-    capacity = 1
-    while capacity < 4 * n_faces:
-        capacity *= 2
-    keys = np.full(capacity, -1, np.int64)
-    waiting = np.zeros(capacity, np.int64)
-    total = 0.0
+    # each undirected edge, listed under its lower vertex with its higher vertex and the
+    # face it came from (negative, -f - 1, when the face runs it from high to low); an
+    # interior edge is listed twice, once from each of its two faces
+    listed = np.zeros(n_vertices + 1, np.int64)
+    for f in range(n_faces):
+        for k in range(3):
+            listed[min(faces[f, k], faces[f, (k + 1) % 3]) + 1] += 1
+    for v in range(n_vertices):
+        listed[v + 1] += listed[v]
+    filled = listed[:-1].copy()
+    higher = np.empty(3 * n_faces, np.int64)
+    owner = np.empty(3 * n_faces, np.int64)
     for f in range(n_faces):
         for k in range(3):
             start, end = faces[f, k], faces[f, (k + 1) % 3]
-            low, high = min(start, end), max(start, end)
-            key = low * n_vertices + high
-            slot = np.int64((np.uint64(key) * np.uint64(0x9E3779B97F4A7C15))
-                            >> np.uint64(40)) & (capacity - 1)
-            while keys[slot] != -1 and keys[slot] != key:
-                slot = (slot + 1) & (capacity - 1)
-            if keys[slot] == -1:
-                keys[slot] = key
-                waiting[slot] = f if start < end else -f - 1
-                continue
-            other = waiting[slot]
-            # the face whose directed edge runs from the lower vertex to the higher is a
-            fa, fb = (other, f) if other >= 0 else (f, -other - 1)
-            # as _cells_of: a midpoint on a plane belongs to the cell above it
-            middle = 0.5 * (vertices[low, 0] + vertices[high, 0])
-            cell = np.int64(np.floor(middle / step + 1e-6))
-            if cell < first_cell or cell >= stop_cell:
-                continue
-            e0, e1, e2 = (vertices[high, 0] - vertices[low, 0],
-                          vertices[high, 1] - vertices[low, 1],
-                          vertices[high, 2] - vertices[low, 2])
-            edge_length = np.sqrt(e0 * e0 + e1 * e1 + e2 * e2)
-            if edge_length > 0:
-                e0, e1, e2 = e0 / edge_length, e1 / edge_length, e2 / edge_length
-            a0, a1, a2 = normals[fa, 0], normals[fa, 1], normals[fa, 2]
-            b0, b1, b2 = normals[fb, 0], normals[fb, 1], normals[fb, 2]
-            sine = ((a1 * b2 - a2 * b1) * e0 + (a2 * b0 - a0 * b2) * e1
-                    + (a0 * b1 - a1 * b0) * e2)
-            cosine = a0 * b0 + a1 * b1 + a2 * b2
-            total += edge_length * np.arctan2(sine, cosine)
-    return 0.5 * total
+            low = min(start, end)
+            higher[filled[low]] = max(start, end)
+            owner[filled[low]] = f if start < end else -f - 1
+            filled[low] += 1
+    total = 0.0
+    for low in range(n_vertices):
+        for i in range(listed[low], listed[low + 1]):
+            high = higher[i]
+            for j in range(i + 1, listed[low + 1]):
+                if higher[j] != high:
+                    continue
+                # the face whose directed edge runs from the lower vertex to the higher is a
+                face_i = owner[i] if owner[i] >= 0 else -owner[i] - 1
+                face_j = owner[j] if owner[j] >= 0 else -owner[j] - 1
+                fa, fb = (face_i, face_j) if owner[i] >= 0 else (face_j, face_i)
+                middle = 0.5 * (vertices[low, 0] + vertices[high, 0])
+                cell = np.int64(np.floor(middle / step + 1e-6))
+                if cell < first_cell or cell >= stop_cell:
+                    break
+                e0, e1, e2 = (vertices[high, 0] - vertices[low, 0],
+                              vertices[high, 1] - vertices[low, 1],
+                              vertices[high, 2] - vertices[low, 2])
+                edge_length = np.sqrt(e0 * e0 + e1 * e1 + e2 * e2)
+                if edge_length > 0:
+                    e0, e1, e2 = e0 / edge_length, e1 / edge_length, e2 / edge_length
+                a0, a1, a2 = normals[fa, 0], normals[fa, 1], normals[fa, 2]
+                b0, b1, b2 = normals[fb, 0], normals[fb, 1], normals[fb, 2]
+                sine = ((a1 * b2 - a2 * b1) * e0 + (a2 * b0 - a0 * b2) * e1
+                        + (a0 * b1 - a1 * b0) * e2)
+                cosine = a0 * b0 + a1 * b1 + a2 * b2
+                total += edge_length * np.arctan2(sine, cosine)
+                break
+    return area, 0.5 * total

@@ -5,9 +5,9 @@ Two questions about the sublevel sets ``{f < level}`` of a signed distance ``f``
 trying radii:
 
 * percolation: the level at which the voxels touching the inlet face and those touching
-  the outlet face of an axis first fall into one component. Each face is a virtual node
-  of the union-find (indices ``n`` and ``n + 1``); a voxel on a face is joined to its node
-  as it enters the sweep.
+  the outlet face of an axis first fall into one component. Each component's root keeps
+  the faces it touches (six bits, two per axis), so one sweep answers all the axes: an
+  axis percolates when a component first holds both of its faces.
 * basins: for each feature (birth voxel, query level) the component of ``{f < level}``
   that holds the birth voxel -- its size, the part of it not already claimed by an earlier
   (nested) basin, and whether it reaches the scan border.
@@ -74,40 +74,78 @@ def _neighbour(offsets, k, z, y, x, nz, ny, nx):
     return (zz * ny + yy) * nx + xx
 
 
+#: ``parent`` entry of a voxel that has not entered the percolation sweep; a root holds
+#: ``-1 - faces`` (``faces``: 6 bits, see :func:`_percolation_kernel`), so from -1 to -64
+_NOT_ENTERED = -65
+
+
+@njit(cache=True)
+def _joining_order(offsets):
+    """(order, earlier) for visiting a voxel's neighbours: face neighbours first, and for
+    the ``i``-th neighbour visited the bits ``j < i`` of the earlier ones adjacent to it.
+    Two neighbours of a voxel that are adjacent to each other and have both entered a
+    sweep are already in one component (the later joined the earlier as it entered), so a
+    neighbour adjacent to an earlier entered one needs no union: with the full
+    neighbourhood a face neighbour alone covers 17 of the 26."""
+    count = offsets.shape[0]
+    order = np.argsort(np.abs(offsets).sum(axis=1), kind="mergesort")
+    earlier = np.zeros(count, np.int64)
+    for i in range(count):
+        for j in range(i):
+            for k in range(count):
+                if (offsets[order[i], 0] - offsets[order[j], 0] == offsets[k, 0]
+                        and offsets[order[i], 1] - offsets[order[j], 1] == offsets[k, 1]
+                        and offsets[order[i], 2] - offsets[order[j], 2] == offsets[k, 2]):
+                    earlier[i] |= np.int64(1) << j
+    return order, earlier
+
+
 @njit(cache=True, nogil=True)
-def _percolation_kernel(order, shape, axis, offsets, parent):
-    """``parent``: n + 2 entries of -1 (index type wide enough for n + 1)."""
+def _percolation_kernel(order, shape, wanted, offsets, parent):
+    """Step of ``order`` at which the first and last faces of each wanted axis join (-1:
+    never), for all the axes in one sweep. A component's root keeps which faces it
+    touches (bit 2a: the first face of axis a, bit 2a + 1: its last face) in its own
+    ``parent`` entry, as ``-1 - faces``; ``parent``: one entry per voxel, all
+    _NOT_ENTERED (index type wide enough for the voxel count)."""
     nz, ny, nx = shape[0], shape[1], shape[2]
-    n = nz * ny * nx
-    inlet, outlet = n, n + 1
-    parent[inlet] = inlet
-    parent[outlet] = outlet
-    last = shape[axis] - 1
+    steps = np.full(3, -1, np.int64)
+    joining, earlier = _joining_order(offsets)
+    left = 0
+    for a in range(3):
+        left += wanted[a]
     for step in range(order.shape[0]):
+        if left == 0:
+            break
         v = np.int64(order[step])
-        parent[v] = v
         z = v // (ny * nx)
         y = (v // nx) % ny
         x = v % nx
-        coord = z if axis == 0 else (y if axis == 1 else x)
-        if coord == 0:
-            a, b = _find(parent, v), _find(parent, inlet)
-            if a != b:
-                parent[a] = b
-        if coord == last:
-            a, b = _find(parent, v), _find(parent, outlet)
-            if a != b:
-                parent[a] = b
-        for k in range(offsets.shape[0]):
-            w = _neighbour(offsets, k, z, y, x, nz, ny, nx)
-            if w < 0 or parent[w] < 0:
+        faces = 0
+        for a in range(3):
+            coord = z if a == 0 else (y if a == 1 else x)
+            if coord == 0:
+                faces |= 1 << (2 * a)
+            if coord == shape[a] - 1:
+                faces |= 2 << (2 * a)
+        parent[v] = -1 - faces
+        entered = np.int64(0)
+        for i in range(joining.shape[0]):
+            w = _neighbour(offsets, joining[i], z, y, x, nz, ny, nx)
+            if w < 0 or parent[w] == _NOT_ENTERED:
                 continue
-            a, b = _find(parent, v), _find(parent, w)
-            if a != b:
-                parent[a] = b
-        if _find(parent, inlet) == _find(parent, outlet):
-            return step
-    return -1
+            entered |= np.int64(1) << i
+            if entered & earlier[i]:
+                continue
+            r = _root(parent, w)
+            if r != v:
+                faces |= -1 - np.int64(parent[r])
+                parent[r] = v
+                parent[v] = -1 - faces
+        for a in range(3):
+            if wanted[a] and steps[a] < 0 and (faces >> (2 * a)) & 3 == 3:
+                steps[a] = step
+                left -= 1
+    return steps
 
 
 @njit(cache=True, inline="always")
@@ -135,14 +173,15 @@ def _root(parent, i):
 
 @njit(cache=True, nogil=True)
 def _basin_kernel(order, values, sign, shape, offsets, query_voxel, query_level, edge,
-                  parent):
+                  parent, border):
     """``parent``: one index per voxel (type wide enough for the voxel count); a root holds
-    minus its size. ``edge`` empty: the border is the scan's outer layer (of a 2D image when
-    ``shape`` is one slice)."""
+    minus its size. ``border``: one zero bit per voxel; a root's bit says whether its
+    component reaches the border. ``edge`` empty: the border is the scan's outer layer (of
+    a 2D image when ``shape`` is one slice). After the sweep ``parent`` and ``border`` hold
+    the connected pieces of the whole phase."""
     nz, ny, nx = shape[0], shape[1], shape[2]
     n = nz * ny * nx
     visited = np.zeros((n + 7) // 8, dtype=np.uint8)
-    border = np.zeros((n + 7) // 8, dtype=np.uint8)
     # voxels claimed by earlier queries, kept for the few roots that were queried
     has_claim = np.zeros((n + 7) // 8, dtype=np.uint8)
     claimed = Dict.empty(key_type=types.int64, value_type=types.int64)
@@ -151,12 +190,28 @@ def _basin_kernel(order, values, sign, shape, offsets, query_voxel, query_level,
     out_own = np.zeros(nq, dtype=np.int64)
     out_border = np.zeros(nq, dtype=np.bool_)
     outer_layer = edge.shape[0] == 0
+    steps = order.shape[0]
+    # a query is answered before the first step whose voxel's level is not below the
+    # query's (the levels rise along ``order``): its basin is then exactly the component
+    # of {f < query level}; found by bisection, so the sweep reads no value
+    answer_at = np.empty(nq, np.int64)
+    for i in range(nq):
+        low, high = 0, steps
+        while low < high:
+            middle = (low + high) // 2
+            if sign * values[order[middle]] < query_level[i]:
+                low = middle + 1
+            else:
+                high = middle
+        answer_at[i] = low
+    # flat offsets of the neighbours of a voxel away from the faces (no bounds to check)
+    flat = np.empty(offsets.shape[0], np.int64)
+    for k in range(offsets.shape[0]):
+        flat[k] = (offsets[k, 0] * ny + offsets[k, 1]) * nx + offsets[k, 2]
+    joining, earlier = _joining_order(offsets)
     q = 0
-    for step in range(order.shape[0] + 1):
-        level = sign * values[order[step]] if step < order.shape[0] else np.inf
-        # answer every query whose level is not above the next voxel's value: the basin
-        # is then exactly the component of {f < query level}
-        while q < nq and query_level[q] <= level:
+    for step in range(steps + 1):
+        while q < nq and answer_at[q] <= step:
             if _bit(visited, query_voxel[q]):
                 r = _root(parent, query_voxel[q])
                 size = -np.int64(parent[r])
@@ -167,7 +222,7 @@ def _basin_kernel(order, values, sign, shape, offsets, query_voxel, query_level,
                 claimed[r] = size
                 _set_bit(has_claim, r)
             q += 1
-        if step == order.shape[0]:
+        if step == steps:
             break
         v = np.int64(order[step])
         parent[v] = -1
@@ -183,16 +238,28 @@ def _basin_kernel(order, values, sign, shape, offsets, query_voxel, query_level,
             on_edge = edge[v]
         if on_edge:
             _set_bit(border, v)
-        for k in range(offsets.shape[0]):
-            w = _neighbour(offsets, k, z, y, x, nz, ny, nx)
-            if w < 0 or not _bit(visited, w):
+        inside = 0 < z < nz - 1 and 0 < y < ny - 1 and 0 < x < nx - 1
+        root = v  # v's root, followed through the unions below
+        entered = np.int64(0)
+        for i in range(joining.shape[0]):
+            if inside:
+                w = v + flat[joining[i]]
+            else:
+                w = _neighbour(offsets, joining[i], z, y, x, nz, ny, nx)
+                if w < 0:
+                    continue
+            if not _bit(visited, w):
                 continue
-            a, b = _root(parent, v), _root(parent, w)
+            entered |= np.int64(1) << i
+            if entered & earlier[i]:
+                continue
+            a, b = root, _root(parent, w)
             if a != b:
                 if parent[a] < parent[b]:  # a is the larger: it stays the root
                     a, b = b, a
                 parent[b] += parent[a]
                 parent[a] = b
+                root = b
                 if _bit(border, a):
                     _set_bit(border, b)
                 if _bit(has_claim, a):
@@ -278,6 +345,82 @@ def _ranked_order(values, keys, inside, member, descending, out):
             r = rank_of_slot[_slot_of(keys[i], table, used, mask)]
             out[start[r]] = i
             start[r] += 1
+
+
+@njit(cache=True, nogil=True)
+def _roots_of(parent, voxels):
+    """Root of each voxel in a finished union-find (a root holds minus its size)."""
+    roots = np.empty(voxels.shape[0], np.int64)
+    for i in range(voxels.shape[0]):
+        roots[i] = _root(parent, np.int64(voxels[i]))
+    return roots
+
+
+@njit(cache=True, nogil=True)
+def _count_roots(parent, order):
+    count = 0
+    for i in range(order.shape[0]):
+        if parent[order[i]] < 0:
+            count += 1
+    return count
+
+
+@njit(cache=True, nogil=True)
+def _face_roots(parent, phase, axis, end):
+    """Roots of the ``phase`` voxels on the face ``end`` (0 or -1) of ``axis`` of a 3D
+    grid, one per voxel (repeated)."""
+    nz, ny, nx = phase.shape
+    plane = phase.shape[axis] - 1 if end < 0 else 0
+    rows, cols = (ny, nx) if axis == 0 else ((nz, nx) if axis == 1 else (nz, ny))
+    roots = np.empty(rows * cols, np.int64)
+    count = 0
+    for r in range(rows):
+        for c in range(cols):
+            if axis == 0:
+                z, y, x = plane, r, c
+            elif axis == 1:
+                z, y, x = r, plane, c
+            else:
+                z, y, x = r, c, plane
+            if phase[z, y, x]:
+                roots[count] = _root(parent, np.int64((z * ny + y) * nx + x))
+                count += 1
+    return roots[:count]
+
+
+class Pieces:
+    """The connected pieces of a whole phase, as its basin sweep left them: a union-find
+    with one index per voxel (a root holds minus its piece's size) and one bit per voxel
+    (a root's bit: its piece reaches the border). The same pieces as
+    ``scipy.ndimage.label`` with the phase's neighbourhood, without a label array."""
+
+    def __init__(self, parent: np.ndarray, border: np.ndarray, order: np.ndarray, shape):
+        self.parent, self.border, self.shape = parent, border, as_3d_shape(shape)
+        self._order = order
+
+    def count(self) -> int:
+        """Number of pieces."""
+        return int(_count_roots(self.parent, self._order))
+
+    def piece_of(self, voxels) -> np.ndarray:
+        """The piece (its root's flat index) of each flat voxel index of the phase."""
+        return _roots_of(self.parent, np.ascontiguousarray(voxels, dtype=np.int64))
+
+    def at_border(self, pieces: np.ndarray) -> np.ndarray:
+        """Whether each piece reaches the border (the scan's outer layer or ``edge``)."""
+        pieces = np.asarray(pieces, dtype=np.int64)
+        return ((self.border[pieces >> 3] >> (pieces & 7)) & 1).astype(bool)
+
+    def sizes(self, pieces: np.ndarray) -> np.ndarray:
+        """Voxels in each piece."""
+        return -self.parent[np.asarray(pieces, dtype=np.int64)].astype(np.int64)
+
+    def on_face(self, phase: np.ndarray, axis: int, end: int) -> np.ndarray:
+        """The distinct pieces with a voxel of ``phase`` (bool, the swept phase) on the
+        first (``end`` 0) or last (-1) face of ``axis``."""
+        phase3 = phase.reshape(self.shape)
+        axis3 = axis + 3 - phase.ndim
+        return np.unique(_face_roots(self.parent, phase3, axis3, end))
 
 
 # ------------------------------------------------------------------------ pure-Python twins
@@ -378,19 +521,27 @@ def border_voxels(shape) -> np.ndarray:
     return on.ravel()
 
 
+def percolation_steps(order, shape, axes, neighbourhood) -> dict:
+    """Position in ``order`` of the voxel that first joins the two faces of each axis in
+    ``axes`` (-1 when never), all from one sweep: see the module docstring."""
+    shape3 = as_3d_shape(shape)
+    shift = 3 - len(shape)
+    wanted = np.zeros(3, dtype=np.int64)
+    wanted[[a + shift for a in axes]] = 1
+    voxels = int(np.prod(shape3, dtype=np.int64))
+    parent = np.full(voxels, _NOT_ENTERED, dtype=index_dtype(voxels))
+    steps = _percolation_kernel(np.asarray(order), np.array(shape3, dtype=np.int64), wanted,
+                                neighbour_offsets(neighbourhood), parent)
+    return {a: int(steps[a + shift]) for a in axes}
+
+
 def percolation_step(order, shape, axis, neighbourhood, python=False) -> int:
     """Position in ``order`` of the voxel that first joins the two faces of ``axis``
     (-1 when never): see the module docstring."""
-    shape3 = as_3d_shape(shape)
-    axis3 = axis + (3 - len(shape))
-    offsets = neighbour_offsets(neighbourhood)
     if python:
-        return percolation_step_python(order, shape3, axis3, offsets)
-    voxels = int(np.prod(shape3, dtype=np.int64))
-    # the two faces are nodes n and n + 1
-    parent = np.full(voxels + 2, -1, dtype=index_dtype(voxels + 1))
-    return int(_percolation_kernel(np.asarray(order), np.array(shape3, dtype=np.int64),
-                                   axis3, offsets, parent))
+        return percolation_step_python(order, as_3d_shape(shape), axis + (3 - len(shape)),
+                                       neighbour_offsets(neighbourhood))
+    return percolation_steps(order, shape, [axis], neighbourhood)[axis]
 
 
 def basins(order, values, shape, neighbourhood, query_voxel, query_level, python=False,
@@ -411,8 +562,29 @@ def basins(order, values, shape, neighbourhood, query_voxel, query_level, python
         depth = -flat_values if flip else flat_values
         return basins_python(order, depth, shape3, offsets, query_voxel, query_level,
                              on_border)
+    size, own, touches, _ = _basins_and_pieces(order, flat_values, shape3, offsets, query_voxel,
+                                               query_level, edge, flip)
+    return size, own, touches
+
+
+def _basins_and_pieces(order, flat_values, shape3, offsets, query_voxel, query_level, edge,
+                       flip):
     on_border = np.zeros(0, dtype=bool) if edge is None else np.ascontiguousarray(edge).ravel()
     parent = np.empty(flat_values.size, dtype=index_dtype(flat_values.size))
-    return _basin_kernel(np.asarray(order), flat_values, -1.0 if flip else 1.0,
-                         np.array(shape3, dtype=np.int64), offsets, query_voxel, query_level,
-                         on_border, parent)
+    border = np.zeros((flat_values.size + 7) // 8, dtype=np.uint8)
+    size, own, touches = _basin_kernel(np.asarray(order), flat_values, -1.0 if flip else 1.0,
+                                       np.array(shape3, dtype=np.int64), offsets, query_voxel,
+                                       query_level, on_border, parent, border)
+    return size, own, touches, Pieces(parent, border, order, shape3)
+
+
+def basins_and_pieces(order, values, shape, neighbourhood, query_voxel, query_level,
+                      edge=None, flip=False):
+    """:func:`basins` (``order`` must hold every voxel of the phase), and the phase's
+    connected pieces from the same sweep (:class:`Pieces`); the basins' union-find is
+    kept for them, so no label array is made."""
+    size, own, touches, pieces = _basins_and_pieces(
+        order, np.ascontiguousarray(values).ravel(), as_3d_shape(shape),
+        neighbour_offsets(neighbourhood), np.ascontiguousarray(query_voxel, dtype=np.int64),
+        np.ascontiguousarray(query_level, dtype=np.float64), edge, flip)
+    return (size, own, touches), pieces

@@ -42,7 +42,7 @@ GROUP_COLOURS = ("#1f7a8c", "#c8553d", "#e0a458", "#5b8e7d", "#7b5ea7", "#3d5a80
 _KNOWN_KEYS = {"voxtopo_version", "created", "scan", "analysed", "options", "counts",
                "essential", "most_persistent", "timings_seconds", "preparation", "software",
                "cautions", "plots", "diagram", "notes", "significance", "robustness",
-               "counted", "pairs_computed"}
+               "counted", "pairs_computed", "timings_note"}
 
 _DIM_WORDS = {"0": "components (dimension 0)", "1": "loops (dimension 1)",
               "2": "cavities (dimension 2)"}
