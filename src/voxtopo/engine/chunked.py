@@ -26,7 +26,9 @@ computed out of core; the diagram says so in its notes.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
+from itertools import product
 
 import numpy as np
 
@@ -39,11 +41,29 @@ from . import _chunk_merge as kernel
 from ._pairs import RawPairs, check_exact_in_float64
 from ._union_find import neighbour_offsets
 
-__all__ = ["BYTES_PER_CHUNK_VOXEL", "chunked_merges", "chunked_persistence"]
+__all__ = ["BYTES_PER_CHUNK_VOXEL", "PlannedMerge", "chunked_merges", "chunked_persistence",
+           "planned_merge_bytes", "planned_merges"]
 
 #: Bytes per voxel of one chunk task: the values as float64, the sort order, union-find
 #: forest, flags and the four output buffers (int64 each).
 BYTES_PER_CHUNK_VOXEL = 8 * 8 + 4
+
+#: Bytes a merge task holds per vertex of its two blocks' reduced graphs: the blocks'
+#: ids and values (16), the unique sort of their joined ids (about 56), the coordinates
+#: and flags of the merged box (27), the union-find forest and record buffers (34), the
+#: roots and vertices it keeps (24) and the block it hands on (16).
+BYTES_PER_MERGE_VERTEX = 16 + 56 + 27 + 34 + 24 + 16
+
+#: Bytes a merge task holds per edge, of the blocks' graphs or across the shared face:
+#: the edge columns (ends, voxel, value: 32), their joined copy (32), both ends'
+#: positions (16) and the sweep order with its reversed copy (16).
+BYTES_PER_MERGE_EDGE = 32 + 32 + 16 + 16
+
+#: A block's reduced graph has one vertex per flagged voxel of its box and, beyond them,
+#: the first voxels of the basins inside the box that reach a flagged voxel, its root and
+#: the outside node; those basins are planned as at most this share of the flagged voxels
+#: (measured: under 1 % of them in the sweeps of distance fields).
+INNER_ROOTS_PER_FLAGGED_VOXEL = 1 / 16
 
 @dataclass(frozen=True)
 class _Sweep:
@@ -289,41 +309,151 @@ def _merge(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
     return pairs, block
 
 
-def _plan(source: _Grid, sweep: _Sweep):
-    """Dask delayed objects: every task's finished pairs, and the top block."""
-    import dask
-
-    shape3 = _pad3(source.shape, 1)
-    chunks3 = _pad3(source.chunks, 1)
+def _leaf_boxes(shape3, chunks3) -> dict:
+    """(lo, hi) of every chunk, by its index in the chunk grid (C order)."""
     starts = [list(range(0, n, c)) for n, c in zip(shape3, chunks3)]
-    leaf = dask.delayed(_reduce_leaf, nout=2, pure=True)
-    merge = dask.delayed(_merge, nout=2, pure=True)
-    grid = {}
-    finished = []
+    boxes = {}
     for index in np.ndindex(*[len(s) for s in starts]):
         lo = tuple(starts[a][i] for a, i in enumerate(index))
-        hi = tuple(min(lo[a] + chunks3[a], shape3[a]) for a in range(3))
-        pairs, block = leaf(source, lo, hi, sweep)
-        finished.append(pairs)
-        grid[index] = block
-    counts = [len(s) for s in starts]
+        boxes[index] = lo, tuple(min(lo[a] + chunks3[a], shape3[a]) for a in range(3))
+    return boxes
+
+
+def _merge_levels(indices):
+    """The merge tree over the chunk grid: for each level, the axis and the list of
+    (merged index, first child, second child or None), pairing neighbours along one axis
+    after the other until one block is left."""
+    indices = list(indices)
     for axis in range(3):
-        while counts[axis] > 1:
-            merged = {}
-            for index, block in grid.items():
+        while max(index[axis] for index in indices) > 0:
+            level, merged = [], []
+            present = set(indices)
+            for index in indices:
                 i = index[axis]
                 if i % 2 == 1:
                     continue
                 new_index = index[:axis] + (i // 2,) + index[axis + 1:]
                 partner = index[:axis] + (i + 1,) + index[axis + 1:]
-                if partner in grid:
-                    pairs, block = merge(source, block, grid[partner], axis, sweep)
-                    finished.append(pairs)
-                merged[new_index] = block
-            grid = merged
-            counts[axis] = (counts[axis] + 1) // 2
+                level.append((new_index, index, partner if partner in present else None))
+                merged.append(new_index)
+            yield axis, level
+            indices = merged
+
+
+def _plan(source: _Grid, sweep: _Sweep):
+    """Dask delayed objects: every task's finished pairs, and the top block."""
+    import dask
+
+    leaf = dask.delayed(_reduce_leaf, nout=2, pure=True)
+    merge = dask.delayed(_merge, nout=2, pure=True)
+    grid = {}
+    finished = []
+    for index, (lo, hi) in _leaf_boxes(_pad3(source.shape, 1), _pad3(source.chunks, 1)).items():
+        pairs, grid[index] = leaf(source, lo, hi, sweep)
+        finished.append(pairs)
+    for axis, level in _merge_levels(grid):
+        merged = {}
+        for new_index, first, second in level:
+            if second is None:
+                merged[new_index] = grid[first]
+                continue
+            pairs, merged[new_index] = merge(source, grid[first], grid[second], axis, sweep)
+            finished.append(pairs)
+        grid = merged
     (top,) = grid.values()
     return finished, top
+
+
+def _flagged_voxels(lo, hi, shape3) -> int:
+    """How many voxels of the box [lo, hi) have a neighbour outside it but inside the
+    image: the vertices a block's reduced graph can keep (see
+    :mod:`voxtopo.engine._chunk_merge`)."""
+    size = [b - a for a, b in zip(lo, hi)]
+    inner = [max(s - (a > 0) - (b < n), 0) for s, a, b, n in zip(size, lo, hi, shape3)]
+    return math.prod(size) - math.prod(inner)
+
+
+@dataclass(frozen=True)
+class PlannedMerge:
+    """One merge task of the tree: the boxes (lo, hi) of its two blocks in (z, y, x), the
+    axis of their shared face, and the most it can hold."""
+
+    first: tuple
+    second: tuple
+    axis: int
+    vertices: int    # most vertices of the two reduced graphs together
+    edges: int       # most edges: the two graphs' and those crossing the shared face
+
+    @property
+    def nbytes(self) -> int:
+        return self.vertices * BYTES_PER_MERGE_VERTEX + self.edges * BYTES_PER_MERGE_EDGE
+
+
+def _planned_merge(first, second, axis, shape3, ndim) -> PlannedMerge:
+    flagged = _flagged_voxels(*first, shape3) + _flagged_voxels(*second, shape3)
+    vertices = flagged + math.ceil(flagged * INNER_ROOTS_PER_FLAGGED_VOXEL) + 4
+    face = math.prod(b - a for k, (a, b) in enumerate(zip(*first)) if k != axis)
+    crossing = 3 ** (ndim - 1)           # neighbours one step along ``axis``, corners too
+    return PlannedMerge(first, second, axis, vertices, vertices + crossing * face)
+
+
+def planned_merges(shape, chunks) -> list[PlannedMerge]:
+    """Every merge task of a chunked sweep of an array of ``shape`` in ``chunks``, with
+    the most it can hold.
+
+    A block's reduced graph is a tree: about one vertex per flagged voxel of its box
+    (:data:`INNER_ROOTS_PER_FLAGGED_VOXEL` more for the basins inside), and one edge fewer.
+    A merge adds one edge per pair of neighbours across the shared face, counted with
+    corner neighbours (the 26 / 8 sweep, which every pore run makes). So the plan grows
+    with the faces merged; near the top of the tree they are the scan's cross-sections,
+    whatever the chunks.
+    """
+    shape3, chunks3 = _pad3(shape, 1), _pad3(chunks, 1)
+    boxes = _leaf_boxes(shape3, chunks3)
+    plans = []
+    for axis, level in _merge_levels(boxes):
+        merged = {}
+        for new_index, first, second in level:
+            if second is None:
+                merged[new_index] = boxes[first]
+                continue
+            plans.append(_planned_merge(boxes[first], boxes[second], axis, shape3,
+                                        len(shape)))
+            merged[new_index] = boxes[first][0], boxes[second][1]
+        boxes = merged
+    return plans
+
+
+def planned_merge_bytes(shape, chunks) -> int:
+    """Memory of the largest merge task of a chunked sweep (0 for a single chunk): the
+    largest of :func:`planned_merges`, found level by level from the blocks' extents
+    along each axis (a merge's plan depends on its boxes' sizes and on which of their
+    faces lie inside the image, so few merges of a level differ)."""
+    shape3, chunks3 = _pad3(shape, 1), _pad3(chunks, 1)
+    extents = [[(a, min(a + c, n)) for a in range(0, n, c)] for n, c in zip(shape3, chunks3)]
+
+    def kinds(spans, n):
+        """One span of each kind: its size and whether its ends lie inside the image."""
+        return list({(b - a, a > 0, b < n): (a, b) for a, b in spans}.values())
+
+    largest = 0
+    for axis in range(3):
+        while len(extents[axis]) > 1:
+            spans = extents[axis]
+            pairs = {(a[1] - a[0], b[1] - b[0], a[0] > 0, b[1] < shape3[axis]): (a, b)
+                     for a, b in zip(spans[0::2], spans[1::2])}
+            across = [kinds(extents[k], shape3[k]) if k != axis else [(0, 0)]
+                      for k in range(3)]
+            for a, b in pairs.values():
+                for others in product(*across):
+                    first, second = list(others), list(others)
+                    first[axis], second[axis] = a, b
+                    merge = _planned_merge(tuple(zip(*first)), tuple(zip(*second)), axis,
+                                           shape3, len(shape))
+                    largest = max(largest, merge.nbytes)
+            merged = [(a[0], b[1]) for a, b in zip(spans[0::2], spans[1::2])]
+            extents[axis] = merged + spans[len(merged) * 2:]
+    return largest
 
 
 def _run_sweep(source, sweep, scheduler):

@@ -52,7 +52,8 @@ import pandas as pd
 from .. import significance as sig
 from ..diagram import AXES_3D
 from ..engine import construction_of
-from ..engine.chunked import BYTES_PER_CHUNK_VOXEL, chunked_merges, chunked_persistence
+from ..engine.chunked import (BYTES_PER_CHUNK_VOXEL, chunked_merges, chunked_persistence,
+                              planned_merge_bytes)
 from ..errors import InputError, TooBigError, VoxtopoError
 from ..memory import BUDGET_FRACTION, ensure_fits, human
 from ..scan import Scan
@@ -181,15 +182,69 @@ def _box(lo, hi):
     return tuple(slice(int(a), int(b)) for a, b in zip(lo, hi))
 
 
-def planned_bytes_per_task(shape, chunks, transforms: int = 2) -> int:
-    """Memory one task of the out-of-core pore run may hold at a time: the largest of a
-    distance-transform pass (a line block whole along the longest axis), a union-find
-    chunk, and a local-count chunk with its halo."""
+#: Memory of a dask worker before any task: the interpreter with numpy, scipy, zarr, dask
+#: and numba's compiled kernels (measured: 0.38 GB resident in each worker of a local
+#: cluster after a 32^3 run).
+WORKER_BASELINE_BYTES = 400_000_000
+
+
+@dataclass(frozen=True)
+class TaskPlan:
+    """The memory each kind of task of an out-of-core pore run may hold at a time."""
+
+    distance_pass: int   # a line block whole along the longest axis, every transform
+    union_find: int      # one chunk swept
+    merge: int           # the largest merge of border data (near the top of the tree)
+    local_counts: int    # one chunk with its halo
+
+    def tasks(self) -> list[tuple[int, str]]:
+        """(bytes, what the task does in the refusal's words) of each kind of task."""
+        return [(self.distance_pass, "a pass of the distance transform"),
+                (self.union_find, "the union-find sweep of one chunk"),
+                (self.merge, "the largest merge of the chunks' border data"),
+                (self.local_counts, "the local counts of one chunk")]
+
+    @property
+    def largest(self) -> int:
+        return max(size for size, _ in self.tasks())
+
+    @property
+    def largest_task(self) -> str:
+        """What the largest task does."""
+        return max(self.tasks(), key=lambda task: task[0])[1]
+
+    @property
+    def per_worker(self) -> int:
+        """The largest task and the worker's own baseline."""
+        return WORKER_BASELINE_BYTES + self.largest
+
+
+def plan_tasks(shape, chunks, transforms: int = 2) -> TaskPlan:
+    """Memory of each kind of task of the out-of-core pore run of a scan of ``shape`` in
+    ``chunks`` (``transforms`` distance transforms: 3 with a region of interest)."""
     chunk = int(np.prod(chunks))
     line = max(int(np.prod(chunks)) // c * n for c, n in zip(chunks, shape))
     halo = int(np.prod([c + 2 * _local_counts.HALO for c in chunks]))
-    return max(line * _chunked_edt.BYTES_PER_PASS_VOXEL * transforms,
-               chunk * BYTES_PER_CHUNK_VOXEL, halo * BYTES_PER_COUNT_VOXEL)
+    merge = planned_merge_bytes(shape, chunks)
+    for axis in range(len(shape)):   # the percolation sweeps: two end slices more
+        padded = tuple(n + 2 * (a == axis) for a, n in enumerate(shape))
+        merge = max(merge, planned_merge_bytes(padded, chunks))
+    return TaskPlan(distance_pass=line * _chunked_edt.BYTES_PER_PASS_VOXEL * transforms,
+                    union_find=chunk * BYTES_PER_CHUNK_VOXEL, merge=merge,
+                    local_counts=halo * BYTES_PER_COUNT_VOXEL)
+
+
+def planned_bytes_per_task(shape, chunks, transforms: int = 2) -> int:
+    """Memory one task of the out-of-core pore run may hold at a time: the largest of a
+    distance-transform pass, a union-find chunk, a merge of border data and a
+    local-count chunk with its halo (see :func:`plan_tasks`)."""
+    return plan_tasks(shape, chunks, transforms).largest
+
+
+def planned_bytes_per_worker(shape, chunks, transforms: int = 2) -> int:
+    """Memory a dask worker of the out-of-core pore run needs: its own baseline
+    (:data:`WORKER_BASELINE_BYTES`) and the largest task."""
+    return plan_tasks(shape, chunks, transforms).per_worker
 
 
 @dataclass
@@ -312,19 +367,47 @@ def compute_on(scheduler, what: str):
     return compute
 
 
-def _check_worker_memory(scheduler, planned: int, shape, chunks) -> None:
-    """Refuse a plan whose task would not fit the smallest worker of a distributed
-    scheduler (with the same margin as a run on this machine)."""
+#: The smallest chunk edge the refusal of a plan suggests.
+SMALLEST_SUGGESTED_CHUNK = 16
+
+
+def _smaller_chunks_that_fit(shape, chunks, transforms, room):
+    """The first of the chunk shapes halved again and again whose worker plan fits in
+    ``room`` bytes, or None when halving down to SMALLEST_SUGGESTED_CHUNK does not help
+    (the merges grow with the scan's cross-section, not with the chunks)."""
+    while max(chunks) > SMALLEST_SUGGESTED_CHUNK:
+        chunks = tuple(max(-(-c // 2), min(SMALLEST_SUGGESTED_CHUNK, c)) for c in chunks)
+        if plan_tasks(shape, chunks, transforms).per_worker <= room:
+            return chunks
+    return None
+
+
+def _check_worker_memory(scheduler, plan: TaskPlan, shape, chunks, transforms) -> None:
+    """Refuse a plan that would not fit the smallest worker of a distributed scheduler:
+    the worker's baseline and its largest task, within the same share of its memory
+    limit as a run on this machine plans for."""
     info = getattr(scheduler, "scheduler_info", None)
     if info is None:
         return
     limits = [w.get("memory_limit") or 0 for w in info().get("workers", {}).values()]
     limits = [limit for limit in limits if limit > 0]
-    if limits and planned > BUDGET_FRACTION * min(limits):
-        raise TooBigError(f"One task of the out-of-core pore analysis of the "
-                          f"{'x'.join(map(str, shape))} scan in {'x'.join(map(str, chunks))} "
-                          f"chunks would need about {human(planned)} but the smallest worker "
-                          f"has {human(min(limits))}; choose smaller chunks (--chunks).")
+    if not limits or plan.per_worker <= BUDGET_FRACTION * min(limits):
+        return
+    smallest = min(limits)
+    needed_limit = plan.per_worker / BUDGET_FRACTION
+    remedy = f"give each worker a memory limit of at least {human(needed_limit)}"
+    smaller = _smaller_chunks_that_fit(shape, chunks, transforms, BUDGET_FRACTION * smallest)
+    if smaller is not None:
+        remedy += f", or choose smaller chunks (--chunks {','.join(map(str, smaller))})"
+    elif plan.largest == plan.merge:
+        remedy += (" (smaller chunks would not help: that merge holds whole cross-sections "
+                   "of the scan)")
+    raise TooBigError(f"The out-of-core pore analysis of the {'x'.join(map(str, shape))} scan "
+                      f"in {'x'.join(map(str, chunks))} chunks needs about "
+                      f"{human(plan.per_worker)} per worker ({human(plan.largest)} for "
+                      f"{plan.largest_task} and {human(WORKER_BASELINE_BYTES)} for the worker "
+                      f"itself) but the smallest worker's memory limit is {human(smallest)}, "
+                      f"of which {BUDGET_FRACTION:.0%} is planned for; {remedy}.")
 
 
 # --------------------------------------------------------------------------- analyse
@@ -394,11 +477,13 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
                        unit=unit, source=where)
     delta = sig.boundary_tolerance_of(placeholder, boundary_tolerance)
     robust_above = sig.robust_threshold(placeholder, delta)
-    planned = planned_bytes_per_task(shape, chunks, 3 if roi is not None else 2)
+    transforms = 3 if roi is not None else 2
+    plan = plan_tasks(shape, chunks, transforms)
+    planned = plan.largest
     ensure_fits(planned, f"One task of the out-of-core pore analysis of the "
                          f"{'x'.join(map(str, shape))} scan in {'x'.join(map(str, chunks))} "
                          f"chunks", "choose smaller chunks (--chunks)")
-    _check_worker_memory(scheduler, planned, shape, chunks)
+    _check_worker_memory(scheduler, plan, shape, chunks, transforms)
     compute = compute_on(scheduler, "the pore analysis")
 
     def step(name, fraction):
@@ -539,6 +624,7 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
                  f"{NOT_COMPUTED}.")
     summary.update({
         "out_of_core": {"chunks": list(chunks), "planned_bytes_per_task": planned,
+                        "planned_bytes_per_worker": plan.per_worker,
                         "not_computed": NOT_COMPUTED,
                         "betti_curves": "b0 and b(d-1) from the chunked sweeps, the Euler "
                                         "characteristic from local counts, b1 = b0 + b2 - "
