@@ -42,7 +42,7 @@ from ._pairs import RawPairs, check_exact_in_float64
 from ._union_find import neighbour_offsets
 
 __all__ = ["BYTES_PER_CHUNK_VOXEL", "PlannedMerge", "chunked_merges", "chunked_persistence",
-           "planned_merge_bytes", "planned_merges"]
+           "chunked_persistence_and_border_merges", "planned_merge_bytes", "planned_merges"]
 
 #: Bytes per voxel of one chunk task: the values as float64, the sort order, union-find
 #: forest, flags and the four output buffers (int64 each).
@@ -557,6 +557,38 @@ def chunked_persistence(array, *, superlevel: bool = False, neighbourhood=None,
     >>> sorted(d.intervals(0)[:, 0].tolist())
     [0.0, 0.0, 1.0, 2.0]
     """
+    return _persistence(array, superlevel=superlevel, neighbourhood=neighbourhood,
+                        chunks=chunks, min_persistence=min_persistence, dual=dual,
+                        spacing=spacing, unit=unit, scheduler=scheduler)[0]
+
+
+def chunked_persistence_and_border_merges(array, *, superlevel: bool = False,
+                                          neighbourhood=None, chunks=None,
+                                          min_persistence: float = 0.0, spacing=None,
+                                          unit=None, scheduler=None):
+    """The diagram of :func:`chunked_persistence` and every merge of its dual sweep,
+    from one run of each sweep.
+
+    The dual sweep runs the other way, with the complementary neighbourhood and the
+    image's outer layer joined to an eldest node, so its merges are those
+    :func:`chunked_merges` gives with ``superlevel`` flipped, the complementary
+    ``neighbourhood`` and ``edge`` true on the outer layer: a caller that needs both runs
+    that sweep once. The options are those of :func:`chunked_persistence`.
+
+    Returns
+    -------
+    diagram, merges
+        The diagram with its dimension d-1, and the merges as :func:`chunked_merges`
+        returns them.
+    """
+    return _persistence(array, superlevel=superlevel, neighbourhood=neighbourhood,
+                        chunks=chunks, min_persistence=min_persistence, dual=True,
+                        spacing=spacing, unit=unit, scheduler=scheduler)
+
+
+def _persistence(array, *, superlevel, neighbourhood, chunks, min_persistence, dual,
+                 spacing, unit, scheduler):
+    """:func:`chunked_persistence`, and the merges of its dual sweep (None without)."""
     from . import construction_of
 
     min_persistence = check_min_persistence(min_persistence)
@@ -586,6 +618,7 @@ def chunked_persistence(array, *, superlevel: bool = False, neighbourhood=None,
     death_index = [low.voxel_id, [-1]]
     notes = [f"computed out of core in {'x'.join(map(str, source.chunks))} chunks",
              *notes_of_array]
+    high = None
     if dual:
         high, _ = _run_sweep(source, _Sweep(not ascending, construction == "vertex", True),
                              scheduler)
@@ -603,6 +636,7 @@ def chunked_persistence(array, *, superlevel: bool = False, neighbourhood=None,
     placeholder = np.broadcast_to(np.zeros((), source.dtype), source.shape)
     scan = Scan(placeholder, spacing=spacing, unit=unit,
                 source="" if name == "The array" else name)
-    return Diagram.from_raw(raw, scan, superlevel=superlevel, neighbourhood=neighbourhood,
-                            field=2, periodic=(False,) * source.ndim,
-                            min_persistence=min_persistence, notes=tuple(notes))
+    diagram = Diagram.from_raw(raw, scan, superlevel=superlevel, neighbourhood=neighbourhood,
+                               field=2, periodic=(False,) * source.ndim,
+                               min_persistence=min_persistence, notes=tuple(notes))
+    return diagram, high

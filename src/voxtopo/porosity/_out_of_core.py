@@ -24,7 +24,9 @@ Everything is exact and equal to the in-memory result where both fit:
   younger of them dies exactly where the inlet and outlet faces first connect;
 * a pore's basin reaches the border of the scan (or the rim of the sample) before its
   level exactly when, in the sweep with the border voxels joined to an eldest node
-  (:func:`voxtopo.engine.chunked.chunked_merges`), the pore dies below that level;
+  (:func:`voxtopo.engine.chunked.chunked_merges`), the pore dies below that level; without
+  a region of interest that sweep is the grains' dual sweep, run once for both
+  (:func:`voxtopo.engine.chunked.chunked_persistence_and_border_merges`), and back;
 * Euler characteristics and Minkowski functionals as sums of local terms
   (:mod:`voxtopo.porosity._local_counts`);
 * Betti curves of all dimensions: b0 and b(d-1) from the chunked sweeps, the Euler
@@ -52,23 +54,48 @@ import pandas as pd
 from .. import significance as sig
 from ..diagram import AXES_3D
 from ..engine import construction_of
-from ..engine.chunked import (BYTES_PER_CHUNK_VOXEL, chunked_merges, chunked_persistence,
-                              planned_merge_bytes)
+from ..engine.chunked import (
+    BYTES_PER_CHUNK_VOXEL,
+    chunked_merges,
+    chunked_persistence,
+    chunked_persistence_and_border_merges,
+    planned_merge_bytes,
+)
 from ..errors import InputError, TooBigError, VoxtopoError
 from ..memory import BUDGET_FRACTION, ensure_fits, human
 from ..scan import Scan
 from . import _chunked_edt, _chunked_pieces, _local_counts
-from ._analysis import (COMPLEMENT, SURFACE_SMOOTHING_VOXELS, PoreAnalysis, _axes,
-                        _check_extent, _coordinates, _flat, _loop_table, _phase_notes,
-                        _rows_of_dimension, _void_table, _with_robust, ball_outside,
-                        largest_first, pore_summary)
+from ._analysis import (
+    COMPLEMENT,
+    SURFACE_SMOOTHING_VOXELS,
+    PoreAnalysis,
+    _axes,
+    _check_extent,
+    _coordinates,
+    _flat,
+    _loop_table,
+    _phase_notes,
+    _rows_of_dimension,
+    _void_table,
+    _with_robust,
+    ball_outside,
+    largest_first,
+    pore_summary,
+)
 
 #: phase codes of the phase store: bit 0 is the segmented pore mask, bit 1 the sample
 OUTSIDE, OUTSIDE_PORE, SOLID, PORE = 0, 1, 2, 3
 
+#: Bytes per voxel of a local-count task for the interface mesh of its block and the
+#: curvature terms of its edges (vectorised over the whole block). They follow the
+#: interface's area: measured by tracemalloc, 260 per meshed voxel on smoothed noise with
+#: features about 5 voxels wide, 100 on a packing of beads 14 to 22 voxels wide.
+COUNT_MESH_BYTES_PER_VOXEL = 270
+
 #: Bytes per voxel of a local-count task: the block with its halo as read (float32 field,
-#: phase), the smoothed mask, cell windows and marching-cubes buffers.
-BYTES_PER_COUNT_VOXEL = 48
+#: phase: 5), the smoothed mask with its padded copy (8), marching cubes' float32 copy
+#: (4), the mesh and curvature terms, and the Euler counts' windows still held (24).
+BYTES_PER_COUNT_VOXEL = 5 + 8 + 4 + COUNT_MESH_BYTES_PER_VOXEL + 24
 
 #: Number of levels of the Betti curves.
 BETTI_LEVELS = 256
@@ -540,18 +567,27 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
     pore_field = SweepField(distance, phase, outside_level)
     solid_field = SweepField(distance, phase, None if roi is None else -outside_level)
     common = {"chunks": chunks, "spacing": spacing, "unit": unit, "scheduler": scheduler}
+    edge = Edge(phase, roi is not None)
     with worker_losses_told("the union-find sweeps"):
-        diagram = chunked_persistence(pore_field, neighbourhood=n_pore, **common)
-        step("pores and grains", 0.25)
-        solid_diagram = chunked_persistence(solid_field, superlevel=True,
-                                            neighbourhood=n_solid, **common)
-        step("pores and grains", 0.5)
-        edge = Edge(phase, roi is not None)
-        pore_edge = chunked_merges(pore_field, neighbourhood=n_pore, chunks=chunks, edge=edge,
-                                   scheduler=scheduler)
-        step("pores and grains", 0.75)
-        solid_edge = chunked_merges(solid_field, superlevel=True, neighbourhood=n_solid,
-                                    chunks=chunks, edge=edge, scheduler=scheduler)
+        if roi is None:
+            # one field for both phases, and the edge is the scan's outer layer: the
+            # border sweep of the pores is the dual sweep of the grains, and back
+            diagram, solid_edge = chunked_persistence_and_border_merges(
+                pore_field, neighbourhood=n_pore, **common)
+            step("pores and grains", 0.5)
+            solid_diagram, pore_edge = chunked_persistence_and_border_merges(
+                solid_field, superlevel=True, neighbourhood=n_solid, **common)
+        else:
+            diagram = chunked_persistence(pore_field, neighbourhood=n_pore, **common)
+            step("pores and grains", 0.25)
+            solid_diagram = chunked_persistence(solid_field, superlevel=True,
+                                                neighbourhood=n_solid, **common)
+            step("pores and grains", 0.5)
+            pore_edge = chunked_merges(pore_field, neighbourhood=n_pore, chunks=chunks,
+                                       edge=edge, scheduler=scheduler)
+            step("pores and grains", 0.75)
+            solid_edge = chunked_merges(solid_field, superlevel=True, neighbourhood=n_solid,
+                                        chunks=chunks, edge=edge, scheduler=scheduler)
     if roi is not None:
         diagram = diagram.without_outside(outside_level)
         solid_diagram = solid_diagram.without_outside(-outside_level)
