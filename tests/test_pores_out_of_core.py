@@ -135,14 +135,14 @@ def test_border_flags_come_from_the_dual_sweeps_when_the_edge_is_the_scans_outer
     mask = _with_cavity(_blobs((14, 13, 12), seed=8), (7, 6, 6), 3)
     grid = np.indices(mask.shape)
     roi = (((grid[1] - 6) ** 2 + (grid[2] - 6) ** 2) <= 30) if with_roi else None
-    run_sweep = chunked_engine._run_sweep
+    run_sweeps = chunked_engine._run_sweeps
     made = []
 
-    def counted(*args, **kwargs):
-        made.append(args[1])
-        return run_sweep(*args, **kwargs)
+    def counted(jobs, scheduler):
+        made.extend(sweep for _, sweep in jobs)
+        return run_sweeps(jobs, scheduler)
 
-    monkeypatch.setattr(chunked_engine, "_run_sweep", counted)
+    monkeypatch.setattr(chunked_engine, "_run_sweeps", counted)
     chunked = analyse_chunked(mask, roi=roi, chunks=(7, 7, 6), scratch=tmp_path,
                               scheduler="sync")
     memory = analyse(mask, roi=roi)

@@ -41,8 +41,9 @@ from . import _chunk_merge as kernel
 from ._pairs import RawPairs, check_exact_in_float64
 from ._union_find import neighbour_offsets
 
-__all__ = ["BYTES_PER_CHUNK_VOXEL", "PlannedMerge", "chunked_merges", "chunked_persistence",
-           "chunked_persistence_and_border_merges", "planned_merge_bytes", "planned_merges"]
+__all__ = ["BYTES_PER_CHUNK_VOXEL", "PlannedMerge", "chunked_merges", "chunked_merges_of_each",
+           "chunked_persistence", "chunked_persistence_and_border_merges",
+           "planned_merge_bytes", "planned_merges"]
 
 #: Bytes per voxel of one chunk task: the values as float64, the sort order, union-find
 #: forest, flags and the four output buffers (int64 each).
@@ -456,17 +457,27 @@ def planned_merge_bytes(shape, chunks) -> int:
     return largest
 
 
-def _run_sweep(source, sweep, scheduler):
+def _run_sweeps(jobs, scheduler) -> list:
+    """Run the sweeps ``jobs`` [(source, sweep), ...] in one dask computation, so that the
+    last merges of one (a task or two at a time at the top of its tree) overlap the
+    chunks of the others; returns (merges, top block) of each."""
     import dask
 
-    finished, top = _plan(source, sweep)
+    plans = [_plan(source, sweep) for source, sweep in jobs]
     options = {} if scheduler is None else {"scheduler": scheduler}
-    *parts, top = dask.compute(*finished, top, **options)
-    join = (lambda name, dtype: np.concatenate([getattr(p, name) for p in parts]).astype(dtype)
-            if parts else np.zeros(0, dtype))
-    pairs = _Pairs(join("young_id", np.int64), join("young_value", np.float64),
-                   join("voxel_id", np.int64), join("voxel_value", np.float64))
-    return pairs, top
+    results = iter(dask.compute(*[task for finished, top in plans
+                                  for task in (*finished, top)], **options))
+    swept = []
+    for finished, _ in plans:
+        parts = [next(results) for _ in finished]
+        top = next(results)
+        join = (lambda name, dtype, parts=parts:
+                np.concatenate([getattr(p, name) for p in parts]).astype(dtype)
+                if parts else np.zeros(0, dtype))
+        swept.append((_Pairs(join("young_id", np.int64), join("young_value", np.float64),
+                             join("voxel_id", np.int64), join("voxel_value", np.float64)),
+                      top))
+    return swept
 
 
 def chunked_merges(array, *, superlevel: bool = False, neighbourhood=None, chunks=None,
@@ -486,16 +497,28 @@ def chunked_merges(array, *, superlevel: bool = False, neighbourhood=None, chunk
         and its value) of every merge with a positive lifetime; a component whose first
         voxel is an ``edge`` voxel dies as it is born and is not listed.
     """
+    return chunked_merges_of_each([array], superlevel=superlevel,
+                                  neighbourhood=neighbourhood, chunks=chunks, edge=edge,
+                                  scheduler=scheduler)[0]
+
+
+def chunked_merges_of_each(arrays, *, superlevel: bool = False, neighbourhood=None,
+                           chunks=None, edge=None, scheduler=None) -> list[_Pairs]:
+    """:func:`chunked_merges` of each of ``arrays``, the sweeps run in one dask
+    computation (the workers go on with one sweep's chunks while another's last merges
+    run)."""
     from . import construction_of
 
-    name = getattr(array, "source", "") or "The array"
-    source = _Grid(array, chunks if chunks is not None else chunks_of(array), name,
-                   edge=edge)
-    _check_source(source)
-    neighbourhood, construction = construction_of(source.ndim, neighbourhood)
-    merges, _ = _run_sweep(source, _Sweep(not superlevel, construction == "voxel",
-                                          edge is not None), scheduler)
-    return merges
+    jobs = []
+    for array in arrays:
+        name = getattr(array, "source", "") or "The array"
+        source = _Grid(array, chunks if chunks is not None else chunks_of(array), name,
+                       edge=edge)
+        _check_source(source)
+        neighbourhood, construction = construction_of(source.ndim, neighbourhood)
+        jobs.append((source, _Sweep(not superlevel, construction == "voxel",
+                                    edge is not None)))
+    return [merges for merges, _ in _run_sweeps(jobs, scheduler)]
 
 
 def _check_source(source: _Grid):
@@ -606,7 +629,11 @@ def _persistence(array, *, superlevel, neighbourhood, chunks, min_persistence, d
     ascending = not superlevel
     forever = -np.inf if superlevel else np.inf
 
-    low, top = _run_sweep(source, _Sweep(ascending, construction == "voxel", False), scheduler)
+    sweeps = [(source, _Sweep(ascending, construction == "voxel", False))]
+    if dual:
+        sweeps.append((source, _Sweep(not ascending, construction == "vertex", True)))
+    swept = _run_sweeps(sweeps, scheduler)
+    low, top = swept[0]
     if len(top.vert_id) == 0:
         raise InputError(f"{source.source} yielded no components.")
     eldest = top.vert_id[np.argmin(top.vert_value) if ascending else np.argmax(top.vert_value)]
@@ -620,8 +647,7 @@ def _persistence(array, *, superlevel, neighbourhood, chunks, min_persistence, d
              *notes_of_array]
     high = None
     if dual:
-        high, _ = _run_sweep(source, _Sweep(not ascending, construction == "vertex", True),
-                             scheduler)
+        high = swept[1][0]
         dims.append(np.full(len(high.young_id), source.ndim - 1, np.int8))
         births.append(high.voxel_value)
         deaths.append(high.young_value)

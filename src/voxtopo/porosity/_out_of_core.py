@@ -57,6 +57,7 @@ from ..engine import construction_of
 from ..engine.chunked import (
     BYTES_PER_CHUNK_VOXEL,
     chunked_merges,
+    chunked_merges_of_each,
     chunked_persistence,
     chunked_persistence_and_border_merges,
     planned_merge_bytes,
@@ -615,16 +616,18 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
     names = AXES_3D[3 - ndim:]
     radius, critical, connected = {}, {}, {}
     below_all = float(np.finfo(np.float32).min)
-    for k, a in enumerate(axes):
-        if all(faces_in_sample[a]):
-            with worker_losses_told("the union-find sweeps"):
-                radius[names[a]], critical[names[a]] = _percolation(
-                    pore_field, a, n_pore, chunks, spacing, below_all, scheduler)
+    crossed = [a for a in axes if all(faces_in_sample[a])]
+    with worker_losses_told("the union-find sweeps"):
+        found = _percolation(pore_field, crossed, n_pore, chunks, spacing, below_all,
+                             scheduler)
+    for a in axes:
+        if a in crossed:
+            radius[names[a]], critical[names[a]] = found[a]
             through = pore_pieces.faces[:, a, 0] & pore_pieces.faces[:, a, 1]
             connected[names[a]] = float(pore_pieces.sizes[through].sum() / sample_voxels)
         else:
             radius[names[a]], critical[names[a]], connected[names[a]] = None, None, None
-        step("percolation", (k + 1) / len(axes))
+    step("percolation", 1.0)
     timings["percolation"] = time.perf_counter() - clock
 
     # ---- local counts
@@ -700,23 +703,29 @@ def _signed_chunk(phase, to_solid, to_pore, distance, lo, hi):
     return float(finite.max()) if finite.size else 0.0
 
 
-def _percolation(field, axis, neighbourhood, chunks, spacing, below_all, scheduler):
-    """(radius, critical voxel position) along ``axis``: where the younger of the two end
-    slices dies in the sublevel sweep; (0.0, None) when the faces never join in the pores."""
-    padded = WithEndSlices(field, axis, below_all)
-    merges = chunked_merges(padded, neighbourhood=neighbourhood, chunks=chunks,
-                            scheduler=scheduler)
-    shape3 = (1,) * (3 - field.ndim) + padded.shape
-    outlet = [0, 0, 0]
-    outlet[3 - field.ndim + axis] = shape3[3 - field.ndim + axis] - 1
-    outlet_id = int(np.ravel_multi_index(outlet, shape3))
-    which = np.flatnonzero(merges.young_id == outlet_id)
-    if len(which) == 0 or merges.voxel_value[which[0]] >= 0:
-        return 0.0, None
-    level = float(merges.voxel_value[which[0]])
-    voxel = np.array(np.unravel_index(int(merges.voxel_id[which[0]]), shape3))[3 - field.ndim:]
-    voxel[axis] -= 1
-    return -level, voxel.astype(np.float64) * np.asarray(spacing)
+def _percolation(field, axes, neighbourhood, chunks, spacing, below_all, scheduler):
+    """{axis: (radius, critical voxel position)} along each of ``axes``: where the younger
+    of the two end slices dies in the sublevel sweep; (0.0, None) when the faces never
+    join in the pores. The sweeps of all axes run in one dask computation."""
+    padded = [WithEndSlices(field, axis, below_all) for axis in axes]
+    found = {}
+    every = chunked_merges_of_each(padded, neighbourhood=neighbourhood, chunks=chunks,
+                                   scheduler=scheduler) if axes else []
+    for axis, array, merges in zip(axes, padded, every):
+        shape3 = (1,) * (3 - field.ndim) + array.shape
+        outlet = [0, 0, 0]
+        outlet[3 - field.ndim + axis] = shape3[3 - field.ndim + axis] - 1
+        outlet_id = int(np.ravel_multi_index(outlet, shape3))
+        which = np.flatnonzero(merges.young_id == outlet_id)
+        if len(which) == 0 or merges.voxel_value[which[0]] >= 0:
+            found[axis] = 0.0, None
+            continue
+        level = float(merges.voxel_value[which[0]])
+        voxel = np.array(np.unravel_index(int(merges.voxel_id[which[0]]), shape3))
+        voxel = voxel[3 - field.ndim:]
+        voxel[axis] -= 1
+        found[axis] = -level, voxel.astype(np.float64) * np.asarray(spacing)
+    return found
 
 
 def _feature_table(pairs: pd.DataFrame, edge_merges, flip: bool, min_persistence: float,
