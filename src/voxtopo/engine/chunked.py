@@ -5,11 +5,12 @@ The engine takes arrays, not files: anything with ``shape``, ``dtype``, ``chunks
 :func:`voxtopo.io.open_chunked`, a dask or numpy array) is read one chunk at a time. Each
 chunk is swept by a dask task (:func:`voxtopo.engine._chunk_merge.reduce_chunk`),
 which finishes the pairs it can decide alone and hands on a reduced graph of what it cannot.
-Neighbouring blocks are then merged pairwise, one axis after the other, by further dask
-tasks that read the two voxel planes on either side of their shared face, add the grid
-edges that cross it, and reduce again (:func:`voxtopo.engine._chunk_merge.reduce_graph`).
-Only the last task sees the whole volume's reduced graph, whose size is set by the faces
-between blocks, not by their volume.
+Neighbouring blocks are then merged pairwise, level by level along the axis where the
+blocks are thinnest, by further dask tasks that read the two voxel planes on either side
+of their shared face, add the grid edges that cross it, and reduce again
+(:func:`voxtopo.engine._chunk_merge.reduce_graph`). Only the last task sees the whole
+volume's reduced graph, whose size is set by the faces between blocks, not by their
+volume; :func:`planned_merges` gives the most each merge can hold.
 
 ::
 
@@ -50,15 +51,20 @@ __all__ = ["BYTES_PER_CHUNK_VOXEL", "PlannedMerge", "chunked_merges", "chunked_m
 BYTES_PER_CHUNK_VOXEL = 8 * 8 + 4
 
 #: Bytes a merge task holds per vertex of its two blocks' reduced graphs: the blocks'
-#: ids and values (16), the unique sort of their joined ids (about 56), the coordinates
-#: and flags of the merged box (27), the union-find forest and record buffers (34), the
-#: roots and vertices it keeps (24) and the block it hands on (16).
-BYTES_PER_MERGE_VERTEX = 16 + 56 + 27 + 34 + 24 + 16
+#: ids and values (16), the unique sort of their joined ids (about 56), the flags of the
+#: merged box (3), the union-find forest and record buffers (34), the roots and vertices
+#: it keeps (24) and the block it hands on (16).
+BYTES_PER_MERGE_VERTEX = 16 + 56 + 3 + 34 + 24 + 16
 
-#: Bytes a merge task holds per edge, of the blocks' graphs or across the shared face:
-#: the edge columns (ends, voxel, value: 32), their joined copy (32), both ends'
-#: positions (16) and the sweep order with its reversed copy (16).
+#: Bytes a merge task holds per edge of its blocks' graphs: the blocks' columns (ends,
+#: voxel, value: 32), their joined copy (32), both ends' positions (16) and the sweep
+#: order with its reversed copy (16).
 BYTES_PER_MERGE_EDGE = 32 + 32 + 16 + 16
+
+#: Bytes per edge across the shared face, made in place and let go once joined: the
+#: joined columns (32), both ends' positions (16) and the sweep order with its reversed
+#: copy (16).
+BYTES_PER_CROSSING_EDGE = 32 + 16 + 16
 
 #: A block's reduced graph has one vertex per flagged voxel of its box and, beyond them,
 #: the first voxels of the basins inside the box that reach a flagged voxel, its root and
@@ -249,7 +255,7 @@ def _cross_edges(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
     ids_b = np.ravel_multi_index(np.meshgrid(*[np.arange(p, q) for p, q in zip(lo_b, hi_b)],
                                              indexing="ij"), shape3)
     others = [k for k in range(3) if k != axis]
-    parts = []
+    takes = []
     for offset in neighbour_offsets(source.ndim, sweep.corners):
         if offset[axis] != 1:
             continue
@@ -260,14 +266,22 @@ def _cross_edges(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
             size = values_a.shape[k]
             take_a[k] = slice(max(0, -d), size - max(0, d))
             take_b[k] = slice(max(0, d), size - max(0, -d))
-        va, ia = values_a[tuple(take_a)].ravel(), ids_a[tuple(take_a)].ravel()
-        vb, ib = values_b[tuple(take_b)].ravel(), ids_b[tuple(take_b)].ravel()
+        takes.append((tuple(take_a), tuple(take_b)))
+    # filled in place, offset after offset: no second copy of the face's edges
+    total = sum(values_a[take_a].size for take_a, _ in takes)
+    edge_a, edge_b, edge_voxel = (np.empty(total, np.int64) for _ in range(3))
+    edge_value = np.empty(total, np.float64)
+    at = 0
+    for take_a, take_b in takes:
+        va, ia = values_a[take_a].ravel(), ids_a[take_a].ravel()
+        vb, ib = values_b[take_b].ravel(), ids_b[take_b].ravel()
         b_later = _later(va, ia, vb, ib, sweep.ascending)
-        parts.append((ia, ib, np.where(b_later, ib, ia), np.where(b_later, vb, va)))
-    if not parts:
-        empty = np.zeros(0, np.int64)
-        return empty, empty, empty, np.zeros(0)
-    return tuple(np.concatenate(column) for column in zip(*parts))
+        done = at + len(va)
+        edge_a[at:done], edge_b[at:done] = ia, ib
+        edge_voxel[at:done] = np.where(b_later, ib, ia)
+        edge_value[at:done] = np.where(b_later, vb, va)
+        at = done
+    return edge_a, edge_b, edge_voxel, edge_value
 
 
 def _merge(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
@@ -275,19 +289,23 @@ def _merge(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
     n_total = int(np.prod(shape3))
     lo = tuple(min(p, q) for p, q in zip(a.lo, b.lo))
     hi = tuple(max(p, q) for p, q in zip(a.hi, b.hi))
-    cross = _cross_edges(source, a, b, axis, sweep)
+    # each column of the edges across the face is let go once joined: they are most of
+    # what a merge near the top of the tree holds
+    cross = list(_cross_edges(source, a, b, axis, sweep))
+    columns = []
+    for name in ("edge_a", "edge_b", "edge_voxel", "edge_value"):
+        columns.append(np.concatenate([getattr(a, name), getattr(b, name), cross.pop(0)]))
+    edge_a, edge_b, edge_voxel, edge_value = columns
+    del columns
     vert_id = np.concatenate([a.vert_id, b.vert_id])
     vert_value = np.concatenate([a.vert_value, b.vert_value])
     vert_id, first = np.unique(vert_id, return_index=True)
     vert_value = vert_value[first]
-    edge_a = np.concatenate([a.edge_a, b.edge_a, cross[0]])
-    edge_b = np.concatenate([a.edge_b, b.edge_b, cross[1]])
-    edge_voxel = np.concatenate([a.edge_voxel, b.edge_voxel, cross[2]])
-    edge_value = np.concatenate([a.edge_value, b.edge_value, cross[3]])
+    del first
     pos_a, pos_b = np.searchsorted(vert_id, edge_a), np.searchsorted(vert_id, edge_b)
     inside = vert_id < n_total
-    coords = np.unravel_index(np.where(inside, vert_id, 0), shape3)
-    flags = np.where(inside, _flags(lo, hi, shape3, coords), 1).astype(np.uint8)
+    flags = np.where(inside, _flags(lo, hi, shape3, np.unravel_index(
+        np.where(inside, vert_id, 0), shape3)), 1).astype(np.uint8)
     outside = int(np.searchsorted(vert_id, n_total)) if vert_id[-1] == n_total else -1
     order = _sweep_order(edge_value, edge_voxel, sweep.ascending)
     m = len(vert_id)
@@ -320,25 +338,38 @@ def _leaf_boxes(shape3, chunks3) -> dict:
     return boxes
 
 
-def _merge_levels(indices):
+def _merge_axes(shape3, chunks3):
+    """The axis of each level of the merge tree: the one, among those still holding more
+    than one block, along which the blocks are thinnest. The blocks so grow about as wide
+    as long, and a merge holds faces no larger than the scan's cross-section (merging
+    along one axis after the other would end with slabs whose two faces are that large)."""
+    counts = [-(-n // c) for n, c in zip(shape3, chunks3)]
+    width = list(chunks3)
+    while max(counts) > 1:
+        axis = min((a for a in range(3) if counts[a] > 1), key=lambda a: width[a])
+        yield axis
+        counts[axis] = (counts[axis] + 1) // 2
+        width[axis] *= 2
+
+
+def _merge_levels(indices, shape3, chunks3):
     """The merge tree over the chunk grid: for each level, the axis and the list of
-    (merged index, first child, second child or None), pairing neighbours along one axis
-    after the other until one block is left."""
+    (merged index, first child, second child or None), pairing neighbours along that
+    axis until one block is left."""
     indices = list(indices)
-    for axis in range(3):
-        while max(index[axis] for index in indices) > 0:
-            level, merged = [], []
-            present = set(indices)
-            for index in indices:
-                i = index[axis]
-                if i % 2 == 1:
-                    continue
-                new_index = index[:axis] + (i // 2,) + index[axis + 1:]
-                partner = index[:axis] + (i + 1,) + index[axis + 1:]
-                level.append((new_index, index, partner if partner in present else None))
-                merged.append(new_index)
-            yield axis, level
-            indices = merged
+    for axis in _merge_axes(shape3, chunks3):
+        level, merged = [], []
+        present = set(indices)
+        for index in indices:
+            i = index[axis]
+            if i % 2 == 1:
+                continue
+            new_index = index[:axis] + (i // 2,) + index[axis + 1:]
+            partner = index[:axis] + (i + 1,) + index[axis + 1:]
+            level.append((new_index, index, partner if partner in present else None))
+            merged.append(new_index)
+        yield axis, level
+        indices = merged
 
 
 def _plan(source: _Grid, sweep: _Sweep):
@@ -349,10 +380,11 @@ def _plan(source: _Grid, sweep: _Sweep):
     merge = dask.delayed(_merge, nout=2, pure=True)
     grid = {}
     finished = []
-    for index, (lo, hi) in _leaf_boxes(_pad3(source.shape, 1), _pad3(source.chunks, 1)).items():
+    shape3, chunks3 = _pad3(source.shape, 1), _pad3(source.chunks, 1)
+    for index, (lo, hi) in _leaf_boxes(shape3, chunks3).items():
         pairs, grid[index] = leaf(source, lo, hi, sweep)
         finished.append(pairs)
-    for axis, level in _merge_levels(grid):
+    for axis, level in _merge_levels(grid, shape3, chunks3):
         merged = {}
         for new_index, first, second in level:
             if second is None:
@@ -383,19 +415,21 @@ class PlannedMerge:
     second: tuple
     axis: int
     vertices: int    # most vertices of the two reduced graphs together
-    edges: int       # most edges: the two graphs' and those crossing the shared face
+    edges: int       # most edges of the two graphs
+    crossing: int    # edges across the shared face
 
     @property
     def nbytes(self) -> int:
-        return self.vertices * BYTES_PER_MERGE_VERTEX + self.edges * BYTES_PER_MERGE_EDGE
+        return (self.vertices * BYTES_PER_MERGE_VERTEX + self.edges * BYTES_PER_MERGE_EDGE
+                + self.crossing * BYTES_PER_CROSSING_EDGE)
 
 
 def _planned_merge(first, second, axis, shape3, ndim) -> PlannedMerge:
     flagged = _flagged_voxels(*first, shape3) + _flagged_voxels(*second, shape3)
     vertices = flagged + math.ceil(flagged * INNER_ROOTS_PER_FLAGGED_VOXEL) + 4
     face = math.prod(b - a for k, (a, b) in enumerate(zip(*first)) if k != axis)
-    crossing = 3 ** (ndim - 1)           # neighbours one step along ``axis``, corners too
-    return PlannedMerge(first, second, axis, vertices, vertices + crossing * face)
+    across = 3 ** (ndim - 1)             # neighbours one step along ``axis``, corners too
+    return PlannedMerge(first, second, axis, vertices, vertices, across * face)
 
 
 def planned_merges(shape, chunks) -> list[PlannedMerge]:
@@ -412,7 +446,7 @@ def planned_merges(shape, chunks) -> list[PlannedMerge]:
     shape3, chunks3 = _pad3(shape, 1), _pad3(chunks, 1)
     boxes = _leaf_boxes(shape3, chunks3)
     plans = []
-    for axis, level in _merge_levels(boxes):
+    for axis, level in _merge_levels(boxes, shape3, chunks3):
         merged = {}
         for new_index, first, second in level:
             if second is None:
@@ -438,22 +472,20 @@ def planned_merge_bytes(shape, chunks) -> int:
         return list({(b - a, a > 0, b < n): (a, b) for a, b in spans}.values())
 
     largest = 0
-    for axis in range(3):
-        while len(extents[axis]) > 1:
-            spans = extents[axis]
-            pairs = {(a[1] - a[0], b[1] - b[0], a[0] > 0, b[1] < shape3[axis]): (a, b)
-                     for a, b in zip(spans[0::2], spans[1::2])}
-            across = [kinds(extents[k], shape3[k]) if k != axis else [(0, 0)]
-                      for k in range(3)]
-            for a, b in pairs.values():
-                for others in product(*across):
-                    first, second = list(others), list(others)
-                    first[axis], second[axis] = a, b
-                    merge = _planned_merge(tuple(zip(*first)), tuple(zip(*second)), axis,
-                                           shape3, len(shape))
-                    largest = max(largest, merge.nbytes)
-            merged = [(a[0], b[1]) for a, b in zip(spans[0::2], spans[1::2])]
-            extents[axis] = merged + spans[len(merged) * 2:]
+    for axis in _merge_axes(shape3, chunks3):
+        spans = extents[axis]
+        pairs = {(a[1] - a[0], b[1] - b[0], a[0] > 0, b[1] < shape3[axis]): (a, b)
+                 for a, b in zip(spans[0::2], spans[1::2])}
+        across = [kinds(extents[k], shape3[k]) if k != axis else [(0, 0)] for k in range(3)]
+        for a, b in pairs.values():
+            for others in product(*across):
+                first, second = list(others), list(others)
+                first[axis], second[axis] = a, b
+                merge = _planned_merge(tuple(zip(*first)), tuple(zip(*second)), axis,
+                                       shape3, len(shape))
+                largest = max(largest, merge.nbytes)
+        merged = [(a[0], b[1]) for a, b in zip(spans[0::2], spans[1::2])]
+        extents[axis] = merged + spans[len(merged) * 2:]
     return largest
 
 

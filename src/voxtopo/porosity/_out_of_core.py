@@ -140,14 +140,25 @@ class SweepField(_Box):
         return np.where(phase & 2, values, np.float32(self.outside))
 
 
+def end_slice_chunks(shape, chunks, axis: int) -> tuple:
+    """The chunks of a scan with two end slices more along ``axis``: as many along it as
+    the scan's, one voxel deeper, so that no chunk is two slices thin (such a chunk would
+    give the blocks of the merge tree an extra face of the scan's cross-section)."""
+    count = -(-shape[axis] // chunks[axis])
+    return tuple(-(-(n + 2) // count) if a == axis else c
+                 for a, (n, c) in enumerate(zip(shape, chunks)))
+
+
 class WithEndSlices(_Box):
     """``array`` with one slice of ``value`` before the first and after the last slice
-    along ``axis`` (the inlet and outlet of a percolation sweep)."""
+    along ``axis`` (the inlet and outlet of a percolation sweep), in
+    :func:`end_slice_chunks`."""
 
     def __init__(self, array, axis: int, value: float):
         shape = list(array.shape)
         shape[axis] += 2
-        super().__init__(shape, array.chunks, array.dtype)
+        super().__init__(shape, end_slice_chunks(array.shape, array.chunks, axis),
+                         array.dtype)
         self.array, self.axis, self.value = array, axis, value
 
     def __getitem__(self, index):
@@ -256,7 +267,7 @@ def plan_tasks(shape, chunks, transforms: int = 2) -> TaskPlan:
     merge = planned_merge_bytes(shape, chunks)
     for axis in range(len(shape)):   # the percolation sweeps: two end slices more
         padded = tuple(n + 2 * (a == axis) for a, n in enumerate(shape))
-        merge = max(merge, planned_merge_bytes(padded, chunks))
+        merge = max(merge, planned_merge_bytes(padded, end_slice_chunks(shape, chunks, axis)))
     return TaskPlan(distance_pass=line * _chunked_edt.BYTES_PER_PASS_VOXEL * transforms,
                     union_find=chunk * BYTES_PER_CHUNK_VOXEL, merge=merge,
                     local_counts=halo * BYTES_PER_COUNT_VOXEL)
@@ -618,8 +629,7 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
     below_all = float(np.finfo(np.float32).min)
     crossed = [a for a in axes if all(faces_in_sample[a])]
     with worker_losses_told("the union-find sweeps"):
-        found = _percolation(pore_field, crossed, n_pore, chunks, spacing, below_all,
-                             scheduler)
+        found = _percolation(pore_field, crossed, n_pore, spacing, below_all, scheduler)
     for a in axes:
         if a in crossed:
             radius[names[a]], critical[names[a]] = found[a]
@@ -703,13 +713,13 @@ def _signed_chunk(phase, to_solid, to_pore, distance, lo, hi):
     return float(finite.max()) if finite.size else 0.0
 
 
-def _percolation(field, axes, neighbourhood, chunks, spacing, below_all, scheduler):
+def _percolation(field, axes, neighbourhood, spacing, below_all, scheduler):
     """{axis: (radius, critical voxel position)} along each of ``axes``: where the younger
     of the two end slices dies in the sublevel sweep; (0.0, None) when the faces never
     join in the pores. The sweeps of all axes run in one dask computation."""
     padded = [WithEndSlices(field, axis, below_all) for axis in axes]
     found = {}
-    every = chunked_merges_of_each(padded, neighbourhood=neighbourhood, chunks=chunks,
+    every = chunked_merges_of_each(padded, neighbourhood=neighbourhood,
                                    scheduler=scheduler) if axes else []
     for axis, array, merges in zip(axes, padded, every):
         shape3 = (1,) * (3 - field.ndim) + array.shape
