@@ -16,9 +16,10 @@ bytes each, default an equal share of 80 % of the available memory), the whole o
 pores job (segmentation, separable EDT, chunked union-find sweeps, percolation along the
 three axes, local counts, result folder).
 
-Printed: the store's size and chunks; the planned memory of one task (checked before the
-run starts) beside each worker's measured peak resident memory (getrusage, which includes
-the interpreter and libraries, about 0.2-0.3 GB); wall time; CPU time of the workers and
+Printed: the store's size and chunks; the planned memory per worker (checked before the
+run starts: the largest task, often a merge of border data, and the worker's own baseline
+of about 0.4 GB) beside each worker's measured peak resident memory (getrusage, which
+includes the interpreter and libraries); wall time; CPU time of the workers and
 of this process; the seconds of each stage; the machine's load average before and after.
 
 A 2048^3 run (8.6e9 voxels) needs, before zarr's compression, about 16 bytes per voxel of
@@ -117,7 +118,7 @@ def main(argv=None) -> int:
 
     from voxtopo.jobs import pores
     from voxtopo.memory import available_bytes, human
-    from voxtopo.porosity._out_of_core import planned_bytes_per_task
+    from voxtopo.porosity._out_of_core import plan_tasks
 
     folder = args.folder or Path(tempfile.mkdtemp(prefix="bench-ooc-pores-"))
     folder.mkdir(parents=True, exist_ok=True)
@@ -128,8 +129,12 @@ def main(argv=None) -> int:
     print(f"store: {store} {args.size}^3 uint8 in {args.chunk}^3 chunks, written in "
           f"{time.perf_counter() - clock:.1f} s")
     share = int(args.memory_per_worker or 0.8 * available_bytes() / args.workers)
-    planned = planned_bytes_per_task(shape, chunks)
-    print(f"planned memory of one task: {human(planned)}; worker memory limit {human(share)}")
+    plan = plan_tasks(shape, chunks)
+    planned = plan.per_worker
+    print(f"planned memory per worker: {human(planned)} = {human(plan.largest)} for "
+          f"{plan.largest_task} + the worker's baseline; the tasks: "
+          + ", ".join(f"{what} {human(size)}" for size, what in plan.tasks())
+          + f"; worker memory limit {human(share)}")
     with dask.config.set({"distributed.worker.daemon": False}):
         cluster = LocalCluster(n_workers=args.workers, threads_per_worker=1, processes=True,
                                memory_limit=share, dashboard_address=None,
@@ -151,8 +156,8 @@ def main(argv=None) -> int:
     print(f"wall {wall:.1f} s; CPU {worker_cpu:.1f} s in the workers + {own_cpu:.1f} s here "
           f"(CPU / wall = {(worker_cpu + own_cpu) / wall:.2f} on {os.cpu_count()} cores)")
     for name, (peak, _) in sorted(after.items()):
-        print(f"worker {name}: peak resident {human(peak)} (planned per task {human(planned)}, "
-              f"ratio {peak / planned:.2f})")
+        print(f"worker {name}: peak resident {human(peak)} (planned per worker "
+              f"{human(planned)}, ratio {peak / planned:.2f})")
     print(f"this process: peak resident {human(_usage()[0])}")
     print("stages (s):", json.dumps(summary["timings_seconds"]))
     print(f"porosity {summary['porosity']:.4f}, pores {summary['counts']['pores']}, "

@@ -123,6 +123,38 @@ def test_out_of_core_pores_with_a_region_of_interest_equal_in_memory(tmp_path):
     assert chunked.summary["porosity"] == pytest.approx(mask[roi].mean(), abs=1e-12)
 
 
+# with the region of interest (a cylinder along z) only z percolates: 1 sweep, not 3
+@pytest.mark.parametrize("with_roi, sweeps", [(False, 4 + 3), (True, 6 + 1)])
+def test_border_flags_come_from_the_dual_sweeps_when_the_edge_is_the_scans_outer_layer(
+        tmp_path, monkeypatch, with_roi, sweeps):
+    """Without a region of interest the pores' border sweep is the grains' dual sweep (and
+    back), so the run makes 4 union-find sweeps besides percolation instead of 6; the
+    border flags stay those of the in-memory run."""
+    from voxtopo.engine import chunked as chunked_engine
+
+    mask = _with_cavity(_blobs((14, 13, 12), seed=8), (7, 6, 6), 3)
+    grid = np.indices(mask.shape)
+    roi = (((grid[1] - 6) ** 2 + (grid[2] - 6) ** 2) <= 30) if with_roi else None
+    run_sweeps = chunked_engine._run_sweeps
+    made = []
+
+    def counted(jobs, scheduler):
+        made.extend(sweep for _, sweep in jobs)
+        return run_sweeps(jobs, scheduler)
+
+    monkeypatch.setattr(chunked_engine, "_run_sweeps", counted)
+    chunked = analyse_chunked(mask, roi=roi, chunks=(7, 7, 6), scratch=tmp_path,
+                              scheduler="sync")
+    memory = analyse(mask, roi=roi)
+    assert len(made) == sweeps
+    assert chunked.summary["counts"]["pores_at_border"] == memory.summary["counts"][
+        "pores_at_border"] > 0
+    assert chunked.summary["counts"]["grains_at_border"] == memory.summary["counts"][
+        "grains_at_border"]
+    np.testing.assert_array_equal(chunked.pores["border"], memory.pores["border"])
+    np.testing.assert_array_equal(chunked.grains["border"], memory.grains["border"])
+
+
 @pytest.mark.parametrize("shape, chunks, spacing", [((14, 19, 12), (5, 7, 4), (1.0, 0.7, 1.3)),
                                                     ((27, 22), (8, 5), (0.6, 1.1))])
 def test_chunked_edt_equals_scipy_on_random_masks_with_anisotropic_spacing(tmp_path, shape,

@@ -5,11 +5,12 @@ The engine takes arrays, not files: anything with ``shape``, ``dtype``, ``chunks
 :func:`voxtopo.io.open_chunked`, a dask or numpy array) is read one chunk at a time. Each
 chunk is swept by a dask task (:func:`voxtopo.engine._chunk_merge.reduce_chunk`),
 which finishes the pairs it can decide alone and hands on a reduced graph of what it cannot.
-Neighbouring blocks are then merged pairwise, one axis after the other, by further dask
-tasks that read the two voxel planes on either side of their shared face, add the grid
-edges that cross it, and reduce again (:func:`voxtopo.engine._chunk_merge.reduce_graph`).
-Only the last task sees the whole volume's reduced graph, whose size is set by the faces
-between blocks, not by their volume.
+Neighbouring blocks are then merged pairwise, level by level along the axis where the
+blocks are thinnest, by further dask tasks that read the two voxel planes on either side
+of their shared face, add the grid edges that cross it, and reduce again
+(:func:`voxtopo.engine._chunk_merge.reduce_graph`). Only the last task sees the whole
+volume's reduced graph, whose size is set by the faces between blocks, not by their
+volume; :func:`planned_merges` gives the most each merge can hold.
 
 ::
 
@@ -26,7 +27,9 @@ computed out of core; the diagram says so in its notes.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
+from itertools import product
 
 import numpy as np
 
@@ -39,11 +42,35 @@ from . import _chunk_merge as kernel
 from ._pairs import RawPairs, check_exact_in_float64
 from ._union_find import neighbour_offsets
 
-__all__ = ["BYTES_PER_CHUNK_VOXEL", "chunked_merges", "chunked_persistence"]
+__all__ = ["BYTES_PER_CHUNK_VOXEL", "PlannedMerge", "chunked_merges", "chunked_merges_of_each",
+           "chunked_persistence", "chunked_persistence_and_border_merges",
+           "planned_merge_bytes", "planned_merges"]
 
 #: Bytes per voxel of one chunk task: the values as float64, the sort order, union-find
 #: forest, flags and the four output buffers (int64 each).
 BYTES_PER_CHUNK_VOXEL = 8 * 8 + 4
+
+#: Bytes a merge task holds per vertex of its two blocks' reduced graphs: the blocks'
+#: ids and values (16), the unique sort of their joined ids (about 56), the flags of the
+#: merged box (3), the union-find forest and record buffers (34), the roots and vertices
+#: it keeps (24) and the block it hands on (16).
+BYTES_PER_MERGE_VERTEX = 16 + 56 + 3 + 34 + 24 + 16
+
+#: Bytes a merge task holds per edge of its blocks' graphs: the blocks' columns (ends,
+#: voxel, value: 32), their joined copy (32), both ends' positions (16) and the sweep
+#: order with its reversed copy (16).
+BYTES_PER_MERGE_EDGE = 32 + 32 + 16 + 16
+
+#: Bytes per edge across the shared face, made in place and let go once joined: the
+#: joined columns (32), both ends' positions (16) and the sweep order with its reversed
+#: copy (16).
+BYTES_PER_CROSSING_EDGE = 32 + 16 + 16
+
+#: A block's reduced graph has one vertex per flagged voxel of its box and, beyond them,
+#: the first voxels of the basins inside the box that reach a flagged voxel, its root and
+#: the outside node; those basins are planned as at most this share of the flagged voxels
+#: (measured: under 1 % of them in the sweeps of distance fields).
+INNER_ROOTS_PER_FLAGGED_VOXEL = 1 / 16
 
 @dataclass(frozen=True)
 class _Sweep:
@@ -228,7 +255,7 @@ def _cross_edges(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
     ids_b = np.ravel_multi_index(np.meshgrid(*[np.arange(p, q) for p, q in zip(lo_b, hi_b)],
                                              indexing="ij"), shape3)
     others = [k for k in range(3) if k != axis]
-    parts = []
+    takes = []
     for offset in neighbour_offsets(source.ndim, sweep.corners):
         if offset[axis] != 1:
             continue
@@ -239,14 +266,22 @@ def _cross_edges(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
             size = values_a.shape[k]
             take_a[k] = slice(max(0, -d), size - max(0, d))
             take_b[k] = slice(max(0, d), size - max(0, -d))
-        va, ia = values_a[tuple(take_a)].ravel(), ids_a[tuple(take_a)].ravel()
-        vb, ib = values_b[tuple(take_b)].ravel(), ids_b[tuple(take_b)].ravel()
+        takes.append((tuple(take_a), tuple(take_b)))
+    # filled in place, offset after offset: no second copy of the face's edges
+    total = sum(values_a[take_a].size for take_a, _ in takes)
+    edge_a, edge_b, edge_voxel = (np.empty(total, np.int64) for _ in range(3))
+    edge_value = np.empty(total, np.float64)
+    at = 0
+    for take_a, take_b in takes:
+        va, ia = values_a[take_a].ravel(), ids_a[take_a].ravel()
+        vb, ib = values_b[take_b].ravel(), ids_b[take_b].ravel()
         b_later = _later(va, ia, vb, ib, sweep.ascending)
-        parts.append((ia, ib, np.where(b_later, ib, ia), np.where(b_later, vb, va)))
-    if not parts:
-        empty = np.zeros(0, np.int64)
-        return empty, empty, empty, np.zeros(0)
-    return tuple(np.concatenate(column) for column in zip(*parts))
+        done = at + len(va)
+        edge_a[at:done], edge_b[at:done] = ia, ib
+        edge_voxel[at:done] = np.where(b_later, ib, ia)
+        edge_value[at:done] = np.where(b_later, vb, va)
+        at = done
+    return edge_a, edge_b, edge_voxel, edge_value
 
 
 def _merge(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
@@ -254,19 +289,23 @@ def _merge(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
     n_total = int(np.prod(shape3))
     lo = tuple(min(p, q) for p, q in zip(a.lo, b.lo))
     hi = tuple(max(p, q) for p, q in zip(a.hi, b.hi))
-    cross = _cross_edges(source, a, b, axis, sweep)
+    # each column of the edges across the face is let go once joined: they are most of
+    # what a merge near the top of the tree holds
+    cross = list(_cross_edges(source, a, b, axis, sweep))
+    columns = []
+    for name in ("edge_a", "edge_b", "edge_voxel", "edge_value"):
+        columns.append(np.concatenate([getattr(a, name), getattr(b, name), cross.pop(0)]))
+    edge_a, edge_b, edge_voxel, edge_value = columns
+    del columns
     vert_id = np.concatenate([a.vert_id, b.vert_id])
     vert_value = np.concatenate([a.vert_value, b.vert_value])
     vert_id, first = np.unique(vert_id, return_index=True)
     vert_value = vert_value[first]
-    edge_a = np.concatenate([a.edge_a, b.edge_a, cross[0]])
-    edge_b = np.concatenate([a.edge_b, b.edge_b, cross[1]])
-    edge_voxel = np.concatenate([a.edge_voxel, b.edge_voxel, cross[2]])
-    edge_value = np.concatenate([a.edge_value, b.edge_value, cross[3]])
+    del first
     pos_a, pos_b = np.searchsorted(vert_id, edge_a), np.searchsorted(vert_id, edge_b)
     inside = vert_id < n_total
-    coords = np.unravel_index(np.where(inside, vert_id, 0), shape3)
-    flags = np.where(inside, _flags(lo, hi, shape3, coords), 1).astype(np.uint8)
+    flags = np.where(inside, _flags(lo, hi, shape3, np.unravel_index(
+        np.where(inside, vert_id, 0), shape3)), 1).astype(np.uint8)
     outside = int(np.searchsorted(vert_id, n_total)) if vert_id[-1] == n_total else -1
     order = _sweep_order(edge_value, edge_voxel, sweep.ascending)
     m = len(vert_id)
@@ -289,54 +328,188 @@ def _merge(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
     return pairs, block
 
 
+def _leaf_boxes(shape3, chunks3) -> dict:
+    """(lo, hi) of every chunk, by its index in the chunk grid (C order)."""
+    starts = [list(range(0, n, c)) for n, c in zip(shape3, chunks3)]
+    boxes = {}
+    for index in np.ndindex(*[len(s) for s in starts]):
+        lo = tuple(starts[a][i] for a, i in enumerate(index))
+        boxes[index] = lo, tuple(min(lo[a] + chunks3[a], shape3[a]) for a in range(3))
+    return boxes
+
+
+def _merge_axes(shape3, chunks3):
+    """The axis of each level of the merge tree: the one, among those still holding more
+    than one block, along which the blocks are thinnest. The blocks so grow about as wide
+    as long, and a merge holds faces no larger than the scan's cross-section (merging
+    along one axis after the other would end with slabs whose two faces are that large)."""
+    counts = [-(-n // c) for n, c in zip(shape3, chunks3)]
+    width = list(chunks3)
+    while max(counts) > 1:
+        axis = min((a for a in range(3) if counts[a] > 1), key=lambda a: width[a])
+        yield axis
+        counts[axis] = (counts[axis] + 1) // 2
+        width[axis] *= 2
+
+
+def _merge_levels(indices, shape3, chunks3):
+    """The merge tree over the chunk grid: for each level, the axis and the list of
+    (merged index, first child, second child or None), pairing neighbours along that
+    axis until one block is left."""
+    indices = list(indices)
+    for axis in _merge_axes(shape3, chunks3):
+        level, merged = [], []
+        present = set(indices)
+        for index in indices:
+            i = index[axis]
+            if i % 2 == 1:
+                continue
+            new_index = index[:axis] + (i // 2,) + index[axis + 1:]
+            partner = index[:axis] + (i + 1,) + index[axis + 1:]
+            level.append((new_index, index, partner if partner in present else None))
+            merged.append(new_index)
+        yield axis, level
+        indices = merged
+
+
 def _plan(source: _Grid, sweep: _Sweep):
     """Dask delayed objects: every task's finished pairs, and the top block."""
     import dask
 
-    shape3 = _pad3(source.shape, 1)
-    chunks3 = _pad3(source.chunks, 1)
-    starts = [list(range(0, n, c)) for n, c in zip(shape3, chunks3)]
     leaf = dask.delayed(_reduce_leaf, nout=2, pure=True)
     merge = dask.delayed(_merge, nout=2, pure=True)
     grid = {}
     finished = []
-    for index in np.ndindex(*[len(s) for s in starts]):
-        lo = tuple(starts[a][i] for a, i in enumerate(index))
-        hi = tuple(min(lo[a] + chunks3[a], shape3[a]) for a in range(3))
-        pairs, block = leaf(source, lo, hi, sweep)
+    shape3, chunks3 = _pad3(source.shape, 1), _pad3(source.chunks, 1)
+    for index, (lo, hi) in _leaf_boxes(shape3, chunks3).items():
+        pairs, grid[index] = leaf(source, lo, hi, sweep)
         finished.append(pairs)
-        grid[index] = block
-    counts = [len(s) for s in starts]
-    for axis in range(3):
-        while counts[axis] > 1:
-            merged = {}
-            for index, block in grid.items():
-                i = index[axis]
-                if i % 2 == 1:
-                    continue
-                new_index = index[:axis] + (i // 2,) + index[axis + 1:]
-                partner = index[:axis] + (i + 1,) + index[axis + 1:]
-                if partner in grid:
-                    pairs, block = merge(source, block, grid[partner], axis, sweep)
-                    finished.append(pairs)
-                merged[new_index] = block
-            grid = merged
-            counts[axis] = (counts[axis] + 1) // 2
+    for axis, level in _merge_levels(grid, shape3, chunks3):
+        merged = {}
+        for new_index, first, second in level:
+            if second is None:
+                merged[new_index] = grid[first]
+                continue
+            pairs, merged[new_index] = merge(source, grid[first], grid[second], axis, sweep)
+            finished.append(pairs)
+        grid = merged
     (top,) = grid.values()
     return finished, top
 
 
-def _run_sweep(source, sweep, scheduler):
+def _flagged_voxels(lo, hi, shape3) -> int:
+    """How many voxels of the box [lo, hi) have a neighbour outside it but inside the
+    image: the vertices a block's reduced graph can keep (see
+    :mod:`voxtopo.engine._chunk_merge`)."""
+    size = [b - a for a, b in zip(lo, hi)]
+    inner = [max(s - (a > 0) - (b < n), 0) for s, a, b, n in zip(size, lo, hi, shape3)]
+    return math.prod(size) - math.prod(inner)
+
+
+@dataclass(frozen=True)
+class PlannedMerge:
+    """One merge task of the tree: the boxes (lo, hi) of its two blocks in (z, y, x), the
+    axis of their shared face, and the most it can hold."""
+
+    first: tuple
+    second: tuple
+    axis: int
+    vertices: int    # most vertices of the two reduced graphs together
+    edges: int       # most edges of the two graphs
+    crossing: int    # edges across the shared face
+
+    @property
+    def nbytes(self) -> int:
+        return (self.vertices * BYTES_PER_MERGE_VERTEX + self.edges * BYTES_PER_MERGE_EDGE
+                + self.crossing * BYTES_PER_CROSSING_EDGE)
+
+
+def _planned_merge(first, second, axis, shape3, ndim) -> PlannedMerge:
+    flagged = _flagged_voxels(*first, shape3) + _flagged_voxels(*second, shape3)
+    vertices = flagged + math.ceil(flagged * INNER_ROOTS_PER_FLAGGED_VOXEL) + 4
+    face = math.prod(b - a for k, (a, b) in enumerate(zip(*first)) if k != axis)
+    across = 3 ** (ndim - 1)             # neighbours one step along ``axis``, corners too
+    return PlannedMerge(first, second, axis, vertices, vertices, across * face)
+
+
+def planned_merges(shape, chunks) -> list[PlannedMerge]:
+    """Every merge task of a chunked sweep of an array of ``shape`` in ``chunks``, with
+    the most it can hold.
+
+    A block's reduced graph is a tree: about one vertex per flagged voxel of its box
+    (:data:`INNER_ROOTS_PER_FLAGGED_VOXEL` more for the basins inside), and one edge fewer.
+    A merge adds one edge per pair of neighbours across the shared face, counted with
+    corner neighbours (the 26 / 8 sweep, which every pore run makes). So the plan grows
+    with the faces merged; near the top of the tree they are the scan's cross-sections,
+    whatever the chunks.
+    """
+    shape3, chunks3 = _pad3(shape, 1), _pad3(chunks, 1)
+    boxes = _leaf_boxes(shape3, chunks3)
+    plans = []
+    for axis, level in _merge_levels(boxes, shape3, chunks3):
+        merged = {}
+        for new_index, first, second in level:
+            if second is None:
+                merged[new_index] = boxes[first]
+                continue
+            plans.append(_planned_merge(boxes[first], boxes[second], axis, shape3,
+                                        len(shape)))
+            merged[new_index] = boxes[first][0], boxes[second][1]
+        boxes = merged
+    return plans
+
+
+def planned_merge_bytes(shape, chunks) -> int:
+    """Memory of the largest merge task of a chunked sweep (0 for a single chunk): the
+    largest of :func:`planned_merges`, found level by level from the blocks' extents
+    along each axis (a merge's plan depends on its boxes' sizes and on which of their
+    faces lie inside the image, so few merges of a level differ)."""
+    shape3, chunks3 = _pad3(shape, 1), _pad3(chunks, 1)
+    extents = [[(a, min(a + c, n)) for a in range(0, n, c)] for n, c in zip(shape3, chunks3)]
+
+    def kinds(spans, n):
+        """One span of each kind: its size and whether its ends lie inside the image."""
+        return list({(b - a, a > 0, b < n): (a, b) for a, b in spans}.values())
+
+    largest = 0
+    for axis in _merge_axes(shape3, chunks3):
+        spans = extents[axis]
+        pairs = {(a[1] - a[0], b[1] - b[0], a[0] > 0, b[1] < shape3[axis]): (a, b)
+                 for a, b in zip(spans[0::2], spans[1::2])}
+        across = [kinds(extents[k], shape3[k]) if k != axis else [(0, 0)] for k in range(3)]
+        for a, b in pairs.values():
+            for others in product(*across):
+                first, second = list(others), list(others)
+                first[axis], second[axis] = a, b
+                merge = _planned_merge(tuple(zip(*first)), tuple(zip(*second)), axis,
+                                       shape3, len(shape))
+                largest = max(largest, merge.nbytes)
+        merged = [(a[0], b[1]) for a, b in zip(spans[0::2], spans[1::2])]
+        extents[axis] = merged + spans[len(merged) * 2:]
+    return largest
+
+
+def _run_sweeps(jobs, scheduler) -> list:
+    """Run the sweeps ``jobs`` [(source, sweep), ...] in one dask computation, so that the
+    last merges of one (a task or two at a time at the top of its tree) overlap the
+    chunks of the others; returns (merges, top block) of each."""
     import dask
 
-    finished, top = _plan(source, sweep)
+    plans = [_plan(source, sweep) for source, sweep in jobs]
     options = {} if scheduler is None else {"scheduler": scheduler}
-    *parts, top = dask.compute(*finished, top, **options)
-    join = (lambda name, dtype: np.concatenate([getattr(p, name) for p in parts]).astype(dtype)
-            if parts else np.zeros(0, dtype))
-    pairs = _Pairs(join("young_id", np.int64), join("young_value", np.float64),
-                   join("voxel_id", np.int64), join("voxel_value", np.float64))
-    return pairs, top
+    results = iter(dask.compute(*[task for finished, top in plans
+                                  for task in (*finished, top)], **options))
+    swept = []
+    for finished, _ in plans:
+        parts = [next(results) for _ in finished]
+        top = next(results)
+        join = (lambda name, dtype, parts=parts:
+                np.concatenate([getattr(p, name) for p in parts]).astype(dtype)
+                if parts else np.zeros(0, dtype))
+        swept.append((_Pairs(join("young_id", np.int64), join("young_value", np.float64),
+                             join("voxel_id", np.int64), join("voxel_value", np.float64)),
+                      top))
+    return swept
 
 
 def chunked_merges(array, *, superlevel: bool = False, neighbourhood=None, chunks=None,
@@ -356,16 +529,28 @@ def chunked_merges(array, *, superlevel: bool = False, neighbourhood=None, chunk
         and its value) of every merge with a positive lifetime; a component whose first
         voxel is an ``edge`` voxel dies as it is born and is not listed.
     """
+    return chunked_merges_of_each([array], superlevel=superlevel,
+                                  neighbourhood=neighbourhood, chunks=chunks, edge=edge,
+                                  scheduler=scheduler)[0]
+
+
+def chunked_merges_of_each(arrays, *, superlevel: bool = False, neighbourhood=None,
+                           chunks=None, edge=None, scheduler=None) -> list[_Pairs]:
+    """:func:`chunked_merges` of each of ``arrays``, the sweeps run in one dask
+    computation (the workers go on with one sweep's chunks while another's last merges
+    run)."""
     from . import construction_of
 
-    name = getattr(array, "source", "") or "The array"
-    source = _Grid(array, chunks if chunks is not None else chunks_of(array), name,
-                   edge=edge)
-    _check_source(source)
-    neighbourhood, construction = construction_of(source.ndim, neighbourhood)
-    merges, _ = _run_sweep(source, _Sweep(not superlevel, construction == "voxel",
-                                          edge is not None), scheduler)
-    return merges
+    jobs = []
+    for array in arrays:
+        name = getattr(array, "source", "") or "The array"
+        source = _Grid(array, chunks if chunks is not None else chunks_of(array), name,
+                       edge=edge)
+        _check_source(source)
+        neighbourhood, construction = construction_of(source.ndim, neighbourhood)
+        jobs.append((source, _Sweep(not superlevel, construction == "voxel",
+                                    edge is not None)))
+    return [merges for merges, _ in _run_sweeps(jobs, scheduler)]
 
 
 def _check_source(source: _Grid):
@@ -427,6 +612,38 @@ def chunked_persistence(array, *, superlevel: bool = False, neighbourhood=None,
     >>> sorted(d.intervals(0)[:, 0].tolist())
     [0.0, 0.0, 1.0, 2.0]
     """
+    return _persistence(array, superlevel=superlevel, neighbourhood=neighbourhood,
+                        chunks=chunks, min_persistence=min_persistence, dual=dual,
+                        spacing=spacing, unit=unit, scheduler=scheduler)[0]
+
+
+def chunked_persistence_and_border_merges(array, *, superlevel: bool = False,
+                                          neighbourhood=None, chunks=None,
+                                          min_persistence: float = 0.0, spacing=None,
+                                          unit=None, scheduler=None):
+    """The diagram of :func:`chunked_persistence` and every merge of its dual sweep,
+    from one run of each sweep.
+
+    The dual sweep runs the other way, with the complementary neighbourhood and the
+    image's outer layer joined to an eldest node, so its merges are those
+    :func:`chunked_merges` gives with ``superlevel`` flipped, the complementary
+    ``neighbourhood`` and ``edge`` true on the outer layer: a caller that needs both runs
+    that sweep once. The options are those of :func:`chunked_persistence`.
+
+    Returns
+    -------
+    diagram, merges
+        The diagram with its dimension d-1, and the merges as :func:`chunked_merges`
+        returns them.
+    """
+    return _persistence(array, superlevel=superlevel, neighbourhood=neighbourhood,
+                        chunks=chunks, min_persistence=min_persistence, dual=True,
+                        spacing=spacing, unit=unit, scheduler=scheduler)
+
+
+def _persistence(array, *, superlevel, neighbourhood, chunks, min_persistence, dual,
+                 spacing, unit, scheduler):
+    """:func:`chunked_persistence`, and the merges of its dual sweep (None without)."""
     from . import construction_of
 
     min_persistence = check_min_persistence(min_persistence)
@@ -444,7 +661,11 @@ def chunked_persistence(array, *, superlevel: bool = False, neighbourhood=None,
     ascending = not superlevel
     forever = -np.inf if superlevel else np.inf
 
-    low, top = _run_sweep(source, _Sweep(ascending, construction == "voxel", False), scheduler)
+    sweeps = [(source, _Sweep(ascending, construction == "voxel", False))]
+    if dual:
+        sweeps.append((source, _Sweep(not ascending, construction == "vertex", True)))
+    swept = _run_sweeps(sweeps, scheduler)
+    low, top = swept[0]
     if len(top.vert_id) == 0:
         raise InputError(f"{source.source} yielded no components.")
     eldest = top.vert_id[np.argmin(top.vert_value) if ascending else np.argmax(top.vert_value)]
@@ -456,9 +677,9 @@ def chunked_persistence(array, *, superlevel: bool = False, neighbourhood=None,
     death_index = [low.voxel_id, [-1]]
     notes = [f"computed out of core in {'x'.join(map(str, source.chunks))} chunks",
              *notes_of_array]
+    high = None
     if dual:
-        high, _ = _run_sweep(source, _Sweep(not ascending, construction == "vertex", True),
-                             scheduler)
+        high = swept[1][0]
         dims.append(np.full(len(high.young_id), source.ndim - 1, np.int8))
         births.append(high.voxel_value)
         deaths.append(high.young_value)
@@ -473,6 +694,7 @@ def chunked_persistence(array, *, superlevel: bool = False, neighbourhood=None,
     placeholder = np.broadcast_to(np.zeros((), source.dtype), source.shape)
     scan = Scan(placeholder, spacing=spacing, unit=unit,
                 source="" if name == "The array" else name)
-    return Diagram.from_raw(raw, scan, superlevel=superlevel, neighbourhood=neighbourhood,
-                            field=2, periodic=(False,) * source.ndim,
-                            min_persistence=min_persistence, notes=tuple(notes))
+    diagram = Diagram.from_raw(raw, scan, superlevel=superlevel, neighbourhood=neighbourhood,
+                               field=2, periodic=(False,) * source.ndim,
+                               min_persistence=min_persistence, notes=tuple(notes))
+    return diagram, high

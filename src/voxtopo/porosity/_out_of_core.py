@@ -24,7 +24,9 @@ Everything is exact and equal to the in-memory result where both fit:
   younger of them dies exactly where the inlet and outlet faces first connect;
 * a pore's basin reaches the border of the scan (or the rim of the sample) before its
   level exactly when, in the sweep with the border voxels joined to an eldest node
-  (:func:`voxtopo.engine.chunked.chunked_merges`), the pore dies below that level;
+  (:func:`voxtopo.engine.chunked.chunked_merges`), the pore dies below that level; without
+  a region of interest that sweep is the grains' dual sweep, run once for both
+  (:func:`voxtopo.engine.chunked.chunked_persistence_and_border_merges`), and back;
 * Euler characteristics and Minkowski functionals as sums of local terms
   (:mod:`voxtopo.porosity._local_counts`);
 * Betti curves of all dimensions: b0 and b(d-1) from the chunked sweeps, the Euler
@@ -52,22 +54,49 @@ import pandas as pd
 from .. import significance as sig
 from ..diagram import AXES_3D
 from ..engine import construction_of
-from ..engine.chunked import BYTES_PER_CHUNK_VOXEL, chunked_merges, chunked_persistence
+from ..engine.chunked import (
+    BYTES_PER_CHUNK_VOXEL,
+    chunked_merges,
+    chunked_merges_of_each,
+    chunked_persistence,
+    chunked_persistence_and_border_merges,
+    planned_merge_bytes,
+)
 from ..errors import InputError, TooBigError, VoxtopoError
 from ..memory import BUDGET_FRACTION, ensure_fits, human
 from ..scan import Scan
 from . import _chunked_edt, _chunked_pieces, _local_counts
-from ._analysis import (COMPLEMENT, SURFACE_SMOOTHING_VOXELS, PoreAnalysis, _axes,
-                        _check_extent, _coordinates, _flat, _loop_table, _phase_notes,
-                        _rows_of_dimension, _void_table, _with_robust, ball_outside,
-                        largest_first, pore_summary)
+from ._analysis import (
+    COMPLEMENT,
+    SURFACE_SMOOTHING_VOXELS,
+    PoreAnalysis,
+    _axes,
+    _check_extent,
+    _coordinates,
+    _flat,
+    _loop_table,
+    _phase_notes,
+    _rows_of_dimension,
+    _void_table,
+    _with_robust,
+    ball_outside,
+    largest_first,
+    pore_summary,
+)
 
 #: phase codes of the phase store: bit 0 is the segmented pore mask, bit 1 the sample
 OUTSIDE, OUTSIDE_PORE, SOLID, PORE = 0, 1, 2, 3
 
+#: Bytes per voxel of a local-count task for the interface mesh of its block and the
+#: curvature terms of its edges (vectorised over the whole block). They follow the
+#: interface's area: measured by tracemalloc, 260 per meshed voxel on smoothed noise with
+#: features about 5 voxels wide, 100 on a packing of beads 14 to 22 voxels wide.
+COUNT_MESH_BYTES_PER_VOXEL = 270
+
 #: Bytes per voxel of a local-count task: the block with its halo as read (float32 field,
-#: phase), the smoothed mask, cell windows and marching-cubes buffers.
-BYTES_PER_COUNT_VOXEL = 48
+#: phase: 5), the smoothed mask with its padded copy (8), marching cubes' float32 copy
+#: (4), the mesh and curvature terms, and the Euler counts' windows still held (24).
+BYTES_PER_COUNT_VOXEL = 5 + 8 + 4 + COUNT_MESH_BYTES_PER_VOXEL + 24
 
 #: Number of levels of the Betti curves.
 BETTI_LEVELS = 256
@@ -111,14 +140,25 @@ class SweepField(_Box):
         return np.where(phase & 2, values, np.float32(self.outside))
 
 
+def end_slice_chunks(shape, chunks, axis: int) -> tuple:
+    """The chunks of a scan with two end slices more along ``axis``: as many along it as
+    the scan's, one voxel deeper, so that no chunk is two slices thin (such a chunk would
+    give the blocks of the merge tree an extra face of the scan's cross-section)."""
+    count = -(-shape[axis] // chunks[axis])
+    return tuple(-(-(n + 2) // count) if a == axis else c
+                 for a, (n, c) in enumerate(zip(shape, chunks)))
+
+
 class WithEndSlices(_Box):
     """``array`` with one slice of ``value`` before the first and after the last slice
-    along ``axis`` (the inlet and outlet of a percolation sweep)."""
+    along ``axis`` (the inlet and outlet of a percolation sweep), in
+    :func:`end_slice_chunks`."""
 
     def __init__(self, array, axis: int, value: float):
         shape = list(array.shape)
         shape[axis] += 2
-        super().__init__(shape, array.chunks, array.dtype)
+        super().__init__(shape, end_slice_chunks(array.shape, array.chunks, axis),
+                         array.dtype)
         self.array, self.axis, self.value = array, axis, value
 
     def __getitem__(self, index):
@@ -181,15 +221,69 @@ def _box(lo, hi):
     return tuple(slice(int(a), int(b)) for a, b in zip(lo, hi))
 
 
-def planned_bytes_per_task(shape, chunks, transforms: int = 2) -> int:
-    """Memory one task of the out-of-core pore run may hold at a time: the largest of a
-    distance-transform pass (a line block whole along the longest axis), a union-find
-    chunk, and a local-count chunk with its halo."""
+#: Memory of a dask worker before any task: the interpreter with numpy, scipy, zarr, dask
+#: and numba's compiled kernels (measured: 0.38 GB resident in each worker of a local
+#: cluster after a 32^3 run).
+WORKER_BASELINE_BYTES = 400_000_000
+
+
+@dataclass(frozen=True)
+class TaskPlan:
+    """The memory each kind of task of an out-of-core pore run may hold at a time."""
+
+    distance_pass: int   # a line block whole along the longest axis, every transform
+    union_find: int      # one chunk swept
+    merge: int           # the largest merge of border data (near the top of the tree)
+    local_counts: int    # one chunk with its halo
+
+    def tasks(self) -> list[tuple[int, str]]:
+        """(bytes, what the task does in the refusal's words) of each kind of task."""
+        return [(self.distance_pass, "a pass of the distance transform"),
+                (self.union_find, "the union-find sweep of one chunk"),
+                (self.merge, "the largest merge of the chunks' border data"),
+                (self.local_counts, "the local counts of one chunk")]
+
+    @property
+    def largest(self) -> int:
+        return max(size for size, _ in self.tasks())
+
+    @property
+    def largest_task(self) -> str:
+        """What the largest task does."""
+        return max(self.tasks(), key=lambda task: task[0])[1]
+
+    @property
+    def per_worker(self) -> int:
+        """The largest task and the worker's own baseline."""
+        return WORKER_BASELINE_BYTES + self.largest
+
+
+def plan_tasks(shape, chunks, transforms: int = 2) -> TaskPlan:
+    """Memory of each kind of task of the out-of-core pore run of a scan of ``shape`` in
+    ``chunks`` (``transforms`` distance transforms: 3 with a region of interest)."""
     chunk = int(np.prod(chunks))
     line = max(int(np.prod(chunks)) // c * n for c, n in zip(chunks, shape))
     halo = int(np.prod([c + 2 * _local_counts.HALO for c in chunks]))
-    return max(line * _chunked_edt.BYTES_PER_PASS_VOXEL * transforms,
-               chunk * BYTES_PER_CHUNK_VOXEL, halo * BYTES_PER_COUNT_VOXEL)
+    merge = planned_merge_bytes(shape, chunks)
+    for axis in range(len(shape)):   # the percolation sweeps: two end slices more
+        padded = tuple(n + 2 * (a == axis) for a, n in enumerate(shape))
+        merge = max(merge, planned_merge_bytes(padded, end_slice_chunks(shape, chunks, axis)))
+    return TaskPlan(distance_pass=line * _chunked_edt.BYTES_PER_PASS_VOXEL * transforms,
+                    union_find=chunk * BYTES_PER_CHUNK_VOXEL, merge=merge,
+                    local_counts=halo * BYTES_PER_COUNT_VOXEL)
+
+
+def planned_bytes_per_task(shape, chunks, transforms: int = 2) -> int:
+    """Memory one task of the out-of-core pore run may hold at a time: the largest of a
+    distance-transform pass, a union-find chunk, a merge of border data and a
+    local-count chunk with its halo (see :func:`plan_tasks`)."""
+    return plan_tasks(shape, chunks, transforms).largest
+
+
+def planned_bytes_per_worker(shape, chunks, transforms: int = 2) -> int:
+    """Memory a dask worker of the out-of-core pore run needs: its own baseline
+    (:data:`WORKER_BASELINE_BYTES`) and the largest task."""
+    return plan_tasks(shape, chunks, transforms).per_worker
 
 
 @dataclass
@@ -312,19 +406,47 @@ def compute_on(scheduler, what: str):
     return compute
 
 
-def _check_worker_memory(scheduler, planned: int, shape, chunks) -> None:
-    """Refuse a plan whose task would not fit the smallest worker of a distributed
-    scheduler (with the same margin as a run on this machine)."""
+#: The smallest chunk edge the refusal of a plan suggests.
+SMALLEST_SUGGESTED_CHUNK = 16
+
+
+def _smaller_chunks_that_fit(shape, chunks, transforms, room):
+    """The first of the chunk shapes halved again and again whose worker plan fits in
+    ``room`` bytes, or None when halving down to SMALLEST_SUGGESTED_CHUNK does not help
+    (the merges grow with the scan's cross-section, not with the chunks)."""
+    while max(chunks) > SMALLEST_SUGGESTED_CHUNK:
+        chunks = tuple(max(-(-c // 2), min(SMALLEST_SUGGESTED_CHUNK, c)) for c in chunks)
+        if plan_tasks(shape, chunks, transforms).per_worker <= room:
+            return chunks
+    return None
+
+
+def _check_worker_memory(scheduler, plan: TaskPlan, shape, chunks, transforms) -> None:
+    """Refuse a plan that would not fit the smallest worker of a distributed scheduler:
+    the worker's baseline and its largest task, within the same share of its memory
+    limit as a run on this machine plans for."""
     info = getattr(scheduler, "scheduler_info", None)
     if info is None:
         return
     limits = [w.get("memory_limit") or 0 for w in info().get("workers", {}).values()]
     limits = [limit for limit in limits if limit > 0]
-    if limits and planned > BUDGET_FRACTION * min(limits):
-        raise TooBigError(f"One task of the out-of-core pore analysis of the "
-                          f"{'x'.join(map(str, shape))} scan in {'x'.join(map(str, chunks))} "
-                          f"chunks would need about {human(planned)} but the smallest worker "
-                          f"has {human(min(limits))}; choose smaller chunks (--chunks).")
+    if not limits or plan.per_worker <= BUDGET_FRACTION * min(limits):
+        return
+    smallest = min(limits)
+    needed_limit = plan.per_worker / BUDGET_FRACTION
+    remedy = f"give each worker a memory limit of at least {human(needed_limit)}"
+    smaller = _smaller_chunks_that_fit(shape, chunks, transforms, BUDGET_FRACTION * smallest)
+    if smaller is not None:
+        remedy += f", or choose smaller chunks (--chunks {','.join(map(str, smaller))})"
+    elif plan.largest == plan.merge:
+        remedy += (" (smaller chunks would not help: that merge holds whole cross-sections "
+                   "of the scan)")
+    raise TooBigError(f"The out-of-core pore analysis of the {'x'.join(map(str, shape))} scan "
+                      f"in {'x'.join(map(str, chunks))} chunks needs about "
+                      f"{human(plan.per_worker)} per worker ({human(plan.largest)} for "
+                      f"{plan.largest_task} and {human(WORKER_BASELINE_BYTES)} for the worker "
+                      f"itself) but the smallest worker's memory limit is {human(smallest)}, "
+                      f"of which {BUDGET_FRACTION:.0%} is planned for; {remedy}.")
 
 
 # --------------------------------------------------------------------------- analyse
@@ -394,11 +516,13 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
                        unit=unit, source=where)
     delta = sig.boundary_tolerance_of(placeholder, boundary_tolerance)
     robust_above = sig.robust_threshold(placeholder, delta)
-    planned = planned_bytes_per_task(shape, chunks, 3 if roi is not None else 2)
+    transforms = 3 if roi is not None else 2
+    plan = plan_tasks(shape, chunks, transforms)
+    planned = plan.largest
     ensure_fits(planned, f"One task of the out-of-core pore analysis of the "
                          f"{'x'.join(map(str, shape))} scan in {'x'.join(map(str, chunks))} "
                          f"chunks", "choose smaller chunks (--chunks)")
-    _check_worker_memory(scheduler, planned, shape, chunks)
+    _check_worker_memory(scheduler, plan, shape, chunks, transforms)
     compute = compute_on(scheduler, "the pore analysis")
 
     def step(name, fraction):
@@ -455,18 +579,27 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
     pore_field = SweepField(distance, phase, outside_level)
     solid_field = SweepField(distance, phase, None if roi is None else -outside_level)
     common = {"chunks": chunks, "spacing": spacing, "unit": unit, "scheduler": scheduler}
+    edge = Edge(phase, roi is not None)
     with worker_losses_told("the union-find sweeps"):
-        diagram = chunked_persistence(pore_field, neighbourhood=n_pore, **common)
-        step("pores and grains", 0.25)
-        solid_diagram = chunked_persistence(solid_field, superlevel=True,
-                                            neighbourhood=n_solid, **common)
-        step("pores and grains", 0.5)
-        edge = Edge(phase, roi is not None)
-        pore_edge = chunked_merges(pore_field, neighbourhood=n_pore, chunks=chunks, edge=edge,
-                                   scheduler=scheduler)
-        step("pores and grains", 0.75)
-        solid_edge = chunked_merges(solid_field, superlevel=True, neighbourhood=n_solid,
-                                    chunks=chunks, edge=edge, scheduler=scheduler)
+        if roi is None:
+            # one field for both phases, and the edge is the scan's outer layer: the
+            # border sweep of the pores is the dual sweep of the grains, and back
+            diagram, solid_edge = chunked_persistence_and_border_merges(
+                pore_field, neighbourhood=n_pore, **common)
+            step("pores and grains", 0.5)
+            solid_diagram, pore_edge = chunked_persistence_and_border_merges(
+                solid_field, superlevel=True, neighbourhood=n_solid, **common)
+        else:
+            diagram = chunked_persistence(pore_field, neighbourhood=n_pore, **common)
+            step("pores and grains", 0.25)
+            solid_diagram = chunked_persistence(solid_field, superlevel=True,
+                                                neighbourhood=n_solid, **common)
+            step("pores and grains", 0.5)
+            pore_edge = chunked_merges(pore_field, neighbourhood=n_pore, chunks=chunks,
+                                       edge=edge, scheduler=scheduler)
+            step("pores and grains", 0.75)
+            solid_edge = chunked_merges(solid_field, superlevel=True, neighbourhood=n_solid,
+                                        chunks=chunks, edge=edge, scheduler=scheduler)
     if roi is not None:
         diagram = diagram.without_outside(outside_level)
         solid_diagram = solid_diagram.without_outside(-outside_level)
@@ -494,16 +627,17 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
     names = AXES_3D[3 - ndim:]
     radius, critical, connected = {}, {}, {}
     below_all = float(np.finfo(np.float32).min)
-    for k, a in enumerate(axes):
-        if all(faces_in_sample[a]):
-            with worker_losses_told("the union-find sweeps"):
-                radius[names[a]], critical[names[a]] = _percolation(
-                    pore_field, a, n_pore, chunks, spacing, below_all, scheduler)
+    crossed = [a for a in axes if all(faces_in_sample[a])]
+    with worker_losses_told("the union-find sweeps"):
+        found = _percolation(pore_field, crossed, n_pore, spacing, below_all, scheduler)
+    for a in axes:
+        if a in crossed:
+            radius[names[a]], critical[names[a]] = found[a]
             through = pore_pieces.faces[:, a, 0] & pore_pieces.faces[:, a, 1]
             connected[names[a]] = float(pore_pieces.sizes[through].sum() / sample_voxels)
         else:
             radius[names[a]], critical[names[a]], connected[names[a]] = None, None, None
-        step("percolation", (k + 1) / len(axes))
+    step("percolation", 1.0)
     timings["percolation"] = time.perf_counter() - clock
 
     # ---- local counts
@@ -539,6 +673,7 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
                  f"{NOT_COMPUTED}.")
     summary.update({
         "out_of_core": {"chunks": list(chunks), "planned_bytes_per_task": planned,
+                        "planned_bytes_per_worker": plan.per_worker,
                         "not_computed": NOT_COMPUTED,
                         "betti_curves": "b0 and b(d-1) from the chunked sweeps, the Euler "
                                         "characteristic from local counts, b1 = b0 + b2 - "
@@ -578,23 +713,29 @@ def _signed_chunk(phase, to_solid, to_pore, distance, lo, hi):
     return float(finite.max()) if finite.size else 0.0
 
 
-def _percolation(field, axis, neighbourhood, chunks, spacing, below_all, scheduler):
-    """(radius, critical voxel position) along ``axis``: where the younger of the two end
-    slices dies in the sublevel sweep; (0.0, None) when the faces never join in the pores."""
-    padded = WithEndSlices(field, axis, below_all)
-    merges = chunked_merges(padded, neighbourhood=neighbourhood, chunks=chunks,
-                            scheduler=scheduler)
-    shape3 = (1,) * (3 - field.ndim) + padded.shape
-    outlet = [0, 0, 0]
-    outlet[3 - field.ndim + axis] = shape3[3 - field.ndim + axis] - 1
-    outlet_id = int(np.ravel_multi_index(outlet, shape3))
-    which = np.flatnonzero(merges.young_id == outlet_id)
-    if len(which) == 0 or merges.voxel_value[which[0]] >= 0:
-        return 0.0, None
-    level = float(merges.voxel_value[which[0]])
-    voxel = np.array(np.unravel_index(int(merges.voxel_id[which[0]]), shape3))[3 - field.ndim:]
-    voxel[axis] -= 1
-    return -level, voxel.astype(np.float64) * np.asarray(spacing)
+def _percolation(field, axes, neighbourhood, spacing, below_all, scheduler):
+    """{axis: (radius, critical voxel position)} along each of ``axes``: where the younger
+    of the two end slices dies in the sublevel sweep; (0.0, None) when the faces never
+    join in the pores. The sweeps of all axes run in one dask computation."""
+    padded = [WithEndSlices(field, axis, below_all) for axis in axes]
+    found = {}
+    every = chunked_merges_of_each(padded, neighbourhood=neighbourhood,
+                                   scheduler=scheduler) if axes else []
+    for axis, array, merges in zip(axes, padded, every):
+        shape3 = (1,) * (3 - field.ndim) + array.shape
+        outlet = [0, 0, 0]
+        outlet[3 - field.ndim + axis] = shape3[3 - field.ndim + axis] - 1
+        outlet_id = int(np.ravel_multi_index(outlet, shape3))
+        which = np.flatnonzero(merges.young_id == outlet_id)
+        if len(which) == 0 or merges.voxel_value[which[0]] >= 0:
+            found[axis] = 0.0, None
+            continue
+        level = float(merges.voxel_value[which[0]])
+        voxel = np.array(np.unravel_index(int(merges.voxel_id[which[0]]), shape3))
+        voxel = voxel[3 - field.ndim:]
+        voxel[axis] -= 1
+        found[axis] = -level, voxel.astype(np.float64) * np.asarray(spacing)
+    return found
 
 
 def _feature_table(pairs: pd.DataFrame, edge_merges, flip: bool, min_persistence: float,
