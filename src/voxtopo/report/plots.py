@@ -56,6 +56,12 @@ def _scaled(label: str, scale: float) -> str:
     return label if scale == 1.0 else f"{label} (x {scale:.0e})"
 
 
+def _columns(pairs: pd.DataFrame, *names) -> pd.DataFrame:
+    """The columns ``names`` of ``pairs`` that it has: a plot's copies of a table of
+    millions of pairs then hold only what it draws."""
+    return pairs[[name for name in names if name in pairs.columns]]
+
+
 def _scaled_pairs(pairs: pd.DataFrame) -> tuple[pd.DataFrame, float]:
     """``pairs`` with birth and death divided by their display scale, and the scale."""
     scale = _display_scale(pairs[["birth", "death"]].to_numpy(dtype=np.float64))
@@ -119,7 +125,7 @@ def plot_diagram(diagram, ax=None, title: str | None = None, dims=None, *,
     pairs fail the test is shaded; with ``flag`` ("significant" or "robust") the pairs
     that fail it are drawn small and grey, those that pass in their dimension's colour."""
     pairs, diag = _unpack(diagram)
-    pairs, scale = _scaled_pairs(pairs)
+    pairs, scale = _scaled_pairs(_columns(pairs, "dim", "birth", "death", flag))
     ax = _new_axes(ax)
     dims = sorted(pairs["dim"].unique()) if dims is None else dims
     finite_vals = pairs[["birth", "death"]].to_numpy(dtype=float).ravel()
@@ -164,7 +170,7 @@ def plot_diagram(diagram, ax=None, title: str | None = None, dims=None, *,
 def plot_barcode(diagram, ax=None, title: str | None = None, max_bars: int = 60):
     """Barcode: the ``max_bars`` longest bars per dimension, grouped by dimension."""
     pairs, diag = _unpack(diagram)
-    pairs, scale = _scaled_pairs(pairs)
+    pairs, scale = _scaled_pairs(_columns(pairs, "dim", "birth", "death", "persistence"))
     ax = _new_axes(ax, size=(6.4, 5.0))
     finite = pairs[np.isfinite(pairs["death"].to_numpy(dtype=float))]
     vals = finite[["birth", "death"]].to_numpy(dtype=float).ravel()
