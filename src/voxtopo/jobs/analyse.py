@@ -173,11 +173,11 @@ ANALYSE_RULES = {
 AUTO = "auto"
 
 
-#: Bytes per pair held while the diagram is tested and its tables written, beyond the
-#: scan: the Diagram, its p-values and flags, and the tables. Measured on a 512^3 uint16
-#: noisy bead scan (benchmarks/bench_memory.py): 2.22 GB beyond the scan and the
-#: interpreter for 4.85 million pairs, at the peak of the significance stage.
-RESULT_BYTES_PER_PAIR = 460
+#: Bytes per pair held while the diagram is tested and its tables and plots written,
+#: beyond the scan: the Diagram, its p-values and flags, the tables and the plots' copies.
+#: Measured on a 512^3 uint16 noisy bead scan (benchmarks/bench_memory.py): 1.57 GB beyond
+#: the scan and the interpreter for 4.85 million pairs, at the peak of that stage.
+RESULT_BYTES_PER_PAIR = 330
 
 
 def preparation_plan(scan: Scan, options: AnalysisOptions) -> list[tuple[str, int]]:
