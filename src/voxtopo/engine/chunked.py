@@ -372,29 +372,39 @@ def _merge_levels(indices, shape3, chunks3):
         indices = merged
 
 
+def _fold_merge_tree(leaves: dict, shape3, chunks3, combine):
+    """The top block's value, folding ``leaves`` (chunk index -> value) up the merge tree
+    of :func:`_merge_levels`: ``combine(first, second, axis)`` gives a merged block's value,
+    and a block without a partner is carried up as it is. The run and its memory plan
+    walk the tree through this one function."""
+    values = leaves
+    for axis, level in _merge_levels(leaves, shape3, chunks3):
+        values = {new_index: (values[first] if second is None
+                              else combine(values[first], values[second], axis))
+                  for new_index, first, second in level}
+    (top,) = values.values()
+    return top
+
+
 def _plan(source: _Grid, sweep: _Sweep):
     """Dask delayed objects: every task's finished pairs, and the top block."""
     import dask
 
     leaf = dask.delayed(_reduce_leaf, nout=2, pure=True)
     merge = dask.delayed(_merge, nout=2, pure=True)
-    grid = {}
+    blocks = {}
     finished = []
     shape3, chunks3 = _pad3(source.shape, 1), _pad3(source.chunks, 1)
     for index, (lo, hi) in _leaf_boxes(shape3, chunks3).items():
-        pairs, grid[index] = leaf(source, lo, hi, sweep)
+        pairs, blocks[index] = leaf(source, lo, hi, sweep)
         finished.append(pairs)
-    for axis, level in _merge_levels(grid, shape3, chunks3):
-        merged = {}
-        for new_index, first, second in level:
-            if second is None:
-                merged[new_index] = grid[first]
-                continue
-            pairs, merged[new_index] = merge(source, grid[first], grid[second], axis, sweep)
-            finished.append(pairs)
-        grid = merged
-    (top,) = grid.values()
-    return finished, top
+
+    def combine(first, second, axis):
+        pairs, block = merge(source, first, second, axis, sweep)
+        finished.append(pairs)
+        return block
+
+    return finished, _fold_merge_tree(blocks, shape3, chunks3, combine)
 
 
 def _flagged_voxels(lo, hi, shape3) -> int:
@@ -444,18 +454,13 @@ def planned_merges(shape, chunks) -> list[PlannedMerge]:
     whatever the chunks.
     """
     shape3, chunks3 = _pad3(shape, 1), _pad3(chunks, 1)
-    boxes = _leaf_boxes(shape3, chunks3)
     plans = []
-    for axis, level in _merge_levels(boxes, shape3, chunks3):
-        merged = {}
-        for new_index, first, second in level:
-            if second is None:
-                merged[new_index] = boxes[first]
-                continue
-            plans.append(_planned_merge(boxes[first], boxes[second], axis, shape3,
-                                        len(shape)))
-            merged[new_index] = boxes[first][0], boxes[second][1]
-        boxes = merged
+
+    def combine(first, second, axis):
+        plans.append(_planned_merge(first, second, axis, shape3, len(shape)))
+        return first[0], second[1]
+
+    _fold_merge_tree(_leaf_boxes(shape3, chunks3), shape3, chunks3, combine)
     return plans
 
 

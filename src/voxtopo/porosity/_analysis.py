@@ -482,6 +482,20 @@ def _kind(birth: np.ndarray, death: np.ndarray, superlevel: bool) -> np.ndarray:
     return np.where(high <= 0, "pore", np.where(low >= 0, "solid", "crossing"))
 
 
+def finished_tables(pores, grains, diagram, solid_diagram, spacing, min_persistence,
+                    robust_above):
+    """(pores, grains, loops, voids, pore_rows): the pore and grain tables without their
+    working column ``pair_row`` (the pores' rows are returned), the loop and void tables
+    of the two diagrams, each with its ``robust`` flag; in memory and out of core alike."""
+    pore_rows = pores.pop("pair_row").to_numpy()
+    grains.pop("pair_row")
+    loops = _loop_table(diagram, spacing, min_persistence)
+    voids = _void_table(solid_diagram, spacing, min_persistence)
+    pores, grains, loops, voids = (_with_robust(table, robust_above)
+                                   for table in (pores, grains, loops, voids))
+    return pores, grains, loops, voids, pore_rows
+
+
 def _loop_table(diagram, spacing, min_persistence) -> pd.DataFrame:
     """Dimension-1 pairs of the pore-phase diagram: loops of the eroded pore space.
 
@@ -883,12 +897,8 @@ def _features(field, mask, sample, pore, diagram, solid_diagram, neighbourhoods,
                                   room_in_sample, member=member)
     solid_pieces = pieces.count()
     del pieces, solid, room_in_sample, edge
-    pore_rows = pores.pop("pair_row").to_numpy()
-    grains.pop("pair_row")
-    loops = _loop_table(diagram, spacing, min_persistence)
-    voids = _void_table(solid_diagram, spacing, min_persistence)
-    pores, grains, loops, voids = (_with_robust(table, robust_above)
-                                   for table in (pores, grains, loops, voids))
+    pores, grains, loops, voids, pore_rows = finished_tables(
+        pores, grains, diagram, solid_diagram, spacing, min_persistence, robust_above)
     timings["features"] += time.perf_counter() - clock
     return pores, grains, loops, voids, radius, critical, connected, solid_pieces, pore_rows
 

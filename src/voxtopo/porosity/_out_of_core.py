@@ -74,12 +74,10 @@ from ._analysis import (
     _check_extent,
     _coordinates,
     _flat,
-    _loop_table,
     _phase_notes,
     _rows_of_dimension,
-    _void_table,
-    _with_robust,
     ball_outside,
+    finished_tables,
     largest_first,
     pore_summary,
 )
@@ -614,12 +612,8 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
     pore_pieces = _pieces(phase, edge, (PORE,), n_pore, pores, "body", shape, chunks, compute)
     solid_pieces = _pieces(phase, edge, (SOLID,), n_solid, grains, "body", shape, chunks,
                            compute)
-    pore_rows = pores.pop("pair_row").to_numpy()
-    grains.pop("pair_row")
-    loops = _loop_table(diagram, spacing, min_persistence)
-    voids = _void_table(solid_diagram, spacing, min_persistence)
-    pores, grains, loops, voids = (_with_robust(t, robust_above)
-                                   for t in (pores, grains, loops, voids))
+    pores, grains, loops, voids, pore_rows = finished_tables(
+        pores, grains, diagram, solid_diagram, spacing, min_persistence, robust_above)
     timings["features"] = time.perf_counter() - clock
 
     # ---- percolation
