@@ -154,7 +154,9 @@ def main(argv=None) -> int:
                 dtype = np.uint8 if kind == "mask" else np.uint16
                 shape = (size,) * 3
                 planned = estimate(shape, dtype)
-                engine_part = persistence_estimate(shape, np.float32, neighbourhood=26)
+                # the engine runs on the distance's uint16 level numbers, both phases
+                engine_part = max(persistence_estimate(shape, np.uint16, neighbourhood=n)
+                                  for n in (26, 6))
                 load = os.getloadavg()[0]
                 result = run_child(pores_command(path, folder / "out", kind))
                 print(f"\n{size}^3 {kind} ({np.dtype(dtype).name}, porosity {porosity:.3f}, "

@@ -19,7 +19,7 @@ from skimage.measure import euler_number
 
 import voxtopo
 from voxtopo import memory
-from voxtopo.engine import _gudhi, estimate, own
+from voxtopo.engine import _gudhi, _levels, estimate, own
 from voxtopo.errors import Cancelled, InputError, TooBigError
 
 SETTINGS = settings(max_examples=30, deadline=None)
@@ -335,6 +335,8 @@ def test_64_bit_indices_give_the_same_pairs(monkeypatch, shape, construction, dt
     from voxtopo.engine import _union_find
 
     values = (np.random.default_rng(9).integers(0, 7, shape) * 3).astype(dtype)
+    if dtype == np.float32:  # the sorted-float path, not the level numbers' (uint16)
+        monkeypatch.setattr(_levels, "MOST_LEVELS", 0)
     narrow = {superlevel: own.compute(values, superlevel=superlevel,
                                       construction=construction, threads=1)
               for superlevel in (False, True)}
@@ -348,3 +350,53 @@ def test_64_bit_indices_give_the_same_pairs(monkeypatch, shape, construction, dt
         theirs = _gudhi.compute(values, superlevel=superlevel, construction=construction,
                                 periodic=None, field=2)
         assert _multiset(wide) == _multiset(theirs)
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_float_levels_number_the_distinct_values_as_numpy_unique_does(dtype):
+    """Check against numpy.unique (its sorted distinct values and inverse): level numbers
+    (from 1) order the values exactly and give them back, -0.0 and 0.0 are one level, and
+    too many levels give None."""
+    rng = np.random.default_rng(7)
+    values = (rng.integers(-700, 700, size=(30, 40, 50)) * 0.37).astype(dtype)
+    values[0, 0, :3] = [0.0, -0.0, 0.0]
+    levels, level_values = _levels.float_levels(values)
+    distinct, inverse = np.unique(values, return_inverse=True)
+    assert levels.dtype == np.uint16 and levels.shape == values.shape
+    assert np.array_equal(levels.ravel(), inverse.ravel() + 1)
+    assert level_values.dtype == dtype and np.array_equal(level_values[1:], distinct)
+    assert np.array_equal(level_values[levels], values)
+    many = rng.random(70_000).astype(dtype)
+    distinct, inverse = np.unique(many, return_inverse=True)
+    levels, level_values = _levels.float_levels(many)
+    assert levels.dtype == np.uint32
+    assert np.array_equal(levels.astype(np.int64), inverse + 1)
+    assert np.array_equal(level_values[levels], many)
+    assert _levels.float_levels(many, most=1000) is None
+    assert _levels.float_levels(values.astype(np.int32)) is None
+
+
+@pytest.mark.parametrize("construction", ["voxel", "vertex"])
+@pytest.mark.parametrize("superlevel", [False, True])
+def test_floats_over_few_levels_and_sorted_floats_give_gudhi_s_pairs(monkeypatch,
+                                                                      construction,
+                                                                      superlevel):
+    """A signed distance transform (few distinct float32 values) runs on its level numbers;
+    forced onto the sorted-float path it must give the same pairs at the same locations,
+    and both gudhi's (Maria, Boissonnat, Glisse & Yvinec 2014) multiset."""
+    from scipy import ndimage
+
+    rng = np.random.default_rng(3)
+    mask = ndimage.uniform_filter(rng.random((14, 15, 16)), 3) > 0.5
+    values = (ndimage.distance_transform_edt(mask)
+              - ndimage.distance_transform_edt(~mask)).astype(np.float32)
+    assert _levels.float_levels(values) is not None
+    on_levels = own.compute(values, superlevel=superlevel, construction=construction)
+    monkeypatch.setattr(_levels, "MOST_LEVELS", 0)
+    assert _levels.float_levels(values) is None
+    sorted_floats = own.compute(values, superlevel=superlevel, construction=construction)
+    for column in ("dim", "birth", "death", "birth_index", "death_index"):
+        assert np.array_equal(getattr(on_levels, column), getattr(sorted_floats, column))
+    reference = _gudhi.compute(values, superlevel=superlevel, construction=construction,
+                               periodic=None, field=2)
+    assert _multiset(on_levels) == _multiset(reference)

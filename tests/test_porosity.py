@@ -423,12 +423,14 @@ def test_too_big_for_memory_is_refused(monkeypatch):
     assert "memory" in _one_sentence(error)
 
 
-def test_estimate_grows_with_the_scan_and_holds_its_arrays():
+def test_estimate_grows_with_the_scan_and_holds_its_arrays(monkeypatch):
     # common practice, no source: a larger scan, a wider scan type or a region of interest
     # never needs less memory; a run holds at least the scan, its mask and the float32
     # distance (6 bytes per voxel for a uint8 scan); the need is per voxel, so doubling the
-    # edge multiplies it by nearly 8 once the libraries' share is small
+    # edge multiplies it by nearly 8 once the libraries' share is small (with memory
+    # enough that the engine plans the same way at both sizes)
     from voxtopo.porosity import estimate
+    monkeypatch.setenv("VOXTOPO_MEMORY_LIMIT", "1e12")
     sizes = [estimate((n, n, n), np.uint8) for n in (64, 128, 256, 512)]
     assert sizes == sorted(sizes) and len(set(sizes)) == len(sizes)
     assert estimate((256,) * 3, np.uint16) > estimate((256,) * 3, np.uint8)
@@ -477,6 +479,35 @@ def test_pores_is_planned_once_as_a_whole(monkeypatch):
         voxtopo.engine.persistence(mask.astype(np.float32))
     result = analyse(mask, engine=ENGINE)
     assert result.summary["porosity"] == pytest.approx(mask.mean())
+
+
+@pytest.mark.parametrize("engine", ["voxtopo", "gudhi"])
+def test_diagrams_of_the_distance_held_as_levels_are_those_of_the_float_field(engine):
+    """The pore run holds the signed distance as level numbers through its persistence
+    runs; its diagrams must be gudhi's (Maria, Boissonnat, Glisse & Yvinec 2014) of the
+    float32 field itself, pore phase sublevel 26-connected and solid superlevel
+    6-connected, value for value, and the distance it returns must be scipy's transform
+    (scipy.ndimage.distance_transform_edt) bit for bit as float32."""
+    from collections import Counter
+
+    from scipy import ndimage
+
+    from voxtopo.engine import _gudhi
+
+    mask = _blobs((18, 20, 22), seed=6)
+    spacing = (1.0, 0.5, 0.75)
+    result = analyse(mask, spacing=spacing, engine=engine)
+    field = (ndimage.distance_transform_edt(~mask, sampling=spacing).astype(np.float32)
+             - ndimage.distance_transform_edt(mask, sampling=spacing).astype(np.float32))
+    assert np.array_equal(result.distance.data, field)
+    for diagram, superlevel, construction in ((result.diagram, False, "voxel"),
+                                              (result.solid_diagram, True, "vertex")):
+        theirs = _gudhi.compute(field, superlevel=superlevel, construction=construction,
+                                periodic=None, field=2)
+        pairs = diagram.pairs
+        assert Counter(zip(pairs["dim"].tolist(), pairs["birth"].tolist(),
+                           pairs["death"].tolist())) == Counter(
+            zip(theirs.dim.tolist(), theirs.birth.tolist(), theirs.death.tolist()))
 
 
 def test_interface_in_slabs_equals_the_whole_mesh():

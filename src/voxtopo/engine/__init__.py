@@ -173,7 +173,8 @@ def _check_values(data: np.ndarray, source: str) -> None:
 def persistence(scan_or_array, superlevel: bool = False, neighbourhood: int | None = None,
                 periodic=False, field: int = 2, engine: str = "auto",
                 min_persistence: float = 0.0, *, spacing=None, unit=None,
-                progress=None, memory_checked: bool = False) -> Diagram:
+                progress=None, memory_checked: bool = False,
+                level_values: np.ndarray | None = None) -> Diagram:
     """Cubical persistence diagram of a 2D image or 3D volume, with feature locations.
 
     Parameters
@@ -203,6 +204,11 @@ def persistence(scan_or_array, superlevel: bool = False, neighbourhood: int | No
         that it fits (:func:`voxtopo.porosity.analyse` does), so the run is not checked
         again against what is left after the job's own arrays, nor refused with remedies
         that name another command.
+    level_values : ndarray, optional
+        The scan holds level numbers (non-negative integers) in place of these values:
+        ``level_values[k]`` is the value of level ``k``, in increasing order of ``k``
+        (:func:`voxtopo.engine._levels.float_levels` makes both). The diagram holds the
+        values. A float field kept as levels takes half or less of its memory.
 
     Returns
     -------
@@ -243,6 +249,8 @@ def persistence(scan_or_array, superlevel: bool = False, neighbourhood: int | No
                   periodic=periodic_axes if any(periodic_axes) else None, field=field,
                   progress=progress)
     seconds = time.perf_counter() - start
+    if level_values is not None:
+        raw = raw.at_levels(level_values)
     return Diagram.from_raw(raw, scan, superlevel=superlevel, neighbourhood=neighbourhood,
                             field=field, periodic=periodic_axes,
                             min_persistence=min_persistence,

@@ -65,3 +65,12 @@ class RawPairs:
 
     def __len__(self) -> int:
         return len(self.dim)
+
+    def at_levels(self, level_values: np.ndarray) -> "RawPairs":
+        """These pairs, computed on level numbers, with the value of each level instead
+        (``level_values[k]`` for level ``k``; essential deaths stay infinite)."""
+        death = self.death.copy()
+        finite = np.isfinite(death)
+        death[finite] = level_values[death[finite].astype(np.int64)]
+        return RawPairs(self.dim, level_values[self.birth.astype(np.int64)], death,
+                        self.birth_index, self.death_index, self.engine, self.notes)

@@ -215,7 +215,7 @@ def _ranks_of(ranks, voxels):
 # --------------------------------------------------------------------------- cells
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _cell_key(c0, c1, c2, ranks, n0, n1, n2, vertex):
     """Key ``32 * rank + code`` of the cell at doubled-grid coordinates ``c``."""
     b0 = b1 = b2 = 0
@@ -256,7 +256,7 @@ def _own_square_code(code):
     return min(code - 9 * o0, code - 3 * o1)
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _earliest_own_coface(i0, i1, i2, code, r, ranks, n0, n1, n2, vertex):
     """Key of the earliest square around an edge that is voxel ``i``'s own (rank ``r``).
 
@@ -294,7 +294,7 @@ def _earliest_own_coface(i0, i1, i2, code, r, ranks, n0, n1, n2, vertex):
     return best
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _cell_coords(key, order, ranks, n1, n2, vertex):
     """Doubled-grid coordinates of the cell with ``key``."""
     v = _voxel(ranks, order, key >> CODE_BITS)
@@ -313,7 +313,7 @@ def _marked(key, words, ranks, square_bit):
     return (words[_word_at(ranks, key >> CODE_BITS)] >> square_bit[key & _CODE_MASK]) & 1
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _coboundary_at(c0, c1, c2, ranks, n0, n1, n2, vertex, out):
     """Write the keys of the squares around the edge at ``c`` into ``out``; return how many."""
     e0, e1, e2 = (2 * n0 - 1, 2 * n1 - 1, 2 * n2 - 1) if vertex else (2 * n0 + 1, 2 * n1 + 1,
@@ -343,14 +343,14 @@ def _coboundary_at(c0, c1, c2, ranks, n0, n1, n2, vertex, out):
     return count
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _coboundary(key, order, ranks, n0, n1, n2, vertex, out):
     """Write the keys of the squares around edge ``key`` into ``out``; return how many."""
     c0, c1, c2 = _cell_coords(key, order, ranks, n1, n2, vertex)
     return _coboundary_at(c0, c1, c2, ranks, n0, n1, n2, vertex, out)
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _boundary(key, order, ranks, n0, n1, n2, vertex, out):
     """Write the keys of the four edges of square ``key`` into ``out``; return 4."""
     c0, c1, c2 = _cell_coords(key, order, ranks, n1, n2, vertex)
@@ -790,7 +790,7 @@ def _own_edges(ranks, n0, n1, n2, vertex, later, words, parent, offsets, positio
 _UNKNOWN = np.uint32(0xFFFFFFFF)
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _clear_in_cube(fresh, bits, local):
     """Voxel construction: the local clearing of a cube whose own corners are ``fresh``
     (8 bits) and own edges ``bits`` (12 bits).
@@ -934,7 +934,7 @@ def _slot(key, mask):
     return h & mask
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _table_find(table_keys, table_vals, key):
     mask = table_keys.size - 1
     s = _slot(key, mask)
@@ -945,7 +945,7 @@ def _table_find(table_keys, table_vals, key):
     return -1
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _table_put(table_keys, table_vals, key, value):
     mask = table_keys.size - 1
     s = _slot(key, mask)
@@ -968,7 +968,7 @@ def _table_grow(table_keys, table_vals):
 # --------------------------------------------------------------------------- working column
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _heap_push(heap, size, key):
     if size == heap.size:
         bigger = np.empty(heap.size * 2, dtype=np.int64)
@@ -986,7 +986,7 @@ def _heap_push(heap, size, key):
     return heap, size + 1
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _heap_pop(heap, size):
     size -= 1
     last = heap[size]
@@ -1006,7 +1006,7 @@ def _heap_pop(heap, size):
     return size
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _heap_pivot(heap, size):
     """Smallest entry that survives Z/2 cancellation (-1 if none), left on the heap."""
     while size > 0:
@@ -1023,7 +1023,7 @@ def _heap_pivot(heap, size):
 # --------------------------------------------------------------------------- reduction
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _unreduced_owner(square, edge, order, ranks, words, edge_bit, n0, n1, n2, vertex, faces):
     """Edge visited before ``edge`` (a larger key) whose coboundary, unreduced, has
     ``square`` as pivot, or -1. The first such edge visited (largest key) is the owner.
@@ -1095,7 +1095,7 @@ def _pool_put(pool_low, pool_high, at, entry):
     pool_high[at] = np.uint8(entry >> 32)
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _pool_read(pool_low, pool_high, at, ranks):
     """The key of the cell at entry ``at``."""
     entry = _pool_raw(pool_low, pool_high, at)
@@ -1105,7 +1105,7 @@ def _pool_read(pool_low, pool_high, at, ranks):
     return (_level(ranks, entry >> CODE_BITS) << (bits + CODE_BITS)) | entry
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _pool_write(pool_low, pool_high, at, key, ranks):
     """Keep the cell of ``key`` at entry ``at``."""
     bits = ranks[3]

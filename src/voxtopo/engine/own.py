@@ -24,7 +24,7 @@ import numpy as np
 
 from ..errors import Cancelled, InputError
 from ..memory import BUDGET_FRACTION, available_bytes
-from . import _union_find
+from . import _levels, _union_find
 from ._pairs import RawPairs
 
 __all__ = ["compute", "bytes_needed", "BYTES_PER_VOXEL", "default_threads"]
@@ -93,7 +93,10 @@ def compute(values: np.ndarray, *, superlevel: bool, construction: str,
     the eldest node (Garin, Heiss, Maggs, Bleile & Robins 2020, "Duality in persistent
     homology of images"). The voxels a sweep must visit in order (those whose earlier
     neighbours are not already connected inside their 3x3x3 cube) are sorted by a
-    counting sort for 8- and 16-bit data, by a stable comparison sort otherwise.
+    counting sort for 8- and 16-bit data, by a stable comparison sort otherwise. Floats
+    over at most :data:`voxtopo.engine._levels.MOST_LEVELS` distinct values (distance
+    transforms, integer data stored as floats) run on their level numbers, which order
+    the voxels the same way; the values are read back from ``values``.
 
     Examples
     --------
@@ -104,7 +107,14 @@ def compute(values: np.ndarray, *, superlevel: bool, construction: str,
     [(0, 0.0, inf), (1, 0.0, 1.0)]
     """
     _check_request(values, construction, periodic, field)
+    # the pairs' values are read back from ``flat``; the sweeps and the reduction run on
+    # ``work``: the values, or their level numbers when they are floats over few levels
+    # (the same order, the integers' lighter path; engine/_levels.py)
     flat = np.ascontiguousarray(values).reshape(-1)
+    levels = _levels.float_levels(values)
+    work = values if levels is None else levels[0]
+    del levels
+    work_flat = np.ascontiguousarray(work).reshape(-1)
     ndim = values.ndim
     shape = np.array((1,) * (3 - ndim) + tuple(values.shape), dtype=np.int64)
     ascending = not superlevel
@@ -113,26 +123,26 @@ def compute(values: np.ndarray, *, superlevel: bool, construction: str,
     vertex = construction == "vertex"
     loops = None
     links = None
-    if ndim == 3 and threads >= 2 and _side_by_side_fits(values.shape, values.dtype, vertex):
+    if ndim == 3 and threads >= 2 and _side_by_side_fits(work.shape, work.dtype, vertex):
         # dimension 1 runs beside the two sweeps: all three kernels release the GIL
-        loops = _Background(_dimension_one, values, flat, superlevel, construction, 2)
+        loops = _Background(_dimension_one, work, flat, superlevel, construction, 2)
     elif ndim == 3:
         # one after the other, the reduction taking over the sweeps' union-find buffer
         # (given away in a list, so that it is freed as soon as the reduction is done with it)
         entries = _links_size(values.shape, vertex)
         links = [np.empty(entries, dtype=_union_find.index_dtype(entries))]
     try:
-        roots_0, voxels_0, roots_top, voxels_top = _sweeps(flat, shape, ndim, ascending,
+        roots_0, voxels_0, roots_top, voxels_top = _sweeps(work_flat, shape, ndim, ascending,
                                                            construction, progress,
                                                            links[0] if links else None)
         if ndim == 3:
             dim1 = (loops.result(progress) if loops is not None else
-                    _dimension_one(values, flat, superlevel, construction, threads,
+                    _dimension_one(work, flat, superlevel, construction, threads,
                                    progress, links))
     finally:
         if loops is not None:
             loops.stop()
-    del links
+    del links, work, work_flat
     # The eldest voxel of all: first in (value, flat index) order, or last for superlevel.
     eldest = int(np.argmin(flat)) if ascending else flat.size - 1 - int(np.argmax(flat[::-1]))
 
@@ -414,10 +424,11 @@ def _sweep(flat, shape, ndim, *, ascending, corners, with_outside, parent, progr
 
 def _dimension_one(values, flat, superlevel, construction, threads, progress,
                    links=None):
-    """(births, deaths, birth index, death index) of dimension 1 of a 3D volume.
+    """(births, deaths, birth index, death index) of dimension 1 of a 3D volume
+    ``values`` (or their levels), the values of the pairs read from ``flat``.
 
     ``links``: a list holding the sweeps' union-find buffer, given away to the reduction
-    when it runs after them (it frees the buffer once done with it). The values of the pairs are read back from ``flat``.
+    when it runs after them (it frees the buffer once done with it).
     """
     from . import _reduction
 

@@ -16,6 +16,7 @@ from .. import significance as sig
 from ..diagram import AXES_3D
 from .. import engine as _engine
 from ..engine import construction_of, persistence
+from ..engine._levels import float_levels
 from ..filtration import binary_foreground, region_of_interest
 from ..errors import InputError
 from ..memory import ensure_fits, reported_as_too_big
@@ -37,15 +38,13 @@ SURFACE_SMOOTHING_VOXELS = 0.7
 _BASE_BYTES = 380_000_000
 
 #: Calibration, from the peaks of benchmarks/bench_pores.py (uint8 overlapping-sphere
-#: masks, this machine): the peak of a pores run is that of its persistence runs, which
-#: took peak - base - held = 0.52 GB at 256^3 and 4.41 GB at 512^3, while the engine
-#: planned 0.94 GB and 7.0 GB for a float32 array of that shape (its plan covers gray
-#: images with many more pairs than a distance transform has). So a pores run plans this
-#: share of the engine's plan: 0.63 (512^3; 0.55 at 256^3, where the base dominates).
-#: The engine's plan still decides how the need grows with the shape; when the engine's
-#: own planning changes, this share is measured again with the benchmark. Measured again
-#: after the engine's memory diet (same data): estimate / peak 0.98 at 256^3 (0.85 of
-#: 0.86 GB) and 0.94 at 512^3 (4.1 of 4.4 GB), so the share stays.
+#: masks, this machine): the persistence runs take a share of the engine's plan for the
+#: distance's uint16 level numbers (the larger of the two phases' runs), as that plan
+#: covers gray images with many more pairs than a distance transform has. With the
+#: distance held as levels: estimate / peak 1.18 at 256^3 (0.80 of 0.68 GB), 1.09 at
+#: 512^3 (3.02 of 2.76 GB) and 1.16 at 1024^3 (17.2 of 14.9 GB). The engine's plan still
+#: decides how the need grows with the shape; when the engine's own planning changes,
+#: this share is measured again with the benchmark.
 _ENGINE_PLAN_SHARE = 0.63
 
 #: what to do when a pore analysis would not fit in memory
@@ -216,7 +215,13 @@ def pore_mask(scan: Scan, *, threshold=None, pores_bright=False, label=None, sam
             f"The input {where} is not a binary mask (it holds values such as {examples}); "
             f"give a threshold (a value or 'otsu', CLI --threshold) or the pore label of a "
             f"label image (CLI --label).")
-    return data == foreground, {"method": "mask", "threshold": None}
+    if data.dtype == bool:
+        mask = data
+    elif foreground == 1 and data.dtype.itemsize == 1:
+        mask = data.view(bool)  # bytes 0 and 1 are the bools themselves: no copy
+    else:
+        mask = data == foreground
+    return mask, {"method": "mask", "threshold": None}
 
 
 def _name(scan: Scan) -> str:
@@ -805,13 +810,20 @@ def estimate(shape, dtype=np.uint8, *, neighbourhood: int | None = None,
 
     Notes
     -----
-    Held through the run: the scan, the pore mask, the float32 signed distance and the
-    interpreter with its libraries. On top of it, one step at a time: a persistence run
-    on the float32 field (a calibrated share of the engine's estimate, which plans for
-    gray images with many more pairs), or the sweeps of one phase (the order of its voxels
-    and one union-find index per voxel, which also gives its connected pieces) with the
-    integral geometry beside them on a second thread (one slab's mesh at a time). The
-    constants are calibrated on the peaks of benchmarks/bench_pores.py (see there).
+    Held through the run: the scan and the pore mask, with the interpreter and its
+    libraries. On top of them, one step at a time:
+
+    - the persistence runs of both phases, on the float32 signed distance held as
+      uint16 level numbers (:func:`voxtopo.engine._levels.float_levels`; planned for at
+      most 65534 distinct distances) and a calibrated share of the engine's estimate for
+      the larger of the two runs (its plan covers gray images with many more pairs);
+      with a region of interest the float32 field, a second one (the outside levels),
+      the region's masks, and the engine's own levels of that field;
+    - the sweeps of one phase on the float32 signed distance (the order of its voxels
+      and one union-find index per voxel, which also gives its connected pieces), with
+      the integral geometry beside them on a second thread (one slab's mesh at a time).
+
+    The constants are calibrated on the peaks of benchmarks/bench_pores.py (see there).
 
     Examples
     --------
@@ -825,20 +837,22 @@ def estimate(shape, dtype=np.uint8, *, neighbourhood: int | None = None,
     n_pore, _ = construction_of(len(shape), neighbourhood)
     index = index_dtype(voxels).itemsize
     scan = np.dtype(dtype).itemsize
-    # the scan, the pore mask, the float32 field; with a region of interest its mask, the
-    # pore phase, the border rim and the room in the sample
-    held = voxels * (scan + 1 + 4 + (3 + 4 if roi else 0))
-    persistence_run = _ENGINE_PLAN_SHARE * _engine.estimate(shape, np.float32, engine=engine,
-                                                           neighbourhood=n_pore)
-    # a second float32 field beside the sample's (the outside levels)
-    persistence_run += voxels * 4 if roi else 0
+    held = voxels * (scan + 1)
+    # a region of interest: its mask, the pore phase and the border rim (3 bytes), and
+    # the room in the sample during the sweeps (float32)
+    roi_masks = voxels * 3 if roi else 0
+    runs = max(_engine.estimate(shape, np.uint16, engine=engine, neighbourhood=n)
+               for n in (n_pore, COMPLEMENT[n_pore]))
+    persistence_runs = voxels * 2 + _ENGINE_PLAN_SHARE * runs
+    if roi:
+        persistence_runs += roi_masks + voxels * (4 + 4)
     # the order of one phase's voxels (planned for all of them), one union-find index per
     # voxel and three bits, with a region of interest the solid's mask; beside them the
     # integral geometry's thread holds one slab's mesh (its Euler count holds nothing)
-    sweeps = voxels * (2 * index + 3 / 8 + (1 if roi else 0))
+    sweeps = voxels * (4 + 2 * index + 3 / 8 + (1 + 4 if roi else 0)) + roi_masks
     if len(shape) == 3:
         sweeps += _minkowski.slab_bytes(shape)
-    return int(_BASE_BYTES + held + max(persistence_run, sweeps))
+    return int(_BASE_BYTES + held + max(persistence_runs, sweeps))
 
 
 def _integral_geometry(mask, sample, spacing, neighbourhoods, stop):
@@ -1070,8 +1084,18 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
         clock = time.perf_counter()
         distance = _sample_distance(scan, mask, sample)
         field = distance.data
+        level_values = None
         if sample is None:
             pore_field = solid_field = distance
+            # held as level numbers through the persistence runs (2 bytes a voxel instead
+            # of the float32's 4; a distance transform has few distinct values), and made
+            # again from them afterwards, exactly
+            numbered = float_levels(field)
+            if numbered is not None:
+                levels, level_values = numbered
+                del numbered, field
+                pore_field = solid_field = distance = distance.with_data(levels)
+                del levels
         else:
             # the outside enters each sweep last, so no feature of the sample passes through it
             outside_level = float(np.abs(field).max()) + 2 * max(spacing)
@@ -1081,13 +1105,17 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
         clock = time.perf_counter()
         # planned above as part of the whole analysis, so not checked again on their own
         diagram = persistence(pore_field, neighbourhood=n_pore, engine=engine, progress=progress,
-                              memory_checked=True)
+                              memory_checked=True, level_values=level_values)
         if sample is not None:
             solid_field = pore_field.with_data(np.negative(pore_field.data, out=pore_field.data))
             np.copyto(solid_field.data, field, where=sample)
         solid_diagram = persistence(solid_field, superlevel=True, neighbourhood=n_solid,
-                                    engine=engine, progress=progress, memory_checked=True)
+                                    engine=engine, progress=progress, memory_checked=True,
+                                    level_values=level_values)
         del pore_field, solid_field
+        if level_values is not None:
+            field = level_values[distance.data]
+            distance = distance.with_data(field)
         if sample is not None:
             diagram = diagram.without_outside(outside_level)
             solid_diagram = solid_diagram.without_outside(-outside_level)
