@@ -18,7 +18,7 @@ $(STAMP): pyproject.toml plugins/voxtopo-napari/pyproject.toml
 	$(PY) -m pip install --quiet --upgrade pip
 	$(PY) -m pip install --quiet -e ".[test]"
 	$(PY) -m pip install --quiet -e "plugins/voxtopo-napari[test]"
-	@echo "Compiling voxtopo's kernels once (about a minute; later runs start at once) ..."
+	@echo "Compiling voxtopo's kernels once (a few minutes; later runs start at once) ..."
 	$(PY) -m voxtopo.engine.warm_up
 	touch $(STAMP)
 

@@ -9,7 +9,9 @@ from __future__ import annotations
 
 import argparse
 import math
+import signal
 import sys
+import threading
 import time
 
 from . import __version__
@@ -659,9 +661,34 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+#: Ctrl-C presses seen by :func:`main` (its handler records them before it interrupts).
+_INTERRUPTS: list[int] = []
+
+
+def _interrupt(signum, frame):
+    _INTERRUPTS.append(signum)
+    raise KeyboardInterrupt
+
+
 def main(argv=None) -> int:
     """Run the command; returns the exit code (0 done, 1 some batch scans failed or the
     system failed us, 2 bad input, 130 interrupted)."""
+    # Python's own Ctrl-C handler, replaced by one that also records the press: a press
+    # while a compiled library imports can surface as that library's ImportError
+    # (numpy's, for one) instead of KeyboardInterrupt
+    ours = (threading.current_thread() is threading.main_thread()
+            and signal.getsignal(signal.SIGINT) is signal.default_int_handler)
+    if ours:
+        _INTERRUPTS.clear()
+        signal.signal(signal.SIGINT, _interrupt)
+    try:
+        return _main(argv)
+    finally:
+        if ours:
+            signal.signal(signal.SIGINT, signal.default_int_handler)
+
+
+def _main(argv) -> int:
     debug = "--debug" in (sys.argv[1:] if argv is None else argv)
     try:
         parser = build_parser()
@@ -672,13 +699,18 @@ def main(argv=None) -> int:
         from .engine.warm_up import kernels_cached
 
         if not kernels_cached():
-            print("voxtopo: compiling the engine's kernels for this machine (once, about a "
-                  "minute) ...", file=sys.stderr)
+            print("voxtopo: compiling the engine's kernels for this machine (once, a few "
+                  "minutes) ...", file=sys.stderr)
         return int(args.handler(args) or 0)
     except Cancelled:
         print("voxtopo: cancelled; nothing was written.", file=sys.stderr)
         return EXIT_INTERRUPTED
     except KeyboardInterrupt:
+        print("voxtopo: interrupted; no result folder was written.", file=sys.stderr)
+        return EXIT_INTERRUPTED
+    except ImportError:
+        if not _INTERRUPTS or debug:
+            raise
         print("voxtopo: interrupted; no result folder was written.", file=sys.stderr)
         return EXIT_INTERRUPTED
     except (VoxtopoError, MemoryError) as error:

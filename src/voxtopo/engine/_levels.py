@@ -30,13 +30,14 @@ _GOLDEN = np.uint64(0x9E3779B97F4A7C15)
 
 
 @njit(cache=True, inline="always")
-def _key(bits, top):
-    """Order-preserving unsigned key of a float's raw bits (``top``: the sign bit);
-    -0.0 and 0.0 get the same key."""
+def _key(bits, top, ones):
+    """Order-preserving unsigned key of a float's raw bits (``top``: the sign bit,
+    ``ones``: all bits of the float's width, both of its unsigned type); -0.0 and 0.0 get
+    the same key."""
     if bits == top:
         bits = bits ^ top
-    # all bits of the float's width flipped (numba widens ``~`` of a uint32 to 64 bits)
-    return bits ^ (top | (top - 1)) if bits & top else bits | top
+    # numba widens ``~`` of a uint32 to 64 bits, so the bits are flipped by ``ones``
+    return bits ^ ones if bits & top else bits | top
 
 
 @njit(cache=True, inline="always")
@@ -55,14 +56,14 @@ def _slot(key, shift):
 
 
 @njit(cache=True, nogil=True)
-def _distinct_keys(raw, start, top, table, used, count):
+def _distinct_keys(raw, start, top, ones, table, used, count):
     """Put the distinct keys of ``raw[start:]`` into ``table`` (``used`` marks the filled
     slots, ``count`` of them) until it is half full; return (where it stopped, count)."""
     shift = _shift(table.size)
     mask = table.size - 1
     full = table.size >> 1
     for v in range(start, raw.size):
-        key = _key(raw[v], top)
+        key = _key(raw[v], top, ones)
         s = _slot(key, shift)
         while used[s] and table[s] != key:
             s = (s + 1) & mask
@@ -84,11 +85,11 @@ def _number_slots(table, used, keys, numbers):
 
 
 @njit(cache=True, nogil=True)
-def _write_levels(raw, top, table, used, numbers, levels):
+def _write_levels(raw, top, ones, table, used, numbers, levels):
     shift = _shift(table.size)
     mask = table.size - 1
     for v in range(raw.size):
-        key = _key(raw[v], top)
+        key = _key(raw[v], top, ones)
         s = _slot(key, shift)
         while table[s] != key or not used[s]:
             s = (s + 1) & mask
@@ -125,25 +126,26 @@ def float_levels(values: np.ndarray, most: int | None = None):
     unsigned = np.uint32 if values.dtype.itemsize == 4 else np.uint64
     raw = np.ascontiguousarray(values).reshape(-1).view(unsigned)
     top = unsigned(1 << (8 * values.dtype.itemsize - 1))
+    ones = unsigned((1 << (8 * values.dtype.itemsize)) - 1)
     table = np.zeros(1 << 12, dtype=unsigned)
     used = np.zeros(table.size, dtype=np.bool_)
-    start, count = _distinct_keys(raw, 0, top, table, used, 0)
+    start, count = _distinct_keys(raw, 0, top, ones, table, used, 0)
     while start < raw.size:  # half full: twice the slots, the keys put in again
         if count >= most:
             return None
         keys = table[used]
         table = np.zeros(2 * table.size, dtype=unsigned)
         used = np.zeros(table.size, dtype=np.bool_)
-        _, count = _distinct_keys(keys, 0, unsigned(0), table, used, 0)
-        start, count = _distinct_keys(raw, start, top, table, used, count)
+        _, count = _distinct_keys(keys, 0, unsigned(0), unsigned(0), table, used, 0)
+        start, count = _distinct_keys(raw, start, top, ones, table, used, count)
     if count > most:
         return None
     keys = np.sort(table[used])
     numbers = np.zeros(table.size, dtype=np.uint32)
     _number_slots(table, used, keys, numbers)
     levels = np.empty(raw.size, dtype=np.uint16 if count < (1 << 16) - 1 else np.uint32)
-    _write_levels(raw, top, table, used, numbers, levels)
+    _write_levels(raw, top, ones, table, used, numbers, levels)
     # the keys back to the floats' bits (the inverse of _key), level 0 repeating level 1
     keys = np.concatenate([keys[:1], keys])
-    bits = np.where(keys & top, keys ^ top, ~keys)
+    bits = np.where(keys & top, keys ^ top, keys ^ ones)
     return levels.reshape(values.shape), bits.view(values.dtype)
