@@ -30,7 +30,7 @@ _GOLDEN = np.uint64(0x9E3779B97F4A7C15)
 
 
 @njit(cache=True, inline="always")
-def _key(bits, top, ones):
+def order_key(bits, top, ones):
     """Order-preserving unsigned key of a float's raw bits (``top``: the sign bit,
     ``ones``: all bits of the float's width, both of its unsigned type); -0.0 and 0.0 get
     the same key."""
@@ -63,7 +63,7 @@ def _distinct_keys(raw, start, top, ones, table, used, count):
     mask = table.size - 1
     full = table.size >> 1
     for v in range(start, raw.size):
-        key = _key(raw[v], top, ones)
+        key = order_key(raw[v], top, ones)
         s = _slot(key, shift)
         while used[s] and table[s] != key:
             s = (s + 1) & mask
@@ -89,7 +89,7 @@ def _write_levels(raw, top, ones, table, used, numbers, levels):
     shift = _shift(table.size)
     mask = table.size - 1
     for v in range(raw.size):
-        key = _key(raw[v], top, ones)
+        key = order_key(raw[v], top, ones)
         s = _slot(key, shift)
         while table[s] != key or not used[s]:
             s = (s + 1) & mask
@@ -145,7 +145,7 @@ def float_levels(values: np.ndarray, most: int | None = None):
     _number_slots(table, used, keys, numbers)
     levels = np.empty(raw.size, dtype=np.uint16 if count < (1 << 16) - 1 else np.uint32)
     _write_levels(raw, top, ones, table, used, numbers, levels)
-    # the keys back to the floats' bits (the inverse of _key), level 0 repeating level 1
+    # the keys back to the floats' bits (the inverse of order_key), level 0 repeating level 1
     keys = np.concatenate([keys[:1], keys])
     bits = np.where(keys & top, keys ^ top, keys ^ ones)
     return levels.reshape(values.shape), bits.view(values.dtype)

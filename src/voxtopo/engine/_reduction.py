@@ -85,7 +85,7 @@ import numpy as np
 from numba import njit
 
 from ..errors import InputError
-from . import _union_find
+from . import _levels, _union_find
 
 __all__ = ["pairs_dim1", "pairs_dim1_explicit", "bytes_needed", "phase_bytes",
            "composes_ranks", "scratch_size", "voxel_ranks", "CONSTRUCTIONS"]
@@ -403,6 +403,10 @@ def voxel_order(values: np.ndarray) -> np.ndarray:
     return np.argsort(flat, kind="stable")
 
 
+#: The sign bit and all bits of a float32, for its order-preserving key.
+_SIGN32 = np.uint32(1 << 31)
+_ONES32 = np.uint32(0xFFFFFFFF)
+
 #: Bits of the key sorted per pass of the float32 radix sort (3 passes cover 32 bits).
 _RADIX_BITS = 11
 
@@ -417,11 +421,8 @@ def _radix_order(raw_bits):
     """
     n = raw_bits.size
     keys = np.empty(n, dtype=np.uint32)
-    for v in range(n):
-        bits = raw_bits[v]
-        if bits == np.uint32(0x80000000):  # -0.0 is 0.0: the same key
-            bits = np.uint32(0)
-        keys[v] = ~bits if bits >> np.uint32(31) else bits | np.uint32(0x80000000)
+    for v in range(n):  # -0.0 is 0.0: the same key
+        keys[v] = _levels.order_key(raw_bits[v], _SIGN32, _ONES32)
     buckets = 1 << _RADIX_BITS
     counts = np.zeros((3, buckets), dtype=np.int64)
     for v in range(n):
