@@ -22,6 +22,7 @@ import tifffile
 import voxtopo
 from voxtopo.errors import InputError, TooBigError
 from voxtopo.io import save_tiff
+from voxtopo.memory import is_mapped, release_pages
 
 RNG = np.random.default_rng(20261201)
 
@@ -644,3 +645,64 @@ def test_read_header_gives_the_shape_and_dtype_without_reading_voxels(tmp_path):
     assert shape == (2, 3, 4) and dtype.kind == "i" and dtype.itemsize == 2
     with pytest.raises(InputError, match="No file or folder"):
         read_header(tmp_path / "missing.tif")
+
+
+# ----------------------------------------------------------------------------- mapped reads
+def _resident_kb() -> int:
+    with open("/proc/self/status") as fh:
+        return int(fh.read().split("VmRSS:")[1].split()[0])
+
+
+def _plain_files(tmp_path, data):
+    """The same volume as .npy (NumPy), raw (NumPy tofile) and uncompressed TIFF
+    (tifffile): all three hold the bytes as they are."""
+    np.save(tmp_path / "v.npy", data)
+    data.tofile(tmp_path / "v.raw")
+    tifffile.imwrite(tmp_path / "v.tif", data, imagej=True, metadata={"axes": "ZYX"})
+    raw = {"shape": data.shape, "dtype": str(data.dtype)}
+    return [(tmp_path / "v.npy", {}), (tmp_path / "v.raw", raw), (tmp_path / "v.tif", {})]
+
+
+def test_mapped_reads_equal_reads_and_never_write(tmp_path):
+    data = volume((5, 17, 23), np.uint16)
+    for path, options in _plain_files(tmp_path, data):
+        before = digest(path)
+        scan = voxtopo.load(path, mapped=True, **options)
+        assert is_mapped(scan.data), path
+        assert not scan.data.flags.writeable
+        np.testing.assert_array_equal(scan.data, data)
+        np.testing.assert_array_equal(scan.data, voxtopo.load(path, **options).data)
+        with pytest.raises(ValueError):
+            scan.data[0, 0, 0] = 1
+        assert digest(path) == before
+
+
+def test_files_that_cannot_be_mapped_are_read(tmp_path):
+    # a compressed TIFF, a big-endian raw file, a Fortran-order .npy: not the bytes of a
+    # C-ordered array in this machine's order, so they are read (and converted) as before
+    data = volume((4, 9, 11), np.uint16)
+    tifffile.imwrite(tmp_path / "z.tif", data, compression="zlib", photometric="minisblack")
+    data.astype(">u2").tofile(tmp_path / "big.raw")
+    np.save(tmp_path / "f.npy", np.asfortranarray(data))
+    cases = [(tmp_path / "z.tif", {}),
+             (tmp_path / "big.raw", {"shape": data.shape, "dtype": "uint16",
+                                     "byte_order": "big"}),
+             (tmp_path / "f.npy", {})]
+    for path, options in cases:
+        scan = voxtopo.load(path, mapped=True, **options)
+        assert not is_mapped(scan.data), path
+        np.testing.assert_array_equal(scan.data, data)
+
+
+def test_released_pages_leave_memory_and_read_back_the_same(tmp_path):
+    # Linux man-pages, madvise(2), MADV_DONTNEED: later accesses of a file mapping read
+    # the pages again from the file; the resident set shrinks meanwhile
+    data = RNG.integers(0, 65535, size=(64, 512, 512), dtype=np.uint16)   # 32 MiB
+    np.save(tmp_path / "big.npy", data)
+    scan = voxtopo.load(tmp_path / "big.npy", mapped=True)
+    total = int(scan.data.sum(dtype=np.int64))            # every page read once
+    resident = _resident_kb()
+    assert release_pages(scan.data)
+    assert resident - _resident_kb() > 24 * 1024          # most of the 32 MiB given back
+    assert int(scan.data.sum(dtype=np.int64)) == total == int(data.sum(dtype=np.int64))
+    assert not release_pages(data)         # an array in memory: nothing

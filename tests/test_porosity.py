@@ -344,6 +344,37 @@ def test_threshold_and_label_inputs_select_the_pores():
     assert np.array_equal(gray, np.where(mask, 40, 200))      # input untouched
 
 
+def test_a_gray_scan_mapped_from_its_file_gives_the_same_pores_in_less_memory(tmp_path):
+    # The pores job maps a gray scan from its file and gives its pages back once it is
+    # segmented: the result must be the in-memory run's (itself checked against gudhi,
+    # scipy and hand counts in this file), and the file must stay as it was.
+    from voxtopo import jobs
+    from voxtopo.memory import is_mapped
+    from voxtopo.porosity import estimate
+
+    mask = _blobs((24, 20, 22), seed=11)
+    noise = np.random.default_rng(3).normal(0, 900, mask.shape)
+    gray = np.clip(np.where(mask, 12000, 30000) + noise, 0, 65535).astype(np.uint16)
+    path = tmp_path / "gray.npy"
+    np.save(path, gray)
+    before = path.read_bytes()
+    scan = jobs.read_input("pores", path, {"spacing": 2.5, "unit": "um"})
+    assert is_mapped(scan.data)
+    mapped = analyse(scan, threshold="otsu", engine=ENGINE)
+    held = analyse(gray, threshold="otsu", spacing=2.5, unit="um", engine=ENGINE)
+    pd.testing.assert_frame_equal(mapped.pores, held.pores)
+    assert mapped.summary["porosity"] == held.summary["porosity"]
+    assert mapped.summary["threshold"] == held.summary["threshold"]
+    pd.testing.assert_frame_equal(mapped.diagram.pairs, held.diagram.pairs)
+    np.testing.assert_array_equal(scan.data, gray)          # still readable, for the plot
+    write_pores(tmp_path / "out", mapped, scan)
+    assert path.read_bytes() == before
+    # the plan drops the scan (2 bytes a voxel of uint16) from what is held throughout
+    shape = (1024, 1024, 1024)
+    saved = estimate(shape, np.uint16) - estimate(shape, np.uint16, mapped=True)
+    assert saved == 2 * 1024 ** 3
+
+
 def test_two_dimensional_packing_of_discs():
     # Square packing of discs of radius R (plane version of the simple cubic case,
     # common practice, no source): porosity 1 - pi/4, largest empty disc (sqrt(2)-1)R,

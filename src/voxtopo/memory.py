@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import mmap
 import os
 from contextlib import contextmanager
 
@@ -78,3 +79,42 @@ def reported_as_too_big(what: str, planned: int, remedy: str):
         raise TooBigError(f"{what} ran out of memory although about {human(planned)} was "
                           f"planned and fitted when it started; close other programs, or "
                           f"{remedy}.") from None
+
+
+def _mapping(array):
+    """The memory map ``array`` reads from, or None."""
+    base = array
+    while base is not None and not isinstance(base, mmap.mmap):
+        base = getattr(base, "base", None)
+    return base
+
+
+def is_mapped(array) -> bool:
+    """True when ``array`` is a view of a memory-mapped file (``load(..., mapped=True)``)."""
+    return _mapping(array) is not None
+
+
+def release_pages(array) -> bool:
+    """Give back the memory of the file pages a memory-mapped ``array`` has read.
+
+    The pages are read from the file again if the array is used afterwards, so this is
+    safe at any time; it is worth doing once an array will hardly be read any more (a gray
+    scan once it is segmented). Nothing happens to an array in memory or on a system
+    without ``madvise``.
+
+    Returns
+    -------
+    bool
+        True when pages were given back.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> release_pages(np.zeros(3))
+    False
+    """
+    mapping = _mapping(array)
+    if mapping is None or not hasattr(mmap, "MADV_DONTNEED"):
+        return False
+    mapping.madvise(mmap.MADV_DONTNEED)
+    return True

@@ -103,8 +103,16 @@ class Scan:
 def as_scan(scan_or_array, spacing=None, unit=None) -> Scan:
     """Wrap an array as a Scan (spacing 1 px) or pass a Scan through.
 
-    ``spacing`` and ``unit``, when given, win over what the scan carries.
+    ``spacing`` (one number for every axis, or one per axis) and ``unit``, when given, win
+    over what the scan carries.
+
+    Examples
+    --------
+    >>> as_scan(np.zeros((2, 3, 4)), spacing=2.5, unit="um").spacing
+    (2.5, 2.5, 2.5)
     """
+    if spacing is not None and np.ndim(spacing) == 0:
+        spacing = (float(spacing),) * np.ndim(getattr(scan_or_array, "data", scan_or_array))
     if isinstance(scan_or_array, Scan):
         scan = scan_or_array
         changes = {}

@@ -86,7 +86,9 @@ class Layout:
     ``read(index)`` takes one entry per stored axis (an int or ``slice(None)``) and returns
     that part of the array. ``spacing`` maps the spatial axes found in the metadata to their
     voxel size in ``unit``. ``peak_bytes(index)``, when given, is the memory the read needs
-    at its peak (e.g. all samples of an RGB page before one is kept). ``close`` releases
+    at its peak (e.g. all samples of an RGB page before one is kept). ``map(index)``, when
+    given, returns that part as a read-only memory map of the file, or None where the stored
+    bytes are not the array itself (compressed, another byte order). ``close`` releases
     the open file. ``frame_interval`` is the time between frames in seconds when the
     metadata gives it. ``labelled`` is False for formats that name no axes (.npy, raw, plain
     zarr); their ``axes`` are then chosen by ``unlabelled_axes`` from the options given.
@@ -101,6 +103,7 @@ class Layout:
     metadata: dict = field(default_factory=dict)
     rgb: bool = False
     peak_bytes: Callable[[tuple], int] | None = None
+    map: Callable[[tuple], np.ndarray | None] | None = None
     close: Callable[[], None] = lambda: None
     labelled: bool = True
     frame_interval: float | None = None

@@ -21,7 +21,7 @@ _GLOB_CHARACTERS = set("*?[")
 
 
 def load(path, *, spacing=None, unit=None, channel=None, timepoint=None, shape=None,
-         dtype=None, byte_order="little", offset=0, level=0) -> Scan:
+         dtype=None, byte_order="little", offset=0, level=0, mapped=False) -> Scan:
     """Read a 2D image or 3D volume with its voxel size.
 
     Parameters
@@ -46,6 +46,12 @@ def load(path, *, spacing=None, unit=None, channel=None, timepoint=None, shape=N
         and the number of header bytes before the data.
     level : int
         Resolution level of a multiscale OME-Zarr or pyramidal TIFF (0 is the finest).
+    mapped : bool
+        Map the file read-only instead of reading it, where it holds the array as it is
+        (.npy in C order, raw, an uncompressed TIFF; in this machine's byte order); other
+        files are read. The data are then read from the file as they are used, and
+        :func:`voxtopo.memory.release_pages` gives their memory back. The file must not
+        change while the scan is in use.
 
     Returns
     -------
@@ -84,7 +90,7 @@ def load(path, *, spacing=None, unit=None, channel=None, timepoint=None, shape=N
                    level=int(level))
     try:
         return _scan(layout, source, spacing=spacing, unit=unit, channel=channel,
-                     timepoint=timepoint)
+                     timepoint=timepoint, mapped=mapped)
     finally:
         layout.close()
 
@@ -312,7 +318,8 @@ def _open(path, *, shape, dtype, byte_order, offset, level) -> Layout:
                      f"given shape= and dtype=.")
 
 
-def _scan(layout: Layout, source: str, *, spacing, unit, channel, timepoint) -> Scan:
+def _scan(layout: Layout, source: str, *, spacing, unit, channel, timepoint,
+          mapped=False) -> Scan:
     axes = layout.axes if layout.labelled else unlabelled_axes(layout.shape, source,
                                                                 channel, timepoint)
     index = _selection(layout, axes, source, channel, timepoint)
@@ -321,10 +328,14 @@ def _scan(layout: Layout, source: str, *, spacing, unit, channel, timepoint) -> 
         raise InputError(f"{source} holds axes {axes} of shape {layout.shape}; voxtopo needs "
                          f"(y, x) or (z, y, x) once a channel and time point are picked.")
     expected = tuple(n for n, i in zip(layout.shape, index) if not isinstance(i, int))
-    peak = layout.peak_bytes(index) if layout.peak_bytes else nbytes(expected, layout.dtype)
-    ensure_fits(peak, f"Reading {source} ({'x'.join(map(str, expected))} of {layout.dtype})",
-                "crop or downsample it before loading, or pick one channel or time point")
-    data = layout.read(index)
+    data = layout.map(index) if mapped and layout.map is not None else None
+    if data is None or not data.flags.c_contiguous:
+        peak = (layout.peak_bytes(index) if layout.peak_bytes
+                else nbytes(expected, layout.dtype))
+        ensure_fits(peak, f"Reading {source} ({'x'.join(map(str, expected))} of "
+                          f"{layout.dtype})",
+                    "crop or downsample it before loading, or pick one channel or time point")
+        data = layout.read(index)
     if data.shape != expected:
         raise InputError(f"{source} decoded to shape {data.shape} instead of {expected}; the "
                          f"file is probably damaged.")

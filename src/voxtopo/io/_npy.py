@@ -48,14 +48,18 @@ def open_npy(path: Path) -> Layout:
                          f"{needed} bytes of data but {present} bytes follow it, so the header "
                          f"is damaged; save the array again.")
 
-    def read(index: tuple) -> np.ndarray:
+    def opened() -> np.memmap:
         try:
-            mapped = np.load(path, mmap_mode="r", allow_pickle=False)
-            data = np.array(mapped[index], dtype=dtype.newbyteorder("="))
+            return np.load(path, mmap_mode="r", allow_pickle=False)
         except (OSError, ValueError) as exc:
             raise InputError(f"{path} could not be read ({' '.join(str(exc).split())[:100]})."
                              ) from None
-        return data
 
-    return Layout(axes="", shape=shape, dtype=dtype, read=read,
+    def read(index: tuple) -> np.ndarray:
+        return np.array(opened()[index], dtype=dtype.newbyteorder("="))
+
+    def mapped(index: tuple) -> np.ndarray | None:
+        return None if fortran or not dtype.isnative else opened()[index]
+
+    return Layout(axes="", shape=shape, dtype=dtype, read=read, map=mapped,
                   metadata={"format": "npy", "fortran_order": bool(fortran)}, labelled=False)

@@ -56,19 +56,25 @@ def open_raw(path: Path, shape, dtype, byte_order="little", offset=0) -> Layout:
                          f"shape {dims} of {dtype} needs {needed} bytes; check shape, dtype "
                          f"and offset.")
 
-    def read(index: tuple) -> np.ndarray:
+    def opened() -> np.memmap:
         try:
-            mapped = np.memmap(path, dtype=stored, mode="r", offset=offset, shape=dims)
-            return np.array(mapped[index], dtype=dtype.newbyteorder("="))
+            return np.memmap(path, dtype=stored, mode="r", offset=offset, shape=dims)
         except (OSError, ValueError) as exc:
             raise InputError(f"{path} could not be read ({' '.join(str(exc).split())[:100]})."
                              ) from None
+
+    def read(index: tuple) -> np.ndarray:
+        return np.array(opened()[index], dtype=dtype.newbyteorder("="))
+
+    def mapped(index: tuple) -> np.ndarray | None:
+        return opened()[index] if stored.isnative else None
 
     def peak_bytes(index: tuple) -> int:
         selected = [n for n, i in zip(dims, index) if not isinstance(i, int)]
         return nbytes(selected, dtype)
 
     return Layout(axes="", shape=dims, dtype=np.dtype(dtype.newbyteorder("=")), read=read,
+                  map=mapped,
                   metadata={"format": "raw", "byte_order": "little" if order == "<" else "big",
                             "offset": int(offset), "stored_dtype": str(dtype)},
                   peak_bytes=peak_bytes, labelled=False)

@@ -18,6 +18,7 @@ import contextlib
 import logging
 import math
 import re
+import sys
 import warnings
 import xml.etree.ElementTree as ElementTree
 from pathlib import Path
@@ -37,6 +38,8 @@ _DAMAGE = ("invalid page offset", "failed to reshape", "truncat", "corrupt", "no
 #: ResolutionUnit codes (TIFF 6.0: 1 none, 2 inch, 3 centimetre; 4/5 are tifffile's mm/um).
 _UM_PER_RESOLUTION_UNIT = {2: 25400.0, 3: 1e4, 4: 1e3, 5: 1.0}
 _SCREEN_DPI = (72.0, 96.0)
+#: byte order of this machine, as tifffile writes it
+_NATIVE_ORDER = "<" if sys.byteorder == "little" else ">"
 
 
 @contextlib.contextmanager
@@ -161,6 +164,16 @@ def _layout(tif: tifffile.TiffFile, path: Path, level: int, messages: list[str])
             data = data > 0
         return data
 
+    def mapped(index: tuple) -> np.ndarray | None:
+        # the pixels as they lie in the file: one uncompressed block in this machine's order
+        offset = series.dataoffset
+        if offset is None or restore_bool or tif.byteorder != _NATIVE_ORDER:
+            return None
+        try:
+            return np.memmap(path, dtype=dtype, mode="r", offset=offset, shape=shape)[index]
+        except (OSError, ValueError) as exc:
+            raise InputError(f"{path} could not be read ({_reason(exc)}).") from None
+
     def peak_bytes(index: tuple) -> int:
         if pages_ok and page_axes > 0:
             selected = [n for n, i in zip(shape[:page_axes], index[:page_axes])
@@ -170,7 +183,7 @@ def _layout(tif: tifffile.TiffFile, path: Path, level: int, messages: list[str])
 
     return Layout(axes=axes, shape=shape, dtype=np.dtype(bool) if restore_bool else dtype,
                   read=read, spacing=spacing, unit=unit, metadata=metadata, rgb=rgb,
-                  peak_bytes=peak_bytes, close=tif.close, frame_interval=_frame_interval(tif))
+                  peak_bytes=peak_bytes, map=mapped, close=tif.close, frame_interval=_frame_interval(tif))
 
 
 def _axes(series, path: Path) -> tuple[str, tuple[int, ...]]:

@@ -65,7 +65,8 @@ def read_input(name: str, path, load_options: dict | None = None):
     load_options : dict, optional
         Keyword arguments of :func:`voxtopo.io.load_timelapse` for the periodicity job
         (which reads every frame, so it takes no ``timepoint``), of
-        :func:`voxtopo.io.load` for the others.
+        :func:`voxtopo.io.load` for the others. The pores job maps its scan from the file
+        where the file allows it (``mapped=True``).
 
     Returns
     -------
@@ -81,6 +82,10 @@ def read_input(name: str, path, load_options: dict | None = None):
 
     get(name)
     options = dict(load_options or {})
+    if name == "pores":
+        # a gray scan is read once to segment it, then only for the slice plot: mapped
+        # from its file, its memory is given back once the pores are segmented
+        options["mapped"] = True
     if name != "periodicity":
         return load(path, **options)
     if options.pop("timepoint", None) is not None:

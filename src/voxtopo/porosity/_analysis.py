@@ -19,7 +19,7 @@ from ..engine import construction_of, persistence
 from ..engine._levels import float_levels
 from ..filtration import binary_foreground, region_of_interest
 from ..errors import InputError
-from ..memory import ensure_fits, reported_as_too_big
+from ..memory import ensure_fits, is_mapped, release_pages, reported_as_too_big
 from ..scan import Scan, as_scan
 from ..engine._union_find import index_dtype
 from . import _edt, _euler, _minkowski, _sweep
@@ -786,7 +786,7 @@ def pore_summary(*, notes: list, radius: dict, critical: dict, connected: dict, 
 
 
 def estimate(shape, dtype=np.uint8, *, neighbourhood: int | None = None,
-             engine: str = "auto", roi: bool = False) -> int:
+             engine: str = "auto", roi: bool = False, mapped: bool = False) -> int:
     """Bytes a pore analysis (:func:`analyse`, `voxtopo pores`) of a scan will need at its
     peak, the scan itself included.
 
@@ -802,6 +802,10 @@ def estimate(shape, dtype=np.uint8, *, neighbourhood: int | None = None,
         Persistence engine; its own plan (:func:`voxtopo.engine.estimate`) is used.
     roi : bool
         A region of interest is given (it adds its mask and a second float32 field).
+    mapped : bool
+        The scan is a gray or label scan mapped from its file (``load(..., mapped=True)``),
+        whose memory is given back once it is segmented: only the pore mask is held
+        through the run.
 
     Returns
     -------
@@ -810,8 +814,10 @@ def estimate(shape, dtype=np.uint8, *, neighbourhood: int | None = None,
 
     Notes
     -----
-    Held through the run: the scan and the pore mask, with the interpreter and its
-    libraries. On top of them, one step at a time:
+    Held through the run: the scan (unless ``mapped``) and the pore mask, with the
+    interpreter and its libraries. On top of them, one step at a time:
+
+    - the segmentation, which holds the scan and makes the mask;
 
     - the persistence runs of both phases, on the float32 signed distance held as
       uint16 level numbers (:func:`voxtopo.engine._levels.float_levels`; planned for at
@@ -837,7 +843,8 @@ def estimate(shape, dtype=np.uint8, *, neighbourhood: int | None = None,
     n_pore, _ = construction_of(len(shape), neighbourhood)
     index = index_dtype(voxels).itemsize
     scan = np.dtype(dtype).itemsize
-    held = voxels * (scan + 1)
+    held = voxels * (1 if mapped else scan + 1)
+    segmentation = voxels * scan if mapped else 0
     # a region of interest: its mask, the pore phase and the border rim (3 bytes), and
     # the room in the sample during the sweeps (float32)
     roi_masks = voxels * 3 if roi else 0
@@ -852,7 +859,7 @@ def estimate(shape, dtype=np.uint8, *, neighbourhood: int | None = None,
     sweeps = voxels * (4 + 2 * index + 3 / 8 + (1 + 4 if roi else 0)) + roi_masks
     if len(shape) == 3:
         sweeps += _minkowski.slab_bytes(shape)
-    return int(_BASE_BYTES + held + max(persistence_runs, sweeps))
+    return int(_BASE_BYTES + held + max(segmentation, persistence_runs, sweeps))
 
 
 def _integral_geometry(mask, sample, spacing, neighbourhoods, stop):
@@ -1058,8 +1065,17 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
     delta = sig.boundary_tolerance_of(scan, boundary_tolerance)
     robust_above = sig.robust_threshold(scan, delta)
     sample = region_of_interest(roi, scan.shape, where)
+    # a gray or label scan mapped from its file is not held once it is segmented
+    segmented = threshold is not None or label is not None
+    released = segmented and is_mapped(scan.data)
+    planned = estimate(scan.shape, scan.data.dtype, neighbourhood=n_pore, engine=engine,
+                       roi=sample is not None, mapped=released)
+    what = f"Pore analysis of the {'x'.join(map(str, scan.shape))} scan"
+    ensure_fits(planned, what, REMEDY)
     mask, segmentation = pore_mask(scan, threshold=threshold, pores_bright=pores_bright,
                                    label=label, sample=sample)
+    if released:
+        release_pages(scan.data)
     # without a region of interest the pore phase is the mask itself and the solid its
     # complement, made only while a step needs it
     pore = mask if sample is None else mask & sample
@@ -1068,10 +1084,6 @@ def analyse(mask_or_scan, *, threshold=None, pores_bright: bool = False, label=N
     notes = list(scan.metadata.get("notes", [])) + _phase_notes(
         pore_voxels, sample_voxels - pore_voxels, sample_voxels, mask.size, where,
         segmentation)
-    planned = estimate(mask.shape, scan.data.dtype, neighbourhood=n_pore, engine=engine,
-                       roi=sample is not None)
-    what = f"Pore analysis of the {'x'.join(map(str, mask.shape))} scan"
-    ensure_fits(planned, what, REMEDY)
     timings["segmentation"] = time.perf_counter() - clock
     # an allocation that fails after the plan said it fits is still one sentence
     with reported_as_too_big(what, planned, REMEDY):
