@@ -102,3 +102,25 @@ def test_euler_curve_is_the_alternating_sum_of_betti_curves():
     np.testing.assert_array_equal(chi, betti["betti_0"] - betti["betti_1"] + betti["betti_2"])
     assert columns(2)[:8] == ["dim", "birth", "death", "persistence", "birth_y", "birth_x",
                               "death_y", "death_x"]
+
+
+def test_placing_on_the_scan_grid_copies_nothing_and_changes_no_other_diagram():
+    # A large table must never be held twice: with no crop and no downsampling the
+    # places are already the scan's, and the same table is kept; otherwise only the place
+    # columns are new, and the diagram placed from stays as it was.
+    rng = np.random.default_rng(4)
+    diagram = voxtopo.persistence(rng.integers(0, 50, (6, 7, 8)).astype(np.uint8),
+                                  spacing=(2.0, 1.0, 0.5), unit="um")
+    before = diagram.pairs.copy()
+    same = diagram.placed_in_scan((0, 0, 0), (1, 1, 1))
+    assert same.pairs is diagram.pairs
+    assert same.first_voxel == (0, 0, 0) and same.block == (1, 1, 1)
+    moved = diagram.placed_in_scan((3, 0, 2), (1, 2, 1))
+    pd.testing.assert_frame_equal(diagram.pairs, before)
+    born = before["birth_voxel_y"].to_numpy(dtype=np.int64)
+    # swept voxel i is the block of scan voxels 2i, 2i+1: its centre 2i + 0.5 voxels
+    assert np.array_equal(moved.pairs["birth_voxel_y"].to_numpy(dtype=np.int64), 2 * born)
+    assert np.allclose(moved.pairs["birth_y"], (2 * born + 0.5) * 0.5)
+    assert np.array_equal(moved.pairs["birth_voxel_z"].to_numpy(dtype=np.int64),
+                          before["birth_voxel_z"].to_numpy(dtype=np.int64) + 3)
+    pd.testing.assert_series_equal(moved.pairs["persistence"], before["persistence"])

@@ -394,8 +394,14 @@ class Diagram:
         """
         first = np.asarray(first_voxel, dtype=np.int64).reshape(self.ndim)
         sides = np.asarray(block, dtype=np.int64).reshape(self.ndim)
+        placed = replace(self, first_voxel=tuple(int(v) for v in first),
+                         block=tuple(int(v) for v in sides))
+        if not first.any() and (sides == 1).all():
+            return placed  # the swept grid is the scan's: every place is already there
         scan_spacing = np.asarray(self.spacing, dtype=np.float64) / sides
-        pairs = self.pairs.copy()
+        # a shallow copy: only the place columns are made anew (a table of millions of
+        # pairs is never copied whole)
+        pairs = self.pairs.copy(deep=False)
         axes = AXES_3D[3 - self.ndim:]
         for which in ("birth", "death"):
             for k, a in enumerate(axes):
@@ -406,8 +412,7 @@ class Diagram:
                                  .astype(np.int64), dtype="Int64")
                 index[np.isnan(swept)] = pd.NA
                 pairs[f"{which}_voxel_{a}"] = index
-        return replace(self, pairs=pairs, first_voxel=tuple(int(v) for v in first),
-                       block=tuple(int(v) for v in sides))
+        return replace(placed, pairs=pairs)
 
     @property
     def origin(self) -> tuple[float, ...]:
