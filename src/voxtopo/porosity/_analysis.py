@@ -42,7 +42,9 @@ _BASE_BYTES = 380_000_000
 #: distance's uint16 level numbers (the larger of the two phases' runs), as that plan
 #: covers gray images with many more pairs than a distance transform has. With the
 #: distance held as levels: estimate / peak 1.18 at 256^3 (0.80 of 0.68 GB), 1.09 at
-#: 512^3 (3.02 of 2.76 GB) and 1.16 at 1024^3 (17.2 of 14.9 GB). The engine's plan still
+#: 512^3 (3.02 of 2.76 GB) and 1.16 at 1024^3 (17.2 of 14.9 GB); uint16 gray scans mapped
+#: from a .npy and thresholded (Otsu): 1.11 at 512^3 (2.89 of 2.61 GB) and 1.08 at 1024^3
+#: (16.1 of 14.9 GB). The engine's plan still
 #: decides how the need grows with the shape; when the engine's own planning changes,
 #: this share is measured again with the benchmark.
 _ENGINE_PLAN_SHARE = 0.63
