@@ -266,3 +266,26 @@ def test_a_missing_voxel_size_is_said_on_the_line_and_in_the_summary(tmp_path, c
                  "--spacing", "0.5", "--unit", "um"]) == 0
     assert "No voxel size" not in capsys.readouterr().out
     assert json.loads((tmp_path / "s" / "summary.json").read_text())["voxel_size_known"]
+
+
+def test_the_remedies_of_a_refusal_name_only_options_of_their_command():
+    # a refusal that tells the user to add an option the command does not have sends
+    # them nowhere (common practice, no source)
+    import re
+    from voxtopo.cli import build_parser
+    from voxtopo.engine import out_of_core_remedy
+    from voxtopo.filtration import PREPARATION_REMEDY
+    from voxtopo.porosity._analysis import REMEDY as PORES_REMEDY
+
+    commands = {action.dest: action for action in build_parser()._actions
+                if action.dest == "command"}
+    sub = next(iter(commands.values())).choices
+
+    def options(name):
+        return {o for a in sub[name]._actions for o in a.option_strings}
+
+    for command, remedy in (("pores", PORES_REMEDY), ("analyse", PREPARATION_REMEDY),
+                            ("analyse", out_of_core_remedy(3))):
+        named = set(re.findall(r"--[a-z][a-z-]*", remedy))
+        assert named <= options(command), (command, named - options(command))
+    assert "--out-of-core" in PORES_REMEDY

@@ -485,7 +485,7 @@ def test_refusal_names_the_estimate_and_the_out_of_core_path(monkeypatch, tmp_pa
     assert main(["pores", str(tmp_path / "mask.npy"), "--out", str(out),
                  "--engine", ENGINE]) == 2
     err = capsys.readouterr().err.strip().splitlines()[-1]
-    assert human(planned) in err and "--out-of-core" in err and "--crop" in err
+    assert human(planned) in err and "--out-of-core" in err and "crop or downsample" in err
     assert "Traceback" not in err and not out.exists()
     # and with the plan inside the budget the same run goes through
     monkeypatch.setenv("VOXTOPO_MEMORY_LIMIT", str(int(planned / 0.8) + 1000))

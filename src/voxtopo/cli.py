@@ -717,8 +717,8 @@ def _main(argv) -> int:
         if debug:
             raise
         if not isinstance(error, VoxtopoError):  # numpy's or numba's own words
-            error = ("the run ran out of memory; close other programs, or crop (--crop) or "
-                     "downsample (--downsample) the scan")
+            error = ("the run ran out of memory; close other programs, or crop or "
+                     "downsample the scan")
         print(f"voxtopo: error: {_one_line(error)}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except OSError as error:

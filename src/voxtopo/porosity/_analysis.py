@@ -50,7 +50,7 @@ _BASE_BYTES = 380_000_000
 _ENGINE_PLAN_SHARE = 0.63
 
 #: what to do when a pore analysis would not fit in memory
-REMEDY = ("crop it (--crop), downsample it (--downsample), or run it out of core "
+REMEDY = ("crop or downsample it first, or run it out of core "
           "(voxtopo pores --out-of-core)")
 
 
