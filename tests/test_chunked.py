@@ -242,3 +242,44 @@ def test_cli_analyse_out_of_core_writes_a_result_folder(tmp_path, capsys):
     err = capsys.readouterr().err
     assert "cannot apply sigma" in err and err.count("\n") == 1
     assert not refused.exists()
+
+
+class _WorkersWithLimits:
+    """A distributed scheduler as the memory check sees one: workers with memory limits."""
+
+    def __init__(self, *limits):
+        self.limits = limits
+
+    def scheduler_info(self):
+        return {"workers": {f"tcp://127.0.0.1:{9000 + k}": {"memory_limit": limit}
+                            for k, limit in enumerate(self.limits)}}
+
+
+def test_an_out_of_core_run_plans_its_largest_task_and_refuses_small_workers():
+    # The largest task of a chunked sweep is a chunk or, near the top of the merge tree,
+    # a merge holding whole cross-sections of the scan (chunked.planned_merges); a worker
+    # whose limit cannot hold it beside its own baseline is refused before any chunk is
+    # read, in one sentence that says what each worker needs.
+    from voxtopo.engine import chunked
+    from voxtopo.engine.chunked import (BYTES_PER_CHUNK_VOXEL, WORKER_BASELINE_BYTES,
+                                        _largest_task, planned_merge_bytes)
+    from voxtopo.errors import TooBigError
+
+    big, merge = _largest_task((2048,) * 3, (128,) * 3), planned_merge_bytes((2048,) * 3,
+                                                                           (128,) * 3)
+    assert big[0] == merge and big[2] and merge > 128 ** 3 * BYTES_PER_CHUNK_VOXEL
+    one_chunk = _largest_task((64, 64, 64), (64, 64, 64))
+    assert one_chunk[0] == 64 ** 3 * BYTES_PER_CHUNK_VOXEL and not one_chunk[2]
+
+    volume = np.random.default_rng(5).integers(0, 9, (24, 24, 24)).astype(np.uint8)
+    need = WORKER_BASELINE_BYTES + _largest_task(volume.shape, (8, 8, 8))[0]
+    small = _WorkersWithLimits(int(need / 0.8) - 1_000_000, 8e9)
+    with pytest.raises(TooBigError) as refused:
+        chunked.chunked_persistence(volume, chunks=(8, 8, 8), scheduler=small)
+    message = str(refused.value)
+    assert "per worker" in message and "memory limit" in message
+    assert "\n" not in message and message.endswith(".")
+    from voxtopo.memory import human
+    assert human(need) in message and human(need / 0.8) in message
+    chunked._check_workers(chunked._Grid(volume, (8, 8, 8), "v"),
+                           _WorkersWithLimits(int(need / 0.8) + 1_000_000))   # fits

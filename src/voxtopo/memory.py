@@ -81,6 +81,16 @@ def reported_as_too_big(what: str, planned: int, remedy: str):
                           f"{remedy}.") from None
 
 
+def worker_memory_limits(scheduler) -> list[int]:
+    """The memory limits, in bytes, of the workers of a distributed dask scheduler (a
+    ``Client``); empty for another scheduler or workers without a limit."""
+    info = getattr(scheduler, "scheduler_info", None)
+    if info is None:
+        return []
+    limits = [w.get("memory_limit") or 0 for w in info().get("workers", {}).values()]
+    return [limit for limit in limits if limit > 0]
+
+
 def _mapping(array):
     """The memory map ``array`` reads from, or None."""
     base = array

@@ -61,9 +61,10 @@ from ..engine.chunked import (
     chunked_persistence,
     chunked_persistence_and_border_merges,
     planned_merge_bytes,
+    WORKER_BASELINE_BYTES,
 )
 from ..errors import InputError, TooBigError, VoxtopoError
-from ..memory import BUDGET_FRACTION, ensure_fits, human
+from ..memory import BUDGET_FRACTION, ensure_fits, human, worker_memory_limits
 from ..scan import Scan
 from . import _chunked_edt, _chunked_pieces, _local_counts
 from ._analysis import (
@@ -218,11 +219,6 @@ def blocks(shape, chunks):
 def _box(lo, hi):
     return tuple(slice(int(a), int(b)) for a, b in zip(lo, hi))
 
-
-#: Memory of a dask worker before any task: the interpreter with numpy, scipy, zarr, dask
-#: and numba's compiled kernels (measured: 0.38 GB resident in each worker of a local
-#: cluster after a 32^3 run).
-WORKER_BASELINE_BYTES = 400_000_000
 
 
 @dataclass(frozen=True)
@@ -423,11 +419,7 @@ def _check_worker_memory(scheduler, plan: TaskPlan, shape, chunks, transforms) -
     """Refuse a plan that would not fit the smallest worker of a distributed scheduler:
     the worker's baseline and its largest task, within the same share of its memory
     limit as a run on this machine plans for."""
-    info = getattr(scheduler, "scheduler_info", None)
-    if info is None:
-        return
-    limits = [w.get("memory_limit") or 0 for w in info().get("workers", {}).values()]
-    limits = [limit for limit in limits if limit > 0]
+    limits = worker_memory_limits(scheduler)
     if not limits or plan.per_worker <= BUDGET_FRACTION * min(limits):
         return
     smallest = min(limits)
