@@ -3,6 +3,7 @@
 import json
 
 import numpy as np
+import pandas as pd
 import pytest
 import zarr
 from reference import gudhi_intervals
@@ -115,6 +116,31 @@ def test_tied_textures_match_gudhi_in_both_constructions(shape, chunks, neighbou
     for dim in (0, ndim - 1):
         assert _ours(diagram, dim) == _gudhi_intervals(image, dim, superlevel, neighbourhood)
     _assert_locations_hold_values(diagram, image)
+
+
+@pytest.mark.parametrize("shape,chunks", [((33, 29), (6, 7)), ((14, 13, 15), (5, 4, 6))])
+@pytest.mark.parametrize("superlevel", [False, True])
+def test_faces_cut_into_many_strips_give_gudhi_s_pairs(monkeypatch, shape, chunks,
+                                                       superlevel):
+    # a merge keeps, of each strip of a face's rows, only a spanning forest of the edges
+    # across it; with strips of a few edges (many strips per face, ties of value on a
+    # coarse texture) the pairs and their places must still be gudhi's
+    from voxtopo.engine import chunked
+
+    monkeypatch.setattr(chunked, "CROSS_STRIP_EDGES", 23)
+    image = _texture(shape, 1.0, seed=7 + sum(shape))
+    ndim = len(shape)
+    diagram = chunked_persistence(image, superlevel=superlevel, chunks=chunks,
+                                  scheduler="sync")
+    for dim in (0, ndim - 1):
+        assert _ours(diagram, dim) == _gudhi_intervals(image, dim, superlevel, "voxel")
+    _assert_locations_hold_values(diagram, image)
+    whole = chunked_persistence(image, superlevel=superlevel, chunks=shape,
+                                scheduler="sync")
+    pd.testing.assert_frame_equal(diagram.pairs.sort_values(list(diagram.pairs.columns))
+                                  .reset_index(drop=True),
+                                  whole.pairs.sort_values(list(whole.pairs.columns))
+                                  .reset_index(drop=True))
 
 
 def test_dimension_zero_counts_components_like_scipy_label():

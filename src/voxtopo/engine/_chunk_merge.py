@@ -119,6 +119,26 @@ def _vertex_before(vert_value, vert_id, a, b, ascending, outside):
 
 
 @njit(cache=True, nogil=True)
+def joining_edges(edge_a, edge_b, edge_order, vertices):
+    """Which edges join two components when the edges are taken in ``edge_order`` (a
+    spanning forest, Kruskal): the others close a cycle of edges visited no later, so
+    no sweep of a larger graph holding them all can need them.
+
+    Vertices are positions 0..vertices-1. Returns a bool array, one entry per edge.
+    """
+    parent = np.arange(vertices)
+    joins = np.zeros(edge_a.size, np.bool_)
+    for i in range(edge_order.size):
+        e = edge_order[i]
+        root_a = _find(parent, edge_a[e])
+        root_b = _find(parent, edge_b[e])
+        if root_a != root_b:
+            parent[root_a] = root_b
+            joins[e] = True
+    return joins
+
+
+@njit(cache=True, nogil=True)
 def reduce_graph(vert_value, vert_id, vert_flag, outside, edge_a, edge_b, edge_value,
                  edge_order, ascending, parent, touches, out_kind, out_young, out_old,
                  out_edge):

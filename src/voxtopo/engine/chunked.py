@@ -7,7 +7,9 @@ chunk is swept by a dask task (:func:`voxtopo.engine._chunk_merge.reduce_chunk`)
 which finishes the pairs it can decide alone and hands on a reduced graph of what it cannot.
 Neighbouring blocks are then merged pairwise, level by level along the axis where the
 blocks are thinnest, by further dask tasks that read the two voxel planes on either side
-of their shared face, add the grid edges that cross it, and reduce again
+of their shared face, add the grid edges that cross it (of each strip of the face's rows
+only a spanning forest in sweep order, at most one edge per voxel: the others close
+cycles of earlier edges, which no sweep needs), and reduce again
 (:func:`voxtopo.engine._chunk_merge.reduce_graph`). Only the last task sees the whole
 volume's reduced graph, whose size is set by the faces between blocks, not by their
 volume; :func:`planned_merges` gives the most each merge can hold.
@@ -52,6 +54,10 @@ __all__ = ["BYTES_PER_CHUNK_VOXEL", "PlannedMerge", "chunked_merges", "chunked_m
 #: cluster after a 32^3 run).
 WORKER_BASELINE_BYTES = 400_000_000
 
+#: Edges across a merged face taken at a time: one strip of the face's rows, of which a
+#: spanning forest is kept (see :func:`_cross_edges`).
+CROSS_STRIP_EDGES = 1 << 20
+
 #: Bytes per voxel of one chunk task: the values as float64, the sort order, union-find
 #: forest, flags and the four output buffers (int64 each).
 BYTES_PER_CHUNK_VOXEL = 8 * 8 + 4
@@ -67,10 +73,19 @@ BYTES_PER_MERGE_VERTEX = 16 + 56 + 3 + 34 + 24 + 16
 #: order with its reversed copy (16).
 BYTES_PER_MERGE_EDGE = 32 + 32 + 16 + 16
 
-#: Bytes per edge across the shared face, made in place and let go once joined: the
-#: joined columns (32), both ends' positions (16) and the sweep order with its reversed
-#: copy (16).
-BYTES_PER_CROSSING_EDGE = 32 + 16 + 16
+#: Bytes per edge across the shared face that is kept (a spanning forest of each strip
+#: of the face's rows): the strips' kept columns and their joined copy (64), then the
+#: merge's joined columns (32), both ends' positions (16) and the sweep order with its
+#: reversed copy (16); the strips' columns are let go before the merge's are made.
+BYTES_PER_CROSSING_EDGE = 64
+
+#: Bytes per edge of the strip whose spanning forest is being found: its columns from
+#: each offset (32) and joined (32), both ends as one array and its unique sort (48),
+#: the sweep order with its reversed copy (16), the found flags (1) and the side masks (3).
+BYTES_PER_STRIP_EDGE = 32 + 32 + 48 + 16 + 1 + 3
+
+#: Bytes per voxel of the shared face: the two planes' values (float64) and ids (int64).
+BYTES_PER_FACE_VOXEL = 2 * (8 + 8)
 
 #: A block's reduced graph has one vertex per flagged voxel of its box and, beyond them,
 #: the first voxels of the basins inside the box that reach a flagged voxel, its root and
@@ -273,21 +288,48 @@ def _cross_edges(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
             take_a[k] = slice(max(0, -d), size - max(0, d))
             take_b[k] = slice(max(0, d), size - max(0, -d))
         takes.append((tuple(take_a), tuple(take_b)))
-    # filled in place, offset after offset: no second copy of the face's edges
-    total = sum(values_a[take_a].size for take_a, _ in takes)
-    edge_a, edge_b, edge_voxel = (np.empty(total, np.int64) for _ in range(3))
-    edge_value = np.empty(total, np.float64)
-    at = 0
-    for take_a, take_b in takes:
-        va, ia = values_a[take_a].ravel(), ids_a[take_a].ravel()
-        vb, ib = values_b[take_b].ravel(), ids_b[take_b].ravel()
-        b_later = _later(va, ia, vb, ib, sweep.ascending)
-        done = at + len(va)
-        edge_a[at:done], edge_b[at:done] = ia, ib
-        edge_voxel[at:done] = np.where(b_later, ib, ia)
-        edge_value[at:done] = np.where(b_later, vb, va)
-        at = done
-    return edge_a, edge_b, edge_voxel, edge_value
+    # The face is cut into strips of rows along its longest axis; of each strip's edges
+    # only a spanning forest in sweep order is kept (at most one edge per vertex): the
+    # rest close cycles of earlier edges, which the merge's sweep skips anyway. So a merge
+    # holds about two edges per face voxel instead of nine, and one strip's at a time.
+    rows_axis = max(others, key=lambda k: values_a.shape[k])
+    rows = values_a.shape[rows_axis]
+    per_row = len(takes) * max(values_a.size // max(rows, 1), 1)
+    step = max(1, CROSS_STRIP_EDGES // per_row)
+    kept = []
+    for first in range(0, rows, step):
+        strip = []
+        for take_a, take_b in takes:
+            start = take_a[rows_axis].start
+            stop = min(take_a[rows_axis].stop, first + step)
+            if stop <= max(first, start):
+                continue
+            # the same rows of both sides' views: A's rows first .. first + step
+            local = slice(max(first - start, 0), stop - start)
+            pick_a, pick_b = list(take_a), list(take_b)
+            pick_a[rows_axis] = slice(start + local.start, start + local.stop)
+            pick_b[rows_axis] = slice(take_b[rows_axis].start + local.start,
+                                      take_b[rows_axis].start + local.stop)
+            va, ia = values_a[tuple(pick_a)].ravel(), ids_a[tuple(pick_a)].ravel()
+            vb, ib = values_b[tuple(pick_b)].ravel(), ids_b[tuple(pick_b)].ravel()
+            b_later = _later(va, ia, vb, ib, sweep.ascending)
+            strip.append((ia, ib, np.where(b_later, ib, ia), np.where(b_later, vb, va)))
+        if strip:
+            kept.append(_spanning_forest(*(np.concatenate(c) for c in zip(*strip)),
+                                         sweep.ascending))
+    if not kept:
+        empty = np.empty(0, np.int64)
+        return empty, empty.copy(), empty.copy(), np.empty(0, np.float64)
+    return tuple(np.concatenate(c) for c in zip(*kept))
+
+
+def _spanning_forest(edge_a, edge_b, edge_voxel, edge_value, ascending):
+    """The edges of a spanning forest taken in sweep order (:func:`_sweep_order`)."""
+    vertices, ends = np.unique(np.concatenate([edge_a, edge_b]), return_inverse=True)
+    order = _sweep_order(edge_value, edge_voxel, ascending)
+    joins = kernel.joining_edges(ends[:edge_a.size], ends[edge_a.size:], order,
+                                 vertices.size)
+    return edge_a[joins], edge_b[joins], edge_voxel[joins], edge_value[joins]
 
 
 def _merge(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
@@ -432,20 +474,32 @@ class PlannedMerge:
     axis: int
     vertices: int    # most vertices of the two reduced graphs together
     edges: int       # most edges of the two graphs
-    crossing: int    # edges across the shared face
+    crossing: int    # edges across the shared face that are kept
+    strip: int       # edges across the face of one strip of rows, taken at a time
+    face: int        # voxels of the shared face
 
     @property
     def nbytes(self) -> int:
         return (self.vertices * BYTES_PER_MERGE_VERTEX + self.edges * BYTES_PER_MERGE_EDGE
-                + self.crossing * BYTES_PER_CROSSING_EDGE)
+                + self.crossing * BYTES_PER_CROSSING_EDGE + self.strip * BYTES_PER_STRIP_EDGE
+                + self.face * BYTES_PER_FACE_VOXEL)
 
 
 def _planned_merge(first, second, axis, shape3, ndim) -> PlannedMerge:
     flagged = _flagged_voxels(*first, shape3) + _flagged_voxels(*second, shape3)
     vertices = flagged + math.ceil(flagged * INNER_ROOTS_PER_FLAGGED_VOXEL) + 4
-    face = math.prod(b - a for k, (a, b) in enumerate(zip(*first)) if k != axis)
+    extents = [b - a for k, (a, b) in enumerate(zip(*first)) if k != axis]
+    face = math.prod(extents)
     across = 3 ** (ndim - 1)             # neighbours one step along ``axis``, corners too
-    return PlannedMerge(first, second, axis, vertices, vertices, across * face)
+    # a spanning forest of each strip of rows (see _cross_edges): at most one edge per
+    # vertex of the strip, its rows on side A and one row more on either side on B
+    rows = max(extents)
+    row = face // rows
+    step = max(1, CROSS_STRIP_EDGES // (across * row))
+    strips = -(-rows // step)
+    crossing = min(across * face, 2 * face + 2 * row * strips)
+    return PlannedMerge(first, second, axis, vertices, vertices, crossing,
+                        min(across * face, across * row * step), face)
 
 
 def planned_merges(shape, chunks) -> list[PlannedMerge]:
