@@ -289,3 +289,30 @@ def test_settings_choose_the_pores_job(tmp_path, cluster_address):
     assert "counts_pores" in table.columns and "pairs_dimpores" not in table.columns
     page = (tmp_path / "out" / "scans" / "disc_0" / "report.html").read_text()
     assert "<h2>Counts</h2>" in page and "not a medical diagnosis" in page
+
+
+def test_each_scan_is_planned_with_its_job_s_own_plan():
+    # The batch sizes its workers from the plans the jobs check themselves before they
+    # start (porosity.estimate, analyse's preparation plan), which bench_pores.py and
+    # bench_memory.py hold within 25 % of measured peaks; a cruder plan would give a
+    # 512^3 pores study one worker where two fit.
+    from voxtopo import porosity
+    from voxtopo.engine.chunked import WORKER_BASELINE_BYTES
+    from voxtopo.jobs.analyse import AnalysisOptions, preparation_plan
+    from voxtopo.jobs.pores import PoresOptions
+    from voxtopo.scan import Scan
+
+    shape = (512, 512, 512)
+    pores = batch.scan_bytes(shape, "uint8", "pores", PoresOptions(neighbourhood=6))
+    assert pores == porosity.estimate(shape, np.uint8, neighbourhood=6)
+    assert batch.scan_bytes(shape, "uint8", "pores", roi=True) == porosity.estimate(
+        shape, np.uint8, roi=True) > porosity.estimate(shape, np.uint8)
+    options = AnalysisOptions(sigma=1.0)
+    probe = Scan(np.broadcast_to(np.zeros((), np.uint16), shape))
+    assert batch.scan_bytes(shape, "uint16", "analyse", options) == (
+        WORKER_BASELINE_BYTES + 2 * 512 ** 3 + max(n for _, n in preparation_plan(probe,
+                                                                                 options)))
+    # measured: a 512^3 uint8 pores run peaks at 2.8 GB (bench_pores.py): two such
+    # workers fit in 80 % of 22 GB
+    count, limit = batch.plan_workers([pores], available=22 * 10**9, cores=2)
+    assert count == 2 and limit >= 2.8e9

@@ -184,7 +184,9 @@ def run_batch(manifest, out, *, settings_path=None, scheduler=None, workers=None
     loads = {e.name: _load_options(e, settings) for e in entries}
     # an out-of-core pores run holds one chunk per task, not the scan
     whole_scans = not (settings.job == "pores" and settings.pores.get("out_of_core"))
-    needs = [scan_bytes(*peek, settings.job) for e in entries
+    planned_options = job_options(settings.job, getattr(settings, settings.job))
+    needs = [scan_bytes(*peek, settings.job, planned_options, roi="roi" in e.files)
+             for e in entries
              if whole_scans and (peek := _peek(e.path, loads[e.name])) is not None]
     count, limit = plan_workers(
         needs, workers=workers or settings.batch.get("workers"),

@@ -14,12 +14,12 @@ from ..errors import InputError
 from ..io.results import (check_output, is_complete, is_voxtopo_folder, write_atomically,
                           write_marker)
 from .manifest import ScanEntry
-from .settings import Settings, read_settings
+from .settings import Settings, job_options, read_settings
 
 __all__ = ["scan_bytes", "plan_workers"]
 
-#: Working memory of one scan beyond the persistence engine's own estimate: the loaded
-#: array, its float copy and the prepared filtration, planned at 8 bytes a voxel each.
+#: Working memory of a patch-space or periodicity scan beyond the persistence engine's own
+#: estimate: the loaded array, its float copy and the prepared data, 8 bytes a voxel each.
 _COPIES_PER_SCAN = 3
 
 #: Smallest memory limit given to a worker: the interpreter with numpy, numba, gudhi and
@@ -126,25 +126,34 @@ def _job_of(entry: ScanEntry, settings: Settings, load_options: dict, worker_byt
     if choice is True:
         return "analyse-out-of-core"
     peek = _peek(entry.path, load_options)
-    if peek is not None and worker_bytes and scan_bytes(*peek) > worker_bytes:
+    if peek is not None and worker_bytes and scan_bytes(
+            *peek, "analyse", job_options("analyse", settings.analyse)) > worker_bytes:
         return "analyse-out-of-core"
     return "analyse"
 
 
-def scan_bytes(shape, dtype, job: str = "analyse") -> int:
-    """Planned peak memory of one scan's job.
+def scan_bytes(shape, dtype, job: str = "analyse", options=None, *, roi: bool = False) -> int:
+    """Planned peak memory of one scan's job in a dask worker.
 
-    The engine's estimate plus the copies the analyse job makes (loaded, float,
-    prepared); the pores job twice that.
+    The analyse and pores jobs use their own plans, the ones their runs check before
+    they start: for analyse the scan, the largest step of
+    :func:`voxtopo.jobs.analyse.preparation_plan` (persistence, or testing and writing the
+    pairs) and the worker's own baseline; for pores :func:`voxtopo.porosity.estimate`
+    (the interpreter included). The patch-space and periodicity jobs are planned at the
+    engine's float64 estimate and three float64 copies of the scan.
 
     Parameters
     ----------
     shape : tuple of int
         The scan's shape.
     dtype : numpy dtype
-        The scan's stored type (the plan counts float64 copies whatever it is).
+        The scan's stored type.
     job : str
-        The job that runs the scan; "pores" doubles the plan.
+        The job that runs the scan.
+    options : optional
+        The job's Options (default the job's defaults).
+    roi : bool
+        A region of interest is given for this scan (pores).
 
     Returns
     -------
@@ -153,14 +162,32 @@ def scan_bytes(shape, dtype, job: str = "analyse") -> int:
 
     Examples
     --------
-    >>> scan_bytes((64, 64, 64), "uint8", "pores") == 2 * scan_bytes((64, 64, 64), "uint8")
+    >>> from voxtopo import porosity
+    >>> scan_bytes((64, 64, 64), "uint8", "pores") == porosity.estimate((64, 64, 64), "uint8")
     True
     """
     from ..engine import estimate
+    from ..engine.chunked import WORKER_BASELINE_BYTES
 
     voxels = int(np.prod(shape, dtype=np.int64))
-    need = estimate(shape, np.float64) + _COPIES_PER_SCAN * 8 * voxels
-    return int(need * (2 if job == "pores" else 1))
+    dtype = np.dtype(dtype)
+    if job == "pores":
+        from .. import porosity
+        from ..jobs.pores import PoresOptions
+
+        options = options or PoresOptions()
+        return porosity.estimate(shape, dtype, neighbourhood=options.neighbourhood,
+                                 engine=options.engine,
+                                 roi=roi or options.roi is not None)
+    if job == "analyse":
+        from ..jobs.analyse import AnalysisOptions, preparation_plan
+        from ..scan import Scan
+
+        probe = Scan(np.broadcast_to(np.zeros((), dtype), tuple(shape)))
+        steps = preparation_plan(probe, options or AnalysisOptions())
+        return int(WORKER_BASELINE_BYTES + voxels * dtype.itemsize
+                   + max(needed for _, needed in steps))
+    return int(estimate(shape, np.float64) + _COPIES_PER_SCAN * 8 * voxels)
 
 
 def plan_workers(needs: list[int], *, workers=None, memory_per_worker=None,
