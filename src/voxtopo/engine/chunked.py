@@ -36,9 +36,8 @@ from itertools import product
 import numpy as np
 
 from ..diagram import Diagram, check_min_persistence
-from ..errors import InputError
+from ..errors import InputError, TooBigError
 from ..io._chunked import chunks_of
-from ..errors import TooBigError
 from ..memory import BUDGET_FRACTION, ensure_fits, human, worker_memory_limits
 from ..scan import Scan
 from . import _chunk_merge as kernel
