@@ -652,21 +652,35 @@ def _largest_task(shape, chunks) -> tuple[int, str, bool]:
 
 
 def _check_workers(source: _Grid, scheduler) -> None:
-    """Refuse a run whose largest task and the worker's own baseline would not fit the
-    smallest worker of a distributed scheduler, within the share of its memory limit a
-    run on this machine plans for."""
-    limits = worker_memory_limits(scheduler)
+    """Refuse a run whose largest task would not fit the smallest worker of a distributed
+    scheduler (:func:`ensure_workers_fit`)."""
     task, what, by_merge = _largest_task(source.shape, source.chunks)
+    ensure_workers_fit(
+        scheduler, task, what.lower(),
+        f"The out-of-core run of the {'x'.join(map(str, source.shape))} scan in "
+        f"{'x'.join(map(str, source.chunks))} chunks",
+        lambda smallest: "" if by_merge else ", or choose smaller chunks (--chunks)")
+
+
+def ensure_workers_fit(scheduler, task: int, what: str, run: str, more_remedy) -> None:
+    """Refuse, in one sentence, a run whose largest task (``task`` bytes, doing ``what``)
+    and the worker's own baseline would not fit the smallest worker of a distributed
+    scheduler, within the share of its memory limit a run on this machine plans for.
+
+    ``run`` names the run; ``more_remedy(smallest_limit)`` gives what may follow "give each
+    worker a memory limit of at least ..." (such as smaller chunks that would fit).
+    """
+    limits = worker_memory_limits(scheduler)
     needed = WORKER_BASELINE_BYTES + task
-    if limits and needed > BUDGET_FRACTION * min(limits):
-        raise TooBigError(
-            f"The out-of-core run of the {'x'.join(map(str, source.shape))} scan in "
-            f"{'x'.join(map(str, source.chunks))} chunks needs about {human(needed)} per "
-            f"worker ({human(task)} for {what.lower()} and {human(WORKER_BASELINE_BYTES)} "
-            f"for the worker itself) but the smallest worker's memory limit is "
-            f"{human(min(limits))}, of which {BUDGET_FRACTION:.0%} is planned for; give each "
-            f"worker a memory limit of at least {human(needed / BUDGET_FRACTION)}"
-            + ("" if by_merge else ", or choose smaller chunks (--chunks)") + ".")
+    if not limits or needed <= BUDGET_FRACTION * min(limits):
+        return
+    smallest = min(limits)
+    raise TooBigError(
+        f"{run} needs about {human(needed)} per worker ({human(task)} for {what} and "
+        f"{human(WORKER_BASELINE_BYTES)} for the worker itself) but the smallest worker's "
+        f"memory limit is {human(smallest)}, of which {BUDGET_FRACTION:.0%} is planned for; "
+        f"give each worker a memory limit of at least {human(needed / BUDGET_FRACTION)}"
+        f"{more_remedy(smallest)}.")
 
 
 def chunked_persistence(array, *, superlevel: bool = False, neighbourhood=None,

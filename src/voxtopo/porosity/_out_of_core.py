@@ -60,11 +60,12 @@ from ..engine.chunked import (
     chunked_merges_of_each,
     chunked_persistence,
     chunked_persistence_and_border_merges,
+    ensure_workers_fit,
     planned_merge_bytes,
     WORKER_BASELINE_BYTES,
 )
 from ..errors import InputError, TooBigError, VoxtopoError
-from ..memory import BUDGET_FRACTION, ensure_fits, human, worker_memory_limits
+from ..memory import BUDGET_FRACTION, ensure_fits
 from ..scan import Scan
 from . import _chunked_edt, _chunked_pieces, _local_counts
 from ._analysis import (
@@ -419,24 +420,20 @@ def _check_worker_memory(scheduler, plan: TaskPlan, shape, chunks, transforms) -
     """Refuse a plan that would not fit the smallest worker of a distributed scheduler:
     the worker's baseline and its largest task, within the same share of its memory
     limit as a run on this machine plans for."""
-    limits = worker_memory_limits(scheduler)
-    if not limits or plan.per_worker <= BUDGET_FRACTION * min(limits):
-        return
-    smallest = min(limits)
-    needed_limit = plan.per_worker / BUDGET_FRACTION
-    remedy = f"give each worker a memory limit of at least {human(needed_limit)}"
-    smaller = _smaller_chunks_that_fit(shape, chunks, transforms, BUDGET_FRACTION * smallest)
-    if smaller is not None:
-        remedy += f", or choose smaller chunks (--chunks {','.join(map(str, smaller))})"
-    elif plan.largest == plan.merge:
-        remedy += (" (smaller chunks would not help: that merge holds whole cross-sections "
-                   "of the scan)")
-    raise TooBigError(f"The out-of-core pore analysis of the {'x'.join(map(str, shape))} scan "
-                      f"in {'x'.join(map(str, chunks))} chunks needs about "
-                      f"{human(plan.per_worker)} per worker ({human(plan.largest)} for "
-                      f"{plan.largest_task} and {human(WORKER_BASELINE_BYTES)} for the worker "
-                      f"itself) but the smallest worker's memory limit is {human(smallest)}, "
-                      f"of which {BUDGET_FRACTION:.0%} is planned for; {remedy}.")
+
+    def more_remedy(smallest):
+        smaller = _smaller_chunks_that_fit(shape, chunks, transforms,
+                                           BUDGET_FRACTION * smallest)
+        if smaller is not None:
+            return f", or choose smaller chunks (--chunks {','.join(map(str, smaller))})"
+        if plan.largest == plan.merge:
+            return (" (smaller chunks would not help: that merge holds whole cross-sections "
+                    "of the scan)")
+        return ""
+
+    ensure_workers_fit(scheduler, plan.largest, plan.largest_task,
+                       f"The out-of-core pore analysis of the {'x'.join(map(str, shape))} "
+                       f"scan in {'x'.join(map(str, chunks))} chunks", more_remedy)
 
 
 # --------------------------------------------------------------------------- analyse
