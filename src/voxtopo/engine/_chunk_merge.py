@@ -36,16 +36,23 @@ def reduce_chunk(values, order, shape, offsets, flagged, on_border, with_outside
                  parent, touches, out_kind, out_young, out_old, out_voxel):
     """Sweep one chunk; write final pairs and kept edges; return how many were written.
 
+    Only the voxels in ``order`` are visited: the others were linked beforehand by
+    :func:`voxtopo.engine._union_find.link_regular_voxels` (``parent`` holds their links),
+    which leaves a voxel unlinked when its entry may merge two components. A linked
+    voxel joins a component that already exists and writes nothing here, so the records
+    are those of visiting every voxel, as long as every flagged voxel and, with the
+    outside, every ``on_border`` voxel is in ``order``.
+
     Parameters
     ----------
     values : 1D array, the chunk in C order.
-    order : 1D int64 array, chunk-local flat indices sorted by (value, index).
+    order : 1D int array, the chunk-local flat indices to visit, sorted by (value, index).
     shape : int64 array (3,), chunk sizes (z, y, x); a 2D chunk is one z-slice.
     offsets : int64 array (k, 3), neighbour offsets.
     flagged : uint8 array, 1 where a voxel has a neighbour in another chunk.
     on_border : uint8 array, 1 where a voxel lies on the border of the whole image (it
         touches the outside node ``n`` when ``with_outside``).
-    parent, touches : work arrays of n + 1 entries.
+    parent, touches : work arrays of n + 1 entries; ``touches`` all 0 on entry.
     out_kind, out_young, out_old, out_voxel : output buffers of n + 1 entries.
     """
     n = values.size
@@ -56,8 +63,9 @@ def reduce_chunk(values, order, shape, offsets, flagged, on_border, with_outside
     written = 0
     parent[outside] = outside
     touches[outside] = 1
-    for step in range(n):
-        v = order[step] if ascending else order[n - 1 - step]
+    last = order.size - 1
+    for step in range(order.size):
+        v = order[step] if ascending else order[last - step]
         parent[v] = v
         touches[v] = flagged[v]
         root_v = v

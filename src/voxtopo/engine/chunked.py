@@ -42,7 +42,8 @@ from ..memory import BUDGET_FRACTION, ensure_fits, human, worker_memory_limits
 from ..scan import Scan
 from . import _chunk_merge as kernel
 from ._pairs import RawPairs, check_exact_in_float64
-from ._union_find import neighbour_offsets
+from ._union_find import link_regular_voxels, neighbour_offsets
+from .own import sorted_order
 
 __all__ = ["BYTES_PER_CHUNK_VOXEL", "PlannedMerge", "chunked_merges", "chunked_merges_of_each",
            "chunked_persistence", "chunked_persistence_and_border_merges",
@@ -219,13 +220,22 @@ def _reduce_leaf(source: _Grid, lo, hi, sweep: _Sweep):
         border = source.read(lo2, hi2, source.edge).astype(np.uint8).reshape(-1)
     else:
         border = _on_border(lo, hi, shape3, real_axes).reshape(-1)
-    order = np.argsort(flat, kind="stable").astype(np.int64)
-    offsets = neighbour_offsets(source.ndim, sweep.corners)
+    # A streaming pass links every voxel whose entry cannot merge anything (as the
+    # in-memory sweep does); the sweep then sorts and visits only the others, and every
+    # voxel it must record: the flagged ones and, with the outside, the border.
     parent = np.empty(n + 1, np.int64)
-    touches = np.empty(n + 1, np.uint8)
+    shape_of_chunk = np.array(cshape, np.int64)
+    link_regular_voxels(flat, 0, cshape[0] * cshape[1], sweep.ascending, shape_of_chunk,
+                        neighbour_offsets(source.ndim, True), sweep.corners, 0, parent)
+    parent[:n][(flagged | border) != 0] = -1
+    marked = np.flatnonzero(parent[:n] == -1)
+    order = marked[sorted_order(flat[marked])]
+    del marked
+    offsets = neighbour_offsets(source.ndim, sweep.corners)
+    touches = np.zeros(n + 1, np.uint8)
     kind = np.empty(n + 1, np.uint8)
     young, old, voxel = (np.empty(n + 1, np.int64) for _ in range(3))
-    written = kernel.reduce_chunk(flat, order, np.array(cshape, np.int64), offsets, flagged,
+    written = kernel.reduce_chunk(flat, order, shape_of_chunk, offsets, flagged,
                                   border, 1 if sweep.with_outside else 0, sweep.ascending,
                                   parent, touches, kind, young, old, voxel)
     kind, young, old, voxel = kind[:written], young[:written], old[:written], voxel[:written]
