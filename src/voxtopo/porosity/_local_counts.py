@@ -57,10 +57,15 @@ def euler_histogram(values: np.ndarray, origin, lo, hi, shape, construction: str
     ndim = len(shape)
     n_levels = len(levels)
     histogram = np.zeros(n_levels, np.int64)
+    # Each voxel's bin, found once: the bin is a non-decreasing function of the value, so
+    # the bin of a cell's lowest (highest) value is the lowest (highest) of its voxels'
+    # bins, and the windows below run on small integers.
+    bins = np.searchsorted(levels, values, side="left").astype(
+        np.uint16 if n_levels < np.iinfo(np.uint16).max else np.int64)
     if construction == "voxel":
         pad = [(int(origin[a] == 0), int(origin[a] + values.shape[a] == shape[a]))
                for a in range(ndim)]
-        values = np.pad(values, pad, constant_values=np.inf)
+        bins = np.pad(bins, pad, constant_values=n_levels)  # beyond the scan: no level
         origin = [origin[a] - pad[a][0] for a in range(ndim)]
         families = [(axes, ndim - len(axes)) for k in range(ndim + 1)
                     for axes in combinations(range(ndim), k)]
@@ -70,7 +75,7 @@ def euler_histogram(values: np.ndarray, origin, lo, hi, shape, construction: str
                     for axes in combinations(range(ndim), k)]
         combine = np.maximum
     for axes, cell_dim in families:
-        cells = values
+        cells = bins
         for a in axes:
             cells = _window(cells, a, combine)
         owned = []
@@ -83,8 +88,7 @@ def euler_histogram(values: np.ndarray, origin, lo, hi, shape, construction: str
                 start, stop, shift = lo[a], min(hi[a], shape[a] - 1), 0
             first = start - origin[a] - shift
             owned.append(slice(first, first + max(stop - start, 0)))
-        entry = np.searchsorted(levels, cells[tuple(owned)].ravel(), side="left")
-        counts = np.bincount(entry, minlength=n_levels + 1)[:n_levels]
+        counts = np.bincount(cells[tuple(owned)].ravel(), minlength=n_levels + 1)[:n_levels]
         histogram += (-1) ** cell_dim * counts
     return histogram
 
