@@ -10,7 +10,7 @@ from reference import gudhi_intervals
 from scipy import ndimage
 
 from voxtopo.engine import _chunk_merge
-from voxtopo.engine.chunked import chunked_persistence
+from voxtopo.engine.chunked import chunked_persistence, chunked_persistence_and_crossings
 from voxtopo.errors import InputError
 from voxtopo.io import open_chunked
 
@@ -143,6 +143,45 @@ def test_faces_cut_into_many_strips_give_gudhi_s_pairs(monkeypatch, shape, chunk
                                   .reset_index(drop=True))
 
 
+def _first_crossing_by_labels(image, axis, corners):
+    """Reference: scipy.ndimage.label. Voxels enter one at a time in (value, C-order
+    index) order; the answer is the first voxel after whose entry one labelled component
+    holds voxels of both end slices along ``axis``."""
+    structure = ndimage.generate_binary_structure(image.ndim, image.ndim if corners else 1)
+    order = np.lexsort((np.arange(image.size), image.ravel()))
+    entered = np.zeros(image.size, bool)
+    for v in order:
+        entered[v] = True
+        labels, _ = ndimage.label(entered.reshape(image.shape), structure=structure)
+        first = np.take(labels, 0, axis=axis)
+        last = np.take(labels, -1, axis=axis)
+        if np.intersect1d(first[first > 0], last[last > 0]).size:
+            return np.unravel_index(v, image.shape), image.ravel()[v]
+    raise AssertionError("the faces never joined")
+
+
+@pytest.mark.parametrize("shape, chunks", [((9, 11), (4, 3)), ((9, 11), (9, 11)),
+                                           ((6, 7, 5), (3, 2, 4)), ((6, 7, 5), (6, 4, 2))])
+@pytest.mark.parametrize("corners", [True, False])
+def test_faces_followed_through_chunks_join_where_scipy_labels_join_them(shape, chunks,
+                                                                         corners):
+    # coarse values: many ties, so the tie rule decides the voxel
+    image = _texture(shape, 1.0, seed=sum(shape) + corners, decimals=1)
+    neighbourhood = {(2, True): 8, (2, False): 4, (3, True): 26, (3, False): 6}[
+        len(shape), corners]
+    axes = tuple(range(len(shape)))
+    diagram, _, crossings = chunked_persistence_and_crossings(
+        image, crossing_axes=axes, neighbourhood=neighbourhood, chunks=chunks,
+        scheduler="sync")
+    for axis in axes:
+        voxel, value = _first_crossing_by_labels(image, axis, corners)
+        assert crossings[axis] == (tuple(int(i) for i in voxel), float(value))
+    # following the faces changes nothing of the diagram
+    plain = chunked_persistence(image, neighbourhood=neighbourhood, chunks=chunks,
+                                scheduler="sync")
+    pd.testing.assert_frame_equal(diagram.pairs, plain.pairs)
+
+
 def test_dimension_zero_counts_components_like_scipy_label():
     # scipy.ndimage.label with generate_binary_structure(3, 3) counts the components of each
     # sublevel set (Betti 0, 26-neighbourhood), read off the chunked diagram at that level.
@@ -209,9 +248,10 @@ def test_graph_kernel_matches_its_plain_twin():
             order = np.lexsort((voxel, levels))
             order = order if ascending else order[::-1].copy()
             out = [np.empty(m, np.uint8)] + [np.empty(m, np.int64) for _ in range(3)]
+            no_faces = [np.zeros(1, np.uint8), np.zeros(1, np.uint8), np.full(3, -1)]
             written = _chunk_merge.reduce_graph(values, ids, flags, outside, edge_a, edge_b,
                                                 levels, order, ascending, np.empty(m, np.int64),
-                                                np.empty(m, np.uint8), *out)
+                                                np.empty(m, np.uint8), *out, 0, *no_faces)
             got = list(zip(*(o[:written].tolist() for o in out)))
             assert got == expected
 

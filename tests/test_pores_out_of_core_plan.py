@@ -18,7 +18,6 @@ from voxtopo.porosity._out_of_core import (
     BYTES_PER_COUNT_VOXEL,
     WORKER_BASELINE_BYTES,
     _check_worker_memory,
-    end_slice_chunks,
     plan_tasks,
 )
 
@@ -71,10 +70,6 @@ def test_merge_plan_grows_with_the_chunk_faces_merged():
     # the tree merges along the axis where its blocks are thinnest, so no merge below the
     # top holds more than the top, which holds the middle cross-section twice
     assert max(sizes) == sizes[-1]
-    for axis in range(3):    # nor do the end slices of a percolation sweep add any
-        padded = tuple(64 + 2 * (a == axis) for a in range(3))
-        assert chunked.planned_merge_bytes(
-            padded, end_slice_chunks((64, 64, 64), (16, 16, 16), axis)) == small
     # the plan found level by level is the largest of every merge
     for shape, chunks in [((65, 47, 33), (16, 8, 10)), ((41, 37), (9, 11)),
                           ((13, 11, 17), (13, 4, 5))]:
@@ -146,10 +141,9 @@ def test_each_merge_of_a_run_holds_no_more_than_its_plan(tmp_path, monkeypatch):
     analyse_chunked(mask, scratch=tmp_path, chunks=(16, 16, 16), scheduler="sync")
     assert len(counts) == 64
     assert all(held <= planned + OTHER_THREADS_BYTES for held, planned in counts)
-    # 4 sweeps (pores and grains with their duals, which give the border flags too) and
-    # 3 percolation sweeps (two end slices more along one axis, in 4 chunks of 17), each
-    # of 64 chunks
-    assert len(measured) == 7 * 63
+    # 4 sweeps (pores and grains with their duals, which give the border flags too, the
+    # pores' sweep percolation too), each of 64 chunks
+    assert len(measured) == 4 * 63
     # tracemalloc also sees what other threads allocate meanwhile (the event loop of a
     # dask cluster another test left running): a quarter of a megabyte is allowed for it
     over = [(held, planned) for held, planned, _, _ in measured

@@ -29,11 +29,24 @@ from ._union_find import _visited_before as _before  # one tie rule for every sw
 #: Record kinds written by the kernels.
 FINAL_PAIR = 0
 KEPT_EDGE = 1
+#: A component that reaches past its block gains faces of the image (``old``: their bits),
+#: handed on as an edge to no vertex (see :func:`reduce_chunk`).
+FACE_GAIN = 2
+
+
+@njit(cache=True, inline="always")
+def _joined_faces(faces, wanted, crossing, at):
+    """Write ``at`` for each axis whose two faces ``faces`` holds first now."""
+    for a in range(3):
+        both = 3 << (2 * a)
+        if crossing[a] < 0 and (wanted & both) == both and (faces & both) == both:
+            crossing[a] = at
 
 
 @njit(cache=True, nogil=True)
 def reduce_chunk(values, order, shape, offsets, flagged, on_border, with_outside, ascending,
-                 parent, touches, out_kind, out_young, out_old, out_voxel):
+                 parent, touches, out_kind, out_young, out_old, out_voxel, face_of, wanted,
+                 faces, told, crossing):
     """Sweep one chunk; write final pairs and kept edges; return how many were written.
 
     Only the voxels in ``order`` are visited: the others were linked beforehand by
@@ -53,7 +66,18 @@ def reduce_chunk(values, order, shape, offsets, flagged, on_border, with_outside
     on_border : uint8 array, 1 where a voxel lies on the border of the whole image (it
         touches the outside node ``n`` when ``with_outside``).
     parent, touches : work arrays of n + 1 entries; ``touches`` all 0 on entry.
-    out_kind, out_young, out_old, out_voxel : output buffers of n + 1 entries.
+    out_kind, out_young, out_old, out_voxel : output buffers of n + 1 entries, and one
+        more for each face bit of each voxel when faces are followed (a face is gained at
+        most once per voxel lying on it).
+    face_of, wanted, faces, told, crossing : with ``wanted`` (bits of the image's faces
+        whose joining is asked for: 2a and 2a + 1 for the first and last face along axis
+        a), the faces each voxel lies on (``face_of``, uint8 bits) are followed as the
+        components grow (``faces``, per root), and ``crossing[a]`` gets the first voxel
+        whose entry joins both faces of axis a in one component (left at -1 when that
+        does not happen in the chunk). A component that reaches another chunk writes the
+        faces it gains as a ``FACE_GAIN`` record (young: its root, old: the new bits,
+        voxel: where), once each (``told``); ``faces`` and ``told``: n + 1 zeros.
+        With ``wanted`` 0 they are not read (one-entry arrays do).
     """
     n = values.size
     outside = n
@@ -68,6 +92,8 @@ def reduce_chunk(values, order, shape, offsets, flagged, on_border, with_outside
         v = order[step] if ascending else order[last - step]
         parent[v] = v
         touches[v] = flagged[v]
+        if wanted:
+            faces[v] = face_of[v]
         root_v = v
         z = v // plane
         rest = v - z * plane
@@ -98,6 +124,9 @@ def reduce_chunk(values, order, shape, offsets, flagged, on_border, with_outside
                 young, old = root_u, root_v
             parent[young] = old
             root_v = old
+            if wanted:
+                faces[old] |= faces[young]
+                told[old] |= told[young]
             if touches[young]:
                 out_kind[written] = KEPT_EDGE
             elif values[young] != values[v]:
@@ -110,6 +139,16 @@ def reduce_chunk(values, order, shape, offsets, flagged, on_border, with_outside
             written += 1
             if touches[young]:
                 touches[old] = 1
+        if wanted:
+            gained = faces[root_v] & ~told[root_v]
+            if touches[root_v] and gained:
+                out_kind[written] = FACE_GAIN
+                out_young[written] = root_v
+                out_old[written] = gained
+                out_voxel[written] = v
+                written += 1
+                told[root_v] |= gained
+            _joined_faces(faces[root_v], wanted, crossing, v)
     return written
 
 
@@ -149,13 +188,16 @@ def joining_edges(edge_a, edge_b, edge_order, vertices):
 @njit(cache=True, nogil=True)
 def reduce_graph(vert_value, vert_id, vert_flag, outside, edge_a, edge_b, edge_value,
                  edge_order, ascending, parent, touches, out_kind, out_young, out_old,
-                 out_edge):
+                 out_edge, wanted, faces, told, crossing):
     """Kruskal with the elder rule over a reduced graph; same records as :func:`reduce_chunk`.
 
     Vertices are positions 0..m-1 (``outside`` is the position of the outside node, or -1);
     edge ``e`` joins ``edge_a[e]`` and ``edge_b[e]`` at the level ``edge_value[e]``;
     ``edge_order`` lists the edges in sweep order. ``out_edge`` names the edge of a record
-    (its voxel is the death location).
+    (its voxel is the death location). An edge with ``edge_b[e] = -1 - bits`` is a
+    ``FACE_GAIN`` of ``edge_a[e]``'s component; with ``wanted`` the faces are followed as in
+    :func:`reduce_chunk` (``faces``, ``told``: m zeros; ``crossing[a]``: an edge, or -1).
+    Buffers of m entries and one more per face bit of the face-gain edges suffice.
     """
     m = vert_value.size
     for p in range(m):
@@ -165,26 +207,49 @@ def reduce_graph(vert_value, vert_id, vert_flag, outside, edge_a, edge_b, edge_v
     for i in range(edge_order.size):
         e = edge_order[i]
         root_a = _find(parent, edge_a[e])
-        root_b = _find(parent, edge_b[e])
-        if root_a == root_b:
-            continue
-        if _vertex_before(vert_value, vert_id, root_a, root_b, ascending, outside):
-            young, old = root_b, root_a
+        if edge_b[e] < 0:
+            if wanted:
+                faces[root_a] |= -1 - edge_b[e]
+                root = root_a
+            else:
+                continue
         else:
-            young, old = root_a, root_b
-        parent[young] = old
-        if touches[young]:
-            out_kind[written] = KEPT_EDGE
-        elif vert_value[young] != edge_value[e]:
-            out_kind[written] = FINAL_PAIR
-        else:
-            continue
-        out_young[written] = young
-        out_old[written] = old
-        out_edge[written] = e
-        written += 1
-        if touches[young]:
-            touches[old] = 1
+            root_b = _find(parent, edge_b[e])
+            if root_a == root_b:
+                continue
+            if _vertex_before(vert_value, vert_id, root_a, root_b, ascending, outside):
+                young, old = root_b, root_a
+            else:
+                young, old = root_a, root_b
+            parent[young] = old
+            root = old
+            if wanted:
+                faces[old] |= faces[young]
+                told[old] |= told[young]
+            record = True
+            if touches[young]:
+                out_kind[written] = KEPT_EDGE
+            elif vert_value[young] != edge_value[e]:
+                out_kind[written] = FINAL_PAIR
+            else:
+                record = False
+            if record:
+                out_young[written] = young
+                out_old[written] = old
+                out_edge[written] = e
+                written += 1
+                if touches[young]:
+                    touches[old] = 1
+        if wanted:
+            gained = faces[root] & ~told[root]
+            if touches[root] and gained:
+                out_kind[written] = FACE_GAIN
+                out_young[written] = root
+                out_old[written] = gained
+                out_edge[written] = e
+                written += 1
+                told[root] |= gained
+            _joined_faces(faces[root], wanted, crossing, e)
     return written
 
 

@@ -47,7 +47,7 @@ from .own import sorted_order
 
 __all__ = ["BYTES_PER_CHUNK_VOXEL", "PlannedMerge", "chunked_merges", "chunked_merges_of_each",
            "chunked_persistence", "chunked_persistence_and_border_merges",
-           "planned_merge_bytes", "planned_merges"]
+           "chunked_persistence_and_crossings", "planned_merge_bytes", "planned_merges"]
 
 #: Memory of a dask worker before any task: the interpreter with numpy, scipy, zarr, dask
 #: and numba's compiled kernels (measured: 0.38 GB resident in each worker of a local
@@ -98,6 +98,10 @@ class _Sweep:
     ascending: bool
     corners: bool
     with_outside: bool
+    #: bits of the image's faces to follow (2a and 2a + 1: the first and last face along
+    #: axis a of the 3D grid): the sweep also finds where both faces of an axis first
+    #: fall into one component
+    faces: int = 0
 
 
 @dataclass
@@ -120,6 +124,39 @@ class _Pairs:
     young_value: np.ndarray
     voxel_id: np.ndarray
     voxel_value: np.ndarray
+    #: per axis of the 3D grid, the voxel (-1: none) and value where a task saw both
+    #: faces of the axis first fall into one component (faces followed only)
+    crossing_id: np.ndarray = None
+    crossing_value: np.ndarray = None
+
+
+#: A FACE_GAIN edge joins its vertex to no vertex: its second end is -1 - the bits gained.
+def _face_edge_end(bits):
+    return -1 - np.asarray(bits, np.int64)
+
+
+def _first_crossings(ids, values, ascending):
+    """Per axis, the (id, value) first in sweep order among ``ids`` (-1: none)."""
+    found_id = np.full(3, -1, np.int64)
+    found_value = np.full(3, np.nan)
+    for a in range(3):
+        seen = ids[:, a] >= 0
+        if seen.any():
+            order = _sweep_order(values[seen, a], ids[seen, a], ascending)
+            found_id[a] = ids[seen, a][order[0]]
+            found_value[a] = values[seen, a][order[0]]
+    return found_id, found_value
+
+
+def _face_bits(lo, hi, shape3, coords, wanted):
+    """The bits of the image faces (among ``wanted``) each voxel of [lo, hi) lies on."""
+    bits = np.zeros(np.broadcast(*coords).shape, dtype=np.uint8)
+    for a in range(3):
+        if wanted & (1 << (2 * a)) and lo[a] == 0:
+            bits |= (coords[a] == 0).astype(np.uint8) << (2 * a)
+        if wanted & (2 << (2 * a)) and hi[a] == shape3[a]:
+            bits |= (coords[a] == shape3[a] - 1).astype(np.uint8) << (2 * a + 1)
+    return bits
 
 
 class _Grid:
@@ -220,24 +257,38 @@ def _reduce_leaf(source: _Grid, lo, hi, sweep: _Sweep):
         border = source.read(lo2, hi2, source.edge).astype(np.uint8).reshape(-1)
     else:
         border = _on_border(lo, hi, shape3, real_axes).reshape(-1)
+    face_of = np.zeros(1, np.uint8)
+    if sweep.faces:
+        face_of = np.ascontiguousarray(np.broadcast_to(
+            _face_bits(lo, hi, shape3, coords, sweep.faces), cshape)).reshape(-1)
     # A streaming pass links every voxel whose entry cannot merge anything (as the
     # in-memory sweep does); the sweep then sorts and visits only the others, and every
-    # voxel it must record: the flagged ones and, with the outside, the border.
+    # voxel it must record: the flagged ones, with the outside the border, and the
+    # voxels on the faces it follows.
     parent = np.empty(n + 1, np.int64)
     shape_of_chunk = np.array(cshape, np.int64)
     link_regular_voxels(flat, 0, cshape[0] * cshape[1], sweep.ascending, shape_of_chunk,
                         neighbour_offsets(source.ndim, True), sweep.corners, 0, parent)
-    parent[:n][(flagged | border) != 0] = -1
+    visit = (flagged | border) != 0
+    if sweep.faces:
+        visit |= face_of != 0
+    parent[:n][visit] = -1
+    del visit
     marked = np.flatnonzero(parent[:n] == -1)
     order = marked[sorted_order(flat[marked])]
     del marked
     offsets = neighbour_offsets(source.ndim, sweep.corners)
     touches = np.zeros(n + 1, np.uint8)
-    kind = np.empty(n + 1, np.uint8)
-    young, old, voxel = (np.empty(n + 1, np.int64) for _ in range(3))
+    capacity = n + 1 + (int(np.unpackbits(face_of).sum()) if sweep.faces else 0)
+    kind = np.empty(capacity, np.uint8)
+    young, old, voxel = (np.empty(capacity, np.int64) for _ in range(3))
+    faces, told = (np.zeros(n + 1 if sweep.faces else 1, np.uint8) for _ in range(2))
+    crossing = np.full(3, -1, np.int64)
     written = kernel.reduce_chunk(flat, order, shape_of_chunk, offsets, flagged,
                                   border, 1 if sweep.with_outside else 0, sweep.ascending,
-                                  parent, touches, kind, young, old, voxel)
+                                  parent, touches, kind, young, old, voxel, face_of,
+                                  sweep.faces, faces, told, crossing)
+    del faces, told, face_of
     kind, young, old, voxel = kind[:written], young[:written], old[:written], voxel[:written]
     roots = np.flatnonzero(parent[:n] == np.arange(n))
     if sweep.with_outside:
@@ -259,11 +310,18 @@ def _reduce_leaf(source: _Grid, lo, hi, sweep: _Sweep):
     final = kind == kernel.FINAL_PAIR
     pairs = _Pairs(to_global(young[final]), value_of(young[final]), to_global(voxel[final]),
                    flat[voxel[final]].astype(np.float64))
-    kept = ~final
-    local_vertices = np.unique(np.concatenate([young[kept], old[kept], roots]))
+    if sweep.faces:
+        seen = crossing >= 0
+        pairs.crossing_id = np.where(seen, to_global(np.maximum(crossing, 0)), -1)
+        pairs.crossing_value = np.where(seen, value_of(np.maximum(crossing, 0)), np.nan)
+    kept = kind == kernel.KEPT_EDGE
+    gain = kind == kernel.FACE_GAIN
+    local_vertices = np.unique(np.concatenate([young[kept], old[kept], young[gain], roots]))
     block = _Block(tuple(lo), tuple(hi), to_global(local_vertices), value_of(local_vertices),
-                   to_global(young[kept]), to_global(old[kept]), to_global(voxel[kept]),
-                   flat[voxel[kept]].astype(np.float64))
+                   to_global(np.concatenate([young[kept], young[gain]])),
+                   np.concatenate([to_global(old[kept]), _face_edge_end(old[gain])]),
+                   to_global(np.concatenate([voxel[kept], voxel[gain]])),
+                   flat[np.concatenate([voxel[kept], voxel[gain]])].astype(np.float64))
     order_ids = np.argsort(block.vert_id)
     block.vert_id, block.vert_value = block.vert_id[order_ids], block.vert_value[order_ids]
     return pairs, block
@@ -359,7 +417,8 @@ def _merge(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
     vert_id, first = np.unique(vert_id, return_index=True)
     vert_value = vert_value[first]
     del first
-    pos_a, pos_b = np.searchsorted(vert_id, edge_a), np.searchsorted(vert_id, edge_b)
+    pos_a = np.searchsorted(vert_id, edge_a)
+    pos_b = np.where(edge_b < 0, edge_b, np.searchsorted(vert_id, edge_b))
     inside = vert_id < n_total
     flags = np.where(inside, _flags(lo, hi, shape3, np.unravel_index(
         np.where(inside, vert_id, 0), shape3)), 1).astype(np.uint8)
@@ -367,21 +426,34 @@ def _merge(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
     order = _sweep_order(edge_value, edge_voxel, sweep.ascending)
     m = len(vert_id)
     parent, touches = np.empty(m, np.int64), np.empty(m, np.uint8)
-    capacity = max(m, 1)
+    face_gains = pos_b < 0
+    gained_bits = int(np.unpackbits((-1 - pos_b[face_gains]).astype(np.uint8)).sum())
+    capacity = max(m, 1) + gained_bits
     kind = np.empty(capacity, np.uint8)
     young, old, edge = (np.empty(capacity, np.int64) for _ in range(3))
+    faces, told = (np.zeros(m if sweep.faces else 1, np.uint8) for _ in range(2))
+    crossing = np.full(3, -1, np.int64)
     written = kernel.reduce_graph(vert_value, vert_id, flags, outside, pos_a, pos_b,
                                   edge_value, order, sweep.ascending, parent, touches, kind,
-                                  young, old, edge)
+                                  young, old, edge, sweep.faces, faces, told, crossing)
+    del faces, told
     kind, young, old, edge = kind[:written], young[:written], old[:written], edge[:written]
     final = kind == kernel.FINAL_PAIR
     pairs = _Pairs(vert_id[young[final]], vert_value[young[final]], edge_voxel[edge[final]],
                    edge_value[edge[final]])
+    if sweep.faces:
+        seen = crossing >= 0
+        pairs.crossing_id = np.where(seen, edge_voxel[np.maximum(crossing, 0)], -1)
+        pairs.crossing_value = np.where(seen, edge_value[np.maximum(crossing, 0)], np.nan)
     roots = np.flatnonzero(parent == np.arange(m))
-    kept = ~final
-    keep = np.unique(np.concatenate([young[kept], old[kept], roots]))
-    block = _Block(lo, hi, vert_id[keep], vert_value[keep], vert_id[young[kept]],
-                   vert_id[old[kept]], edge_voxel[edge[kept]], edge_value[edge[kept]])
+    kept = kind == kernel.KEPT_EDGE
+    gain = kind == kernel.FACE_GAIN
+    keep = np.unique(np.concatenate([young[kept], old[kept], young[gain], roots]))
+    pick = np.concatenate([edge[kept], edge[gain]])
+    block = _Block(lo, hi, vert_id[keep], vert_value[keep],
+                   vert_id[np.concatenate([young[kept], young[gain]])],
+                   np.concatenate([vert_id[old[kept]], _face_edge_end(old[gain])]),
+                   edge_voxel[pick], edge_value[pick])
     return pairs, block
 
 
@@ -574,15 +646,19 @@ def _run_sweeps(jobs, scheduler) -> list:
     results = iter(dask.compute(*[task for finished, top in plans
                                   for task in (*finished, top)], **options))
     swept = []
-    for finished, _ in plans:
+    for (finished, _), (_, sweep) in zip(plans, jobs):
         parts = [next(results) for _ in finished]
         top = next(results)
         join = (lambda name, dtype, parts=parts:
                 np.concatenate([getattr(p, name) for p in parts]).astype(dtype)
                 if parts else np.zeros(0, dtype))
-        swept.append((_Pairs(join("young_id", np.int64), join("young_value", np.float64),
-                             join("voxel_id", np.int64), join("voxel_value", np.float64)),
-                      top))
+        pairs = _Pairs(join("young_id", np.int64), join("young_value", np.float64),
+                       join("voxel_id", np.int64), join("voxel_value", np.float64))
+        if sweep.faces:
+            pairs.crossing_id, pairs.crossing_value = _first_crossings(
+                np.array([p.crossing_id for p in parts]),
+                np.array([p.crossing_value for p in parts]), sweep.ascending)
+        swept.append((pairs, top))
     return swept
 
 
@@ -738,6 +814,40 @@ def chunked_persistence(array, *, superlevel: bool = False, neighbourhood=None,
                         spacing=spacing, unit=unit, scheduler=scheduler)[0]
 
 
+def chunked_persistence_and_crossings(array, *, crossing_axes, superlevel: bool = False,
+                                      neighbourhood=None, chunks=None,
+                                      min_persistence: float = 0.0, spacing=None, unit=None,
+                                      scheduler=None):
+    """The diagram and dual merges of :func:`chunked_persistence_and_border_merges`, and
+    where the first and last slices along each of ``crossing_axes`` first fall into one
+    component of the sweep, from the same run.
+
+    Each component follows the faces of the array it touches (two bits per axis, as the
+    in-memory percolation sweep does), through the chunks and every merge; an axis is
+    crossed at the first voxel, in sweep order, whose entry leaves one component holding
+    voxels of both of its end slices.
+
+    Returns
+    -------
+    diagram, merges, crossings
+        ``crossings``: axis -> (the voxel's index, its value), for each of
+        ``crossing_axes`` (every array is crossed by the end of its sweep).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> image = np.array([[0., 9., 1.], [2., 9., 3.], [4., 5., 6.]])
+    >>> _, _, crossings = chunked_persistence_and_crossings(
+    ...     image, crossing_axes=(0, 1), neighbourhood=4, chunks=(2, 2), scheduler="sync")
+    >>> crossings[0], crossings[1]
+    (((2, 0), 4.0), ((2, 2), 6.0))
+    """
+    return _persistence(array, superlevel=superlevel, neighbourhood=neighbourhood,
+                        chunks=chunks, min_persistence=min_persistence, dual=True,
+                        spacing=spacing, unit=unit, scheduler=scheduler,
+                        crossing_axes=tuple(crossing_axes))
+
+
 def chunked_persistence_and_border_merges(array, *, superlevel: bool = False,
                                           neighbourhood=None, chunks=None,
                                           min_persistence: float = 0.0, spacing=None,
@@ -759,12 +869,13 @@ def chunked_persistence_and_border_merges(array, *, superlevel: bool = False,
     """
     return _persistence(array, superlevel=superlevel, neighbourhood=neighbourhood,
                         chunks=chunks, min_persistence=min_persistence, dual=True,
-                        spacing=spacing, unit=unit, scheduler=scheduler)
+                        spacing=spacing, unit=unit, scheduler=scheduler)[:2]
 
 
 def _persistence(array, *, superlevel, neighbourhood, chunks, min_persistence, dual,
-                 spacing, unit, scheduler):
-    """:func:`chunked_persistence`, and the merges of its dual sweep (None without)."""
+                 spacing, unit, scheduler, crossing_axes=()):
+    """:func:`chunked_persistence`, the merges of its dual sweep (None without) and the
+    crossings of :func:`chunked_persistence_and_crossings` (empty without axes)."""
     from . import construction_of
 
     min_persistence = check_min_persistence(min_persistence)
@@ -783,11 +894,21 @@ def _persistence(array, *, superlevel, neighbourhood, chunks, min_persistence, d
     ascending = not superlevel
     forever = -np.inf if superlevel else np.inf
 
-    sweeps = [(source, _Sweep(ascending, construction == "voxel", False))]
+    if any(not 0 <= a < source.ndim for a in crossing_axes):
+        raise InputError(f"Crossing axes should be among 0..{source.ndim - 1}, got "
+                         f"{crossing_axes}.")
+    wanted = sum(3 << (2 * (a + 3 - source.ndim)) for a in set(crossing_axes))
+    sweeps = [(source, _Sweep(ascending, construction == "voxel", False, wanted))]
     if dual:
         sweeps.append((source, _Sweep(not ascending, construction == "vertex", True)))
     swept = _run_sweeps(sweeps, scheduler)
     low, top = swept[0]
+    crossings = {}
+    for a in crossing_axes:
+        voxel = int(low.crossing_id[a + 3 - source.ndim])
+        index = np.unravel_index(voxel, _pad3(source.shape, 1))[3 - source.ndim:]
+        crossings[a] = (tuple(int(i) for i in index),
+                        float(low.crossing_value[a + 3 - source.ndim]))
     if len(top.vert_id) == 0:
         raise InputError(f"{source.source} yielded no components.")
     eldest = top.vert_id[np.argmin(top.vert_value) if ascending else np.argmax(top.vert_value)]
@@ -819,4 +940,4 @@ def _persistence(array, *, superlevel, neighbourhood, chunks, min_persistence, d
     diagram = Diagram.from_raw(raw, scan, superlevel=superlevel, neighbourhood=neighbourhood,
                                field=2, periodic=(False,) * source.ndim,
                                min_persistence=min_persistence, notes=tuple(notes))
-    return diagram, high
+    return diagram, high, crossings

@@ -19,9 +19,10 @@ Everything is exact and equal to the in-memory result where both fit:
   (:mod:`voxtopo.porosity._chunked_edt`);
 * pores and grains from the chunked dimension-0 diagrams
   (:func:`voxtopo.engine.chunked.chunked_persistence`), voids from the dual sweep;
-* percolation along an axis as the level at which two extra slices, one before the first
-  slice and one after the last, both below every value, meet in the sublevel sweep: the
-  younger of them dies exactly where the inlet and outlet faces first connect;
+* percolation along an axis as the level at which one component of the pores' sublevel
+  sweep first holds voxels of both the inlet and the outlet face: each component follows
+  the faces it touches (two bits per axis) through the chunks and merges of that same
+  sweep, as the in-memory percolation sweep does;
 * a pore's basin reaches the border of the scan (or the rim of the sample) before its
   level exactly when, in the sweep with the border voxels joined to an eldest node
   (:func:`voxtopo.engine.chunked.chunked_merges`), the pore dies below that level; without
@@ -57,9 +58,7 @@ from ..engine import construction_of
 from ..engine.chunked import (
     BYTES_PER_CHUNK_VOXEL,
     chunked_merges,
-    chunked_merges_of_each,
-    chunked_persistence,
-    chunked_persistence_and_border_merges,
+    chunked_persistence_and_crossings,
     ensure_workers_fit,
     planned_merge_bytes,
     WORKER_BASELINE_BYTES,
@@ -138,40 +137,6 @@ class SweepField(_Box):
             return values
         phase = np.asarray(self.phase[index])
         return np.where(phase & 2, values, np.float32(self.outside))
-
-
-def end_slice_chunks(shape, chunks, axis: int) -> tuple:
-    """The chunks of a scan with two end slices more along ``axis``: as many along it as
-    the scan's, one voxel deeper, so that no chunk is two slices thin (such a chunk would
-    give the blocks of the merge tree an extra face of the scan's cross-section)."""
-    count = -(-shape[axis] // chunks[axis])
-    return tuple(-(-(n + 2) // count) if a == axis else c
-                 for a, (n, c) in enumerate(zip(shape, chunks)))
-
-
-class WithEndSlices(_Box):
-    """``array`` with one slice of ``value`` before the first and after the last slice
-    along ``axis`` (the inlet and outlet of a percolation sweep), in
-    :func:`end_slice_chunks`."""
-
-    def __init__(self, array, axis: int, value: float):
-        shape = list(array.shape)
-        shape[axis] += 2
-        super().__init__(shape, end_slice_chunks(array.shape, array.chunks, axis),
-                         array.dtype)
-        self.array, self.axis, self.value = array, axis, value
-
-    def __getitem__(self, index):
-        n = self.array.shape[self.axis]
-        part = index[self.axis]
-        start, stop = part.start, part.stop
-        inner = list(index)
-        inner[self.axis] = slice(max(start - 1, 0), min(stop - 1, n))
-        values = np.asarray(self.array[tuple(inner)])
-        before, after = int(start == 0), int(stop == n + 2)
-        pad = [(0, 0)] * len(self.shape)
-        pad[self.axis] = (before, after)
-        return np.pad(values, pad, constant_values=self.value)
 
 
 class Edge(_Box):
@@ -260,9 +225,6 @@ def plan_tasks(shape, chunks, transforms: int = 2) -> TaskPlan:
     line = max(int(np.prod(chunks)) // c * n for c, n in zip(chunks, shape))
     halo = int(np.prod([c + 2 * _local_counts.HALO for c in chunks]))
     merge = planned_merge_bytes(shape, chunks)
-    for axis in range(len(shape)):   # the percolation sweeps: two end slices more
-        padded = tuple(n + 2 * (a == axis) for a, n in enumerate(shape))
-        merge = max(merge, planned_merge_bytes(padded, end_slice_chunks(shape, chunks, axis)))
     return TaskPlan(distance_pass=line * _chunked_edt.BYTES_PER_PASS_VOXEL * transforms,
                     union_find=chunk * BYTES_PER_CHUNK_VOXEL, merge=merge,
                     local_counts=halo * BYTES_PER_COUNT_VOXEL)
@@ -567,20 +529,18 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
     solid_field = SweepField(distance, phase, None if roi is None else -outside_level)
     common = {"chunks": chunks, "spacing": spacing, "unit": unit, "scheduler": scheduler}
     edge = Edge(phase, roi is not None)
+    # percolation rides on the pores' sweep: an axis whose two faces hold sample voxels
+    crossed = [a for a in axes if all(faces_in_sample[a])]
     with worker_losses_told("the union-find sweeps"):
-        if roi is None:
-            # one field for both phases, and the edge is the scan's outer layer: the
-            # border sweep of the pores is the dual sweep of the grains, and back
-            diagram, solid_edge = chunked_persistence_and_border_merges(
-                pore_field, neighbourhood=n_pore, **common)
-            step("pores and grains", 0.5)
-            solid_diagram, pore_edge = chunked_persistence_and_border_merges(
-                solid_field, superlevel=True, neighbourhood=n_solid, **common)
-        else:
-            diagram = chunked_persistence(pore_field, neighbourhood=n_pore, **common)
-            step("pores and grains", 0.25)
-            solid_diagram = chunked_persistence(solid_field, superlevel=True,
-                                                neighbourhood=n_solid, **common)
+        # without a region of interest one field serves both phases and the edge is the
+        # scan's outer layer: the border sweep of the pores is the dual sweep of the
+        # grains, and back
+        diagram, solid_edge, crossings = chunked_persistence_and_crossings(
+            pore_field, crossing_axes=crossed, neighbourhood=n_pore, **common)
+        step("pores and grains", 0.5 if roi is None else 0.25)
+        solid_diagram, pore_edge, _ = chunked_persistence_and_crossings(
+            solid_field, crossing_axes=(), superlevel=True, neighbourhood=n_solid, **common)
+        if roi is not None:
             step("pores and grains", 0.5)
             pore_edge = chunked_merges(pore_field, neighbourhood=n_pore, chunks=chunks,
                                        edge=edge, scheduler=scheduler)
@@ -609,13 +569,9 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
     clock = time.perf_counter()
     names = AXES_3D[3 - ndim:]
     radius, critical, connected = {}, {}, {}
-    below_all = float(np.finfo(np.float32).min)
-    crossed = [a for a in axes if all(faces_in_sample[a])]
-    with worker_losses_told("the union-find sweeps"):
-        found = _percolation(pore_field, crossed, n_pore, spacing, below_all, scheduler)
     for a in axes:
         if a in crossed:
-            radius[names[a]], critical[names[a]] = found[a]
+            radius[names[a]], critical[names[a]] = _percolation(*crossings[a], spacing)
             through = pore_pieces.faces[:, a, 0] & pore_pieces.faces[:, a, 1]
             connected[names[a]] = float(pore_pieces.sizes[through].sum() / sample_voxels)
         else:
@@ -696,29 +652,13 @@ def _signed_chunk(phase, to_solid, to_pore, distance, lo, hi):
     return float(finite.max()) if finite.size else 0.0
 
 
-def _percolation(field, axes, neighbourhood, spacing, below_all, scheduler):
-    """{axis: (radius, critical voxel position)} along each of ``axes``: where the younger
-    of the two end slices dies in the sublevel sweep; (0.0, None) when the faces never
-    join in the pores. The sweeps of all axes run in one dask computation."""
-    padded = [WithEndSlices(field, axis, below_all) for axis in axes]
-    found = {}
-    every = chunked_merges_of_each(padded, neighbourhood=neighbourhood,
-                                   scheduler=scheduler) if axes else []
-    for axis, array, merges in zip(axes, padded, every):
-        shape3 = (1,) * (3 - field.ndim) + array.shape
-        outlet = [0, 0, 0]
-        outlet[3 - field.ndim + axis] = shape3[3 - field.ndim + axis] - 1
-        outlet_id = int(np.ravel_multi_index(outlet, shape3))
-        which = np.flatnonzero(merges.young_id == outlet_id)
-        if len(which) == 0 or merges.voxel_value[which[0]] >= 0:
-            found[axis] = 0.0, None
-            continue
-        level = float(merges.voxel_value[which[0]])
-        voxel = np.array(np.unravel_index(int(merges.voxel_id[which[0]]), shape3))
-        voxel = voxel[3 - field.ndim:]
-        voxel[axis] -= 1
-        found[axis] = -level, voxel.astype(np.float64) * np.asarray(spacing)
-    return found
+def _percolation(voxel, level, spacing):
+    """(radius, critical voxel position) of an axis whose faces first join in the pores'
+    sweep at ``voxel``, at ``level``; (0.0, None) when they join only outside the pores
+    (at a level of 0 or more)."""
+    if level >= 0:
+        return 0.0, None
+    return -level, np.asarray(voxel, np.float64) * np.asarray(spacing)
 
 
 def _feature_table(pairs: pd.DataFrame, edge_merges, flip: bool, min_persistence: float,
