@@ -17,7 +17,7 @@ from skimage.measure import euler_number
 from voxtopo.errors import InputError, TooBigError
 from voxtopo.jobs import pores as pores_job
 from voxtopo.porosity import analyse, analyse_chunked
-from voxtopo.porosity._chunked_edt import Feature, squared_distances
+from voxtopo.porosity._chunked_edt import Feature, signed_distance, squared_distances
 from voxtopo.porosity._out_of_core import compute_on
 
 
@@ -169,6 +169,25 @@ def test_chunked_edt_equals_scipy_on_random_masks_with_anisotropic_spacing(tmp_p
         expected = ndimage.distance_transform_edt(~feature, sampling=spacing)
         got = np.sqrt(stores[name][...].astype(np.float64))
         np.testing.assert_allclose(got, expected, rtol=2e-7, atol=1e-6)
+
+
+@pytest.mark.parametrize("shape, chunks, spacing", [((14, 19, 12), (5, 7, 4), (1.0, 0.7, 1.3)),
+                                                    ((27, 22), (8, 5), (0.6, 1.1))])
+def test_chunked_signed_distance_of_two_phases_equals_scipy(tmp_path, shape, chunks, spacing):
+    """Reference: scipy.ndimage.distance_transform_edt with ``sampling=``, of each phase:
+    -d in the pores, +d in the solid, d to the nearest voxel of the other phase."""
+    rng = np.random.default_rng(7)
+    pores = rng.random(shape) < 0.4
+    codes = np.where(pores, 3, 2).astype(np.uint8)
+    distance = zarr.create_array(str(tmp_path / "distance.zarr"), shape=shape, chunks=chunks,
+                                 dtype=np.float32, fill_value=0)
+    largest = signed_distance(codes, (3,), spacing, tmp_path / "edt", distance,
+                              chunks=chunks, compute=compute_on("sync", "a test"))
+    expected = np.where(pores, -ndimage.distance_transform_edt(pores, sampling=spacing),
+                        ndimage.distance_transform_edt(~pores, sampling=spacing))
+    np.testing.assert_allclose(distance[...], expected, rtol=2e-7, atol=1e-6)
+    assert largest == pytest.approx(np.abs(expected).max(), rel=1e-6)
+    assert list((tmp_path / "edt").iterdir()) == []   # each pass's store goes once read
 
 
 @pytest.mark.parametrize("neighbourhood", [26, 6])

@@ -15,6 +15,16 @@ whole along its own axis, from those chunks (the rechunking between passes)::
 A task only writes the block it read, and never into the store it reads, so a task that
 is run again after its worker died finds its input intact.
 
+Two phases that fill the scan between them (pores and solid, no region of interest) need
+one store, not two (:func:`signed_distance`): a voxel keeps only the transform it is not
+a feature of, since the other one is 0 there at every pass (as
+:func:`voxtopo.porosity._edt.signed_squared_distance` does in memory), and the last pass
+writes the signed distance itself::
+
+    pass z: [|||]  <- phase -> store A
+    pass y: [===]  <- A -> store B        (A removed)
+    pass x: [...]  <- B -> signed distance (B removed)
+
 The one-dimensional kernel is :func:`voxtopo.porosity._edt.squared_distance_pass`.
 """
 
@@ -54,6 +64,82 @@ def line_blocks(shape, chunks, axis: int):
 
 def _box(lo, hi):
     return tuple(slice(a, b) for a, b in zip(lo, hi))
+
+
+def _new_store(path: Path, shape, chunks):
+    """An empty float32 store of a pass (+inf until written), replacing any left there."""
+    import zarr
+
+    if path.exists():
+        shutil.rmtree(path)
+    return zarr.create_array(str(path), shape=shape, chunks=tuple(chunks), dtype=np.float32,
+                             fill_value=np.inf)
+
+
+def _two_phase_task(source, pore_codes, store_in, store_out, lo, hi, axis, step, last):
+    """One line block of one pass of :func:`signed_distance`; returns the largest finite
+    distance of the block on the last pass, else 0."""
+    from . import _edt
+
+    box = _box(lo, hi)
+    pores = np.isin(np.asarray(source[box]), pore_codes)
+    squared = (np.full(pores.shape, np.inf, np.float32) if store_in is None
+               else np.array(store_in[box], dtype=np.float32))
+    _edt.two_phase_pass(squared, pores, axis, step)
+    if not last:
+        store_out[box] = squared
+        return 0.0
+    distance = np.sqrt(squared, out=squared)
+    finite = distance[np.isfinite(distance)]
+    largest = float(finite.max()) if finite.size else 0.0
+    np.negative(distance, out=distance, where=pores)
+    store_out[box] = distance
+    return largest
+
+
+def signed_distance(source, pore_codes: tuple, spacing, folder: Path, distance, *, chunks,
+                    compute, progress=None) -> float:
+    """Write into ``distance`` the signed distance of a scan whose voxels are all pore or
+    solid: -d in the pores, +d in the solid, d to the nearest voxel of the other phase.
+
+    Parameters
+    ----------
+    source : array-like
+        Sliceable like a zarr array (the phase codes); a voxel is a pore when its code is
+        one of ``pore_codes``.
+    spacing, chunks, compute, progress :
+        As for :func:`squared_distances`.
+    folder : Path
+        Scratch folder for the passes' stores (removed once read).
+    distance : zarr array
+        float32, the shape of ``source``; a phase absent from the whole scan leaves
+        ``inf`` (or ``-inf``) everywhere.
+
+    Returns
+    -------
+    float
+        The largest finite distance.
+    """
+    import dask
+
+    shape = tuple(int(n) for n in source.shape)
+    ndim = len(shape)
+    folder.mkdir(parents=True, exist_ok=True)
+    task = dask.delayed(_two_phase_task, pure=False)
+    store_in, path_in, largest = None, None, 0.0
+    for axis in range(ndim):
+        last = axis == ndim - 1
+        path_out = None if last else folder / f"two-phase-{'ab'[axis % 2]}.zarr"
+        store_out = distance if last else _new_store(path_out, shape, chunks)
+        largest = max(compute([task(source, tuple(pore_codes), store_in, store_out, lo, hi,
+                                    axis, float(spacing[axis]), last)
+                               for lo, hi in line_blocks(shape, chunks, axis)]))
+        if path_in is not None:
+            shutil.rmtree(path_in)
+        if progress is not None:
+            progress("distance transform", (axis + 1) / ndim)
+        store_in, path_in = store_out, path_out
+    return largest
 
 
 def _pass_task(source, feature, stores_in, stores_out, lo, hi, axis, step):
@@ -100,7 +186,6 @@ def squared_distances(source, features: dict, spacing, folder: Path, *, chunks,
         absent from the whole array).
     """
     import dask
-    import zarr
 
     shape = tuple(int(n) for n in source.shape)
     ndim = len(shape)
@@ -110,13 +195,8 @@ def squared_distances(source, features: dict, spacing, folder: Path, *, chunks,
     stores_in = None
     for axis in range(ndim):
         label = "ab"[axis % 2]
-        stores_out = []
-        for name in names:
-            path = folder / f"{name}-{label}.zarr"
-            if path.exists():
-                shutil.rmtree(path)
-            stores_out.append(zarr.create_array(str(path), shape=shape, chunks=tuple(chunks),
-                                                dtype=np.float32, fill_value=np.inf))
+        stores_out = [_new_store(folder / f"{name}-{label}.zarr", shape, chunks)
+                      for name in names]
         tasks = [task(source if stores_in is None else None,
                       [features[n] for n in names], stores_in, stores_out, lo, hi, axis,
                       float(spacing[axis]))

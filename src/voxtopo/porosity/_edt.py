@@ -25,7 +25,7 @@ that each cache line read serves all of them.
 :func:`squared_distance_pass` is the pass on any block that is whole along its axis (the
 out-of-core path calls it on blocks), :func:`distance_to_nearest` the whole transform in
 memory, :func:`signed_squared_distance` both phases' transforms of a two-phase mask in one
-float32 array. :func:`lower_envelope_python` is the pass on one line, small enough to
+float32 array, and :func:`two_phase_pass` one pass of those on a block. :func:`lower_envelope_python` is the pass on one line, small enough to
 read; the tests run it beside the kernel.
 
 References
@@ -39,8 +39,8 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
-__all__ = ["squared_distance_pass", "distance_to_nearest", "signed_squared_distance",
-           "lower_envelope_python"]
+__all__ = ["squared_distance_pass", "two_phase_pass", "distance_to_nearest",
+           "signed_squared_distance", "lower_envelope_python"]
 
 #: Lines across a non-contiguous axis gathered together: 16 float32 fill a 64-byte
 #: cache line.
@@ -320,6 +320,50 @@ def _two_phase_along_middle(volume, phase, step2, width):
         for i in range(n):
             for c in range(lines):
                 volume[a, i, c0 + c] = f[c, i]
+
+
+def two_phase_pass(squared: np.ndarray, phase: np.ndarray, axis: int, step: float) -> None:
+    """In place: one pass along ``axis`` of both transforms of a two-phase block, held as
+    :func:`signed_squared_distance` holds them.
+
+    Parameters
+    ----------
+    squared : ndarray of float32, 1D to 3D
+        At a ``phase`` voxel the squared distance to the other phase found by the earlier
+        passes, at any other voxel the squared distance to ``phase`` (+inf everywhere
+        before the first pass); whole along ``axis``.
+    phase : ndarray of bool, same shape
+    axis : int
+    step : float
+        Voxel size along ``axis`` (> 0).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> line = np.full(6, np.inf, np.float32)
+    >>> two_phase_pass(line, np.array([0, 1, 1, 1, 0, 0], bool), 0, 1.0)
+    >>> line.tolist()
+    [1.0, 1.0, 4.0, 1.0, 1.0, 4.0]
+    """
+    if squared.dtype != np.float32 or squared.shape != phase.shape or phase.dtype != bool:
+        raise TypeError(f"squared must be float32 and phase bool of one shape, got "
+                        f"{squared.dtype} {squared.shape} and {phase.dtype} {phase.shape}.")
+    if not (np.isfinite(step) and step > 0):
+        raise ValueError(f"step must be a finite length > 0, got {step}.")
+    if squared.size == 0:
+        return
+    volume, axis3 = _as_3d(squared, axis % squared.ndim)
+    inside, _ = _as_3d(phase, 0)
+    step2 = float(step) ** 2
+    if axis3 == 2:
+        _two_phase_along_last(volume, inside, step2)
+        return
+    if axis3 == 0:
+        volume, inside = volume.swapaxes(0, 1), inside.swapaxes(0, 1)
+    if volume.shape[2] == 1:
+        _two_phase_along_last(volume.swapaxes(1, 2), inside.swapaxes(1, 2), step2)
+    else:
+        _two_phase_along_middle(volume, inside, step2, _LINES_PER_BLOCK)
 
 
 def signed_squared_distance(phase: np.ndarray, spacing=None) -> np.ndarray:

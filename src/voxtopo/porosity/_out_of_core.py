@@ -508,17 +508,26 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
 
     # ---- signed distance
     clock = time.perf_counter()
-    features = {"to_solid": _chunked_edt.Feature((SOLID,)),
-                "to_pore": _chunked_edt.Feature((PORE,))}
-    if roi is not None:
-        features["to_outside"] = _chunked_edt.Feature((OUTSIDE, OUTSIDE_PORE))
-    squared = _chunked_edt.squared_distances(phase, features, spacing, scratch / "edt",
-                                             chunks=chunks, compute=compute, progress=step)
     distance = zarr.create_array(str(scratch / "distance.zarr"), shape=shape, chunks=chunks,
                                  dtype=np.float32, fill_value=0)
-    signed_task = dask.delayed(_signed_chunk, pure=False)
-    largest = max(compute([signed_task(phase, squared["to_solid"], squared["to_pore"],
-                                       distance, lo, hi) for lo, hi in blocks(shape, chunks)]))
+    room = None
+    if roi is None:
+        # pores and solid fill the scan: both transforms in one store
+        largest = _chunked_edt.signed_distance(phase, (PORE,), spacing, scratch / "edt",
+                                               distance, chunks=chunks, compute=compute,
+                                               progress=step)
+    else:
+        features = {"to_solid": _chunked_edt.Feature((SOLID,)),
+                    "to_pore": _chunked_edt.Feature((PORE,)),
+                    "to_outside": _chunked_edt.Feature((OUTSIDE, OUTSIDE_PORE))}
+        squared = _chunked_edt.squared_distances(phase, features, spacing, scratch / "edt",
+                                                 chunks=chunks, compute=compute,
+                                                 progress=step)
+        signed_task = dask.delayed(_signed_chunk, pure=False)
+        largest = max(compute([signed_task(phase, squared["to_solid"], squared["to_pore"],
+                                           distance, lo, hi)
+                               for lo, hi in blocks(shape, chunks)]))
+        room = squared["to_outside"]
     timings["distance_transform"] = time.perf_counter() - clock
 
     # ---- sweeps
@@ -552,7 +561,6 @@ def analyse_chunked(array, *, scratch: Path, threshold=None, pores_bright: bool 
         solid_diagram = solid_diagram.without_outside(-outside_level)
     diagram = sig.robust_flags(diagram, delta)
     solid_diagram = sig.robust_flags(solid_diagram, delta)
-    room = squared.get("to_outside")
     pores = _feature_table(_rows_of_dimension(diagram, 0), pore_edge, False, min_persistence,
                            ("body", "throat"), shape, spacing, room)
     grains = _feature_table(_rows_of_dimension(solid_diagram, 0), solid_edge, True,
