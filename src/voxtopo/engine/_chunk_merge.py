@@ -35,12 +35,24 @@ FACE_GAIN = 2
 
 
 @njit(cache=True, inline="always")
-def _joined_faces(faces, wanted, crossing, at):
-    """Write ``at`` for each axis whose two faces ``faces`` holds first now."""
+def _gain_faces(root, at, faces, told, touches, wanted, crossing, out_kind, out_young,
+                out_old, out_at, written):
+    """After a step at ``at``: a FACE_GAIN record of the faces ``root``'s component
+    gained, if it reaches past its block (each face once), and ``at`` for each axis whose
+    two faces it holds first now. Returns the records written so far."""
+    gained = faces[root] & ~told[root]
+    if touches[root] and gained:
+        out_kind[written] = FACE_GAIN
+        out_young[written] = root
+        out_old[written] = gained
+        out_at[written] = at
+        written += 1
+        told[root] |= gained
     for a in range(3):
         both = 3 << (2 * a)
-        if crossing[a] < 0 and (wanted & both) == both and (faces & both) == both:
+        if crossing[a] < 0 and (wanted & both) == both and (faces[root] & both) == both:
             crossing[a] = at
+    return written
 
 
 @njit(cache=True, nogil=True)
@@ -140,15 +152,8 @@ def reduce_chunk(values, order, shape, offsets, flagged, on_border, with_outside
             if touches[young]:
                 touches[old] = 1
         if wanted:
-            gained = faces[root_v] & ~told[root_v]
-            if touches[root_v] and gained:
-                out_kind[written] = FACE_GAIN
-                out_young[written] = root_v
-                out_old[written] = gained
-                out_voxel[written] = v
-                written += 1
-                told[root_v] |= gained
-            _joined_faces(faces[root_v], wanted, crossing, v)
+            written = _gain_faces(root_v, v, faces, told, touches, wanted, crossing, out_kind,
+                                  out_young, out_old, out_voxel, written)
     return written
 
 
@@ -241,15 +246,8 @@ def reduce_graph(vert_value, vert_id, vert_flag, outside, edge_a, edge_b, edge_v
                 if touches[young]:
                     touches[old] = 1
         if wanted:
-            gained = faces[root] & ~told[root]
-            if touches[root] and gained:
-                out_kind[written] = FACE_GAIN
-                out_young[written] = root
-                out_old[written] = gained
-                out_edge[written] = e
-                written += 1
-                told[root] |= gained
-            _joined_faces(faces[root], wanted, crossing, e)
+            written = _gain_faces(root, e, faces, told, touches, wanted, crossing, out_kind,
+                                  out_young, out_old, out_edge, written)
     return written
 
 

@@ -139,6 +139,11 @@ def _as_3d(array: np.ndarray, axis: int) -> tuple[np.ndarray, int]:
     return array[(np.newaxis,) * missing], axis + missing
 
 
+def _check_step(step) -> None:
+    if not (np.isfinite(step) and step > 0):
+        raise ValueError(f"step must be a finite length > 0, got {step}.")
+
+
 def squared_distance_pass(squared: np.ndarray, axis: int, step: float) -> None:
     """In place: along ``axis``, ``squared[i] <- min_j (squared[j] + (step*(i-j))**2)``.
 
@@ -174,8 +179,7 @@ def squared_distance_pass(squared: np.ndarray, axis: int, step: float) -> None:
     if not -squared.ndim <= axis < squared.ndim:
         raise ValueError(f"axis must be in [0, {squared.ndim - 1}] for shape {squared.shape}, "
                          f"got {axis}.")
-    if not (np.isfinite(step) and step > 0):
-        raise ValueError(f"step must be a finite length > 0, got {step}.")
+    _check_step(step)
     if squared.size == 0:
         return
     axis = axis % squared.ndim
@@ -348,8 +352,7 @@ def two_phase_pass(squared: np.ndarray, phase: np.ndarray, axis: int, step: floa
     if squared.dtype != np.float32 or squared.shape != phase.shape or phase.dtype != bool:
         raise TypeError(f"squared must be float32 and phase bool of one shape, got "
                         f"{squared.dtype} {squared.shape} and {phase.dtype} {phase.shape}.")
-    if not (np.isfinite(step) and step > 0):
-        raise ValueError(f"step must be a finite length > 0, got {step}.")
+    _check_step(step)
     if squared.size == 0:
         return
     volume, axis3 = _as_3d(squared, axis % squared.ndim)
