@@ -22,10 +22,12 @@ of about 0.4 GB) beside each worker's measured peak resident memory (getrusage, 
 includes the interpreter and libraries); wall time; CPU time of the workers and
 of this process; the seconds of each stage; the machine's load average before and after.
 
-A 2048^3 run (8.6e9 voxels) needs, before zarr's compression, about 16 bytes per voxel of
-scratch at its peak (two float32 distance transforms, each in the stores of two passes:
-137 GB), beside the 8.6 GB input store, the 8.6 GB phase store and 34 GB of signed distance;
-give --folder on a disk with that much room.
+A 2048^3 run (8.6e9 voxels) needs, before zarr's compression, at most 9 bytes per voxel of
+scratch (77 GB: during the last pass of the distance transform, the float32 store of the
+pass before and the float32 signed distance it writes, beside the one-byte phase store),
+and the input store; zarr's default compression (zstd) takes the stores of a bead packing
+to a fraction of that (printed: the scratch folder's largest size, sampled every few
+seconds). Give --folder on a disk with room for it.
 """
 
 from __future__ import annotations
@@ -37,6 +39,7 @@ import resource
 import shutil
 import sys
 import tempfile
+import threading
 import time
 from pathlib import Path
 
@@ -95,6 +98,35 @@ def write_store(path: Path, size: int, chunk: int, spacing_um: float = 2.0) -> P
     return path
 
 
+def tree_bytes(folder: Path, skip: Path | None = None) -> int:
+    """Bytes of the files under ``folder``, less those under ``skip``."""
+    total = 0
+    for root, dirs, files in os.walk(folder):
+        dirs[:] = [d for d in dirs if Path(root, d) != skip]
+        for name in files:
+            try:
+                total += os.stat(os.path.join(root, name)).st_size
+            except FileNotFoundError:   # removed meanwhile
+                pass
+    return total
+
+
+class FolderPeak(threading.Thread):
+    """The largest size ``folder``, less the input store ``skip``, reaches while the run
+    lasts, sampled every ``every`` seconds (the scratch stores, the result and the
+    workers' own folders)."""
+
+    def __init__(self, folder: Path, skip: Path, every: float = 3.0):
+        super().__init__(daemon=True)
+        self.folder, self.skip, self.every = folder, skip, every
+        self.peak = 0
+        self.done = threading.Event()
+
+    def run(self):
+        while not self.done.wait(self.every):
+            self.peak = max(self.peak, tree_bytes(self.folder, self.skip))
+
+
 def _usage():
     """(peak resident bytes, CPU seconds) of the calling process."""
     usage = resource.getrusage(resource.RUSAGE_SELF)
@@ -143,10 +175,13 @@ def main(argv=None) -> int:
         with Client(cluster) as client:
             before = client.run(_usage)
             start_cpu = _usage()[1]
+            disk = FolderPeak(folder, store)
+            disk.start()
             clock = time.perf_counter()
             result = pores.pores_out_of_core(store, folder / "result", scheduler=client,
                                              scratch=folder)
             wall = time.perf_counter() - clock
+            disk.done.set()
             after = client.run(_usage)
     finally:
         cluster.close()
@@ -160,6 +195,9 @@ def main(argv=None) -> int:
               f"{human(planned)}, ratio {peak / planned:.2f})")
     print(f"this process: peak resident {human(_usage()[0])}")
     print("stages (s):", json.dumps(summary["timings_seconds"]))
+    print(f"disk: the folder less the input store peaked at {human(disk.peak)} (sampled "
+          f"every {disk.every:.0f} s); the input store: {human(tree_bytes(store))} "
+          f"({human(args.size ** 3)} before compression)")
     print(f"porosity {summary['porosity']:.4f}, pores {summary['counts']['pores']}, "
           f"percolates {summary['percolates']}")
     print(f"load average after: {os.getloadavg()}")
