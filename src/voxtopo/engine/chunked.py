@@ -20,6 +20,12 @@ volume; :func:`planned_merges` gives the most each merge can hold.
     merges:   [A+B]  [C+D]        one task each: plane pair at the shared face
     top:      [A+B+C+D]           every remaining merge is final; one essential class
 
+A sweep can also follow the faces of the image each component touches (two bits per axis,
+as the in-memory percolation sweep does): a component that reaches past its block hands
+on the faces it gains as edges to no vertex, so that each merge knows them, and the first
+voxel whose entry leaves one component on both faces of an axis is where the image is
+crossed along it (:func:`chunked_persistence_and_crossings`).
+
 The result equals the in-memory diagram of dimension 0 and, by the duality of image
 constructions (Garin, Heiss, Maggs, Bleile & Robins 2020), of dimension d-1: the same
 multiset of (birth, death) pairs, with locations that are voxels holding exactly those
@@ -106,7 +112,8 @@ class _Sweep:
 
 @dataclass
 class _Block:
-    """A block of chunks summarised by its reduced graph (global C-order voxel ids)."""
+    """A block of chunks summarised by its reduced graph (global C-order voxel ids); an
+    edge whose ``edge_b`` is negative is a face gain (:func:`_face_edge_end`)."""
 
     lo: tuple
     hi: tuple
@@ -130,8 +137,9 @@ class _Pairs:
     crossing_value: np.ndarray = None
 
 
-#: A FACE_GAIN edge joins its vertex to no vertex: its second end is -1 - the bits gained.
 def _face_edge_end(bits):
+    """The second end of a face-gain edge, which joins its vertex to no vertex: -1 - the
+    bits of the faces gained (a vertex is never negative)."""
     return -1 - np.asarray(bits, np.int64)
 
 

@@ -85,7 +85,10 @@ def join(parts: list[ChunkPieces], shape, full: bool) -> Pieces:
     ndim = len(shape)
     offsets = np.cumsum([0] + [p.count for p in parts])
     total = int(offsets[-1])
-    rows, cols = [], []
+    # each face's pairs of labels are made unique at once: a face holds up to nine pairs
+    # per voxel, but only as many distinct ones as pieces cross it, so the graph stays
+    # small whatever the scan's size
+    joined = []
     by_lo = {p.lo: (p, int(o)) for p, o in zip(parts, offsets[:-1])}
     shifts = [s for s in product((-1, 0, 1), repeat=ndim - 1) if full or not any(s)]
     for a in range(ndim):
@@ -102,6 +105,7 @@ def join(parts: list[ChunkPieces], shape, full: bool) -> Pieces:
                 elif p.lo[a] == position:
                     plane = p.planes[(a, "first")]
                     high[place] = np.where(plane > 0, plane + offset, 0)
+            keys = []
             for shift in shifts:
                 take_low, take_high = [], []
                 for s, n in zip(shift, low.shape):
@@ -110,10 +114,10 @@ def join(parts: list[ChunkPieces], shape, full: bool) -> Pieces:
                 u = low[tuple(take_low)].ravel()
                 v = high[tuple(take_high)].ravel()
                 both = (u > 0) & (v > 0)
-                rows.append(u[both] - 1)
-                cols.append(v[both] - 1)
-    rows = np.concatenate(rows) if rows else np.zeros(0, np.int64)
-    cols = np.concatenate(cols) if cols else np.zeros(0, np.int64)
+                keys.append(np.unique((u[both] - 1) * total + (v[both] - 1)))
+            joined.append(np.unique(np.concatenate(keys)))
+    joined = np.unique(np.concatenate(joined)) if joined else np.zeros(0, np.int64)
+    rows, cols = np.divmod(joined, max(total, 1))
     graph = coo_matrix((np.ones(len(rows), np.int8), (rows, cols)), shape=(total, total))
     n_pieces, piece = connected_components(graph, directed=False)
     sizes = np.zeros(n_pieces, np.int64)
