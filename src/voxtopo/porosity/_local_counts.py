@@ -149,8 +149,5 @@ def interface_terms(soft: np.ndarray, origin, lo, hi, shape, spacing,
         faces, centre = faces[keep], centre[keep]
     cube = np.floor(centre).astype(np.int64)
     owned = np.all((cube >= np.asarray(lo)) & (cube < np.asarray(owned_hi)), axis=1)
-    area = _minkowski.surface_area(vertices, faces[owned])
-    face_a, face_b, term = _minkowski.edge_curvature_terms(vertices, faces)
-    curvature = float(np.sum(0.5 * term * (owned[face_a].astype(np.float64)
-                                           + owned[face_b])))
-    return area, curvature
+    area, curvature = _minkowski.owned_terms(vertices.astype(np.float64), faces, owned)
+    return float(area), float(curvature)

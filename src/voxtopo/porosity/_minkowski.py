@@ -25,7 +25,7 @@ SLAB_VOXELS = 1 << 23
 
 #: bytes of mesh and curvature tables per voxel of a slab, an upper bound: 78 measured on
 #: 256 x 256 x 34 of a bead packing with an earlier kernel that paired edges in a hash
-#: table; the edge lists of :func:`_slab_kernel` need about a quarter less (growth of the
+#: table; the edge lists of :func:`owned_terms` need about a quarter less (growth of the
 #: peak resident memory on that slab: 40 bytes per voxel against 54). They follow the
 #: interface's area, which a finer structure raises.
 MESH_BYTES_PER_VOXEL = 80
@@ -74,7 +74,7 @@ def integral_mean_curvature(vertices: np.ndarray, faces: np.ndarray) -> float:
 
     The sign is taken from the faces' own orientation: with normals pointing out of the
     pore phase, an edge where the surface bends away from the normal side is convex (+).
-    The twin of the slab kernel :func:`_slab_kernel`, vectorised and easy to read.
+    The twin of the kernel :func:`owned_terms`, vectorised and easy to read.
     """
     return float(np.sum(edge_curvature_terms(vertices, faces)[2]))
 
@@ -152,8 +152,9 @@ def interface_measures(mask: np.ndarray, spacing, smoothing: float,
     The mask is smoothed with a Gaussian of ``smoothing`` voxels (mode "nearest"), each
     slab with a halo as wide as the filter's reach, so the values are the same as the
     whole volume's; each slab is meshed with one more cell on each side, and counts the
-    triangles whose centroid and the edges whose midpoint lie in its own cells, so every
-    triangle and every interior edge (with both of its triangles) counts once. With
+    triangles whose centroid lies in its own cells and, of each interior edge, half for
+    each of its two triangles it counts (:func:`owned_terms`), so every triangle and every
+    interior edge counts once. With
     ``sample`` only the triangles whose centroid lies in a sample voxel count. ``stop`` (a
     threading.Event), once set, ends the work before the next slab with Cancelled: the
     analysis it was part of has stopped.
@@ -178,25 +179,44 @@ def interface_measures(mask: np.ndarray, spacing, smoothing: float,
         if sample is not None:
             shifted = vertices + np.array([low * spacing[0], 0.0, 0.0])
             faces = faces_in_sample(shifted, faces, sample, spacing)
-        slab_area, slab_curvature = _slab_kernel(vertices.astype(np.float64), faces,
-                                                 first - low, last - low, spacing[0])
+        vertices = vertices.astype(np.float64)
+        owned = faces_in_cells(vertices, faces, first - low, last - low, spacing[0])
+        slab_area, slab_curvature = owned_terms(vertices, faces, owned)
         area += slab_area
         curvature += slab_curvature
     return area, curvature
 
 
 @njit(cache=True, nogil=True)
-def _slab_kernel(vertices, faces, first_cell, stop_cell, step):
-    """(area, integral mean curvature) of the part of a slab's mesh that is the slab's own:
-    the triangles whose centroid and the interior edges whose midpoint lie in the cells
-    ``first_cell`` to ``stop_cell`` (exclusive) along z (voxel size ``step``; cell k lies
-    between voxel planes k and k + 1 of the slab, and a point on plane k belongs to cell
-    k: the small margin keeps it there despite the rounding of ``(i + t) * step / step``).
-    The area is :func:`surface_area`'s, the curvature
-    :func:`integral_mean_curvature`'s (its vectorised twin). The edges are listed under
-    their lower vertex (a counting sort), where an interior edge's two faces meet: the
-    lists are short and follow the mesh's own order, so the pass stays in cache. Assumes a
-    manifold, consistently wound mesh (marching cubes: at most two faces per edge)."""
+def faces_in_cells(vertices, faces, first_cell, stop_cell, step):
+    """The faces of a slab's mesh whose centroid lies in the cells ``first_cell`` to
+    ``stop_cell`` (exclusive) along z (voxel size ``step``; cell k lies between voxel
+    planes k and k + 1 of the slab, and a point on plane k belongs to cell k: the small
+    margin keeps it there despite the rounding of ``(i + t) * step / step``)."""
+    owned = np.zeros(faces.shape[0], np.bool_)
+    for f in range(faces.shape[0]):
+        centroid = (vertices[faces[f, 0], 0] + vertices[faces[f, 1], 0]
+                    + vertices[faces[f, 2], 0]) / 3.0
+        cell = np.int64(np.floor(centroid / step + 1e-6))
+        owned[f] = first_cell <= cell < stop_cell
+    return owned
+
+
+@njit(cache=True, nogil=True)
+def owned_terms(vertices, faces, owned):
+    """(area, integral mean curvature) of the part of a mesh that is a block's own.
+
+    The area is that of the ``owned`` faces (:func:`surface_area`'s); each interior edge
+    gives half its term ``length * dihedral angle / 2`` (:func:`edge_curvature_terms`, the
+    vectorised twin) for each of its two faces that is owned. Blocks that own every face
+    once, and mesh one more cell around the faces they own so that their edges are
+    interior, thus count each edge's whole term once.
+
+    The edges are listed under their lower vertex (a counting sort), where an interior
+    edge's two faces meet: the lists are short and follow the mesh's own order, so the
+    pass stays in cache. Assumes a manifold, consistently wound mesh (marching cubes: at
+    most two faces per edge). ``vertices`` are float64.
+    """
     n_faces = faces.shape[0]
     n_vertices = vertices.shape[0]
     normals = np.zeros((n_faces, 3))
@@ -209,9 +229,7 @@ def _slab_kernel(vertices, faces, first_cell, stop_cell, step):
                       vertices[c, 2] - vertices[a, 2])
         n0, n1, n2 = u1 * w2 - u2 * w1, u2 * w0 - u0 * w2, u0 * w1 - u1 * w0
         length = np.sqrt(n0 * n0 + n1 * n1 + n2 * n2)
-        centroid = (vertices[a, 0] + vertices[b, 0] + vertices[c, 0]) / 3.0
-        cell = np.int64(np.floor(centroid / step + 1e-6))
-        if first_cell <= cell < stop_cell:
+        if owned[f]:
             area += 0.5 * length
         scale = 1.0 / length if length > 0 else 1.0
         normals[f, 0], normals[f, 1], normals[f, 2] = n0 * scale, n1 * scale, n2 * scale
@@ -245,9 +263,8 @@ def _slab_kernel(vertices, faces, first_cell, stop_cell, step):
                 face_i = owner[i] if owner[i] >= 0 else -owner[i] - 1
                 face_j = owner[j] if owner[j] >= 0 else -owner[j] - 1
                 fa, fb = (face_i, face_j) if owner[i] >= 0 else (face_j, face_i)
-                middle = 0.5 * (vertices[low, 0] + vertices[high, 0])
-                cell = np.int64(np.floor(middle / step + 1e-6))
-                if cell < first_cell or cell >= stop_cell:
+                share = 0.5 * (np.float64(owned[fa]) + np.float64(owned[fb]))
+                if share == 0.0:
                     break
                 e0, e1, e2 = (vertices[high, 0] - vertices[low, 0],
                               vertices[high, 1] - vertices[low, 1],
@@ -260,6 +277,6 @@ def _slab_kernel(vertices, faces, first_cell, stop_cell, step):
                 sine = ((a1 * b2 - a2 * b1) * e0 + (a2 * b0 - a0 * b2) * e1
                         + (a0 * b1 - a1 * b0) * e2)
                 cosine = a0 * b0 + a1 * b1 + a2 * b2
-                total += edge_length * np.arctan2(sine, cosine)
+                total += share * edge_length * np.arctan2(sine, cosine)
                 break
     return area, 0.5 * total
