@@ -80,7 +80,7 @@ def time_batch(manifest: Path, out: Path, workers: int) -> tuple[float, float, f
     from voxtopo import batch
 
     start = time.perf_counter()
-    with dask.config.set(batch._WORKER_CONFIG):
+    with dask.config.set(batch.WORKER_CONFIG):
         cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
                                host="127.0.0.1", dashboard_address=None, silence_logs=40,
                                memory_limit="6GiB")

@@ -11,8 +11,9 @@ and nothing large is made before the run. The store, the result folder and the s
 folder all go inside --folder (default a new temporary folder, removed at the end unless
 --keep).
 
-The run: a local dask cluster of --workers processes (one thread each, --memory-per-worker
-bytes each, default an equal share of 80 % of the available memory), the whole out-of-core
+The run: a local dask cluster of --workers processes set up as a local out-of-core run's
+(voxtopo.batch.cluster.local_cluster: one thread each, --memory-per-worker bytes each,
+default an equal share of 80 % of the available memory), the whole out-of-core
 pores job (segmentation, separable EDT, chunked union-find sweeps, percolation along the
 three axes, local counts, result folder).
 
@@ -146,8 +147,8 @@ def main(argv=None) -> int:
     args = parser.parse_args(argv)
 
     import dask
-    from distributed import Client, LocalCluster
 
+    from voxtopo.batch.cluster import local_cluster
     from voxtopo.jobs import pores
     from voxtopo.memory import available_bytes, human
     from voxtopo.porosity._out_of_core import plan_tasks
@@ -167,12 +168,12 @@ def main(argv=None) -> int:
           f"{plan.largest_task} + the worker's baseline; the tasks: "
           + ", ".join(f"{what} {human(size)}" for size, what in plan.tasks())
           + f"; worker memory limit {human(share)}")
+    # the workers a local out-of-core run starts (voxtopo.jobs.pores.dask_scheduler)
     with dask.config.set({"distributed.worker.daemon": False}):
-        cluster = LocalCluster(n_workers=args.workers, threads_per_worker=1, processes=True,
-                               memory_limit=share, dashboard_address=None,
-                               local_directory=str(folder), silence_logs=40)
+        client, cluster = local_cluster(args.workers, share, folder / "dask-scratch",
+                                        dashboard=False)
     try:
-        with Client(cluster) as client:
+        with client:
             before = client.run(_usage)
             start_cpu = _usage()[1]
             disk = FolderPeak(folder, store)

@@ -12,7 +12,7 @@ def cluster_address():
 
     from voxtopo import batch
 
-    with dask.config.set(batch._WORKER_CONFIG):
+    with dask.config.set(batch.WORKER_CONFIG):
         cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                host="127.0.0.1", dashboard_address=None,
                                memory_limit="3GiB", silence_logs=40)

@@ -316,3 +316,24 @@ def test_each_scan_is_planned_with_its_job_s_own_plan():
     # workers fit in 80 % of 22 GB
     count, limit = batch.plan_workers([pores], available=22 * 10**9, cores=2)
     assert count == 2 and limit >= 2.8e9
+
+
+def test_local_cluster_workers_take_one_numba_thread_and_keep_glibc_s_memory_reuse(tmp_path):
+    # The settings a local cluster's workers start with (batch runs and local out-of-core
+    # runs alike). glibc's mallopt(3) manual: setting M_TRIM_THRESHOLD (the environment
+    # variable MALLOC_TRIM_THRESHOLD_) turns off the dynamic mmap threshold, so freed
+    # large blocks are no longer reused (from memory); numba's documentation of
+    # NUMBA_NUM_THREADS: the threads its parallel loops use (from memory).
+    import os
+
+    client, cluster = batch.local_cluster(1, 2_000_000_000, tmp_path / "scratch",
+                                          dashboard=False)
+    try:
+        def settings():
+            import numba
+            return os.environ.get("MALLOC_TRIM_THRESHOLD_"), numba.config.NUMBA_NUM_THREADS
+
+        assert list(client.run(settings).values()) == [(None, 1)]
+    finally:
+        client.close()
+        cluster.close()

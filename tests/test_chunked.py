@@ -192,6 +192,37 @@ def test_dimension_zero_counts_components_like_scipy_label():
         assert diagram.betti(level)[0] == ndimage.label(image <= level, structure)[1]
 
 
+@pytest.mark.parametrize("ascending", [True, False])
+def test_sorted_runs_are_merged_into_numpy_s_sweep_order(ascending):
+    # Reference: numpy.lexsort (a stable sort by value, then by id), reversed for a
+    # descending sweep, of all the edges at once; few distinct values and ids, so that
+    # many keys tie within a run and across runs.
+    rng = np.random.default_rng(5)
+    for sizes in [(0, 7, 3), (12, 0, 0), (40, 33, 9), (1, 1, 1)]:
+        runs = []
+        for size in sizes:
+            values = rng.integers(0, 4, size).astype(np.float64)
+            ids = rng.integers(0, 6, size).astype(np.int64)
+            order = np.lexsort((ids, values))
+            runs.append((values, ids) if size == 0 else
+                        (values[order], ids[order]) if ascending else
+                        (values[order[::-1]], ids[order[::-1]]))
+        values = np.concatenate([r[0] for r in runs])
+        ids = np.concatenate([r[1] for r in runs])
+        bounds = np.cumsum([0, *sizes]).astype(np.int64)
+        merged = _chunk_merge.merged_runs(values, ids, bounds, ascending)
+        expected = np.lexsort((ids, values))
+        if not ascending:
+            expected = expected[::-1]
+        assert np.array_equal(values[merged], values[expected])
+        assert np.array_equal(ids[merged], ids[expected])
+        assert np.array_equal(np.sort(merged), np.arange(values.size))
+    # a run out of sweep order is told: the caller then sorts everything
+    values = np.array([2.0, 1.0, 3.0]) if ascending else np.array([1.0, 2.0, 0.0])
+    assert _chunk_merge.merged_runs(values, np.zeros(3, np.int64),
+                                    np.array([0, 2, 3], np.int64), ascending).size == 0
+
+
 def test_uint8_store_with_one_chunk_equals_many_chunks(tmp_path):
     image = (_texture((30, 30), 2.0, seed=4) * 40 + 128).clip(0, 255).astype(np.uint8)
     one = chunked_persistence(open_chunked(_store(tmp_path, image, (30, 30), "one.zarr")),

@@ -317,7 +317,7 @@ def test_a_batch_without_workers_stops_with_one_sentence_and_resumes(tmp_path):
     settings_file = tmp_path / "settings.toml"
     settings_file.write_text("[batch]\nworker_timeout = 2\n[analyse]\nmin_persistence = 0\n")
     out = tmp_path / "out"
-    with dask.config.set(batch._WORKER_CONFIG):
+    with dask.config.set(batch.WORKER_CONFIG):
         cluster = LocalCluster(n_workers=0, processes=True, host="127.0.0.1",
                                dashboard_address="127.0.0.1:0", silence_logs=40)
     try:

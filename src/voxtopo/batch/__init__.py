@@ -110,10 +110,10 @@ import pandas as pd
 
 from ..errors import InputError
 from ..io.results import is_complete, is_voxtopo_folder
-# _WORKER_CONFIG and _key_numbers are here for the tests and benchmarks, which start
+# WORKER_CONFIG and _key_numbers are here for the tests and benchmarks, which start
 # their clusters the way a batch does and check how the summary names a scan's counts
-from .cluster import (_SCRATCH, _WORKER_CONFIG, WORKER_TIMEOUT, WorkersLost,  # noqa: F401
-                      _connect, _local_cluster, _submit_all)
+from .cluster import (_SCRATCH, WORKER_CONFIG, WORKER_TIMEOUT, WorkersLost,  # noqa: F401
+                      connect, local_cluster, _submit_all)
 from .manifest import FILE_COLUMNS, ScanEntry, _write_manifest, read_manifest
 from .plan import (_check_out, _clear_half_made, _job_of, _load_options, _make_out, _peek,
                    plan_workers, scan_bytes)
@@ -192,7 +192,7 @@ def run_batch(manifest, out, *, settings_path=None, scheduler=None, workers=None
         needs, workers=workers or settings.batch.get("workers"),
         memory_per_worker=_bytes_or_none(settings.batch.get("memory_per_worker")))
     # a scheduler that cannot be reached must leave no folder behind
-    client = _connect(scheduler) if scheduler else None
+    client = connect(scheduler) if scheduler else None
     cluster = None
     records = {}
     try:
@@ -211,7 +211,7 @@ def run_batch(manifest, out, *, settings_path=None, scheduler=None, workers=None
                      f"{len(todo)} to run\n")
         if todo:
             if client is None:
-                client, cluster = _local_cluster(count, limit, out / _SCRATCH)
+                client, cluster = local_cluster(count, limit, out / _SCRATCH)
                 stream.write(f"voxtopo batch: local cluster of {count} worker(s), "
                              f"{human(limit)} each\n")
             stream.write(f"voxtopo batch: dashboard at {client.dashboard_link}\n")

@@ -11,7 +11,7 @@ from ..engine.own import THREADS_VARIABLE
 from ..errors import InputError, VoxtopoError
 from .settings import Settings, job_options
 
-__all__ = ["WorkersLost", "WORKER_TIMEOUT"]
+__all__ = ["WorkersLost", "WORKER_TIMEOUT", "WORKER_CONFIG", "connect", "local_cluster"]
 
 #: Seconds a batch waits with no dask worker connected before it stops (keeping what
 #: finished); ``[batch] worker_timeout`` changes it.
@@ -24,7 +24,7 @@ _SCRATCH = ".dask-scratch"
 #: cannot spill, and a paused worker would hold its scan forever, so there is no spilling
 #: and no pausing: a worker that passes 95 % of its limit is restarted and its scan is
 #: recorded as failed (retried once, in case another task was the one that grew).
-_WORKER_CONFIG = {
+WORKER_CONFIG = {
     "distributed.worker.memory.target": False,
     "distributed.worker.memory.spill": False,
     "distributed.worker.memory.pause": False,
@@ -39,6 +39,11 @@ _WORKER_CONFIG = {
     # (measured: 16 scans of 128^3 took 6.6 % longer with it). A worker keeps, at most,
     # the memory of its largest scan for the next one.
     "distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None,
+    # numba's parallel loops (the distance transform's lines) take one thread per core
+    # by default: in a worker of one thread beside others that is only contention
+    # (measured: the distance transform of a 512^3 out-of-core run took 28 s on two such
+    # workers, 15 s in one process)
+    "distributed.nanny.pre-spawn-environ.NUMBA_NUM_THREADS": 1,
 }
 
 
@@ -46,7 +51,8 @@ class WorkersLost(VoxtopoError):
     """No dask worker was connected for longer than the batch's worker timeout."""
 
 
-def _connect(scheduler):
+def connect(scheduler):
+    """A client of the dask scheduler at the address ``scheduler``, or one sentence."""
     from distributed import Client
 
     try:
@@ -57,17 +63,19 @@ def _connect(scheduler):
                          f"out --scheduler to use a local cluster.") from None
 
 
-def _local_cluster(workers, limit, scratch: Path):
-    """A local cluster whose workers keep their scratch files in ``scratch``."""
+def local_cluster(workers: int, limit: int, scratch: Path, dashboard: bool = True):
+    """A local cluster of ``workers`` one-thread worker processes of ``limit`` bytes each,
+    set up as :data:`WORKER_CONFIG` says, keeping their scratch files in ``scratch``;
+    returns (client, cluster). The batch runner and out-of-core jobs both use it."""
     import dask
     from distributed import Client, LocalCluster
 
     scratch.mkdir(exist_ok=True)
-    with dask.config.set({**_WORKER_CONFIG, "temporary-directory": str(scratch)}):
+    with dask.config.set({**WORKER_CONFIG, "temporary-directory": str(scratch)}):
         cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
                                memory_limit=limit, host="127.0.0.1",
-                               dashboard_address="127.0.0.1:0", silence_logs=40,
-                               local_directory=str(scratch))
+                               dashboard_address="127.0.0.1:0" if dashboard else None,
+                               silence_logs=40, local_directory=str(scratch))
     return Client(cluster), cluster
 
 

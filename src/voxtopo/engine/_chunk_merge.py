@@ -190,6 +190,52 @@ def joining_edges(edge_a, edge_b, edge_order, vertices):
     return joins
 
 
+@njit(cache=True, nogil=True, inline="always")
+def _edge_before(values, ids, e, f, ascending):
+    """True when edge ``e`` is visited strictly before edge ``f``."""
+    if ascending:
+        return values[e] < values[f] or (values[e] == values[f] and ids[e] < ids[f])
+    return values[e] > values[f] or (values[e] == values[f] and ids[e] > ids[f])
+
+
+@njit(cache=True, nogil=True)
+def merged_runs(values, ids, bounds, ascending):
+    """The sweep order of edges listed as runs ``bounds[k]:bounds[k + 1]`` that are each
+    in sweep order (by value, ties by voxel id): the runs merged one after the other,
+    edges of equal keys in the order they are listed, as a stable sort of all would give.
+
+    Returns an empty array when a run is not in sweep order (then sort them all).
+    """
+    n = values.size
+    for k in range(bounds.size - 1):
+        for e in range(bounds[k] + 1, bounds[k + 1]):
+            if _edge_before(values, ids, e, e - 1, ascending):
+                return np.empty(0, np.int64)
+    order = np.arange(n)
+    spare = np.empty(n, np.int64)
+    for k in range(1, bounds.size - 1):
+        # merge order[0:bounds[k]] (already merged) with the run bounds[k]:bounds[k + 1]
+        i, j, out = 0, bounds[k], 0
+        while i < bounds[k] and j < bounds[k + 1]:
+            if _edge_before(values, ids, j, order[i], ascending):
+                spare[out] = j
+                j += 1
+            else:
+                spare[out] = order[i]
+                i += 1
+            out += 1
+        while i < bounds[k]:
+            spare[out] = order[i]
+            i += 1
+            out += 1
+        while j < bounds[k + 1]:
+            spare[out] = j
+            j += 1
+            out += 1
+        order[:out] = spare[:out]
+    return order
+
+
 @njit(cache=True, nogil=True)
 def reduce_graph(vert_value, vert_id, vert_flag, outside, edge_a, edge_b, edge_value,
                  edge_order, ascending, parent, touches, out_kind, out_young, out_old,

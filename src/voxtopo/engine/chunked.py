@@ -69,29 +69,34 @@ CROSS_STRIP_EDGES = 1 << 20
 BYTES_PER_CHUNK_VOXEL = 8 * 8 + 4
 
 #: Bytes a merge task holds per vertex of its two blocks' reduced graphs: the blocks'
-#: ids and values (16), the unique sort of their joined ids (about 56), the flags of the
-#: merged box (3), the union-find forest and record buffers (34), the roots and vertices
-#: it keeps (24) and the block it hands on (16).
-BYTES_PER_MERGE_VERTEX = 16 + 56 + 3 + 34 + 24 + 16
+#: ids and values (16), their joined copy, its stable sort's order, the sorted copy and
+#: the first-copy mask (41), the flags of the merged box (3), the union-find forest and
+#: record buffers (34), the mark of the vertices it keeps, their places and the roots
+#: (17) and the block it hands on (16).
+BYTES_PER_MERGE_VERTEX = 16 + 41 + 3 + 34 + 17 + 16
 
 #: Bytes a merge task holds per edge of its blocks' graphs: the blocks' columns (ends,
 #: voxel, value: 32), their joined copy (32), both ends' positions (16) and the sweep
-#: order with its reversed copy (16).
+#: order with its spare buffer (16).
 BYTES_PER_MERGE_EDGE = 32 + 32 + 16 + 16
 
 #: Bytes per edge across the shared face that is kept (a spanning forest of each strip
 #: of the face's rows): the strips' kept columns and their joined copy (64), then the
-#: merge's joined columns (32), both ends' positions (16) and the sweep order with its
-#: reversed copy (16); the strips' columns are let go before the merge's are made.
-BYTES_PER_CROSSING_EDGE = 64
+#: joined copy put in sweep order (its order and the sorted columns beside it: 72), then
+#: the merge's joined columns (32), both ends' positions (16) and the sweep order with
+#: its spare buffer (16); the strips' columns are let go before the merge's are made.
+BYTES_PER_CROSSING_EDGE = 72
 
 #: Bytes per edge of the strip whose spanning forest is being found: its columns from
-#: each offset (32) and joined (32), both ends as one array and its unique sort (48),
-#: the sweep order with its reversed copy (16), the found flags (1) and the side masks (3).
-BYTES_PER_STRIP_EDGE = 32 + 32 + 48 + 16 + 1 + 3
+#: each offset (32) and joined (32), both ends' places on the face with their shifted
+#: copies (32), the sweep order with its reversed copy (16), the found flags (1) and the
+#: side masks (3); the union-find forest over the places is at most 16 more, as a strip
+#: has at least one edge for every two of its places.
+BYTES_PER_STRIP_EDGE = 32 + 32 + 32 + 16 + 16 + 1 + 3
 
-#: Bytes per voxel of the shared face: the two planes' values (float64) and ids (int64).
-BYTES_PER_FACE_VOXEL = 2 * (8 + 8)
+#: Bytes per voxel of the shared face: the two planes' values (float64) and ids (int64),
+#: and the voxels' places on the face (int64).
+BYTES_PER_FACE_VOXEL = 2 * (8 + 8) + 8
 
 #: A block's reduced graph has one vertex per flagged voxel of its box and, beyond them,
 #: the first voxels of the basins inside the box that reach a flagged voxel, its root and
@@ -322,17 +327,40 @@ def _reduce_leaf(source: _Grid, lo, hi, sweep: _Sweep):
         seen = crossing >= 0
         pairs.crossing_id = np.where(seen, to_global(np.maximum(crossing, 0)), -1)
         pairs.crossing_value = np.where(seen, value_of(np.maximum(crossing, 0)), np.nan)
-    kept = kind == kernel.KEPT_EDGE
-    gain = kind == kernel.FACE_GAIN
-    local_vertices = np.unique(np.concatenate([young[kept], old[kept], young[gain], roots]))
+    # the edges handed on, in the order they were written: the sweep order
+    carried = (kind == kernel.KEPT_EDGE) | (kind == kernel.FACE_GAIN)
+    gain = kind[carried] == kernel.FACE_GAIN
+    young, old, voxel = young[carried], old[carried], voxel[carried]
+    # sorted local ids give sorted global ids: within a box, C order is the same on both
+    # grids, and the outside node is last on both
+    local_vertices = _marked(n + 1, young, old[~gain], roots)
     block = _Block(tuple(lo), tuple(hi), to_global(local_vertices), value_of(local_vertices),
-                   to_global(np.concatenate([young[kept], young[gain]])),
-                   np.concatenate([to_global(old[kept]), _face_edge_end(old[gain])]),
-                   to_global(np.concatenate([voxel[kept], voxel[gain]])),
-                   flat[np.concatenate([voxel[kept], voxel[gain]])].astype(np.float64))
-    order_ids = np.argsort(block.vert_id)
-    block.vert_id, block.vert_value = block.vert_id[order_ids], block.vert_value[order_ids]
+                   to_global(young),
+                   np.where(gain, _face_edge_end(old), to_global(np.where(gain, 0, old))),
+                   to_global(voxel), flat[voxel].astype(np.float64))
     return pairs, block
+
+
+def _marked(size: int, *positions) -> np.ndarray:
+    """The sorted distinct positions among ``positions`` (each below ``size``), found by
+    marking them rather than by sorting."""
+    mark = np.zeros(size, bool)
+    for some in positions:
+        mark[some] = True
+    return np.flatnonzero(mark)
+
+
+def _joined_vertices(a: _Block, b: _Block):
+    """The vertices (ids and values) of two blocks, by id. Each block's ids are sorted,
+    and the two share at most the outside node: a stable sort of the two runs is one merge
+    (timsort), after which the outside node's second copy is dropped."""
+    vert_id = np.concatenate([a.vert_id, b.vert_id])
+    vert_value = np.concatenate([a.vert_value, b.vert_value])
+    order = np.argsort(vert_id, kind="stable")
+    vert_id, vert_value = vert_id[order], vert_value[order]
+    first = np.ones(vert_id.size, bool)
+    first[1:] = vert_id[1:] != vert_id[:-1]
+    return vert_id[first], vert_value[first]
 
 
 def _cross_edges(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
@@ -369,6 +397,9 @@ def _cross_edges(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
     # holds about two edges per face voxel instead of nine, and one strip's at a time.
     rows_axis = max(others, key=lambda k: values_a.shape[k])
     rows = values_a.shape[rows_axis]
+    # a voxel's place on the face: 2p on a's plane and 2p + 1 on b's (p its place in
+    # the plane), so that a strip's edges join places in a short range
+    place = 2 * np.arange(values_a.size, dtype=np.int64).reshape(values_a.shape)
     per_row = len(takes) * max(values_a.size // max(rows, 1), 1)
     step = max(1, CROSS_STRIP_EDGES // per_row)
     kept = []
@@ -388,7 +419,8 @@ def _cross_edges(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
             va, ia = values_a[tuple(pick_a)].ravel(), ids_a[tuple(pick_a)].ravel()
             vb, ib = values_b[tuple(pick_b)].ravel(), ids_b[tuple(pick_b)].ravel()
             b_later = _later(va, ia, vb, ib, sweep.ascending)
-            strip.append((ia, ib, np.where(b_later, ib, ia), np.where(b_later, vb, va)))
+            strip.append((ia, ib, np.where(b_later, ib, ia), np.where(b_later, vb, va),
+                          place[tuple(pick_a)].ravel(), place[tuple(pick_b)].ravel() + 1))
         if strip:
             kept.append(_spanning_forest(*(np.concatenate(c) for c in zip(*strip)),
                                          sweep.ascending))
@@ -398,12 +430,13 @@ def _cross_edges(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
     return tuple(np.concatenate(c) for c in zip(*kept))
 
 
-def _spanning_forest(edge_a, edge_b, edge_voxel, edge_value, ascending):
-    """The edges of a spanning forest taken in sweep order (:func:`_sweep_order`)."""
-    vertices, ends = np.unique(np.concatenate([edge_a, edge_b]), return_inverse=True)
+def _spanning_forest(edge_a, edge_b, edge_voxel, edge_value, place_a, place_b, ascending):
+    """The edges of a spanning forest taken in sweep order (:func:`_sweep_order`); the
+    ends are told apart by their places on the face (``place_a``, ``place_b``)."""
+    first = min(int(place_a.min()), int(place_b.min()))
+    last = max(int(place_a.max()), int(place_b.max()))
     order = _sweep_order(edge_value, edge_voxel, ascending)
-    joins = kernel.joining_edges(ends[:edge_a.size], ends[edge_a.size:], order,
-                                 vertices.size)
+    joins = kernel.joining_edges(place_a - first, place_b - first, order, last - first + 1)
     return edge_a[joins], edge_b[joins], edge_voxel[joins], edge_value[joins]
 
 
@@ -414,24 +447,27 @@ def _merge(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
     hi = tuple(max(p, q) for p, q in zip(a.hi, b.hi))
     # each column of the edges across the face is let go once joined: they are most of
     # what a merge near the top of the tree holds
-    cross = list(_cross_edges(source, a, b, axis, sweep))
+    cross = _cross_edges(source, a, b, axis, sweep)
+    in_order = _sweep_order(cross[3], cross[2], sweep.ascending)
+    cross = [column[in_order] for column in cross]
+    del in_order
+    runs = np.cumsum([0, a.edge_a.size, b.edge_a.size, cross[0].size])
     columns = []
     for name in ("edge_a", "edge_b", "edge_voxel", "edge_value"):
         columns.append(np.concatenate([getattr(a, name), getattr(b, name), cross.pop(0)]))
     edge_a, edge_b, edge_voxel, edge_value = columns
     del columns
-    vert_id = np.concatenate([a.vert_id, b.vert_id])
-    vert_value = np.concatenate([a.vert_value, b.vert_value])
-    vert_id, first = np.unique(vert_id, return_index=True)
-    vert_value = vert_value[first]
-    del first
+    vert_id, vert_value = _joined_vertices(a, b)
     pos_a = np.searchsorted(vert_id, edge_a)
     pos_b = np.where(edge_b < 0, edge_b, np.searchsorted(vert_id, edge_b))
     inside = vert_id < n_total
     flags = np.where(inside, _flags(lo, hi, shape3, np.unravel_index(
         np.where(inside, vert_id, 0), shape3)), 1).astype(np.uint8)
     outside = int(np.searchsorted(vert_id, n_total)) if vert_id[-1] == n_total else -1
-    order = _sweep_order(edge_value, edge_voxel, sweep.ascending)
+    # both blocks hand on their edges in sweep order: three runs to merge, not to sort
+    order = kernel.merged_runs(edge_value, edge_voxel, runs, sweep.ascending)
+    if order.size != edge_value.size:
+        order = _sweep_order(edge_value, edge_voxel, sweep.ascending)
     m = len(vert_id)
     parent, touches = np.empty(m, np.int64), np.empty(m, np.uint8)
     face_gains = pos_b < 0
@@ -454,13 +490,13 @@ def _merge(source: _Grid, a: _Block, b: _Block, axis: int, sweep: _Sweep):
         pairs.crossing_id = np.where(seen, edge_voxel[np.maximum(crossing, 0)], -1)
         pairs.crossing_value = np.where(seen, edge_value[np.maximum(crossing, 0)], np.nan)
     roots = np.flatnonzero(parent == np.arange(m))
-    kept = kind == kernel.KEPT_EDGE
-    gain = kind == kernel.FACE_GAIN
-    keep = np.unique(np.concatenate([young[kept], old[kept], young[gain], roots]))
-    pick = np.concatenate([edge[kept], edge[gain]])
-    block = _Block(lo, hi, vert_id[keep], vert_value[keep],
-                   vert_id[np.concatenate([young[kept], young[gain]])],
-                   np.concatenate([vert_id[old[kept]], _face_edge_end(old[gain])]),
+    # the edges handed on, in the order they were written: the sweep order
+    carried = (kind == kernel.KEPT_EDGE) | (kind == kernel.FACE_GAIN)
+    gain = kind[carried] == kernel.FACE_GAIN
+    young, old, pick = young[carried], old[carried], edge[carried]
+    keep = _marked(m, young, old[~gain], roots)
+    block = _Block(lo, hi, vert_id[keep], vert_value[keep], vert_id[young],
+                   np.where(gain, _face_edge_end(old), vert_id[np.where(gain, 0, old)]),
                    edge_voxel[pick], edge_value[pick])
     return pairs, block
 

@@ -434,31 +434,24 @@ def dask_scheduler(scheduler, scratch: Path):
     if scheduler in ("sync", "threads", "synchronous"):
         yield scheduler
         return
-    from distributed import Client, LocalCluster
+    import dask
+
+    from ..batch.cluster import connect, local_cluster
 
     if scheduler is not None:
-        try:
-            client = Client(scheduler, timeout="10s")
-        except Exception as error:
-            raise InputError(f"No dask scheduler answered at {scheduler} "
-                             f"({type(error).__name__}); check the address, or leave out "
-                             f"--scheduler for a local cluster.") from None
+        client = connect(scheduler)
         try:
             yield client
         finally:
             client.close()
         return
+
     workers = max(1, os.cpu_count() or 1)
     share = int(available_bytes() * BUDGET_FRACTION / workers)
-    import dask
-
-    with dask.config.set({"temporary-directory": str(scratch),
-                          "distributed.worker.daemon": False}):
-        cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                               memory_limit=share, dashboard_address=None,
-                               local_directory=str(scratch), silence_logs=40)
+    with dask.config.set({"distributed.worker.daemon": False}):
+        client, cluster = local_cluster(workers, share, scratch, dashboard=False)
     try:
-        with Client(cluster) as client:
+        with client:
             yield client
     finally:
         cluster.close()
