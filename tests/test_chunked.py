@@ -258,33 +258,57 @@ def test_ome_zarr_spacing_and_channel_are_read(tmp_path):
 
 
 def test_graph_kernel_matches_its_plain_twin():
+    # the plain twin (reduce_graph_reference) is the reference: the kernel's records and
+    # crossings must be the twin's, with faces followed or not
     rng = np.random.default_rng(11)
     m = 12
     values = np.round(rng.random(m), 1)
     ids = np.arange(m) * 3
     flags = (rng.random(m) < 0.3).astype(np.uint8)
+    # most vertices start on no face, a few on one; every face gain brings one or two
+    start_faces = np.where(rng.random(m) < 0.25, 1 << rng.integers(0, 6, m), 0).astype(np.uint8)
     edges = []
     for _ in range(30):
         a, b = rng.integers(0, m, 2)
         level = max(values[a], values[b]) + round(rng.random() * 0.3, 1)
         edges.append((int(a), int(b), level, int(rng.integers(0, 40))))
-    for ascending in (True, False):
-        for outside in (-1, 0):
-            expected = _chunk_merge.reduce_graph_reference(values, ids, flags, outside, edges,
-                                                           ascending)
-            edge_a = np.array([e[0] for e in edges])
-            edge_b = np.array([e[1] for e in edges])
-            levels = np.array([e[2] for e in edges])
-            voxel = np.array([e[3] for e in edges])
-            order = np.lexsort((voxel, levels))
-            order = order if ascending else order[::-1].copy()
-            out = [np.empty(m, np.uint8)] + [np.empty(m, np.int64) for _ in range(3)]
-            no_faces = [np.zeros(1, np.uint8), np.zeros(1, np.uint8), np.full(3, -1)]
-            written = _chunk_merge.reduce_graph(values, ids, flags, outside, edge_a, edge_b,
-                                                levels, order, ascending, np.empty(m, np.int64),
-                                                np.empty(m, np.uint8), *out, 0, *no_faces)
-            got = list(zip(*(o[:written].tolist() for o in out)))
-            assert got == expected
+    for _ in range(14):
+        a = int(rng.integers(0, m))
+        bits = int(np.bitwise_or.reduce(1 << rng.integers(0, 6, rng.integers(1, 3))))
+        edges.append((a, -1 - bits, values[a] + round(rng.random() * 0.3, 1),
+                      int(rng.integers(0, 40))))
+    edge_a = np.array([e[0] for e in edges])
+    edge_b = np.array([e[1] for e in edges])
+    levels = np.array([e[2] for e in edges])
+    voxel = np.array([e[3] for e in edges])
+    capacity = m + 6 * (m + len(edges))
+    seen_gains = seen_crossings = 0
+    # all faces; the first two axes; the last axis and one face of the middle one
+    for wanted in (0, 0b111111, 0b001111, 0b110100):
+        for ascending in (True, False):
+            for outside in (-1, 0):
+                expected, expected_crossing = _chunk_merge.reduce_graph_reference(
+                    values, ids, flags, outside, edges, ascending, wanted, start_faces)
+                order = np.lexsort((voxel, levels))
+                order = order if ascending else order[::-1].copy()
+                out = [np.empty(capacity, np.uint8)] + [np.empty(capacity, np.int64)
+                                                        for _ in range(3)]
+                faces, told = start_faces.copy(), np.zeros(m, np.uint8)
+                crossing = np.full(3, -1)
+                written = _chunk_merge.reduce_graph(values, ids, flags, outside, edge_a,
+                                                    edge_b, levels, order, ascending,
+                                                    np.empty(m, np.int64), np.empty(m, np.uint8),
+                                                    *out, wanted, faces, told, crossing)
+                got = list(zip(*(o[:written].tolist() for o in out)))
+                assert got == expected
+                assert crossing.tolist() == expected_crossing
+                gains = sum(r[0] == _chunk_merge.FACE_GAIN for r in got)
+                if not wanted:
+                    assert gains == 0 and expected_crossing == [-1, -1, -1]
+                seen_gains += gains
+                seen_crossings += sum(c >= 0 for c in expected_crossing)
+    # the faces were really followed: gains handed on and axes crossed
+    assert seen_gains > 0 and seen_crossings > 0
 
 
 def test_bad_inputs_are_refused_in_one_sentence(tmp_path):

@@ -55,6 +55,35 @@ def _gain_faces(root, at, faces, told, touches, wanted, crossing, out_kind, out_
     return written
 
 
+@njit(cache=True, inline="always")
+def _join_and_record(root_a, root_b, a_is_elder, born, level, at, parent, touches, wanted,
+                     faces, told, out_kind, out_young, out_old, out_at, written):
+    """Join the components of ``root_a`` and ``root_b`` at ``at`` (of value ``level``): the
+    younger hangs under the elder, faces and all. The union is recorded as a KEPT_EDGE
+    when the younger reaches past its block (the joined component then does too), else
+    as a FINAL_PAIR unless it dies at the value it was born at (``born``, by root).
+    Returns the records written so far and the root of the joined component."""
+    if a_is_elder:
+        young, old = root_b, root_a
+    else:
+        young, old = root_a, root_b
+    parent[young] = old
+    if wanted:
+        faces[old] |= faces[young]
+        told[old] |= told[young]
+    if touches[young]:
+        out_kind[written] = KEPT_EDGE
+        touches[old] = 1
+    elif born[young] != level:
+        out_kind[written] = FINAL_PAIR
+    else:
+        return written, old
+    out_young[written] = young
+    out_old[written] = old
+    out_at[written] = at
+    return written + 1, old
+
+
 @njit(cache=True, nogil=True)
 def reduce_chunk(values, order, shape, offsets, flagged, on_border, with_outside, ascending,
                  parent, touches, out_kind, out_young, out_old, out_voxel, face_of, wanted,
@@ -129,28 +158,11 @@ def reduce_chunk(values, order, shape, offsets, flagged, on_border, with_outside
                 root_u = outside
             if root_u == root_v:
                 continue
-            if root_u == outside or (root_v != outside
-                                     and _before(values, root_u, root_v, ascending)):
-                young, old = root_v, root_u
-            else:
-                young, old = root_u, root_v
-            parent[young] = old
-            root_v = old
-            if wanted:
-                faces[old] |= faces[young]
-                told[old] |= told[young]
-            if touches[young]:
-                out_kind[written] = KEPT_EDGE
-            elif values[young] != values[v]:
-                out_kind[written] = FINAL_PAIR
-            else:
-                continue
-            out_young[written] = young
-            out_old[written] = old
-            out_voxel[written] = v
-            written += 1
-            if touches[young]:
-                touches[old] = 1
+            u_is_elder = root_u == outside or (root_v != outside
+                                               and _before(values, root_u, root_v, ascending))
+            written, root_v = _join_and_record(root_u, root_v, u_is_elder, values, values[v], v,
+                                               parent, touches, wanted, faces, told, out_kind,
+                                               out_young, out_old, out_voxel, written)
         if wanted:
             written = _gain_faces(root_v, v, faces, told, touches, wanted, crossing, out_kind,
                                   out_young, out_old, out_voxel, written)
@@ -247,8 +259,10 @@ def reduce_graph(vert_value, vert_id, vert_flag, outside, edge_a, edge_b, edge_v
     ``edge_order`` lists the edges in sweep order. ``out_edge`` names the edge of a record
     (its voxel is the death location). An edge with ``edge_b[e] = -1 - bits`` is a
     ``FACE_GAIN`` of ``edge_a[e]``'s component; with ``wanted`` the faces are followed as in
-    :func:`reduce_chunk` (``faces``, ``told``: m zeros; ``crossing[a]``: an edge, or -1).
-    Buffers of m entries and one more per face bit of the face-gain edges suffice.
+    :func:`reduce_chunk` (``faces``: the bits each vertex holds at the start, zeros when
+    every face comes by a face-gain edge; ``told``: m zeros; ``crossing[a]``: an edge, or
+    -1). Buffers of m entries and one more per face bit of the face-gain edges and of
+    ``faces`` suffice.
     """
     m = vert_value.size
     for p in range(m):
@@ -268,40 +282,30 @@ def reduce_graph(vert_value, vert_id, vert_flag, outside, edge_a, edge_b, edge_v
             root_b = _find(parent, edge_b[e])
             if root_a == root_b:
                 continue
-            if _vertex_before(vert_value, vert_id, root_a, root_b, ascending, outside):
-                young, old = root_b, root_a
-            else:
-                young, old = root_a, root_b
-            parent[young] = old
-            root = old
-            if wanted:
-                faces[old] |= faces[young]
-                told[old] |= told[young]
-            record = True
-            if touches[young]:
-                out_kind[written] = KEPT_EDGE
-            elif vert_value[young] != edge_value[e]:
-                out_kind[written] = FINAL_PAIR
-            else:
-                record = False
-            if record:
-                out_young[written] = young
-                out_old[written] = old
-                out_edge[written] = e
-                written += 1
-                if touches[young]:
-                    touches[old] = 1
+            a_is_elder = _vertex_before(vert_value, vert_id, root_a, root_b, ascending, outside)
+            written, root = _join_and_record(root_a, root_b, a_is_elder, vert_value,
+                                             edge_value[e], e, parent, touches, wanted, faces,
+                                             told, out_kind, out_young, out_old, out_edge,
+                                             written)
         if wanted:
             written = _gain_faces(root, e, faces, told, touches, wanted, crossing, out_kind,
                                   out_young, out_old, out_edge, written)
     return written
 
 
-def reduce_graph_reference(vert_value, vert_id, vert_flag, outside, edges, ascending):
+def reduce_graph_reference(vert_value, vert_id, vert_flag, outside, edges, ascending,
+                           wanted=0, vert_faces=None):
     """Plain-Python twin of :func:`reduce_graph` for tiny graphs.
 
-    ``edges`` is a list of (a, b, value, voxel id); returns the records
-    (kind, young, old, edge number) in the order the kernel writes them.
+    ``edges`` is a list of (a, b, value, voxel id); an edge with a negative ``b`` is a face
+    gain: ``a``'s component gains the faces whose bits are ``-1 - b``. With ``wanted``
+    (bits of the faces whose joining is asked for, as in :func:`reduce_chunk`) the faces
+    are followed from ``vert_faces`` (the bits each vertex starts with; none by default).
+
+    Returns the records (kind, young, old, edge number) in the order the kernel writes them
+    (a FACE_GAIN record: (kind, root, bits gained, edge number)), and per axis of the 3D
+    grid whose two faces are both wanted, the first edge after which the component it
+    joined or grew holds both faces (-1 for the others and when that never happens).
     """
     def key(p):
         if p == outside:
@@ -315,10 +319,25 @@ def reduce_graph_reference(vert_value, vert_id, vert_flag, outside, edges, ascen
             return False
         return key(a) < key(b) if ascending else key(a) > key(b)
 
-    order = sorted(range(len(edges)), key=lambda e: (edges[e][2], edges[e][3]),
-                   reverse=not ascending)
+    def faces_of(bits):
+        return {(axis, end) for axis in range(3) for end in range(2)
+                if bits >> (2 * axis + end) & 1}
+
+    def bits_of(faces):
+        return sum(1 << (2 * axis + end) for axis, end in faces)
+
+    # a descending sweep is the ascending one read backwards, ties of (value, voxel) too
+    order = sorted(range(len(edges)), key=lambda e: (edges[e][2], edges[e][3]))
+    if not ascending:
+        order.reverse()
     parent = list(range(len(vert_value)))
     touches = [bool(f) for f in vert_flag]
+    # faces each component holds, and those already handed on in a FACE_GAIN record
+    start_bits = [0] * len(vert_value) if vert_faces is None else [int(f) for f in vert_faces]
+    held = [faces_of(bits) for bits in start_bits]
+    handed = [set() for _ in vert_value]
+    asked_axes = [axis for axis in range(3) if faces_of(wanted) >= {(axis, 0), (axis, 1)}]
+    crossing = [-1, -1, -1]
 
     def find(p):
         while parent[p] != p:
@@ -328,14 +347,32 @@ def reduce_graph_reference(vert_value, vert_id, vert_flag, outside, edges, ascen
     records = []
     for e in order:
         a, b, value, _ = edges[e]
-        root_a, root_b = find(a), find(b)
-        if root_a == root_b:
+        if b < 0:
+            if not wanted:
+                continue
+            grown = find(a)
+            held[grown] |= faces_of(-1 - b)
+        else:
+            root_a, root_b = find(a), find(b)
+            if root_a == root_b:
+                continue
+            young, old = (root_b, root_a) if elder(root_a, root_b) else (root_a, root_b)
+            parent[young] = old
+            held[old] |= held[young]
+            handed[old] |= handed[young]
+            if touches[young]:
+                records.append((KEPT_EDGE, young, old, e))
+                touches[old] = True
+            elif vert_value[young] != value:
+                records.append((FINAL_PAIR, young, old, e))
+            grown = old
+        if not wanted:
             continue
-        young, old = (root_b, root_a) if elder(root_a, root_b) else (root_a, root_b)
-        parent[young] = old
-        if touches[young]:
-            records.append((KEPT_EDGE, young, old, e))
-            touches[old] = True
-        elif vert_value[young] != value:
-            records.append((FINAL_PAIR, young, old, e))
-    return records
+        not_handed = held[grown] - handed[grown]
+        if touches[grown] and not_handed:
+            records.append((FACE_GAIN, grown, bits_of(not_handed), e))
+            handed[grown] |= not_handed
+        for axis in asked_axes:
+            if crossing[axis] < 0 and {(axis, 0), (axis, 1)} <= held[grown]:
+                crossing[axis] = e
+    return records, crossing
