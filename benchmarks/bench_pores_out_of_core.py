@@ -146,8 +146,6 @@ def main(argv=None) -> int:
     parser.add_argument("--keep", action="store_true", help="keep the folder")
     args = parser.parse_args(argv)
 
-    import dask
-
     from voxtopo.batch.cluster import local_cluster
     from voxtopo.jobs import pores
     from voxtopo.memory import available_bytes, human
@@ -169,9 +167,8 @@ def main(argv=None) -> int:
           + ", ".join(f"{what} {human(size)}" for size, what in plan.tasks())
           + f"; worker memory limit {human(share)}")
     # the workers a local out-of-core run starts (voxtopo.jobs.pores.dask_scheduler)
-    with dask.config.set({"distributed.worker.daemon": False}):
-        client, cluster = local_cluster(args.workers, share, folder / "dask-scratch",
-                                        dashboard=False)
+    client, cluster = local_cluster(args.workers, share, folder / "dask-scratch",
+                                    dashboard=False, config={"distributed.worker.daemon": False})
     try:
         with client:
             before = client.run(_usage)

@@ -299,6 +299,27 @@ def test_cli_out_of_core_rewrites_a_tiff_and_runs_on_the_cluster(tmp_path, capsy
     assert sorted(p.name for p in tmp_path.iterdir()) == ["mask.tif", "result"]
 
 
+def test_cli_out_of_core_without_a_scheduler_starts_its_own_workers(tmp_path):
+    # No --scheduler: the run starts a local cluster of its own (as a batch does) and
+    # closes it. Porosity is the pore voxels' share of the scan (common practice, no
+    # source), counted here with numpy.
+    import subprocess
+    import sys
+
+    mask = _blobs((14, 13, 12), seed=3)
+    np.save(tmp_path / "mask.npy", mask.astype(np.uint8))
+    out = tmp_path / "result"
+    run = subprocess.run([sys.executable, "-m", "voxtopo.cli", "pores", str(tmp_path / "mask.npy"),
+                          "--out", str(out), "--out-of-core", "--chunks", "7,7,6"],
+                         capture_output=True, text=True, timeout=600)
+    assert run.returncode == 0, run.stderr[-2000:]
+    assert "Traceback" not in run.stderr
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["porosity"] == pytest.approx(np.count_nonzero(mask) / mask.size, abs=1e-12)
+    assert summary["counts"]["pores"] == analyse(mask).summary["counts"]["pores"]
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["mask.npy", "result"]
+
+
 def test_out_of_core_reads_an_ome_zarr_store_with_its_voxel_size(tmp_path):
     mask = _blobs((10, 12, 11), seed=9)
     root = zarr.open_group(str(tmp_path / "scan.ome.zarr"), mode="w")

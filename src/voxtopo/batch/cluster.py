@@ -63,15 +63,20 @@ def connect(scheduler):
                          f"out --scheduler to use a local cluster.") from None
 
 
-def local_cluster(workers: int, limit: int, scratch: Path, dashboard: bool = True):
+def local_cluster(workers: int, limit: int, scratch: Path, dashboard: bool = True,
+                  config: dict | None = None):
     """A local cluster of ``workers`` one-thread worker processes of ``limit`` bytes each,
-    set up as :data:`WORKER_CONFIG` says, keeping their scratch files in ``scratch``;
-    returns (client, cluster). The batch runner and out-of-core jobs both use it."""
+    set up as :data:`WORKER_CONFIG` and ``config`` (more dask settings) say, keeping their
+    scratch files in ``scratch``; returns (client, cluster). The batch runner and local
+    out-of-core runs both use it."""
     import dask
+    # imported before the settings below, which would otherwise be undone with dask's
+    # own defaults for distributed when they are
     from distributed import Client, LocalCluster
 
     scratch.mkdir(exist_ok=True)
-    with dask.config.set({**WORKER_CONFIG, "temporary-directory": str(scratch)}):
+    with dask.config.set({**WORKER_CONFIG, **(config or {}),
+                          "temporary-directory": str(scratch)}):
         cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
                                memory_limit=limit, host="127.0.0.1",
                                dashboard_address="127.0.0.1:0" if dashboard else None,

@@ -434,8 +434,6 @@ def dask_scheduler(scheduler, scratch: Path):
     if scheduler in ("sync", "threads", "synchronous"):
         yield scheduler
         return
-    import dask
-
     from ..batch.cluster import connect, local_cluster
 
     if scheduler is not None:
@@ -448,8 +446,8 @@ def dask_scheduler(scheduler, scratch: Path):
 
     workers = max(1, os.cpu_count() or 1)
     share = int(available_bytes() * BUDGET_FRACTION / workers)
-    with dask.config.set({"distributed.worker.daemon": False}):
-        client, cluster = local_cluster(workers, share, scratch, dashboard=False)
+    client, cluster = local_cluster(workers, share, scratch, dashboard=False,
+                                    config={"distributed.worker.daemon": False})
     try:
         with client:
             yield client
