@@ -128,6 +128,19 @@ class FolderPeak(threading.Thread):
             self.peak = max(self.peak, tree_bytes(self.folder, self.skip))
 
 
+class StageClock:
+    """Prints, as the run goes, when each stage starts, so a long run tells how far it
+    got even if it is stopped."""
+
+    def __init__(self, start: float):
+        self.start, self.phase = start, None
+
+    def __call__(self, phase: str, fraction: float) -> None:
+        if phase != self.phase:
+            self.phase = phase
+            print(f"  {time.perf_counter() - self.start:8.1f} s  {phase}", flush=True)
+
+
 def _usage():
     """(peak resident bytes, CPU seconds) of the calling process."""
     usage = resource.getrusage(resource.RUSAGE_SELF)
@@ -177,7 +190,7 @@ def main(argv=None) -> int:
             disk.start()
             clock = time.perf_counter()
             result = pores.pores_out_of_core(store, folder / "result", scheduler=client,
-                                             scratch=folder)
+                                             scratch=folder, progress=StageClock(clock))
             wall = time.perf_counter() - clock
             disk.done.set()
             after = client.run(_usage)
