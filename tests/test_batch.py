@@ -322,7 +322,8 @@ def test_local_cluster_workers_take_one_numba_thread_and_keep_glibc_s_memory_reu
     # The settings a local cluster's workers start with (batch runs and local out-of-core
     # runs alike). glibc's mallopt(3) manual: setting M_TRIM_THRESHOLD (the environment
     # variable MALLOC_TRIM_THRESHOLD_) turns off the dynamic mmap threshold, so freed
-    # large blocks are no longer reused (from memory); numba's documentation of
+    # large blocks are no longer reused, and MALLOC_ARENA_MAX caps the arenas that
+    # threads allocate from (from memory); numba's documentation of
     # NUMBA_NUM_THREADS: the threads its parallel loops use (from memory).
     import os
 
@@ -331,9 +332,10 @@ def test_local_cluster_workers_take_one_numba_thread_and_keep_glibc_s_memory_reu
     try:
         def settings():
             import numba
-            return os.environ.get("MALLOC_TRIM_THRESHOLD_"), numba.config.NUMBA_NUM_THREADS
+            return (os.environ.get("MALLOC_TRIM_THRESHOLD_"), os.environ.get("MALLOC_ARENA_MAX"),
+                    numba.config.NUMBA_NUM_THREADS)
 
-        assert list(client.run(settings).values()) == [(None, 1)]
+        assert list(client.run(settings).values()) == [(None, "2", 1)]
     finally:
         client.close()
         cluster.close()
