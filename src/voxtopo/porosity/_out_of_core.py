@@ -86,11 +86,13 @@ from ._analysis import (
 #: phase codes of the phase store: bit 0 is the segmented pore mask, bit 1 the sample
 OUTSIDE, OUTSIDE_PORE, SOLID, PORE = 0, 1, 2, 3
 
-#: Bytes per voxel of a local-count task for the interface mesh of its block and the
-#: curvature terms of its edges (vectorised over the whole block). They follow the
-#: interface's area: measured by tracemalloc, 260 per meshed voxel on smoothed noise with
-#: features about 5 voxels wide, 100 on a packing of beads 14 to 22 voxels wide.
-COUNT_MESH_BYTES_PER_VOXEL = 270
+#: Bytes per voxel of a local-count task for the interface mesh of its block, the faces'
+#: centres and the edge lists of the curvature kernel (``_minkowski.owned_terms``). They
+#: follow the interface's area: measured on a 138^3 block (by tracemalloc, and by the
+#: growth of the peak resident memory, which also sees the kernel's own arrays), 107 per
+#: meshed voxel on smoothed noise with features about 5 voxels wide, 36 on a packing of
+#: beads 14 to 22 voxels wide.
+COUNT_MESH_BYTES_PER_VOXEL = 120
 
 #: Bytes per voxel of a local-count task: the block with its halo as read (float32 field,
 #: phase: 5), the smoothed mask with its padded copy (8), marching cubes' float32 copy
