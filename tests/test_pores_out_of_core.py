@@ -162,9 +162,12 @@ def test_chunked_edt_equals_scipy_on_random_masks_with_anisotropic_spacing(tmp_p
     """Reference: scipy.ndimage.distance_transform_edt with ``sampling=``."""
     rng = np.random.default_rng(5)
     codes = (rng.random(shape) < 0.15).astype(np.uint8)
+    reports = []
     stores = squared_distances(codes, {"to_one": Feature((1,)), "to_zero": Feature((0,))},
                                spacing, tmp_path, chunks=chunks,
-                               compute=compute_on("sync", "a test"))
+                               compute=compute_on("sync", "a test"),
+                               progress=lambda *report: reports.append(report))
+    assert reports == [("distance transform", k / len(shape)) for k in range(len(shape) + 1)]
     for name, feature in (("to_one", codes == 1), ("to_zero", codes == 0)):
         expected = ndimage.distance_transform_edt(~feature, sampling=spacing)
         got = np.sqrt(stores[name][...].astype(np.float64))
@@ -181,8 +184,13 @@ def test_chunked_signed_distance_of_two_phases_equals_scipy(tmp_path, shape, chu
     codes = np.where(pores, 3, 2).astype(np.uint8)
     distance = zarr.create_array(str(tmp_path / "distance.zarr"), shape=shape, chunks=chunks,
                                  dtype=np.float32, fill_value=0)
+    reports = []
     largest = signed_distance(codes, (3,), spacing, tmp_path / "edt", distance,
-                              chunks=chunks, compute=compute_on("sync", "a test"))
+                              chunks=chunks, compute=compute_on("sync", "a test"),
+                              progress=lambda *report: reports.append(report))
+    # told at its start and after each pass (one pass an axis), so a long run's progress
+    # names the stage it is in
+    assert reports == [("distance transform", k / len(shape)) for k in range(len(shape) + 1)]
     expected = np.where(pores, -ndimage.distance_transform_edt(pores, sampling=spacing),
                         ndimage.distance_transform_edt(~pores, sampling=spacing))
     np.testing.assert_allclose(distance[...], expected, rtol=2e-7, atol=1e-6)

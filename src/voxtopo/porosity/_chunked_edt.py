@@ -126,6 +126,8 @@ def signed_distance(source, pore_codes: tuple, spacing, folder: Path, distance, 
     ndim = len(shape)
     folder.mkdir(parents=True, exist_ok=True)
     task = dask.delayed(_two_phase_task, pure=False)
+    if progress is not None:
+        progress("distance transform", 0.0)
     store_in, path_in, largest = None, None, 0.0
     for axis in range(ndim):
         last = axis == ndim - 1
@@ -192,6 +194,8 @@ def squared_distances(source, features: dict, spacing, folder: Path, *, chunks,
     names = list(features)
     folder.mkdir(parents=True, exist_ok=True)
     task = dask.delayed(_pass_task, pure=False)
+    if progress is not None:
+        progress("distance transform", 0.0)
     stores_in = None
     for axis in range(ndim):
         label = "ab"[axis % 2]
