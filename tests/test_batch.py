@@ -318,7 +318,40 @@ def test_each_scan_is_planned_with_its_job_s_own_plan():
     assert count == 2 and limit >= 2.8e9
 
 
-def test_local_cluster_workers_take_one_numba_thread_and_keep_glibc_s_memory_reuse(tmp_path):
+def test_a_local_cluster_leaves_numba_of_the_calling_process_working(tmp_path):
+    # numba re-reads NUMBA_NUM_THREADS at each compilation and refuses to go on ("Cannot
+    # set NUMBA_NUM_THREADS to a different value once the threads have been launched")
+    # when it differs from the threads its parallel loops already launched (numba's
+    # config module, from memory). The workers' one thread must not be set in this
+    # process's environment, or a notebook that ran an in-memory analysis and then a
+    # local out-of-core one could no longer compile a kernel.
+    import os
+
+    import numba
+
+    @numba.njit(parallel=True)
+    def total(values):
+        out = 0.0
+        for i in numba.prange(values.shape[0]):
+            out += values[i]
+        return out
+
+    assert total(np.ones(1000)) == 1000.0   # numba's threads are launched here
+    before = dict(os.environ)
+    client, cluster = batch.local_cluster(1, 2_000_000_000, tmp_path / "scratch",
+                                          dashboard=False)
+    try:
+        assert dict(os.environ) == before
+        assert numba.njit(lambda x: x + 1)(1) == 2   # a new compilation still works
+        assert client.run(lambda: __import__("numba").config.NUMBA_NUM_THREADS) \
+            == {address: 1 for address in client.scheduler_info()["workers"]}
+    finally:
+        client.close()
+        cluster.close()
+
+
+def test_local_cluster_workers_take_one_numba_thread_and_keep_glibc_s_memory_reuse(
+        tmp_path, monkeypatch):
     # The settings a local cluster's workers start with (batch runs and local out-of-core
     # runs alike). glibc's mallopt(3) manual: setting M_TRIM_THRESHOLD (the environment
     # variable MALLOC_TRIM_THRESHOLD_) turns off the dynamic mmap threshold, so freed
@@ -327,6 +360,10 @@ def test_local_cluster_workers_take_one_numba_thread_and_keep_glibc_s_memory_reu
     # NUMBA_NUM_THREADS: the threads its parallel loops use (from memory).
     import os
 
+    # what a cluster started before with dask's defaults leaves in this process (its
+    # nanny writes its pre-spawn settings here), and a setting of the user's own
+    monkeypatch.setenv("MALLOC_TRIM_THRESHOLD_", "65536")
+    monkeypatch.setenv("MALLOC_ARENA_MAX", "8")
     client, cluster = batch.local_cluster(1, 2_000_000_000, tmp_path / "scratch",
                                           dashboard=False)
     try:

@@ -47,9 +47,18 @@ WORKER_CONFIG = {
     # numba's parallel loops (the distance transform's lines) take one thread per core
     # by default: in a worker of one thread beside others that is only contention
     # (measured: the distance transform of a 512^3 out-of-core run took 28 s on two such
-    # workers, 15 s in one process)
-    "distributed.nanny.pre-spawn-environ.NUMBA_NUM_THREADS": 1,
+    # workers, 15 s in one process). Set in the worker process as it starts, not before
+    # the spawn: the nanny writes pre-spawn settings into the environment of the process
+    # that starts the cluster, and numba there refuses to compile again once that
+    # differs from the threads it launched.
+    "distributed.nanny.environ.NUMBA_NUM_THREADS": 1,
 }
+
+
+#: the environment variables :data:`WORKER_CONFIG` sets (or unsets) in the workers
+_WORKER_VARIABLES = tuple(key.rsplit(".", 1)[1] for key in WORKER_CONFIG
+                          if key.startswith(("distributed.nanny.pre-spawn-environ.",
+                                             "distributed.nanny.environ.")))
 
 
 class WorkersLost(VoxtopoError):
@@ -80,12 +89,24 @@ def local_cluster(workers: int, limit: int, scratch: Path, dashboard: bool = Tru
     from distributed import Client, LocalCluster
 
     scratch.mkdir(exist_ok=True)
-    with dask.config.set({**WORKER_CONFIG, **(config or {}),
-                          "temporary-directory": str(scratch)}):
-        cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                               memory_limit=limit, host="127.0.0.1",
-                               dashboard_address="127.0.0.1:0" if dashboard else None,
-                               silence_logs=40, local_directory=str(scratch))
+    # dask's nanny writes its pre-spawn settings into this process's environment, where
+    # the workers inherit them and where they beat the configuration: a cluster started
+    # earlier with dask's defaults leaves MALLOC_TRIM_THRESHOLD_ there. So the workers'
+    # own variables are taken out while they start, and the environment is given back as
+    # it was.
+    environment = dict(os.environ)
+    for variable in _WORKER_VARIABLES:
+        os.environ.pop(variable, None)
+    try:
+        with dask.config.set({**WORKER_CONFIG, **(config or {}),
+                              "temporary-directory": str(scratch)}):
+            cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                                   memory_limit=limit, host="127.0.0.1",
+                                   dashboard_address="127.0.0.1:0" if dashboard else None,
+                                   silence_logs=40, local_directory=str(scratch))
+    finally:
+        os.environ.clear()
+        os.environ.update(environment)
     return Client(cluster), cluster
 
 
