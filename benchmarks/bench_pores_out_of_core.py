@@ -60,43 +60,68 @@ def bead_list(size: int, radius=(7.0, 11.0), solid_fraction=0.55, seed=SEED) -> 
     return np.column_stack([centres, radii])
 
 
-def write_store(path: Path, size: int, chunk: int, spacing_um: float = 2.0) -> Path:
-    """An OME-Zarr mask (1 = pore, uint8) of the bead packing, written chunk by chunk."""
+def write_store(path: Path, size: int, chunk: int, spacing_um: float = 2.0,
+                processes: int = 1) -> Path:
+    """An OME-Zarr mask (1 = pore, uint8) of the bead packing, written chunk by chunk, one
+    slab of chunks at a time by each of ``processes`` processes."""
     import zarr
-    from scipy.spatial import cKDTree
 
-    beads = bead_list(size)
-    tree = cKDTree(beads[:, :3])
-    reach = float(beads[:, 3].max())
     root = zarr.open_group(str(path), mode="w")
-    data = root.create_array("0", shape=(size,) * 3, chunks=(chunk,) * 3, dtype=np.uint8)
+    root.create_array("0", shape=(size,) * 3, chunks=(chunk,) * 3, dtype=np.uint8)
     root.attrs["multiscales"] = [{
         "version": "0.4",
         "axes": [{"name": a, "type": "space", "unit": "micrometer"} for a in "zyx"],
         "datasets": [{"path": "0", "coordinateTransformations":
                       [{"type": "scale", "scale": [spacing_um] * 3}]}]}]
-    starts = range(0, size, chunk)
-    for z0 in starts:
-        for y0 in starts:
-            for x0 in starts:
-                lo = np.array([z0, y0, x0])
-                hi = np.minimum(lo + chunk, size)
-                middle = (lo + hi - 1) / 2
-                half = np.linalg.norm((hi - lo) / 2)
-                near = tree.query_ball_point(middle, half + reach)
-                solid = np.zeros(tuple(hi - lo), bool)
-                for z, y, x, r in beads[near]:
-                    # only the box of the bead within the chunk
-                    first = np.maximum(np.floor([z - r, y - r, x - r]).astype(int), lo)
-                    last = np.minimum(np.ceil([z + r, y + r, x + r]).astype(int) + 1, hi)
-                    if np.any(last <= first):
-                        continue
-                    grid = np.ogrid[tuple(slice(a, b) for a, b in zip(first, last))]
-                    inside = ((grid[0] - z) ** 2 + (grid[1] - y) ** 2 + (grid[2] - x) ** 2
-                              <= r * r)
-                    solid[tuple(slice(a - o, b - o) for a, b, o in zip(first, last, lo))] |= inside
-                data[z0:hi[0], y0:hi[1], x0:hi[2]] = (~solid).astype(np.uint8)
+    slabs = [(str(path), size, chunk, z0) for z0 in range(0, size, chunk)]
+    if processes == 1:
+        for slab in slabs:
+            _write_slab(*slab)
+    else:
+        import multiprocessing
+        from concurrent.futures import ProcessPoolExecutor
+
+        with ProcessPoolExecutor(processes, mp_context=multiprocessing.get_context("spawn")) \
+                as pool:
+            list(pool.map(_write_slab, *zip(*slabs)))
     return path
+
+
+_BEADS = {}
+
+
+def _write_slab(path: str, size: int, chunk: int, z0: int) -> None:
+    """Write the chunks whose first plane is ``z0`` (the bead list and its tree are made
+    once per process)."""
+    import zarr
+    from scipy.spatial import cKDTree
+
+    if size not in _BEADS:
+        beads = bead_list(size)
+        _BEADS[size] = beads, cKDTree(beads[:, :3])
+    beads, tree = _BEADS[size]
+    reach = float(beads[:, 3].max())
+    data = zarr.open_group(path, mode="r+")["0"]
+    starts = range(0, size, chunk)
+    for y0 in starts:
+        for x0 in starts:
+            lo = np.array([z0, y0, x0])
+            hi = np.minimum(lo + chunk, size)
+            middle = (lo + hi - 1) / 2
+            half = np.linalg.norm((hi - lo) / 2)
+            near = tree.query_ball_point(middle, half + reach)
+            solid = np.zeros(tuple(hi - lo), bool)
+            for z, y, x, r in beads[near]:
+                # only the box of the bead within the chunk
+                first = np.maximum(np.floor([z - r, y - r, x - r]).astype(int), lo)
+                last = np.minimum(np.ceil([z + r, y + r, x + r]).astype(int) + 1, hi)
+                if np.any(last <= first):
+                    continue
+                grid = np.ogrid[tuple(slice(a, b) for a, b in zip(first, last))]
+                inside = ((grid[0] - z) ** 2 + (grid[1] - y) ** 2 + (grid[2] - x) ** 2
+                          <= r * r)
+                solid[tuple(slice(a - o, b - o) for a, b, o in zip(first, last, lo))] |= inside
+            data[z0:hi[0], y0:hi[1], x0:hi[2]] = (~solid).astype(np.uint8)
 
 
 def tree_bytes(folder: Path, skip: Path | None = None) -> int:
@@ -169,7 +194,8 @@ def main(argv=None) -> int:
     shape, chunks = (args.size,) * 3, (args.chunk,) * 3
     print(f"load average before: {os.getloadavg()}")
     clock = time.perf_counter()
-    store = write_store(folder / "beads.ome.zarr", args.size, args.chunk)
+    store = write_store(folder / "beads.ome.zarr", args.size, args.chunk,
+                        processes=args.workers)
     print(f"store: {store} {args.size}^3 uint8 in {args.chunk}^3 chunks, written in "
           f"{time.perf_counter() - clock:.1f} s")
     share = int(args.memory_per_worker or 0.8 * available_bytes() / args.workers)
