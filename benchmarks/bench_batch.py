@@ -74,19 +74,14 @@ def _warm_up(size: int = 24) -> None:
 def time_batch(manifest: Path, out: Path, workers: int) -> tuple[float, float, float]:
     """(seconds for the whole run, seconds the cluster took to start, seconds the workers
     took to load the kernels, seconds the cluster took to shut down)."""
-    import dask
-    from distributed import Client, LocalCluster
-
     from voxtopo import batch
 
     start = time.perf_counter()
-    with dask.config.set(batch.WORKER_CONFIG):
-        cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                               host="127.0.0.1", dashboard_address=None, silence_logs=40,
-                               memory_limit="6GiB")
+    client, cluster = batch.local_cluster(workers, 6 * 2**30, out.parent / f"{out.name}-dask",
+                                          dashboard=False)
     started = time.perf_counter() - start
     try:
-        with Client(cluster) as client:
+        with client:
             client.run(_warm_up)
         warmed = time.perf_counter() - start - started
         batch.run_batch(manifest, out, scheduler=cluster.scheduler_address,

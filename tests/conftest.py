@@ -4,17 +4,13 @@ import pytest
 
 
 @pytest.fixture(scope="session")
-def cluster_address():
-    """One local dask cluster (2 worker processes on loopback) for the whole session:
-    starting one takes seconds."""
-    import dask
-    from distributed import LocalCluster
-
+def cluster_address(tmp_path_factory):
+    """One local dask cluster (2 worker processes on loopback, started as batches start
+    theirs) for the whole session: starting one takes seconds."""
     from voxtopo import batch
 
-    with dask.config.set(batch.WORKER_CONFIG):
-        cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                               host="127.0.0.1", dashboard_address=None,
-                               memory_limit="3GiB", silence_logs=40)
+    client, cluster = batch.local_cluster(2, 3 * 2**30, tmp_path_factory.mktemp("dask"),
+                                          dashboard=False)
+    client.close()
     yield cluster.scheduler_address
     cluster.close()

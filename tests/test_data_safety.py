@@ -309,17 +309,13 @@ def test_unreachable_scheduler_leaves_no_folder(tmp_path, capsys):
 def test_a_batch_without_workers_stops_with_one_sentence_and_resumes(tmp_path):
     """The scheduler's only worker is gone: the batch stops after the timeout instead of
     waiting forever, keeps what finished, and a rerun with a worker completes."""
-    import dask
-    from distributed import LocalCluster
-
     for i in range(2):
         np.save(tmp_path / f"s{i}.npy", np.eye(6) * (i + 1))
     settings_file = tmp_path / "settings.toml"
     settings_file.write_text("[batch]\nworker_timeout = 2\n[analyse]\nmin_persistence = 0\n")
     out = tmp_path / "out"
-    with dask.config.set(batch.WORKER_CONFIG):
-        cluster = LocalCluster(n_workers=0, processes=True, host="127.0.0.1",
-                               dashboard_address="127.0.0.1:0", silence_logs=40)
+    client, cluster = batch.local_cluster(0, 2 * 2**30, tmp_path / "dask")
+    client.close()
     try:
         started = time.monotonic()
         with pytest.raises(batch.WorkersLost, match="No dask worker .* for 2 s"):

@@ -232,8 +232,7 @@ def test_in_memory_refusal_names_the_out_of_core_path(monkeypatch):
 
 
 def test_a_worker_that_dies_gives_one_sentence_and_writes_nothing(tmp_path):
-    import dask
-    from distributed import Client, LocalCluster
+    from voxtopo.batch.cluster import local_cluster
 
     mask = _blobs((12, 12), seed=2)
 
@@ -250,11 +249,10 @@ def test_a_worker_that_dies_gives_one_sentence_and_writes_nothing(tmp_path):
                 return mask[index]
             os._exit(1)
 
-    with dask.config.set({"distributed.scheduler.allowed-failures": 0}):
-        cluster = LocalCluster(n_workers=1, threads_per_worker=1, processes=True,
-                               host="127.0.0.1", dashboard_address=None, silence_logs=50)
+    client, cluster = local_cluster(1, 2 * 2**30, tmp_path / "dask", dashboard=False,
+                                    config={"distributed.scheduler.allowed-failures": 0})
     try:
-        with Client(cluster) as client, pytest.raises(
+        with client, pytest.raises(
                 TooBigError, match="A worker of the out-of-core run died") as err:
             pores_job.pores_out_of_core(DiesOnWorker(), tmp_path / "out",
                                         pores_job.PoresOptions(out_of_core=True),

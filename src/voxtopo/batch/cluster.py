@@ -105,9 +105,18 @@ def local_cluster(workers: int, limit: int, scratch: Path, dashboard: bool = Tru
                                    dashboard_address="127.0.0.1:0" if dashboard else None,
                                    silence_logs=40, local_directory=str(scratch))
     finally:
-        os.environ.clear()
-        os.environ.update(environment)
+        _restore(environment)
     return Client(cluster), cluster
+
+
+def _restore(environment: dict) -> None:
+    """Give ``os.environ`` back as ``environment`` was, touching only the keys that differ
+    (other threads never see it emptied)."""
+    for key in set(os.environ) - set(environment):
+        del os.environ[key]
+    for key, value in environment.items():
+        if os.environ.get(key) != value:
+            os.environ[key] = value
 
 
 # --- one scan, on a worker -------------------------------------------------------------------
