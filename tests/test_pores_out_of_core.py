@@ -225,6 +225,87 @@ def test_betti_curves_from_euler_characteristic_equal_the_diagrams_and_gudhi(tmp
     assert curves["betti_1"].max() > 0       # the check sees loops, not only zeros
 
 
+def _slabs_of_pieces(mask, chunks, full, queries=()):
+    """Label ``mask`` chunk by chunk (label_chunk), one slab of chunks along the first axis
+    at a time, as the out-of-core run asks for them."""
+    from itertools import groupby
+
+    from voxtopo.porosity._chunked_pieces import label_chunk
+    from voxtopo.porosity._out_of_core import blocks
+
+    phase = mask.astype(np.uint8)
+    edge = np.zeros(mask.shape, bool)
+    for _, slab in groupby(blocks(mask.shape, chunks), key=lambda box: box[0][0]):
+        parts = []
+        for lo, hi in slab:
+            box = tuple(slice(a, b) for a, b in zip(lo, hi))
+            local = np.zeros(mask.shape, bool)
+            local[box] = True
+            mine = [int(np.ravel_multi_index(tuple(np.asarray(q) - lo),
+                                             tuple(np.subtract(hi, lo))))
+                    for q in queries if local[tuple(q)]]
+            parts.append(label_chunk(phase, edge, (1,), full, lo, hi, mine))
+        yield parts
+
+
+@pytest.mark.parametrize("shape, chunks, full", [
+    ((19, 23, 21), (5, 7, 6), True), ((19, 23, 21), (19, 4, 9), False),
+    ((31, 45), (4, 13), True), ((31, 45), (31, 6), False), ((9, 10, 11), (1, 3, 4), True)])
+def test_chunked_pieces_joined_slab_by_slab_equal_scipy_labels(shape, chunks, full):
+    """Reference: scipy.ndimage.label of the whole mask with the same neighbourhood
+    (generate_binary_structure(ndim, ndim) for 26 / 8, (ndim, 1) for 6 / 4)."""
+    from voxtopo.porosity._chunked_pieces import join
+
+    mask = _blobs(shape, seed=len(shape) + sum(chunks), sigma=1.0, level=-0.25)
+    structure = ndimage.generate_binary_structure(mask.ndim, mask.ndim if full else 1)
+    labels, count = ndimage.label(mask, structure=structure)
+    queries = [tuple(q) for q in np.argwhere(mask)[::7]]
+    pieces = join(_slabs_of_pieces(mask, chunks, full, queries), shape, full)
+    assert len(pieces.sizes) == count > 3
+    np.testing.assert_array_equal(np.sort(pieces.sizes),
+                                  np.sort(np.bincount(labels.ravel())[1:]))
+    # the queries in chunk order, as the slabs report them
+    from voxtopo.porosity._out_of_core import blocks
+    ordered = []
+    for lo, hi in blocks(shape, chunks):
+        ordered += [q for q in queries
+                    if all(a <= x < b for a, b, x in zip(lo, hi, q))]
+    found = np.concatenate(pieces.piece_of_query)
+    expected = np.array([labels[q] for q in ordered])
+    # one piece per scipy label and back: the two labellings agree up to renaming
+    assert len(set(zip(found, expected))) == len(set(found)) == len(set(expected))
+    for a in range(mask.ndim):
+        for side, index in ((0, 0), (1, -1)):
+            touching = np.unique(np.take(labels, index, axis=a))
+            touching = set(touching[touching > 0])
+            piece_of = dict(zip(expected, found))
+            flagged = {piece_of[t] for t in touching if t in piece_of}
+            assert flagged <= set(np.flatnonzero(pieces.faces[:, a, side]))
+            assert pieces.faces[:, a, side].sum() == len(touching)
+
+
+def test_the_join_of_pieces_lets_go_of_a_slab_s_planes_two_slabs_later():
+    """The driver's memory: the label planes of the slab before last are released before
+    the next slab is even asked for (only two slabs of planes are held at once)."""
+    import weakref
+
+    from voxtopo.porosity._chunked_pieces import join
+
+    mask = _blobs((24, 20, 20), seed=4, sigma=1.0)
+    held = []
+
+    def watched():
+        for k, slab in enumerate(_slabs_of_pieces(mask, (4, 10, 10), True)):
+            if k >= 2:
+                assert all(r() is None for r in held[k - 2]), f"slab {k - 2} still held"
+            held.append([weakref.ref(plane) for p in slab for plane in p.planes.values()])
+            yield slab
+
+    join(watched(), mask.shape, True)
+    assert len(held) == 6
+    assert all(r() is None for refs in held for r in refs)
+
+
 def test_in_memory_refusal_names_the_out_of_core_path(monkeypatch):
     monkeypatch.setenv("VOXTOPO_MEMORY_LIMIT", "2e6")
     with pytest.raises(TooBigError, match="--out-of-core"):

@@ -46,7 +46,7 @@ from __future__ import annotations
 import time
 from contextlib import contextmanager
 from dataclasses import dataclass
-from itertools import product
+from itertools import groupby, product
 from pathlib import Path
 
 import numpy as np
@@ -745,9 +745,15 @@ def _pieces(phase, edge, codes, neighbourhood, table, body, shape, chunks, compu
     full = neighbourhood in (26, 8)
     task = dask.delayed(_chunked_pieces.label_chunk, pure=False)
     boxes = list(blocks(shape, chunks))
-    parts = compute([task(phase, edge, codes, full, lo, hi, queries.get(lo, ([], []))[1])
-                     for lo, hi in boxes])
-    pieces = _chunked_pieces.join(list(parts), shape, full)
+
+    def slabs():
+        # one slab of chunks along the first axis at a time: the join then holds the
+        # label planes of two slabs, not of the whole scan
+        for _, slab in groupby(boxes, key=lambda box: box[0][0]):
+            yield list(compute([task(phase, edge, codes, full, lo, hi,
+                                     queries.get(lo, ([], []))[1]) for lo, hi in slab]))
+
+    pieces = _chunked_pieces.join(slabs(), shape, full)
     piece = np.full(len(table), -1, np.int64)
     for (lo, _), found in zip(boxes, pieces.piece_of_query):
         if lo in queries:
