@@ -306,6 +306,40 @@ def test_the_join_of_pieces_lets_go_of_a_slab_s_planes_two_slabs_later():
     assert all(r() is None for refs in held for r in refs)
 
 
+@pytest.mark.parametrize("shape, chunks", [((13, 11, 17), (5, 4, 6)), ((12, 9, 10), (12, 2, 10)),
+                                           ((21, 19), (6, 7)), ((17, 23), (17, 23))])
+@pytest.mark.parametrize("construction, connectivity", [("voxel", None), ("vertex", 1)])
+def test_euler_histograms_of_the_chunks_add_up_to_skimage_euler_numbers(shape, chunks,
+                                                                       construction,
+                                                                       connectivity):
+    """Reference: skimage.measure.euler_number (Ohser, Nagel & Schladitz 2002) of the
+    sublevel set at each level, 26 / 8 neighbourhood for the voxel construction and 6 / 4
+    for the vertex one; the chunks' owned cells, each chunk read with a one-voxel halo,
+    add up to it, and so do the binary phases' counts."""
+    from voxtopo.porosity._local_counts import euler_histogram
+    from voxtopo.porosity._out_of_core import blocks
+
+    rng = np.random.default_rng(sum(shape))
+    values = ndimage.gaussian_filter(rng.standard_normal(shape), 1.0)
+    levels = np.quantile(values, np.linspace(0.05, 0.95, 9))
+    curve = np.zeros(len(levels), np.int64)
+    phase = np.zeros(2, np.int64)
+    pore = values <= levels[4]
+    for lo, hi in blocks(shape, chunks):
+        first = [max(a - 1, 0) for a in lo]
+        box = tuple(slice(f, min(b + 1, n)) for f, b, n in zip(first, hi, shape))
+        curve += euler_histogram(values[box], first, lo, hi, shape, construction, levels)
+        for k, inside in enumerate((pore, ~pore)):
+            phase[k] += euler_histogram(np.where(inside[box], 0.0, 1.0), first, lo, hi,
+                                        shape, construction, np.zeros(1))[0]
+    connectivity = connectivity or len(shape)
+    expected = [euler_number(values <= t, connectivity=connectivity) for t in levels]
+    np.testing.assert_array_equal(np.cumsum(curve), expected)
+    assert len(set(expected)) > 2
+    assert phase.tolist() == [euler_number(pore, connectivity=connectivity),
+                              euler_number(~pore, connectivity=connectivity)]
+
+
 def test_in_memory_refusal_names_the_out_of_core_path(monkeypatch):
     monkeypatch.setenv("VOXTOPO_MEMORY_LIMIT", "2e6")
     with pytest.raises(TooBigError, match="--out-of-core"):
