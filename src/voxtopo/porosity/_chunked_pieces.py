@@ -91,7 +91,7 @@ def join(slabs: Iterable[list[ChunkPieces]], shape, full: bool) -> Pieces:
     the first axis, slab after slab in order (a generator may compute each as it is asked
     for). Only the planes of the current slab and the last planes of the slab before are
     held, so the memory is that of two slabs of planes, not of the scan's (at 2048^3 in
-    128^3 chunks, 0.2 GB instead of 1.6 GB). A pair of voxels across a face inside a slab
+    128^3 chunks and int32 labels: 0.12 GB of planes instead of 1.6 GB). A pair of voxels across a face inside a slab
     that also crosses into the next slab is joined at the face between the slabs, which
     takes every shift across the whole plane."""
     ndim = len(shape)
